@@ -1,0 +1,523 @@
+//! The atlas on disk.
+//!
+//! An atlas is a folder with one JSON manifest (`atlas.json`) and a set of binary
+//! arrays under `arrays/`. Every array is declared in the manifest with its element
+//! type, element count, byte length and SHA-256, and readers check all four before
+//! handing out typed data. Nothing here panics on bad bytes: every failure is an
+//! [`AtlasError`].
+//!
+//! Invariant: this crate has no dependency that cannot compile for wasm32.
+
+use serde::{Deserialize, Serialize};
+use sha2::{Digest, Sha256};
+
+/// The format version this crate writes and reads.
+pub const FORMAT_VERSION: u32 = 1;
+/// The value of the manifest's `format` key.
+pub const FORMAT_NAME: &str = "vitrine-atlas";
+/// File name of the manifest inside an atlas folder.
+pub const MANIFEST_FILE: &str = "atlas.json";
+
+#[derive(Debug, thiserror::Error)]
+pub enum AtlasError {
+    #[error("manifest is not valid JSON: {0}")]
+    ManifestJson(String),
+    #[error("not a Vitrine atlas manifest (format = {0:?})")]
+    NotAnAtlas(String),
+    #[error(
+        "atlas format version {found} is not supported (this reader knows version {supported})"
+    )]
+    UnsupportedVersion { found: u32, supported: u32 },
+    #[error("array {file}: expected {expected} bytes, found {found}")]
+    WrongLength {
+        file: String,
+        expected: u64,
+        found: u64,
+    },
+    #[error("array {file}: declared {count} elements of {dtype:?} but {bytes} bytes")]
+    InconsistentDeclaration {
+        file: String,
+        count: u64,
+        dtype: DType,
+        bytes: u64,
+    },
+    #[error("array {file}: checksum mismatch (manifest says {expected}, data hashes to {found})")]
+    Checksum {
+        file: String,
+        expected: String,
+        found: String,
+    },
+    #[error("array {file}: element type is {found:?}, the reader asked for {wanted:?}")]
+    WrongType {
+        file: String,
+        found: DType,
+        wanted: DType,
+    },
+    #[error("array {file}: {reason}")]
+    BadContent { file: String, reason: String },
+    #[error("manifest is inconsistent: {0}")]
+    Inconsistent(String),
+}
+
+/// Element type of a binary array. All arrays are little-endian.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum DType {
+    U8,
+    U32,
+    I32,
+    F32,
+}
+
+impl DType {
+    pub fn size(self) -> u64 {
+        match self {
+            DType::U8 => 1,
+            DType::U32 | DType::I32 | DType::F32 => 4,
+        }
+    }
+}
+
+/// Declaration of one binary array file.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ArrayRef {
+    /// Path relative to the atlas folder, always with forward slashes.
+    pub file: String,
+    pub dtype: DType,
+    /// Number of elements (not bytes).
+    pub count: u64,
+    pub bytes: u64,
+    /// Lower-case hex SHA-256 of the file's bytes.
+    pub sha256: String,
+}
+
+pub fn sha256_hex(bytes: &[u8]) -> String {
+    let digest = Sha256::digest(bytes);
+    let mut s = String::with_capacity(64);
+    for b in digest {
+        s.push_str(&format!("{b:02x}"));
+    }
+    s
+}
+
+/// Element types that can be cast from little-endian bytes.
+pub trait Element: bytemuck::Pod {
+    const DTYPE: DType;
+}
+impl Element for u8 {
+    const DTYPE: DType = DType::U8;
+}
+impl Element for u32 {
+    const DTYPE: DType = DType::U32;
+}
+impl Element for i32 {
+    const DTYPE: DType = DType::I32;
+}
+impl Element for f32 {
+    const DTYPE: DType = DType::F32;
+}
+
+impl ArrayRef {
+    /// Declares `data` as the array stored at `file` and returns the declaration and the bytes to write.
+    pub fn encode<T: Element>(file: &str, data: &[T]) -> (ArrayRef, Vec<u8>) {
+        // Little-endian on disk: every target we build for is little-endian, and
+        // this is checked at compile time below.
+        let bytes: Vec<u8> = bytemuck::cast_slice(data).to_vec();
+        let r = ArrayRef {
+            file: file.to_string(),
+            dtype: T::DTYPE,
+            count: data.len() as u64,
+            bytes: bytes.len() as u64,
+            sha256: sha256_hex(&bytes),
+        };
+        (r, bytes)
+    }
+
+    /// Checks length and checksum of `bytes` against this declaration.
+    pub fn verify(&self, bytes: &[u8]) -> Result<(), AtlasError> {
+        if self.count.checked_mul(self.dtype.size()) != Some(self.bytes) {
+            return Err(AtlasError::InconsistentDeclaration {
+                file: self.file.clone(),
+                count: self.count,
+                dtype: self.dtype,
+                bytes: self.bytes,
+            });
+        }
+        if bytes.len() as u64 != self.bytes {
+            return Err(AtlasError::WrongLength {
+                file: self.file.clone(),
+                expected: self.bytes,
+                found: bytes.len() as u64,
+            });
+        }
+        let found = sha256_hex(bytes);
+        if found != self.sha256 {
+            return Err(AtlasError::Checksum {
+                file: self.file.clone(),
+                expected: self.sha256.clone(),
+                found,
+            });
+        }
+        Ok(())
+    }
+
+    /// Verifies `bytes` and copies them out as typed elements.
+    pub fn decode<T: Element>(&self, bytes: &[u8]) -> Result<Vec<T>, AtlasError> {
+        if self.dtype != T::DTYPE {
+            return Err(AtlasError::WrongType {
+                file: self.file.clone(),
+                found: self.dtype,
+                wanted: T::DTYPE,
+            });
+        }
+        self.verify(bytes)?;
+        // Copy element by element so that unaligned input buffers are fine.
+        let size = std::mem::size_of::<T>();
+        Ok(bytes
+            .chunks_exact(size)
+            .map(bytemuck::pod_read_unaligned::<T>)
+            .collect())
+    }
+}
+
+const _: () = assert!(
+    cfg!(target_endian = "little"),
+    "the atlas format is little-endian"
+);
+
+/// Kinds of catalogue field.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum FieldKind {
+    /// One value from a small vocabulary. Column: u32 code per item into `values`; `u32::MAX` = empty.
+    Category,
+    /// A number. Column: f32 per item; NaN = empty.
+    Number,
+    /// A year range. Columns: `start` and `end`, i32 years per item; `i32::MIN` = empty.
+    Date,
+    /// Free text. Column: a text table (see [`TextTable`]).
+    Text,
+    /// A URL to the full image or record. Stored as text.
+    Link,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Field {
+    pub name: String,
+    pub kind: FieldKind,
+    /// Category codes, f32 numbers, or for text/link fields the text table's offsets.
+    pub column: ArrayRef,
+    /// Date fields: the end years (the start years are in `column`). Text fields: the UTF-8 bytes.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub column2: Option<ArrayRef>,
+    /// Category fields: the vocabulary, in code order, and the count of each value.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub values: Vec<String>,
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub value_counts: Vec<u64>,
+}
+
+/// A text column: `offsets` (u32, count + 1 entries, starting at 0) into `utf8` bytes.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TextTable {
+    pub offsets: Vec<u32>,
+    pub utf8: Vec<u8>,
+}
+
+impl TextTable {
+    pub fn from_strings<S: AsRef<str>>(items: &[S]) -> TextTable {
+        let mut offsets = Vec::with_capacity(items.len() + 1);
+        let mut utf8 = Vec::new();
+        offsets.push(0);
+        for s in items {
+            utf8.extend_from_slice(s.as_ref().as_bytes());
+            offsets.push(utf8.len() as u32);
+        }
+        TextTable { offsets, utf8 }
+    }
+
+    /// Checks that offsets are monotone, in range, and cut the bytes at UTF-8 boundaries.
+    pub fn validate(&self, file: &str, expected_items: u64) -> Result<(), AtlasError> {
+        let bad = |reason: String| AtlasError::BadContent {
+            file: file.to_string(),
+            reason,
+        };
+        if self.offsets.len() as u64 != expected_items + 1 {
+            return Err(bad(format!(
+                "{} offsets for {} items",
+                self.offsets.len(),
+                expected_items
+            )));
+        }
+        if self.offsets.first() != Some(&0) {
+            return Err(bad("first offset is not 0".into()));
+        }
+        if *self.offsets.last().unwrap_or(&0) as usize != self.utf8.len() {
+            return Err(bad("last offset is not the text length".into()));
+        }
+        if self.offsets.windows(2).any(|w| w[0] > w[1]) {
+            return Err(bad("offsets decrease".into()));
+        }
+        let text =
+            std::str::from_utf8(&self.utf8).map_err(|e| bad(format!("text is not UTF-8: {e}")))?;
+        if let Some(o) = self
+            .offsets
+            .iter()
+            .find(|&&o| !text.is_char_boundary(o as usize))
+        {
+            return Err(bad(format!("offset {o} splits a character")));
+        }
+        Ok(())
+    }
+
+    pub fn len(&self) -> usize {
+        self.offsets.len().saturating_sub(1)
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+
+    /// The i-th string. Only valid after [`TextTable::validate`]; returns "" when out of range.
+    pub fn get(&self, i: usize) -> &str {
+        match (self.offsets.get(i), self.offsets.get(i + 1)) {
+            (Some(&a), Some(&b)) => {
+                std::str::from_utf8(&self.utf8[a as usize..b as usize]).unwrap_or("")
+            }
+            _ => "",
+        }
+    }
+}
+
+/// One 2-D layout of the items.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct MapLayout {
+    /// "similarity", "timeline", "lattice", ...
+    pub name: String,
+    pub description: String,
+    /// Interleaved x, y (f32) per item, in atlas item order.
+    pub positions: ArrayRef,
+    /// [min_x, min_y, max_x, max_y]
+    pub bounds: [f32; 4],
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Neighbours {
+    pub k: u32,
+    pub metric: String,
+    pub exact: bool,
+    /// u32 item indices, k per item, nearest first; `u32::MAX` pads when fewer exist.
+    pub ids: ArrayRef,
+    /// f32 distances matching `ids`.
+    pub distances: ArrayRef,
+}
+
+/// One level of detail of the thumbnails.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SheetLevel {
+    /// Cell edge in pixels; a thumbnail fits inside a cell with its aspect kept.
+    pub cell: u32,
+    /// Cells per row and per column of one sheet.
+    pub columns: u32,
+    pub rows: u32,
+    /// Sheet image files, relative to the atlas folder. Item i sits in sheet i / (columns*rows),
+    /// cell i % (columns*rows), row-major.
+    pub files: Vec<String>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Sheets {
+    pub levels: Vec<SheetLevel>,
+    /// u32 per item: thumbnail width and height inside its cell at the largest level, packed as w | h << 16.
+    pub extents: ArrayRef,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct InputFile {
+    /// "vectors", "catalogue", "images"
+    pub role: String,
+    pub path: String,
+    pub bytes: u64,
+    pub sha256: String,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Provenance {
+    pub tool: String,
+    pub tool_version: String,
+    pub inputs: Vec<InputFile>,
+    /// Every build parameter, by its CLI name.
+    pub parameters: serde_json::Map<String, serde_json::Value>,
+    pub seed: u64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Manifest {
+    pub format: String,
+    pub format_version: u32,
+    pub title: String,
+    pub item_count: u64,
+    /// Catalogue ids in atlas item order (a text table: offsets, then bytes).
+    pub ids: ArrayRef,
+    pub ids_text: ArrayRef,
+    /// u32 per item: the row of the item in the input vectors.
+    pub source_rows: ArrayRef,
+    /// RGBA u8 per item: the average colour of its image (or a mark colour without images).
+    pub colours: ArrayRef,
+    pub fields: Vec<Field>,
+    pub maps: Vec<MapLayout>,
+    pub neighbours: Neighbours,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sheets: Option<Sheets>,
+    /// Quality figures by name (e.g. "trustworthiness_10").
+    #[serde(default)]
+    pub quality: serde_json::Map<String, serde_json::Value>,
+    pub provenance: Provenance,
+}
+
+impl Manifest {
+    /// Parses and checks a manifest: format name, version, and that every declared array has the item count it must.
+    pub fn from_json(text: &str) -> Result<Manifest, AtlasError> {
+        let value: serde_json::Value =
+            serde_json::from_str(text).map_err(|e| AtlasError::ManifestJson(e.to_string()))?;
+        let format = value
+            .get("format")
+            .and_then(|f| f.as_str())
+            .unwrap_or("")
+            .to_string();
+        if format != FORMAT_NAME {
+            return Err(AtlasError::NotAnAtlas(format));
+        }
+        let version = value
+            .get("format_version")
+            .and_then(|v| v.as_u64())
+            .unwrap_or(0) as u32;
+        if version != FORMAT_VERSION {
+            return Err(AtlasError::UnsupportedVersion {
+                found: version,
+                supported: FORMAT_VERSION,
+            });
+        }
+        let m: Manifest =
+            serde_json::from_value(value).map_err(|e| AtlasError::ManifestJson(e.to_string()))?;
+        m.check_counts()?;
+        Ok(m)
+    }
+
+    pub fn to_json(&self) -> String {
+        serde_json::to_string_pretty(self).expect("manifest serialises")
+    }
+
+    fn check_counts(&self) -> Result<(), AtlasError> {
+        let n = self.item_count;
+        let want = |r: &ArrayRef, count: u64, dtype: DType| -> Result<(), AtlasError> {
+            if r.count != count || r.dtype != dtype {
+                return Err(AtlasError::Inconsistent(format!(
+                    "{} should hold {count} {dtype:?} but declares {} {:?}",
+                    r.file, r.count, r.dtype
+                )));
+            }
+            if r.count.checked_mul(r.dtype.size()) != Some(r.bytes) {
+                return Err(AtlasError::InconsistentDeclaration {
+                    file: r.file.clone(),
+                    count: r.count,
+                    dtype: r.dtype,
+                    bytes: r.bytes,
+                });
+            }
+            Ok(())
+        };
+        want(&self.ids, n + 1, DType::U32)?;
+        want(&self.source_rows, n, DType::U32)?;
+        want(&self.colours, n * 4, DType::U8)?;
+        for m in &self.maps {
+            want(&m.positions, n * 2, DType::F32)?;
+        }
+        let k = self.neighbours.k as u64;
+        want(&self.neighbours.ids, n * k, DType::U32)?;
+        want(&self.neighbours.distances, n * k, DType::F32)?;
+        for f in &self.fields {
+            match f.kind {
+                FieldKind::Category => {
+                    want(&f.column, n, DType::U32)?;
+                    if f.values.len() != f.value_counts.len() {
+                        return Err(AtlasError::Inconsistent(format!(
+                            "field {}: values and counts differ",
+                            f.name
+                        )));
+                    }
+                }
+                FieldKind::Number => want(&f.column, n, DType::F32)?,
+                FieldKind::Date => {
+                    want(&f.column, n, DType::I32)?;
+                    let end = f.column2.as_ref().ok_or_else(|| {
+                        AtlasError::Inconsistent(format!(
+                            "date field {} has no end-year column",
+                            f.name
+                        ))
+                    })?;
+                    want(end, n, DType::I32)?;
+                }
+                FieldKind::Text | FieldKind::Link => {
+                    want(&f.column, n + 1, DType::U32)?;
+                    if f.column2.as_ref().map(|c| c.dtype) != Some(DType::U8) {
+                        return Err(AtlasError::Inconsistent(format!(
+                            "text field {} has no byte column",
+                            f.name
+                        )));
+                    }
+                }
+            }
+        }
+        if let Some(s) = &self.sheets {
+            want(&s.extents, n, DType::U32)?;
+            for l in &s.levels {
+                let per = (l.columns as u64) * (l.rows as u64);
+                if per == 0 || (l.files.len() as u64) < n.div_ceil(per) {
+                    return Err(AtlasError::Inconsistent(format!(
+                        "sheet level {} has too few sheets",
+                        l.cell
+                    )));
+                }
+            }
+        }
+        Ok(())
+    }
+
+    /// Every binary array the manifest declares.
+    pub fn arrays(&self) -> Vec<&ArrayRef> {
+        let mut v = vec![&self.ids, &self.ids_text, &self.source_rows, &self.colours];
+        v.extend(self.maps.iter().map(|m| &m.positions));
+        v.push(&self.neighbours.ids);
+        v.push(&self.neighbours.distances);
+        for f in &self.fields {
+            v.push(&f.column);
+            if let Some(c) = &f.column2 {
+                v.push(c);
+            }
+        }
+        if let Some(s) = &self.sheets {
+            v.push(&s.extents);
+        }
+        v
+    }
+}
+
+/// Reads a text table from its two arrays and validates it.
+pub fn decode_text(
+    offsets: &ArrayRef,
+    off_bytes: &[u8],
+    text: &ArrayRef,
+    text_bytes: &[u8],
+    items: u64,
+) -> Result<TextTable, AtlasError> {
+    let t = TextTable {
+        offsets: offsets.decode::<u32>(off_bytes)?,
+        utf8: text.decode::<u8>(text_bytes)?,
+    };
+    t.validate(&offsets.file, items)?;
+    Ok(t)
+}
+
+#[cfg(test)]
+mod tests;
