@@ -18,7 +18,7 @@ setup() {
 run_tests() {
   setup
   echo "[test] cargo test (workspace)"
-  cargo test --workspace --locked 2>&1
+  cargo test --workspace --locked --release 2>&1
 }
 
 case "${1:-}" in

@@ -215,6 +215,10 @@ pub struct Field {
     pub values: Vec<String>,
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub value_counts: Vec<u64>,
+    /// Date and number fields: each value as the catalogue wrote it ("c. 1540"), a text table
+    /// (offsets, bytes), so that the record card shows the record's own words.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub written: Option<[ArrayRef; 2]>,
 }
 
 /// A text column: `offsets` (u32, count + 1 entries, starting at 0) into `utf8` bytes.
@@ -469,6 +473,17 @@ impl Manifest {
                 }
             }
         }
+        for f in &self.fields {
+            if let Some([offsets, bytes]) = &f.written {
+                want(offsets, n + 1, DType::U32)?;
+                if bytes.dtype != DType::U8 {
+                    return Err(AtlasError::Inconsistent(format!(
+                        "field {}: written text is not bytes",
+                        f.name
+                    )));
+                }
+            }
+        }
         if let Some(s) = &self.sheets {
             want(&s.extents, n, DType::U32)?;
             for l in &s.levels {
@@ -494,6 +509,10 @@ impl Manifest {
             v.push(&f.column);
             if let Some(c) = &f.column2 {
                 v.push(c);
+            }
+            if let Some([a, b]) = &f.written {
+                v.push(a);
+                v.push(b);
             }
         }
         if let Some(s) = &self.sheets {

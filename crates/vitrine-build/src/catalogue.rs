@@ -1,0 +1,331 @@
+//! The catalogue: a CSV table with a header row and one record per image.
+//!
+//! Every column is kept. Each one becomes a field whose kind (category, number, date, text,
+//! link) is inferred from its name and values by the rules in [`infer_kind`].
+
+use std::collections::HashMap;
+use std::path::Path;
+
+use vitrine_format::FieldKind;
+
+use crate::dates::{parse_date, YearRange};
+use crate::error::InputError;
+
+#[derive(Debug, Clone)]
+pub struct Catalogue {
+    pub file: String,
+    pub header: Vec<String>,
+    /// Column index of the id.
+    pub id_column: usize,
+    /// Records as read, one string per column.
+    pub rows: Vec<Vec<String>>,
+}
+
+impl Catalogue {
+    pub fn ids(&self) -> impl Iterator<Item = &str> {
+        self.rows.iter().map(move |r| r[self.id_column].as_str())
+    }
+    pub fn column(&self, name: &str) -> Option<usize> {
+        self.header.iter().position(|h| h == name)
+    }
+}
+
+pub fn read_csv(path: &Path, id_column: &str) -> Result<Catalogue, InputError> {
+    let raw = std::fs::read(path).map_err(|e| InputError::io(path, e))?;
+    parse_csv(&raw, path, id_column)
+}
+
+pub fn parse_csv(raw: &[u8], path: &Path, id_column: &str) -> Result<Catalogue, InputError> {
+    let file = path.display().to_string();
+    let bad = |reason: String| InputError::Catalogue {
+        file: file.clone(),
+        reason,
+    };
+    let body = raw.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(raw);
+    let mut reader = csv::ReaderBuilder::new()
+        .has_headers(true)
+        .flexible(false)
+        .from_reader(body);
+    let header: Vec<String> = reader
+        .byte_headers()
+        .map_err(|e| bad(format!("cannot read the header row: {e}")))?
+        .iter()
+        .enumerate()
+        .map(|(i, h)| {
+            String::from_utf8(h.to_vec())
+                .map(|s| s.trim().to_string())
+                .map_err(|_| bad(format!("header column {} is not UTF-8 text", i + 1)))
+        })
+        .collect::<Result<_, _>>()?;
+    if header.is_empty() || header.iter().all(|h| h.is_empty()) {
+        return Err(bad("the file has no header row".into()));
+    }
+    let mut seen = HashMap::new();
+    for (i, h) in header.iter().enumerate() {
+        if h.is_empty() {
+            return Err(bad(format!("header column {} has no name", i + 1)));
+        }
+        if let Some(j) = seen.insert(h.clone(), i) {
+            return Err(bad(format!(
+                "the column name {h:?} appears twice (columns {} and {})",
+                j + 1,
+                i + 1
+            )));
+        }
+    }
+    let id_col = header.iter().position(|h| h == id_column).ok_or_else(|| {
+        bad(format!(
+            "there is no id column {id_column:?} (columns: {}); name it with --id-column",
+            header.join(", ")
+        ))
+    })?;
+    let mut rows = Vec::new();
+    let mut first_line = HashMap::<String, u64>::new();
+    for (i, rec) in reader.byte_records().enumerate() {
+        // Row numbers in messages count records from 1 after the header, as a spreadsheet shows them minus one.
+        let row_no = i + 1;
+        let rec = rec.map_err(|e| match e.kind() {
+            csv::ErrorKind::UnequalLengths {
+                expected_len,
+                len,
+                pos,
+            } => bad(format!(
+                "record {row_no} (line {}) has {len} fields, the header has {expected_len}",
+                pos.as_ref().map(|p| p.line()).unwrap_or(0)
+            )),
+            _ => bad(format!("record {row_no}: {e}")),
+        })?;
+        let line = rec.position().map(|p| p.line()).unwrap_or(0);
+        let mut row = Vec::with_capacity(header.len());
+        for (c, f) in rec.iter().enumerate() {
+            let s = String::from_utf8(f.to_vec()).map_err(|_| {
+                bad(format!(
+                    "record {row_no} (line {line}), field {:?}: not UTF-8 text (save the file as UTF-8)",
+                    header[c]
+                ))
+            })?;
+            row.push(s);
+        }
+        let id = row[id_col].trim().to_string();
+        if id.is_empty() {
+            return Err(bad(format!(
+                "record {row_no} (line {line}) has an empty id"
+            )));
+        }
+        if let Some(prev) = first_line.insert(id.clone(), line) {
+            return Err(bad(format!(
+                "the id {id:?} appears twice (lines {prev} and {line})"
+            )));
+        }
+        row[id_col] = id;
+        rows.push(row);
+    }
+    Ok(Catalogue {
+        file,
+        header,
+        id_column: id_col,
+        rows,
+    })
+}
+
+/// A field's values, ready to be written as atlas columns.
+#[derive(Debug, Clone, PartialEq)]
+pub enum FieldData {
+    Category {
+        codes: Vec<u32>,
+        values: Vec<String>,
+        counts: Vec<u64>,
+    },
+    Number {
+        values: Vec<f32>,
+        written: Vec<String>,
+    },
+    Date {
+        ranges: Vec<Option<YearRange>>,
+        written: Vec<String>,
+    },
+    Text(Vec<String>),
+    Link(Vec<String>),
+}
+
+impl FieldData {
+    pub fn kind(&self) -> FieldKind {
+        match self {
+            FieldData::Category { .. } => FieldKind::Category,
+            FieldData::Number { .. } => FieldKind::Number,
+            FieldData::Date { .. } => FieldKind::Date,
+            FieldData::Text(_) => FieldKind::Text,
+            FieldData::Link(_) => FieldKind::Link,
+        }
+    }
+}
+
+/// A value that could not be read as its field's kind; kept as written, reported, never dropped.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct ValueWarning {
+    pub field: String,
+    pub id: String,
+    pub value: String,
+    pub reason: String,
+}
+
+fn looks_like_date_column(name: &str) -> bool {
+    let n = name.to_lowercase();
+    ["date", "dating", "year", "period", "datierung"]
+        .iter()
+        .any(|w| n.contains(w))
+}
+
+/// The kind of a column, from its name and values:
+/// - link: every non-empty value starts with `http://` or `https://`;
+/// - date: the name speaks of a date (date, dating, year, period), or every non-empty value parses as a
+///   year range and at least one is written as a range or with "c.";
+/// - number: every non-empty value parses as a number;
+/// - category: at most 1,000 distinct values and no more than half as many distinct values as records
+///   (or at most 12 distinct values in a small catalogue);
+/// - text otherwise.
+pub fn infer_kind(name: &str, values: &[&str]) -> FieldKind {
+    let filled: Vec<&str> = values
+        .iter()
+        .map(|v| v.trim())
+        .filter(|v| !v.is_empty())
+        .collect();
+    if filled.is_empty() {
+        return FieldKind::Text;
+    }
+    if filled
+        .iter()
+        .all(|v| v.starts_with("http://") || v.starts_with("https://"))
+    {
+        return FieldKind::Link;
+    }
+    let all_dates = filled.iter().all(|v| parse_date(v).is_some());
+    if looks_like_date_column(name)
+        && filled.iter().filter(|v| parse_date(v).is_some()).count() * 2 >= filled.len()
+    {
+        return FieldKind::Date;
+    }
+    if all_dates
+        && filled
+            .iter()
+            .any(|v| parse_date(v).is_some_and(|r| r.start != r.end) && v.parse::<f64>().is_err())
+    {
+        return FieldKind::Date;
+    }
+    if filled
+        .iter()
+        .all(|v| v.parse::<f64>().is_ok_and(|x| x.is_finite()))
+    {
+        return FieldKind::Number;
+    }
+    let mut distinct = std::collections::HashSet::new();
+    for v in &filled {
+        distinct.insert(*v);
+        if distinct.len() > 1000 {
+            return FieldKind::Text;
+        }
+    }
+    if distinct.len() * 2 <= filled.len()
+        || distinct.len() <= 12.min(filled.len()) && filled.len() < 24
+    {
+        FieldKind::Category
+    } else {
+        FieldKind::Text
+    }
+}
+
+/// Builds a field's columns for the given records (catalogue rows in item order).
+pub fn field_data(
+    name: &str,
+    kind: FieldKind,
+    values: &[&str],
+    ids: &[&str],
+    warnings: &mut Vec<ValueWarning>,
+) -> FieldData {
+    match kind {
+        FieldKind::Category => {
+            let mut index: HashMap<&str, u32> = HashMap::new();
+            let mut order: Vec<&str> = Vec::new();
+            for v in values {
+                let v = v.trim();
+                if !v.is_empty() && !index.contains_key(v) {
+                    index.insert(v, 0);
+                    order.push(v);
+                }
+            }
+            // Vocabulary sorted by count (most frequent first), ties by text: stable and useful for legends.
+            let mut counts: HashMap<&str, u64> = HashMap::new();
+            for v in values {
+                let v = v.trim();
+                if !v.is_empty() {
+                    *counts.entry(v).or_default() += 1;
+                }
+            }
+            order.sort_by(|a, b| counts[b].cmp(&counts[a]).then(a.cmp(b)));
+            for (i, v) in order.iter().enumerate() {
+                index.insert(v, i as u32);
+            }
+            let codes = values
+                .iter()
+                .map(|v| {
+                    let v = v.trim();
+                    if v.is_empty() {
+                        u32::MAX
+                    } else {
+                        index[v]
+                    }
+                })
+                .collect();
+            FieldData::Category {
+                codes,
+                counts: order.iter().map(|v| counts[v]).collect(),
+                values: order.iter().map(|v| v.to_string()).collect(),
+            }
+        }
+        FieldKind::Number => {
+            let mut out = Vec::with_capacity(values.len());
+            for (v, id) in values.iter().zip(ids) {
+                let t = v.trim();
+                if t.is_empty() {
+                    out.push(f32::NAN);
+                } else if let Ok(x) = t.parse::<f64>() {
+                    out.push(x as f32);
+                } else {
+                    warnings.push(ValueWarning {
+                        field: name.into(),
+                        id: id.to_string(),
+                        value: v.to_string(),
+                        reason: "not a number; kept as written".into(),
+                    });
+                    out.push(f32::NAN);
+                }
+            }
+            FieldData::Number {
+                values: out,
+                written: values.iter().map(|v| v.to_string()).collect(),
+            }
+        }
+        FieldKind::Date => {
+            let mut ranges = Vec::with_capacity(values.len());
+            for (v, id) in values.iter().zip(ids) {
+                let t = v.trim();
+                let r = if t.is_empty() { None } else { parse_date(t) };
+                if r.is_none() && !t.is_empty() {
+                    warnings.push(ValueWarning {
+                        field: name.into(),
+                        id: id.to_string(),
+                        value: v.to_string(),
+                        reason: "not a date this build can read; kept as written, undated".into(),
+                    });
+                }
+                ranges.push(r);
+            }
+            FieldData::Date {
+                ranges,
+                written: values.iter().map(|v| v.to_string()).collect(),
+            }
+        }
+        FieldKind::Text => FieldData::Text(values.iter().map(|v| v.to_string()).collect()),
+        FieldKind::Link => FieldData::Link(values.iter().map(|v| v.trim().to_string()).collect()),
+    }
+}

@@ -1,0 +1,201 @@
+//! Catalogue datings to year ranges.
+//!
+//! The rule, stated once (docs/atlas-format.md repeats it):
+//! - `1602` → 1602–1602; `-450` or `450 BC`/`450 BCE` → −450.
+//! - `1550-1575`, `1550–1575`, `1550 to 1575`, `1550/1575` → 1550–1575; `1550-75` → 1550–1575.
+//! - `c. 1540`, `ca. 1540`, `circa 1540`, `about 1540`, `around 1540`, `c.1540` → 1535–1545 (five years either side).
+//! - `1540s` → 1540–1549. `16th century` → 1500–1599; `early` / `mid` / `late` take its first, middle
+//!   and last third (1500–1533, 1533–1566, 1566–1599); `first half` / `second half` its halves.
+//! - `before 1600` → 1580–1600 and `after 1600` → 1600–1620 (a twenty-year window, stated here).
+//! - A trailing `?` is ignored. Anything else is not a date: the build keeps the text and reports it.
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
+pub struct YearRange {
+    pub start: i32,
+    pub end: i32,
+}
+
+const CIRCA_SPAN: i32 = 5;
+const OPEN_SPAN: i32 = 20;
+
+pub fn parse_date(text: &str) -> Option<YearRange> {
+    let t = text.trim().trim_end_matches('?').trim().to_lowercase();
+    if t.is_empty() {
+        return None;
+    }
+    for prefix in [
+        "circa ", "ca. ", "ca.", "c. ", "c.", "about ", "around ", "approx. ",
+    ] {
+        if let Some(rest) = t.strip_prefix(prefix) {
+            let y = year(rest.trim())?;
+            return Some(YearRange {
+                start: y - CIRCA_SPAN,
+                end: y + CIRCA_SPAN,
+            });
+        }
+    }
+    if let Some(rest) = t.strip_prefix("before ") {
+        let y = year(rest.trim())?;
+        return Some(YearRange {
+            start: y - OPEN_SPAN,
+            end: y,
+        });
+    }
+    if let Some(rest) = t.strip_prefix("after ") {
+        let y = year(rest.trim())?;
+        return Some(YearRange {
+            start: y,
+            end: y + OPEN_SPAN,
+        });
+    }
+    if let Some(r) = century(&t) {
+        return Some(r);
+    }
+    if let Some(d) = t.strip_suffix("0s") {
+        let decade: i32 = d.parse().ok()?;
+        if d.len() >= 3 {
+            return Some(YearRange {
+                start: decade * 10,
+                end: decade * 10 + 9,
+            });
+        }
+        return None;
+    }
+    for sep in [" to ", "–", "—", "/", "-"] {
+        // A leading minus is a sign, not a separator.
+        let search_from = if t.starts_with('-') { 1 } else { 0 };
+        if let Some(pos) = t[search_from..].find(sep).map(|p| p + search_from) {
+            let a = t[..pos].trim();
+            let b = t[pos + sep.len()..].trim();
+            let start = year(a)?;
+            let mut end = year(b)?;
+            // "1550-75": the end shares the start's leading digits.
+            if b.len() < a.len() && b.chars().all(|c| c.is_ascii_digit()) && start >= 0 {
+                let scale = 10i32.pow(b.len() as u32);
+                end = start - start % scale + end;
+                if end < start {
+                    end += scale;
+                }
+            }
+            if end < start {
+                return None;
+            }
+            return Some(YearRange { start, end });
+        }
+    }
+    let y = year(&t)?;
+    Some(YearRange { start: y, end: y })
+}
+
+fn year(s: &str) -> Option<i32> {
+    let s = s.trim();
+    for suffix in [" bce", " bc", "bce", "bc"] {
+        if let Some(n) = s.strip_suffix(suffix) {
+            let y: i32 = n.trim().parse().ok()?;
+            return (y > 0 && y < 10000).then_some(-y);
+        }
+    }
+    let s = s
+        .strip_suffix(" ce")
+        .or_else(|| s.strip_suffix(" ad"))
+        .unwrap_or(s);
+    if s.is_empty() || s.len() > 5 {
+        return None;
+    }
+    let digits = s.strip_prefix('-').unwrap_or(s);
+    if digits.is_empty() || !digits.chars().all(|c| c.is_ascii_digit()) {
+        return None;
+    }
+    s.parse().ok()
+}
+
+fn century(t: &str) -> Option<YearRange> {
+    let (part, rest) = if let Some(r) = t.strip_prefix("early ") {
+        (Some(0), r)
+    } else if let Some(r) = t.strip_prefix("mid ").or_else(|| t.strip_prefix("mid-")) {
+        (Some(1), r)
+    } else if let Some(r) = t.strip_prefix("late ") {
+        (Some(2), r)
+    } else if let Some(r) = t
+        .strip_prefix("first half of the ")
+        .or_else(|| t.strip_prefix("first half "))
+    {
+        (Some(3), r)
+    } else if let Some(r) = t
+        .strip_prefix("second half of the ")
+        .or_else(|| t.strip_prefix("second half "))
+    {
+        (Some(4), r)
+    } else {
+        (None, t)
+    };
+    let rest = rest.strip_suffix(" century")?;
+    let num = rest
+        .strip_suffix("th")
+        .or_else(|| rest.strip_suffix("st"))
+        .or_else(|| rest.strip_suffix("nd"))
+        .or_else(|| rest.strip_suffix("rd"))?;
+    let c: i32 = num.parse().ok()?;
+    if !(1..=30).contains(&c) {
+        return None;
+    }
+    let start = (c - 1) * 100;
+    let end = start + 99;
+    Some(match part {
+        None => YearRange { start, end },
+        Some(0) => YearRange {
+            start,
+            end: start + 33,
+        },
+        Some(1) => YearRange {
+            start: start + 33,
+            end: start + 66,
+        },
+        Some(2) => YearRange {
+            start: start + 66,
+            end,
+        },
+        Some(3) => YearRange {
+            start,
+            end: start + 49,
+        },
+        _ => YearRange {
+            start: start + 50,
+            end,
+        },
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn r(start: i32, end: i32) -> Option<YearRange> {
+        Some(YearRange { start, end })
+    }
+
+    #[test]
+    fn catalogue_datings_as_written() {
+        // Worked examples of the rule in this module's header.
+        assert_eq!(parse_date("1602"), r(1602, 1602));
+        assert_eq!(parse_date("c. 1540"), r(1535, 1545));
+        assert_eq!(parse_date("ca.1540"), r(1535, 1545));
+        assert_eq!(parse_date("circa 1540?"), r(1535, 1545));
+        assert_eq!(parse_date("1550-1575"), r(1550, 1575));
+        assert_eq!(parse_date("1550–1575"), r(1550, 1575));
+        assert_eq!(parse_date("1550 to 1575"), r(1550, 1575));
+        assert_eq!(parse_date("1550-75"), r(1550, 1575));
+        assert_eq!(parse_date("1598-03"), r(1598, 1603));
+        assert_eq!(parse_date("1540s"), r(1540, 1549));
+        assert_eq!(parse_date("16th century"), r(1500, 1599));
+        assert_eq!(parse_date("late 16th century"), r(1566, 1599));
+        assert_eq!(parse_date("first half of the 17th century"), r(1600, 1649));
+        assert_eq!(parse_date("before 1600"), r(1580, 1600));
+        assert_eq!(parse_date("450 BC"), r(-450, -450));
+        assert_eq!(parse_date("-450"), r(-450, -450));
+        assert_eq!(parse_date("1575-1550"), None);
+        assert_eq!(parse_date("undated"), None);
+        assert_eq!(parse_date("12.5"), None);
+        assert_eq!(parse_date(""), None);
+    }
+}

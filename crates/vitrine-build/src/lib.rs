@@ -1,0 +1,16 @@
+//! Building a Vitrine atlas: ingest, neighbour graph, map, thumbnails, writing; and reading one back.
+//!
+//! Invariant: nothing here is needed by the viewer; the viewer depends on `vitrine-format` only.
+
+pub mod catalogue;
+pub mod dates;
+pub mod error;
+pub mod hilbert;
+pub mod knn;
+pub mod npy;
+pub mod pipeline;
+pub mod read;
+pub mod rng;
+pub mod serve;
+pub mod thumbs;
+pub mod umap;

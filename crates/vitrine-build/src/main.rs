@@ -1,0 +1,199 @@
+//! The `vitrine` command: a thin layer that parses flags and calls the library.
+
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use clap::{Parser, Subcommand, ValueEnum};
+use vitrine_build::knn::Metric;
+use vitrine_build::pipeline::{build, BuildOptions};
+use vitrine_build::read::{export_positions, inspect, Atlas};
+
+#[derive(Parser)]
+#[command(
+    name = "vitrine",
+    version,
+    about = "Build and share image-collection atlases"
+)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum MetricArg {
+    Cosine,
+    Euclidean,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Build an atlas folder from feature vectors, a catalogue and images.
+    Build {
+        /// Feature vectors: a NumPy .npy file, items x dimensions (float16, float32 or float64).
+        #[arg(long)]
+        vectors: PathBuf,
+        /// A text file with one id per line, one line per vector row. Without it, vectors match
+        /// catalogue records in order.
+        #[arg(long)]
+        vector_ids: Option<PathBuf>,
+        /// The catalogue: a CSV file with a header row. Without it, items are numbered.
+        #[arg(long)]
+        catalogue: Option<PathBuf>,
+        /// The catalogue column that holds each record's id.
+        #[arg(long, default_value = "id")]
+        id_column: String,
+        /// A folder of images. Optional: without it each item is drawn as a coloured mark.
+        #[arg(long)]
+        images: Option<PathBuf>,
+        /// The catalogue column with each image's path inside --images (default: a column named
+        /// image, image_path, file or filename; else files are found by id + image extension).
+        #[arg(long)]
+        image_column: Option<String>,
+        /// Where to write the atlas folder (replaced only when the build has succeeded).
+        #[arg(long)]
+        out: PathBuf,
+        /// The atlas title shown in the viewer (default: the folder name).
+        #[arg(long)]
+        title: Option<String>,
+        /// Distance between vectors.
+        #[arg(long, value_enum, default_value = "cosine")]
+        metric: MetricArg,
+        /// Neighbours per item in the neighbour graph.
+        #[arg(long, default_value_t = 15)]
+        k: usize,
+        /// Seed for every random choice: the same seed gives the same atlas.
+        #[arg(long, default_value_t = 42)]
+        seed: u64,
+        /// UMAP's minimum distance between points on the map.
+        #[arg(long, default_value_t = 0.1)]
+        min_dist: f32,
+        /// UMAP optimisation epochs (default 500 up to 10,000 items, else 200).
+        #[arg(long)]
+        epochs: Option<usize>,
+        /// Side of a thumbnail sheet in pixels.
+        #[arg(long, default_value_t = 2048)]
+        sheet_size: u32,
+        /// JPEG quality of the sheets (1-100).
+        #[arg(long, default_value_t = 85)]
+        jpeg_quality: u8,
+        /// Folder with the viewer files to copy into the atlas (default: found beside the program).
+        #[arg(long)]
+        viewer: Option<PathBuf>,
+        /// Print nothing but errors.
+        #[arg(long)]
+        quiet: bool,
+    },
+    /// Serve an atlas folder over HTTP on this machine.
+    Serve {
+        dir: PathBuf,
+        #[arg(long, default_value = "127.0.0.1")]
+        host: String,
+        #[arg(long, default_value_t = 8080)]
+        port: u16,
+    },
+    /// Print an atlas's counts, fields, maps, quality figures and provenance, after checking every array.
+    Inspect { atlas: PathBuf },
+    /// Write data out of an atlas.
+    Export {
+        atlas: PathBuf,
+        /// CSV with each item's id and its x, y on every map.
+        #[arg(long)]
+        positions: PathBuf,
+    },
+}
+
+fn run() -> anyhow::Result<()> {
+    match Cli::parse().command {
+        Command::Build {
+            vectors,
+            vector_ids,
+            catalogue,
+            id_column,
+            images,
+            image_column,
+            out,
+            title,
+            metric,
+            k,
+            seed,
+            min_dist,
+            epochs,
+            sheet_size,
+            jpeg_quality,
+            viewer,
+            quiet,
+        } => {
+            if !(1..=100).contains(&jpeg_quality) {
+                anyhow::bail!("--jpeg-quality must be between 1 and 100");
+            }
+            if !(64..=4096).contains(&sheet_size) {
+                anyhow::bail!("--sheet-size must be between 64 and 4096");
+            }
+            let mut opts = BuildOptions::new(vectors, out);
+            opts.vector_ids = vector_ids;
+            opts.catalogue = catalogue;
+            opts.id_column = id_column;
+            opts.images = images;
+            opts.image_column = image_column;
+            opts.title = title;
+            opts.metric = match metric {
+                MetricArg::Cosine => Metric::Cosine,
+                MetricArg::Euclidean => Metric::Euclidean,
+            };
+            opts.k = k;
+            opts.seed = seed;
+            opts.min_dist = min_dist;
+            opts.epochs = epochs;
+            opts.sheet_size = sheet_size;
+            opts.jpeg_quality = jpeg_quality;
+            opts.viewer = viewer;
+            opts.quiet = quiet;
+            let report = build(&opts)?;
+            for note in &report.notes {
+                eprintln!("note: {note}");
+            }
+            for p in report.image_problems.iter().take(10) {
+                eprintln!("  image for {}: {} ({})", p.id, p.reason, p.path);
+            }
+            if !report.image_problems.is_empty() || !report.value_warnings.is_empty() {
+                eprintln!("details: {}", opts.out.join("build-report.json").display());
+            }
+        }
+        Command::Serve { dir, host, port } => {
+            if !dir.join(vitrine_format::MANIFEST_FILE).is_file() {
+                anyhow::bail!(
+                    "{} is not an atlas folder (it has no {})",
+                    dir.display(),
+                    vitrine_format::MANIFEST_FILE
+                );
+            }
+            vitrine_build::serve::serve(&dir, &host, port, |url| {
+                println!("Serving {} at {url}  (Ctrl-C stops)", dir.display());
+            })?;
+        }
+        Command::Inspect { atlas } => {
+            let a = Atlas::open(&atlas)?;
+            print!("{}", inspect(&a)?);
+        }
+        Command::Export { atlas, positions } => {
+            let a = Atlas::open(&atlas)?;
+            export_positions(&a, &positions)?;
+            eprintln!(
+                "wrote {} ({} items)",
+                positions.display(),
+                a.manifest.item_count
+            );
+        }
+    }
+    Ok(())
+}
+
+fn main() -> ExitCode {
+    match run() {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(e) => {
+            eprintln!("error: {e:#}");
+            ExitCode::FAILURE
+        }
+    }
+}

@@ -1,0 +1,884 @@
+//! `vitrine build`: inputs → validated items → neighbour graph → map → atlas order → sheets → atlas folder.
+
+use std::collections::HashMap;
+use std::path::{Path, PathBuf};
+
+use anyhow::{bail, Context, Result};
+use indicatif::{ProgressBar, ProgressStyle};
+use serde_json::json;
+use vitrine_format::{
+    ArrayRef, Field, InputFile, Manifest, MapLayout, Neighbours, Provenance, SheetLevel, Sheets,
+    TextTable, FORMAT_NAME, FORMAT_VERSION, MANIFEST_FILE,
+};
+
+use crate::catalogue::{self, Catalogue, FieldData, ValueWarning};
+use crate::error::{id_list, InputError};
+use crate::knn::{self, Metric};
+use crate::npy::{self, Matrix};
+use crate::rng::Rng;
+use crate::thumbs::{self, ImageProblem, SheetPlan};
+use crate::umap::{self, UmapParams};
+
+pub const IMAGE_EXTENSIONS: &[&str] = &["jpg", "jpeg", "png", "tif", "tiff", "webp", "gif", "bmp"];
+
+/// The Okabe-Ito colour-blind-safe palette (Okabe and Ito, "Color Universal Design", 2002), without black.
+pub const OKABE_ITO: [[u8; 3]; 7] = [
+    [0xE6, 0x9F, 0x00],
+    [0x56, 0xB4, 0xE9],
+    [0x00, 0x9E, 0x73],
+    [0xF0, 0xE4, 0x42],
+    [0x00, 0x72, 0xB2],
+    [0xD5, 0x5E, 0x00],
+    [0xCC, 0x79, 0xA7],
+];
+pub const INK: [u8; 3] = [0x2B, 0x2A, 0x33];
+
+#[derive(Debug, Clone)]
+pub struct BuildOptions {
+    pub vectors: PathBuf,
+    pub vector_ids: Option<PathBuf>,
+    pub catalogue: Option<PathBuf>,
+    pub id_column: String,
+    pub images: Option<PathBuf>,
+    pub image_column: Option<String>,
+    pub out: PathBuf,
+    pub title: Option<String>,
+    pub metric: Metric,
+    pub k: usize,
+    pub seed: u64,
+    pub min_dist: f32,
+    pub epochs: Option<usize>,
+    pub sheet_size: u32,
+    pub cells: Vec<u32>,
+    pub jpeg_quality: u8,
+    pub viewer: Option<PathBuf>,
+    pub quiet: bool,
+}
+
+impl BuildOptions {
+    pub fn new(vectors: PathBuf, out: PathBuf) -> BuildOptions {
+        BuildOptions {
+            vectors,
+            vector_ids: None,
+            catalogue: None,
+            id_column: "id".into(),
+            images: None,
+            image_column: None,
+            out,
+            title: None,
+            metric: Metric::Cosine,
+            k: 15,
+            seed: 42,
+            min_dist: 0.1,
+            epochs: None,
+            sheet_size: 2048,
+            cells: vec![32, 128],
+            jpeg_quality: 85,
+            viewer: None,
+            quiet: false,
+        }
+    }
+}
+
+#[derive(Debug, Default, serde::Serialize)]
+pub struct BuildReport {
+    pub items: usize,
+    pub image_problems: Vec<ImageProblem>,
+    pub value_warnings: Vec<ValueWarning>,
+    pub notes: Vec<String>,
+}
+
+fn bar(quiet: bool, len: u64, what: &str) -> ProgressBar {
+    let pb = if quiet {
+        ProgressBar::hidden()
+    } else {
+        ProgressBar::new(len)
+    };
+    pb.set_style(
+        ProgressStyle::with_template("{prefix:>12} [{bar:30}] {pos}/{len} {per_sec} eta {eta}")
+            .unwrap()
+            .progress_chars("=> "),
+    );
+    pb.set_prefix(what.to_string());
+    pb
+}
+
+/// Items as the build sees them: vector rows, their ids and their catalogue rows.
+struct Items {
+    ids: Vec<String>,
+    /// Catalogue row for each vector row.
+    catalogue_rows: Option<Vec<usize>>,
+}
+
+fn read_id_list(path: &Path) -> Result<Vec<String>, InputError> {
+    let text = std::fs::read_to_string(path).map_err(|e| InputError::io(path, e))?;
+    let text = text.strip_prefix('\u{feff}').unwrap_or(&text);
+    let ids: Vec<String> = text.lines().map(|l| l.trim().to_string()).collect();
+    let ids: Vec<String> = match ids.iter().rposition(|l| !l.is_empty()) {
+        Some(last) => ids[..=last].to_vec(),
+        None => vec![],
+    };
+    let mut seen = HashMap::new();
+    for (i, id) in ids.iter().enumerate() {
+        if id.is_empty() {
+            return Err(InputError::Vectors {
+                file: path.display().to_string(),
+                reason: format!("line {} is an empty id", i + 1),
+            });
+        }
+        if let Some(j) = seen.insert(id.clone(), i) {
+            return Err(InputError::Vectors {
+                file: path.display().to_string(),
+                reason: format!(
+                    "the id {id:?} appears twice (lines {} and {})",
+                    j + 1,
+                    i + 1
+                ),
+            });
+        }
+    }
+    Ok(ids)
+}
+
+fn match_items(
+    vectors: &Matrix,
+    opts: &BuildOptions,
+    cat: Option<&Catalogue>,
+) -> Result<Items, InputError> {
+    let vfile = opts.vectors.display().to_string();
+    let vector_ids = match &opts.vector_ids {
+        Some(p) => {
+            let ids = read_id_list(p)?;
+            if ids.len() != vectors.rows {
+                return Err(InputError::Matching(format!(
+                    "{} lists {} ids but {vfile} has {} rows",
+                    p.display(),
+                    ids.len(),
+                    vectors.rows
+                )));
+            }
+            Some(ids)
+        }
+        None => None,
+    };
+    let Some(cat) = cat else {
+        let ids = vector_ids.unwrap_or_else(|| (0..vectors.rows).map(|i| i.to_string()).collect());
+        return Ok(Items {
+            ids,
+            catalogue_rows: None,
+        });
+    };
+    match vector_ids {
+        Some(vids) => {
+            let by_id: HashMap<&str, usize> =
+                cat.ids().enumerate().map(|(i, id)| (id, i)).collect();
+            let vset: std::collections::HashSet<&str> = vids.iter().map(String::as_str).collect();
+            let no_vector: Vec<String> = cat
+                .ids()
+                .filter(|id| !vset.contains(id))
+                .map(String::from)
+                .collect();
+            let no_record: Vec<String> = vids
+                .iter()
+                .filter(|id| !by_id.contains_key(id.as_str()))
+                .cloned()
+                .collect();
+            let mut msg = Vec::new();
+            if !no_vector.is_empty() {
+                msg.push(format!(
+                    "{} catalogue record(s) in {} have no vector: {}",
+                    no_vector.len(),
+                    cat.file,
+                    id_list(&no_vector)
+                ));
+            }
+            if !no_record.is_empty() {
+                msg.push(format!(
+                    "{} vector(s) in {vfile} have no catalogue record: {}",
+                    no_record.len(),
+                    id_list(&no_record)
+                ));
+            }
+            if !msg.is_empty() {
+                return Err(InputError::Matching(msg.join("\n")));
+            }
+            let rows = vids.iter().map(|id| by_id[id.as_str()]).collect();
+            Ok(Items {
+                ids: vids,
+                catalogue_rows: Some(rows),
+            })
+        }
+        None => {
+            let ids: Vec<String> = cat.ids().map(String::from).collect();
+            if ids.len() != vectors.rows {
+                let detail = if ids.len() > vectors.rows {
+                    format!(
+                        "catalogue record(s) with no vector: {}",
+                        id_list(&ids[vectors.rows..])
+                    )
+                } else {
+                    format!(
+                        "vector rows {}..{} have no catalogue record",
+                        ids.len(),
+                        vectors.rows - 1
+                    )
+                };
+                return Err(InputError::Matching(format!(
+                    "{} has {} records but {vfile} has {} rows; without --vector-ids they are matched in order. {detail}",
+                    cat.file,
+                    ids.len(),
+                    vectors.rows
+                )));
+            }
+            Ok(Items {
+                ids,
+                catalogue_rows: Some((0..vectors.rows).collect()),
+            })
+        }
+    }
+}
+
+fn check_finite(vectors: &Matrix, ids: &[String], file: &Path) -> Result<(), InputError> {
+    let bad: Vec<String> = (0..vectors.rows)
+        .filter(|&i| vectors.row(i).iter().any(|x| !x.is_finite()))
+        .map(|i| format!("row {i} (id {})", ids[i]))
+        .collect();
+    if bad.is_empty() {
+        return Ok(());
+    }
+    Err(InputError::Vectors {
+        file: file.display().to_string(),
+        reason: format!(
+            "{} row(s) hold NaN or infinite values: {}",
+            bad.len(),
+            id_list(&bad)
+        ),
+    })
+}
+
+/// Finds each item's image: the image column's relative path, or a file named id + an image extension.
+fn find_images(
+    dir: &Path,
+    ids: &[String],
+    cat: Option<&Catalogue>,
+    cat_rows: Option<&[usize]>,
+    image_column: Option<&str>,
+) -> Result<Vec<Option<PathBuf>>, InputError> {
+    if !dir.is_dir() {
+        return Err(InputError::Usage(format!(
+            "--images {}: not a folder",
+            dir.display()
+        )));
+    }
+    let column = match (cat, image_column) {
+        (Some(c), Some(name)) => Some(c.column(name).ok_or_else(|| {
+            InputError::Usage(format!(
+                "--image-column {name:?}: the catalogue has no such column"
+            ))
+        })?),
+        (Some(c), None) => ["image", "image_path", "file", "filename"]
+            .iter()
+            .find_map(|n| c.column(n)),
+        (None, Some(_)) => {
+            return Err(InputError::Usage("--image-column needs --catalogue".into()))
+        }
+        (None, None) => None,
+    };
+    let mut by_stem: HashMap<String, PathBuf> = HashMap::new();
+    if column.is_none() {
+        for entry in walk(dir) {
+            let ext = entry
+                .extension()
+                .and_then(|e| e.to_str())
+                .map(|e| e.to_lowercase())
+                .unwrap_or_default();
+            if IMAGE_EXTENSIONS.contains(&ext.as_str()) {
+                if let Some(stem) = entry.file_stem().and_then(|s| s.to_str()) {
+                    by_stem.entry(stem.to_string()).or_insert(entry.clone());
+                }
+            }
+        }
+    }
+    Ok(ids
+        .iter()
+        .enumerate()
+        .map(|(i, id)| match (column, cat, cat_rows) {
+            (Some(c), Some(cat), Some(rows)) => {
+                let rel = cat.rows[rows[i]][c].trim();
+                (!rel.is_empty()).then(|| dir.join(rel))
+            }
+            _ => by_stem.get(id).cloned(),
+        })
+        .collect())
+}
+
+fn walk(dir: &Path) -> Vec<PathBuf> {
+    let mut out = Vec::new();
+    let mut stack = vec![dir.to_path_buf()];
+    while let Some(d) = stack.pop() {
+        let Ok(rd) = std::fs::read_dir(&d) else {
+            continue;
+        };
+        let mut entries: Vec<PathBuf> = rd.filter_map(|e| e.ok().map(|e| e.path())).collect();
+        entries.sort();
+        for p in entries {
+            if p.is_dir() {
+                stack.push(p);
+            } else {
+                out.push(p);
+            }
+        }
+    }
+    out.sort();
+    out
+}
+
+fn input_file(role: &str, path: &Path) -> Result<InputFile> {
+    let bytes = std::fs::read(path).with_context(|| format!("reading {}", path.display()))?;
+    Ok(InputFile {
+        role: role.into(),
+        path: path.display().to_string(),
+        bytes: bytes.len() as u64,
+        sha256: vitrine_format::sha256_hex(&bytes),
+    })
+}
+
+/// Collects the arrays of the atlas being written.
+struct ArrayWriter {
+    files: Vec<(String, Vec<u8>)>,
+}
+
+impl ArrayWriter {
+    fn add<T: vitrine_format::Element>(&mut self, name: &str, data: &[T]) -> ArrayRef {
+        let (r, bytes) = ArrayRef::encode(&format!("arrays/{name}.bin"), data);
+        self.files.push((r.file.clone(), bytes));
+        r
+    }
+    fn text(&mut self, name: &str, items: &[impl AsRef<str>]) -> [ArrayRef; 2] {
+        let t = TextTable::from_strings(items);
+        [
+            self.add(&format!("{name}.offsets"), &t.offsets),
+            self.add(&format!("{name}.text"), &t.utf8),
+        ]
+    }
+}
+
+fn safe_name(s: &str) -> String {
+    s.chars()
+        .map(|c| {
+            if c.is_ascii_alphanumeric() || c == '-' || c == '_' {
+                c.to_ascii_lowercase()
+            } else {
+                '_'
+            }
+        })
+        .collect()
+}
+
+/// Refuses to replace a folder that is not an atlas, so a mistyped --out never deletes someone's files.
+fn check_out(out: &Path) -> Result<()> {
+    if out.exists() {
+        if !out.is_dir() {
+            bail!("--out {}: exists and is not a folder", out.display());
+        }
+        let empty = std::fs::read_dir(out)?.next().is_none();
+        if !empty && !out.join(MANIFEST_FILE).exists() {
+            bail!(
+                "--out {}: the folder exists, is not empty and is not an atlas; choose a new folder",
+                out.display()
+            );
+        }
+    }
+    Ok(())
+}
+
+pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
+    check_out(&opts.out)?;
+    if opts.k == 0 {
+        bail!("--k must be at least 1");
+    }
+    let log = |s: &str| {
+        if !opts.quiet {
+            eprintln!("{s}");
+        }
+    };
+    let vectors = npy::read_npy(&opts.vectors)?;
+    log(&format!(
+        "vectors: {} x {} from {}",
+        vectors.rows,
+        vectors.cols,
+        opts.vectors.display()
+    ));
+    let cat = match &opts.catalogue {
+        Some(p) => {
+            let c = catalogue::read_csv(p, &opts.id_column)?;
+            log(&format!(
+                "catalogue: {} records, {} columns from {}",
+                c.rows.len(),
+                c.header.len(),
+                p.display()
+            ));
+            Some(c)
+        }
+        None => None,
+    };
+    let items = match_items(&vectors, opts, cat.as_ref())?;
+    check_finite(&vectors, &items.ids, &opts.vectors)?;
+    let n = vectors.rows;
+    if n == 0 {
+        bail!("{}: there are no vectors", opts.vectors.display());
+    }
+    let image_paths = match &opts.images {
+        Some(dir) => Some(find_images(
+            dir,
+            &items.ids,
+            cat.as_ref(),
+            items.catalogue_rows.as_deref(),
+            opts.image_column.as_deref(),
+        )?),
+        None => None,
+    };
+
+    // Neighbour graph and map.
+    let k = opts.k.min(n.saturating_sub(1)).max(1);
+    let pb = bar(opts.quiet, n as u64, "neighbours");
+    let graph = knn::exact_knn(&vectors, k, opts.metric, &|c| pb.set_position(c));
+    pb.finish_and_clear();
+    let params = UmapParams {
+        min_dist: opts.min_dist,
+        epochs: opts.epochs,
+        seed: opts.seed,
+        ..UmapParams::default()
+    };
+    let fuzzy = umap::fuzzy_graph(&graph);
+    let mut rng = Rng::new(opts.seed);
+    let start_vectors = match opts.metric {
+        Metric::Cosine => knn::normalised(&vectors),
+        Metric::Euclidean => vectors.clone(),
+    };
+    let start = umap::pca_start(&start_vectors, &mut rng);
+    let pb = bar(opts.quiet, 1, "layout");
+    let pos = umap::layout(&fuzzy, start, &params, &|e, total| {
+        pb.set_length(total as u64);
+        pb.set_position(e as u64)
+    });
+    pb.finish_and_clear();
+    log(&format!(
+        "map: {} items, {} graph edges",
+        n,
+        fuzzy.weights.len()
+    ));
+
+    // Atlas order: along a Hilbert curve over the map.
+    let order = crate::hilbert::hilbert_order(&pos);
+    let mut rank = vec![0u32; n];
+    for (new, &old) in order.iter().enumerate() {
+        rank[old] = new as u32;
+    }
+
+    let tmp = tmp_sibling(&opts.out, "building");
+    if tmp.exists() {
+        std::fs::remove_dir_all(&tmp)?;
+    }
+    std::fs::create_dir_all(&tmp).with_context(|| format!("creating {}", tmp.display()))?;
+    let result = write_atlas(
+        opts,
+        &tmp,
+        &vectors,
+        &items,
+        cat.as_ref(),
+        &graph,
+        &pos,
+        &order,
+        &rank,
+        image_paths,
+    );
+    match result {
+        Ok(report) => {
+            replace_dir(&tmp, &opts.out)?;
+            log(&format!("atlas: {} ({} items)", opts.out.display(), n));
+            Ok(report)
+        }
+        Err(e) => {
+            let _ = std::fs::remove_dir_all(&tmp);
+            Err(e)
+        }
+    }
+}
+
+fn tmp_sibling(out: &Path, what: &str) -> PathBuf {
+    let name = out
+        .file_name()
+        .map(|s| s.to_string_lossy().to_string())
+        .unwrap_or_else(|| "atlas".into());
+    out.with_file_name(format!(".{name}.{what}-{}", std::process::id()))
+}
+
+/// Puts the finished folder in place: the old atlas (if any) is moved aside first and removed after.
+fn replace_dir(tmp: &Path, out: &Path) -> Result<()> {
+    if out.exists() {
+        let old = tmp_sibling(out, "old");
+        std::fs::rename(out, &old)
+            .with_context(|| format!("moving the old atlas {} aside", out.display()))?;
+        std::fs::rename(tmp, out)
+            .with_context(|| format!("putting the new atlas at {}", out.display()))?;
+        std::fs::remove_dir_all(&old)?;
+    } else {
+        std::fs::rename(tmp, out)
+            .with_context(|| format!("putting the new atlas at {}", out.display()))?;
+    }
+    Ok(())
+}
+
+#[allow(clippy::too_many_arguments)]
+fn write_atlas(
+    opts: &BuildOptions,
+    dir: &Path,
+    vectors: &Matrix,
+    items: &Items,
+    cat: Option<&Catalogue>,
+    graph: &knn::KnnGraph,
+    pos: &[[f32; 2]],
+    order: &[usize],
+    rank: &[u32],
+    image_paths: Option<Vec<Option<PathBuf>>>,
+) -> Result<BuildReport> {
+    let n = vectors.rows;
+    let mut report = BuildReport {
+        items: n,
+        ..Default::default()
+    };
+    let mut w = ArrayWriter { files: Vec::new() };
+    let ids_sorted: Vec<&str> = order.iter().map(|&i| items.ids[i].as_str()).collect();
+    let [ids, ids_text] = w.text("ids", &ids_sorted);
+    let source_rows = w.add(
+        "source-rows",
+        &order.iter().map(|&i| i as u32).collect::<Vec<_>>(),
+    );
+
+    // Positions in atlas order.
+    let mut xy = Vec::with_capacity(n * 2);
+    let mut bounds = [
+        f32::INFINITY,
+        f32::INFINITY,
+        f32::NEG_INFINITY,
+        f32::NEG_INFINITY,
+    ];
+    for &i in order {
+        let [x, y] = pos[i];
+        xy.push(x);
+        xy.push(y);
+        bounds = [
+            bounds[0].min(x),
+            bounds[1].min(y),
+            bounds[2].max(x),
+            bounds[3].max(y),
+        ];
+    }
+    let map = MapLayout {
+        name: "similarity".into(),
+        description: format!(
+            "UMAP of the {} neighbour graph (k = {}, min_dist = {}, seed {})",
+            opts.metric.name(),
+            graph.k,
+            opts.min_dist,
+            opts.seed
+        ),
+        positions: w.add("map-similarity", &xy),
+        bounds,
+    };
+
+    // Neighbours renumbered into atlas order.
+    let mut nb_ids = Vec::with_capacity(n * graph.k);
+    let mut nb_d = Vec::with_capacity(n * graph.k);
+    for &i in order {
+        let s = i * graph.k;
+        for slot in s..s + graph.k {
+            let j = graph.ids[slot];
+            nb_ids.push(if j == u32::MAX {
+                u32::MAX
+            } else {
+                rank[j as usize]
+            });
+            nb_d.push(graph.distances[slot]);
+        }
+    }
+    let neighbours = Neighbours {
+        k: graph.k as u32,
+        metric: opts.metric.name().into(),
+        exact: true,
+        ids: w.add("neighbour-ids", &nb_ids),
+        distances: w.add("neighbour-distances", &nb_d),
+    };
+
+    // Catalogue fields, every column but the id.
+    let mut fields = Vec::new();
+    let mut first_category: Option<Vec<u32>> = None;
+    if let (Some(cat), Some(rows)) = (cat, &items.catalogue_rows) {
+        let item_rows: Vec<usize> = order.iter().map(|&i| rows[i]).collect();
+        for (c, name) in cat.header.iter().enumerate() {
+            if c == cat.id_column {
+                continue;
+            }
+            let values: Vec<&str> = item_rows.iter().map(|&r| cat.rows[r][c].as_str()).collect();
+            let kind = catalogue::infer_kind(name, &values);
+            let data =
+                catalogue::field_data(name, kind, &values, &ids_sorted, &mut report.value_warnings);
+            let tag = format!("field-{}-{}", fields.len(), safe_name(name));
+            let field = match data {
+                FieldData::Category {
+                    codes,
+                    values,
+                    counts,
+                } => {
+                    if first_category.is_none() {
+                        first_category = Some(codes.clone());
+                    }
+                    Field {
+                        name: name.clone(),
+                        kind,
+                        column: w.add(&tag, &codes),
+                        column2: None,
+                        values,
+                        value_counts: counts,
+                        written: None,
+                    }
+                }
+                FieldData::Number { values, written } => Field {
+                    name: name.clone(),
+                    kind,
+                    column: w.add(&tag, &values),
+                    column2: None,
+                    values: vec![],
+                    value_counts: vec![],
+                    written: Some(w.text(&format!("{tag}.written"), &written)),
+                },
+                FieldData::Date { ranges, written } => {
+                    let s: Vec<i32> = ranges
+                        .iter()
+                        .map(|r| r.map_or(i32::MIN, |r| r.start))
+                        .collect();
+                    let e: Vec<i32> = ranges
+                        .iter()
+                        .map(|r| r.map_or(i32::MIN, |r| r.end))
+                        .collect();
+                    Field {
+                        name: name.clone(),
+                        kind,
+                        column: w.add(&format!("{tag}.start"), &s),
+                        column2: Some(w.add(&format!("{tag}.end"), &e)),
+                        values: vec![],
+                        value_counts: vec![],
+                        written: Some(w.text(&format!("{tag}.written"), &written)),
+                    }
+                }
+                FieldData::Text(t) | FieldData::Link(t) => {
+                    let [a, b] = w.text(&tag, &t);
+                    Field {
+                        name: name.clone(),
+                        kind,
+                        column: a,
+                        column2: Some(b),
+                        values: vec![],
+                        value_counts: vec![],
+                        written: None,
+                    }
+                }
+            };
+            fields.push(field);
+        }
+    }
+
+    // Thumbnails and colours.
+    let mut inputs = vec![input_file("vectors", &opts.vectors)?];
+    if let Some(p) = &opts.vector_ids {
+        inputs.push(input_file("vector-ids", p)?);
+    }
+    if let Some(p) = &opts.catalogue {
+        inputs.push(input_file("catalogue", p)?);
+    }
+    let (colours, sheets) = match image_paths {
+        Some(paths) => {
+            let plan = SheetPlan {
+                cells: opts.cells.clone(),
+                sheet: opts.sheet_size,
+                quality: opts.jpeg_quality,
+            };
+            let list: Vec<(String, Option<PathBuf>)> = order
+                .iter()
+                .map(|&i| (items.ids[i].clone(), paths[i].clone()))
+                .collect();
+            let pb = bar(opts.quiet, n as u64, "thumbnails");
+            let t = thumbs::make_sheets(&list, &plan, dir, &|c| pb.set_position(c))?;
+            pb.finish_and_clear();
+            // The images' provenance: one line per image (SHA-256, bytes, path), hashed as a whole.
+            let mut listing = String::new();
+            let mut total = 0u64;
+            for ((_, p), (sha, bytes)) in list.iter().zip(&t.digests) {
+                if let Some(p) = p {
+                    listing.push_str(&format!("{sha}  {bytes}  {}\n", p.display()));
+                    total += bytes;
+                }
+            }
+            std::fs::write(dir.join("image-digests.txt"), &listing)?;
+            inputs.push(InputFile {
+                role: "images (digest of image-digests.txt)".into(),
+                path: opts.images.as_ref().unwrap().display().to_string(),
+                bytes: total,
+                sha256: vitrine_format::sha256_hex(listing.as_bytes()),
+            });
+            report.image_problems = t.problems;
+            let levels = plan
+                .cells
+                .iter()
+                .zip(t.files)
+                .map(|(&cell, files)| {
+                    let (columns, rows) = plan.per_sheet(cell);
+                    SheetLevel {
+                        cell,
+                        columns,
+                        rows,
+                        files,
+                    }
+                })
+                .collect();
+            let extents = w.add("thumbnail-extents", &t.extents);
+            (t.colours, Some(Sheets { levels, extents }))
+        }
+        None => {
+            let colours = (0..n)
+                .map(|i| {
+                    let c = match &first_category {
+                        Some(codes) if (codes[i] as usize) < OKABE_ITO.len() => {
+                            OKABE_ITO[codes[i] as usize]
+                        }
+                        Some(_) => [0x9A, 0x96, 0x8E],
+                        None => INK,
+                    };
+                    [c[0], c[1], c[2], 255]
+                })
+                .collect();
+            (colours, None)
+        }
+    };
+    let flat: Vec<u8> = colours.iter().flatten().copied().collect();
+    let colours = w.add("colours", &flat);
+
+    let mut parameters = serde_json::Map::new();
+    parameters.insert("metric".into(), json!(opts.metric.name()));
+    parameters.insert("k".into(), json!(graph.k));
+    parameters.insert("neighbour_search".into(), json!("exact"));
+    parameters.insert("layout".into(), json!("umap"));
+    parameters.insert("min_dist".into(), json!(opts.min_dist));
+    parameters.insert("spread".into(), json!(1.0));
+    let (a, b) = umap::fit_ab(opts.min_dist, 1.0);
+    parameters.insert("umap_a".into(), json!(a));
+    parameters.insert("umap_b".into(), json!(b));
+    parameters.insert(
+        "epochs".into(),
+        json!(opts.epochs.unwrap_or(if n <= 10_000 { 500 } else { 200 })),
+    );
+    parameters.insert("start".into(), json!("pca"));
+    parameters.insert("id_column".into(), json!(opts.id_column));
+    parameters.insert("sheet_size".into(), json!(opts.sheet_size));
+    parameters.insert("cells".into(), json!(opts.cells));
+    parameters.insert("jpeg_quality".into(), json!(opts.jpeg_quality));
+    parameters.insert("vector_dimensions".into(), json!(vectors.cols));
+
+    let title = opts.title.clone().unwrap_or_else(|| {
+        opts.out
+            .file_name()
+            .map(|s| s.to_string_lossy().to_string())
+            .unwrap_or_else(|| "Atlas".into())
+    });
+    let manifest = Manifest {
+        format: FORMAT_NAME.into(),
+        format_version: FORMAT_VERSION,
+        title,
+        item_count: n as u64,
+        ids,
+        ids_text,
+        source_rows,
+        colours,
+        fields,
+        maps: vec![map],
+        neighbours,
+        sheets,
+        quality: serde_json::Map::new(),
+        provenance: Provenance {
+            tool: "vitrine".into(),
+            tool_version: env!("CARGO_PKG_VERSION").into(),
+            inputs,
+            parameters,
+            seed: opts.seed,
+        },
+    };
+    std::fs::create_dir_all(dir.join("arrays"))?;
+    for (name, bytes) in &w.files {
+        std::fs::write(dir.join(name), bytes)?;
+    }
+    // Validate what was written with the same reader the viewer uses.
+    Manifest::from_json(&manifest.to_json())
+        .context("the manifest this build wrote does not validate")?;
+    std::fs::write(dir.join(MANIFEST_FILE), manifest.to_json())?;
+
+    if !report.image_problems.is_empty() {
+        report.notes.push(format!(
+            "{} image(s) could not be used and are drawn as placeholders",
+            report.image_problems.len()
+        ));
+    }
+    if !report.value_warnings.is_empty() {
+        report.notes.push(format!(
+            "{} catalogue value(s) could not be read as their field's kind; kept as written",
+            report.value_warnings.len()
+        ));
+    }
+    copy_viewer(opts, dir, &mut report)?;
+    std::fs::write(
+        dir.join("build-report.json"),
+        serde_json::to_string_pretty(&report)?,
+    )?;
+    Ok(report)
+}
+
+/// The viewer files (index.html, the wasm module and its loader) make the atlas self-contained.
+fn copy_viewer(opts: &BuildOptions, dir: &Path, report: &mut BuildReport) -> Result<()> {
+    let found = viewer_dir(opts.viewer.as_deref());
+    let Some(src) = found else {
+        report.notes.push(
+            "no viewer files were found (build them with ./build.sh atlas, or pass --viewer DIR): \
+             the atlas holds the data only"
+                .into(),
+        );
+        return Ok(());
+    };
+    for entry in walk(&src) {
+        let rel = entry.strip_prefix(&src).unwrap();
+        let to = dir.join(rel);
+        if let Some(parent) = to.parent() {
+            std::fs::create_dir_all(parent)?;
+        }
+        std::fs::copy(&entry, &to)
+            .with_context(|| format!("copying viewer file {}", entry.display()))?;
+    }
+    Ok(())
+}
+
+pub fn viewer_dir(explicit: Option<&Path>) -> Option<PathBuf> {
+    let ok = |p: &Path| p.join("index.html").is_file();
+    if let Some(p) = explicit {
+        return ok(p).then(|| p.to_path_buf());
+    }
+    if let Ok(p) = std::env::var("VITRINE_VIEWER") {
+        let p = PathBuf::from(p);
+        if ok(&p) {
+            return Some(p);
+        }
+    }
+    let exe = std::env::current_exe().ok()?;
+    let exe_dir = exe.parent()?;
+    [exe_dir.join("viewer"), exe_dir.join("../viewer")]
+        .into_iter()
+        .find(|p| ok(p))
+}

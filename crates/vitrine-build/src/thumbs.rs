@@ -1,0 +1,239 @@
+//! Thumbnails: decode each image, fit it into square cells at each level of detail, pack the cells
+//! into sheets (texture pages) in atlas order, and take each item's average colour.
+
+use std::path::{Path, PathBuf};
+
+use image::{imageops::FilterType, RgbImage};
+use rayon::prelude::*;
+
+/// The background that transparent images are flattened onto (the light theme's paper colour).
+pub const PAPER: [u8; 3] = [0xF3, 0xEE, 0xE4];
+/// Pixel count beyond which an image is refused (a decompression-bomb guard).
+pub const MAX_PIXELS: u64 = 200_000_000;
+
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct ImageProblem {
+    pub id: String,
+    pub path: String,
+    pub reason: String,
+}
+
+pub struct SheetPlan {
+    /// Cell sizes, smallest first (e.g. 32 and 128).
+    pub cells: Vec<u32>,
+    /// Sheet side in pixels.
+    pub sheet: u32,
+    pub quality: u8,
+}
+
+impl SheetPlan {
+    pub fn per_sheet(&self, cell: u32) -> (u32, u32) {
+        let c = (self.sheet / cell).max(1);
+        (c, c)
+    }
+}
+
+pub struct Thumbnailed {
+    /// Per item: RGBA average colour.
+    pub colours: Vec<[u8; 4]>,
+    /// Per item: thumbnail width | height << 16 in the largest cell.
+    pub extents: Vec<u32>,
+    /// Per level: sheet file names relative to the atlas.
+    pub files: Vec<Vec<String>>,
+    pub problems: Vec<ImageProblem>,
+    /// Per item: SHA-256 and byte size of the image file (empty when there was none).
+    pub digests: Vec<(String, u64)>,
+}
+
+/// Decodes an image file held in memory.
+fn decode(bytes: &[u8]) -> Result<RgbImage, String> {
+    let open = || {
+        image::ImageReader::new(std::io::Cursor::new(bytes))
+            .with_guessed_format()
+            .map_err(|e| format!("cannot read: {e}"))
+    };
+    let (w, h) = open()?
+        .into_dimensions()
+        .map_err(|e| format!("not a readable image: {e}"))?;
+    if (w as u64) * (h as u64) > MAX_PIXELS {
+        return Err(format!(
+            "{w} x {h} pixels is more than the limit of {MAX_PIXELS}"
+        ));
+    }
+    let mut reader = open()?;
+    reader.no_limits();
+    let img = reader.decode().map_err(|e| format!("cannot decode: {e}"))?;
+    if img.color().has_alpha() {
+        let rgba = img.to_rgba8();
+        let mut out = RgbImage::new(rgba.width(), rgba.height());
+        for (o, p) in out.pixels_mut().zip(rgba.pixels()) {
+            let a = p[3] as u32;
+            for c in 0..3 {
+                o[c] = ((p[c] as u32 * a + PAPER[c] as u32 * (255 - a) + 127) / 255) as u8;
+            }
+        }
+        Ok(out)
+    } else {
+        Ok(img.to_rgb8())
+    }
+}
+
+/// A thumbnail fitted into a `cell` x `cell` square, aspect kept.
+fn fit(img: &RgbImage, cell: u32) -> RgbImage {
+    let (w, h) = img.dimensions();
+    let scale = cell as f64 / w.max(h) as f64;
+    let tw = ((w as f64 * scale).round() as u32).clamp(1, cell);
+    let th = ((h as f64 * scale).round() as u32).clamp(1, cell);
+    image::imageops::resize(img, tw, th, FilterType::CatmullRom)
+}
+
+/// The placeholder drawn for an image that could not be read: a grey card with a cross.
+fn placeholder(cell: u32) -> RgbImage {
+    let mut img = RgbImage::from_pixel(cell, cell, image::Rgb([0xC9, 0xC4, 0xBA]));
+    for i in 0..cell {
+        for t in 0..(cell / 32).max(1) {
+            let j = (i + t).min(cell - 1);
+            img.put_pixel(i, j, image::Rgb([0x8A, 0x84, 0x7A]));
+            img.put_pixel(cell - 1 - i, j, image::Rgb([0x8A, 0x84, 0x7A]));
+        }
+    }
+    img
+}
+
+fn average(img: &RgbImage) -> [u8; 4] {
+    let mut s = [0u64; 3];
+    for p in img.pixels() {
+        for c in 0..3 {
+            s[c] += p[c] as u64;
+        }
+    }
+    let n = (img.width() as u64 * img.height() as u64).max(1);
+    [(s[0] / n) as u8, (s[1] / n) as u8, (s[2] / n) as u8, 255]
+}
+
+/// Makes every sheet. `images[i]` is the file for item i in atlas order (None: no file was found).
+/// Work goes in batches of one smallest-level sheet so that memory stays bounded.
+pub fn make_sheets(
+    images: &[(String, Option<PathBuf>)],
+    plan: &SheetPlan,
+    out_dir: &Path,
+    progress: &(dyn Fn(u64) + Sync),
+) -> std::io::Result<Thumbnailed> {
+    let n = images.len();
+    let largest = *plan.cells.last().expect("at least one level");
+    let mut colours = vec![[0u8; 4]; n];
+    let mut extents = vec![0u32; n];
+    let mut problems = Vec::new();
+    let mut digests = vec![(String::new(), 0u64); n];
+    let mut files: Vec<Vec<String>> = vec![Vec::new(); plan.cells.len()];
+    std::fs::create_dir_all(out_dir.join("sheets"))?;
+    let batch = plan
+        .cells
+        .iter()
+        .map(|&c| {
+            let (a, b) = plan.per_sheet(c);
+            (a * b) as usize
+        })
+        .max()
+        .unwrap();
+    // Every level's sheet capacity divides the batch (cells are powers of two fractions of the sheet).
+    let done = std::sync::atomic::AtomicU64::new(0);
+    let mut start = 0;
+    while start < n {
+        let end = (start + batch).min(n);
+        let thumbs: Vec<(Vec<RgbImage>, Option<String>, (String, u64))> = images[start..end]
+            .par_iter()
+            .map(|(_, path)| {
+                let mut digest = (String::new(), 0);
+                let result = match path {
+                    None => Err("no image file was found for this record".to_string()),
+                    Some(p) => match std::fs::read(p) {
+                        Err(e) => Err(format!("cannot read the file: {e}")),
+                        Ok(bytes) => {
+                            digest = (vitrine_format::sha256_hex(&bytes), bytes.len() as u64);
+                            decode(&bytes)
+                        }
+                    },
+                };
+                let c = done.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+                if c % 16 == 0 {
+                    progress(c);
+                }
+                match result {
+                    Ok(img) => {
+                        let big = fit(&img, largest);
+                        let mut levels: Vec<RgbImage> = plan.cells[..plan.cells.len() - 1]
+                            .iter()
+                            .map(|&c| fit(&big, c))
+                            .collect();
+                        levels.push(big);
+                        (levels, None, digest)
+                    }
+                    Err(reason) => (
+                        plan.cells.iter().map(|&c| placeholder(c)).collect(),
+                        Some(reason),
+                        digest,
+                    ),
+                }
+            })
+            .collect();
+        for (off, (levels, problem, digest)) in thumbs.iter().enumerate() {
+            let i = start + off;
+            digests[i] = digest.clone();
+            let big = levels.last().unwrap();
+            extents[i] = big.width() | (big.height() << 16);
+            colours[i] = average(&levels[0]);
+            if let Some(reason) = problem {
+                problems.push(ImageProblem {
+                    id: images[i].0.clone(),
+                    path: images[i]
+                        .1
+                        .as_ref()
+                        .map(|p| p.display().to_string())
+                        .unwrap_or_default(),
+                    reason: reason.clone(),
+                });
+            }
+        }
+        for (l, &cell) in plan.cells.iter().enumerate() {
+            let (cols, rows) = plan.per_sheet(cell);
+            let per = (cols * rows) as usize;
+            let mut first = start;
+            while first < end {
+                let last = (first + per).min(end);
+                let sheet_index = first / per;
+                let used = last - first;
+                let used_rows = (used as u32).div_ceil(cols);
+                let mut sheet =
+                    RgbImage::from_pixel(cols * cell, used_rows * cell, image::Rgb(PAPER));
+                for i in first..last {
+                    let slot = (i % per) as u32;
+                    let (cx, cy) = ((slot % cols) * cell, (slot / cols) * cell);
+                    image::imageops::replace(
+                        &mut sheet,
+                        &thumbs[i - start].0[l],
+                        cx as i64,
+                        cy as i64,
+                    );
+                }
+                let name = format!("sheets/L{cell}-{sheet_index:05}.jpg");
+                let file = std::fs::File::create(out_dir.join(&name))?;
+                let mut w = std::io::BufWriter::new(file);
+                let enc = image::codecs::jpeg::JpegEncoder::new_with_quality(&mut w, plan.quality);
+                sheet
+                    .write_with_encoder(enc)
+                    .map_err(|e| std::io::Error::other(format!("encoding {name}: {e}")))?;
+                files[l].push(name);
+                first = last;
+            }
+        }
+        start = end;
+    }
+    Ok(Thumbnailed {
+        colours,
+        extents,
+        files,
+        problems,
+        digests,
+    })
+}

@@ -1,0 +1,368 @@
+//! A 2-D layout by the UMAP method (McInnes, Healy and Melville, 2018): a fuzzy neighbour graph
+//! from the k-NN graph, a PCA start, and stochastic gradient descent with negative sampling.
+//! Deterministic for a given seed (single-threaded optimisation).
+
+use crate::knn::KnnGraph;
+use crate::npy::Matrix;
+use crate::rng::Rng;
+
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct UmapParams {
+    pub min_dist: f32,
+    pub spread: f32,
+    pub epochs: Option<usize>,
+    pub negative_samples: usize,
+    pub learning_rate: f32,
+    pub seed: u64,
+}
+
+impl Default for UmapParams {
+    fn default() -> Self {
+        UmapParams {
+            min_dist: 0.1,
+            spread: 1.0,
+            epochs: None,
+            negative_samples: 5,
+            learning_rate: 1.0,
+            seed: 42,
+        }
+    }
+}
+
+/// A weighted undirected edge list (each edge once, i < j).
+#[derive(Debug, Clone)]
+pub struct FuzzyGraph {
+    pub heads: Vec<u32>,
+    pub tails: Vec<u32>,
+    pub weights: Vec<f32>,
+}
+
+/// Membership strengths: each item's distances are shifted by its nearest distance (rho) and scaled by a
+/// sigma found by bisection so that the memberships sum to log2(k); the directed graph is then
+/// symmetrised by the fuzzy union w + w' − w·w'.
+pub fn fuzzy_graph(g: &KnnGraph) -> FuzzyGraph {
+    let n = g.ids.len() / g.k.max(1);
+    let target = (g.k as f64).log2();
+    let mean_dist = {
+        let (s, c) = g
+            .distances
+            .iter()
+            .filter(|d| d.is_finite())
+            .fold((0.0f64, 0usize), |(s, c), &d| (s + d as f64, c + 1));
+        if c > 0 {
+            s / c as f64
+        } else {
+            0.0
+        }
+    };
+    let mut directed: std::collections::HashMap<(u32, u32), f32> = std::collections::HashMap::new();
+    for i in 0..n {
+        let nb: Vec<(usize, f32)> = g.neighbours(i).collect();
+        if nb.is_empty() {
+            continue;
+        }
+        let rho = nb
+            .iter()
+            .map(|&(_, d)| d as f64)
+            .find(|&d| d > 0.0)
+            .unwrap_or(0.0);
+        let (mut lo, mut hi, mut sigma) = (0.0f64, f64::INFINITY, 1.0f64);
+        for _ in 0..64 {
+            let s: f64 = nb
+                .iter()
+                .map(|&(_, d)| {
+                    let x = (d as f64 - rho).max(0.0);
+                    (-x / sigma).exp()
+                })
+                .sum();
+            if (s - target).abs() < 1e-5 {
+                break;
+            }
+            if s > target {
+                hi = sigma;
+                sigma = (lo + hi) / 2.0;
+            } else {
+                lo = sigma;
+                sigma = if hi.is_infinite() {
+                    sigma * 2.0
+                } else {
+                    (lo + hi) / 2.0
+                };
+            }
+        }
+        sigma = sigma.max(1e-3 * mean_dist).max(1e-12);
+        for &(j, d) in &nb {
+            let w = (-((d as f64 - rho).max(0.0)) / sigma).exp() as f32;
+            directed.insert((i as u32, j as u32), w);
+        }
+    }
+    let mut sym: std::collections::BTreeMap<(u32, u32), f32> = std::collections::BTreeMap::new();
+    for (&(i, j), &w) in &directed {
+        let (a, b) = if i < j { (i, j) } else { (j, i) };
+        if sym.contains_key(&(a, b)) {
+            continue;
+        }
+        let w1 = directed.get(&(a, b)).copied().unwrap_or(0.0);
+        let w2 = directed.get(&(b, a)).copied().unwrap_or(0.0);
+        let _ = w;
+        sym.insert((a, b), w1 + w2 - w1 * w2);
+    }
+    let mut out = FuzzyGraph {
+        heads: vec![],
+        tails: vec![],
+        weights: vec![],
+    };
+    for ((a, b), w) in sym {
+        if w > 0.0 {
+            out.heads.push(a);
+            out.tails.push(b);
+            out.weights.push(w);
+        }
+    }
+    out
+}
+
+/// Fits the curve 1 / (1 + a d^(2b)) to the target membership (1 below min_dist, exp(−(d − min_dist)/spread) above)
+/// by damped least squares on 300 points over [0, 3·spread], as the method defines the a, b parameters.
+pub fn fit_ab(min_dist: f32, spread: f32) -> (f32, f32) {
+    let (md, sp) = (min_dist as f64, spread as f64);
+    let xs: Vec<f64> = (0..300).map(|i| 3.0 * sp * i as f64 / 299.0).collect();
+    let ys: Vec<f64> = xs
+        .iter()
+        .map(|&x| if x < md { 1.0 } else { (-(x - md) / sp).exp() })
+        .collect();
+    let resid = |a: f64, b: f64| -> f64 {
+        xs.iter()
+            .zip(&ys)
+            .map(|(&x, &y)| {
+                let f = 1.0 / (1.0 + a * x.powf(2.0 * b));
+                (f - y) * (f - y)
+            })
+            .sum()
+    };
+    let (mut a, mut b, mut lambda) = (1.0f64, 1.0f64, 1e-3f64);
+    let mut cost = resid(a, b);
+    for _ in 0..500 {
+        // Gauss-Newton normal equations with Levenberg damping.
+        let (mut jaa, mut jab, mut jbb, mut ga, mut gb) = (0.0, 0.0, 0.0, 0.0, 0.0);
+        for (&x, &y) in xs.iter().zip(&ys) {
+            if x <= 0.0 {
+                continue;
+            }
+            let p = x.powf(2.0 * b);
+            let den = 1.0 + a * p;
+            let f = 1.0 / den;
+            let da = -p / (den * den);
+            let db = -a * p * 2.0 * x.ln() / (den * den);
+            let r = f - y;
+            jaa += da * da;
+            jab += da * db;
+            jbb += db * db;
+            ga += da * r;
+            gb += db * r;
+        }
+        let (m11, m22) = (jaa * (1.0 + lambda), jbb * (1.0 + lambda));
+        let det = m11 * m22 - jab * jab;
+        if det.abs() < 1e-300 {
+            break;
+        }
+        let step_a = -(m22 * ga - jab * gb) / det;
+        let step_b = -(m11 * gb - jab * ga) / det;
+        let (na, nb) = (a + step_a, b + step_b);
+        if na > 0.0 && nb > 0.0 {
+            let nc = resid(na, nb);
+            if nc < cost {
+                let converged = (cost - nc) < 1e-14;
+                a = na;
+                b = nb;
+                cost = nc;
+                lambda = (lambda * 0.3).max(1e-12);
+                if converged {
+                    break;
+                }
+                continue;
+            }
+        }
+        lambda *= 10.0;
+        if lambda > 1e12 {
+            break;
+        }
+    }
+    (a as f32, b as f32)
+}
+
+/// The first two principal components of the vectors, scaled so that the larger spans [−10, 10].
+pub fn pca_start(m: &Matrix, rng: &mut Rng) -> Vec<[f32; 2]> {
+    let (n, d) = (m.rows, m.cols);
+    let mut mean = vec![0f64; d];
+    for i in 0..n {
+        for (s, &x) in mean.iter_mut().zip(m.row(i)) {
+            *s += x as f64;
+        }
+    }
+    for s in &mut mean {
+        *s /= n.max(1) as f64;
+    }
+    // Covariance, d x d.
+    let mut cov = vec![0f64; d * d];
+    let mut centred = vec![0f64; d];
+    for i in 0..n {
+        for (c, (&x, &mu)) in centred.iter_mut().zip(m.row(i).iter().zip(&mean)) {
+            *c = x as f64 - mu;
+        }
+        for a in 0..d {
+            let ca = centred[a];
+            if ca == 0.0 {
+                continue;
+            }
+            let row = &mut cov[a * d..(a + 1) * d];
+            for (r, &cb) in row.iter_mut().zip(&centred) {
+                *r += ca * cb;
+            }
+        }
+    }
+    let mut comps: Vec<Vec<f64>> = Vec::new();
+    for _ in 0..2 {
+        let mut v: Vec<f64> = (0..d).map(|_| rng.uniform() - 0.5).collect();
+        for _ in 0..300 {
+            let mut w = vec![0f64; d];
+            for a in 0..d {
+                w[a] = cov[a * d..(a + 1) * d]
+                    .iter()
+                    .zip(&v)
+                    .map(|(c, x)| c * x)
+                    .sum();
+            }
+            for c in &comps {
+                let p: f64 = w.iter().zip(c).map(|(a, b)| a * b).sum();
+                for (x, y) in w.iter_mut().zip(c) {
+                    *x -= p * y;
+                }
+            }
+            let norm = w.iter().map(|x| x * x).sum::<f64>().sqrt();
+            if norm < 1e-300 {
+                break;
+            }
+            v = w.into_iter().map(|x| x / norm).collect();
+        }
+        comps.push(v);
+    }
+    let mut pos: Vec<[f64; 2]> = (0..n)
+        .map(|i| {
+            let row = m.row(i);
+            let mut p = [0f64; 2];
+            for (k, c) in comps.iter().enumerate() {
+                p[k] = row
+                    .iter()
+                    .zip(&mean)
+                    .zip(c)
+                    .map(|((&x, mu), w)| (x as f64 - mu) * w)
+                    .sum();
+            }
+            p
+        })
+        .collect();
+    let extent = pos
+        .iter()
+        .flat_map(|p| p.iter())
+        .fold(0f64, |a, &b| a.max(b.abs()));
+    let scale = if extent > 0.0 { 10.0 / extent } else { 1.0 };
+    for p in &mut pos {
+        // A little noise separates identical vectors, which would otherwise never move apart.
+        p[0] = p[0] * scale + (rng.uniform() - 0.5) * 1e-2;
+        p[1] = p[1] * scale + (rng.uniform() - 0.5) * 1e-2;
+    }
+    pos.into_iter()
+        .map(|p| [p[0] as f32, p[1] as f32])
+        .collect()
+}
+
+fn clip(x: f32) -> f32 {
+    x.clamp(-4.0, 4.0)
+}
+
+/// Optimises the layout. `progress` receives (epoch, epochs).
+pub fn layout(
+    graph: &FuzzyGraph,
+    start: Vec<[f32; 2]>,
+    params: &UmapParams,
+    progress: &dyn Fn(usize, usize),
+) -> Vec<[f32; 2]> {
+    let n = start.len();
+    let mut pos = start;
+    if n < 2 || graph.weights.is_empty() {
+        return pos;
+    }
+    let epochs = params.epochs.unwrap_or(if n <= 10_000 { 500 } else { 200 });
+    let (a, b) = fit_ab(params.min_dist, params.spread);
+    let max_w = graph.weights.iter().cloned().fold(0f32, f32::max);
+    // Edges too weak to be sampled even once are dropped, as in the method's reference description.
+    let keep: Vec<usize> = (0..graph.weights.len())
+        .filter(|&e| graph.weights[e] >= max_w / epochs as f32)
+        .collect();
+    let eps: Vec<f64> = keep
+        .iter()
+        .map(|&e| (max_w / graph.weights[e]) as f64)
+        .collect();
+    let eps_neg: Vec<f64> = eps
+        .iter()
+        .map(|&x| x / params.negative_samples as f64)
+        .collect();
+    let mut next: Vec<f64> = eps.clone();
+    let mut next_neg: Vec<f64> = eps_neg.clone();
+    let mut rng = Rng::new(params.seed ^ 0x5eed_1a70_u64);
+    for epoch in 0..epochs {
+        let alpha = params.learning_rate * (1.0 - epoch as f32 / epochs as f32);
+        let e_f = epoch as f64;
+        for (slot, &e) in keep.iter().enumerate() {
+            if next[slot] > e_f {
+                continue;
+            }
+            // Edges are undirected: alternate which end is the head.
+            let (mut j, mut k) = (graph.heads[e] as usize, graph.tails[e] as usize);
+            if rng.next_u64() & 1 == 1 {
+                std::mem::swap(&mut j, &mut k);
+            }
+            let (dx, dy) = (pos[j][0] - pos[k][0], pos[j][1] - pos[k][1]);
+            let d2 = dx * dx + dy * dy;
+            if d2 > 0.0 {
+                let coeff = -2.0 * a * b * d2.powf(b - 1.0) / (a * d2.powf(b) + 1.0);
+                let gx = clip(coeff * dx) * alpha;
+                let gy = clip(coeff * dy) * alpha;
+                pos[j][0] += gx;
+                pos[j][1] += gy;
+                pos[k][0] -= gx;
+                pos[k][1] -= gy;
+            }
+            next[slot] += eps[slot];
+            let negs = ((e_f - next_neg[slot]) / eps_neg[slot]).max(0.0) as usize;
+            for _ in 0..negs {
+                let m = rng.below(n as u64) as usize;
+                if m == j {
+                    continue;
+                }
+                let (dx, dy) = (pos[j][0] - pos[m][0], pos[j][1] - pos[m][1]);
+                let d2 = dx * dx + dy * dy;
+                let (gx, gy) = if d2 > 0.0 {
+                    let coeff = 2.0 * b / ((0.001 + d2) * (a * d2.powf(b) + 1.0));
+                    (clip(coeff * dx), clip(coeff * dy))
+                } else {
+                    (4.0, 4.0)
+                };
+                pos[j][0] += gx * alpha;
+                pos[j][1] += gy * alpha;
+            }
+            next_neg[slot] += negs as f64 * eps_neg[slot];
+        }
+        if epoch % 10 == 0 {
+            progress(epoch, epochs);
+        }
+    }
+    progress(epochs, epochs);
+    for p in &mut pos {
+        if !p[0].is_finite() || !p[1].is_finite() {
+            *p = [0.0, 0.0];
+        }
+    }
+    pos
+}

@@ -1,0 +1,176 @@
+//! The neighbour graph and the map against scikit-learn on its bundled digits dataset (UCI optical digits).
+
+mod common;
+
+use std::path::Path;
+use vitrine_build::knn::{exact_knn, Metric};
+use vitrine_build::npy::{read_npy, write_npy_f32};
+use vitrine_build::rng::Rng;
+use vitrine_build::umap;
+
+const K: usize = 15;
+
+fn digits(dir: &Path) {
+    common::run_python(
+        r#"
+import sys, numpy as np
+from sklearn.datasets import load_digits
+from sklearn.neighbors import NearestNeighbors
+out = sys.argv[1]
+X = load_digits().data  # 1797 x 64, float64
+np.save(f"{out}/digits.npy", X)
+for metric in ["euclidean", "cosine"]:
+    # K + 2 columns: the item itself, K neighbours, and one more to see ties at the boundary.
+    nn = NearestNeighbors(n_neighbors=17, algorithm="brute", metric=metric).fit(X)
+    d, i = nn.kneighbors(X)
+    np.save(f"{out}/{metric}_d.npy", d)
+    np.save(f"{out}/{metric}_i.npy", i.astype(np.float64))
+"#,
+        &[dir],
+    );
+}
+
+fn compare(dir: &Path, metric: Metric) {
+    let x = read_npy(&dir.join("digits.npy")).unwrap();
+    let g = exact_knn(&x, K, metric, &|_| {});
+    let rd = read_npy(&dir.join(format!("{}_d.npy", metric.name()))).unwrap();
+    let ri = read_npy(&dir.join(format!("{}_i.npy", metric.name()))).unwrap();
+    let tol = 1e-4;
+    let mut checked_ids = 0;
+    for q in 0..x.rows {
+        // The reference row includes the item itself (a zero distance); drop one zero to align.
+        let mut refs: Vec<(f32, usize)> = (0..rd.cols)
+            .map(|c| (rd.row(q)[c], ri.row(q)[c] as usize))
+            .collect();
+        let self_pos = refs.iter().position(|&(_, j)| j == q).unwrap_or(0);
+        refs.remove(self_pos);
+        let ours: Vec<(usize, f32)> = g.neighbours(q).collect();
+        assert_eq!(ours.len(), K);
+        for (slot, &(j, d)) in ours.iter().enumerate() {
+            let (rdist, rid) = refs[slot];
+            assert!(
+                (d - rdist).abs() <= tol * rdist.max(1.0),
+                "{metric:?} row {q} slot {slot}: {d} vs {rdist}"
+            );
+            // Ids must agree wherever the distance is not tied with a neighbour in the list.
+            let tied = |a: f32, b: f32| (a - b).abs() <= tol * a.max(1.0);
+            let before = slot > 0 && tied(refs[slot - 1].0, rdist);
+            let after = tied(refs[slot + 1].0, rdist);
+            if !before && !after {
+                assert_eq!(j, rid, "{metric:?} row {q} slot {slot}");
+                checked_ids += 1;
+            }
+        }
+    }
+    assert!(
+        checked_ids > x.rows * K / 3,
+        "too few untied neighbours were compared: {checked_ids}"
+    );
+}
+
+#[test]
+fn exact_graph_equals_scikit_learn_brute_force_on_digits() {
+    let dir = tempfile::tempdir().unwrap();
+    digits(dir.path());
+    compare(dir.path(), Metric::Euclidean);
+    compare(dir.path(), Metric::Cosine);
+}
+
+#[test]
+fn digits_map_is_trustworthy_by_scikit_learn() {
+    let dir = tempfile::tempdir().unwrap();
+    digits(dir.path());
+    let x = read_npy(&dir.path().join("digits.npy")).unwrap();
+    let g = exact_knn(&x, K, Metric::Euclidean, &|_| {});
+    let fuzzy = umap::fuzzy_graph(&g);
+    let start = umap::pca_start(&x, &mut Rng::new(42));
+    let pos = umap::layout(&fuzzy, start, &umap::UmapParams::default(), &|_, _| {});
+    assert!(pos.iter().all(|p| p[0].is_finite() && p[1].is_finite()));
+    let flat: Vec<f32> = pos.iter().flatten().copied().collect();
+    let emb = dir.path().join("embedding.npy");
+    write_npy_f32(&emb, pos.len(), 2, &flat).unwrap();
+    // sklearn.manifold.trustworthiness is the outside measure; published UMAP figures on digits are near
+    // 0.99 (from memory), the issue asks for at least 0.95.
+    let out = common::run_python(
+        r#"
+import sys, numpy as np
+from sklearn.manifold import trustworthiness
+from sklearn.datasets import load_digits
+from sklearn.neighbors import KNeighborsClassifier
+from sklearn.model_selection import cross_val_score
+X, y = load_digits(return_X_y=True)
+E = np.load(sys.argv[1])
+t = trustworthiness(X, E, n_neighbors=10)
+acc = cross_val_score(KNeighborsClassifier(10), E, y, cv=5).mean()
+print(f"{t:.6f} {acc:.6f}")
+"#,
+        &[&emb],
+    );
+    let mut it = out.split_whitespace().map(|s| s.parse::<f64>().unwrap());
+    let (t, acc) = (it.next().unwrap(), it.next().unwrap());
+    eprintln!("digits: trustworthiness@10 = {t}, 10-NN label accuracy in 2-D = {acc}");
+    assert!(t >= 0.95, "trustworthiness@10 = {t}");
+    assert!(acc >= 0.90, "label accuracy = {acc}");
+}
+
+#[test]
+fn same_seed_same_map_other_seed_other_map() {
+    let mut rng = Rng::new(3);
+    let (n, d) = (300, 8);
+    let data: Vec<f32> = (0..n * d)
+        .map(|i| (i / d / 100) as f32 * 3.0 + rng.uniform() as f32)
+        .collect();
+    let x = vitrine_build::npy::Matrix {
+        rows: n,
+        cols: d,
+        data,
+    };
+    let run = |seed| {
+        let g = exact_knn(&x, K, Metric::Euclidean, &|_| {});
+        let f = umap::fuzzy_graph(&g);
+        let p = umap::UmapParams {
+            seed,
+            epochs: Some(100),
+            ..Default::default()
+        };
+        umap::layout(&f, umap::pca_start(&x, &mut Rng::new(seed)), &p, &|_, _| {})
+    };
+    assert_eq!(run(1), run(1));
+    assert_ne!(run(1), run(2));
+}
+
+#[test]
+fn ab_curve_fit_matches_the_method_defaults() {
+    // For min_dist = 0.1 and spread = 1 the method's reference implementation gives a ~ 1.577, b ~ 0.895
+    // (from memory; issue 3 will check it against umap-learn's find_ab_params).
+    let (a, b) = umap::fit_ab(0.1, 1.0);
+    assert!(
+        (a - 1.577).abs() < 0.02 && (b - 0.895).abs() < 0.01,
+        "a = {a}, b = {b}"
+    );
+}
+
+#[test]
+fn tiny_and_degenerate_collections_give_finite_maps() {
+    for n in [1usize, 2, 3, 16] {
+        let x = vitrine_build::npy::Matrix {
+            rows: n,
+            cols: 3,
+            data: vec![0.5; n * 3],
+        };
+        let k = K.min(n.saturating_sub(1)).max(1);
+        let g = exact_knn(&x, k, Metric::Cosine, &|_| {});
+        let f = umap::fuzzy_graph(&g);
+        let pos = umap::layout(
+            &f,
+            umap::pca_start(&x, &mut Rng::new(1)),
+            &Default::default(),
+            &|_, _| {},
+        );
+        assert_eq!(pos.len(), n);
+        assert!(
+            pos.iter().all(|p| p[0].is_finite() && p[1].is_finite()),
+            "n = {n}: {pos:?}"
+        );
+    }
+}
