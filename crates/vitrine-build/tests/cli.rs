@@ -1,0 +1,543 @@
+//! The real `vitrine` binary on temporary folders: a whole build, its outputs, and bad input.
+
+mod common;
+
+use std::io::{Read, Write};
+use std::path::Path;
+use vitrine_build::npy::write_npy_f32;
+use vitrine_build::read::Atlas;
+
+/// A small invented fixture: 3 groups of 20 vectors, a catalogue with the awkward cases, and images.
+fn fixture(dir: &Path, with_images: bool) {
+    let mut data = Vec::new();
+    for i in 0..60 {
+        let g = i / 20;
+        for d in 0..6 {
+            let base = if d == g * 2 { 5.0 } else { 0.0 };
+            data.push(base + ((i * 7 + d * 13) % 11) as f32 * 0.05);
+        }
+    }
+    write_npy_f32(&dir.join("vectors.npy"), 60, 6, &data).unwrap();
+    let mut csv = String::from("\u{feff}id,title,workshop,dating,height_cm,notes,record\n");
+    for i in 0..60 {
+        let dating = match i % 4 {
+            0 => format!("c. {}", 1500 + i),
+            1 => format!("{}-{}", 1500 + i, 1510 + i),
+            2 => format!("{}", 1520 + i),
+            _ => "undated".to_string(),
+        };
+        let title = if i == 5 {
+            "\"Quoted, with comma\"\nand a second line".to_string()
+        } else {
+            format!("Sheet {i}")
+        };
+        let title = if i == 5 {
+            format!("\"{}\"", title.replace('"', "\"\""))
+        } else {
+            title
+        };
+        csv.push_str(&format!(
+            "it-{i:03},{title},Workshop {},{dating},{},note {i},https://example.org/rec/{i}\n",
+            ["Amber", "Birch", "Cobalt"][i / 20],
+            10.0 + i as f32 / 2.0
+        ));
+    }
+    std::fs::write(dir.join("records.csv"), csv).unwrap();
+    if with_images {
+        let img_dir = dir.join("images");
+        std::fs::create_dir_all(&img_dir).unwrap();
+        for i in 0..60 {
+            let colour = [[200u8, 40, 40], [40, 160, 60], [40, 60, 200]][i / 20];
+            let (w, h) = if i % 2 == 0 { (90, 60) } else { (50, 80) };
+            let img = image::RgbImage::from_fn(w, h, |x, _| {
+                image::Rgb(if x < 4 { [0, 0, 0] } else { colour })
+            });
+            if i == 7 {
+                std::fs::write(img_dir.join("it-007.jpg"), b"not really a jpeg").unwrap();
+            } else if i != 9 {
+                img.save(img_dir.join(format!("it-{i:03}.png"))).unwrap();
+            }
+        }
+    }
+}
+
+fn build(dir: &Path, out: &str, extra: &[&str]) -> std::process::Output {
+    let mut cmd = common::vitrine();
+    cmd.current_dir(dir).args([
+        "build",
+        "--vectors",
+        "vectors.npy",
+        "--catalogue",
+        "records.csv",
+        "--out",
+        out,
+        "--quiet",
+    ]);
+    cmd.args(extra);
+    cmd.output().unwrap()
+}
+
+fn stderr(o: &std::process::Output) -> String {
+    String::from_utf8_lossy(&o.stderr).to_string()
+}
+
+#[test]
+fn build_inspect_export_end_to_end() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    fixture(d, true);
+    let o = build(
+        d,
+        "atlas",
+        &[
+            "--images",
+            "images",
+            "--title",
+            "Fixture",
+            "--sheet-size",
+            "256",
+        ],
+    );
+    assert!(o.status.success(), "{}", stderr(&o));
+    let err = stderr(&o);
+    assert!(err.contains("2 image(s) could not be used"), "{err}");
+
+    let atlas = Atlas::open(&d.join("atlas")).unwrap();
+    let m = &atlas.manifest;
+    assert_eq!(m.item_count, 60);
+    assert_eq!(m.title, "Fixture");
+    let names: Vec<(&str, vitrine_format::FieldKind)> =
+        m.fields.iter().map(|f| (f.name.as_str(), f.kind)).collect();
+    use vitrine_format::FieldKind::*;
+    assert_eq!(
+        names,
+        [
+            ("title", Text),
+            ("workshop", Category),
+            ("dating", Date),
+            ("height_cm", Number),
+            ("notes", Text),
+            ("record", Link)
+        ]
+    );
+    // Every record survives with its own id, and the awkward title keeps its comma, quotes and newline.
+    let ids = atlas.ids().unwrap();
+    let mut all: Vec<String> = (0..60).map(|i| ids.get(i).to_string()).collect();
+    all.sort();
+    assert_eq!(
+        all,
+        (0..60).map(|i| format!("it-{i:03}")).collect::<Vec<_>>()
+    );
+    let title = &m.fields[0];
+    let titles = atlas
+        .text(&title.column, title.column2.as_ref().unwrap())
+        .unwrap();
+    let at = (0..60).find(|&i| ids.get(i) == "it-005").unwrap();
+    assert_eq!(titles.get(at), "\"Quoted, with comma\"\nand a second line");
+    // Dates: "c. 1500" for it-000 is 1495-1505; "undated" is kept as written with no range.
+    let dating = &m.fields[2];
+    let start: Vec<i32> = atlas.array(&dating.column).unwrap();
+    let end: Vec<i32> = atlas.array(dating.column2.as_ref().unwrap()).unwrap();
+    let [wo, wt] = dating.written.as_ref().unwrap();
+    let written = atlas.text(wo, wt).unwrap();
+    let i0 = (0..60).find(|&i| ids.get(i) == "it-000").unwrap();
+    assert_eq!(
+        (start[i0], end[i0], written.get(i0)),
+        (1495, 1505, "c. 1500")
+    );
+    let i3 = (0..60).find(|&i| ids.get(i) == "it-003").unwrap();
+    assert_eq!((start[i3], written.get(i3)), (i32::MIN, "undated"));
+
+    // Neighbours stay inside each invented group (the groups are far apart in vector space).
+    let nb: Vec<u32> = atlas.array(&m.neighbours.ids).unwrap();
+    let group = |i: usize| ids.get(i)[3..].parse::<usize>().unwrap() / 20;
+    for i in 0..60 {
+        for s in 0..m.neighbours.k as usize {
+            assert_eq!(
+                group(nb[i * m.neighbours.k as usize + s] as usize),
+                group(i)
+            );
+        }
+    }
+    // The report names the corrupt and the missing image; both got placeholders, the rest real thumbnails.
+    let report: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(d.join("atlas/build-report.json")).unwrap())
+            .unwrap();
+    let problems: Vec<&str> = report["image_problems"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|p| p["id"].as_str().unwrap())
+        .collect();
+    assert_eq!(problems.len(), 2);
+    assert!(problems.contains(&"it-007") && problems.contains(&"it-009"));
+    let colours: Vec<u8> = atlas.array(&m.colours).unwrap();
+    let i20 = (0..60).find(|&i| ids.get(i) == "it-020").unwrap();
+    let c = &colours[i20 * 4..i20 * 4 + 3];
+    assert!(
+        c[1] > 120 && c[0] < 90 && c[2] < 90,
+        "green group's average colour: {c:?}"
+    );
+    let sheets = m.sheets.as_ref().unwrap();
+    assert_eq!(
+        sheets.levels.iter().map(|l| l.cell).collect::<Vec<_>>(),
+        [32, 128]
+    );
+    for l in &sheets.levels {
+        for f in &l.files {
+            assert!(image::open(d.join("atlas").join(f)).is_ok(), "{f}");
+        }
+    }
+    let extents: Vec<u32> = atlas.array(&sheets.extents).unwrap();
+    assert_eq!(
+        extents[i0],
+        128 | (85 << 16),
+        "90x60 fits a 128 cell as 128x85"
+    );
+
+    // Provenance: every input with its SHA-256.
+    let roles: Vec<&str> = m
+        .provenance
+        .inputs
+        .iter()
+        .map(|i| i.role.as_str())
+        .collect();
+    assert!(roles.starts_with(&["vectors", "catalogue"]), "{roles:?}");
+    let npy = std::fs::read(d.join("vectors.npy")).unwrap();
+    assert_eq!(
+        m.provenance.inputs[0].sha256,
+        vitrine_format::sha256_hex(&npy)
+    );
+
+    // inspect verifies every array and prints the summary.
+    let o = common::vitrine()
+        .arg("inspect")
+        .arg(d.join("atlas"))
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", stderr(&o));
+    let text = String::from_utf8(o.stdout).unwrap();
+    assert!(
+        text.contains("items     60")
+            && text.contains("workshop")
+            && text.contains("checksums verified"),
+        "{text}"
+    );
+
+    // export --positions: id and x, y per map; Python's csv module reads it back (an outside reader).
+    let pos_csv = d.join("positions.csv");
+    let o = common::vitrine()
+        .arg("export")
+        .arg(d.join("atlas"))
+        .arg("--positions")
+        .arg(&pos_csv)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", stderr(&o));
+    let out = common::run_python(
+        "import csv, sys; rows = list(csv.DictReader(open(sys.argv[1], newline=''))); \
+         print(len(rows), sorted(rows[0].keys()), all(abs(float(r['similarity_x'])) < 1e6 for r in rows))",
+        &[&pos_csv],
+    );
+    assert_eq!(out.trim(), "60 ['id', 'similarity_x', 'similarity_y'] True");
+
+    // A corrupted array is caught by inspect.
+    let f = d.join("atlas").join(&m.neighbours.distances.file);
+    let mut bytes = std::fs::read(&f).unwrap();
+    bytes[0] ^= 0xFF;
+    std::fs::write(&f, bytes).unwrap();
+    let o = common::vitrine()
+        .arg("inspect")
+        .arg(d.join("atlas"))
+        .output()
+        .unwrap();
+    assert!(
+        !o.status.success() && stderr(&o).contains("checksum"),
+        "{}",
+        stderr(&o)
+    );
+}
+
+#[test]
+fn same_inputs_and_seed_give_the_same_atlas_bytes() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    fixture(d, false);
+    for out in ["a1", "a2"] {
+        let o = build(d, out, &["--title", "Same", "--epochs", "60"]);
+        assert!(o.status.success(), "{}", stderr(&o));
+    }
+    let files = |p: &Path| {
+        let mut v: Vec<_> = std::fs::read_dir(p.join("arrays"))
+            .unwrap()
+            .map(|e| e.unwrap().file_name())
+            .collect();
+        v.sort();
+        v
+    };
+    assert_eq!(files(&d.join("a1")), files(&d.join("a2")));
+    for f in files(&d.join("a1")) {
+        assert_eq!(
+            std::fs::read(d.join("a1/arrays").join(&f)).unwrap(),
+            std::fs::read(d.join("a2/arrays").join(&f)).unwrap(),
+            "{f:?}"
+        );
+    }
+    assert_eq!(
+        std::fs::read(d.join("a1/atlas.json")).unwrap(),
+        std::fs::read(d.join("a2/atlas.json")).unwrap()
+    );
+    // Without images, items are coloured by their first category field.
+    let m = Atlas::open(&d.join("a1")).unwrap().manifest;
+    assert!(m.sheets.is_none());
+}
+
+#[test]
+fn bad_input_stops_the_build_names_the_problem_and_keeps_the_old_atlas() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    fixture(d, false);
+    let o = build(d, "atlas", &["--epochs", "20"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let good = std::fs::read(d.join("atlas/atlas.json")).unwrap();
+    let leftovers = |d: &Path| {
+        std::fs::read_dir(d)
+            .unwrap()
+            .filter(|e| {
+                e.as_ref()
+                    .unwrap()
+                    .file_name()
+                    .to_string_lossy()
+                    .starts_with('.')
+            })
+            .count()
+    };
+
+    // A truncated .npy.
+    let full = std::fs::read(d.join("vectors.npy")).unwrap();
+    std::fs::write(d.join("vectors.npy"), &full[..full.len() - 30]).unwrap();
+    let o = build(d, "atlas", &[]);
+    let e = stderr(&o);
+    assert!(
+        !o.status.success()
+            && e.contains("vectors.npy")
+            && e.contains("truncated")
+            && e.contains("row 58"),
+        "{e}"
+    );
+    std::fs::write(d.join("vectors.npy"), &full).unwrap();
+
+    // A row with NaN: named by row and id.
+    let mut data = vec![0.5f32; 60 * 6];
+    data[13 * 6 + 2] = f32::NAN;
+    write_npy_f32(&d.join("nan.npy"), 60, 6, &data).unwrap();
+    let o = common::vitrine()
+        .current_dir(d)
+        .args([
+            "build",
+            "--vectors",
+            "nan.npy",
+            "--catalogue",
+            "records.csv",
+            "--out",
+            "atlas",
+            "--quiet",
+        ])
+        .output()
+        .unwrap();
+    let e = stderr(&o);
+    assert!(
+        !o.status.success()
+            && e.contains("nan.npy")
+            && e.contains("row 13 (id it-013)")
+            && e.contains("NaN"),
+        "{e}"
+    );
+
+    // Catalogue ids with no vector, by ids file: every missing id named.
+    let ids: String = (0..60)
+        .filter(|i| *i != 17 && *i != 42)
+        .map(|i| format!("it-{i:03}\n"))
+        .collect::<String>()
+        + "ghost-1\nghost-2\n";
+    std::fs::write(d.join("ids.txt"), ids).unwrap();
+    let o = build(d, "atlas", &["--vector-ids", "ids.txt"]);
+    let e = stderr(&o);
+    assert!(
+        !o.status.success()
+            && e.contains("have no vector: it-017, it-042")
+            && e.contains("no catalogue record: ghost-1, ghost-2"),
+        "{e}"
+    );
+
+    // By order: more records than vectors names the records left over.
+    write_npy_f32(&d.join("short.npy"), 58, 6, &vec![0.5f32; 58 * 6]).unwrap();
+    let o = common::vitrine()
+        .current_dir(d)
+        .args([
+            "build",
+            "--vectors",
+            "short.npy",
+            "--catalogue",
+            "records.csv",
+            "--out",
+            "atlas",
+            "--quiet",
+        ])
+        .output()
+        .unwrap();
+    let e = stderr(&o);
+    assert!(
+        !o.status.success() && e.contains("no vector: it-058, it-059"),
+        "{e}"
+    );
+
+    // A catalogue row with a field too many: named by record and line.
+    let mut csv = std::fs::read_to_string(d.join("records.csv")).unwrap();
+    csv.push_str("it-060,x,y,1600,1,n,https://example.org,extra\n");
+    std::fs::write(d.join("bad.csv"), csv).unwrap();
+    let o = common::vitrine()
+        .current_dir(d)
+        .args([
+            "build",
+            "--vectors",
+            "vectors.npy",
+            "--catalogue",
+            "bad.csv",
+            "--out",
+            "atlas",
+            "--quiet",
+        ])
+        .output()
+        .unwrap();
+    let e = stderr(&o);
+    assert!(
+        !o.status.success()
+            && e.contains("bad.csv")
+            && e.contains("record 61")
+            && e.contains("8 fields"),
+        "{e}"
+    );
+
+    // A wrong id column is named with the columns there are.
+    let o = build(d, "atlas", &["--id-column", "inventory"]);
+    assert!(
+        !o.status.success() && stderr(&o).contains("no id column \"inventory\""),
+        "{}",
+        stderr(&o)
+    );
+
+    // Through all of it the good atlas stood untouched and no temporary folder was left behind.
+    assert_eq!(std::fs::read(d.join("atlas/atlas.json")).unwrap(), good);
+    assert_eq!(leftovers(d), 0);
+
+    // A folder that is not an atlas is never replaced.
+    std::fs::create_dir_all(d.join("papers")).unwrap();
+    std::fs::write(d.join("papers/thesis.txt"), "keep me").unwrap();
+    let o = build(d, "papers", &[]);
+    assert!(
+        !o.status.success() && stderr(&o).contains("not an atlas"),
+        "{}",
+        stderr(&o)
+    );
+    assert_eq!(
+        std::fs::read_to_string(d.join("papers/thesis.txt")).unwrap(),
+        "keep me"
+    );
+}
+
+#[test]
+fn without_a_catalogue_rows_are_numbered() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    fixture(d, false);
+    let o = common::vitrine()
+        .current_dir(d)
+        .args([
+            "build",
+            "--vectors",
+            "vectors.npy",
+            "--out",
+            "plain",
+            "--quiet",
+            "--epochs",
+            "20",
+        ])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", stderr(&o));
+    let a = Atlas::open(&d.join("plain")).unwrap();
+    let ids = a.ids().unwrap();
+    let mut all: Vec<usize> = (0..60).map(|i| ids.get(i).parse().unwrap()).collect();
+    all.sort();
+    assert_eq!(all, (0..60).collect::<Vec<_>>());
+    assert!(a.manifest.fields.is_empty());
+}
+
+fn http_get(addr: &str, path: &str) -> (u16, String, Vec<u8>) {
+    let hostport = addr.trim_start_matches("http://").trim_end_matches('/');
+    let mut s = std::net::TcpStream::connect(hostport).unwrap();
+    write!(
+        s,
+        "GET {path} HTTP/1.1\r\nHost: {hostport}\r\nConnection: close\r\n\r\n"
+    )
+    .unwrap();
+    let mut buf = Vec::new();
+    s.read_to_end(&mut buf).unwrap();
+    let split = buf.windows(4).position(|w| w == b"\r\n\r\n").unwrap();
+    let head = String::from_utf8_lossy(&buf[..split]).to_string();
+    let status: u16 = head.split_whitespace().nth(1).unwrap().parse().unwrap();
+    let ctype = head
+        .lines()
+        .find_map(|l| {
+            l.strip_prefix("Content-Type: ")
+                .or_else(|| l.strip_prefix("content-type: "))
+        })
+        .unwrap_or("")
+        .to_string();
+    (status, ctype, buf[split + 4..].to_vec())
+}
+
+#[test]
+fn serve_gives_mime_types_and_never_leaves_the_folder() {
+    let dir = tempfile::tempdir().unwrap();
+    let root = dir.path().join("atlas");
+    std::fs::create_dir_all(root.join("arrays")).unwrap();
+    std::fs::write(root.join("index.html"), "<!doctype html>").unwrap();
+    std::fs::write(root.join("viewer.wasm"), b"\0asm").unwrap();
+    std::fs::write(root.join("atlas.json"), "{}").unwrap();
+    std::fs::write(dir.path().join("secret.txt"), "outside").unwrap();
+    #[cfg(unix)]
+    std::os::unix::fs::symlink(dir.path().join("secret.txt"), root.join("link.txt")).unwrap();
+    let (tx, rx) = std::sync::mpsc::channel();
+    let r = root.clone();
+    std::thread::spawn(move || {
+        vitrine_build::serve::serve(&r, "127.0.0.1", 0, |url| tx.send(url.to_string()).unwrap())
+            .unwrap();
+    });
+    let addr = rx.recv().unwrap();
+    assert!(addr.starts_with("http://127.0.0.1:"), "{addr}");
+    let (s, t, body) = http_get(&addr, "/");
+    assert_eq!(
+        (s, t.as_str(), body.as_slice()),
+        (200, "text/html; charset=utf-8", &b"<!doctype html>"[..])
+    );
+    assert_eq!(http_get(&addr, "/viewer.wasm").1, "application/wasm");
+    assert_eq!(http_get(&addr, "/atlas.json?v=1").1, "application/json");
+    for evil in [
+        "/../secret.txt",
+        "/%2e%2e/secret.txt",
+        "/arrays/..%2f..%2fsecret.txt",
+        "/link.txt",
+        "//etc/passwd",
+        "/..\\secret.txt",
+    ] {
+        let (s, _, body) = http_get(&addr, evil);
+        assert_eq!(s, 404, "{evil}");
+        assert!(
+            !String::from_utf8_lossy(&body).contains("outside"),
+            "{evil}"
+        );
+    }
+    assert_eq!(http_get(&addr, "/missing.bin").0, 404);
+}
