@@ -181,6 +181,7 @@ fn looks_like_date_column(name: &str) -> bool {
 /// - date: the name speaks of a date (date, dating, year, period), or every non-empty value parses as a
 ///   year range and at least one is written as a range or with "c.";
 /// - number: every non-empty value parses as a number;
+/// - text: the name says it is prose (title, description, notes, caption, inscription, remarks, comment);
 /// - category: at most 1,000 distinct values and no more than half as many distinct values as records
 ///   (or at most 12 distinct values in a small catalogue);
 /// - text otherwise.
