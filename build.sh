@@ -5,9 +5,15 @@ cd "$(dirname "$0")"
 CACHE="${VITRINE_CACHE:-$HOME/.cache/vitrine}"
 mkdir -p "$CACHE"
 
+setup_rust() {
+  rustup target list --installed 2>/dev/null | grep -q wasm32-unknown-unknown || {
+    echo "[setup] Rust wasm target"; rustup target add wasm32-unknown-unknown; }
+  setup_wasm_bindgen
+}
+
 setup() {
-  echo "[setup] Rust wasm target"
-  rustup target list --installed 2>/dev/null | grep -q wasm32-unknown-unknown || rustup target add wasm32-unknown-unknown
+  setup_rust
+  setup_browser
   echo "[setup] Python venv for the outside-reference tests ($CACHE/venv)"
   if [ ! -x "$CACHE/venv/bin/python" ] || ! "$CACHE/venv/bin/python" -c "import numpy, sklearn" 2>/dev/null; then
     python3 -m venv "$CACHE/venv"
@@ -15,17 +21,80 @@ setup() {
   fi
 }
 
+# The viewer: wasm module + bindings + page shell, in target/viewer (copied into every atlas).
+build_viewer() {
+  setup_wasm_bindgen
+  echo "[viewer] compiling the viewer to WebAssembly"
+  cargo build --locked -p vitrine-view --target wasm32-unknown-unknown --profile wasm-release
+  rm -rf target/viewer
+  mkdir -p target/viewer/viewer
+  wasm-bindgen --target web --no-typescript --out-dir target/viewer/viewer \
+    target/wasm32-unknown-unknown/wasm-release/vitrine_view.wasm
+  cp web/index.html target/viewer/
+  cp web/loader.js web/style.css target/viewer/viewer/
+}
+
+setup_wasm_bindgen() {
+  if ! wasm-bindgen --version 2>/dev/null | grep -q "0.2.130"; then
+    echo "[setup] wasm-bindgen CLI 0.2.130 (one-time, a few minutes)"
+    # Not --locked: the CLI's own lock file names a crate version the registry mirror may lack.
+    cargo install wasm-bindgen-cli --version 0.2.130
+  fi
+}
+
+# The demo: generate the invented archive (once), build its atlas.
+build_demo() {
+  build_viewer
+  cargo build --locked --release -p vitrine-build -p vitrine-demo
+  local src="$CACHE/demo-source"
+  # Regenerate when the generator's source changed since the cached copy was made.
+  local stamp
+  stamp="$(cat crates/vitrine-demo/src/*.rs crates/vitrine-demo/Cargo.toml | sha256sum | cut -c1-16)"
+  if [ ! -f "$src/features.npy" ] || [ "$(cat "$src/.stamp" 2>/dev/null)" != "$stamp" ]; then
+    echo "[demo] generating the invented demo archive"
+    rm -rf "$src"
+    ./target/release/vitrine-demo --out "$src"
+    echo "$stamp" > "$src/.stamp"
+  fi
+  ./target/release/vitrine build --vectors "$src/features.npy" --vector-ids "$src/feature-ids.txt" \
+    --catalogue "$src/records.csv" --images "$src/images" --title "Demo archive (invented)" \
+    --viewer target/viewer --out demo-atlas/out
+}
+
+# Browser-test tools: Debian's Chromium (test tools cannot download their own here) and playwright-core.
+setup_browser() {
+  if [ ! -x /usr/bin/chromium ]; then
+    echo "[setup] Chromium from Debian (one-time, about a minute)"
+    local sudo=""; [ "$(id -u)" = 0 ] || sudo="sudo"
+    $sudo apt-get update -qq
+    DEBIAN_FRONTEND=noninteractive $sudo apt-get install -y -qq chromium
+  fi
+  if [ ! -d tests/browser/node_modules/playwright-core ] || [ ! -d tests/browser/node_modules/pngjs ]; then
+    echo "[setup] playwright-core and pngjs from npm"
+    (cd tests/browser && npm ci --no-audit --no-fund)
+  fi
+}
+
 run_tests() {
   setup
   echo "[test] cargo test (workspace)"
   cargo test --workspace --locked --release 2>&1
+  echo "[test] demo atlas for the browser test"
+  build_demo
+  echo "[test] viewer in headless Chromium (software WebGL)"
+  VITRINE_BIN="$PWD/target/release/vitrine" VITRINE_ATLAS="$PWD/demo-atlas/out" \
+    VITRINE_CATALOGUE="$CACHE/demo-source/records.csv" VITRINE_ARTIFACTS="$PWD/tests/artifacts" \
+    node --test tests/browser/
 }
 
 case "${1:-}" in
   setup) setup ;;
   test) run_tests ;;
+  atlas) build_viewer; echo "viewer files in target/viewer (vitrine build copies them into each atlas)" ;;
   demo)
-    echo "The demo atlas is not built yet: see issue 2's notes. Run ./build.sh test for what exists." >&2
-    exit 1 ;;
-  *) echo "usage: ./build.sh setup|demo|test" >&2; exit 2 ;;
+    setup_rust
+    build_demo
+    echo "[demo] serving demo-atlas/out"
+    exec ./target/release/vitrine serve demo-atlas/out --port "${PORT:-8080}" ;;
+  *) echo "usage: ./build.sh setup|demo|test|atlas" >&2; exit 2 ;;
 esac

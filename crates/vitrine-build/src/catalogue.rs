@@ -219,6 +219,21 @@ pub fn infer_kind(name: &str, values: &[&str]) -> FieldKind {
     {
         return FieldKind::Number;
     }
+    let lower = name.to_lowercase();
+    if [
+        "title",
+        "description",
+        "notes",
+        "caption",
+        "inscription",
+        "remarks",
+        "comment",
+    ]
+    .iter()
+    .any(|w| lower.contains(w))
+    {
+        return FieldKind::Text;
+    }
     let mut distinct = std::collections::HashSet::new();
     for v in &filled {
         distinct.insert(*v);
@@ -328,5 +343,63 @@ pub fn field_data(
         }
         FieldKind::Text => FieldData::Text(values.iter().map(|v| v.to_string()).collect()),
         FieldKind::Link => FieldData::Link(values.iter().map(|v| v.trim().to_string()).collect()),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn kinds_follow_the_stated_rules() {
+        let k = |name: &str, v: &[&str]| infer_kind(name, v);
+        assert_eq!(
+            k("record", &["https://a.example/1", "", "http://b.example/2"]),
+            FieldKind::Link
+        );
+        assert_eq!(
+            k("dating", &["1602", "c. 1540", "undated"]),
+            FieldKind::Date
+        );
+        assert_eq!(
+            k("made", &["1602", "1550-1575", "c. 1540"]),
+            FieldKind::Date
+        );
+        assert_eq!(k("height_cm", &["12.5", "", "7"]), FieldKind::Number);
+        assert_eq!(
+            k("year_count", &["12", "13"]),
+            FieldKind::Date,
+            "a date-like name wins over numbers"
+        );
+        // Repeated titles are still prose, not a vocabulary.
+        let titles: Vec<&str> = (0..100)
+            .map(|i| ["Study", "Sketch", "Rosette"][i % 3])
+            .collect();
+        assert_eq!(k("title", &titles), FieldKind::Text);
+        assert_eq!(k("technique", &titles), FieldKind::Category);
+        let many: Vec<String> = (0..100).map(|i| format!("shelf {i}")).collect();
+        let many: Vec<&str> = many.iter().map(String::as_str).collect();
+        assert_eq!(k("shelf_mark", &many), FieldKind::Text);
+        assert_eq!(k("empty", &["", " "]), FieldKind::Text);
+    }
+
+    #[test]
+    fn csv_with_bom_quotes_and_newlines_keeps_every_value() {
+        let raw = "\u{feff}id,title\n1,\"A, \"\"quoted\"\"\nsecond line\"\n2,Ünïcødé\n".as_bytes();
+        let c = parse_csv(raw, Path::new("t.csv"), "id").unwrap();
+        assert_eq!(c.header, ["id", "title"]);
+        assert_eq!(c.rows[0][1], "A, \"quoted\"\nsecond line");
+        assert_eq!(c.rows[1][1], "Ünïcødé");
+        let e = parse_csv(b"id,t\n1,a\n1,b\n", Path::new("d.csv"), "id")
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("d.csv") && e.contains("\"1\" appears twice"),
+            "{e}"
+        );
+        let e = parse_csv(b"id,t\n1,\xff\n", Path::new("u.csv"), "id")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("record 1") && e.contains("not UTF-8"), "{e}");
     }
 }

@@ -1,0 +1,219 @@
+//! The atlas as the viewer holds it: checked arrays decoded into plain vectors.
+
+use std::collections::HashMap;
+
+use vitrine_format::{AtlasError, Field, FieldKind, Manifest, TextTable};
+
+pub enum Column {
+    Category(Vec<u32>),
+    Number(Vec<f32>),
+    Date { start: Vec<i32>, end: Vec<i32> },
+    Text(TextTable),
+}
+
+pub struct FieldColumn {
+    pub field: Field,
+    pub column: Column,
+    pub written: Option<TextTable>,
+}
+
+pub struct AtlasData {
+    pub manifest: Manifest,
+    pub n: usize,
+    pub ids: TextTable,
+    pub positions: Vec<[f32; 2]>,
+    pub bounds: [f32; 4],
+    pub colours: Vec<[u8; 4]>,
+    pub fields: Vec<FieldColumn>,
+    pub neighbours: Vec<u32>,
+    pub k: usize,
+    /// Thumbnail width and height in the largest cell (0 when there are no sheets).
+    pub extents: Vec<(u16, u16)>,
+    /// Typical spacing between items on the map, in map units (see [`crate::pick::typical_spacing`]).
+    pub spacing: f64,
+}
+
+/// One line of a record card.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RecordLine {
+    pub name: String,
+    pub value: String,
+    pub link: bool,
+}
+
+impl AtlasData {
+    /// Every array file the viewer fetches, with its declared size.
+    pub fn files(m: &Manifest) -> Vec<(String, u64)> {
+        let mut seen = std::collections::BTreeMap::new();
+        for r in m.arrays() {
+            seen.insert(r.file.clone(), r.bytes);
+        }
+        seen.into_iter().collect()
+    }
+
+    pub fn from_parts(
+        manifest: Manifest,
+        files: &HashMap<String, Vec<u8>>,
+    ) -> Result<AtlasData, AtlasError> {
+        let get = |r: &vitrine_format::ArrayRef| -> Result<&[u8], AtlasError> {
+            files
+                .get(&r.file)
+                .map(|v| v.as_slice())
+                .ok_or_else(|| AtlasError::WrongLength {
+                    file: r.file.clone(),
+                    expected: r.bytes,
+                    found: 0,
+                })
+        };
+        let text = |a: &vitrine_format::ArrayRef,
+                    b: &vitrine_format::ArrayRef|
+         -> Result<TextTable, AtlasError> {
+            vitrine_format::decode_text(a, get(a)?, b, get(b)?, manifest.item_count)
+        };
+        let n = manifest.item_count as usize;
+        let ids = text(&manifest.ids, &manifest.ids_text)?;
+        let map = manifest
+            .maps
+            .first()
+            .ok_or_else(|| AtlasError::Inconsistent("the atlas has no map".into()))?;
+        let flat: Vec<f32> = map.positions.decode(get(&map.positions)?)?;
+        let positions: Vec<[f32; 2]> = flat.chunks_exact(2).map(|c| [c[0], c[1]]).collect();
+        let colours: Vec<u8> = manifest.colours.decode(get(&manifest.colours)?)?;
+        let colours = colours
+            .chunks_exact(4)
+            .map(|c| [c[0], c[1], c[2], c[3]])
+            .collect();
+        let neighbours = manifest
+            .neighbours
+            .ids
+            .decode(get(&manifest.neighbours.ids)?)?;
+        let extents = match &manifest.sheets {
+            Some(s) => s
+                .extents
+                .decode::<u32>(get(&s.extents)?)?
+                .into_iter()
+                .map(|e| ((e & 0xFFFF) as u16, (e >> 16) as u16))
+                .collect(),
+            None => vec![(0, 0); n],
+        };
+        let mut fields = Vec::new();
+        for f in &manifest.fields {
+            let column = match f.kind {
+                FieldKind::Category => Column::Category(f.column.decode(get(&f.column)?)?),
+                FieldKind::Number => Column::Number(f.column.decode(get(&f.column)?)?),
+                FieldKind::Date => {
+                    let end = f.column2.as_ref().unwrap();
+                    Column::Date {
+                        start: f.column.decode(get(&f.column)?)?,
+                        end: end.decode(get(end)?)?,
+                    }
+                }
+                FieldKind::Text | FieldKind::Link => {
+                    Column::Text(text(&f.column, f.column2.as_ref().unwrap())?)
+                }
+            };
+            let written = match &f.written {
+                Some([a, b]) => Some(text(a, b)?),
+                None => None,
+            };
+            fields.push(FieldColumn {
+                field: f.clone(),
+                column,
+                written,
+            });
+        }
+        let w = (map.bounds[2] - map.bounds[0]).max(1e-6) as f64;
+        let h = (map.bounds[3] - map.bounds[1]).max(1e-6) as f64;
+        // Without two distinct positions, fall back to the side each item would have if items covered half the map.
+        let spacing = crate::pick::typical_spacing(&positions)
+            .unwrap_or_else(|| (w * h * 0.5 / n.max(1) as f64).sqrt());
+        Ok(AtlasData {
+            spacing,
+            n,
+            ids,
+            positions,
+            bounds: map.bounds,
+            colours,
+            fields,
+            k: manifest.neighbours.k as usize,
+            neighbours,
+            extents,
+            manifest,
+        })
+    }
+
+    /// A short label for an item: its title-like text field, else its id.
+    pub fn label(&self, i: usize) -> String {
+        for f in &self.fields {
+            if let Column::Text(t) = &f.column {
+                if f.field.name.to_lowercase().contains("title") && !t.get(i).is_empty() {
+                    return t.get(i).to_string();
+                }
+            }
+        }
+        self.ids.get(i).to_string()
+    }
+
+    /// Every catalogue field of item `i`, as text, in catalogue order (the id first).
+    pub fn record(&self, i: usize) -> Vec<RecordLine> {
+        let mut out = vec![RecordLine {
+            name: "id".into(),
+            value: self.ids.get(i).into(),
+            link: false,
+        }];
+        for f in &self.fields {
+            let value = if let Some(w) = &f.written {
+                w.get(i).to_string()
+            } else {
+                match &f.column {
+                    Column::Category(c) => {
+                        let code = c[i];
+                        if code == u32::MAX {
+                            String::new()
+                        } else {
+                            f.field
+                                .values
+                                .get(code as usize)
+                                .cloned()
+                                .unwrap_or_default()
+                        }
+                    }
+                    Column::Number(v) => {
+                        if v[i].is_nan() {
+                            String::new()
+                        } else {
+                            format!("{}", v[i])
+                        }
+                    }
+                    Column::Date { start, end } => {
+                        if start[i] == i32::MIN {
+                            String::new()
+                        } else if start[i] == end[i] {
+                            format!("{}", start[i])
+                        } else {
+                            format!("{}-{}", start[i], end[i])
+                        }
+                    }
+                    Column::Text(t) => t.get(i).to_string(),
+                }
+            };
+            let link = f.field.kind == FieldKind::Link
+                && (value.starts_with("https://") || value.starts_with("http://"));
+            out.push(RecordLine {
+                name: f.field.name.clone(),
+                value,
+                link,
+            });
+        }
+        out
+    }
+
+    /// The item's neighbours from the neighbour graph, nearest first.
+    pub fn neighbours_of(&self, i: usize) -> Vec<usize> {
+        self.neighbours[i * self.k..(i + 1) * self.k]
+            .iter()
+            .filter(|&&j| j != u32::MAX)
+            .map(|&j| j as usize)
+            .collect()
+    }
+}

@@ -1,0 +1,283 @@
+//! The frame, drawn on the CPU into one RGBA buffer: on software WebGL one texture upload of the
+//! finished frame costs far less than drawing items one by one on the GPU.
+//!
+//! Level of detail: when an item's square on screen is smaller than [`THUMB_MIN_PX`] it is a mark in
+//! its average colour; larger, it is its thumbnail from the smallest sheet level at least that size
+//! (or the best level already loaded, while the right one is fetched).
+
+use crate::atlas::AtlasData;
+use crate::camera::Camera;
+
+pub const THUMB_MIN_PX: f64 = 9.0;
+
+#[derive(Debug, Clone, Copy)]
+pub struct Theme {
+    pub paper: [u8; 3],
+    pub ink: [u8; 3],
+    pub accent: [u8; 3],
+}
+
+pub const READING_ROOM: Theme = Theme {
+    paper: [0xF3, 0xEE, 0xE4],
+    ink: [0x2B, 0x2A, 0x33],
+    accent: [0x11, 0x64, 0x66],
+};
+
+/// A decoded sheet: RGB pixels.
+pub struct Sheet {
+    pub width: u32,
+    pub height: u32,
+    pub rgb: Vec<u8>,
+}
+
+pub struct SheetLevel {
+    pub cell: u32,
+    pub columns: u32,
+    pub rows: u32,
+    pub files: Vec<String>,
+    pub loaded: Vec<Option<Sheet>>,
+}
+
+#[derive(Default)]
+pub struct SheetStore {
+    /// Smallest cell first.
+    pub levels: Vec<SheetLevel>,
+}
+
+impl SheetStore {
+    pub fn from_manifest(m: &vitrine_format::Manifest) -> SheetStore {
+        let mut levels: Vec<SheetLevel> = m
+            .sheets
+            .iter()
+            .flat_map(|s| s.levels.iter())
+            .map(|l| SheetLevel {
+                cell: l.cell,
+                columns: l.columns,
+                rows: l.rows,
+                files: l.files.clone(),
+                loaded: l.files.iter().map(|_| None).collect(),
+            })
+            .collect();
+        levels.sort_by_key(|l| l.cell);
+        SheetStore { levels }
+    }
+    pub fn largest_cell(&self) -> u32 {
+        self.levels.last().map_or(0, |l| l.cell)
+    }
+    pub fn sheet_of(&self, level: usize, item: usize) -> usize {
+        let l = &self.levels[level];
+        item / (l.columns * l.rows) as usize
+    }
+    /// The level that suits a thumbnail `side_px` wide: the smallest whose cell is at least that size.
+    pub fn level_for(&self, side_px: f64) -> Option<usize> {
+        if self.levels.is_empty() {
+            return None;
+        }
+        Some(
+            self.levels
+                .iter()
+                .position(|l| l.cell as f64 >= side_px)
+                .unwrap_or(self.levels.len() - 1),
+        )
+    }
+}
+
+#[derive(Debug, Default, Clone, PartialEq)]
+pub struct FrameStats {
+    pub marks: usize,
+    pub thumbnails: usize,
+    /// (level, sheet) pairs that visible items wanted but are not loaded.
+    pub wanted: Vec<(usize, usize)>,
+    pub side_px: f64,
+}
+
+pub struct Scene<'a> {
+    pub atlas: &'a AtlasData,
+    pub sheets: &'a SheetStore,
+    pub camera: &'a Camera,
+    pub hover: Option<usize>,
+    pub open: Option<usize>,
+    pub theme: Theme,
+}
+
+impl Scene<'_> {
+    /// The side of an item's square on screen, in pixels.
+    pub fn side_px(&self) -> f64 {
+        self.atlas.spacing * self.camera.zoom * 0.92
+    }
+
+    /// The screen rectangle of item `i`: [x0, y0, x1, y1].
+    pub fn item_rect(&self, i: usize) -> [f64; 4] {
+        let side = self.side_px();
+        let s = self.camera.to_screen(self.atlas.positions[i]);
+        let (w, h) = if side >= THUMB_MIN_PX && !self.sheets.levels.is_empty() {
+            let (ew, eh) = self.atlas.extents[i];
+            let big = self.sheets.largest_cell().max(1) as f64;
+            (
+                (ew as f64 / big * side).max(1.0),
+                (eh as f64 / big * side).max(1.0),
+            )
+        } else {
+            let m = (side * 0.9).clamp(3.0, 7.0);
+            (m, m)
+        };
+        [
+            s[0] - w / 2.0,
+            s[1] - h / 2.0,
+            s[0] + w / 2.0,
+            s[1] + h / 2.0,
+        ]
+    }
+}
+
+fn fill_rect(buf: &mut [u8], w: usize, h: usize, r: [f64; 4], c: [u8; 3]) {
+    let x0 = r[0].round().max(0.0) as usize;
+    let y0 = r[1].round().max(0.0) as usize;
+    let x1 = (r[2].round().max(0.0) as usize).min(w);
+    let y1 = (r[3].round().max(0.0) as usize).min(h);
+    for y in y0..y1 {
+        let row = &mut buf[(y * w + x0) * 4..(y * w + x1) * 4];
+        for px in row.chunks_exact_mut(4) {
+            px[0] = c[0];
+            px[1] = c[1];
+            px[2] = c[2];
+            px[3] = 255;
+        }
+    }
+}
+
+fn outline(buf: &mut [u8], w: usize, h: usize, r: [f64; 4], c: [u8; 3], t: f64) {
+    fill_rect(buf, w, h, [r[0] - t, r[1] - t, r[2] + t, r[1]], c);
+    fill_rect(buf, w, h, [r[0] - t, r[3], r[2] + t, r[3] + t], c);
+    fill_rect(buf, w, h, [r[0] - t, r[1], r[0], r[3]], c);
+    fill_rect(buf, w, h, [r[2], r[1], r[2] + t, r[3]], c);
+}
+
+/// Copies the item's cell from a sheet into `r`, sampling the nearest source pixel.
+fn blit(buf: &mut [u8], w: usize, h: usize, r: [f64; 4], sheet: &Sheet, cell: [u32; 4]) {
+    let (dw, dh) = (r[2] - r[0], r[3] - r[1]);
+    let x0 = r[0].round().max(0.0) as usize;
+    let y0 = r[1].round().max(0.0) as usize;
+    let x1 = (r[2].round().max(0.0) as usize).min(w);
+    let y1 = (r[3].round().max(0.0) as usize).min(h);
+    let [cx, cy, cw, ch] = cell;
+    let sw = sheet.width as usize;
+    for y in y0..y1 {
+        let v = (((y as f64 + 0.5 - r[1]) / dh * ch as f64) as u32).min(ch.saturating_sub(1)) + cy;
+        if v >= sheet.height {
+            continue;
+        }
+        let src_row = v as usize * sw;
+        for x in x0..x1 {
+            let u =
+                (((x as f64 + 0.5 - r[0]) / dw * cw as f64) as u32).min(cw.saturating_sub(1)) + cx;
+            let s = (src_row + u as usize) * 3;
+            let d = (y * w + x) * 4;
+            buf[d] = sheet.rgb[s];
+            buf[d + 1] = sheet.rgb[s + 1];
+            buf[d + 2] = sheet.rgb[s + 2];
+            buf[d + 3] = 255;
+        }
+    }
+}
+
+/// Draws the scene into `buf` (RGBA, `w` x `h`).
+pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
+    let t = scene.theme;
+    for px in buf.chunks_exact_mut(4) {
+        px[0] = t.paper[0];
+        px[1] = t.paper[1];
+        px[2] = t.paper[2];
+        px[3] = 255;
+    }
+    let atlas = scene.atlas;
+    let side = scene.side_px();
+    let mut stats = FrameStats {
+        side_px: side,
+        ..Default::default()
+    };
+    let thumbs = side >= THUMB_MIN_PX && !scene.sheets.levels.is_empty();
+    let want_level = if thumbs {
+        scene.sheets.level_for(side)
+    } else {
+        None
+    };
+    let mut wanted = std::collections::BTreeSet::new();
+    let margin = side.max(8.0);
+    let (wf, hf) = (w as f64, h as f64);
+    // The open and hovered items are drawn again last, so that they sit on top of their neighbours.
+    let on_top = [scene.open, scene.hover];
+    let order = (0..atlas.n).chain(on_top.iter().flatten().copied());
+    for i in order {
+        let r = scene.item_rect(i);
+        if r[2] < -margin || r[0] > wf + margin || r[3] < -margin || r[1] > hf + margin {
+            continue;
+        }
+        match want_level {
+            None => {
+                let c = atlas.colours[i];
+                fill_rect(buf, w, h, r, [c[0], c[1], c[2]]);
+                stats.marks += 1;
+            }
+            Some(level) => {
+                let sheet_index = scene.sheets.sheet_of(level, i);
+                if scene.sheets.levels[level].loaded[sheet_index].is_none() {
+                    wanted.insert((level, sheet_index));
+                }
+                // The wanted level if loaded, else the nearest loaded one (smaller levels first: they are fetched first).
+                let mut chosen = None;
+                for l in std::iter::once(level)
+                    .chain((0..scene.sheets.levels.len()).rev().filter(|&l| l != level))
+                {
+                    let s = scene.sheets.sheet_of(l, i);
+                    if let Some(sheet) = &scene.sheets.levels[l].loaded[s] {
+                        chosen = Some((l, sheet));
+                        break;
+                    }
+                }
+                match chosen {
+                    Some((l, sheet)) => {
+                        let lev = &scene.sheets.levels[l];
+                        let per = (lev.columns * lev.rows) as usize;
+                        let slot = (i % per) as u32;
+                        let big = scene.sheets.largest_cell().max(1) as f64;
+                        let (ew, eh) = atlas.extents[i];
+                        let cw =
+                            ((ew as f64 / big * lev.cell as f64).round() as u32).clamp(1, lev.cell);
+                        let ch =
+                            ((eh as f64 / big * lev.cell as f64).round() as u32).clamp(1, lev.cell);
+                        let cell = [
+                            (slot % lev.columns) * lev.cell,
+                            (slot / lev.columns) * lev.cell,
+                            cw,
+                            ch,
+                        ];
+                        blit(buf, w, h, r, sheet, cell);
+                        stats.thumbnails += 1;
+                    }
+                    None => {
+                        let c = atlas.colours[i];
+                        fill_rect(buf, w, h, r, [c[0], c[1], c[2]]);
+                        stats.marks += 1;
+                    }
+                }
+            }
+        }
+    }
+    for (item, thick) in [(scene.open, 3.0), (scene.hover, 2.0)] {
+        if let Some(i) = item {
+            let r = scene.item_rect(i);
+            let grow = if want_level.is_none() { 2.0 } else { 0.0 };
+            outline(
+                buf,
+                w,
+                h,
+                [r[0] - grow, r[1] - grow, r[2] + grow, r[3] + grow],
+                t.accent,
+                thick,
+            );
+        }
+    }
+    stats.wanted = wanted.into_iter().collect();
+    stats
+}

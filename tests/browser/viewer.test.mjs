@@ -1,0 +1,229 @@
+// The viewer in a real browser: Debian's headless Chromium with software WebGL (SwiftShader), driven by
+// playwright-core. Needs VITRINE_BIN (the vitrine program), VITRINE_ATLAS (a built atlas with images) and
+// VITRINE_CATALOGUE (the CSV it was built from). Screenshots go to tests/artifacts/.
+import { test, before, after } from "node:test";
+import assert from "node:assert/strict";
+import { spawn } from "node:child_process";
+import fs from "node:fs";
+import os from "node:os";
+import path from "node:path";
+import { chromium } from "playwright-core";
+import { PNG } from "pngjs";
+
+const BIN = process.env.VITRINE_BIN;
+const ATLAS = process.env.VITRINE_ATLAS;
+const CATALOGUE = process.env.VITRINE_CATALOGUE;
+const ARTIFACTS = path.resolve(process.env.VITRINE_ARTIFACTS || "tests/artifacts");
+fs.mkdirSync(ARTIFACTS, { recursive: true });
+
+// Flags from PLATFORM-FACTS.md: WebGL2 on the CPU through ANGLE's SwiftShader backend.
+const FLAGS = [
+  "--no-sandbox", "--use-angle=swiftshader", "--enable-unsafe-swiftshader", "--ignore-gpu-blocklist",
+  "--disable-background-networking", "--disable-component-update", "--disable-sync", "--no-first-run", "--disable-quic",
+];
+
+const servers = [];
+let browser;
+
+function serve(dir) {
+  return new Promise((resolve, reject) => {
+    const p = spawn(BIN, ["serve", dir, "--port", "0"], { stdio: ["ignore", "pipe", "inherit"] });
+    servers.push(p);
+    p.stdout.on("data", (d) => {
+      const m = /at (http:\/\/127\.0\.0\.1:\d+\/)/.exec(d.toString());
+      if (m) resolve(m[1]);
+    });
+    p.on("exit", (code) => reject(new Error(`vitrine serve exited with ${code}`)));
+  });
+}
+
+/** Minimal RFC 4180 reader: quoted fields with commas, quotes and newlines. */
+function readCsv(text) {
+  text = text.replace(/^\uFEFF/, "");
+  const rows = [];
+  let row = [], field = "", quoted = false;
+  for (let i = 0; i < text.length; i++) {
+    const c = text[i];
+    if (quoted) {
+      if (c === '"' && text[i + 1] === '"') { field += '"'; i++; }
+      else if (c === '"') quoted = false;
+      else field += c;
+    } else if (c === '"') quoted = true;
+    else if (c === ",") { row.push(field); field = ""; }
+    else if (c === "\n") { row.push(field); rows.push(row); row = []; field = ""; }
+    else if (c !== "\r") field += c;
+  }
+  if (field || row.length) { row.push(field); rows.push(row); }
+  const [header, ...body] = rows;
+  return body.map((r) => Object.fromEntries(header.map((h, i) => [h, r[i] ?? ""])));
+}
+
+/** Pixel statistics of a PNG: share of pixels unlike the paper, and share with a sharp step to the right neighbour. */
+function stats(png) {
+  const img = PNG.sync.read(png);
+  const paper = [0xf3, 0xee, 0xe4];
+  let ink = 0, steps = 0, inner = 0, colours = new Set();
+  const isInk = (o) => Math.abs(data[o] - paper[0]) + Math.abs(data[o + 1] - paper[1]) + Math.abs(data[o + 2] - paper[2]) > 24;
+  const { width: w, height: h, data } = img;
+  for (let y = 0; y < h; y++) {
+    for (let x = 0; x < w; x++) {
+      const o = (y * w + x) * 4;
+      const [r, g, b] = [data[o], data[o + 1], data[o + 2]];
+      if (Math.abs(r - paper[0]) + Math.abs(g - paper[1]) + Math.abs(b - paper[2]) > 24) ink++;
+      if (x + 1 < w) {
+        const d = Math.abs(r - data[o + 4]) + Math.abs(g - data[o + 5]) + Math.abs(b - data[o + 6]);
+        if (d > 40) {
+          steps++;
+          if (isInk(o) && isInk(o + 4)) inner++;
+        }
+      }
+      colours.add((r >> 3) << 10 | (g >> 3) << 5 | (b >> 3));
+    }
+  }
+  // detail: sharp steps between two drawn pixels, per drawn pixel (flat marks have almost none).
+  return { ink: ink / (w * h), steps: steps / (w * h), detail: inner / Math.max(ink, 1), colours: colours.size };
+}
+
+/** Distinct colours (5 bits per channel) in the square of half-side r around (cx, cy). */
+function regionColours(png, cx, cy, r) {
+  const { width: w, data } = PNG.sync.read(png);
+  const colours = new Set();
+  for (let y = Math.round(cy - r); y < cy + r; y++) {
+    for (let x = Math.round(cx - r); x < cx + r; x++) {
+      const o = (y * w + x) * 4;
+      colours.add((data[o] >> 3) << 10 | (data[o + 1] >> 3) << 5 | (data[o + 2] >> 3));
+    }
+  }
+  return colours.size;
+}
+
+async function newPage(url) {
+  const page = await browser.newPage({ viewport: { width: 1280, height: 800 } });
+  const errors = [];
+  page.on("pageerror", (e) => errors.push(String(e)));
+  page.on("console", (m) => { if (m.type() === "error") errors.push(m.text()); });
+  await page.goto(url);
+  return { page, errors };
+}
+
+async function viewState(page) {
+  return JSON.parse(await page.evaluate(() => window.vitrineView.view_state()));
+}
+
+async function settle(page) {
+  // Sheets arrive asynchronously; wait until nothing is being fetched, then draw once more.
+  await page.waitForFunction(() => window.vitrineView && JSON.parse(window.vitrineView.view_state()).fetching === 0);
+  await page.evaluate(() => window.vitrineView.zoom_view(1.0));
+}
+
+async function canvasShot(page, name) {
+  const png = await page.locator("#map").screenshot();
+  fs.writeFileSync(path.join(ARTIFACTS, name), png);
+  return png;
+}
+
+before(async () => {
+  assert.ok(BIN && ATLAS && CATALOGUE, "set VITRINE_BIN, VITRINE_ATLAS and VITRINE_CATALOGUE");
+  browser = await chromium.launch({
+    executablePath: process.env.CHROMIUM || "/usr/bin/chromium",
+    args: FLAGS,
+    headless: true,
+  });
+});
+
+after(async () => {
+  if (browser) await browser.close();
+  for (const s of servers) s.kill();
+});
+
+test("the demo atlas loads on software WebGL, draws marks, then thumbnails, and opens record cards", async () => {
+  const url = await serve(ATLAS);
+  const { page, errors } = await newPage(url);
+  await page.waitForFunction(() => document.body.dataset.state === "ready" || document.body.dataset.state === "error",
+    null, { timeout: 60000 });
+  assert.equal(await page.evaluate(() => document.body.dataset.state), "ready", errors.join("\n"));
+  await settle(page);
+
+  // The renderer wgpu got is WebGL2 on SwiftShader (the CPU), as this machine has no GPU.
+  const state = await viewState(page);
+  assert.match(state.renderer, /SwiftShader/i, state.renderer);
+  assert.match(state.renderer, /Gl/, state.renderer);
+  const manifest = JSON.parse(fs.readFileSync(path.join(ATLAS, "atlas.json"), "utf8"));
+  assert.equal(state.items, manifest.item_count);
+  assert.equal(await page.locator("#atlas-title").textContent(), manifest.title);
+
+  // Fitted view: every item as a mark in its average colour.
+  const fitted = stats(await canvasShot(page, "01-fit.png"));
+  assert.equal(state.thumbnails, 0);
+  assert.ok(state.marks > manifest.item_count * 0.95, `marks drawn: ${state.marks}`);
+  assert.ok(fitted.ink > 0.01 && fitted.ink < 0.9, `share of drawn pixels at fit: ${fitted.ink}`);
+
+  // Zoomed in until an item's square is about 20 px: small thumbnails from the 32 px sheets.
+  const catalogue = readCsv(fs.readFileSync(CATALOGUE, "utf8"));
+  assert.ok(await page.evaluate(([id, f]) => window.vitrineView.focus_item(id, f), [catalogue[40].id, 20 / state.side_px]));
+  await settle(page);
+  const mid = await viewState(page);
+  const middle = stats(await canvasShot(page, "02-zoom-small-thumbnails.png"));
+  assert.ok(mid.thumbnails > 20 && mid.marks === 0, JSON.stringify(mid));
+
+  // Close up on one record: large thumbnails from the 128 px sheets, with inner detail.
+  const record = catalogue[123];
+  assert.ok(await page.evaluate(([id, f]) => window.vitrineView.focus_item(id, f), [record.id, 160 / state.side_px]));
+  await settle(page);
+  const close = await viewState(page);
+  const near = stats(await canvasShot(page, "03-zoom-large-thumbnails.png"));
+  assert.ok(close.side_px > 100 && close.thumbnails > 0, JSON.stringify(close));
+  assert.ok(close.sheets_loaded[1] > 0, "a 128 px sheet was fetched");
+  // A thumbnail is a picture, a mark one flat colour: count the colours inside the focused item
+  // (focus_item puts it at the centre of the canvas).
+  const flat = await page.evaluate((id) => window.vitrineView.focus_item(id, 1.0), record.id);
+  const markShot = await canvasShot(page, "03b-fit-centred.png");
+  const [mx, my] = await page.evaluate((id) => window.vitrineView.screen_position_of(id), record.id);
+  const markColours = regionColours(markShot, mx, my, 1);
+  const bigShot = fs.readFileSync(path.join(ARTIFACTS, "03-zoom-large-thumbnails.png"));
+  const thumbColours = regionColours(bigShot, 640, 400, 40);
+  console.log("pixel statistics", JSON.stringify({ fitted, middle, near, markColours, thumbColours }));
+  assert.ok(flat && markColours <= 2, `a mark is one colour: ${markColours}`);
+  assert.ok(thumbColours > 40, `colours inside a large thumbnail: ${thumbColours}`);
+  assert.ok(near.ink > 0.1, `share of drawn pixels at close zoom: ${near.ink}`);
+  assert.ok(await page.evaluate(([id, f]) => window.vitrineView.focus_item(id, f), [record.id, 160 / state.side_px]));
+  await settle(page);
+
+  // Hover highlights, click opens the record card with every catalogue value of that record.
+  const [x, y] = await page.evaluate((id) => window.vitrineView.screen_position_of(id), record.id);
+  const box = await page.locator("#map").boundingBox();
+  await page.mouse.move(box.x + x, box.y + y);
+  await page.waitForFunction((id) => document.body.dataset.hover === id, record.id);
+  await page.mouse.click(box.x + x, box.y + y);
+  await page.waitForFunction((id) => document.body.dataset.card === id, record.id);
+  const card = await page.locator("#card").innerText();
+  for (const [name, value] of Object.entries(record)) {
+    if (value) assert.ok(card.includes(value), `record card lacks ${name} = ${value}`);
+  }
+  assert.equal(await page.locator("#card canvas.picture").count(), 1, "the card shows the thumbnail");
+  await page.screenshot({ path: path.join(ARTIFACTS, "04-record-card.png") });
+  // Escape closes it.
+  await page.keyboard.press("Escape");
+  await page.waitForFunction(() => document.body.dataset.card === "");
+  assert.deepEqual(errors, []);
+  await page.close();
+});
+
+test("a folder without an atlas and a page opened from a file say what to do", async () => {
+  const empty = fs.mkdtempSync(path.join(os.tmpdir(), "vitrine-empty-"));
+  fs.cpSync(path.join(ATLAS, "viewer"), path.join(empty, "viewer"), { recursive: true });
+  fs.copyFileSync(path.join(ATLAS, "index.html"), path.join(empty, "index.html"));
+  fs.writeFileSync(path.join(empty, "atlas.json"), "{}"); // lets `vitrine serve` start; the viewer must refuse it
+  const url = await serve(empty);
+  fs.rmSync(path.join(empty, "atlas.json"));
+  let { page } = await newPage(url);
+  await page.waitForFunction(() => document.body.dataset.state === "error");
+  assert.match(await page.locator("#message").innerText(), /No atlas here[\s\S]*vitrine serve/);
+  await page.screenshot({ path: path.join(ARTIFACTS, "05-no-atlas.png") });
+  await page.close();
+
+  ({ page } = await newPage("file://" + path.join(path.resolve(ATLAS), "index.html")));
+  await page.waitForFunction(() => document.body.dataset.state === "error");
+  assert.match(await page.locator("#message").innerText(), /through a web server/);
+  await page.close();
+});

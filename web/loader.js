@@ -1,0 +1,18 @@
+// Loads the viewer module and starts it; all behaviour lives in the Rust code.
+import init, * as viewer from "./vitrine_view.js";
+
+const help = document.getElementById("help");
+document.getElementById("help-button").addEventListener("click", () => { help.hidden = !help.hidden; });
+window.addEventListener("keydown", (e) => { if (e.key === "?") help.hidden = !help.hidden; });
+
+if (location.protocol !== "file:") {
+  init().then(() => {
+    window.vitrineView = viewer;
+    viewer.start();
+  }).catch((e) => {
+    const m = document.getElementById("message");
+    m.hidden = false;
+    m.textContent = "The viewer could not start: " + e;
+    document.body.dataset.state = "error";
+  });
+}
