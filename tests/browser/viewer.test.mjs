@@ -202,6 +202,21 @@ test("the demo atlas loads on software WebGL, draws marks, then thumbnails, and 
   }
   assert.equal(await page.locator("#card canvas.picture").count(), 1, "the card shows the thumbnail");
   await page.screenshot({ path: path.join(ARTIFACTS, "04-record-card.png") });
+  // Drag pans: the item follows the pointer. The wheel zooms about the pointer.
+  const [bx, by] = await page.evaluate((id) => window.vitrineView.screen_position_of(id), record.id);
+  await page.mouse.move(box.x + 900, box.y + 400);
+  await page.mouse.down();
+  await page.mouse.move(box.x + 860, box.y + 430, { steps: 5 });
+  await page.mouse.up();
+  await page.waitForFunction(([id, x]) => Math.abs(window.vitrineView.screen_position_of(id)[0] - x) > 1, [record.id, bx]);
+  const [ax, ay] = await page.evaluate((id) => window.vitrineView.screen_position_of(id), record.id);
+  assert.ok(Math.abs(ax - bx + 40) < 1.5 && Math.abs(ay - by - 30) < 1.5, `drag moved the item by ${ax - bx}, ${ay - by}`);
+  const zoomBefore = (await viewState(page)).zoom;
+  await page.mouse.move(box.x + ax, box.y + ay);
+  await page.mouse.wheel(0, 300);
+  await page.waitForFunction((z) => JSON.parse(window.vitrineView.view_state()).zoom < z, zoomBefore);
+  const [wx, wy] = await page.evaluate((id) => window.vitrineView.screen_position_of(id), record.id);
+  assert.ok(Math.abs(wx - ax) < 1.5 && Math.abs(wy - ay) < 1.5, "the point under the pointer stays put while zooming");
   // Escape closes it.
   await page.keyboard.press("Escape");
   await page.waitForFunction(() => document.body.dataset.card === "");

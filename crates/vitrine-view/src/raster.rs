@@ -131,10 +131,10 @@ impl Scene<'_> {
 }
 
 fn fill_rect(buf: &mut [u8], w: usize, h: usize, r: [f64; 4], c: [u8; 3]) {
-    let x0 = r[0].round().max(0.0) as usize;
-    let y0 = r[1].round().max(0.0) as usize;
-    let x1 = (r[2].round().max(0.0) as usize).min(w);
-    let y1 = (r[3].round().max(0.0) as usize).min(h);
+    let x0 = (r[0].round().max(0.0) as usize).min(w);
+    let y0 = (r[1].round().max(0.0) as usize).min(h);
+    let x1 = (r[2].round().max(0.0) as usize).clamp(x0, w);
+    let y1 = (r[3].round().max(0.0) as usize).clamp(y0, h);
     for y in y0..y1 {
         let row = &mut buf[(y * w + x0) * 4..(y * w + x1) * 4];
         for px in row.chunks_exact_mut(4) {
@@ -280,4 +280,27 @@ pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
     }
     stats.wanted = wanted.into_iter().collect();
     stats
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn rectangles_partly_or_wholly_off_screen_are_clipped() {
+        let (w, h) = (10usize, 8usize);
+        let mut buf = vec![0u8; w * h * 4];
+        for r in [
+            [-5.0, -5.0, 2.0, 2.0],
+            [8.0, 6.0, 30.0, 30.0],
+            [12.0, 2.0, 15.0, 4.0],
+            [2.0, 9.0, 4.0, 12.0],
+            [-9.0, -9.0, -1.0, -1.0],
+        ] {
+            fill_rect(&mut buf, w, h, r, [9, 9, 9]);
+            outline(&mut buf, w, h, r, [1, 2, 3], 2.0);
+        }
+        assert_eq!(&buf[(w + 1) * 4..(w + 1) * 4 + 3], &[9, 9, 9]);
+        assert_eq!(&buf[((7 * w) + 9) * 4..((7 * w) + 9) * 4 + 3], &[9, 9, 9]);
+    }
 }

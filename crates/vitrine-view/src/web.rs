@@ -942,6 +942,13 @@ async fn load(base: String) -> Result<(), String> {
 /// Entry point, called by the page's loader script.
 #[wasm_bindgen]
 pub fn start() {
+    std::panic::set_hook(Box::new(|info| {
+        web_sys::console::error_1(&format!("vitrine viewer: {info}").into());
+        show_message(
+            "The viewer stopped",
+            &format!("An internal error stopped the viewer: {info}. Reload the page."),
+        );
+    }));
     let location = web_sys::window().unwrap().location();
     if location.protocol().unwrap_or_default() == "file:" {
         show_message(

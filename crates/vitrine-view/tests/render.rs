@@ -1,0 +1,169 @@
+//! The frame raster on a real atlas written by `vitrine build`: marks when zoomed out, the right
+//! thumbnails when zoomed in, fallbacks while sheets load, and the hover outline.
+
+use std::collections::HashMap;
+use std::path::Path;
+
+use vitrine_build::npy::write_npy_f32;
+use vitrine_build::pipeline::{build, BuildOptions};
+use vitrine_format::Manifest;
+use vitrine_view::atlas::AtlasData;
+use vitrine_view::camera::Camera;
+use vitrine_view::raster::{draw, Scene, Sheet, SheetStore, READING_ROOM};
+
+const COLOURS: [[u8; 3]; 3] = [[200, 40, 40], [40, 160, 60], [40, 60, 200]];
+
+fn fixture(dir: &Path) -> AtlasData {
+    let mut data = Vec::new();
+    std::fs::create_dir_all(dir.join("images")).unwrap();
+    for i in 0..90usize {
+        let g = i / 30;
+        for d in 0..6 {
+            data.push(if d == g * 2 { 5.0 } else { 0.0 } + ((i * 7 + d * 13) % 11) as f32 * 0.05);
+        }
+        image::RgbImage::from_pixel(80, 60, image::Rgb(COLOURS[g]))
+            .save(dir.join(format!("images/{i}.png")))
+            .unwrap();
+    }
+    write_npy_f32(&dir.join("v.npy"), 90, 6, &data).unwrap();
+    let mut o = BuildOptions::new(dir.join("v.npy"), dir.join("atlas"));
+    o.images = Some(dir.join("images"));
+    o.sheet_size = 256;
+    o.epochs = Some(50);
+    o.quiet = true;
+    build(&o).unwrap();
+    let a = dir.join("atlas");
+    let m = Manifest::from_json(&std::fs::read_to_string(a.join("atlas.json")).unwrap()).unwrap();
+    let files: HashMap<String, Vec<u8>> = AtlasData::files(&m)
+        .into_iter()
+        .map(|(f, _)| (f.clone(), std::fs::read(a.join(&f)).unwrap()))
+        .collect();
+    AtlasData::from_parts(m, &files).unwrap()
+}
+
+fn load_sheets(atlas: &AtlasData, dir: &Path, levels: &[usize]) -> SheetStore {
+    let mut s = SheetStore::from_manifest(&atlas.manifest);
+    for &l in levels {
+        for i in 0..s.levels[l].files.len() {
+            let img = image::open(dir.join("atlas").join(&s.levels[l].files[i]))
+                .unwrap()
+                .to_rgb8();
+            s.levels[l].loaded[i] = Some(Sheet {
+                width: img.width(),
+                height: img.height(),
+                rgb: img.into_raw(),
+            });
+        }
+    }
+    s
+}
+
+fn pixel(buf: &[u8], w: usize, x: f64, y: f64) -> [u8; 3] {
+    let o = (y as usize * w + x as usize) * 4;
+    [buf[o], buf[o + 1], buf[o + 2]]
+}
+
+fn close(a: [u8; 3], b: [u8; 3], tol: i32) -> bool {
+    (0..3).all(|c| (a[c] as i32 - b[c] as i32).abs() <= tol)
+}
+
+#[test]
+fn zoom_changes_what_is_drawn_and_thumbnails_are_the_right_pictures() {
+    let dir = tempfile::tempdir().unwrap();
+    let atlas = fixture(dir.path());
+    let sheets = load_sheets(&atlas, dir.path(), &[0, 1]);
+    let group = |i: usize| atlas.ids.get(i).parse::<usize>().unwrap() / 30;
+    let (w, h) = (400usize, 300usize);
+    let mut buf = vec![0u8; w * h * 4];
+
+    // Zoomed out so far that items are marks: each in its image's average colour.
+    let mut cam = Camera::fit(atlas.bounds, [w as f64, h as f64]);
+    cam.zoom = 4.0 / atlas.spacing;
+    let scene = Scene {
+        atlas: &atlas,
+        sheets: &sheets,
+        camera: &cam,
+        hover: None,
+        open: None,
+        theme: READING_ROOM,
+    };
+    let s = draw(&scene, &mut buf, w, h);
+    assert_eq!((s.thumbnails, s.marks), (0, 90), "{s:?}");
+    assert!(s.wanted.is_empty());
+
+    // Close enough for 128 px thumbnails: each item's square shows its own picture.
+    let (cx, cy) = (atlas.positions[10][0] as f64, atlas.positions[10][1] as f64);
+    let cam = Camera {
+        centre: [cx, cy],
+        zoom: 100.0 / atlas.spacing,
+        size: [w as f64, h as f64],
+    };
+    let scene = Scene {
+        atlas: &atlas,
+        sheets: &sheets,
+        camera: &cam,
+        hover: Some(10),
+        open: None,
+        theme: READING_ROOM,
+    };
+    let s = draw(&scene, &mut buf, w, h);
+    assert!(s.thumbnails > 0 && s.marks == 0, "{s:?}");
+    let r = scene.item_rect(10);
+    // The hovered item is on top: its centre shows its own group's colour (JPEG tolerance).
+    let c = pixel(&buf, w, (r[0] + r[2]) / 2.0, (r[1] + r[3]) / 2.0);
+    assert!(
+        close(c, COLOURS[group(10)], 12),
+        "{c:?} vs {:?}",
+        COLOURS[group(10)]
+    );
+    // Aspect kept: an 80 x 60 picture is wider than tall.
+    assert!((r[2] - r[0]) > (r[3] - r[1]) * 1.2, "{r:?}");
+    // The hover outline in the accent colour just outside the square.
+    assert_eq!(
+        pixel(&buf, w, (r[0] + r[2]) / 2.0, r[1] - 1.0),
+        READING_ROOM.accent
+    );
+
+    // While the 128 px sheets are not loaded, the 32 px level stands in, and the missing sheets are asked for.
+    let partial = load_sheets(&atlas, dir.path(), &[0]);
+    let scene = Scene {
+        atlas: &atlas,
+        sheets: &partial,
+        camera: &cam,
+        hover: Some(10),
+        open: None,
+        theme: READING_ROOM,
+    };
+    let s = draw(&scene, &mut buf, w, h);
+    assert!(
+        s.thumbnails > 0 && s.wanted.iter().all(|&(l, _)| l == 1) && !s.wanted.is_empty(),
+        "{s:?}"
+    );
+    let c = pixel(&buf, w, (r[0] + r[2]) / 2.0, (r[1] + r[3]) / 2.0);
+    assert!(close(c, COLOURS[group(10)], 16), "{c:?}");
+
+    // With no sheet loaded at all, items are drawn as marks in their average colour.
+    let none = load_sheets(&atlas, dir.path(), &[]);
+    let scene = Scene {
+        atlas: &atlas,
+        sheets: &none,
+        camera: &cam,
+        hover: None,
+        open: None,
+        theme: READING_ROOM,
+    };
+    let s = draw(&scene, &mut buf, w, h);
+    assert!(s.thumbnails == 0 && s.marks > 0);
+    let c = pixel(&buf, w, (r[0] + r[2]) / 2.0, (r[1] + r[3]) / 2.0);
+    assert!(close(c, COLOURS[group(10)], 16), "{c:?}");
+}
+
+#[test]
+fn record_lines_hold_every_field_as_written() {
+    let dir = tempfile::tempdir().unwrap();
+    let atlas = fixture(dir.path());
+    let lines = atlas.record(0);
+    assert_eq!(lines[0].name, "id");
+    assert_eq!(lines.len(), 1, "no catalogue: the id only");
+    assert_eq!(atlas.neighbours_of(0).len(), 15);
+}
