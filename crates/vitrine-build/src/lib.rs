@@ -9,6 +9,7 @@ pub mod hilbert;
 pub mod knn;
 pub mod npy;
 pub mod pipeline;
+pub mod quality;
 pub mod read;
 pub mod rng;
 pub mod serve;

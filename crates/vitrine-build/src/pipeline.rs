@@ -468,6 +468,13 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         n,
         fuzzy.weights.len()
     ));
+    let quality = crate::quality::map_quality(&vectors, opts.metric, &pos, 10, 2000);
+    if let Some(q) = &quality {
+        log(&format!(
+            "map quality on {} items: trustworthiness@10 {:.3}, continuity@10 {:.3}",
+            q.sample, q.trustworthiness, q.continuity
+        ));
+    }
 
     // Atlas order: along a Hilbert curve over the map.
     let order = crate::hilbert::hilbert_order(&pos);
@@ -492,6 +499,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         &order,
         &rank,
         image_paths,
+        quality,
     );
     match result {
         Ok(report) => {
@@ -542,6 +550,7 @@ fn write_atlas(
     order: &[usize],
     rank: &[u32],
     image_paths: Option<Vec<Option<PathBuf>>>,
+    quality: Option<crate::quality::MapQuality>,
 ) -> Result<BuildReport> {
     let n = vectors.rows;
     let mut report = BuildReport {
@@ -804,7 +813,18 @@ fn write_atlas(
         maps: vec![map],
         neighbours,
         sheets,
-        quality: serde_json::Map::new(),
+        quality: {
+            let mut q = serde_json::Map::new();
+            if let Some(mq) = &quality {
+                q.insert(
+                    "similarity_trustworthiness_at_10".into(),
+                    json!(mq.trustworthiness),
+                );
+                q.insert("similarity_continuity_at_10".into(), json!(mq.continuity));
+                q.insert("quality_sample_items".into(), json!(mq.sample));
+            }
+            q
+        },
         provenance: Provenance {
             tool: "vitrine".into(),
             tool_version: env!("CARGO_PKG_VERSION").into(),

@@ -174,3 +174,42 @@ fn tiny_and_degenerate_collections_give_finite_maps() {
         );
     }
 }
+
+#[test]
+fn trustworthiness_and_continuity_equal_scikit_learn() {
+    // Digits with a little seeded noise (no tied distances, so rankings are unambiguous) and a PCA
+    // layout, both made by scikit-learn; sklearn.manifold.trustworthiness is the reference value.
+    let dir = tempfile::tempdir().unwrap();
+    let out = common::run_python(
+        r#"
+import sys, numpy as np
+from sklearn.datasets import load_digits
+from sklearn.decomposition import PCA
+from sklearn.manifold import trustworthiness
+X = load_digits().data[:600]
+X = X + np.random.default_rng(1).normal(scale=1e-3, size=X.shape)
+E = PCA(n_components=2, random_state=0).fit_transform(X)
+np.save(f"{sys.argv[1]}/x.npy", X.astype(np.float32))
+np.save(f"{sys.argv[1]}/e.npy", E.astype(np.float32))
+X32, E32 = X.astype(np.float32).astype(np.float64), E.astype(np.float32).astype(np.float64)
+print(trustworthiness(X32, E32, n_neighbors=10), trustworthiness(E32, X32, n_neighbors=10),
+      trustworthiness(X32, E32, n_neighbors=10, metric="cosine"), trustworthiness(X32, E32, n_neighbors=5))
+"#,
+        &[dir.path()],
+    );
+    let want: Vec<f64> = out.split_whitespace().map(|s| s.parse().unwrap()).collect();
+    let x = read_npy(&dir.path().join("x.npy")).unwrap();
+    let e = read_npy(&dir.path().join("e.npy")).unwrap();
+    let hx: Vec<&[f32]> = (0..x.rows).map(|i| x.row(i)).collect();
+    let le: Vec<&[f32]> = (0..e.rows).map(|i| e.row(i)).collect();
+    use vitrine_build::quality::trustworthiness as tw;
+    let got = [
+        tw(&hx, Metric::Euclidean, &le, Metric::Euclidean, 10),
+        tw(&le, Metric::Euclidean, &hx, Metric::Euclidean, 10),
+        tw(&hx, Metric::Cosine, &le, Metric::Euclidean, 10),
+        tw(&hx, Metric::Euclidean, &le, Metric::Euclidean, 5),
+    ];
+    for (g, w) in got.iter().zip(&want) {
+        assert!((g - w).abs() < 1e-6, "ours {got:?}, scikit-learn {want:?}");
+    }
+}

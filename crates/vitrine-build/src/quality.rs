@@ -1,0 +1,126 @@
+//! How faithful a map is to its vectors: trustworthiness and continuity (Venna and Kaski, 2001).
+//!
+//! Trustworthiness at k penalises items that are among an item's k nearest on the map but not in the
+//! vectors, by how far down the vector-space ranking they are; continuity is the same with the two
+//! spaces swapped. Both are 1 for a perfect map. Computed on a sample, the sample is treated as the whole
+//! collection (ranks are taken within the sample).
+
+use rayon::prelude::*;
+
+use crate::knn::Metric;
+use crate::npy::Matrix;
+
+fn distance(a: &[f32], b: &[f32], metric: Metric) -> f64 {
+    match metric {
+        Metric::Euclidean => a
+            .iter()
+            .zip(b)
+            .map(|(&x, &y)| {
+                let t = x as f64 - y as f64;
+                t * t
+            })
+            .sum::<f64>()
+            .sqrt(),
+        Metric::Cosine => {
+            let (mut dot, mut na, mut nb) = (0f64, 0f64, 0f64);
+            for (&x, &y) in a.iter().zip(b) {
+                dot += x as f64 * y as f64;
+                na += x as f64 * x as f64;
+                nb += y as f64 * y as f64;
+            }
+            if na == 0.0 || nb == 0.0 {
+                1.0
+            } else {
+                1.0 - dot / (na.sqrt() * nb.sqrt())
+            }
+        }
+    }
+}
+
+/// For each item, the other items ordered by distance (nearest first), ties broken by index.
+fn orderings(rows: &[&[f32]], metric: Metric) -> Vec<Vec<u32>> {
+    let n = rows.len();
+    (0..n)
+        .into_par_iter()
+        .map(|i| {
+            let mut d: Vec<(f64, u32)> = (0..n)
+                .filter(|&j| j != i)
+                .map(|j| (distance(rows[i], rows[j], metric), j as u32))
+                .collect();
+            d.sort_by(|a, b| a.partial_cmp(b).unwrap());
+            d.into_iter().map(|(_, j)| j).collect()
+        })
+        .collect()
+}
+
+/// Trustworthiness of `low` (the map) with respect to `high` (the vectors) at `k`. Swap the arguments for continuity.
+pub fn trustworthiness(
+    high: &[&[f32]],
+    high_metric: Metric,
+    low: &[&[f32]],
+    low_metric: Metric,
+    k: usize,
+) -> f64 {
+    let n = high.len();
+    assert_eq!(n, low.len());
+    assert!(
+        k >= 1 && 2 * n > 3 * k + 1,
+        "trustworthiness needs n > (3k + 1) / 2"
+    );
+    let high_order = orderings(high, high_metric);
+    let low_order = orderings(low, low_metric);
+    let penalty: f64 = (0..n)
+        .into_par_iter()
+        .map(|i| {
+            // rank[j] = position of j in i's vector-space ordering, from 1.
+            let mut rank = vec![0u32; n];
+            for (r, &j) in high_order[i].iter().enumerate() {
+                rank[j as usize] = r as u32 + 1;
+            }
+            low_order[i][..k]
+                .iter()
+                .map(|&j| (rank[j as usize] as f64 - k as f64).max(0.0))
+                .sum::<f64>()
+        })
+        .sum();
+    let (nf, kf) = (n as f64, k as f64);
+    1.0 - penalty * 2.0 / (nf * kf * (2.0 * nf - 3.0 * kf - 1.0))
+}
+
+/// An evenly spread sample of at most `max` item indices (deterministic).
+pub fn sample(n: usize, max: usize) -> Vec<usize> {
+    if n <= max {
+        return (0..n).collect();
+    }
+    (0..max).map(|i| i * n / max).collect()
+}
+
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct MapQuality {
+    pub k: usize,
+    pub sample: usize,
+    pub trustworthiness: f64,
+    pub continuity: f64,
+}
+
+/// Trustworthiness and continuity at `k` of a 2-D layout, on a sample of at most `max_sample` items.
+pub fn map_quality(
+    vectors: &Matrix,
+    metric: Metric,
+    pos: &[[f32; 2]],
+    k: usize,
+    max_sample: usize,
+) -> Option<MapQuality> {
+    let idx = sample(vectors.rows, max_sample);
+    if 2 * idx.len() <= 3 * k + 1 {
+        return None;
+    }
+    let high: Vec<&[f32]> = idx.iter().map(|&i| vectors.row(i)).collect();
+    let low: Vec<&[f32]> = idx.iter().map(|&i| &pos[i][..]).collect();
+    Some(MapQuality {
+        k,
+        sample: idx.len(),
+        trustworthiness: trustworthiness(&high, metric, &low, Metric::Euclidean, k),
+        continuity: trustworthiness(&low, Metric::Euclidean, &high, metric, k),
+    })
+}
