@@ -25,6 +25,14 @@ enum MetricArg {
     Euclidean,
 }
 
+#[derive(Clone, Copy, ValueEnum)]
+enum NeighbourArg {
+    /// Exact up to 20,000 items, NN-descent above.
+    Auto,
+    Exact,
+    Approximate,
+}
+
 #[derive(Subcommand)]
 enum Command {
     /// Build an atlas folder from feature vectors, a catalogue and images.
@@ -58,6 +66,9 @@ enum Command {
         /// Distance between vectors.
         #[arg(long, value_enum, default_value = "cosine")]
         metric: MetricArg,
+        /// How the neighbour graph is found: exact search, or NN-descent (approximate, for large collections).
+        #[arg(long, value_enum, default_value = "auto")]
+        neighbours: NeighbourArg,
         /// Neighbours per item in the neighbour graph.
         #[arg(long, default_value_t = 15)]
         k: usize,
@@ -114,6 +125,7 @@ fn run() -> anyhow::Result<()> {
             out,
             title,
             metric,
+            neighbours,
             k,
             seed,
             min_dist,
@@ -141,6 +153,11 @@ fn run() -> anyhow::Result<()> {
                 MetricArg::Euclidean => Metric::Euclidean,
             };
             opts.k = k;
+            opts.neighbours = match neighbours {
+                NeighbourArg::Auto => vitrine_build::pipeline::NeighbourSearch::Auto,
+                NeighbourArg::Exact => vitrine_build::pipeline::NeighbourSearch::Exact,
+                NeighbourArg::Approximate => vitrine_build::pipeline::NeighbourSearch::Approximate,
+            };
             opts.seed = seed;
             opts.min_dist = min_dist;
             opts.epochs = epochs;

@@ -33,6 +33,16 @@ pub const OKABE_ITO: [[u8; 3]; 7] = [
 ];
 pub const INK: [u8; 3] = [0x2B, 0x2A, 0x33];
 
+/// Collections up to this size get the exact neighbour graph when the search is `auto`.
+pub const EXACT_UP_TO: usize = 20_000;
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum NeighbourSearch {
+    Auto,
+    Exact,
+    Approximate,
+}
+
 #[derive(Debug, Clone)]
 pub struct BuildOptions {
     pub vectors: PathBuf,
@@ -44,6 +54,7 @@ pub struct BuildOptions {
     pub out: PathBuf,
     pub title: Option<String>,
     pub metric: Metric,
+    pub neighbours: NeighbourSearch,
     pub k: usize,
     pub seed: u64,
     pub min_dist: f32,
@@ -67,6 +78,7 @@ impl BuildOptions {
             out,
             title: None,
             metric: Metric::Cosine,
+            neighbours: NeighbourSearch::Auto,
             k: 15,
             seed: 42,
             min_dist: 0.1,
@@ -441,9 +453,37 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
 
     // Neighbour graph and map.
     let k = opts.k.min(n.saturating_sub(1)).max(1);
-    let pb = bar(opts.quiet, n as u64, "neighbours");
-    let graph = knn::exact_knn(&vectors, k, opts.metric, &|c| pb.set_position(c));
-    pb.finish_and_clear();
+    let exact = match opts.neighbours {
+        NeighbourSearch::Exact => true,
+        NeighbourSearch::Approximate => false,
+        NeighbourSearch::Auto => n <= EXACT_UP_TO,
+    };
+    let mut recall = None;
+    let graph = if exact {
+        let pb = bar(opts.quiet, n as u64, "neighbours");
+        let g = knn::exact_knn(&vectors, k, opts.metric, &|c| pb.set_position(c));
+        pb.finish_and_clear();
+        g
+    } else {
+        let pb = bar(opts.quiet, 1, "neighbours");
+        let params = crate::nndescent::NnDescentParams::new(k, opts.seed);
+        let g = crate::nndescent::nn_descent(&vectors, opts.metric, &params, &|stage, i, of| {
+            pb.set_prefix(stage.to_string());
+            pb.set_length(of);
+            pb.set_position(i);
+        });
+        pb.finish_and_clear();
+        // Recall against exact search on a sample, recorded with the map's quality figures.
+        let sample = crate::quality::sample(n, 500);
+        let truth = crate::nndescent::exact_for(&vectors, opts.metric, k, &sample);
+        let r = crate::nndescent::recall(&g, &truth, &sample);
+        log(&format!(
+            "neighbour graph: NN-descent, recall@{k} {r:.3} on {} sampled items",
+            sample.len()
+        ));
+        recall = Some((r, sample.len()));
+        g
+    };
     let params = UmapParams {
         min_dist: opts.min_dist,
         epochs: opts.epochs,
@@ -500,6 +540,8 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         &rank,
         image_paths,
         quality,
+        recall,
+        exact,
     );
     match result {
         Ok(report) => {
@@ -551,6 +593,8 @@ fn write_atlas(
     rank: &[u32],
     image_paths: Option<Vec<Option<PathBuf>>>,
     quality: Option<crate::quality::MapQuality>,
+    recall: Option<(f64, usize)>,
+    exact: bool,
 ) -> Result<BuildReport> {
     let n = vectors.rows;
     let mut report = BuildReport {
@@ -615,7 +659,7 @@ fn write_atlas(
     let neighbours = Neighbours {
         k: graph.k as u32,
         metric: opts.metric.name().into(),
-        exact: true,
+        exact,
         ids: w.add("neighbour-ids", &nb_ids),
         distances: w.add("neighbour-distances", &nb_d),
     };
@@ -776,7 +820,10 @@ fn write_atlas(
     let mut parameters = serde_json::Map::new();
     parameters.insert("metric".into(), json!(opts.metric.name()));
     parameters.insert("k".into(), json!(graph.k));
-    parameters.insert("neighbour_search".into(), json!("exact"));
+    parameters.insert(
+        "neighbour_search".into(),
+        json!(if exact { "exact" } else { "nn-descent" }),
+    );
     parameters.insert("layout".into(), json!("umap"));
     parameters.insert("min_dist".into(), json!(opts.min_dist));
     parameters.insert("spread".into(), json!(1.0));
@@ -822,6 +869,10 @@ fn write_atlas(
                 );
                 q.insert("similarity_continuity_at_10".into(), json!(mq.continuity));
                 q.insert("quality_sample_items".into(), json!(mq.sample));
+            }
+            if let Some((r, items)) = recall {
+                q.insert("neighbour_recall".into(), json!(r));
+                q.insert("neighbour_recall_sample_items".into(), json!(items));
             }
             q
         },

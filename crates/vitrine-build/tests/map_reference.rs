@@ -213,3 +213,31 @@ print(trustworthiness(X32, E32, n_neighbors=10), trustworthiness(E32, X32, n_nei
         assert!((g - w).abs() < 1e-6, "ours {got:?}, scikit-learn {want:?}");
     }
 }
+
+#[test]
+fn approximate_graph_recall_against_scikit_learn_on_digits() {
+    let dir = tempfile::tempdir().unwrap();
+    digits(dir.path());
+    let x = read_npy(&dir.path().join("digits.npy")).unwrap();
+    for metric in [Metric::Euclidean, Metric::Cosine] {
+        let params = vitrine_build::nndescent::NnDescentParams::new(K, 42);
+        let g = vitrine_build::nndescent::nn_descent(&x, metric, &params, &|_, _, _| {});
+        let rd = read_npy(&dir.path().join(format!("{}_d.npy", metric.name()))).unwrap();
+        // Digits has many tied distances, so a neighbour counts as found when its distance is no larger
+        // than scikit-learn's k-th neighbour distance (column K: column 0 is the item itself).
+        let mut found = 0;
+        for q in 0..x.rows {
+            let kth = rd.row(q)[K];
+            found += g
+                .neighbours(q)
+                .filter(|&(j, d)| j != q && d <= kth * (1.0 + 1e-5) + 1e-6)
+                .count();
+        }
+        let recall = found as f64 / (x.rows * K) as f64;
+        eprintln!("NN-descent recall@15 on digits ({metric:?}): {recall:.4}");
+        assert!(recall >= 0.99, "{metric:?}: {recall}");
+        // Distances are the metric's own.
+        let exact = exact_knn(&x, K, metric, &|_| {});
+        assert!((g.distances[0] - exact.distances[0]).abs() < 1e-3 * exact.distances[0].max(1.0));
+    }
+}

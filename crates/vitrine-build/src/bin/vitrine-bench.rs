@@ -1,0 +1,65 @@
+//! `vitrine-bench`: times one stage of the map engine on a .npy file, for `./build.sh bench-map`.
+//! Prints one JSON line with the timing; writes the result as .npy for the reference comparison.
+
+use std::path::PathBuf;
+use std::time::Instant;
+
+use vitrine_build::knn::Metric;
+use vitrine_build::npy::{read_npy, write_npy_f32};
+
+fn main() -> anyhow::Result<()> {
+    let args: Vec<String> = std::env::args().collect();
+    let usage = "usage: vitrine-bench knn|map VECTORS.npy OUT.npy [cosine|euclidean] [k]";
+    let (stage, input, out) = match (args.get(1), args.get(2), args.get(3)) {
+        (Some(s), Some(i), Some(o)) => (s.as_str(), PathBuf::from(i), PathBuf::from(o)),
+        _ => anyhow::bail!(usage),
+    };
+    let metric = match args.get(4).map(String::as_str) {
+        Some("euclidean") => Metric::Euclidean,
+        _ => Metric::Cosine,
+    };
+    let k: usize = args.get(5).map(|s| s.parse()).transpose()?.unwrap_or(15);
+    let t0 = Instant::now();
+    let x = read_npy(&input)?;
+    let read_s = t0.elapsed().as_secs_f64();
+    let t1 = Instant::now();
+    let mut params = vitrine_build::nndescent::NnDescentParams::new(k, 42);
+    // Tuning knobs for experiments: VITRINE_NND="trees,leaf,rounds,sample_rate".
+    if let Ok(v) = std::env::var("VITRINE_NND") {
+        let f: Vec<f64> = v.split(',').map(|x| x.parse().unwrap()).collect();
+        params.trees = f[0] as usize;
+        params.leaf_size = f[1] as usize;
+        params.max_rounds = f[2] as usize;
+        params.sample_rate = f[3];
+    }
+    let g = vitrine_build::nndescent::nn_descent(&x, metric, &params, &|_, _, _| {});
+    let knn_s = t1.elapsed().as_secs_f64();
+    match stage {
+        "knn" => {
+            let ids: Vec<f32> = g.ids.iter().map(|&i| i as f32).collect();
+            write_npy_f32(&out, x.rows, g.k, &ids)?;
+            println!("{{\"stage\":\"knn\",\"read_s\":{read_s:.3},\"knn_s\":{knn_s:.3}}}");
+        }
+        "map" => {
+            let t2 = Instant::now();
+            let fuzzy = vitrine_build::umap::fuzzy_graph(&g);
+            let start = vitrine_build::umap::pca_start(
+                &match metric {
+                    Metric::Cosine => vitrine_build::knn::normalised(&x),
+                    Metric::Euclidean => x.clone(),
+                },
+                &mut vitrine_build::rng::Rng::new(42),
+            );
+            let pos = vitrine_build::umap::layout(&fuzzy, start, &Default::default(), &|_, _| {});
+            let layout_s = t2.elapsed().as_secs_f64();
+            let flat: Vec<f32> = pos.iter().flatten().copied().collect();
+            write_npy_f32(&out, x.rows, 2, &flat)?;
+            println!(
+                "{{\"stage\":\"map\",\"read_s\":{read_s:.3},\"knn_s\":{knn_s:.3},\"layout_s\":{layout_s:.3},\"total_s\":{:.3}}}",
+                knn_s + layout_s
+            );
+        }
+        _ => anyhow::bail!(usage),
+    }
+    Ok(())
+}
