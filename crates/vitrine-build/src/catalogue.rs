@@ -73,12 +73,38 @@ pub fn parse_csv(raw: &[u8], path: &Path, id_column: &str) -> Result<Catalogue, 
             )));
         }
     }
+    if header.len() == 1 {
+        for (sep, name) in [(';', "semicolons"), ('\t', "tabs"), ('|', "vertical bars")] {
+            if header[0].contains(sep) {
+                return Err(bad(format!(
+                    "the header row has one column, {:?}, which holds {name}: this build reads comma-separated \
+                     files; save the catalogue as CSV with commas",
+                    header[0]
+                )));
+            }
+        }
+    }
     let id_col = header.iter().position(|h| h == id_column).ok_or_else(|| {
         bad(format!(
             "there is no id column {id_column:?} (columns: {}); name it with --id-column",
             header.join(", ")
         ))
     })?;
+    // Line numbers from byte offsets, so that CRLF and quoted newlines count as a text editor counts.
+    let newlines: Vec<usize> = body
+        .iter()
+        .enumerate()
+        .filter(|(_, &b)| b == b'\n')
+        .map(|(i, _)| i)
+        .collect();
+    // (With CRLF endings the reader reports a record as starting on the previous line's '\n': step past it.)
+    let line_of = |byte: u64| -> u64 {
+        let mut b = byte as usize;
+        while b < body.len() && (body[b] == b'\r' || body[b] == b'\n') {
+            b += 1;
+        }
+        newlines.partition_point(|&p| p < b) as u64 + 1
+    };
     let mut rows = Vec::new();
     let mut first_line = HashMap::<String, u64>::new();
     for (i, rec) in reader.byte_records().enumerate() {
@@ -91,11 +117,11 @@ pub fn parse_csv(raw: &[u8], path: &Path, id_column: &str) -> Result<Catalogue, 
                 pos,
             } => bad(format!(
                 "record {row_no} (line {}) has {len} fields, the header has {expected_len}",
-                pos.as_ref().map(|p| p.line()).unwrap_or(0)
+                pos.as_ref().map(|p| line_of(p.byte())).unwrap_or(0)
             )),
             _ => bad(format!("record {row_no}: {e}")),
         })?;
-        let line = rec.position().map(|p| p.line()).unwrap_or(0);
+        let line = rec.position().map(|p| line_of(p.byte())).unwrap_or(0);
         let mut row = Vec::with_capacity(header.len());
         for (c, f) in rec.iter().enumerate() {
             let s = String::from_utf8(f.to_vec()).map_err(|_| {
@@ -169,18 +195,31 @@ pub struct ValueWarning {
     pub reason: String,
 }
 
+/// Words that mark a value as unknown rather than as text; they count as empty when a kind is inferred
+/// and stay in the record as written.
+pub const UNKNOWN_MARKERS: &[&str] = &[
+    "n/a", "na", "n.a.", "-", "–", "?", "unknown", "none", "null", "nan", "n.d.", "s.d.",
+];
+
+pub fn is_unknown_marker(v: &str) -> bool {
+    let l = v.trim().to_lowercase();
+    UNKNOWN_MARKERS.contains(&l.as_str())
+}
+
+/// A column whose name has a dating word as one of its words (`date`, `dating`, `dated`, `year`, `period`):
+/// `object_date` and `Dating` do, `validated` and `number_of_years` do not.
 fn looks_like_date_column(name: &str) -> bool {
     let n = name.to_lowercase();
-    ["date", "dating", "year", "period", "datierung"]
-        .iter()
-        .any(|w| n.contains(w))
+    n.split(|c: char| !c.is_alphanumeric())
+        .any(|w| ["date", "dating", "dated", "year", "period", "datierung"].contains(&w))
 }
 
 /// The kind of a column, from its name and values:
 /// - link: every non-empty value starts with `http://` or `https://`;
-/// - date: the name speaks of a date (date, dating, year, period), or every non-empty value parses as a
-///   year range and at least one is written as a range or with "c.";
-/// - number: every non-empty value parses as a number;
+/// - date: a word of the name is a dating word (date, dating, dated, year, period) and at least half the
+///   values parse as year ranges, or every value parses and at least one is written as a range or with "c.";
+/// - markers of an unknown value ("n/a", "unknown", "?", "-", "n.d.", ...) count as empty throughout;
+/// - number: every non-empty value parses as a number (or all but at most 5 % of at least 20);
 /// - text: the name says it is prose (title, description, notes, caption, inscription, remarks, comment);
 /// - category: at most 1,000 distinct values and no more than half as many distinct values as records
 ///   (or at most 12 distinct values in a small catalogue);
@@ -189,7 +228,7 @@ pub fn infer_kind(name: &str, values: &[&str]) -> FieldKind {
     let filled: Vec<&str> = values
         .iter()
         .map(|v| v.trim())
-        .filter(|v| !v.is_empty())
+        .filter(|v| !v.is_empty() && !is_unknown_marker(v))
         .collect();
     if filled.is_empty() {
         return FieldKind::Text;
@@ -213,10 +252,12 @@ pub fn infer_kind(name: &str, values: &[&str]) -> FieldKind {
     {
         return FieldKind::Date;
     }
-    if filled
+    // Numbers: all values, or all but a few stray ones (at most 5 %, listed in the build report).
+    let numeric = filled
         .iter()
-        .all(|v| v.parse::<f64>().is_ok_and(|x| x.is_finite()))
-    {
+        .filter(|v| v.parse::<f64>().is_ok_and(|x| x.is_finite()))
+        .count();
+    if numeric == filled.len() || (numeric >= 20 && numeric * 20 >= filled.len() * 19) {
         return FieldKind::Number;
     }
     let lower = name.to_lowercase();
@@ -302,7 +343,7 @@ pub fn field_data(
             let mut out = Vec::with_capacity(values.len());
             for (v, id) in values.iter().zip(ids) {
                 let t = v.trim();
-                if t.is_empty() {
+                if t.is_empty() || is_unknown_marker(t) {
                     out.push(f32::NAN);
                 } else if let Ok(x) = t.parse::<f64>() {
                     out.push(x as f32);
@@ -326,7 +367,7 @@ pub fn field_data(
             for (v, id) in values.iter().zip(ids) {
                 let t = v.trim();
                 let r = if t.is_empty() { None } else { parse_date(t) };
-                if r.is_none() && !t.is_empty() {
+                if r.is_none() && !t.is_empty() && !is_unknown_marker(t) {
                     warnings.push(ValueWarning {
                         field: name.into(),
                         id: id.to_string(),
@@ -401,5 +442,62 @@ mod tests {
             .unwrap_err()
             .to_string();
         assert!(e.contains("record 1") && e.contains("not UTF-8"), "{e}");
+    }
+}
+
+#[cfg(test)]
+mod inference_tests {
+    use super::*;
+
+    #[test]
+    fn dating_words_unknown_markers_and_stray_values() {
+        let k = |name: &str, v: &[&str]| infer_kind(name, v);
+        assert_eq!(k("validated", &["0", "1"]), FieldKind::Number);
+        assert_eq!(k("number_of_years", &["3", "40"]), FieldKind::Number);
+        assert_eq!(
+            k("date_acquired", &["2023-04-05", "2021-11-30", "n.d."]),
+            FieldKind::Date
+        );
+        let mut h: Vec<String> = (0..200).map(|i| format!("{}.5", 10 + i % 50)).collect();
+        for i in 0..8 {
+            h[i * 20 + 1] = "n/a".into();
+        }
+        h[7] = "about 12".into();
+        let h: Vec<&str> = h.iter().map(String::as_str).collect();
+        assert_eq!(
+            k("height_cm", &h),
+            FieldKind::Number,
+            "unknown markers and one stray value"
+        );
+        let mut w = Vec::new();
+        let ids: Vec<String> = (0..200).map(|i| i.to_string()).collect();
+        let ids: Vec<&str> = ids.iter().map(String::as_str).collect();
+        match field_data("height_cm", FieldKind::Number, &h, &ids, &mut w) {
+            FieldData::Number { values, written } => {
+                assert!(values[1].is_nan() && values[7].is_nan() && values[0] == 10.5);
+                assert_eq!(
+                    (written[1].as_str(), written[7].as_str()),
+                    ("n/a", "about 12")
+                );
+            }
+            _ => unreachable!(),
+        }
+        assert_eq!(w.len(), 1, "only the stray value is reported: {w:?}");
+    }
+
+    #[test]
+    fn windows_line_endings_and_other_separators() {
+        let e = parse_csv(b"id,t\r\nA,x\r\nB,y,z\r\n", Path::new("w.csv"), "id")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("record 2 (line 3)"), "{e}");
+        let e = parse_csv(b"id,t\r\nA,x\r\nB,y\r\nA,z\r\n", Path::new("w.csv"), "id")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("(lines 2 and 4)"), "{e}");
+        let e = parse_csv(b"id;t\n1;a\n", Path::new("s.csv"), "id")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("semicolons"), "{e}");
     }
 }

@@ -7,6 +7,7 @@
 //! - `1540s` → 1540–1549. `16th century` → 1500–1599; `early` / `mid` / `late` take its first, middle
 //!   and last third (1500–1533, 1533–1566, 1566–1599); `first half` / `second half` its halves.
 //! - `before 1600` → 1580–1600 and `after 1600` → 1600–1620 (a twenty-year window, stated here).
+//! - `2023-04-05` (an ISO calendar date) → 2023; `17th c.` and `17th cent.` read as `17th century`.
 //! - A trailing `?` is ignored. Anything else is not a date: the build keeps the text and reports it.
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
@@ -47,6 +48,19 @@ pub fn parse_date(text: &str) -> Option<YearRange> {
             start: y,
             end: y + OPEN_SPAN,
         });
+    }
+    // ISO calendar dates (2023-04-05) keep their year.
+    let parts: Vec<&str> = t.split('-').collect();
+    if parts.len() == 3 && parts[0].len() == 4 && parts[1].len() == 2 && parts[2].len() == 2 {
+        if let (Ok(y), Ok(m), Ok(d)) = (
+            parts[0].parse::<i32>(),
+            parts[1].parse::<u32>(),
+            parts[2].parse::<u32>(),
+        ) {
+            if (1..=12).contains(&m) && (1..=31).contains(&d) {
+                return Some(YearRange { start: y, end: y });
+            }
+        }
     }
     if let Some(r) = century(&t) {
         return Some(r);
@@ -129,7 +143,10 @@ fn century(t: &str) -> Option<YearRange> {
     } else {
         (None, t)
     };
-    let rest = rest.strip_suffix(" century")?;
+    let rest = rest
+        .strip_suffix(" century")
+        .or_else(|| rest.strip_suffix(" cent."))
+        .or_else(|| rest.strip_suffix(" c."))?;
     let num = rest
         .strip_suffix("th")
         .or_else(|| rest.strip_suffix("st"))
@@ -192,6 +209,9 @@ mod tests {
         assert_eq!(parse_date("first half of the 17th century"), r(1600, 1649));
         assert_eq!(parse_date("before 1600"), r(1580, 1600));
         assert_eq!(parse_date("450 BC"), r(-450, -450));
+        assert_eq!(parse_date("2023-04-05"), r(2023, 2023));
+        assert_eq!(parse_date("17th c."), r(1600, 1699));
+        assert_eq!(parse_date("mid 17th cent."), r(1633, 1666));
         assert_eq!(parse_date("-450"), r(-450, -450));
         assert_eq!(parse_date("1575-1550"), None);
         assert_eq!(parse_date("undated"), None);

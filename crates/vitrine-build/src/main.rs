@@ -96,20 +96,29 @@ enum Command {
     },
     /// Serve an atlas folder over HTTP on this machine.
     Serve {
+        /// The atlas folder to serve.
         dir: PathBuf,
+        /// Address to listen on. 127.0.0.1 keeps the atlas on this machine; 0.0.0.0 shows it to your network.
         #[arg(long, default_value = "127.0.0.1")]
         host: String,
         #[arg(long, default_value_t = 8080)]
         port: u16,
     },
     /// Print an atlas's counts, fields, maps, quality figures and provenance, after checking every array.
-    Inspect { atlas: PathBuf },
+    Inspect {
+        /// The atlas folder.
+        atlas: PathBuf,
+    },
     /// Write data out of an atlas.
     Export {
+        /// The atlas folder.
         atlas: PathBuf,
-        /// CSV with each item's id and its x, y on every map.
+        /// CSV with each item's id and its x, y on every map, one row per item in atlas order.
         #[arg(long)]
         positions: PathBuf,
+        /// Replace the file if it exists.
+        #[arg(long)]
+        force: bool,
     },
 }
 
@@ -166,14 +175,20 @@ fn run() -> anyhow::Result<()> {
             opts.viewer = viewer;
             opts.quiet = quiet;
             let report = build(&opts)?;
-            for note in &report.notes {
-                eprintln!("note: {note}");
-            }
-            for p in report.image_problems.iter().take(10) {
-                eprintln!("  image for {}: {} ({})", p.id, p.reason, p.path);
-            }
-            if !report.image_problems.is_empty() || !report.value_warnings.is_empty() {
-                eprintln!("details: {}", opts.out.join("build-report.json").display());
+            if !opts.quiet {
+                for note in &report.notes {
+                    eprintln!("note: {note}");
+                }
+                for p in report.image_problems.iter().take(10) {
+                    if p.path.is_empty() {
+                        eprintln!("  image for {}: {}", p.id, p.reason);
+                    } else {
+                        eprintln!("  image for {}: {} ({})", p.id, p.reason, p.path);
+                    }
+                }
+                if !report.image_problems.is_empty() || !report.value_warnings.is_empty() {
+                    eprintln!("details: {}", opts.out.join("build-report.json").display());
+                }
             }
         }
         Command::Serve { dir, host, port } => {
@@ -184,16 +199,49 @@ fn run() -> anyhow::Result<()> {
                     vitrine_format::MANIFEST_FILE
                 );
             }
+            let local = host == "127.0.0.1" || host == "localhost" || host == "::1";
             vitrine_build::serve::serve(&dir, &host, port, |url| {
                 println!("Serving {} at {url}  (Ctrl-C stops)", dir.display());
+                if !local {
+                    eprintln!(
+                        "warning: listening on {host}: other machines on your network can open this atlas, \
+                         with its thumbnails and catalogue data"
+                    );
+                }
             })?;
         }
         Command::Inspect { atlas } => {
             let a = Atlas::open(&atlas)?;
             print!("{}", inspect(&a)?);
         }
-        Command::Export { atlas, positions } => {
+        Command::Export {
+            atlas,
+            positions,
+            force,
+        } => {
             let a = Atlas::open(&atlas)?;
+            let inside = |p: &std::path::Path| -> bool {
+                let parent = p
+                    .parent()
+                    .filter(|p| !p.as_os_str().is_empty())
+                    .unwrap_or(std::path::Path::new("."));
+                match (parent.canonicalize(), atlas.canonicalize()) {
+                    (Ok(pp), Ok(ap)) => pp.starts_with(ap),
+                    _ => false,
+                }
+            };
+            if inside(&positions) {
+                anyhow::bail!(
+                    "--positions {}: that is inside the atlas folder; write exports elsewhere",
+                    positions.display()
+                );
+            }
+            if positions.exists() && !force {
+                anyhow::bail!(
+                    "--positions {}: the file exists (add --force to replace it)",
+                    positions.display()
+                );
+            }
             export_positions(&a, &positions)?;
             eprintln!(
                 "wrote {} ({} items)",

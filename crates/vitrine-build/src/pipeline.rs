@@ -275,7 +275,7 @@ fn find_images(
     cat: Option<&Catalogue>,
     cat_rows: Option<&[usize]>,
     image_column: Option<&str>,
-) -> Result<Vec<Option<PathBuf>>, InputError> {
+) -> Result<Vec<Result<PathBuf, String>>, InputError> {
     if !dir.is_dir() {
         return Err(InputError::Usage(format!(
             "--images {}: not a folder",
@@ -317,9 +317,28 @@ fn find_images(
         .map(|(i, id)| match (column, cat, cat_rows) {
             (Some(c), Some(cat), Some(rows)) => {
                 let rel = cat.rows[rows[i]][c].trim();
-                (!rel.is_empty()).then(|| dir.join(rel))
+                if rel.is_empty() {
+                    return Err(format!(
+                        "the catalogue's {:?} field is empty",
+                        cat.header[c]
+                    ));
+                }
+                let inside = Path::new(rel).components().all(|p| {
+                    matches!(
+                        p,
+                        std::path::Component::Normal(_) | std::path::Component::CurDir
+                    )
+                });
+                if !inside {
+                    return Err(format!(
+                        "the path {rel:?} leads outside the --images folder; it was not read"
+                    ));
+                }
+                Ok(dir.join(rel))
             }
-            _ => by_stem.get(id).cloned(),
+            _ => by_stem.get(id).cloned().ok_or_else(|| {
+                format!("no file named {id} with an image extension in the --images folder")
+            }),
         })
         .collect())
 }
@@ -347,12 +366,19 @@ fn walk(dir: &Path) -> Vec<PathBuf> {
 
 fn input_file(role: &str, path: &Path) -> Result<InputFile> {
     let bytes = std::fs::read(path).with_context(|| format!("reading {}", path.display()))?;
+    // Only the file name: the atlas is meant for publishing, and a local folder layout is nobody's business.
     Ok(InputFile {
         role: role.into(),
-        path: path.display().to_string(),
+        path: file_name(path),
         bytes: bytes.len() as u64,
         sha256: vitrine_format::sha256_hex(&bytes),
     })
+}
+
+fn file_name(path: &Path) -> String {
+    path.file_name()
+        .map(|s| s.to_string_lossy().to_string())
+        .unwrap_or_else(|| path.display().to_string())
 }
 
 /// Collects the arrays of the atlas being written.
@@ -387,25 +413,66 @@ fn safe_name(s: &str) -> String {
         .collect()
 }
 
-/// Refuses to replace a folder that is not an atlas, so a mistyped --out never deletes someone's files.
+/// What a build writes at the top of an atlas folder; nothing else may be there when one is replaced.
+pub const ATLAS_ENTRIES: &[&str] = &[
+    MANIFEST_FILE,
+    "arrays",
+    "sheets",
+    "viewer",
+    "index.html",
+    "build-report.json",
+    "image-digests.txt",
+];
+
+/// Refuses to replace a folder unless it is empty or an atlas holding only what a build writes, so that
+/// a mistyped --out, or files a user put into an atlas, are never deleted.
 fn check_out(out: &Path) -> Result<()> {
-    if out.exists() {
-        if !out.is_dir() {
-            bail!("--out {}: exists and is not a folder", out.display());
-        }
-        let empty = std::fs::read_dir(out)?.next().is_none();
-        if !empty && !out.join(MANIFEST_FILE).exists() {
-            bail!(
-                "--out {}: the folder exists, is not empty and is not an atlas; choose a new folder",
-                out.display()
-            );
-        }
+    if !out.exists() {
+        return Ok(());
+    }
+    if !out.is_dir() {
+        bail!("--out {}: exists and is not a folder", out.display());
+    }
+    let entries: Vec<String> = std::fs::read_dir(out)?
+        .filter_map(|e| e.ok())
+        .map(|e| e.file_name().to_string_lossy().to_string())
+        .collect();
+    if entries.is_empty() {
+        return Ok(());
+    }
+    let is_atlas = std::fs::read_to_string(out.join(MANIFEST_FILE))
+        .ok()
+        .and_then(|t| serde_json::from_str::<serde_json::Value>(&t).ok())
+        .is_some_and(|v| v.get("format").and_then(|f| f.as_str()) == Some(FORMAT_NAME));
+    if !is_atlas {
+        bail!(
+            "--out {}: the folder exists, is not empty and is not an atlas; choose a new folder",
+            out.display()
+        );
+    }
+    let mut foreign: Vec<&String> = entries
+        .iter()
+        .filter(|e| !ATLAS_ENTRIES.contains(&e.as_str()))
+        .collect();
+    foreign.sort();
+    if !foreign.is_empty() {
+        bail!(
+            "--out {}: the atlas folder also holds files a build did not write ({}); a rebuild replaces the \
+             whole folder, so move them elsewhere or choose a new --out",
+            out.display(),
+            foreign.iter().map(|s| s.as_str()).collect::<Vec<_>>().join(", ")
+        );
     }
     Ok(())
 }
 
 pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
     check_out(&opts.out)?;
+    if let Some(v) = &opts.viewer {
+        if viewer_dir(Some(v)).is_none() {
+            bail!("--viewer {}: not a folder with the viewer's index.html (./build.sh atlas makes one in target/viewer)", v.display());
+        }
+    }
     if opts.k == 0 {
         bail!("--k must be at least 1");
     }
@@ -591,7 +658,7 @@ fn write_atlas(
     pos: &[[f32; 2]],
     order: &[usize],
     rank: &[u32],
-    image_paths: Option<Vec<Option<PathBuf>>>,
+    image_paths: Option<Vec<Result<PathBuf, String>>>,
     quality: Option<crate::quality::MapQuality>,
     recall: Option<(f64, usize)>,
     exact: bool,
@@ -757,7 +824,7 @@ fn write_atlas(
                 sheet: opts.sheet_size,
                 quality: opts.jpeg_quality,
             };
-            let list: Vec<(String, Option<PathBuf>)> = order
+            let list: Vec<(String, Result<PathBuf, String>)> = order
                 .iter()
                 .map(|&i| (items.ids[i].clone(), paths[i].clone()))
                 .collect();
@@ -767,20 +834,35 @@ fn write_atlas(
             // The images' provenance: one line per image (SHA-256, bytes, path), hashed as a whole.
             let mut listing = String::new();
             let mut total = 0u64;
+            let images_dir = opts.images.as_ref().unwrap();
+            let relative = |p: &Path| {
+                p.strip_prefix(images_dir)
+                    .unwrap_or(p)
+                    .display()
+                    .to_string()
+            };
             for ((_, p), (sha, bytes)) in list.iter().zip(&t.digests) {
-                if let Some(p) = p {
-                    listing.push_str(&format!("{sha}  {bytes}  {}\n", p.display()));
+                // Files that could not be read have no digest; the build report lists them.
+                if let (Ok(p), false) = (p, sha.is_empty()) {
+                    listing.push_str(&format!("{sha}  {bytes}  {}\n", relative(p)));
                     total += bytes;
                 }
             }
             std::fs::write(dir.join("image-digests.txt"), &listing)?;
             inputs.push(InputFile {
                 role: "images (digest of image-digests.txt)".into(),
-                path: opts.images.as_ref().unwrap().display().to_string(),
+                path: file_name(images_dir),
                 bytes: total,
                 sha256: vitrine_format::sha256_hex(listing.as_bytes()),
             });
-            report.image_problems = t.problems;
+            report.image_problems = t
+                .problems
+                .into_iter()
+                .map(|mut p| {
+                    p.path = relative(Path::new(&p.path));
+                    p
+                })
+                .collect();
             let levels = plan
                 .cells
                 .iter()

@@ -111,10 +111,10 @@ fn average(img: &RgbImage) -> [u8; 4] {
     [(s[0] / n) as u8, (s[1] / n) as u8, (s[2] / n) as u8, 255]
 }
 
-/// Makes every sheet. `images[i]` is the file for item i in atlas order (None: no file was found).
+/// Makes every sheet. `images[i]` is the file for item i in atlas order, or why there is none.
 /// Work goes in batches of one smallest-level sheet so that memory stays bounded.
 pub fn make_sheets(
-    images: &[(String, Option<PathBuf>)],
+    images: &[(String, Result<PathBuf, String>)],
     plan: &SheetPlan,
     out_dir: &Path,
     progress: &(dyn Fn(u64) + Sync),
@@ -146,8 +146,8 @@ pub fn make_sheets(
             .map(|(_, path)| {
                 let mut digest = (String::new(), 0);
                 let result = match path {
-                    None => Err("no image file was found for this record".to_string()),
-                    Some(p) => match std::fs::read(p) {
+                    Err(reason) => Err(reason.clone()),
+                    Ok(p) => match std::fs::read(p) {
                         Err(e) => Err(format!("cannot read the file: {e}")),
                         Ok(bytes) => {
                             digest = (vitrine_format::sha256_hex(&bytes), bytes.len() as u64);
@@ -191,7 +191,7 @@ pub fn make_sheets(
                         .as_ref()
                         .map(|p| p.display().to_string())
                         .unwrap_or_default(),
-                    reason: reason.clone(),
+                    reason: reason.trim().to_string(),
                 });
             }
         }
