@@ -2,8 +2,13 @@
 import init, * as viewer from "./vitrine_view.js";
 
 const help = document.getElementById("help");
+const about = document.getElementById("about");
 document.getElementById("help-button").addEventListener("click", () => { help.hidden = !help.hidden; });
-window.addEventListener("keydown", (e) => { if (e.key === "?") help.hidden = !help.hidden; });
+document.getElementById("about-button").addEventListener("click", () => { about.hidden = !about.hidden; });
+window.addEventListener("keydown", (e) => {
+  if (e.key === "?") help.hidden = !help.hidden;
+  if (e.key === "i") about.hidden = !about.hidden;
+});
 
 if (location.protocol !== "file:") {
   init().then(() => {

@@ -217,6 +217,13 @@ test("the demo atlas loads on software WebGL, draws marks, then thumbnails, and 
   await page.waitForFunction((z) => JSON.parse(window.vitrineView.view_state()).zoom < z, zoomBefore);
   const [wx, wy] = await page.evaluate((id) => window.vitrineView.screen_position_of(id), record.id);
   assert.ok(Math.abs(wx - ax) < 1.5 && Math.abs(wy - ay) < 1.5, "the point under the pointer stays put while zooming");
+  // The "about this map" note gives method, quality figures and provenance.
+  await page.keyboard.press("i");
+  const aboutText = await page.locator("#about").innerText();
+  assert.match(aboutText, /trustworthiness at k = 10\s+0\.9\d\d/);
+  assert.match(aboutText, /vectors\s+features\.npy \(\d+ bytes\) sha256 [0-9a-f]{64}/);
+  await page.screenshot({ path: path.join(ARTIFACTS, "04b-about.png") });
+  await page.keyboard.press("i");
   // Escape closes it.
   await page.keyboard.press("Escape");
   await page.waitForFunction(() => document.body.dataset.card === "");

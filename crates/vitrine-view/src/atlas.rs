@@ -217,3 +217,71 @@ impl AtlasData {
             .collect()
     }
 }
+
+/// The "about this map" note: headings with (name, value) lines, from the manifest.
+pub fn about(m: &Manifest) -> Vec<(String, Vec<(String, String)>)> {
+    let mut out = Vec::new();
+    let mut general = vec![("items".to_string(), m.item_count.to_string())];
+    for l in &m.maps {
+        general.push((format!("{} map", l.name), l.description.clone()));
+    }
+    general.push((
+        "neighbour graph".into(),
+        format!(
+            "{} nearest, {} distance, {}",
+            m.neighbours.k,
+            m.neighbours.metric,
+            if m.neighbours.exact {
+                "exact search"
+            } else {
+                "approximate (NN-descent)"
+            }
+        ),
+    ));
+    out.push(("This map".to_string(), general));
+    let names: &[(&str, &str)] = &[
+        (
+            "similarity_trustworthiness_at_10",
+            "trustworthiness at k = 10",
+        ),
+        ("similarity_continuity_at_10", "continuity at k = 10"),
+        ("quality_sample_items", "measured on (items)"),
+        ("neighbour_recall", "neighbour recall"),
+        (
+            "neighbour_recall_sample_items",
+            "recall measured on (items)",
+        ),
+    ];
+    let mut q = Vec::new();
+    for (key, value) in &m.quality {
+        let label = names
+            .iter()
+            .find(|(k, _)| k == key)
+            .map(|(_, l)| l.to_string())
+            .unwrap_or_else(|| key.clone());
+        let text = match value.as_f64() {
+            Some(x) if x.fract() != 0.0 => format!("{x:.3}"),
+            _ => value.to_string(),
+        };
+        q.push((label, text));
+    }
+    if !q.is_empty() {
+        out.push(("Quality (1 = neighbourhoods fully kept)".to_string(), q));
+    }
+    let p = &m.provenance;
+    let mut prov = vec![(
+        "built by".to_string(),
+        format!("{} {}, seed {}", p.tool, p.tool_version, p.seed),
+    )];
+    for i in &p.inputs {
+        prov.push((
+            i.role.clone(),
+            format!("{} ({} bytes) sha256 {}", i.path, i.bytes, i.sha256),
+        ));
+    }
+    for (k, v) in &p.parameters {
+        prov.push((k.clone(), v.to_string()));
+    }
+    out.push(("Provenance".to_string(), prov));
+    out
+}

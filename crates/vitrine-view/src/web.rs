@@ -900,6 +900,27 @@ async fn load(base: String) -> Result<(), String> {
         t.set_text_content(Some(&atlas.manifest.title));
     }
     document().set_title(&format!("{} — Vitrine", atlas.manifest.title));
+    if let Some(panel) = by_id("about") {
+        let doc = document();
+        let h = doc.create_element("h2").unwrap();
+        h.set_text_content(Some(&format!("About {}", atlas.manifest.title)));
+        let _ = panel.append_child(&h);
+        for (heading, lines) in crate::atlas::about(&atlas.manifest) {
+            let h3 = doc.create_element("h3").unwrap();
+            h3.set_text_content(Some(&heading));
+            let _ = panel.append_child(&h3);
+            let dl = doc.create_element("dl").unwrap();
+            for (k, v) in lines {
+                let dt = doc.create_element("dt").unwrap();
+                dt.set_text_content(Some(&k));
+                let dd = doc.create_element("dd").unwrap();
+                dd.set_text_content(Some(&v));
+                let _ = dl.append_child(&dt);
+                let _ = dl.append_child(&dd);
+            }
+            let _ = panel.append_child(&dl);
+        }
+    }
     if let Some(c) = by_id("atlas-count") {
         c.set_text_content(Some(&format!("{} items", atlas.n)));
     }

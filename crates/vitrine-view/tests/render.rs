@@ -166,4 +166,22 @@ fn record_lines_hold_every_field_as_written() {
     assert_eq!(lines[0].name, "id");
     assert_eq!(lines.len(), 1, "no catalogue: the id only");
     assert_eq!(atlas.neighbours_of(0).len(), 15);
+    let about = vitrine_view::atlas::about(&atlas.manifest);
+    let heads: Vec<&str> = about.iter().map(|(h, _)| h.as_str()).collect();
+    assert_eq!(
+        heads,
+        [
+            "This map",
+            "Quality (1 = neighbourhoods fully kept)",
+            "Provenance"
+        ]
+    );
+    let quality = &about[1].1;
+    assert!(quality
+        .iter()
+        .any(|(k, v)| k == "trustworthiness at k = 10" && v.parse::<f64>().unwrap() > 0.5));
+    assert!(about[2]
+        .1
+        .iter()
+        .any(|(k, v)| k == "vectors" && v.starts_with("v.npy")));
 }
