@@ -277,17 +277,58 @@ pub fn pca_start(m: &Matrix, rng: &mut Rng) -> Vec<[f32; 2]> {
         .collect()
 }
 
+/// log2 of a positive, finite x to about 2e-5: exponent bits plus a short series in t = (m − 1)/(m + 1).
+#[inline]
+fn fast_log2(x: f32) -> f32 {
+    let bits = x.to_bits();
+    let e = ((bits >> 23) & 0xFF) as i32 - 127;
+    let m = f32::from_bits((bits & 0x007F_FFFF) | 0x3F80_0000);
+    let t = (m - 1.0) / (m + 1.0);
+    let t2 = t * t;
+    e as f32 + 2.885_39 * t * (1.0 + t2 * (1.0 / 3.0 + t2 * (0.2 + t2 * (1.0 / 7.0))))
+}
+
+/// 2^y to about 2e-5 relative, for y in the range of normal f32.
+#[inline]
+fn fast_exp2(y: f32) -> f32 {
+    let y = y.clamp(-126.0, 126.0);
+    let i = y.floor();
+    let f = (y - i) * std::f32::consts::LN_2;
+    let p = 1.0
+        + f * (1.0
+            + f * (0.5
+                + f * (1.0 / 6.0 + f * (1.0 / 24.0 + f * (1.0 / 120.0 + f * (1.0 / 720.0))))));
+    f32::from_bits(((i as i32 + 127) as u32) << 23) * p
+}
+
+/// x^p for x > 0: the layout's one power per update, at a fraction of the cost of `powf`.
+#[inline]
+pub fn fast_pow(x: f32, p: f32) -> f32 {
+    fast_exp2(p * fast_log2(x))
+}
+
 fn clip(x: f32) -> f32 {
     x.clamp(-4.0, 4.0)
 }
 
+/// Vertex blocks optimised in parallel. A fixed number, so that the result does not depend on how
+/// many threads run them.
+pub const BLOCKS: usize = 64;
+
 /// Optimises the layout. `progress` receives (epoch, epochs).
+///
+/// Parallel and deterministic: the vertices are cut into [`BLOCKS`] fixed blocks; in each epoch every
+/// block moves only its own vertices, along its own directed edges (each undirected edge appears once
+/// from each end) and negative samples drawn by its own seeded generator, reading every other vertex
+/// where it stood at the start of the epoch. No two blocks write the same memory and nothing depends on
+/// the order in which blocks run, so any number of threads gives the same map.
 pub fn layout(
     graph: &FuzzyGraph,
     start: Vec<[f32; 2]>,
     params: &UmapParams,
-    progress: &dyn Fn(usize, usize),
+    progress: &(dyn Fn(usize, usize) + Sync),
 ) -> Vec<[f32; 2]> {
+    use rayon::prelude::*;
     let n = start.len();
     let mut pos = start;
     if n < 2 || graph.weights.is_empty() {
@@ -296,64 +337,106 @@ pub fn layout(
     let epochs = params.epochs.unwrap_or(if n <= 10_000 { 500 } else { 200 });
     let (a, b) = fit_ab(params.min_dist, params.spread);
     let max_w = graph.weights.iter().cloned().fold(0f32, f32::max);
-    // Edges too weak to be sampled even once are dropped, as in the method's reference description.
+    // Directed edges grouped by head (CSR). Edges too weak to be sampled even once are dropped.
+    let mut degree = vec![0u32; n + 1];
     let keep: Vec<usize> = (0..graph.weights.len())
         .filter(|&e| graph.weights[e] >= max_w / epochs as f32)
         .collect();
-    let eps: Vec<f64> = keep
-        .iter()
-        .map(|&e| (max_w / graph.weights[e]) as f64)
-        .collect();
-    let eps_neg: Vec<f64> = eps
-        .iter()
-        .map(|&x| x / params.negative_samples as f64)
-        .collect();
+    for &e in &keep {
+        degree[graph.heads[e] as usize + 1] += 1;
+        degree[graph.tails[e] as usize + 1] += 1;
+    }
+    for i in 0..n {
+        degree[i + 1] += degree[i];
+    }
+    let offsets = degree;
+    let mut fill = offsets.clone();
+    let m = offsets[n] as usize;
+    let mut tails = vec![0u32; m];
+    let mut eps = vec![0f64; m];
+    for &e in &keep {
+        let (h, t) = (graph.heads[e] as usize, graph.tails[e] as usize);
+        let every = (max_w / graph.weights[e]) as f64;
+        for (x, y) in [(h, t), (t, h)] {
+            let slot = fill[x] as usize;
+            tails[slot] = y as u32;
+            eps[slot] = every;
+            fill[x] += 1;
+        }
+    }
+    // The method draws its negative samples per undirected edge sample and moves only the head; here each
+    // undirected edge is sampled from both ends, so each end draws half of them.
+    let neg = (params.negative_samples as f64 / 2.0).max(0.5);
     let mut next: Vec<f64> = eps.clone();
-    let mut next_neg: Vec<f64> = eps_neg.clone();
-    let mut rng = Rng::new(params.seed ^ 0x5eed_1a70_u64);
+    let mut next_neg: Vec<f64> = eps.iter().map(|e| e / neg).collect();
+    let block_len = n.div_ceil(BLOCKS);
+    let mut before = pos.clone();
     for epoch in 0..epochs {
         let alpha = params.learning_rate * (1.0 - epoch as f32 / epochs as f32);
         let e_f = epoch as f64;
-        for (slot, &e) in keep.iter().enumerate() {
-            if next[slot] > e_f {
-                continue;
-            }
-            // Edges are undirected: alternate which end is the head.
-            let (mut j, mut k) = (graph.heads[e] as usize, graph.tails[e] as usize);
-            if rng.next_u64() & 1 == 1 {
-                std::mem::swap(&mut j, &mut k);
-            }
-            let (dx, dy) = (pos[j][0] - pos[k][0], pos[j][1] - pos[k][1]);
-            let d2 = dx * dx + dy * dy;
-            if d2 > 0.0 {
-                let coeff = -2.0 * a * b * d2.powf(b - 1.0) / (a * d2.powf(b) + 1.0);
-                let gx = clip(coeff * dx) * alpha;
-                let gy = clip(coeff * dy) * alpha;
-                pos[j][0] += gx;
-                pos[j][1] += gy;
-                pos[k][0] -= gx;
-                pos[k][1] -= gy;
-            }
-            next[slot] += eps[slot];
-            let negs = ((e_f - next_neg[slot]) / eps_neg[slot]).max(0.0) as usize;
-            for _ in 0..negs {
-                let m = rng.below(n as u64) as usize;
-                if m == j {
-                    continue;
+        before.copy_from_slice(&pos);
+        let prev = &before;
+        // Each block owns its vertices' positions and their edges' schedules.
+        let edge_start = |blk: usize| offsets[(blk * block_len).min(n)] as usize;
+        let mut pos_blocks: Vec<&mut [[f32; 2]]> = pos.chunks_mut(block_len).collect();
+        let mut next_blocks = split_by(&mut next, (0..=pos_blocks.len()).map(edge_start).collect());
+        let mut neg_blocks = split_by(
+            &mut next_neg,
+            (0..=pos_blocks.len()).map(edge_start).collect(),
+        );
+        pos_blocks
+            .par_iter_mut()
+            .zip(next_blocks.par_iter_mut())
+            .zip(neg_blocks.par_iter_mut())
+            .enumerate()
+            .for_each(|(blk, ((mine, next), next_neg))| {
+                let first = blk * block_len;
+                let base = offsets[first] as usize;
+                let mut rng = Rng::new(
+                    params.seed
+                        ^ ((epoch as u64) << 20)
+                        ^ (blk as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15),
+                );
+                for (local, p) in mine.iter_mut().enumerate() {
+                    let v = first + local;
+                    for slot in offsets[v] as usize..offsets[v + 1] as usize {
+                        let s = slot - base;
+                        if next[s] > e_f {
+                            continue;
+                        }
+                        let t = prev[tails[slot] as usize];
+                        let (dx, dy) = (p[0] - t[0], p[1] - t[1]);
+                        let d2 = dx * dx + dy * dy;
+                        if d2 > 0.0 {
+                            let d2b = fast_pow(d2, b);
+                            let coeff = -2.0 * a * b * (d2b / d2) / (a * d2b + 1.0);
+                            p[0] += clip(coeff * dx) * alpha;
+                            p[1] += clip(coeff * dy) * alpha;
+                        }
+                        next[s] += eps[slot];
+                        let every_neg = eps[slot] / neg;
+                        let negs = ((e_f - next_neg[s]) / every_neg).max(0.0) as usize;
+                        for _ in 0..negs {
+                            let o = rng.below(n as u64) as usize;
+                            if o == v {
+                                continue;
+                            }
+                            let q = prev[o];
+                            let (dx, dy) = (p[0] - q[0], p[1] - q[1]);
+                            let d2 = dx * dx + dy * dy;
+                            let (gx, gy) = if d2 > 0.0 {
+                                let coeff = 2.0 * b / ((0.001 + d2) * (a * fast_pow(d2, b) + 1.0));
+                                (clip(coeff * dx), clip(coeff * dy))
+                            } else {
+                                (4.0, 4.0)
+                            };
+                            p[0] += gx * alpha;
+                            p[1] += gy * alpha;
+                        }
+                        next_neg[s] += negs as f64 * every_neg;
+                    }
                 }
-                let (dx, dy) = (pos[j][0] - pos[m][0], pos[j][1] - pos[m][1]);
-                let d2 = dx * dx + dy * dy;
-                let (gx, gy) = if d2 > 0.0 {
-                    let coeff = 2.0 * b / ((0.001 + d2) * (a * d2.powf(b) + 1.0));
-                    (clip(coeff * dx), clip(coeff * dy))
-                } else {
-                    (4.0, 4.0)
-                };
-                pos[j][0] += gx * alpha;
-                pos[j][1] += gy * alpha;
-            }
-            next_neg[slot] += negs as f64 * eps_neg[slot];
-        }
+            });
         if epoch % 10 == 0 {
             progress(epoch, epochs);
         }
@@ -365,4 +448,36 @@ pub fn layout(
         }
     }
     pos
+}
+
+/// Cuts `v` at the given boundaries (first 0 or more, last = len) into mutable pieces.
+fn split_by(v: &mut [f64], bounds: Vec<usize>) -> Vec<&mut [f64]> {
+    let mut out = Vec::with_capacity(bounds.len().saturating_sub(1));
+    let mut rest = v;
+    let mut at = bounds[0];
+    for &b in &bounds[1..] {
+        let (head, tail) = rest.split_at_mut(b - at);
+        out.push(head);
+        rest = tail;
+        at = b;
+    }
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn fast_pow_is_close_to_powf_over_the_layouts_range() {
+        let mut worst = 0f32;
+        for i in 0..20_000 {
+            let x = 10f32.powf(-6.0 + 10.0 * i as f32 / 20_000.0);
+            for p in [0.79, 0.8951, 1.0, 1.93] {
+                let rel = (fast_pow(x, p) - x.powf(p)).abs() / x.powf(p);
+                worst = worst.max(rel);
+            }
+        }
+        assert!(worst < 1e-4, "worst relative error {worst}");
+    }
 }

@@ -241,3 +241,41 @@ fn approximate_graph_recall_against_scikit_learn_on_digits() {
         assert!((g.distances[0] - exact.distances[0]).abs() < 1e-3 * exact.distances[0].max(1.0));
     }
 }
+
+#[test]
+fn the_map_does_not_depend_on_the_number_of_threads() {
+    let mut rng = Rng::new(9);
+    let (n, d) = (2000, 10);
+    let data: Vec<f32> = (0..n * d)
+        .map(|i| (i / d % 7) as f32 * 2.0 + rng.uniform() as f32)
+        .collect();
+    let x = vitrine_build::npy::Matrix {
+        rows: n,
+        cols: d,
+        data,
+    };
+    let run = |threads: usize| {
+        rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .unwrap()
+            .install(|| {
+                let g = vitrine_build::nndescent::nn_descent(
+                    &x,
+                    Metric::Euclidean,
+                    &vitrine_build::nndescent::NnDescentParams::new(K, 5),
+                    &|_, _, _| {},
+                );
+                let f = umap::fuzzy_graph(&g);
+                let p = umap::UmapParams {
+                    seed: 5,
+                    epochs: Some(80),
+                    ..Default::default()
+                };
+                umap::layout(&f, umap::pca_start(&x, &mut Rng::new(5)), &p, &|_, _| {})
+            })
+    };
+    let one = run(1);
+    assert_eq!(one, run(2));
+    assert_eq!(one, run(3));
+}
