@@ -41,78 +41,82 @@ pub struct FuzzyGraph {
 /// sigma found by bisection so that the memberships sum to log2(k); the directed graph is then
 /// symmetrised by the fuzzy union w + w' − w·w'.
 pub fn fuzzy_graph(g: &KnnGraph) -> FuzzyGraph {
+    use rayon::prelude::*;
     let n = g.ids.len() / g.k.max(1);
     let target = (g.k as f64).log2();
-    let mean_dist = {
-        let (s, c) = g
-            .distances
-            .iter()
-            .filter(|d| d.is_finite())
-            .fold((0.0f64, 0usize), |(s, c), &d| (s + d as f64, c + 1));
-        if c > 0 {
-            s / c as f64
-        } else {
-            0.0
-        }
-    };
-    let mut directed: std::collections::HashMap<(u32, u32), f32> = std::collections::HashMap::new();
-    for i in 0..n {
-        let nb: Vec<(usize, f32)> = g.neighbours(i).collect();
-        if nb.is_empty() {
-            continue;
-        }
-        let rho = nb
-            .iter()
-            .map(|&(_, d)| d as f64)
-            .find(|&d| d > 0.0)
-            .unwrap_or(0.0);
-        let (mut lo, mut hi, mut sigma) = (0.0f64, f64::INFINITY, 1.0f64);
-        for _ in 0..64 {
-            let s: f64 = nb
+    let (sum, count) = g
+        .distances
+        .par_iter()
+        .filter(|d| d.is_finite())
+        .fold(|| (0.0f64, 0usize), |(s, c), &d| (s + d as f64, c + 1))
+        .reduce(|| (0.0, 0), |a, b| (a.0 + b.0, a.1 + b.1));
+    let mean_dist = if count > 0 { sum / count as f64 } else { 0.0 };
+    // Directed memberships, each keyed by its unordered pair (low id first) and its direction.
+    let mut directed: Vec<(u32, u32, bool, f32)> = (0..n)
+        .into_par_iter()
+        .flat_map_iter(|i| {
+            let nb: Vec<(usize, f32)> = g.neighbours(i).collect();
+            let mut out = Vec::with_capacity(nb.len());
+            if nb.is_empty() {
+                return out;
+            }
+            let rho = nb
                 .iter()
-                .map(|&(_, d)| {
-                    let x = (d as f64 - rho).max(0.0);
-                    (-x / sigma).exp()
-                })
-                .sum();
-            if (s - target).abs() < 1e-5 {
-                break;
-            }
-            if s > target {
-                hi = sigma;
-                sigma = (lo + hi) / 2.0;
-            } else {
-                lo = sigma;
-                sigma = if hi.is_infinite() {
-                    sigma * 2.0
+                .map(|&(_, d)| d as f64)
+                .find(|&d| d > 0.0)
+                .unwrap_or(0.0);
+            let (mut lo, mut hi, mut sigma) = (0.0f64, f64::INFINITY, 1.0f64);
+            for _ in 0..64 {
+                let s: f64 = nb
+                    .iter()
+                    .map(|&(_, d)| (-((d as f64 - rho).max(0.0)) / sigma).exp())
+                    .sum();
+                if (s - target).abs() < 1e-5 {
+                    break;
+                }
+                if s > target {
+                    hi = sigma;
+                    sigma = (lo + hi) / 2.0;
                 } else {
-                    (lo + hi) / 2.0
-                };
+                    lo = sigma;
+                    sigma = if hi.is_infinite() {
+                        sigma * 2.0
+                    } else {
+                        (lo + hi) / 2.0
+                    };
+                }
             }
-        }
-        sigma = sigma.max(1e-3 * mean_dist).max(1e-12);
-        for &(j, d) in &nb {
-            let w = (-((d as f64 - rho).max(0.0)) / sigma).exp() as f32;
-            directed.insert((i as u32, j as u32), w);
-        }
-    }
-    let mut sym: std::collections::BTreeMap<(u32, u32), f32> = std::collections::BTreeMap::new();
-    for (&(i, j), &w) in &directed {
-        let (a, b) = if i < j { (i, j) } else { (j, i) };
-        if sym.contains_key(&(a, b)) {
-            continue;
-        }
-        let w1 = directed.get(&(a, b)).copied().unwrap_or(0.0);
-        let w2 = directed.get(&(b, a)).copied().unwrap_or(0.0);
-        let _ = w;
-        sym.insert((a, b), w1 + w2 - w1 * w2);
-    }
+            sigma = sigma.max(1e-3 * mean_dist).max(1e-12);
+            for &(j, d) in &nb {
+                if j == i {
+                    continue;
+                }
+                let w = (-((d as f64 - rho).max(0.0)) / sigma).exp() as f32;
+                let (a, b, forward) = if i < j { (i, j, true) } else { (j, i, false) };
+                out.push((a as u32, b as u32, forward, w));
+            }
+            out
+        })
+        .collect();
+    directed.par_sort_unstable_by(|x, y| (x.0, x.1, x.2).cmp(&(y.0, y.1, y.2)));
     let mut out = FuzzyGraph {
         heads: vec![],
         tails: vec![],
         weights: vec![],
     };
-    for ((a, b), w) in sym {
+    let mut k = 0;
+    while k < directed.len() {
+        let (a, b) = (directed[k].0, directed[k].1);
+        let (mut w1, mut w2) = (0f32, 0f32);
+        while k < directed.len() && directed[k].0 == a && directed[k].1 == b {
+            if directed[k].2 {
+                w1 = directed[k].3;
+            } else {
+                w2 = directed[k].3;
+            }
+            k += 1;
+        }
+        let w = w1 + w2 - w1 * w2;
         if w > 0.0 {
             out.heads.push(a);
             out.tails.push(b);
@@ -203,22 +207,41 @@ pub fn pca_start(m: &Matrix, rng: &mut Rng) -> Vec<[f32; 2]> {
     for s in &mut mean {
         *s /= n.max(1) as f64;
     }
-    // Covariance, d x d.
+    // Covariance, d x d, from at most 20,000 evenly spread rows (plenty for the two leading directions),
+    // summed in parallel over fixed chunks so that the result does not depend on the thread count.
+    use rayon::prelude::*;
+    let rows: Vec<usize> = if n <= 20_000 {
+        (0..n).collect()
+    } else {
+        (0..20_000).map(|i| i * n / 20_000).collect()
+    };
+    let partial: Vec<Vec<f64>> = rows
+        .par_chunks(512)
+        .map(|chunk| {
+            let mut cov = vec![0f64; d * d];
+            let mut centred = vec![0f64; d];
+            for &i in chunk {
+                for (c, (&x, &mu)) in centred.iter_mut().zip(m.row(i).iter().zip(&mean)) {
+                    *c = x as f64 - mu;
+                }
+                for a in 0..d {
+                    let ca = centred[a];
+                    if ca == 0.0 {
+                        continue;
+                    }
+                    let row = &mut cov[a * d..(a + 1) * d];
+                    for (r, &cb) in row.iter_mut().zip(&centred) {
+                        *r += ca * cb;
+                    }
+                }
+            }
+            cov
+        })
+        .collect();
     let mut cov = vec![0f64; d * d];
-    let mut centred = vec![0f64; d];
-    for i in 0..n {
-        for (c, (&x, &mu)) in centred.iter_mut().zip(m.row(i).iter().zip(&mean)) {
-            *c = x as f64 - mu;
-        }
-        for a in 0..d {
-            let ca = centred[a];
-            if ca == 0.0 {
-                continue;
-            }
-            let row = &mut cov[a * d..(a + 1) * d];
-            for (r, &cb) in row.iter_mut().zip(&centred) {
-                *r += ca * cb;
-            }
+    for p in &partial {
+        for (c, x) in cov.iter_mut().zip(p) {
+            *c += x;
         }
     }
     let mut comps: Vec<Vec<f64>> = Vec::new();
