@@ -15,9 +15,10 @@ setup() {
   setup_rust
   setup_browser
   echo "[setup] Python venv for the outside-reference tests ($CACHE/venv)"
-  if [ ! -x "$CACHE/venv/bin/python" ] || ! "$CACHE/venv/bin/python" -c "import numpy, sklearn" 2>/dev/null; then
-    python3 -m venv "$CACHE/venv"
-    "$CACHE/venv/bin/pip" install --progress-bar on numpy scikit-learn
+  # numpy and scikit-learn are the outside references of the tests; umap-learn gives the method's a, b fit.
+  if [ ! -x "$CACHE/venv/bin/python" ] || ! "$CACHE/venv/bin/python" -c "import numpy, sklearn, umap" 2>/dev/null; then
+    [ -x "$CACHE/venv/bin/python" ] || python3 -m venv "$CACHE/venv"
+    "$CACHE/venv/bin/pip" install --progress-bar on numpy scikit-learn umap-learn
   fi
 }
 

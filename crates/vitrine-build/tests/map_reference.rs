@@ -140,14 +140,24 @@ fn same_seed_same_map_other_seed_other_map() {
 }
 
 #[test]
-fn ab_curve_fit_matches_the_method_defaults() {
-    // For min_dist = 0.1 and spread = 1 the method's reference implementation gives a ~ 1.577, b ~ 0.895
-    // (from memory; issue 3 will check it against umap-learn's find_ab_params).
-    let (a, b) = umap::fit_ab(0.1, 1.0);
-    assert!(
-        (a - 1.577).abs() < 0.02 && (b - 0.895).abs() < 0.01,
-        "a = {a}, b = {b}"
+fn ab_curve_fit_matches_the_reference_implementation() {
+    // umap-learn's find_ab_params (scipy curve_fit on the same target curve) is the reference; for
+    // min_dist = 0.1, spread = 1 it gives a = 1.577, b = 0.895.
+    let cases = [(1.0f32, 0.1f32), (1.0, 0.0), (1.0, 0.5), (2.0, 0.25), (0.5, 0.05)];
+    let script = format!(
+        "from umap.umap_ import find_ab_params\nfor s, m in {:?}:\n    a, b = find_ab_params(s, m)\n    print(a, b)",
+        cases.iter().map(|&(s, m)| (s as f64, m as f64)).collect::<Vec<_>>()
     );
+    let out = common::run_python(&script, &[]);
+    for (line, &(spread, min_dist)) in out.lines().zip(&cases) {
+        let want: Vec<f64> = line.split_whitespace().map(|x| x.parse().unwrap()).collect();
+        let (a, b) = umap::fit_ab(min_dist, spread);
+        let rel = |x: f32, y: f64| ((x as f64 - y) / y).abs();
+        assert!(
+            rel(a, want[0]) < 2e-3 && rel(b, want[1]) < 2e-3,
+            "spread {spread}, min_dist {min_dist}: ours a = {a}, b = {b}; reference {want:?}"
+        );
+    }
 }
 
 #[test]
