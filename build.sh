@@ -91,11 +91,19 @@ run_tests() {
 case "${1:-}" in
   setup) setup ;;
   test) run_tests ;;
+  bench-map)
+    setup
+    echo "[bench] reference libraries into the venv (umap-learn, pynndescent, hnswlib)"
+    "$CACHE/venv/bin/python" -c "import umap, pynndescent, hnswlib" 2>/dev/null ||
+      "$CACHE/venv/bin/pip" install --progress-bar on umap-learn pynndescent hnswlib
+    cargo build --locked --release -p vitrine-build --bin vitrine-bench
+    shift
+    "$CACHE/venv/bin/python" bench/bench_map.py --vitrine-bench "$PWD/target/release/vitrine-bench" "$@" ;;
   atlas) build_viewer; echo "viewer files in target/viewer (vitrine build copies them into each atlas)" ;;
   demo)
     setup_rust
     build_demo
     echo "[demo] serving demo-atlas/out"
     exec ./target/release/vitrine serve demo-atlas/out --port "${PORT:-8080}" ;;
-  *) echo "usage: ./build.sh setup|demo|test|atlas" >&2; exit 2 ;;
+  *) echo "usage: ./build.sh setup|demo|test|atlas|bench-map [--million]" >&2; exit 2 ;;
 esac

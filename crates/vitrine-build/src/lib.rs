@@ -15,4 +15,5 @@ pub mod read;
 pub mod rng;
 pub mod serve;
 pub mod thumbs;
+pub mod timeline;
 pub mod umap;

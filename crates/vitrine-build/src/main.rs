@@ -33,6 +33,16 @@ enum NeighbourArg {
     Approximate,
 }
 
+#[derive(Clone, Copy, ValueEnum)]
+enum OptimiserArg {
+    /// Sequential up to 50,000 items, parallel above.
+    Auto,
+    /// The method as published, on one core; keeps neighbourhoods best.
+    Sequential,
+    /// Over all cores; the same map for any number of threads.
+    Parallel,
+}
+
 #[derive(Subcommand)]
 enum Command {
     /// Build an atlas folder from feature vectors, a catalogue and images.
@@ -57,6 +67,9 @@ enum Command {
         /// image, image_path, file or filename; else files are found by id + image extension).
         #[arg(long)]
         image_column: Option<String>,
+        /// The catalogue date field that orders the timeline map (default: the first date field).
+        #[arg(long)]
+        date_field: Option<String>,
         /// Where to write the atlas folder (replaced only when the build has succeeded).
         #[arg(long)]
         out: PathBuf,
@@ -69,6 +82,9 @@ enum Command {
         /// How the neighbour graph is found: exact search, or NN-descent (approximate, for large collections).
         #[arg(long, value_enum, default_value = "auto")]
         neighbours: NeighbourArg,
+        /// How the map's layout is optimised.
+        #[arg(long, value_enum, default_value = "auto")]
+        optimiser: OptimiserArg,
         /// Neighbours per item in the neighbour graph.
         #[arg(long, default_value_t = 15)]
         k: usize,
@@ -131,10 +147,12 @@ fn run() -> anyhow::Result<()> {
             id_column,
             images,
             image_column,
+            date_field,
             out,
             title,
             metric,
             neighbours,
+            optimiser,
             k,
             seed,
             min_dist,
@@ -156,12 +174,18 @@ fn run() -> anyhow::Result<()> {
             opts.id_column = id_column;
             opts.images = images;
             opts.image_column = image_column;
+            opts.date_field = date_field;
             opts.title = title;
             opts.metric = match metric {
                 MetricArg::Cosine => Metric::Cosine,
                 MetricArg::Euclidean => Metric::Euclidean,
             };
             opts.k = k;
+            opts.optimiser = match optimiser {
+                OptimiserArg::Auto => vitrine_build::pipeline::Optimiser::Auto,
+                OptimiserArg::Sequential => vitrine_build::pipeline::Optimiser::Sequential,
+                OptimiserArg::Parallel => vitrine_build::pipeline::Optimiser::Parallel,
+            };
             opts.neighbours = match neighbours {
                 NeighbourArg::Auto => vitrine_build::pipeline::NeighbourSearch::Auto,
                 NeighbourArg::Exact => vitrine_build::pipeline::NeighbourSearch::Exact,

@@ -33,6 +33,16 @@ pub const OKABE_ITO: [[u8; 3]; 7] = [
 ];
 pub const INK: [u8; 3] = [0x2B, 0x2A, 0x33];
 
+/// Collections up to this size get the sequential layout optimiser when it is `auto`.
+pub const SEQUENTIAL_UP_TO: usize = 50_000;
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Optimiser {
+    Auto,
+    Sequential,
+    Parallel,
+}
+
 /// Collections up to this size get the exact neighbour graph when the search is `auto`.
 pub const EXACT_UP_TO: usize = 20_000;
 
@@ -50,11 +60,13 @@ pub struct BuildOptions {
     pub catalogue: Option<PathBuf>,
     pub id_column: String,
     pub images: Option<PathBuf>,
+    pub date_field: Option<String>,
     pub image_column: Option<String>,
     pub out: PathBuf,
     pub title: Option<String>,
     pub metric: Metric,
     pub neighbours: NeighbourSearch,
+    pub optimiser: Optimiser,
     pub k: usize,
     pub seed: u64,
     pub min_dist: f32,
@@ -74,11 +86,13 @@ impl BuildOptions {
             catalogue: None,
             id_column: "id".into(),
             images: None,
+            date_field: None,
             image_column: None,
             out,
             title: None,
             metric: Metric::Cosine,
             neighbours: NeighbourSearch::Auto,
+            optimiser: Optimiser::Auto,
             k: 15,
             seed: 42,
             min_dist: 0.1,
@@ -551,10 +565,16 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         recall = Some((r, sample.len()));
         g
     };
+    let parallel = match opts.optimiser {
+        Optimiser::Auto => n > SEQUENTIAL_UP_TO,
+        Optimiser::Sequential => false,
+        Optimiser::Parallel => true,
+    };
     let params = UmapParams {
         min_dist: opts.min_dist,
         epochs: opts.epochs,
         seed: opts.seed,
+        parallel,
         ..UmapParams::default()
     };
     let fuzzy = umap::fuzzy_graph(&graph);
@@ -564,6 +584,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         Metric::Euclidean => vectors.clone(),
     };
     let start = umap::pca_start(&start_vectors, &mut rng);
+    let order_start: Vec<[f32; 1]> = start.iter().map(|p| [p[0]]).collect();
     let pb = bar(opts.quiet, 1, "layout");
     let pos = umap::layout(&fuzzy, start, &params, &|e, total| {
         pb.set_length(total as u64);
@@ -575,6 +596,56 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         n,
         fuzzy.weights.len()
     ));
+    // The timeline map, when the catalogue has a date field (the first one, or --date-field).
+    let timeline = match (&cat, &items.catalogue_rows) {
+        (Some(cat), Some(rows)) => {
+            let chosen = match &opts.date_field {
+                Some(name) => Some(cat.column(name).ok_or_else(|| {
+                    InputError::Usage(format!(
+                        "--date-field {name:?}: the catalogue has no such column"
+                    ))
+                })?),
+                None => (0..cat.header.len())
+                    .filter(|&c| c != cat.id_column)
+                    .find(|&c| {
+                        let values: Vec<&str> =
+                            rows.iter().map(|&r| cat.rows[r][c].as_str()).collect();
+                        catalogue::infer_kind(&cat.header[c], &values)
+                            == vitrine_format::FieldKind::Date
+                    }),
+            };
+            match chosen {
+                Some(c) => {
+                    let ranges: Vec<_> = rows
+                        .iter()
+                        .map(|&r| crate::dates::parse_date(&cat.rows[r][c]))
+                        .collect();
+                    let pb = bar(opts.quiet, 1, "timeline");
+                    let t = crate::timeline::timeline(
+                        &fuzzy,
+                        order_start,
+                        &ranges,
+                        &cat.header[c],
+                        &params,
+                        &|e, total| {
+                            pb.set_length(total as u64);
+                            pb.set_position(e as u64)
+                        },
+                    );
+                    pb.finish_and_clear();
+                    if let Some(t) = &t {
+                        log(&format!(
+                            "timeline map: by {:?}, {} of {} items dated",
+                            cat.header[c], t.dated, n
+                        ));
+                    }
+                    t
+                }
+                None => None,
+            }
+        }
+        _ => None,
+    };
     let quality = crate::quality::map_quality(&vectors, opts.metric, &pos, 10, 2000);
     if let Some(q) = &quality {
         log(&format!(
@@ -609,6 +680,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         quality,
         recall,
         exact,
+        timeline,
     );
     match result {
         Ok(report) => {
@@ -662,6 +734,7 @@ fn write_atlas(
     quality: Option<crate::quality::MapQuality>,
     recall: Option<(f64, usize)>,
     exact: bool,
+    timeline: Option<crate::timeline::Timeline>,
 ) -> Result<BuildReport> {
     let n = vectors.rows;
     let mut report = BuildReport {
@@ -706,7 +779,34 @@ fn write_atlas(
         ),
         positions: w.add("map-similarity", &xy),
         bounds,
+        x_axis: None,
     };
+    let mut maps = vec![map];
+    if let Some(t) = &timeline {
+        let mut xy = Vec::with_capacity(n * 2);
+        let mut b = [
+            f32::INFINITY,
+            f32::INFINITY,
+            f32::NEG_INFINITY,
+            f32::NEG_INFINITY,
+        ];
+        for &i in order {
+            let [x, y] = t.positions[i];
+            xy.push(x);
+            xy.push(y);
+            b = [b[0].min(x), b[1].min(y), b[2].max(x), b[3].max(y)];
+        }
+        maps.push(MapLayout {
+            name: "timeline".into(),
+            description: format!(
+                "x: {:?} (a random year within each item's range), y: a 1-D UMAP of the same neighbour graph; {} of {} items dated",
+                t.axis.label, t.dated, n
+            ),
+            positions: w.add("map-timeline", &xy),
+            bounds: b,
+            x_axis: Some(t.axis.clone()),
+        });
+    }
 
     // Neighbours renumbered into atlas order.
     let mut nb_ids = Vec::with_capacity(n * graph.k);
@@ -917,6 +1017,16 @@ fn write_atlas(
         json!(opts.epochs.unwrap_or(if n <= 10_000 { 500 } else { 200 })),
     );
     parameters.insert("start".into(), json!("pca"));
+    parameters.insert(
+        "layout_optimiser".into(),
+        json!(if n > SEQUENTIAL_UP_TO && opts.optimiser == Optimiser::Auto
+            || opts.optimiser == Optimiser::Parallel
+        {
+            "parallel blocks"
+        } else {
+            "sequential"
+        }),
+    );
     parameters.insert("id_column".into(), json!(opts.id_column));
     parameters.insert("sheet_size".into(), json!(opts.sheet_size));
     parameters.insert("cells".into(), json!(opts.cells));
@@ -939,7 +1049,7 @@ fn write_atlas(
         source_rows,
         colours,
         fields,
-        maps: vec![map],
+        maps,
         neighbours,
         sheets,
         quality: {

@@ -239,7 +239,37 @@ fn build_inspect_export_end_to_end() {
          print(len(rows), sorted(rows[0].keys()), all(abs(float(r['similarity_x'])) < 1e6 for r in rows))",
         &[&pos_csv],
     );
-    assert_eq!(out.trim(), "60 ['id', 'similarity_x', 'similarity_y'] True");
+    assert_eq!(
+        out.trim(),
+        "60 ['id', 'similarity_x', 'similarity_y', 'timeline_x', 'timeline_y'] True"
+    );
+
+    // The timeline map puts each dated item at a year inside its range, undated ones left of the axis.
+    let tl = m
+        .maps
+        .iter()
+        .find(|l| l.name == "timeline")
+        .expect("a timeline map");
+    let axis = tl.x_axis.as_ref().unwrap();
+    assert_eq!(axis.label, "dating");
+    let xy: Vec<f32> = atlas.array(&tl.positions).unwrap();
+    for i in 0..60 {
+        let x = xy[2 * i] as f64;
+        if start[i] == i32::MIN {
+            assert!(
+                (x - axis.missing_at.unwrap() as f64).abs() < 1.0,
+                "undated at {x}"
+            );
+        } else {
+            let year = axis.origin + x * axis.units_per_map_unit;
+            assert!(
+                year >= start[i] as f64 - 1e-3 && year <= end[i] as f64 + 1.0 + 1e-3,
+                "{year} outside {}-{}",
+                start[i],
+                end[i]
+            );
+        }
+    }
 
     // A corrupted array is caught by inspect.
     let f = d.join("atlas").join(&m.neighbours.distances.file);

@@ -303,6 +303,21 @@ pub struct MapLayout {
     pub positions: ArrayRef,
     /// [min_x, min_y, max_x, max_y]
     pub bounds: [f32; 4],
+    /// Maps whose x axis is a quantity (the timeline map: years): how to label it.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub x_axis: Option<MapAxis>,
+}
+
+/// A map's x axis in catalogue units: value = origin + x * units_per_map_unit.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct MapAxis {
+    /// What the axis measures, e.g. the date field's name.
+    pub label: String,
+    pub origin: f64,
+    pub units_per_map_unit: f64,
+    /// Items without a value sit in a band around this x, left of the axis.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub missing_at: Option<f32>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]

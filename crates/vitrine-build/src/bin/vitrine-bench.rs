@@ -9,7 +9,7 @@ use vitrine_build::npy::{read_npy, write_npy_f32};
 
 fn main() -> anyhow::Result<()> {
     let args: Vec<String> = std::env::args().collect();
-    let usage = "usage: vitrine-bench knn|map VECTORS.npy OUT.npy [cosine|euclidean] [k]";
+    let usage = "usage: vitrine-bench knn|map VECTORS.npy OUT.npy [cosine|euclidean] [k] [sequential|parallel]";
     let (stage, input, out) = match (args.get(1), args.get(2), args.get(3)) {
         (Some(s), Some(i), Some(o)) => (s.as_str(), PathBuf::from(i), PathBuf::from(o)),
         _ => anyhow::bail!(usage),
@@ -50,7 +50,12 @@ fn main() -> anyhow::Result<()> {
                 },
                 &mut vitrine_build::rng::Rng::new(42),
             );
-            let pos = vitrine_build::umap::layout(&fuzzy, start, &Default::default(), &|_, _| {});
+            let parallel = args.get(6).map(String::as_str) != Some("sequential");
+            let params = vitrine_build::umap::UmapParams {
+                parallel,
+                ..Default::default()
+            };
+            let pos = vitrine_build::umap::layout(&fuzzy, start, &params, &|_, _| {});
             let layout_s = t2.elapsed().as_secs_f64();
             let flat: Vec<f32> = pos.iter().flatten().copied().collect();
             write_npy_f32(&out, x.rows, 2, &flat)?;
