@@ -227,6 +227,25 @@ test("the demo atlas loads on software WebGL, draws marks, then thumbnails, and 
   // Escape closes it.
   await page.keyboard.press("Escape");
   await page.waitForFunction(() => document.body.dataset.card === "");
+  // The timeline map: x is the dating, with year ticks along the bottom and an undated band.
+  assert.deepEqual(await page.locator("#map-choice option").allTextContents(), ["similarity", "timeline"]);
+  assert.ok(await page.evaluate(() => window.vitrineView.show_map("timeline")));
+  await settle(page);
+  const tl = await viewState(page);
+  assert.equal(tl.map, "timeline");
+  assert.ok(tl.marks > manifest.item_count * 0.9, JSON.stringify(tl));
+  const ticks = await page.locator("#axis span:not(.label)").allTextContents();
+  const years = ticks.filter((t) => /^\d{4}$/.test(t)).map(Number);
+  assert.ok(years.length >= 4 && years.every((y) => y >= 1300 && y <= 1900), `ticks: ${ticks}`);
+  assert.ok(ticks.includes("undated"), `ticks: ${ticks}`);
+  assert.equal(await page.locator("#axis .label").textContent(), "dating");
+  await canvasShot(page, "06-timeline.png");
+  await page.screenshot({ path: path.join(ARTIFACTS, "06b-timeline-page.png") });
+  // "m" moves to the next map (back to the similarity map here), and the axis goes.
+  await page.locator("#map").focus();
+  await page.keyboard.press("m");
+  await page.waitForFunction(() => JSON.parse(window.vitrineView.view_state()).map === "similarity");
+  await page.waitForFunction(() => document.getElementById("axis").hidden);
   assert.deepEqual(errors, []);
   await page.close();
 });

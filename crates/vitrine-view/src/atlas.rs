@@ -17,6 +17,16 @@ pub struct FieldColumn {
     pub written: Option<TextTable>,
 }
 
+/// One map of the atlas, decoded.
+pub struct MapView {
+    pub name: String,
+    pub description: String,
+    pub positions: Vec<[f32; 2]>,
+    pub bounds: [f32; 4],
+    pub spacing: f64,
+    pub axis: Option<vitrine_format::MapAxis>,
+}
+
 pub struct AtlasData {
     pub manifest: Manifest,
     pub n: usize,
@@ -31,6 +41,9 @@ pub struct AtlasData {
     pub extents: Vec<(u16, u16)>,
     /// Typical spacing between items on the map, in map units (see [`crate::pick::typical_spacing`]).
     pub spacing: f64,
+    /// Every map; `positions`, `bounds` and `spacing` above are those of `maps[current]`.
+    pub maps: Vec<MapView>,
+    pub current: usize,
 }
 
 /// One line of a record card.
@@ -72,12 +85,27 @@ impl AtlasData {
         };
         let n = manifest.item_count as usize;
         let ids = text(&manifest.ids, &manifest.ids_text)?;
-        let map = manifest
-            .maps
-            .first()
-            .ok_or_else(|| AtlasError::Inconsistent("the atlas has no map".into()))?;
-        let flat: Vec<f32> = map.positions.decode(get(&map.positions)?)?;
-        let positions: Vec<[f32; 2]> = flat.chunks_exact(2).map(|c| [c[0], c[1]]).collect();
+        if manifest.maps.is_empty() {
+            return Err(AtlasError::Inconsistent("the atlas has no map".into()));
+        }
+        let mut maps = Vec::new();
+        for map in &manifest.maps {
+            let flat: Vec<f32> = map.positions.decode(get(&map.positions)?)?;
+            let positions: Vec<[f32; 2]> = flat.chunks_exact(2).map(|c| [c[0], c[1]]).collect();
+            let w = (map.bounds[2] - map.bounds[0]).max(1e-6) as f64;
+            let h = (map.bounds[3] - map.bounds[1]).max(1e-6) as f64;
+            // Without two distinct positions, fall back to the side each item would have if items covered half the map.
+            let spacing = crate::pick::typical_spacing(&positions)
+                .unwrap_or_else(|| (w * h * 0.5 / n.max(1) as f64).sqrt());
+            maps.push(MapView {
+                name: map.name.clone(),
+                description: map.description.clone(),
+                positions,
+                bounds: map.bounds,
+                spacing,
+                axis: map.x_axis.clone(),
+            });
+        }
         let colours: Vec<u8> = manifest.colours.decode(get(&manifest.colours)?)?;
         let colours = colours
             .chunks_exact(4)
@@ -122,17 +150,14 @@ impl AtlasData {
                 written,
             });
         }
-        let w = (map.bounds[2] - map.bounds[0]).max(1e-6) as f64;
-        let h = (map.bounds[3] - map.bounds[1]).max(1e-6) as f64;
-        // Without two distinct positions, fall back to the side each item would have if items covered half the map.
-        let spacing = crate::pick::typical_spacing(&positions)
-            .unwrap_or_else(|| (w * h * 0.5 / n.max(1) as f64).sqrt());
         Ok(AtlasData {
-            spacing,
+            spacing: maps[0].spacing,
             n,
             ids,
-            positions,
-            bounds: map.bounds,
+            positions: maps[0].positions.clone(),
+            bounds: maps[0].bounds,
+            maps,
+            current: 0,
             colours,
             fields,
             k: manifest.neighbours.k as usize,
@@ -140,6 +165,16 @@ impl AtlasData {
             extents,
             manifest,
         })
+    }
+
+    /// Makes map `i` the one drawn and picked.
+    pub fn select_map(&mut self, i: usize) {
+        if i < self.maps.len() && i != self.current {
+            self.current = i;
+            self.positions = self.maps[i].positions.clone();
+            self.bounds = self.maps[i].bounds;
+            self.spacing = self.maps[i].spacing;
+        }
     }
 
     /// A short label for an item: its title-like text field, else its id.
@@ -283,5 +318,26 @@ pub fn about(m: &Manifest) -> Vec<(String, Vec<(String, String)>)> {
         prov.push((k.clone(), v.to_string()));
     }
     out.push(("Provenance".to_string(), prov));
+    out
+}
+
+/// Axis ticks for the visible x range [x0, x1] of a map with a quantity axis: (x, label) pairs at a
+/// round step chosen so that at most twelve ticks show.
+pub fn axis_ticks(axis: &vitrine_format::MapAxis, x0: f64, x1: f64) -> Vec<(f64, String)> {
+    let v0 = axis.origin + x0 * axis.units_per_map_unit;
+    let v1 = axis.origin + x1 * axis.units_per_map_unit;
+    let span = (v1 - v0).abs().max(1e-9);
+    let step = [
+        1.0, 2.0, 5.0, 10.0, 20.0, 25.0, 50.0, 100.0, 200.0, 250.0, 500.0, 1000.0, 2000.0, 5000.0,
+    ]
+    .into_iter()
+    .find(|s| span / s <= 12.0)
+    .unwrap_or(10_000.0);
+    let mut out = Vec::new();
+    let mut v = (v0.min(v1) / step).ceil() * step;
+    while v <= v0.max(v1) && out.len() < 50 {
+        out.push(((v - axis.origin) / axis.units_per_map_unit, format!("{v}")));
+        v += step;
+    }
     out
 }

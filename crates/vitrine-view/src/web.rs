@@ -375,6 +375,7 @@ impl App {
         self.pixels = pixels;
         self.frames += 1;
         set_state("frames", &self.frames.to_string());
+        self.update_axis();
         set_state(
             "level",
             if stats.thumbnails > 0 {
@@ -397,6 +398,48 @@ impl App {
             && s[1] >= r[1] - slack
             && s[1] <= r[3] + slack)
             .then_some(i)
+    }
+
+    /// Year ticks along the bottom for maps whose x axis is a quantity (the timeline map).
+    fn update_axis(&self) {
+        let Some(bar) = by_id("axis") else { return };
+        let map = &self.atlas.maps[self.atlas.current];
+        let Some(axis) = &map.axis else {
+            bar.set_hidden(true);
+            set_state("axis", "");
+            return;
+        };
+        bar.set_hidden(false);
+        set_state("axis", "on");
+        bar.set_text_content(None);
+        let doc = document();
+        let css = self.canvas.client_width().max(1) as f64 / self.canvas.width().max(1) as f64;
+        let v = self.camera.visible(0.0);
+        let label = doc.create_element("span").unwrap();
+        label.set_class_name("label");
+        label.set_text_content(Some(&axis.label));
+        let _ = bar.append_child(&label);
+        let mut ticks = crate::atlas::axis_ticks(axis, v[0], v[2]);
+        if let Some(m) = axis.missing_at {
+            if (m as f64) >= v[0] && (m as f64) <= v[2] {
+                // Year ticks too close to the undated band's label give way to it.
+                let ms = self.camera.to_screen([m, 0.0])[0] * css;
+                ticks.retain(|(x, _)| {
+                    (self.camera.to_screen([*x as f32, 0.0])[0] * css - ms).abs() > 45.0
+                });
+                ticks.push((m as f64, "undated".into()));
+            }
+        }
+        for (x, text) in ticks {
+            let sx = self.camera.to_screen([x as f32, 0.0])[0] * css;
+            if sx < 60.0 {
+                continue;
+            }
+            let t: HtmlElement = doc.create_element("span").unwrap().dyn_into().unwrap();
+            t.set_text_content(Some(&text));
+            let _ = t.style().set_property("left", &format!("{sx:.1}px"));
+            let _ = bar.append_child(&t);
+        }
     }
 
     fn zoom_limits(&self) -> [f64; 2] {
@@ -666,6 +709,31 @@ fn fit() {
     request_frame();
 }
 
+/// Shows map `i` (fitted to the window).
+fn set_map(i: usize) {
+    let Some(app) = app() else { return };
+    {
+        let mut a = app.borrow_mut();
+        if i >= a.atlas.maps.len() {
+            return;
+        }
+        a.atlas.select_map(i);
+        a.picker = Picker::new(&a.atlas.positions);
+        let (w, h) = a.size();
+        a.camera = Camera::fit(a.atlas.bounds, [w as f64, h as f64]);
+        a.base_zoom = a.camera.zoom;
+        a.hover = None;
+        set_state("map", &a.atlas.maps[i].name);
+    }
+    if let Some(sel) = document()
+        .get_element_by_id("map-choice")
+        .and_then(|e| e.dyn_into::<web_sys::HtmlSelectElement>().ok())
+    {
+        sel.set_selected_index(i as i32);
+    }
+    request_frame();
+}
+
 fn install_events(canvas: &HtmlCanvasElement) {
     let c = canvas.clone();
     listen(
@@ -812,6 +880,15 @@ fn install_events(canvas: &HtmlCanvasElement) {
                 "ArrowUp" => pan(0.0, step),
                 "ArrowDown" => pan(0.0, -step),
                 "Escape" => open_card(None),
+                "m" => {
+                    if let Some(app) = app() {
+                        let next = {
+                            let a = app.borrow();
+                            (a.atlas.current + 1) % a.atlas.maps.len()
+                        };
+                        set_map(next);
+                    }
+                }
                 _ => return,
             }
             e.prevent_default();
@@ -921,6 +998,24 @@ async fn load(base: String) -> Result<(), String> {
             let _ = panel.append_child(&dl);
         }
     }
+    if let Some(sel) = document()
+        .get_element_by_id("map-choice")
+        .and_then(|e| e.dyn_into::<web_sys::HtmlSelectElement>().ok())
+    {
+        for (i, m) in atlas.maps.iter().enumerate() {
+            let o = web_sys::HtmlOptionElement::new_with_text_and_value(&m.name, &i.to_string())
+                .unwrap();
+            o.set_title(&m.description);
+            let _ = sel.append_child(&o);
+        }
+        let s2 = sel.clone();
+        listen(&sel, "change", true, move |_e: web_sys::Event| {
+            if let Ok(i) = s2.value().parse::<usize>() {
+                set_map(i);
+            }
+        });
+    }
+    set_state("map", &atlas.maps[0].name);
     if let Some(c) = by_id("atlas-count") {
         c.set_text_content(Some(&format!("{} items", atlas.n)));
     }
@@ -1017,6 +1112,8 @@ pub fn view_state() -> String {
         "frames": a.frames,
         "sheets_loaded": loaded,
         "fetching": a.fetching.len(),
+        "map": a.atlas.maps[a.atlas.current].name,
+        "maps": a.atlas.maps.iter().map(|m| m.name.clone()).collect::<Vec<_>>(),
     })
     .to_string()
 }
@@ -1054,4 +1151,19 @@ pub fn focus_item(id: &str, factor: f64) -> bool {
         fetch_sheets(wanted);
     }
     found
+}
+
+/// For tests and scripts: shows the map with this name and draws at once; false when there is none.
+#[wasm_bindgen]
+pub fn show_map(name: &str) -> bool {
+    let Some(app) = app() else { return false };
+    let i = app.borrow().atlas.maps.iter().position(|m| m.name == name);
+    match i {
+        Some(i) => {
+            set_map(i);
+            app.borrow_mut().render();
+            true
+        }
+        None => false,
+    }
 }
