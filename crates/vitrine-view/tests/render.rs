@@ -78,7 +78,7 @@ fn zoom_changes_what_is_drawn_and_thumbnails_are_the_right_pictures() {
 
     // Zoomed out so far that items are marks: each in its image's average colour.
     let mut cam = Camera::fit(atlas.bounds, [w as f64, h as f64]);
-    cam.zoom = 4.0 / atlas.spacing;
+    cam.zoom = cam.zoom.min(4.0 / atlas.spacing);
     let scene = Scene {
         atlas: &atlas,
         sheets: &sheets,
