@@ -200,6 +200,16 @@ fn run() -> anyhow::Result<()> {
             opts.quiet = quiet;
             let report = build(&opts)?;
             if !opts.quiet {
+                let laps: Vec<String> = report
+                    .stages
+                    .iter()
+                    .map(|(name, s)| format!("{name} {s:.1} s"))
+                    .collect();
+                let total: f64 = report.stages.iter().map(|(_, s)| s).sum();
+                eprintln!("time: {} (total {total:.1} s)", laps.join(", "));
+                if let Some(m) = report.peak_memory_mib {
+                    eprintln!("peak memory: {m:.0} MiB");
+                }
                 for note in &report.notes {
                     eprintln!("note: {note}");
                 }

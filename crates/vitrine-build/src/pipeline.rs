@@ -109,9 +109,41 @@ impl BuildOptions {
 #[derive(Debug, Default, serde::Serialize)]
 pub struct BuildReport {
     pub items: usize,
+    /// Seconds per stage, in order, and the process's peak resident memory (Linux) in MiB.
+    pub stages: Vec<(String, f64)>,
+    pub peak_memory_mib: Option<f64>,
     pub image_problems: Vec<ImageProblem>,
     pub value_warnings: Vec<ValueWarning>,
     pub notes: Vec<String>,
+}
+
+/// Lap times of the build's stages.
+pub struct Stages {
+    last: std::time::Instant,
+    pub laps: Vec<(String, f64)>,
+}
+
+impl Stages {
+    fn new() -> Stages {
+        Stages {
+            last: std::time::Instant::now(),
+            laps: Vec::new(),
+        }
+    }
+    fn lap(&mut self, name: &str) {
+        let now = std::time::Instant::now();
+        self.laps
+            .push((name.to_string(), (now - self.last).as_secs_f64()));
+        self.last = now;
+    }
+}
+
+/// Peak resident memory of this process in MiB (Linux: VmHWM), if the system tells.
+pub fn peak_memory_mib() -> Option<f64> {
+    let status = std::fs::read_to_string("/proc/self/status").ok()?;
+    let line = status.lines().find(|l| l.starts_with("VmHWM:"))?;
+    let kib: f64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    Some(kib / 1024.0)
 }
 
 fn bar(quiet: bool, len: u64, what: &str) -> ProgressBar {
@@ -495,6 +527,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
             eprintln!("{s}");
         }
     };
+    let mut stages = Stages::new();
     let vectors = npy::read_npy(&opts.vectors)?;
     log(&format!(
         "vectors: {} x {} from {}",
@@ -516,6 +549,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         None => None,
     };
     let items = match_items(&vectors, opts, cat.as_ref())?;
+    stages.lap("read inputs");
     check_finite(&vectors, &items.ids, &opts.vectors)?;
     let n = vectors.rows;
     if n == 0 {
@@ -570,6 +604,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         Optimiser::Sequential => false,
         Optimiser::Parallel => true,
     };
+    stages.lap("neighbour graph");
     let params = UmapParams {
         min_dist: opts.min_dist,
         epochs: opts.epochs,
@@ -596,6 +631,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         n,
         fuzzy.weights.len()
     ));
+    stages.lap("similarity map");
     // The timeline map, when the catalogue has a date field (the first one, or --date-field).
     let timeline = match (&cat, &items.catalogue_rows) {
         (Some(cat), Some(rows)) => {
@@ -646,6 +682,9 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         }
         _ => None,
     };
+    if timeline.is_some() {
+        stages.lap("timeline map");
+    }
     let quality = crate::quality::map_quality(&vectors, opts.metric, &pos, 10, 2000);
     if let Some(q) = &quality {
         log(&format!(
@@ -656,6 +695,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
 
     // Atlas order: along a Hilbert curve over the map.
     let order = crate::hilbert::hilbert_order(&pos);
+    stages.lap("quality figures");
     let mut rank = vec![0u32; n];
     for (new, &old) in order.iter().enumerate() {
         rank[old] = new as u32;
@@ -681,6 +721,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         recall,
         exact,
         timeline,
+        &mut stages,
     );
     match result {
         Ok(report) => {
@@ -735,6 +776,7 @@ fn write_atlas(
     recall: Option<(f64, usize)>,
     exact: bool,
     timeline: Option<crate::timeline::Timeline>,
+    stages: &mut Stages,
 ) -> Result<BuildReport> {
     let n = vectors.rows;
     let mut report = BuildReport {
@@ -931,6 +973,7 @@ fn write_atlas(
             let pb = bar(opts.quiet, n as u64, "thumbnails");
             let t = thumbs::make_sheets(&list, &plan, dir, &|c| pb.set_position(c))?;
             pb.finish_and_clear();
+            stages.lap("thumbnails");
             // The images' provenance: one line per image (SHA-256, bytes, path), hashed as a whole.
             let mut listing = String::new();
             let mut total = 0u64;
@@ -1098,6 +1141,9 @@ fn write_atlas(
         ));
     }
     copy_viewer(opts, dir, &mut report)?;
+    stages.lap("write atlas");
+    report.stages = stages.laps.clone();
+    report.peak_memory_mib = peak_memory_mib();
     std::fs::write(
         dir.join("build-report.json"),
         serde_json::to_string_pretty(&report)?,
