@@ -228,7 +228,7 @@ test("the demo atlas loads on software WebGL, draws marks, then thumbnails, and 
   await page.keyboard.press("Escape");
   await page.waitForFunction(() => document.body.dataset.card === "");
   // The timeline map: x is the dating, with year ticks along the bottom and an undated band.
-  assert.deepEqual(await page.locator("#map-choice option").allTextContents(), ["similarity", "timeline"]);
+  assert.deepEqual(await page.locator("#map-choice option").allTextContents(), ["similarity", "lattice", "timeline"]);
   assert.ok(await page.evaluate(() => window.vitrineView.show_map("timeline")));
   await settle(page);
   const tl = await viewState(page);
@@ -241,6 +241,15 @@ test("the demo atlas loads on software WebGL, draws marks, then thumbnails, and 
   assert.equal(await page.locator("#axis .label").textContent(), "dating");
   await canvasShot(page, "06-timeline.png");
   await page.screenshot({ path: path.join(ARTIFACTS, "06b-timeline-page.png") });
+  // The lattice: thumbnails tile without overlap once zoomed in.
+  assert.ok(await page.evaluate(() => window.vitrineView.show_map("lattice")));
+  const lat = await viewState(page);
+  assert.ok(await page.evaluate(([id, f]) => window.vitrineView.focus_item(id, f), [record.id, 60 / lat.side_px]));
+  await settle(page);
+  const latClose = await viewState(page);
+  assert.ok(latClose.thumbnails > 20 && latClose.map === "lattice", JSON.stringify(latClose));
+  await canvasShot(page, "07-lattice.png");
+  assert.ok(await page.evaluate(() => window.vitrineView.show_map("timeline")));
   // "m" moves to the next map (back to the similarity map here), and the axis goes.
   await page.locator("#map").focus();
   await page.keyboard.press("m");

@@ -7,6 +7,7 @@ pub mod dates;
 pub mod error;
 pub mod hilbert;
 pub mod knn;
+pub mod lattice;
 pub mod nndescent;
 pub mod npy;
 pub mod pipeline;

@@ -685,7 +685,16 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
     if timeline.is_some() {
         stages.lap("timeline map");
     }
+    let lattice = crate::lattice::lattice(&pos);
+    let lattice_pos: Vec<[f32; 2]> = lattice
+        .cells
+        .iter()
+        .map(|c| [c[0] as f32, c[1] as f32])
+        .collect();
+    stages.lap("lattice");
     let quality = crate::quality::map_quality(&vectors, opts.metric, &pos, 10, 2000);
+    let lattice_quality =
+        crate::quality::map_quality(&vectors, opts.metric, &lattice_pos, 10, 2000);
     if let Some(q) = &quality {
         log(&format!(
             "map quality on {} items: trustworthiness@10 {:.3}, continuity@10 {:.3}",
@@ -721,6 +730,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         recall,
         exact,
         timeline,
+        (lattice, lattice_pos, lattice_quality),
         &mut stages,
     );
     match result {
@@ -776,6 +786,11 @@ fn write_atlas(
     recall: Option<(f64, usize)>,
     exact: bool,
     timeline: Option<crate::timeline::Timeline>,
+    lattice: (
+        crate::lattice::Lattice,
+        Vec<[f32; 2]>,
+        Option<crate::quality::MapQuality>,
+    ),
     stages: &mut Stages,
 ) -> Result<BuildReport> {
     let n = vectors.rows;
@@ -824,6 +839,20 @@ fn write_atlas(
         x_axis: None,
     };
     let mut maps = vec![map];
+    {
+        let (grid, cells, _) = &lattice;
+        let xy: Vec<f32> = order.iter().flat_map(|&i| cells[i]).collect();
+        maps.push(MapLayout {
+            name: "lattice".into(),
+            description: format!(
+                "the similarity map snapped to a {} x {} grid, one item per cell (recursive balanced bisection)",
+                grid.columns, grid.rows
+            ),
+            positions: w.add("map-lattice", &xy),
+            bounds: [0.0, 0.0, grid.columns.saturating_sub(1) as f32, grid.rows.saturating_sub(1) as f32],
+            x_axis: None,
+        });
+    }
     if let Some(t) = &timeline {
         let mut xy = Vec::with_capacity(n * 2);
         let mut b = [
@@ -1104,6 +1133,13 @@ fn write_atlas(
                 );
                 q.insert("similarity_continuity_at_10".into(), json!(mq.continuity));
                 q.insert("quality_sample_items".into(), json!(mq.sample));
+            }
+            if let Some(lq) = &lattice.2 {
+                q.insert(
+                    "lattice_trustworthiness_at_10".into(),
+                    json!(lq.trustworthiness),
+                );
+                q.insert("lattice_continuity_at_10".into(), json!(lq.continuity));
             }
             if let Some((r, items)) = recall {
                 q.insert("neighbour_recall".into(), json!(r));

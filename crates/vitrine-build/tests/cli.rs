@@ -241,8 +241,22 @@ fn build_inspect_export_end_to_end() {
     );
     assert_eq!(
         out.trim(),
-        "60 ['id', 'similarity_x', 'similarity_y', 'timeline_x', 'timeline_y'] True"
+        "60 ['id', 'lattice_x', 'lattice_y', 'similarity_x', 'similarity_y', 'timeline_x', 'timeline_y'] True"
     );
+
+    // The lattice: one item per grid cell.
+    let lat = m
+        .maps
+        .iter()
+        .find(|l| l.name == "lattice")
+        .expect("a lattice map");
+    let cells: Vec<f32> = atlas.array(&lat.positions).unwrap();
+    let distinct: std::collections::HashSet<(u32, u32)> = cells
+        .chunks(2)
+        .map(|c| (c[0] as u32, c[1] as u32))
+        .collect();
+    assert_eq!(distinct.len(), 60);
+    assert!(cells.iter().all(|v| v.fract() == 0.0 && *v >= 0.0));
 
     // The timeline map puts each dated item at a year inside its range, undated ones left of the axis.
     let tl = m

@@ -283,6 +283,11 @@ pub fn about(m: &Manifest) -> Vec<(String, Vec<(String, String)>)> {
         ("quality_sample_items", "measured on (items)"),
         ("neighbour_recall", "neighbour recall"),
         (
+            "lattice_trustworthiness_at_10",
+            "lattice: trustworthiness at k = 10",
+        ),
+        ("lattice_continuity_at_10", "lattice: continuity at k = 10"),
+        (
             "neighbour_recall_sample_items",
             "recall measured on (items)",
         ),
