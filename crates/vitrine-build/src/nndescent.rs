@@ -298,32 +298,53 @@ pub fn nn_descent(
     for round in 0..p.max_rounds {
         // Candidates per item: a sample of its fresh neighbours ("new") and of the rest ("old"),
         // plus the same drawn from reverse neighbours.
+        // Drawn in parallel per item, then grouped by the item they go to (sorted, so the same
+        // for any number of threads).
+        let mut pairs: Vec<(u32, bool, u32)> = lists
+            .ids
+            .par_chunks(k)
+            .zip(lists.fresh.par_chunks_mut(k))
+            .enumerate()
+            .flat_map_iter(|(i, (ids, fresh))| {
+                let mut rng = Rng::new(
+                    p.seed
+                        ^ ((round as u64) << 40)
+                        ^ (i as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15),
+                );
+                let mut taken_new = 0;
+                let mut out = Vec::with_capacity(2 * k);
+                for s in 0..k {
+                    let j = ids[s];
+                    if j == u32::MAX {
+                        continue;
+                    }
+                    if fresh[s] {
+                        if taken_new < sample && rng.uniform() < (sample as f64 / k as f64).max(0.5)
+                        {
+                            out.push((i as u32, true, j));
+                            out.push((j, true, i as u32));
+                            fresh[s] = false;
+                            taken_new += 1;
+                        }
+                    } else {
+                        out.push((i as u32, false, j));
+                        out.push((j, false, i as u32));
+                    }
+                }
+                out
+            })
+            .collect();
+        pairs.par_sort_unstable();
         let mut new_c: Vec<Vec<u32>> = vec![Vec::new(); n];
         let mut old_c: Vec<Vec<u32>> = vec![Vec::new(); n];
-        for i in 0..n {
-            let mut rng = Rng::new(
-                p.seed ^ ((round as u64) << 40) ^ (i as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15),
-            );
-            let mut taken_new = 0;
-            for s in 0..k {
-                let slot = i * k + s;
-                let j = lists.ids[slot];
-                if j == u32::MAX {
-                    continue;
-                }
-                if lists.fresh[slot] {
-                    if taken_new < sample && rng.uniform() < (sample as f64 / k as f64).max(0.5) {
-                        new_c[i].push(j);
-                        new_c[j as usize].push(i as u32);
-                        lists.fresh[slot] = false;
-                        taken_new += 1;
-                    }
-                } else {
-                    old_c[i].push(j);
-                    old_c[j as usize].push(i as u32);
-                }
+        for &(t, is_new, j) in &pairs {
+            if is_new {
+                new_c[t as usize].push(j);
+            } else {
+                old_c[t as usize].push(j);
             }
         }
+        drop(pairs);
         let cap = 2 * sample;
         new_c.par_iter_mut().enumerate().for_each(|(i, c)| {
             c.sort_unstable();
