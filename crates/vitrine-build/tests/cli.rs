@@ -726,3 +726,70 @@ fn image_paths_stay_inside_the_images_folder_and_local_paths_stay_out_of_the_atl
     );
     assert!(digests.contains("  it-000.png"));
 }
+
+#[test]
+fn degenerate_collections_build_with_finite_maps() {
+    // 1, 2, k and k + 1 items; all identical; a zero vector under cosine; two groups with no edge between them.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let mut cases: Vec<(String, usize, Vec<f32>)> = Vec::new();
+    for n in [1usize, 2, 15, 16] {
+        cases.push((
+            format!("n{n}"),
+            n,
+            (0..n * 4).map(|i| (i % 7) as f32 + 0.5).collect(),
+        ));
+    }
+    cases.push(("identical".into(), 40, vec![0.25; 40 * 4]));
+    let mut zero: Vec<f32> = (0..30 * 4).map(|i| (i % 5) as f32 + 1.0).collect();
+    zero[..4].fill(0.0);
+    cases.push(("zero".into(), 30, zero));
+    let apart: Vec<f32> = (0..60)
+        .flat_map(|i| {
+            let far = if i < 30 { 0.0 } else { 1000.0 };
+            [far + (i % 3) as f32, far + (i % 5) as f32, far, far]
+        })
+        .collect();
+    cases.push(("apart".into(), 60, apart));
+    for (name, n, data) in cases {
+        let v = d.join(format!("{name}.npy"));
+        write_npy_f32(&v, n, 4, &data).unwrap();
+        let metric = if name == "apart" {
+            "euclidean"
+        } else {
+            "cosine"
+        };
+        let out = d.join(&name);
+        let o = common::vitrine()
+            .args([
+                "build",
+                "--quiet",
+                "--epochs",
+                "30",
+                "--metric",
+                metric,
+                "--vectors",
+            ])
+            .arg(&v)
+            .arg("--out")
+            .arg(&out)
+            .output()
+            .unwrap();
+        assert!(o.status.success(), "{name}: {}", stderr(&o));
+        let a = Atlas::open(&out).unwrap();
+        assert_eq!(a.manifest.item_count as usize, n);
+        for map in &a.manifest.maps {
+            let xy: Vec<f32> = a.array(&map.positions).unwrap();
+            assert!(
+                xy.iter().all(|x| x.is_finite()),
+                "{name}/{}: {xy:?}",
+                map.name
+            );
+            assert!(
+                map.bounds.iter().all(|b| b.is_finite()),
+                "{name}/{}",
+                map.name
+            );
+        }
+    }
+}
