@@ -156,6 +156,8 @@ test("the demo atlas loads on software WebGL, draws marks, then thumbnails, and 
   const fitted = stats(await canvasShot(page, "01-fit.png"));
   assert.equal(state.thumbnails, 0);
   assert.ok(state.marks > manifest.item_count * 0.95, `marks drawn: ${state.marks}`);
+  const labels = await page.locator("#labels span").allTextContents();
+  assert.ok(labels.length >= 5 && labels.every((l) => l.length > 2), `cluster labels at fit: ${labels}`);
   assert.ok(fitted.ink > 0.01 && fitted.ink < 0.9, `share of drawn pixels at fit: ${fitted.ink}`);
 
   // Zoomed in until an item's square is about 20 px: small thumbnails from the 32 px sheets.

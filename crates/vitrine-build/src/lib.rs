@@ -3,6 +3,7 @@
 //! Invariant: nothing here is needed by the viewer; the viewer depends on `vitrine-format` only.
 
 pub mod catalogue;
+pub mod clusters;
 pub mod dates;
 pub mod error;
 pub mod hilbert;

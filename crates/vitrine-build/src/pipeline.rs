@@ -685,6 +685,8 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
     if timeline.is_some() {
         stages.lap("timeline map");
     }
+    let clusters = crate::clusters::louvain(n, &fuzzy, 1.0);
+    stages.lap("clusters");
     let lattice = crate::lattice::lattice(&pos);
     let lattice_pos: Vec<[f32; 2]> = lattice
         .cells
@@ -731,6 +733,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         exact,
         timeline,
         (lattice, lattice_pos, lattice_quality),
+        clusters,
         &mut stages,
     );
     match result {
@@ -791,6 +794,7 @@ fn write_atlas(
         Vec<[f32; 2]>,
         Option<crate::quality::MapQuality>,
     ),
+    clusters: Vec<u32>,
     stages: &mut Stages,
 ) -> Result<BuildReport> {
     let n = vectors.rows;
@@ -905,6 +909,8 @@ fn write_atlas(
     // Catalogue fields, every column but the id.
     let mut fields = Vec::new();
     let mut first_category: Option<Vec<u32>> = None;
+    // Per field: its category codes, when it is a category field (for the cluster labels).
+    let mut category_codes: Vec<Option<Vec<u32>>> = Vec::new();
     if let (Some(cat), Some(rows)) = (cat, &items.catalogue_rows) {
         let item_rows: Vec<usize> = order.iter().map(|&i| rows[i]).collect();
         for (c, name) in cat.header.iter().enumerate() {
@@ -925,6 +931,7 @@ fn write_atlas(
                     if first_category.is_none() {
                         first_category = Some(codes.clone());
                     }
+                    category_codes.push(Some(codes.clone()));
                     Field {
                         name: name.clone(),
                         kind,
@@ -977,8 +984,64 @@ fn write_atlas(
                 }
             };
             fields.push(field);
+            if category_codes.len() < fields.len() {
+                category_codes.push(None);
+            }
         }
     }
+
+    // Clusters in atlas order, with labels from the catalogue's category fields.
+    let cluster_of: Vec<u32> = order.iter().map(|&i| clusters[i]).collect();
+    let mut category_columns: Vec<(String, Vec<u32>, Vec<String>)> = Vec::new();
+    for (f, data) in fields.iter().zip(&category_codes) {
+        if let Some(codes) = data {
+            category_columns.push((f.name.clone(), codes.clone(), f.values.clone()));
+        }
+    }
+    let terms = crate::clusters::label_terms(&cluster_of, &category_columns, 3);
+    let k = terms.len();
+    let mut members: Vec<Vec<[f32; 2]>> = vec![Vec::new(); k];
+    for (slot, &c) in cluster_of.iter().enumerate() {
+        members[c as usize].push([xy[2 * slot], xy[2 * slot + 1]]);
+    }
+    let median = |v: &mut Vec<f32>| -> f32 {
+        v.sort_by(|a, b| a.total_cmp(b));
+        v[v.len() / 2]
+    };
+    let list: Vec<vitrine_format::ClusterInfo> = (0..k)
+        .map(|c| {
+            let mut xs: Vec<f32> = members[c].iter().map(|p| p[0]).collect();
+            let mut ys: Vec<f32> = members[c].iter().map(|p| p[1]).collect();
+            let label = if terms[c].is_empty() {
+                format!("cluster {}", c + 1)
+            } else {
+                terms[c]
+                    .iter()
+                    .map(|t| t.value.as_str())
+                    .collect::<Vec<_>>()
+                    .join(" · ")
+            };
+            vitrine_format::ClusterInfo {
+                size: members[c].len() as u64,
+                label,
+                position: [median(&mut xs), median(&mut ys)],
+                terms: terms[c]
+                    .iter()
+                    .map(|t| vitrine_format::ClusterTerm {
+                        field: t.field.clone(),
+                        value: t.value.clone(),
+                        share: t.share,
+                        lift: t.lift,
+                    })
+                    .collect(),
+            }
+        })
+        .collect();
+    let clusters = vitrine_format::Clusters {
+        method: "Louvain modularity on the fuzzy neighbour graph (resolution 1)".into(),
+        ids: w.add("clusters", &cluster_of),
+        list,
+    };
 
     // Thumbnails and colours.
     let mut inputs = vec![input_file("vectors", &opts.vectors)?];
@@ -1126,6 +1189,7 @@ fn write_atlas(
         sheets,
         quality: {
             let mut q = serde_json::Map::new();
+            q.insert("clusters".into(), json!(clusters.list.len()));
             if let Some(mq) = &quality {
                 q.insert(
                     "similarity_trustworthiness_at_10".into(),
@@ -1147,6 +1211,7 @@ fn write_atlas(
             }
             q
         },
+        clusters: Some(clusters),
         provenance: Provenance {
             tool: "vitrine".into(),
             tool_version: env!("CARGO_PKG_VERSION").into(),

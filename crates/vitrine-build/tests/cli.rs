@@ -244,6 +244,22 @@ fn build_inspect_export_end_to_end() {
         "60 ['id', 'lattice_x', 'lattice_y', 'similarity_x', 'similarity_y', 'timeline_x', 'timeline_y'] True"
     );
 
+    // Clusters: every item in one; the fixture's three far-apart groups are never mixed, and labels
+    // name the group's workshop, the value over-represented in it.
+    let cl = m.clusters.as_ref().expect("clusters");
+    assert_eq!(cl.list.iter().map(|c| c.size).sum::<u64>(), 60);
+    let of: Vec<u32> = atlas.array(&cl.ids).unwrap();
+    for c in 0..cl.list.len() as u32 {
+        let groups: std::collections::HashSet<usize> =
+            (0..60).filter(|&i| of[i] == c).map(group).collect();
+        assert_eq!(groups.len(), 1, "cluster {c} mixes groups");
+    }
+    assert!(
+        cl.list[0].label.starts_with("Workshop "),
+        "{:?}",
+        cl.list[0]
+    );
+
     // The lattice: one item per grid cell.
     let lat = m
         .maps

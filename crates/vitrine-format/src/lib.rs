@@ -308,6 +308,34 @@ pub struct MapLayout {
     pub x_axis: Option<MapAxis>,
 }
 
+/// Clusters: a u32 cluster number per item (index into `list`) and each cluster's description.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Clusters {
+    pub method: String,
+    pub ids: ArrayRef,
+    pub list: Vec<ClusterInfo>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ClusterInfo {
+    pub size: u64,
+    /// A short label made from the most over-represented catalogue values (or "cluster N").
+    pub label: String,
+    /// Where the label goes on the similarity map (the members' median position).
+    pub position: [f32; 2],
+    /// The over-represented values: field, value, share in the cluster, lift over the collection.
+    #[serde(default)]
+    pub terms: Vec<ClusterTerm>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ClusterTerm {
+    pub field: String,
+    pub value: String,
+    pub share: f64,
+    pub lift: f64,
+}
+
 /// A map's x axis in catalogue units: value = origin + x * units_per_map_unit.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct MapAxis {
@@ -388,6 +416,9 @@ pub struct Manifest {
     pub neighbours: Neighbours,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub sheets: Option<Sheets>,
+    /// Clusters of the neighbour graph, if computed.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub clusters: Option<Clusters>,
     /// Quality figures by name (e.g. "trustworthiness_10").
     #[serde(default)]
     pub quality: serde_json::Map<String, serde_json::Value>,
@@ -499,6 +530,9 @@ impl Manifest {
                 }
             }
         }
+        if let Some(c) = &self.clusters {
+            want(&c.ids, n, DType::U32)?;
+        }
         if let Some(s) = &self.sheets {
             want(&s.extents, n, DType::U32)?;
             for l in &s.levels {
@@ -532,6 +566,9 @@ impl Manifest {
         }
         if let Some(s) = &self.sheets {
             v.push(&s.extents);
+        }
+        if let Some(c) = &self.clusters {
+            v.push(&c.ids);
         }
         v
     }

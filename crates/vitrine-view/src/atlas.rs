@@ -44,6 +44,8 @@ pub struct AtlasData {
     /// Every map; `positions`, `bounds` and `spacing` above are those of `maps[current]`.
     pub maps: Vec<MapView>,
     pub current: usize,
+    /// Cluster number per item (empty when the atlas has no clusters).
+    pub clusters: Vec<u32>,
 }
 
 /// One line of a record card.
@@ -150,7 +152,12 @@ impl AtlasData {
                 written,
             });
         }
+        let clusters = match &manifest.clusters {
+            Some(c) => c.ids.decode::<u32>(get(&c.ids)?)?,
+            None => vec![],
+        };
         Ok(AtlasData {
+            clusters,
             spacing: maps[0].spacing,
             n,
             ids,
@@ -240,6 +247,15 @@ impl AtlasData {
                 link,
             });
         }
+        if let (Some(c), Some(&id)) = (&self.manifest.clusters, self.clusters.get(i)) {
+            if let Some(info) = c.list.get(id as usize) {
+                out.push(RecordLine {
+                    name: "cluster".into(),
+                    value: format!("{} ({} items)", info.label, info.size),
+                    link: false,
+                });
+            }
+        }
         out
     }
 
@@ -282,6 +298,7 @@ pub fn about(m: &Manifest) -> Vec<(String, Vec<(String, String)>)> {
         ("similarity_continuity_at_10", "continuity at k = 10"),
         ("quality_sample_items", "measured on (items)"),
         ("neighbour_recall", "neighbour recall"),
+        ("clusters", "clusters (Louvain)"),
         (
             "lattice_trustworthiness_at_10",
             "lattice: trustworthiness at k = 10",

@@ -376,6 +376,7 @@ impl App {
         self.frames += 1;
         set_state("frames", &self.frames.to_string());
         self.update_axis();
+        self.update_labels();
         set_state(
             "level",
             if stats.thumbnails > 0 {
@@ -439,6 +440,57 @@ impl App {
             t.set_text_content(Some(&text));
             let _ = t.style().set_property("left", &format!("{sx:.1}px"));
             let _ = bar.append_child(&t);
+        }
+    }
+
+    /// Cluster labels over the similarity map while it is zoomed out (the larger clusters only).
+    fn update_labels(&self) {
+        let Some(layer) = by_id("labels") else { return };
+        layer.set_text_content(None);
+        let map = &self.atlas.maps[self.atlas.current];
+        let Some(c) = &self.atlas.manifest.clusters else {
+            return;
+        };
+        if map.name != "similarity" || self.last.thumbnails > 0 {
+            return;
+        }
+        let doc = document();
+        let css = self.canvas.client_width().max(1) as f64 / self.canvas.width().max(1) as f64;
+        let min_size = (self.atlas.n as u64 / 100).max(2);
+        // Largest clusters first; a label that would overlap one already placed is left out.
+        let mut placed: Vec<[f64; 4]> = Vec::new();
+        for info in c.list.iter().filter(|i| i.size >= min_size).take(40) {
+            let s = self.camera.to_screen(info.position);
+            if s[0] < 0.0 || s[1] < 0.0 || s[0] > self.camera.size[0] || s[1] > self.camera.size[1]
+            {
+                continue;
+            }
+            let text: String = info
+                .label
+                .split(" · ")
+                .take(2)
+                .collect::<Vec<_>>()
+                .join(" · ");
+            let (cx, cy) = (s[0] * css, s[1] * css);
+            let half_w = text.chars().count() as f64 * 3.3 + 6.0;
+            let rect = [cx - half_w, cy - 10.0, cx + half_w, cy + 10.0];
+            if placed
+                .iter()
+                .any(|r| r[0] < rect[2] && rect[0] < r[2] && r[1] < rect[3] && rect[1] < r[3])
+            {
+                continue;
+            }
+            placed.push(rect);
+            let t: HtmlElement = doc.create_element("span").unwrap().dyn_into().unwrap();
+            t.set_text_content(Some(&text));
+            t.set_title(&format!("{} ({} items)", info.label, info.size));
+            let _ = t
+                .style()
+                .set_property("left", &format!("{:.1}px", s[0] * css));
+            let _ = t
+                .style()
+                .set_property("top", &format!("{:.1}px", s[1] * css));
+            let _ = layer.append_child(&t);
         }
     }
 

@@ -164,7 +164,13 @@ fn record_lines_hold_every_field_as_written() {
     let atlas = fixture(dir.path());
     let lines = atlas.record(0);
     assert_eq!(lines[0].name, "id");
-    assert_eq!(lines.len(), 1, "no catalogue: the id only");
+    let names: Vec<&str> = lines.iter().map(|l| l.name.as_str()).collect();
+    assert_eq!(
+        names,
+        ["id", "cluster"],
+        "no catalogue: the id and the item's cluster"
+    );
+    assert!(lines[1].value.contains("items"), "{:?}", lines[1]);
     assert_eq!(atlas.neighbours_of(0).len(), 15);
     let about = vitrine_view::atlas::about(&atlas.manifest);
     let heads: Vec<&str> = about.iter().map(|(h, _)| h.as_str()).collect();
