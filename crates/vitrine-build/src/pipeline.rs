@@ -734,6 +734,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         timeline,
         (lattice, lattice_pos, lattice_quality),
         clusters,
+        &params,
         &mut stages,
     );
     match result {
@@ -795,6 +796,7 @@ fn write_atlas(
         Option<crate::quality::MapQuality>,
     ),
     clusters: Vec<u32>,
+    umap_params: &UmapParams,
     stages: &mut Stages,
 ) -> Result<BuildReport> {
     let n = vectors.rows;
@@ -1149,14 +1151,12 @@ fn write_atlas(
     parameters.insert("umap_b".into(), json!(b));
     parameters.insert(
         "epochs".into(),
-        json!(opts.epochs.unwrap_or(if n <= 10_000 { 500 } else { 200 })),
+        json!(umap::epochs_for(n, umap_params.epochs)),
     );
     parameters.insert("start".into(), json!("pca"));
     parameters.insert(
         "layout_optimiser".into(),
-        json!(if n > SEQUENTIAL_UP_TO && opts.optimiser == Optimiser::Auto
-            || opts.optimiser == Optimiser::Parallel
-        {
+        json!(if umap_params.parallel {
             "parallel blocks"
         } else {
             "sequential"

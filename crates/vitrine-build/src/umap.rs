@@ -333,6 +333,43 @@ pub fn fast_pow(x: f32, p: f32) -> f32 {
     fast_exp2(p * fast_log2(x))
 }
 
+/// Optimisation epochs: as given, else 500 up to 10,000 items and 200 above (the method's defaults).
+pub fn epochs_for(n: usize, epochs: Option<usize>) -> usize {
+    epochs.unwrap_or(if n <= 10_000 { 500 } else { 200 })
+}
+
+/// The attractive gradient's coefficient at squared distance d2 > 0 (to be multiplied by the offset).
+#[inline]
+fn attraction(d2: f32, a: f32, b: f32) -> f32 {
+    let d2b = fast_pow(d2, b);
+    -2.0 * a * b * (d2b / d2) / (a * d2b + 1.0)
+}
+
+/// The repulsive gradient's coefficient at squared distance d2 > 0.
+#[inline]
+fn repulsion(d2: f32, a: f32, b: f32) -> f32 {
+    2.0 * b / ((0.001 + d2) * (a * fast_pow(d2, b) + 1.0))
+}
+
+/// Edges strong enough to be sampled at least once in `epochs`, as the method describes.
+fn sampled_edges(graph: &FuzzyGraph, epochs: usize) -> (Vec<usize>, f32) {
+    let max_w = graph.weights.iter().cloned().fold(0f32, f32::max);
+    let keep = (0..graph.weights.len())
+        .filter(|&e| graph.weights[e] >= max_w / epochs as f32)
+        .collect();
+    (keep, max_w)
+}
+
+/// A position that went non-finite is put back at the origin rather than passed on.
+fn finite<const D: usize>(mut pos: Vec<[f32; D]>) -> Vec<[f32; D]> {
+    for p in &mut pos {
+        if p.iter().any(|c| !c.is_finite()) {
+            *p = [0.0; D];
+        }
+    }
+    pos
+}
+
 fn clip(x: f32) -> f32 {
     x.clamp(-4.0, 4.0)
 }
@@ -416,14 +453,11 @@ fn layout_in_order<const D: usize>(
     if n < 2 || graph.weights.is_empty() {
         return pos;
     }
-    let epochs = params.epochs.unwrap_or(if n <= 10_000 { 500 } else { 200 });
+    let epochs = epochs_for(n, params.epochs);
     let (a, b) = fit_ab(params.min_dist, params.spread);
-    let max_w = graph.weights.iter().cloned().fold(0f32, f32::max);
     // Directed edges grouped by head (CSR). Edges too weak to be sampled even once are dropped.
     let mut degree = vec![0u32; n + 1];
-    let keep: Vec<usize> = (0..graph.weights.len())
-        .filter(|&e| graph.weights[e] >= max_w / epochs as f32)
-        .collect();
+    let (keep, max_w) = sampled_edges(graph, epochs);
     for &e in &keep {
         degree[graph.heads[e] as usize + 1] += 1;
         degree[graph.tails[e] as usize + 1] += 1;
@@ -496,8 +530,7 @@ fn layout_in_order<const D: usize>(
                         }
                         let d2: f32 = delta.iter().map(|x| x * x).sum();
                         if d2 > 0.0 {
-                            let d2b = fast_pow(d2, b);
-                            let coeff = -2.0 * a * b * (d2b / d2) / (a * d2b + 1.0);
+                            let coeff = attraction(d2, a, b);
                             for c in 0..D {
                                 p[c] += clip(coeff * delta[c]) * alpha;
                             }
@@ -517,7 +550,7 @@ fn layout_in_order<const D: usize>(
                             }
                             let d2: f32 = delta.iter().map(|x| x * x).sum();
                             if d2 > 0.0 {
-                                let coeff = 2.0 * b / ((0.001 + d2) * (a * fast_pow(d2, b) + 1.0));
+                                let coeff = repulsion(d2, a, b);
                                 for c in 0..D {
                                     p[c] += clip(coeff * delta[c]) * alpha;
                                 }
@@ -537,12 +570,7 @@ fn layout_in_order<const D: usize>(
         }
     }
     progress(epochs, epochs);
-    for p in &mut pos {
-        if p.iter().any(|c| !c.is_finite()) {
-            *p = [0.0; D];
-        }
-    }
-    pos
+    finite(pos)
 }
 
 /// Cuts `v` at the given boundaries (first 0 or more, last = len) into mutable pieces.
@@ -570,13 +598,10 @@ fn layout_sequential<const D: usize>(
     if n < 2 || graph.weights.is_empty() {
         return pos;
     }
-    let epochs = params.epochs.unwrap_or(if n <= 10_000 { 500 } else { 200 });
+    let epochs = epochs_for(n, params.epochs);
     let (a, b) = fit_ab(params.min_dist, params.spread);
-    let max_w = graph.weights.iter().cloned().fold(0f32, f32::max);
     // Edges too weak to be sampled even once are dropped, as the method describes.
-    let keep: Vec<usize> = (0..graph.weights.len())
-        .filter(|&e| graph.weights[e] >= max_w / epochs as f32)
-        .collect();
+    let (keep, max_w) = sampled_edges(graph, epochs);
     let eps: Vec<f64> = keep
         .iter()
         .map(|&e| (max_w / graph.weights[e]) as f64)
@@ -606,8 +631,7 @@ fn layout_sequential<const D: usize>(
             }
             let d2: f32 = delta.iter().map(|x| x * x).sum();
             if d2 > 0.0 {
-                let d2b = fast_pow(d2, b);
-                let coeff = -2.0 * a * b * (d2b / d2) / (a * d2b + 1.0);
+                let coeff = attraction(d2, a, b);
                 for c in 0..D {
                     let g = clip(coeff * delta[c]) * alpha;
                     pos[j][c] += g;
@@ -626,7 +650,7 @@ fn layout_sequential<const D: usize>(
                 }
                 let d2: f32 = delta.iter().map(|x| x * x).sum();
                 if d2 > 0.0 {
-                    let coeff = 2.0 * b / ((0.001 + d2) * (a * fast_pow(d2, b) + 1.0));
+                    let coeff = repulsion(d2, a, b);
                     for c in 0..D {
                         pos[j][c] += clip(coeff * delta[c]) * alpha;
                     }
@@ -643,12 +667,7 @@ fn layout_sequential<const D: usize>(
         }
     }
     progress(epochs, epochs);
-    for p in &mut pos {
-        if p.iter().any(|c| !c.is_finite()) {
-            *p = [0.0; D];
-        }
-    }
-    pos
+    finite(pos)
 }
 
 #[cfg(test)]
