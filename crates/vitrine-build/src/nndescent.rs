@@ -117,6 +117,19 @@ fn insert(ids: &mut [u32], dist: &mut [f32], fresh: &mut [bool], j: u32, d: f32)
     true
 }
 
+/// Sorts and deduplicates a candidate list, then keeps a seeded random `cap` of it.
+fn keep_sample(c: &mut Vec<u32>, cap: usize, rng: &mut Rng) {
+    c.sort_unstable();
+    c.dedup();
+    if c.len() > cap {
+        for x in 0..cap {
+            let y = x + rng.below((c.len() - x) as u64) as usize;
+            c.swap(x, y);
+        }
+        c.truncate(cap);
+    }
+}
+
 /// Applies candidate updates (target, candidate, distance), grouped by target, in parallel.
 fn apply(lists: &mut Lists, mut updates: Vec<(u32, u32, f32)>) -> usize {
     updates
@@ -346,30 +359,12 @@ pub fn nn_descent(
         }
         drop(pairs);
         let cap = 2 * sample;
-        new_c.par_iter_mut().enumerate().for_each(|(i, c)| {
-            c.sort_unstable();
-            c.dedup();
-            if c.len() > cap {
-                let mut rng = Rng::new(p.seed ^ 0xabc ^ ((round as u64) << 36) ^ i as u64);
-                for x in 0..cap {
-                    let y = x + rng.below((c.len() - x) as u64) as usize;
-                    c.swap(x, y);
-                }
-                c.truncate(cap);
-            }
-        });
-        old_c.par_iter_mut().enumerate().for_each(|(i, c)| {
-            c.sort_unstable();
-            c.dedup();
-            if c.len() > cap {
-                let mut rng = Rng::new(p.seed ^ 0xdef ^ ((round as u64) << 36) ^ i as u64);
-                for x in 0..cap {
-                    let y = x + rng.below((c.len() - x) as u64) as usize;
-                    c.swap(x, y);
-                }
-                c.truncate(cap);
-            }
-        });
+        for (lists_c, salt) in [(&mut new_c, 0xabcu64), (&mut old_c, 0xdef)] {
+            lists_c.par_iter_mut().enumerate().for_each(|(i, c)| {
+                let mut rng = Rng::new(p.seed ^ salt ^ ((round as u64) << 36) ^ i as u64);
+                keep_sample(c, cap, &mut rng);
+            });
+        }
         if trace {
             eprintln!("  candidates at {:.2}s", clock.elapsed().as_secs_f64());
         }
