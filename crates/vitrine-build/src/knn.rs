@@ -63,6 +63,34 @@ pub fn normalised(m: &Matrix) -> Matrix {
     }
 }
 
+/// The vectors as distances are computed from them: unit rows for cosine, as they are for Euclidean.
+pub fn prepare(m: &Matrix, metric: Metric) -> Matrix {
+    match metric {
+        Metric::Cosine => normalised(m),
+        Metric::Euclidean => m.clone(),
+    }
+}
+
+/// Distance between two rows of [`prepare`]d vectors, accumulated in f64 so that ties and orderings
+/// match a double-precision reference. A zero vector (left zero by `prepare`) is at cosine distance 1.
+pub fn prepared_distance(a: &[f32], b: &[f32], metric: Metric) -> f64 {
+    match metric {
+        Metric::Euclidean => a
+            .iter()
+            .zip(b)
+            .map(|(&x, &y)| {
+                let t = x as f64 - y as f64;
+                t * t
+            })
+            .sum::<f64>()
+            .sqrt(),
+        Metric::Cosine => {
+            let dot: f64 = a.iter().zip(b).map(|(&x, &y)| x as f64 * y as f64).sum();
+            (1.0 - dot).max(0.0)
+        }
+    }
+}
+
 pub fn exact_knn(
     m: &Matrix,
     k: usize,
@@ -70,45 +98,19 @@ pub fn exact_knn(
     progress: &(dyn Fn(u64) + Sync),
 ) -> KnnGraph {
     let n = m.rows;
-    let data = match metric {
-        Metric::Cosine => normalised(m),
-        Metric::Euclidean => m.clone(),
-    };
-    let zero: Vec<bool> = (0..n)
-        .map(|i| data.row(i).iter().all(|&x| x == 0.0))
-        .collect();
+    let data = prepare(m, metric);
     let done = std::sync::atomic::AtomicU64::new(0);
     let rows: Vec<(Vec<u32>, Vec<f32>)> = (0..n)
         .into_par_iter()
         .map(|i| {
             let a = data.row(i);
-            // Distances accumulate in f64 so that ties and orderings match a double-precision reference.
             let mut cand: Vec<(f64, u32)> = Vec::with_capacity(n.saturating_sub(1));
             for j in 0..n {
                 if j == i {
                     continue;
                 }
                 let b = data.row(j);
-                let d = match metric {
-                    Metric::Euclidean => a
-                        .iter()
-                        .zip(b)
-                        .map(|(&x, &y)| {
-                            let t = x as f64 - y as f64;
-                            t * t
-                        })
-                        .sum::<f64>()
-                        .sqrt(),
-                    Metric::Cosine => {
-                        if zero[i] || zero[j] {
-                            1.0
-                        } else {
-                            let dot: f64 =
-                                a.iter().zip(b).map(|(&x, &y)| x as f64 * y as f64).sum();
-                            (1.0 - dot).max(0.0)
-                        }
-                    }
-                };
+                let d = prepared_distance(a, b, metric);
                 cand.push((d, j as u32));
             }
             let kk = k.min(cand.len());

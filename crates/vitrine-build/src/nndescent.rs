@@ -7,7 +7,7 @@
 
 use rayon::prelude::*;
 
-use crate::knn::{normalised, KnnGraph, Metric};
+use crate::knn::{prepare, KnnGraph, Metric};
 use crate::npy::Matrix;
 use crate::rng::Rng;
 
@@ -231,10 +231,7 @@ pub fn nn_descent(
 ) -> KnnGraph {
     let n = m.rows;
     let k = p.k.min(n.saturating_sub(1)).max(1);
-    let data = match metric {
-        Metric::Cosine => normalised(m),
-        Metric::Euclidean => m.clone(),
-    };
+    let data = prepare(m, metric);
     let mut lists = Lists::new(n, k);
     let trace = std::env::var_os("VITRINE_NND_TRACE").is_some();
     let clock = std::time::Instant::now();
@@ -448,10 +445,7 @@ pub fn recall(approx: &KnnGraph, exact_ids: &[Vec<u32>], sample: &[usize]) -> f6
 
 /// Exact neighbours of the sampled items only (for measuring recall on large collections).
 pub fn exact_for(m: &Matrix, metric: Metric, k: usize, sample: &[usize]) -> Vec<Vec<u32>> {
-    let data = match metric {
-        Metric::Cosine => normalised(m),
-        Metric::Euclidean => m.clone(),
-    };
+    let data = prepare(m, metric);
     sample
         .par_iter()
         .map(|&i| {

@@ -614,10 +614,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
     };
     let fuzzy = umap::fuzzy_graph(&graph);
     let mut rng = Rng::new(opts.seed);
-    let start_vectors = match opts.metric {
-        Metric::Cosine => knn::normalised(&vectors),
-        Metric::Euclidean => vectors.clone(),
-    };
+    let start_vectors = knn::prepare(&vectors, opts.metric);
     let start = umap::pca_start(&start_vectors, &mut rng);
     let order_start: Vec<[f32; 1]> = start.iter().map(|p| [p[0]]).collect();
     let pb = bar(opts.quiet, 1, "layout");

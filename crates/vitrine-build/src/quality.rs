@@ -10,42 +10,26 @@ use rayon::prelude::*;
 use crate::knn::Metric;
 use crate::npy::Matrix;
 
-fn distance(a: &[f32], b: &[f32], metric: Metric) -> f64 {
-    match metric {
-        Metric::Euclidean => a
-            .iter()
-            .zip(b)
-            .map(|(&x, &y)| {
-                let t = x as f64 - y as f64;
-                t * t
-            })
-            .sum::<f64>()
-            .sqrt(),
-        Metric::Cosine => {
-            let (mut dot, mut na, mut nb) = (0f64, 0f64, 0f64);
-            for (&x, &y) in a.iter().zip(b) {
-                dot += x as f64 * y as f64;
-                na += x as f64 * x as f64;
-                nb += y as f64 * y as f64;
-            }
-            if na == 0.0 || nb == 0.0 {
-                1.0
-            } else {
-                1.0 - dot / (na.sqrt() * nb.sqrt())
-            }
-        }
-    }
-}
-
 /// For each item, the other items ordered by distance (nearest first), ties broken by index.
 fn orderings(rows: &[&[f32]], metric: Metric) -> Vec<Vec<u32>> {
     let n = rows.len();
+    let raw = Matrix {
+        rows: n,
+        cols: rows.first().map_or(0, |r| r.len()),
+        data: rows.concat(),
+    };
+    let data = crate::knn::prepare(&raw, metric);
     (0..n)
         .into_par_iter()
         .map(|i| {
             let mut d: Vec<(f64, u32)> = (0..n)
                 .filter(|&j| j != i)
-                .map(|j| (distance(rows[i], rows[j], metric), j as u32))
+                .map(|j| {
+                    (
+                        crate::knn::prepared_distance(data.row(i), data.row(j), metric),
+                        j as u32,
+                    )
+                })
                 .collect();
             d.sort_by(|a, b| a.partial_cmp(b).unwrap());
             d.into_iter().map(|(_, j)| j).collect()

@@ -44,10 +44,7 @@ fn main() -> anyhow::Result<()> {
             let t2 = Instant::now();
             let fuzzy = vitrine_build::umap::fuzzy_graph(&g);
             let start = vitrine_build::umap::pca_start(
-                &match metric {
-                    Metric::Cosine => vitrine_build::knn::normalised(&x),
-                    Metric::Euclidean => x.clone(),
-                },
+                &vitrine_build::knn::prepare(&x, metric),
                 &mut vitrine_build::rng::Rng::new(42),
             );
             let parallel = args.get(6).map(String::as_str) != Some("sequential");
