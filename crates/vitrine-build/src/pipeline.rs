@@ -747,6 +747,24 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
     }
 }
 
+/// Positions rearranged into atlas order, interleaved x, y, with their bounds [min_x, min_y, max_x, max_y].
+fn in_atlas_order(order: &[usize], pos: &[[f32; 2]]) -> (Vec<f32>, [f32; 4]) {
+    let mut xy = Vec::with_capacity(order.len() * 2);
+    let mut b = [
+        f32::INFINITY,
+        f32::INFINITY,
+        f32::NEG_INFINITY,
+        f32::NEG_INFINITY,
+    ];
+    for &i in order {
+        let [x, y] = pos[i];
+        xy.push(x);
+        xy.push(y);
+        b = [b[0].min(x), b[1].min(y), b[2].max(x), b[3].max(y)];
+    }
+    (xy, b)
+}
+
 fn tmp_sibling(out: &Path, what: &str) -> PathBuf {
     let name = out
         .file_name()
@@ -810,24 +828,7 @@ fn write_atlas(
     );
 
     // Positions in atlas order.
-    let mut xy = Vec::with_capacity(n * 2);
-    let mut bounds = [
-        f32::INFINITY,
-        f32::INFINITY,
-        f32::NEG_INFINITY,
-        f32::NEG_INFINITY,
-    ];
-    for &i in order {
-        let [x, y] = pos[i];
-        xy.push(x);
-        xy.push(y);
-        bounds = [
-            bounds[0].min(x),
-            bounds[1].min(y),
-            bounds[2].max(x),
-            bounds[3].max(y),
-        ];
-    }
+    let (xy, bounds) = in_atlas_order(order, pos);
     let map = MapLayout {
         name: "similarity".into(),
         description: format!(
@@ -857,19 +858,7 @@ fn write_atlas(
         });
     }
     if let Some(t) = &timeline {
-        let mut xy = Vec::with_capacity(n * 2);
-        let mut b = [
-            f32::INFINITY,
-            f32::INFINITY,
-            f32::NEG_INFINITY,
-            f32::NEG_INFINITY,
-        ];
-        for &i in order {
-            let [x, y] = t.positions[i];
-            xy.push(x);
-            xy.push(y);
-            b = [b[0].min(x), b[1].min(y), b[2].max(x), b[3].max(y)];
-        }
+        let (xy, b) = in_atlas_order(order, &t.positions);
         maps.push(MapLayout {
             name: "timeline".into(),
             description: format!(
