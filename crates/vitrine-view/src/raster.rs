@@ -68,6 +68,22 @@ impl SheetStore {
         let l = &self.levels[level];
         item / (l.columns * l.rows) as usize
     }
+    /// Where item `item`'s thumbnail lies in its sheet at `level`: [x, y, width, height] in pixels, from
+    /// its extent in the largest cell (thumbnails sit at the top left of their cells).
+    pub fn cell(&self, level: usize, item: usize, extent: (u16, u16)) -> [u32; 4] {
+        let lev = &self.levels[level];
+        let per = (lev.columns * lev.rows) as usize;
+        let slot = (item % per) as u32;
+        let big = self.largest_cell().max(1) as f64;
+        let scale = |e: u16| ((e as f64 / big * lev.cell as f64).round() as u32).clamp(1, lev.cell);
+        [
+            (slot % lev.columns) * lev.cell,
+            (slot / lev.columns) * lev.cell,
+            scale(extent.0),
+            scale(extent.1),
+        ]
+    }
+
     /// The level that suits a thumbnail `side_px` wide: the smallest whose cell is at least that size.
     pub fn level_for(&self, side_px: f64) -> Option<usize> {
         if self.levels.is_empty() {
@@ -237,21 +253,7 @@ pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
                 }
                 match chosen {
                     Some((l, sheet)) => {
-                        let lev = &scene.sheets.levels[l];
-                        let per = (lev.columns * lev.rows) as usize;
-                        let slot = (i % per) as u32;
-                        let big = scene.sheets.largest_cell().max(1) as f64;
-                        let (ew, eh) = atlas.extents[i];
-                        let cw =
-                            ((ew as f64 / big * lev.cell as f64).round() as u32).clamp(1, lev.cell);
-                        let ch =
-                            ((eh as f64 / big * lev.cell as f64).round() as u32).clamp(1, lev.cell);
-                        let cell = [
-                            (slot % lev.columns) * lev.cell,
-                            (slot / lev.columns) * lev.cell,
-                            cw,
-                            ch,
-                        ];
+                        let cell = scene.sheets.cell(l, i, atlas.extents[i]);
                         blit(buf, w, h, r, sheet, cell);
                         stats.thumbnails += 1;
                     }

@@ -653,17 +653,8 @@ fn card_picture(a: &App, i: usize) -> Option<web_sys::Element> {
     let l = (0..levels.len())
         .rev()
         .find(|&l| levels[l].loaded[a.sheets.sheet_of(l, i)].is_some())?;
-    let lev = &levels[l];
-    let sheet = lev.loaded[a.sheets.sheet_of(l, i)].as_ref()?;
-    let big = a.sheets.largest_cell() as f64;
-    let cw = ((ew as f64 / big * lev.cell as f64).round() as u32).clamp(1, lev.cell);
-    let ch = ((eh as f64 / big * lev.cell as f64).round() as u32).clamp(1, lev.cell);
-    let per = (lev.columns * lev.rows) as usize;
-    let slot = (i % per) as u32;
-    let (x0, y0) = (
-        (slot % lev.columns) * lev.cell,
-        (slot / lev.columns) * lev.cell,
-    );
+    let sheet = levels[l].loaded[a.sheets.sheet_of(l, i)].as_ref()?;
+    let [x0, y0, cw, ch] = a.sheets.cell(l, i, (ew, eh));
     let mut rgba = Vec::with_capacity((cw * ch * 4) as usize);
     for y in y0..y0 + ch {
         for x in x0..x0 + cw {
