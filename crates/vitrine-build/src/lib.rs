@@ -7,6 +7,7 @@ pub mod clusters;
 pub mod dates;
 pub mod error;
 pub mod hilbert;
+pub mod kernels;
 pub mod knn;
 pub mod lattice;
 pub mod nndescent;

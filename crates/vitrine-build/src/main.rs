@@ -1,5 +1,10 @@
 //! The `vitrine` command: a thin layer that parses flags and calls the library.
 
+// The map engine allocates and frees large buffers every round; this allocator keeps them
+// mapped instead of handing them back to the system and faulting them in again.
+#[global_allocator]
+static ALLOCATOR: mimalloc::MiMalloc = mimalloc::MiMalloc;
+
 use std::path::PathBuf;
 use std::process::ExitCode;
 

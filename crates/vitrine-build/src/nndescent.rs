@@ -7,6 +7,7 @@
 
 use rayon::prelude::*;
 
+use crate::kernels::{dot, sq_dist};
 use crate::knn::{prepare, KnnGraph, Metric};
 use crate::npy::Matrix;
 use crate::rng::Rng;
@@ -38,44 +39,7 @@ impl NnDescentParams {
     }
 }
 
-#[inline]
-fn sq_dist(a: &[f32], b: &[f32]) -> f32 {
-    // Eight running sums let the compiler vectorise the loop.
-    let mut acc = [0f32; 8];
-    let chunks = a.len() / 8;
-    for c in 0..chunks {
-        let (x, y) = (&a[c * 8..c * 8 + 8], &b[c * 8..c * 8 + 8]);
-        for l in 0..8 {
-            let t = x[l] - y[l];
-            acc[l] += t * t;
-        }
-    }
-    let mut s: f32 = acc.iter().sum();
-    for i in chunks * 8..a.len() {
-        let t = a[i] - b[i];
-        s += t * t;
-    }
-    s
-}
-
-#[inline]
-fn dot(a: &[f32], b: &[f32]) -> f32 {
-    let mut acc = [0f32; 8];
-    let chunks = a.len() / 8;
-    for c in 0..chunks {
-        let (x, y) = (&a[c * 8..c * 8 + 8], &b[c * 8..c * 8 + 8]);
-        for l in 0..8 {
-            acc[l] += x[l] * y[l];
-        }
-    }
-    let mut s: f32 = acc.iter().sum();
-    for i in chunks * 8..a.len() {
-        s += a[i] * b[i];
-    }
-    s
-}
-
-/// Fixed-size neighbour lists kept sorted by distance (nearest first).
+/// Fixed-size neighbour lists kept sorted by (distance, id), nearest first.
 struct Lists {
     k: usize,
     ids: Vec<u32>,
@@ -95,10 +59,12 @@ impl Lists {
     }
 }
 
-/// Inserts (j, d) into one item's sorted list; returns whether it changed.
+/// Inserts (j, d) into one item's list; returns whether it changed. A list always ends up holding
+/// the k smallest distinct (distance, id) pairs it was offered, whatever the order of the offers:
+/// this is what makes the graph independent of the number of threads without sorting the updates.
 fn insert(ids: &mut [u32], dist: &mut [f32], fresh: &mut [bool], j: u32, d: f32) -> bool {
     let k = ids.len();
-    if d >= dist[k - 1] {
+    if d > dist[k - 1] || (d == dist[k - 1] && j >= ids[k - 1]) {
         return false;
     }
     if ids.contains(&j) {
@@ -117,109 +83,304 @@ fn insert(ids: &mut [u32], dist: &mut [f32], fresh: &mut [bool], j: u32, d: f32)
     true
 }
 
-/// Sorts and deduplicates a candidate list, then keeps a seeded random `cap` of it.
-fn keep_sample(c: &mut Vec<u32>, cap: usize, rng: &mut Rng) {
-    c.sort_unstable();
-    c.dedup();
-    if c.len() > cap {
-        for x in 0..cap {
-            let y = x + rng.below((c.len() - x) as u64) as usize;
-            c.swap(x, y);
+/// One update: offer `candidate` at distance `d` to `target`'s list.
+type Update = (u32, u32, f32);
+
+/// Items per block of the parallel loops that produce updates.
+const BLOCK: usize = 256;
+
+/// Items per range when the items are split into one contiguous range per thread.
+fn part_size(n: usize) -> usize {
+    n.div_ceil(rayon::current_num_threads().max(1)).max(1)
+}
+
+/// Updates produced by one block of work, already split by the range their target falls in.
+struct Sink {
+    per: usize,
+    parts: Vec<Vec<Update>>,
+}
+
+impl Sink {
+    fn new(n: usize) -> Sink {
+        let per = part_size(n);
+        Sink {
+            per,
+            parts: (0..n.div_ceil(per)).map(|_| Vec::new()).collect(),
         }
-        c.truncate(cap);
+    }
+    #[inline]
+    fn push(&mut self, t: u32, j: u32, d: f32) {
+        self.parts[t as usize / self.per].push((t, j, d));
+    }
+    fn len(&self) -> usize {
+        self.parts.iter().map(Vec::len).sum()
     }
 }
 
-/// Applies candidate updates (target, candidate, distance), grouped by target, in parallel.
-fn apply(lists: &mut Lists, mut updates: Vec<(u32, u32, f32)>) -> usize {
-    updates
-        .par_sort_unstable_by(|a, b| a.0.cmp(&b.0).then(a.2.total_cmp(&b.2)).then(a.1.cmp(&b.1)));
+/// Applies blocks of updates. Each thread owns a range of target items and reads that range's
+/// part of every block, so no update is sorted or moved. Returns how many list entries are new
+/// after the updates.
+fn apply(lists: &mut Lists, blocks: &[Sink]) -> usize {
     let k = lists.k;
-    // Split the update list at target boundaries matching the per-item chunks.
-    let mut bounds = Vec::with_capacity(lists.ids.len() / k + 1);
-    let mut start = 0;
-    while start < updates.len() {
-        let t = updates[start].0;
-        let mut end = start;
-        while end < updates.len() && updates[end].0 == t {
-            end += 1;
-        }
-        bounds.push((t as usize, start, end));
-        start = end;
-    }
-    let ids_ptr = SendPtr(lists.ids.as_mut_ptr());
-    let dist_ptr = SendPtr(lists.dist.as_mut_ptr());
-    let fresh_ptr = SendPtr(lists.fresh.as_mut_ptr());
-    bounds
-        .par_iter()
-        .map(|&(t, s, e)| {
-            // SAFETY: each target item appears in exactly one bound, so its k slots are written by one thread only.
-            let (ids, dist, fresh) = unsafe {
-                (
-                    std::slice::from_raw_parts_mut(ids_ptr.get().add(t * k), k),
-                    std::slice::from_raw_parts_mut(dist_ptr.get().add(t * k), k),
-                    std::slice::from_raw_parts_mut(fresh_ptr.get().add(t * k), k),
-                )
-            };
-            updates[s..e]
+    let n = lists.ids.len() / k;
+    let per = part_size(n);
+    lists
+        .ids
+        .chunks_mut(per * k)
+        .zip(lists.dist.chunks_mut(per * k))
+        .zip(lists.fresh.chunks_mut(per * k))
+        .enumerate()
+        .collect::<Vec<_>>()
+        .into_par_iter()
+        .map(|(c, ((ids, dist), fresh))| {
+            let lo = c * per;
+            let before = ids.to_vec();
+            let mut touched = vec![false; ids.len() / k];
+            for block in blocks {
+                for &(t, j, d) in &block.parts[c] {
+                    let u = t as usize - lo;
+                    let s = u * k;
+                    let (ids, dist, fresh) = (
+                        &mut ids[s..s + k],
+                        &mut dist[s..s + k],
+                        &mut fresh[s..s + k],
+                    );
+                    if insert(ids, dist, fresh, j, d) {
+                        touched[u] = true;
+                    }
+                }
+            }
+            touched
                 .iter()
-                .filter(|&&(_, j, d)| insert(ids, dist, fresh, j, d))
-                .count()
+                .enumerate()
+                .filter(|&(_, &t)| t)
+                .map(|(u, _)| {
+                    let (now, was) = (&ids[u * k..u * k + k], &before[u * k..u * k + k]);
+                    now.iter().filter(|j| !was.contains(j)).count()
+                })
+                .sum::<usize>()
         })
         .sum()
 }
 
-#[derive(Clone, Copy)]
-struct SendPtr<T>(*mut T);
-unsafe impl<T> Send for SendPtr<T> {}
-unsafe impl<T> Sync for SendPtr<T> {}
-impl<T> SendPtr<T> {
-    fn get(self) -> *mut T {
-        self.0
+/// Join candidates per item, at most `cap` of each kind, chosen by a seeded priority per pair.
+struct Candidates {
+    cap: usize,
+    ids: Vec<u32>,
+    len: Vec<u8>,
+}
+
+/// The priority of pair {i, j} in a round: the same from both ends, so a candidate offered twice is
+/// one candidate, and the kept set (the `cap` lowest priorities) does not depend on the offer order.
+#[inline]
+fn priority(seed: u64, round: usize, i: u32, j: u32) -> u64 {
+    let (a, b) = if i < j { (i, j) } else { (j, i) };
+    Rng::new(seed ^ ((round as u64) << 56) ^ ((a as u64) << 32 | b as u64)).next_u64()
+}
+
+/// Offers candidate `j` with priority `pr` to one item's candidate slots; `worst` is the slot of
+/// the highest (priority, id) once the slots are full.
+#[inline]
+fn offer(ids: &mut [u32], prs: &mut [u64], len: &mut u8, worst: &mut u8, j: u32, pr: u64) {
+    let m = *len as usize;
+    let cap = ids.len();
+    if m == cap {
+        let w = *worst as usize;
+        if (pr, j) >= (prs[w], ids[w]) || ids.contains(&j) {
+            return;
+        }
+        ids[w] = j;
+        prs[w] = pr;
+    } else {
+        if ids[..m].contains(&j) {
+            return;
+        }
+        ids[m] = j;
+        prs[m] = pr;
+        *len += 1;
+        if m + 1 < cap {
+            return;
+        }
+    }
+    let mut w = 0;
+    for s in 1..cap {
+        if (prs[s], ids[s]) > (prs[w], ids[w]) {
+            w = s;
+        }
+    }
+    *worst = w as u8;
+}
+
+/// New and old join candidates of every item: its own neighbours and the items that have it as a
+/// neighbour, fresh ones in `new`, the rest in `old`. Fresh neighbours chosen as new candidates stop
+/// being fresh.
+fn candidates(lists: &mut Lists, cap: usize, seed: u64, round: usize) -> (Candidates, Candidates) {
+    let k = lists.k;
+    let n = lists.ids.len() / k;
+    let per = part_size(n);
+    let mut new_c = Candidates {
+        cap,
+        ids: vec![u32::MAX; n * cap],
+        len: vec![0; n],
+    };
+    let mut old_c = Candidates {
+        cap,
+        ids: vec![u32::MAX; n * cap],
+        len: vec![0; n],
+    };
+    {
+        let (ids, fresh) = (&lists.ids, &lists.fresh);
+        let parts: Vec<_> = new_c
+            .ids
+            .chunks_mut(per * cap)
+            .zip(new_c.len.chunks_mut(per))
+            .zip(
+                old_c
+                    .ids
+                    .chunks_mut(per * cap)
+                    .zip(old_c.len.chunks_mut(per)),
+            )
+            .enumerate()
+            .collect();
+        parts
+            .into_par_iter()
+            .for_each(|(c, ((nid, nlen), (oid, olen)))| {
+                let lo = c * per;
+                let hi = lo + nlen.len();
+                let mut npr = vec![0u64; nid.len()];
+                let mut opr = vec![0u64; oid.len()];
+                let mut nworst = vec![0u8; nlen.len()];
+                let mut oworst = vec![0u8; olen.len()];
+                let mut give = |t: usize, j: u32, is_new: bool, pr: u64| {
+                    let (s, u) = ((t - lo) * cap, t - lo);
+                    if is_new {
+                        let (ids, prs) = (&mut nid[s..s + cap], &mut npr[s..s + cap]);
+                        offer(ids, prs, &mut nlen[u], &mut nworst[u], j, pr);
+                    } else {
+                        let (ids, prs) = (&mut oid[s..s + cap], &mut opr[s..s + cap]);
+                        offer(ids, prs, &mut olen[u], &mut oworst[u], j, pr);
+                    }
+                };
+                for i in 0..n {
+                    let mine = i >= lo && i < hi;
+                    for s in i * k..(i + 1) * k {
+                        let j = ids[s];
+                        if j == u32::MAX {
+                            continue;
+                        }
+                        let theirs = (j as usize) >= lo && (j as usize) < hi;
+                        if !mine && !theirs {
+                            continue;
+                        }
+                        let pr = priority(seed, round, i as u32, j);
+                        if mine {
+                            give(i, j, fresh[s], pr);
+                        }
+                        if theirs {
+                            give(j as usize, i as u32, fresh[s], pr);
+                        }
+                    }
+                }
+            });
+    }
+    // Neighbours that go into the join as new candidates are no longer fresh.
+    lists
+        .ids
+        .par_chunks(k)
+        .zip(lists.fresh.par_chunks_mut(k))
+        .enumerate()
+        .for_each(|(i, (ids, fresh))| {
+            let chosen = &new_c.ids[i * cap..i * cap + new_c.len[i] as usize];
+            for (j, f) in ids.iter().zip(fresh.iter_mut()) {
+                if *f && chosen.contains(j) {
+                    *f = false;
+                }
+            }
+        });
+    (new_c, old_c)
+}
+
+impl Candidates {
+    fn of(&self, i: usize) -> &[u32] {
+        &self.ids[i * self.cap..i * self.cap + self.len[i] as usize]
     }
 }
 
-/// Leaves of one random-projection tree: split by the hyperplane halfway between two random items.
-fn rp_leaves(data: &Matrix, leaf_size: usize, rng: &mut Rng) -> Vec<Vec<u32>> {
-    let mut out = Vec::new();
-    let mut stack: Vec<Vec<u32>> = vec![(0..data.rows as u32).collect()];
-    while let Some(items) = stack.pop() {
-        if items.len() <= leaf_size {
-            out.push(items);
-            continue;
-        }
-        let a = items[rng.below(items.len() as u64) as usize] as usize;
-        let mut b = items[rng.below(items.len() as u64) as usize] as usize;
-        for _ in 0..4 {
-            if b != a {
-                break;
-            }
-            b = items[rng.below(items.len() as u64) as usize] as usize;
-        }
-        let (ra, rb) = (data.row(a), data.row(b));
-        let normal: Vec<f32> = ra.iter().zip(rb).map(|(x, y)| x - y).collect();
-        let mid: Vec<f32> = ra.iter().zip(rb).map(|(x, y)| (x + y) / 2.0).collect();
-        let offset = dot(&normal, &mid);
-        let (mut left, mut right) = (Vec::new(), Vec::new());
-        for &i in &items {
-            let s = dot(data.row(i as usize), &normal) - offset;
-            if s < 0.0 || (s == 0.0 && rng.next_u64() & 1 == 0) {
-                left.push(i);
-            } else {
-                right.push(i);
-            }
-        }
-        // Degenerate split (identical items): halve at random instead.
-        if left.is_empty() || right.is_empty() {
-            let mut all = items;
-            let mid = all.len() / 2;
-            right = all.split_off(mid);
-            left = all;
-        }
-        stack.push(left);
-        stack.push(right);
+/// Leaves of one random-projection tree, in tree order: each node splits its items by the
+/// hyperplane halfway between two of them drawn at random. Every node draws from its own generator,
+/// seeded by its parent's, so large subtrees are built in parallel with the same result.
+fn rp_leaves(data: &Matrix, items: Vec<u32>, leaf_size: usize, seed: u64) -> Vec<Vec<u32>> {
+    if items.len() <= leaf_size {
+        return vec![items];
     }
-    out
+    let mut rng = Rng::new(seed);
+    let a = items[rng.below(items.len() as u64) as usize] as usize;
+    let mut b = items[rng.below(items.len() as u64) as usize] as usize;
+    for _ in 0..4 {
+        if b != a {
+            break;
+        }
+        b = items[rng.below(items.len() as u64) as usize] as usize;
+    }
+    let (ra, rb) = (data.row(a), data.row(b));
+    let normal: Vec<f32> = ra.iter().zip(rb).map(|(x, y)| x - y).collect();
+    let mid: Vec<f32> = ra.iter().zip(rb).map(|(x, y)| (x + y) / 2.0).collect();
+    let offset = dot(&normal, &mid);
+    let (mut left, mut right) = (Vec::new(), Vec::new());
+    for &i in &items {
+        let s = dot(data.row(i as usize), &normal) - offset;
+        if s < 0.0 || (s == 0.0 && rng.next_u64() & 1 == 0) {
+            left.push(i);
+        } else {
+            right.push(i);
+        }
+    }
+    // Degenerate split (identical items): halve instead.
+    if left.is_empty() || right.is_empty() {
+        let mut all = items;
+        let mid = all.len() / 2;
+        right = all.split_off(mid);
+        left = all;
+    }
+    let (sl, sr) = (rng.next_u64(), rng.next_u64());
+    let (mut l, r) = if left.len() + right.len() > 8192 {
+        rayon::join(
+            || rp_leaves(data, left, leaf_size, sl),
+            || rp_leaves(data, right, leaf_size, sr),
+        )
+    } else {
+        (
+            rp_leaves(data, left, leaf_size, sl),
+            rp_leaves(data, right, leaf_size, sr),
+        )
+    };
+    l.extend(r);
+    l
+}
+
+/// Updates from all pairs in one leaf: each item's k nearest of the others.
+fn leaf_updates(data: &Matrix, leaf: &[u32], k: usize, u: &mut Sink) {
+    let m = leaf.len();
+    let mut d = vec![0f32; m * m];
+    for x in 0..m {
+        for y in x + 1..m {
+            let v = sq_dist(data.row(leaf[x] as usize), data.row(leaf[y] as usize));
+            d[x * m + y] = v;
+            d[y * m + x] = v;
+        }
+    }
+    let mut row: Vec<(f32, u32)> = Vec::with_capacity(m);
+    for x in 0..m {
+        row.clear();
+        row.extend((0..m).filter(|&y| y != x).map(|y| (d[x * m + y], leaf[y])));
+        let kk = k.min(row.len());
+        if kk > 0 && kk < row.len() {
+            row.select_nth_unstable_by(kk - 1, |a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
+        }
+        for &(dd, j) in &row[..kk] {
+            u.push(leaf[x], j, dd);
+        }
+    }
 }
 
 /// The approximate graph. Distances in the result are the metric's (cosine: 1 − cos; Euclidean: L2).
@@ -236,49 +397,48 @@ pub fn nn_descent(
     let trace = std::env::var_os("VITRINE_NND_TRACE").is_some();
     let clock = std::time::Instant::now();
 
-    // Start: every pair within each leaf of a few random-projection trees.
-    let forests: Vec<Vec<Vec<u32>>> = (0..p.trees)
-        .into_par_iter()
-        .map(|t| {
-            rp_leaves(
-                &data,
-                p.leaf_size,
-                &mut Rng::new(p.seed ^ (0x7ee5 + t as u64 * 0x9E37_79B9)),
-            )
-        })
-        .collect();
+    // Start: every pair within each leaf of a few random-projection trees. The first tree also
+    // gives the working order: items that are neighbours then sit close in memory, so the rows that
+    // the other trees and the local joins read are mostly in cache already.
+    let tree_seed = |t: usize| p.seed ^ (0x7ee5 + t as u64 * 0x9E37_79B9);
+    let first = rp_leaves(&data, (0..n as u32).collect(), p.leaf_size, tree_seed(0));
+    let order: Vec<u32> = first.iter().flatten().copied().collect();
+    let mut place = vec![0u32; n];
+    for (new, &old) in order.iter().enumerate() {
+        place[old as usize] = new as u32;
+    }
+    let data = Matrix {
+        rows: n,
+        cols: data.cols,
+        data: order
+            .iter()
+            .flat_map(|&old| data.row(old as usize).iter().copied())
+            .collect(),
+    };
+    let mut forests: Vec<Vec<Vec<u32>>> = vec![first
+        .into_iter()
+        .map(|leaf| leaf.into_iter().map(|i| place[i as usize]).collect())
+        .collect()];
+    forests.par_extend(
+        (1..p.trees)
+            .into_par_iter()
+            .map(|t| rp_leaves(&data, (0..n as u32).collect(), p.leaf_size, tree_seed(t))),
+    );
     if trace {
         eprintln!("{:.2}s trees built", clock.elapsed().as_secs_f64());
     }
     for (t, leaves) in forests.iter().enumerate() {
-        let updates: Vec<(u32, u32, f32)> = leaves
-            .par_iter()
-            .flat_map_iter(|leaf| {
-                // All pairs in the leaf, but only each item's k nearest of them become updates.
-                let m = leaf.len();
-                let mut d = vec![0f32; m * m];
-                for x in 0..m {
-                    for y in x + 1..m {
-                        let v = sq_dist(data.row(leaf[x] as usize), data.row(leaf[y] as usize));
-                        d[x * m + y] = v;
-                        d[y * m + x] = v;
-                    }
-                }
-                let mut u = Vec::with_capacity(m * k);
-                let mut row: Vec<(f32, u32)> = Vec::with_capacity(m);
-                for x in 0..m {
-                    row.clear();
-                    row.extend((0..m).filter(|&y| y != x).map(|y| (d[x * m + y], leaf[y])));
-                    let kk = k.min(row.len());
-                    if kk > 0 && kk < row.len() {
-                        row.select_nth_unstable_by(kk - 1, |a, b| a.0.total_cmp(&b.0));
-                    }
-                    u.extend(row[..kk].iter().map(|&(dd, j)| (leaf[x], j, dd)));
+        let blocks: Vec<Sink> = leaves
+            .par_chunks(16)
+            .map(|group| {
+                let mut u = Sink::new(n);
+                for leaf in group {
+                    leaf_updates(&data, leaf, k, &mut u);
                 }
                 u
             })
             .collect();
-        apply(&mut lists, updates);
+        apply(&mut lists, &blocks);
         progress("neighbour trees", t as u64 + 1, p.trees as u64);
     }
     // Items a tiny leaf left short of neighbours get random ones.
@@ -286,113 +446,60 @@ pub fn nn_descent(
         .filter(|&i| lists.ids[i * k + k - 1] == u32::MAX)
         .collect();
     if !short.is_empty() {
-        let updates: Vec<(u32, u32, f32)> = short
-            .par_iter()
-            .flat_map_iter(|&i| {
-                let mut rng =
-                    Rng::new(p.seed ^ 0xfeed ^ (i as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15));
-                (0..2 * k)
-                    .map(|_| rng.below(n as u64) as u32)
-                    .filter(|&j| j as usize != i)
-                    .map(|j| (i as u32, j, sq_dist(data.row(i), data.row(j as usize))))
-                    .collect::<Vec<_>>()
-            })
-            .collect();
-        apply(&mut lists, updates);
+        let mut u = Sink::new(n);
+        for &i in &short {
+            let mut rng =
+                Rng::new(p.seed ^ 0xfeed ^ (i as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15));
+            for _ in 0..2 * k {
+                let j = rng.below(n as u64) as u32;
+                if j as usize != i {
+                    u.push(i as u32, j, sq_dist(data.row(i), data.row(j as usize)));
+                }
+            }
+        }
+        apply(&mut lists, &[u]);
     }
 
     if trace {
         eprintln!("{:.2}s leaves joined", clock.elapsed().as_secs_f64());
     }
-    let sample = ((p.sample_rate * k as f64).ceil() as usize).max(1);
+    let cap = 2 * ((p.sample_rate * k as f64).ceil() as usize).max(1);
     for round in 0..p.max_rounds {
-        // Candidates per item: a sample of its fresh neighbours ("new") and of the rest ("old"),
-        // plus the same drawn from reverse neighbours.
-        // Drawn in parallel per item, then grouped by the item they go to (sorted, so the same
-        // for any number of threads).
-        let mut pairs: Vec<(u32, bool, u32)> = lists
-            .ids
-            .par_chunks(k)
-            .zip(lists.fresh.par_chunks_mut(k))
-            .enumerate()
-            .flat_map_iter(|(i, (ids, fresh))| {
-                let mut rng = Rng::new(
-                    p.seed
-                        ^ ((round as u64) << 40)
-                        ^ (i as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15),
-                );
-                let mut taken_new = 0;
-                let mut out = Vec::with_capacity(2 * k);
-                for s in 0..k {
-                    let j = ids[s];
-                    if j == u32::MAX {
-                        continue;
-                    }
-                    if fresh[s] {
-                        if taken_new < sample && rng.uniform() < (sample as f64 / k as f64).max(0.5)
-                        {
-                            out.push((i as u32, true, j));
-                            out.push((j, true, i as u32));
-                            fresh[s] = false;
-                            taken_new += 1;
-                        }
-                    } else {
-                        out.push((i as u32, false, j));
-                        out.push((j, false, i as u32));
-                    }
-                }
-                out
-            })
-            .collect();
-        pairs.par_sort_unstable();
-        let mut new_c: Vec<Vec<u32>> = vec![Vec::new(); n];
-        let mut old_c: Vec<Vec<u32>> = vec![Vec::new(); n];
-        for &(t, is_new, j) in &pairs {
-            if is_new {
-                new_c[t as usize].push(j);
-            } else {
-                old_c[t as usize].push(j);
-            }
-        }
-        drop(pairs);
-        let cap = 2 * sample;
-        for (lists_c, salt) in [(&mut new_c, 0xabcu64), (&mut old_c, 0xdef)] {
-            lists_c.par_iter_mut().enumerate().for_each(|(i, c)| {
-                let mut rng = Rng::new(p.seed ^ salt ^ ((round as u64) << 36) ^ i as u64);
-                keep_sample(c, cap, &mut rng);
-            });
-        }
+        let (new_c, old_c) = candidates(&mut lists, cap, p.seed, round);
         if trace {
             eprintln!("  candidates at {:.2}s", clock.elapsed().as_secs_f64());
         }
         // Local join: new x new and new x old pairs, kept only if they would enter a list.
         let worst: Vec<f32> = (0..n).map(|i| lists.dist[i * k + k - 1]).collect();
-        let updates: Vec<(u32, u32, f32)> = (0..n)
+        let blocks: Vec<Sink> = (0..n.div_ceil(BLOCK))
             .into_par_iter()
-            .flat_map_iter(|i| {
-                let (nw, od) = (&new_c[i], &old_c[i]);
-                let mut u = Vec::new();
-                for (x, &a) in nw.iter().enumerate() {
-                    let ra = data.row(a as usize);
-                    for &b in nw[x + 1..].iter().chain(od.iter()) {
-                        if a == b {
-                            continue;
-                        }
-                        let d = sq_dist(ra, data.row(b as usize));
-                        if d < worst[a as usize] {
-                            u.push((a, b, d));
-                        }
-                        if d < worst[b as usize] {
-                            u.push((b, a, d));
+            .map(|b| {
+                let mut u = Sink::new(n);
+                for i in b * BLOCK..((b + 1) * BLOCK).min(n) {
+                    let (nw, od) = (new_c.of(i), old_c.of(i));
+                    for (x, &a) in nw.iter().enumerate() {
+                        let ra = data.row(a as usize);
+                        for &b in nw[x + 1..].iter().chain(od.iter()) {
+                            if a == b {
+                                continue;
+                            }
+                            let d = sq_dist(ra, data.row(b as usize));
+                            if d <= worst[a as usize] {
+                                u.push(a, b, d);
+                            }
+                            if d <= worst[b as usize] {
+                                u.push(b, a, d);
+                            }
                         }
                     }
                 }
                 u
             })
             .collect();
-        let n_updates = updates.len();
+        drop((new_c, old_c));
+        let n_updates: usize = blocks.iter().map(Sink::len).sum();
         let joined = clock.elapsed().as_secs_f64();
-        let changed = apply(&mut lists, updates);
+        let changed = apply(&mut lists, &blocks);
         if trace {
             eprintln!("  join done at {joined:.2}s with {n_updates} updates");
             eprintln!(
@@ -406,26 +513,31 @@ pub fn nn_descent(
         }
     }
 
-    let distances = lists
-        .dist
-        .iter()
-        .map(|&d| {
-            if !d.is_finite() {
-                f32::INFINITY
-            } else {
-                match metric {
+    // Back to the caller's item order, each list sorted by (distance, id) in that order.
+    let mut ids = vec![u32::MAX; n * k];
+    let mut distances = vec![f32::INFINITY; n * k];
+    ids.par_chunks_mut(k)
+        .zip(distances.par_chunks_mut(k))
+        .enumerate()
+        .for_each(|(old, (ids, dists))| {
+            let s = place[old] as usize * k;
+            let mut row: Vec<(f32, u32)> = lists.dist[s..s + k]
+                .iter()
+                .zip(&lists.ids[s..s + k])
+                .filter(|&(_, &j)| j != u32::MAX)
+                .map(|(&d, &j)| (d, order[j as usize]))
+                .collect();
+            row.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
+            for (slot, (d, j)) in row.into_iter().enumerate() {
+                ids[slot] = j;
+                dists[slot] = match metric {
                     // Unit vectors: |a − b|² = 2 − 2 cos.
                     Metric::Cosine => (d / 2.0).max(0.0),
                     Metric::Euclidean => d.max(0.0).sqrt(),
-                }
+                };
             }
-        })
-        .collect();
-    KnnGraph {
-        k,
-        ids: lists.ids,
-        distances,
-    }
+        });
+    KnnGraph { k, ids, distances }
 }
 
 /// Share of the exact neighbours that the approximate graph found, on the sampled query items.

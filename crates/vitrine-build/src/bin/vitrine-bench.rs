@@ -1,6 +1,11 @@
 //! `vitrine-bench`: times one stage of the map engine on a .npy file, for `./build.sh bench-map`.
 //! Prints one JSON line with the timing; writes the result as .npy for the reference comparison.
 
+// The map engine allocates and frees large buffers every round; this allocator keeps them
+// mapped instead of handing them back to the system and faulting them in again.
+#[global_allocator]
+static ALLOCATOR: mimalloc::MiMalloc = mimalloc::MiMalloc;
+
 use std::path::PathBuf;
 use std::time::Instant;
 
