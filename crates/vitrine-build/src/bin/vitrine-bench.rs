@@ -48,10 +48,12 @@ fn main() -> anyhow::Result<()> {
         "map" => {
             let t2 = Instant::now();
             let fuzzy = vitrine_build::umap::fuzzy_graph(&g);
+            let fuzzy_s = t2.elapsed().as_secs_f64();
             let start = vitrine_build::umap::pca_start(
                 &vitrine_build::knn::prepare(&x, metric),
                 &mut vitrine_build::rng::Rng::new(42),
             );
+            let start_s = t2.elapsed().as_secs_f64() - fuzzy_s;
             let parallel = args.get(6).map(String::as_str) != Some("sequential");
             let params = vitrine_build::umap::UmapParams {
                 parallel,
@@ -62,7 +64,7 @@ fn main() -> anyhow::Result<()> {
             let flat: Vec<f32> = pos.iter().flatten().copied().collect();
             write_npy_f32(&out, x.rows, 2, &flat)?;
             println!(
-                "{{\"stage\":\"map\",\"read_s\":{read_s:.3},\"knn_s\":{knn_s:.3},\"layout_s\":{layout_s:.3},\"total_s\":{:.3}}}",
+                "{{\"stage\":\"map\",\"read_s\":{read_s:.3},\"knn_s\":{knn_s:.3},\"fuzzy_s\":{fuzzy_s:.3},\"start_s\":{start_s:.3},\"layout_s\":{layout_s:.3},\"total_s\":{:.3}}}",
                 knn_s + layout_s
             );
         }
