@@ -17,6 +17,7 @@ pub mod quality;
 pub mod read;
 pub mod rng;
 pub mod serve;
+pub mod spectral;
 pub mod thumbs;
 pub mod timeline;
 pub mod umap;

@@ -29,7 +29,7 @@ impl NnDescentParams {
     pub fn new(k: usize, seed: u64) -> NnDescentParams {
         NnDescentParams {
             k,
-            trees: 6,
+            trees: 4,
             leaf_size: 40,
             max_rounds: 12,
             delta: 0.001,

@@ -615,7 +615,17 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
     let fuzzy = umap::fuzzy_graph(&graph);
     let mut rng = Rng::new(opts.seed);
     let start_vectors = knn::prepare(&vectors, opts.metric);
-    let start = umap::pca_start(&start_vectors, &mut rng);
+    let pca = umap::pca_start(&start_vectors, &mut rng);
+    drop(start_vectors);
+    let (start, start_report) = crate::spectral::spectral_start(&fuzzy, &pca, opts.seed);
+    drop(pca);
+    log(&format!(
+        "map start: {} ({} connected part(s) of the graph, {} laid out spectrally, residual {:.1e})",
+        start_report.method,
+        start_report.parts,
+        start_report.spectral_parts,
+        start_report.max_residual
+    ));
     let order_start: Vec<[f32; 1]> = start.iter().map(|p| [p[0]]).collect();
     let pb = bar(opts.quiet, 1, "layout");
     let pos = umap::layout(&fuzzy, start, &params, &|e, total| {
@@ -732,6 +742,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         (lattice, lattice_pos, lattice_quality),
         clusters,
         &params,
+        &start_report,
         &mut stages,
     );
     match result {
@@ -812,6 +823,7 @@ fn write_atlas(
     ),
     clusters: Vec<u32>,
     umap_params: &UmapParams,
+    start: &crate::spectral::StartReport,
     stages: &mut Stages,
 ) -> Result<BuildReport> {
     let n = vectors.rows;
@@ -1139,7 +1151,10 @@ fn write_atlas(
         "epochs".into(),
         json!(umap::epochs_for(n, umap_params.epochs)),
     );
-    parameters.insert("start".into(), json!("pca"));
+    parameters.insert("start".into(), json!(start.method));
+    parameters.insert("start_graph_parts".into(), json!(start.parts));
+    parameters.insert("start_spectral_parts".into(), json!(start.spectral_parts));
+    parameters.insert("start_residual".into(), json!(start.max_residual));
     parameters.insert(
         "layout_optimiser".into(),
         json!(if umap_params.parallel {

@@ -49,10 +49,12 @@ fn main() -> anyhow::Result<()> {
             let t2 = Instant::now();
             let fuzzy = vitrine_build::umap::fuzzy_graph(&g);
             let fuzzy_s = t2.elapsed().as_secs_f64();
-            let start = vitrine_build::umap::pca_start(
+            let pca = vitrine_build::umap::pca_start(
                 &vitrine_build::knn::prepare(&x, metric),
                 &mut vitrine_build::rng::Rng::new(42),
             );
+            let (start, report) = vitrine_build::spectral::spectral_start(&fuzzy, &pca, 42);
+            eprintln!("start: {report:?}");
             let start_s = t2.elapsed().as_secs_f64() - fuzzy_s;
             let parallel = args.get(6).map(String::as_str) != Some("sequential");
             let params = vitrine_build::umap::UmapParams {
