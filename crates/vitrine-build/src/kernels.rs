@@ -16,62 +16,68 @@ fn reduce(acc: &[f32; LANES]) -> f32 {
     ((s[0] + s[4]) + (s[2] + s[6])) + ((s[1] + s[5]) + (s[3] + s[7]))
 }
 
+/// The sum over the rows of `term(x, y)`, in 32 running sums (see the module note).
 #[inline(always)]
+fn sum_any(a: &[f32], b: &[f32], term: impl Fn(f32, f32) -> f32) -> f32 {
+    debug_assert_eq!(a.len(), b.len());
+    let mut acc = [0f32; LANES];
+    let (ca, cb) = (a.chunks_exact(LANES), b.chunks_exact(LANES));
+    let (ta, tb) = (ca.remainder(), cb.remainder());
+    for (x, y) in ca.zip(cb) {
+        for l in 0..LANES {
+            acc[l] += term(x[l], y[l]);
+        }
+    }
+    let mut tail = 0f32;
+    for (&x, &y) in ta.iter().zip(tb) {
+        tail += term(x, y);
+    }
+    reduce(&acc) + tail
+}
+
+#[inline(always)]
+fn sq_term(x: f32, y: f32) -> f32 {
+    let t = x - y;
+    t * t
+}
+
+#[inline(always)]
+fn dot_term(x: f32, y: f32) -> f32 {
+    x * y
+}
+
 fn sq_dist_any(a: &[f32], b: &[f32]) -> f32 {
-    debug_assert_eq!(a.len(), b.len());
-    let mut acc = [0f32; LANES];
-    let (ca, cb) = (a.chunks_exact(LANES), b.chunks_exact(LANES));
-    let (ta, tb) = (ca.remainder(), cb.remainder());
-    for (x, y) in ca.zip(cb) {
-        for l in 0..LANES {
-            let t = x[l] - y[l];
-            acc[l] += t * t;
-        }
-    }
-    let mut tail = 0f32;
-    for (x, y) in ta.iter().zip(tb) {
-        let t = x - y;
-        tail += t * t;
-    }
-    reduce(&acc) + tail
+    sum_any(a, b, sq_term)
 }
 
-#[inline(always)]
 fn dot_any(a: &[f32], b: &[f32]) -> f32 {
-    debug_assert_eq!(a.len(), b.len());
-    let mut acc = [0f32; LANES];
-    let (ca, cb) = (a.chunks_exact(LANES), b.chunks_exact(LANES));
-    let (ta, tb) = (ca.remainder(), cb.remainder());
-    for (x, y) in ca.zip(cb) {
-        for l in 0..LANES {
-            acc[l] += x[l] * y[l];
-        }
-    }
-    let mut tail = 0f32;
-    for (x, y) in ta.iter().zip(tb) {
-        tail += x * y;
-    }
-    reduce(&acc) + tail
+    sum_any(a, b, dot_term)
 }
 
-/// The AVX2 kernels hold the 32 running sums in four 8-lane registers, lane for lane the same
-/// sums as [`sq_dist_any`] and [`dot_any`].
+/// [`sum_any`] with the 32 sums in four 8-lane AVX2 registers, lane for lane the same sums;
+/// `wide` is `term` on eight lanes at once.
 #[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
-fn sq_dist_avx2(a: &[f32], b: &[f32]) -> f32 {
+#[inline(always)]
+unsafe fn sum_avx2(
+    a: &[f32],
+    b: &[f32],
+    wide: impl Fn(std::arch::x86_64::__m256, std::arch::x86_64::__m256) -> std::arch::x86_64::__m256,
+    term: impl Fn(f32, f32) -> f32,
+) -> f32 {
     use std::arch::x86_64::*;
     let n = a.len().min(b.len());
     let chunks = n / LANES;
     let mut lanes = [0f32; LANES];
-    // SAFETY: every load reads 8 floats inside the first `chunks * LANES` of both slices.
+    // SAFETY: the caller has checked for AVX2; every load reads 8 floats inside the first
+    // `chunks * LANES` of both slices.
     unsafe {
         let (pa, pb) = (a.as_ptr(), b.as_ptr());
         let mut acc = [_mm256_setzero_ps(); 4];
         for c in 0..chunks {
             for r in 0..4 {
                 let o = c * LANES + 8 * r;
-                let t = _mm256_sub_ps(_mm256_loadu_ps(pa.add(o)), _mm256_loadu_ps(pb.add(o)));
-                acc[r] = _mm256_add_ps(acc[r], _mm256_mul_ps(t, t));
+                let t = wide(_mm256_loadu_ps(pa.add(o)), _mm256_loadu_ps(pb.add(o)));
+                acc[r] = _mm256_add_ps(acc[r], t);
             }
         }
         for r in 0..4 {
@@ -79,40 +85,36 @@ fn sq_dist_avx2(a: &[f32], b: &[f32]) -> f32 {
         }
     }
     let mut tail = 0f32;
-    for (x, y) in a[chunks * LANES..n].iter().zip(&b[chunks * LANES..n]) {
-        let t = x - y;
-        tail += t * t;
+    for (&x, &y) in a[chunks * LANES..n].iter().zip(&b[chunks * LANES..n]) {
+        tail += term(x, y);
     }
     reduce(&lanes) + tail
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+fn sq_dist_avx2(a: &[f32], b: &[f32]) -> f32 {
+    use std::arch::x86_64::*;
+    // SAFETY: this function only runs where AVX2 is present.
+    unsafe {
+        sum_avx2(
+            a,
+            b,
+            |x, y| {
+                let t = _mm256_sub_ps(x, y);
+                _mm256_mul_ps(t, t)
+            },
+            sq_term,
+        )
+    }
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2")]
 fn dot_avx2(a: &[f32], b: &[f32]) -> f32 {
     use std::arch::x86_64::*;
-    let n = a.len().min(b.len());
-    let chunks = n / LANES;
-    let mut lanes = [0f32; LANES];
-    // SAFETY: every load reads 8 floats inside the first `chunks * LANES` of both slices.
-    unsafe {
-        let (pa, pb) = (a.as_ptr(), b.as_ptr());
-        let mut acc = [_mm256_setzero_ps(); 4];
-        for c in 0..chunks {
-            for r in 0..4 {
-                let o = c * LANES + 8 * r;
-                let p = _mm256_mul_ps(_mm256_loadu_ps(pa.add(o)), _mm256_loadu_ps(pb.add(o)));
-                acc[r] = _mm256_add_ps(acc[r], p);
-            }
-        }
-        for r in 0..4 {
-            _mm256_storeu_ps(lanes.as_mut_ptr().add(8 * r), acc[r]);
-        }
-    }
-    let mut tail = 0f32;
-    for (x, y) in a[chunks * LANES..n].iter().zip(&b[chunks * LANES..n]) {
-        tail += x * y;
-    }
-    reduce(&lanes) + tail
+    // SAFETY: this function only runs where AVX2 is present.
+    unsafe { sum_avx2(a, b, |x, y| _mm256_mul_ps(x, y), dot_term) }
 }
 
 /// Squared Euclidean distance.
