@@ -322,14 +322,18 @@ fn fast_log2(x: f32) -> f32 {
 /// least-squares polynomial (degree 4, fitted on Chebyshev points) for 2^f on [0, 1).
 #[inline]
 fn fast_exp2(y: f32) -> f32 {
-    let y = y.clamp(-126.0, 126.0);
-    // floor without a library call (baseline x86-64 has no rounding instruction); y is clamped.
-    let t = y as i32 as f32;
+    // Clamped so that the exponent stays normal (a NaN becomes -126).
+    let y = if y > -126.0 { y } else { -126.0 };
+    let y = if y < 126.0 { y } else { 126.0 };
+    // floor without a library call (baseline x86-64 has no rounding instruction).
+    // SAFETY: y is finite and within ±126, so the conversion is exact truncation.
+    let t = unsafe { y.to_int_unchecked::<i32>() } as f32;
     let i = if t > y { t - 1.0 } else { t };
     let f = y - i;
     let p =
         1.000_003_6 + f * (0.692_969_6 + f * (0.241_621_2 + f * (0.051_717_8 + f * 0.013_684_0)));
-    f32::from_bits(((i as i32 + 127) as u32) << 23) * p
+    // SAFETY: i is a whole number within ±126.
+    f32::from_bits(((unsafe { i.to_int_unchecked::<i32>() } + 127) as u32) << 23) * p
 }
 
 /// x^p for x > 0: the layout's one power per update, at a fraction of the cost of `powf`.
@@ -541,46 +545,28 @@ fn layout_in_order<const D: usize>(
                         let s = slot - base;
                         let tail = tails[slot] as usize;
                         let t = prev[tail];
-                        let mut delta = [0f32; D];
-                        for c in 0..D {
-                            delta[c] = p[c] - t[c];
-                        }
-                        let d2: f32 = delta.iter().map(|x| x * x).sum();
                         // The pull along the edge and the pushes of its negative samples are all
                         // taken from the same place and applied together: independent of each
                         // other, they run side by side in the processor.
-                        let mut push = [0f32; D];
-                        if d2 > 0.0 {
-                            let coeff = attraction(d2, a, b);
-                            for c in 0..D {
-                                push[c] = clip(coeff * delta[c]);
-                            }
-                        }
                         next[s] += eps[slot];
                         let every_neg = eps[slot] / neg;
                         let negs = ((e_f - next_neg[s]) / every_neg).max(0.0) as usize;
+                        // Lane 0 of the first group of four is the pull along the edge, the other
+                        // lanes the negative samples: one vectorised power serves four updates.
+                        let mut push = [0f32; D];
+                        let mut lanes = Lanes::<D>::default();
+                        lanes.add(t, true);
                         for _ in 0..negs {
                             let o = rng.below(n as u64) as usize;
                             if o == v {
                                 continue;
                             }
-                            let q = prev[o];
-                            let mut delta = [0f32; D];
-                            for c in 0..D {
-                                delta[c] = p[c] - q[c];
+                            if lanes.len == 4 {
+                                lanes.apply(p, a, b, &mut push);
                             }
-                            let d2: f32 = delta.iter().map(|x| x * x).sum();
-                            if d2 > 0.0 {
-                                let coeff = repulsion(d2, a, b);
-                                for c in 0..D {
-                                    push[c] += clip(coeff * delta[c]);
-                                }
-                            } else {
-                                for c in push.iter_mut() {
-                                    *c += 4.0;
-                                }
-                            }
+                            lanes.add(prev[o], false);
                         }
+                        lanes.apply(p, a, b, &mut push);
                         for c in 0..D {
                             p[c] += push[c] * alpha;
                         }
@@ -595,6 +581,151 @@ fn layout_in_order<const D: usize>(
     }
     progress(epochs, epochs);
     finite(pos)
+}
+
+/// Up to four pending updates of one vertex (the pull along an edge and negative samples), whose
+/// coefficients are computed side by side. Each lane gives exactly the value of the scalar formula,
+/// and the pushes are summed in the order they were added.
+struct Lanes<const D: usize> {
+    at: [[f32; D]; 4],
+    pull: [bool; 4],
+    len: usize,
+}
+
+impl<const D: usize> Default for Lanes<D> {
+    fn default() -> Self {
+        Lanes {
+            at: [[0.0; D]; 4],
+            pull: [false; 4],
+            len: 0,
+        }
+    }
+}
+
+impl<const D: usize> Lanes<D> {
+    #[inline]
+    fn add(&mut self, q: [f32; D], pull: bool) {
+        self.at[self.len] = q;
+        self.pull[self.len] = pull;
+        self.len += 1;
+    }
+
+    #[inline]
+    fn apply(&mut self, p: &[f32; D], a: f32, b: f32, push: &mut [f32; D]) {
+        let mut delta = [[0f32; 4]; D];
+        let mut d2 = [0f32; 4];
+        for l in 0..4 {
+            for c in 0..D {
+                delta[c][l] = p[c] - self.at[l][c];
+                d2[l] += delta[c][l] * delta[c][l];
+            }
+        }
+        let coeff = coefficients4(d2, self.pull, a, b);
+        for l in 0..self.len {
+            for c in 0..D {
+                push[c] += if d2[l] > 0.0 {
+                    clip(coeff[l] * delta[c][l])
+                } else if self.pull[l] {
+                    0.0
+                } else {
+                    4.0
+                };
+            }
+        }
+        self.len = 0;
+    }
+}
+
+/// The gradient coefficients of four updates at squared distances `d2`: the attraction
+/// −2ab·d2^b / (d2·(a·d2^b + 1)) where `pull`, else the repulsion 2b / ((0.001 + d2)·(a·d2^b + 1)),
+/// operand by operand as in [`attraction`] and [`repulsion`] (lanes with d2 <= 0 are not used).
+#[inline]
+fn coefficients4(d2: [f32; 4], pull: [bool; 4], a: f32, b: f32) -> [f32; 4] {
+    #[cfg(target_arch = "x86_64")]
+    {
+        // SSE2 is part of every x86-64 processor; each operation rounds as its scalar twin.
+        coefficients4_sse2(d2, pull, a, b)
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    {
+        coefficients4_any(d2, pull, a, b)
+    }
+}
+
+#[cfg_attr(target_arch = "x86_64", allow(dead_code))]
+fn coefficients4_any(d2: [f32; 4], pull: [bool; 4], a: f32, b: f32) -> [f32; 4] {
+    let mut coeff = [0f32; 4];
+    for l in 0..4 {
+        // Unused lanes hold a harmless 1 so that the power stays finite.
+        let pw = fast_pow(if d2[l] > 0.0 { d2[l] } else { 1.0 }, b);
+        let num = if pull[l] { -2.0 * a * b * pw } else { 2.0 * b };
+        let den = if pull[l] { d2[l] } else { 0.001 + d2[l] } * (a * pw + 1.0);
+        coeff[l] = num / den;
+    }
+    coeff
+}
+
+#[cfg(target_arch = "x86_64")]
+#[inline]
+fn coefficients4_sse2(d2: [f32; 4], pull: [bool; 4], a: f32, b: f32) -> [f32; 4] {
+    use std::arch::x86_64::*;
+    // SAFETY: SSE2 is always present on x86-64; loads and stores go through arrays of four.
+    unsafe {
+        let f = |x: f32| _mm_set1_ps(x);
+        let i = |x: i32| _mm_set1_epi32(x);
+        let x = _mm_loadu_ps(d2.as_ptr());
+        let positive = _mm_cmpgt_ps(x, _mm_setzero_ps());
+        let x = _mm_or_ps(_mm_and_ps(positive, x), _mm_andnot_ps(positive, f(1.0)));
+        // fast_log2
+        let bits = _mm_castps_si128(x);
+        let high = _mm_and_si128(_mm_srli_epi32(bits, 22), i(1));
+        let e = _mm_add_epi32(
+            _mm_sub_epi32(_mm_and_si128(_mm_srli_epi32(bits, 23), i(0xFF)), i(127)),
+            high,
+        );
+        let m = _mm_or_si128(
+            _mm_and_si128(bits, i(0x007F_FFFF)),
+            _mm_slli_epi32(_mm_sub_epi32(i(127), high), 23),
+        );
+        let u = _mm_sub_ps(_mm_castsi128_ps(m), f(1.0));
+        let mut p = _mm_mul_ps(u, f(-0.152_777_6));
+        p = _mm_mul_ps(u, _mm_add_ps(f(0.295_481_8), p));
+        p = _mm_mul_ps(u, _mm_add_ps(f(-0.369_516_1), p));
+        p = _mm_mul_ps(u, _mm_add_ps(f(0.481_222_7), p));
+        p = _mm_mul_ps(u, _mm_add_ps(f(-0.721_170_3), p));
+        p = _mm_add_ps(f(1.442_691_6), p);
+        let log2 = _mm_add_ps(_mm_cvtepi32_ps(e), _mm_mul_ps(u, p));
+        // fast_exp2 of b·log2
+        let y = _mm_mul_ps(f(b), log2);
+        let y = _mm_min_ps(_mm_max_ps(y, f(-126.0)), f(126.0));
+        let t = _mm_cvtepi32_ps(_mm_cvttps_epi32(y));
+        let whole = _mm_sub_ps(t, _mm_and_ps(_mm_cmpgt_ps(t, y), f(1.0)));
+        let fr = _mm_sub_ps(y, whole);
+        let mut q = _mm_mul_ps(fr, f(0.013_684_0));
+        q = _mm_mul_ps(fr, _mm_add_ps(f(0.051_717_8), q));
+        q = _mm_mul_ps(fr, _mm_add_ps(f(0.241_621_2), q));
+        q = _mm_mul_ps(fr, _mm_add_ps(f(0.692_969_6), q));
+        q = _mm_add_ps(f(1.000_003_6), q);
+        let scale = _mm_castsi128_ps(_mm_slli_epi32(
+            _mm_add_epi32(_mm_cvttps_epi32(whole), i(127)),
+            23,
+        ));
+        let pw = _mm_mul_ps(scale, q);
+        // coefficients
+        let lanes: [i32; 4] = pull.map(|p| if p { -1 } else { 0 });
+        let mask = _mm_castsi128_ps(_mm_loadu_si128(lanes.as_ptr() as *const __m128i));
+        let sel =
+            |yes: __m128, no: __m128| _mm_or_ps(_mm_and_ps(mask, yes), _mm_andnot_ps(mask, no));
+        let num = sel(_mm_mul_ps(f(-2.0 * a * b), pw), f(2.0 * b));
+        let raw = _mm_loadu_ps(d2.as_ptr());
+        let den = _mm_mul_ps(
+            sel(raw, _mm_add_ps(f(0.001), raw)),
+            _mm_add_ps(_mm_mul_ps(f(a), pw), f(1.0)),
+        );
+        let mut out = [0f32; 4];
+        _mm_storeu_ps(out.as_mut_ptr(), _mm_div_ps(num, den));
+        out
+    }
 }
 
 /// Cuts `v` at the given boundaries (first 0 or more, last = len) into mutable pieces.
@@ -709,5 +840,44 @@ mod tests {
             }
         }
         assert!(worst < 1e-4, "worst relative error {worst}");
+    }
+
+    #[test]
+    fn four_lane_coefficients_equal_the_scalar_formulas_bit_for_bit() {
+        let (a, b) = fit_ab(0.1, 1.0);
+        let mut rng = Rng::new(7);
+        for round in 0..50_000 {
+            let mut d2 = [0f32; 4];
+            for x in &mut d2 {
+                // Squared distances from 1e-9 to 1e6, with an exact zero now and then.
+                *x = if rng.below(50) == 0 {
+                    0.0
+                } else {
+                    10f32.powf(-9.0 + 15.0 * rng.uniform() as f32)
+                };
+            }
+            let pull = [round % 2 == 0, rng.below(2) == 0, false, rng.below(3) == 0];
+            let four = coefficients4(d2, pull, a, b);
+            for l in 0..4 {
+                if d2[l] > 0.0 {
+                    let one = if pull[l] {
+                        attraction(d2[l], a, b)
+                    } else {
+                        repulsion(d2[l], a, b)
+                    };
+                    assert_eq!(
+                        four[l].to_bits(),
+                        one.to_bits(),
+                        "d2 {} pull {}",
+                        d2[l],
+                        pull[l]
+                    );
+                }
+            }
+            assert_eq!(
+                coefficients4_any(d2, pull, a, b).map(f32::to_bits),
+                four.map(f32::to_bits)
+            );
+        }
     }
 }
