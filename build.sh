@@ -96,7 +96,7 @@ case "${1:-}" in
     echo "[bench] reference libraries into the venv (umap-learn, pynndescent, hnswlib)"
     "$CACHE/venv/bin/python" -c "import umap, pynndescent, hnswlib" 2>/dev/null ||
       "$CACHE/venv/bin/pip" install --progress-bar on umap-learn pynndescent hnswlib
-    cargo build --locked --release -p vitrine-build --bin vitrine-bench
+    cargo build --locked --release -p vitrine-build --bin vitrine-bench --bin vitrine
     shift
     "$CACHE/venv/bin/python" bench/bench_map.py --vitrine-bench "$PWD/target/release/vitrine-bench" "$@" ;;
   atlas) build_viewer; echo "viewer files in target/viewer (vitrine build copies them into each atlas)" ;;
