@@ -383,6 +383,31 @@ fn leaf_updates(data: &Matrix, leaf: &[u32], k: usize, u: &mut Sink) {
     }
 }
 
+/// Puts row `order[i]` at row i, in place (by following the permutation's cycles), so that the
+/// working copy of the vectors exists once.
+fn permute_rows(m: &mut Matrix, order: &[u32]) {
+    let c = m.cols;
+    let mut done = vec![false; m.rows];
+    let mut held = vec![0f32; c];
+    for s in 0..m.rows {
+        if done[s] {
+            continue;
+        }
+        held.copy_from_slice(m.row(s));
+        let mut j = s;
+        loop {
+            done[j] = true;
+            let from = order[j] as usize;
+            if from == s {
+                m.data[j * c..(j + 1) * c].copy_from_slice(&held);
+                break;
+            }
+            m.data.copy_within(from * c..(from + 1) * c, j * c);
+            j = from;
+        }
+    }
+}
+
 /// The approximate graph. Distances in the result are the metric's (cosine: 1 − cos; Euclidean: L2).
 pub fn nn_descent(
     m: &Matrix,
@@ -407,14 +432,9 @@ pub fn nn_descent(
     for (new, &old) in order.iter().enumerate() {
         place[old as usize] = new as u32;
     }
-    let data = Matrix {
-        rows: n,
-        cols: data.cols,
-        data: order
-            .iter()
-            .flat_map(|&old| data.row(old as usize).iter().copied())
-            .collect(),
-    };
+    let mut data = data;
+    permute_rows(&mut data, &order);
+    let data = data;
     let mut forests: Vec<Vec<Vec<u32>>> = vec![first
         .into_iter()
         .map(|leaf| leaf.into_iter().map(|i| place[i as usize]).collect())
@@ -561,16 +581,47 @@ pub fn exact_for(m: &Matrix, metric: Metric, k: usize, sample: &[usize]) -> Vec<
     sample
         .par_iter()
         .map(|&i| {
-            let mut d: Vec<(f32, u32)> = (0..m.rows)
-                .filter(|&j| j != i)
-                .map(|j| (sq_dist(data.row(i), data.row(j)), j as u32))
-                .collect();
-            let kk = k.min(d.len());
-            if kk > 0 && kk < d.len() {
-                d.select_nth_unstable_by(kk - 1, |a, b| a.0.total_cmp(&b.0));
+            // The k best so far, sorted by (distance, id): memory per query stays O(k).
+            let mut best: Vec<(f32, u32)> = Vec::with_capacity(k + 1);
+            if k == 0 {
+                return Vec::new();
             }
-            d.truncate(kk);
-            d.into_iter().map(|(_, j)| j).collect()
+            for j in (0..m.rows).filter(|&j| j != i) {
+                let d = sq_dist(data.row(i), data.row(j));
+                if best.len() == k && d >= best[k - 1].0 {
+                    continue;
+                }
+                let at = best.partition_point(|&(bd, bj)| (bd, bj) < (d, j as u32));
+                best.insert(at, (d, j as u32));
+                best.truncate(k);
+            }
+            best.into_iter().map(|(_, j)| j).collect()
         })
         .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn rows_permuted_in_place_land_where_the_order_says() {
+        let mut rng = Rng::new(3);
+        for n in [1usize, 2, 7, 100] {
+            let mut order: Vec<u32> = (0..n as u32).collect();
+            for i in (1..n).rev() {
+                order.swap(i, rng.below(i as u64 + 1) as usize);
+            }
+            let m = Matrix {
+                rows: n,
+                cols: 3,
+                data: (0..n * 3).map(|x| x as f32).collect(),
+            };
+            let mut p = m.clone();
+            permute_rows(&mut p, &order);
+            for (i, &o) in order.iter().enumerate() {
+                assert_eq!(p.row(i), m.row(o as usize));
+            }
+        }
+    }
 }

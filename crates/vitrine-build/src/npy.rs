@@ -29,12 +29,65 @@ enum Scalar {
     F64,
 }
 
+/// Reads a `.npy` file. The data are converted to f32 as they stream in, a block at a time, so
+/// that memory holds the f32 matrix alone (a float16 file is not first read whole beside it).
 pub fn read_npy(path: &Path) -> Result<Matrix, InputError> {
-    let bytes = std::fs::read(path).map_err(|e| InputError::io(path, e))?;
-    parse_npy(&bytes, path)
+    use std::io::Read;
+    let io = |e| InputError::io(path, e);
+    let mut file = std::fs::File::open(path).map_err(io)?;
+    let len = file.metadata().map_err(io)?.len() as usize;
+    // The fixed part, then the header it announces (at most 4 GiB by the format; far less in practice).
+    let mut head = vec![0u8; len.min(12)];
+    file.read_exact(&mut head).map_err(io)?;
+    let need = header_end(&head).unwrap_or(head.len()).min(len);
+    if need > head.len() {
+        let at = head.len();
+        head.resize(need, 0);
+        file.read_exact(&mut head[at..]).map_err(io)?;
+    }
+    let h = parse_header(&head, path)?;
+    decode(
+        &h,
+        &mut std::io::BufReader::new(file),
+        len - h.data_start,
+        path,
+    )
 }
 
+/// Parses a whole `.npy` file held in memory.
 pub fn parse_npy(bytes: &[u8], path: &Path) -> Result<Matrix, InputError> {
+    let h = parse_header(bytes, path)?;
+    let mut rest = &bytes[h.data_start..];
+    decode(&h, &mut rest, bytes.len() - h.data_start, path)
+}
+
+/// Where the header ends, from the fixed part (None when the fixed part is cut short or foreign).
+fn header_end(b: &[u8]) -> Option<usize> {
+    if b.len() < 10 || &b[..6] != b"\x93NUMPY" {
+        return None;
+    }
+    match b[6] {
+        1 => Some(10 + u16::from_le_bytes([b[8], b[9]]) as usize),
+        2 | 3 if b.len() >= 12 => {
+            Some(12 + u32::from_le_bytes([b[8], b[9], b[10], b[11]]) as usize)
+        }
+        _ => None,
+    }
+}
+
+/// What the header says.
+struct Header {
+    data_start: usize,
+    rows: usize,
+    cols: usize,
+    scalar: Scalar,
+    little: bool,
+    fortran: bool,
+}
+
+/// Reads the header from the start of the file (`bytes` holds at least the whole header when
+/// the file has one).
+fn parse_header(bytes: &[u8], path: &Path) -> Result<Header, InputError> {
     let bad = |reason: String| InputError::Vectors {
         file: path.display().to_string(),
         reason,
@@ -115,25 +168,46 @@ pub fn parse_npy(bytes: &[u8], path: &Path) -> Result<Matrix, InputError> {
     if cols == 0 {
         return Err(bad("the vectors have zero dimensions".into()));
     }
+    Ok(Header {
+        data_start,
+        rows,
+        cols,
+        scalar,
+        little,
+        fortran,
+    })
+}
+
+/// Converts the data that follow the header, `available` bytes of them, into a row-major f32 matrix.
+fn decode(
+    h: &Header,
+    src: &mut dyn std::io::Read,
+    available: usize,
+    path: &Path,
+) -> Result<Matrix, InputError> {
+    let bad = |reason: String| InputError::Vectors {
+        file: path.display().to_string(),
+        reason,
+    };
+    let (rows, cols, scalar, little, fortran) = (h.rows, h.cols, h.scalar, h.little, h.fortran);
     let size = match scalar {
         Scalar::F16 => 2,
         Scalar::F32 => 4,
         Scalar::F64 => 8,
     };
-    let want = rows
+    let count = rows
         .checked_mul(cols)
-        .and_then(|n| n.checked_mul(size))
+        .filter(|n| n.checked_mul(size).is_some())
         .ok_or_else(|| bad("the shape is too large".into()))?;
-    let data = &bytes[data_start..];
-    if data.len() < want {
+    let want = count * size;
+    if available < want {
         let whole_rows = if fortran {
             0
         } else {
-            data.len() / (cols * size)
+            available / (cols * size)
         };
         return Err(bad(format!(
-            "the file is truncated: the header declares {rows} x {cols} values ({want} bytes) but only {} bytes follow; {}",
-            data.len(),
+            "the file is truncated: the header declares {rows} x {cols} values ({want} bytes) but only {available} bytes follow; {}",
             if fortran {
                 "in Fortran order no row is complete".to_string()
             } else {
@@ -141,8 +215,7 @@ pub fn parse_npy(bytes: &[u8], path: &Path) -> Result<Matrix, InputError> {
             }
         )));
     }
-    let read = |k: usize| -> f32 {
-        let b = &data[k * size..(k + 1) * size];
+    let read = |b: &[u8]| -> f32 {
         match (scalar, little) {
             (Scalar::F16, true) => half::f16::from_le_bytes([b[0], b[1]]).to_f32(),
             (Scalar::F16, false) => half::f16::from_be_bytes([b[0], b[1]]).to_f32(),
@@ -152,11 +225,32 @@ pub fn parse_npy(bytes: &[u8], path: &Path) -> Result<Matrix, InputError> {
             (Scalar::F64, false) => f64::from_be_bytes(b.try_into().unwrap()) as f32,
         }
     };
-    let mut out = vec![0f32; rows * cols];
-    for r in 0..rows {
-        for c in 0..cols {
-            let k = if fortran { c * rows + r } else { r * cols + c };
-            out[r * cols + c] = read(k);
+    let mut out = vec![0f32; count];
+    if cfg!(target_endian = "little") && scalar == Scalar::F32 && little && !fortran {
+        // The file's bytes are the matrix's bytes.
+        src.read_exact(bytemuck::cast_slice_mut(&mut out))
+            .map_err(|e| InputError::io(path, e))?;
+        return Ok(Matrix {
+            rows,
+            cols,
+            data: out,
+        });
+    }
+    // Blocks of whole values; element k of the file goes to its row-major place.
+    let mut block = vec![0u8; (1 << 20) / size * size];
+    let mut k = 0usize;
+    while k < count {
+        let take = ((count - k) * size).min(block.len());
+        src.read_exact(&mut block[..take])
+            .map_err(|e| InputError::io(path, e))?;
+        for b in block[..take].chunks_exact(size) {
+            let at = if fortran {
+                (k % rows) * cols + k / rows
+            } else {
+                k
+            };
+            out[at] = read(b);
+            k += 1;
         }
     }
     Ok(Matrix {
@@ -166,7 +260,6 @@ pub fn parse_npy(bytes: &[u8], path: &Path) -> Result<Matrix, InputError> {
     })
 }
 
-/// The text of a key's value in the header's Python dict literal.
 fn dict_value<'a>(header: &'a str, key: &str) -> Option<&'a str> {
     let pos = header
         .find(&format!("'{key}'"))
