@@ -12,6 +12,7 @@ pub mod knn;
 pub mod lattice;
 pub mod nndescent;
 pub mod npy;
+pub mod pca;
 pub mod pipeline;
 pub mod quality;
 pub mod read;

@@ -93,6 +93,10 @@ enum Command {
         /// Neighbours per item in the neighbour graph.
         #[arg(long, default_value_t = 15)]
         k: usize,
+        /// Reduce the vectors to this many principal components (randomized PCA) before the
+        /// neighbour graph; the explained variance is recorded in the atlas. Off by default.
+        #[arg(long, value_name = "DIMS")]
+        pca: Option<usize>,
         /// Seed for every random choice: the same seed gives the same atlas.
         #[arg(long, default_value_t = 42)]
         seed: u64,
@@ -159,6 +163,7 @@ fn run() -> anyhow::Result<()> {
             neighbours,
             optimiser,
             k,
+            pca,
             seed,
             min_dist,
             epochs,
@@ -186,6 +191,10 @@ fn run() -> anyhow::Result<()> {
                 MetricArg::Euclidean => Metric::Euclidean,
             };
             opts.k = k;
+            if pca == Some(0) {
+                anyhow::bail!("--pca must be at least 1 (or left out for no reduction)");
+            }
+            opts.pca = pca;
             opts.optimiser = match optimiser {
                 OptimiserArg::Auto => vitrine_build::pipeline::Optimiser::Auto,
                 OptimiserArg::Sequential => vitrine_build::pipeline::Optimiser::Sequential,

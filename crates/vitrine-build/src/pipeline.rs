@@ -45,6 +45,15 @@ pub enum Optimiser {
 
 /// Collections up to this size get the exact neighbour graph when the search is `auto`.
 pub const EXACT_UP_TO: usize = 20_000;
+/// Items in the sample on which trustworthiness and continuity are measured.
+pub const QUALITY_SAMPLE: usize = 2000;
+
+/// What was done to the vectors before the neighbour graph.
+pub struct Reduction {
+    pub input_dimensions: usize,
+    pub pca: Option<crate::pca::Pca>,
+    pub notes: Vec<String>,
+}
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum NeighbourSearch {
@@ -68,6 +77,8 @@ pub struct BuildOptions {
     pub neighbours: NeighbourSearch,
     pub optimiser: Optimiser,
     pub k: usize,
+    /// Principal components to keep before the neighbour graph (None: the vectors as given).
+    pub pca: Option<usize>,
     pub seed: u64,
     pub min_dist: f32,
     pub epochs: Option<usize>,
@@ -94,6 +105,7 @@ impl BuildOptions {
             neighbours: NeighbourSearch::Auto,
             optimiser: Optimiser::Auto,
             k: 15,
+            pca: None,
             seed: 42,
             min_dist: 0.1,
             epochs: None,
@@ -566,6 +578,63 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         None => None,
     };
 
+    // The quality figures measure the map against the vectors as given, so their sample is kept
+    // before any reduction.
+    let quality_idx = crate::quality::sample(n, QUALITY_SAMPLE);
+    let quality_rows = Matrix {
+        rows: quality_idx.len(),
+        cols: vectors.cols,
+        data: quality_idx
+            .iter()
+            .flat_map(|&i| vectors.row(i))
+            .copied()
+            .collect(),
+    };
+    let vector_dimensions = vectors.cols;
+    let mut notes = Vec::new();
+    // Optional PCA pre-reduction. Cosine vectors are unit-normalised first; in the reduced space
+    // the graph is found by Euclidean distance, and for cosine the distances are turned back into
+    // cosine distances (for unit vectors |u - v|^2 = 2 (1 - cos)).
+    let (vectors, graph_metric, reduction) = match opts.pca {
+        Some(dims) if dims < vectors.cols && n > 1 => {
+            let prepared = knn::prepare(&vectors, opts.metric);
+            drop(vectors);
+            let pb = bar(opts.quiet, crate::pca::FIT_STEPS, "PCA");
+            let fit = crate::pca::fit_with_progress(&prepared, dims, opts.seed, &|i, of| {
+                pb.set_length(of);
+                pb.set_position(i);
+            });
+            let reduced = crate::pca::project(&prepared, &fit);
+            pb.finish_and_clear();
+            log(&format!(
+                "PCA: {} -> {} dimensions, {:.1} % of the variance kept (fitted on {} items)",
+                vector_dimensions,
+                reduced.cols,
+                100.0 * fit.explained(),
+                fit.fit_rows
+            ));
+            stages.lap("PCA reduction");
+            (reduced, Metric::Euclidean, Some(fit))
+        }
+        Some(dims) => {
+            let note = format!(
+                "--pca {dims}: not fewer than the vectors' {} dimensions (or a single item); the vectors are used as given",
+                vector_dimensions
+            );
+            log(&note);
+            notes.push(note);
+            (vectors, opts.metric, None)
+        }
+        None => (vectors, opts.metric, None),
+    };
+    let to_build_metric = |d: f32| -> f32 {
+        if reduction.is_some() && opts.metric == Metric::Cosine {
+            0.5 * d * d
+        } else {
+            d
+        }
+    };
+
     // Neighbour graph and map.
     let k = opts.k.min(n.saturating_sub(1)).max(1);
     let exact = match opts.neighbours {
@@ -576,13 +645,13 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
     let mut recall = None;
     let graph = if exact {
         let pb = bar(opts.quiet, n as u64, "neighbours");
-        let g = knn::exact_knn(&vectors, k, opts.metric, &|c| pb.set_position(c));
+        let g = knn::exact_knn(&vectors, k, graph_metric, &|c| pb.set_position(c));
         pb.finish_and_clear();
         g
     } else {
         let pb = bar(opts.quiet, 1, "neighbours");
         let params = crate::nndescent::NnDescentParams::new(k, opts.seed);
-        let g = crate::nndescent::nn_descent(&vectors, opts.metric, &params, &|stage, i, of| {
+        let g = crate::nndescent::nn_descent(&vectors, graph_metric, &params, &|stage, i, of| {
             pb.set_prefix(stage.to_string());
             pb.set_length(of);
             pb.set_position(i);
@@ -590,7 +659,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         pb.finish_and_clear();
         // Recall against exact search on a sample, recorded with the map's quality figures.
         let sample = crate::quality::sample(n, 500);
-        let truth = crate::nndescent::exact_for(&vectors, opts.metric, k, &sample);
+        let truth = crate::nndescent::exact_for(&vectors, graph_metric, k, &sample);
         let r = crate::nndescent::recall(&g, &truth, &sample);
         log(&format!(
             "neighbour graph: NN-descent, recall@{k} {r:.3} on {} sampled items",
@@ -604,6 +673,13 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         Optimiser::Sequential => false,
         Optimiser::Parallel => true,
     };
+    let mut graph = graph;
+    if reduction.is_some() {
+        graph
+            .distances
+            .iter_mut()
+            .for_each(|d| *d = to_build_metric(*d));
+    }
     stages.lap("neighbour graph");
     let params = UmapParams {
         min_dist: opts.min_dist,
@@ -614,7 +690,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
     };
     let fuzzy = umap::fuzzy_graph(&graph);
     let mut rng = Rng::new(opts.seed);
-    let start_vectors = knn::prepare(&vectors, opts.metric);
+    let start_vectors = knn::prepare(&vectors, graph_metric);
     let pca = umap::pca_start(&start_vectors, &mut rng);
     drop(start_vectors);
     let (start, start_report) = crate::spectral::spectral_start(&fuzzy, &pca, opts.seed);
@@ -701,9 +777,15 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         .map(|c| [c[0] as f32, c[1] as f32])
         .collect();
     stages.lap("lattice");
-    let quality = crate::quality::map_quality(&vectors, opts.metric, &pos, 10, 2000);
-    let lattice_quality =
-        crate::quality::map_quality(&vectors, opts.metric, &lattice_pos, 10, 2000);
+    let quality =
+        crate::quality::map_quality_of_sample(&quality_rows, &quality_idx, opts.metric, &pos, 10);
+    let lattice_quality = crate::quality::map_quality_of_sample(
+        &quality_rows,
+        &quality_idx,
+        opts.metric,
+        &lattice_pos,
+        10,
+    );
     if let Some(q) = &quality {
         log(&format!(
             "map quality on {} items: trustworthiness@10 {:.3}, continuity@10 {:.3}",
@@ -743,6 +825,11 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         clusters,
         &params,
         &start_report,
+        Reduction {
+            input_dimensions: vector_dimensions,
+            pca: reduction,
+            notes,
+        },
         &mut stages,
     );
     match result {
@@ -824,11 +911,13 @@ fn write_atlas(
     clusters: Vec<u32>,
     umap_params: &UmapParams,
     start: &crate::spectral::StartReport,
+    reduction: Reduction,
     stages: &mut Stages,
 ) -> Result<BuildReport> {
     let n = vectors.rows;
     let mut report = BuildReport {
         items: n,
+        notes: reduction.notes,
         ..Default::default()
     };
     let mut w = ArrayWriter { files: Vec::new() };
@@ -844,8 +933,16 @@ fn write_atlas(
     let map = MapLayout {
         name: "similarity".into(),
         description: format!(
-            "UMAP of the {} neighbour graph (k = {}, min_dist = {}, seed {})",
+            "UMAP of the {} neighbour graph{} (k = {}, min_dist = {}, seed {})",
             opts.metric.name(),
+            match &reduction.pca {
+                Some(p) => format!(
+                    " on {} principal components ({:.0} % of the variance)",
+                    p.components.len(),
+                    100.0 * p.explained()
+                ),
+                None => String::new(),
+            },
             graph.k,
             opts.min_dist,
             opts.seed
@@ -1163,11 +1260,25 @@ fn write_atlas(
             "sequential"
         }),
     );
+    parameters.insert("pca".into(), json!(opts.pca));
     parameters.insert("id_column".into(), json!(opts.id_column));
     parameters.insert("sheet_size".into(), json!(opts.sheet_size));
     parameters.insert("cells".into(), json!(opts.cells));
     parameters.insert("jpeg_quality".into(), json!(opts.jpeg_quality));
-    parameters.insert("vector_dimensions".into(), json!(vectors.cols));
+    parameters.insert(
+        "vector_dimensions".into(),
+        json!(reduction.input_dimensions),
+    );
+    if let Some(p) = &reduction.pca {
+        parameters.insert("pca_dimensions".into(), json!(p.components.len()));
+        parameters.insert("pca_explained_variance".into(), json!(p.explained()));
+        parameters.insert(
+            "pca_explained_variance_ratios".into(),
+            json!(p.explained_variance_ratio),
+        );
+        parameters.insert("pca_fit_items".into(), json!(p.fit_rows));
+        parameters.insert("pca_method".into(), json!(crate::pca::method()));
+    }
 
     let title = opts.title.clone().unwrap_or_else(|| {
         opts.out

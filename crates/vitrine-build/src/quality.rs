@@ -96,10 +96,28 @@ pub fn map_quality(
     max_sample: usize,
 ) -> Option<MapQuality> {
     let idx = sample(vectors.rows, max_sample);
+    let rows = Matrix {
+        rows: idx.len(),
+        cols: vectors.cols,
+        data: idx.iter().flat_map(|&i| vectors.row(i)).copied().collect(),
+    };
+    map_quality_of_sample(&rows, &idx, metric, pos, k)
+}
+
+/// [`map_quality`] from vectors kept for the sample only: row `r` of `sample_rows` is item
+/// `idx[r]` (so that a build that reduces its vectors still measures its map against the originals).
+pub fn map_quality_of_sample(
+    sample_rows: &Matrix,
+    idx: &[usize],
+    metric: Metric,
+    pos: &[[f32; 2]],
+    k: usize,
+) -> Option<MapQuality> {
+    assert_eq!(sample_rows.rows, idx.len());
     if 2 * idx.len() <= 3 * k + 1 {
         return None;
     }
-    let high: Vec<&[f32]> = idx.iter().map(|&i| vectors.row(i)).collect();
+    let high: Vec<&[f32]> = (0..idx.len()).map(|r| sample_rows.row(r)).collect();
     let low: Vec<&[f32]> = idx.iter().map(|&i| &pos[i][..]).collect();
     Some(MapQuality {
         k,

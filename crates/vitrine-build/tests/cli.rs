@@ -767,6 +767,24 @@ fn degenerate_collections_build_with_finite_maps() {
         })
         .collect();
     cases.push(("apart".into(), 60, apart));
+    // Ten distinct vectors, each five times over (fewer copies than k).
+    let dups: Vec<f32> = (0..50)
+        .flat_map(|i| {
+            let g = (i % 10) as f32;
+            [g + 1.0, (g * 3.0) % 7.0 + 0.5, 1.0, g * 0.5]
+        })
+        .collect();
+    cases.push(("duplicates".into(), 50, dups));
+    // The same with NN-descent forced, whose random-projection trees must stop on equal points.
+    for name in ["identical", "duplicates", "n16"] {
+        let c = cases.iter().find(|c| c.0 == name).unwrap().clone();
+        cases.push((format!("{name}-approximate"), c.1, c.2));
+    }
+    // And through a PCA pre-reduction, where identical vectors have no variance at all.
+    for name in ["identical", "zero", "n2"] {
+        let c = cases.iter().find(|c| c.0 == name).unwrap().clone();
+        cases.push((format!("{name}-pca"), c.1, c.2));
+    }
     for (name, n, data) in cases {
         let v = d.join(format!("{name}.npy"));
         write_npy_f32(&v, n, 4, &data).unwrap();
@@ -776,6 +794,11 @@ fn degenerate_collections_build_with_finite_maps() {
             "cosine"
         };
         let out = d.join(&name);
+        let search = if name.ends_with("-approximate") {
+            "approximate"
+        } else {
+            "auto"
+        };
         let o = common::vitrine()
             .args([
                 "build",
@@ -784,9 +807,16 @@ fn degenerate_collections_build_with_finite_maps() {
                 "30",
                 "--metric",
                 metric,
+                "--neighbours",
+                search,
                 "--vectors",
             ])
             .arg(&v)
+            .args(if name.ends_with("-pca") {
+                &["--pca", "2"][..]
+            } else {
+                &[]
+            })
             .arg("--out")
             .arg(&out)
             .output()
@@ -808,4 +838,140 @@ fn degenerate_collections_build_with_finite_maps() {
             );
         }
     }
+}
+
+/// Sorted neighbour distances per item id, read from an atlas.
+fn neighbour_distances(a: &Atlas) -> std::collections::BTreeMap<String, Vec<f32>> {
+    let ids = a.ids().unwrap();
+    let k = a.manifest.neighbours.k as usize;
+    let dist: Vec<f32> = a.array(&a.manifest.neighbours.distances).unwrap();
+    (0..ids.len())
+        .map(|i| {
+            let mut d = dist[i * k..(i + 1) * k].to_vec();
+            d.sort_by(f32::total_cmp);
+            (ids.get(i).to_string(), d)
+        })
+        .collect()
+}
+
+#[test]
+fn pca_pre_reduction_keeps_distances_and_is_recorded() {
+    // 80 vectors of 8 dimensions that span only 4: a PCA to 4 dimensions loses nothing, so the
+    // neighbour graph's distances (cosine and Euclidean alike) must be those of the full vectors,
+    // and the recorded explained variance must be all of it.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let basis: [[f32; 8]; 4] = [
+        [1.0, 0.5, 0.0, 0.2, 0.0, 0.3, 0.1, 0.0],
+        [0.0, 1.0, 0.4, 0.0, 0.6, 0.0, 0.0, 0.2],
+        [0.3, 0.0, 1.0, 0.5, 0.0, 0.0, 0.7, 0.1],
+        [0.0, 0.2, 0.0, 1.0, 0.1, 0.8, 0.0, 0.5],
+    ];
+    let mut data = Vec::new();
+    for i in 0..80usize {
+        let z: Vec<f32> = (0..4)
+            .map(|j| 0.5 + ((i * 31 + j * 17 + i * j * 7) % 23) as f32 / 7.0)
+            .collect();
+        for c in 0..8 {
+            data.push((0..4).map(|j| z[j] * basis[j][c]).sum());
+        }
+    }
+    write_npy_f32(&d.join("vectors.npy"), 80, 8, &data).unwrap();
+    for metric in ["cosine", "euclidean"] {
+        let run = |name: &str, extra: &[&str]| {
+            let o = common::vitrine()
+                .current_dir(d)
+                .args(["build", "--quiet", "--epochs", "30", "--metric", metric])
+                .args(["--vectors", "vectors.npy", "--out", name])
+                .args(extra)
+                .output()
+                .unwrap();
+            assert!(o.status.success(), "{name}: {}", stderr(&o));
+            Atlas::open(&d.join(name)).unwrap()
+        };
+        let full = run(&format!("full-{metric}"), &[]);
+        let reduced = run(&format!("pca-{metric}"), &["--pca", "4"]);
+        let (a, b) = (neighbour_distances(&full), neighbour_distances(&reduced));
+        assert_eq!(a.len(), 80);
+        for (id, da) in &a {
+            let db = &b[id];
+            for (x, y) in da.iter().zip(db) {
+                assert!(
+                    (x - y).abs() <= 1e-4 + 1e-3 * x.abs(),
+                    "{metric} {id}: distances {da:?} with PCA {db:?}"
+                );
+            }
+        }
+        assert_eq!(reduced.manifest.neighbours.metric, metric);
+        let p = &reduced.manifest.provenance.parameters;
+        assert_eq!(p["vector_dimensions"], 8);
+        assert_eq!(p["pca"], 4);
+        assert_eq!(p["pca_dimensions"], 4);
+        let explained = p["pca_explained_variance"].as_f64().unwrap();
+        assert!((explained - 1.0).abs() < 1e-4, "{explained}");
+        let ratios: Vec<f64> = p["pca_explained_variance_ratios"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|r| r.as_f64().unwrap())
+            .collect();
+        assert_eq!(ratios.len(), 4);
+        assert!(ratios.windows(2).all(|w| w[0] >= w[1]), "{ratios:?}");
+        assert_eq!(p["pca_fit_items"], 80);
+        assert!(full.manifest.provenance.parameters["pca"].is_null());
+        assert!(full
+            .manifest
+            .provenance
+            .parameters
+            .get("pca_dimensions")
+            .is_none());
+        let q = &reduced.manifest.quality;
+        let t = q["similarity_trustworthiness_at_10"].as_f64().unwrap();
+        assert!(t.is_finite() && t > 0.5, "{t}");
+        let map = &reduced.manifest.maps[0];
+        assert!(
+            map.description.contains("4 principal components"),
+            "{}",
+            map.description
+        );
+        let xy: Vec<f32> = reduced.array(&map.positions).unwrap();
+        assert!(xy.iter().all(|x| x.is_finite()));
+    }
+    // Asking for as many components as there are dimensions keeps the vectors, and says so.
+    let o = common::vitrine()
+        .current_dir(d)
+        .args(["build", "--epochs", "30", "--pca", "8"])
+        .args(["--vectors", "vectors.npy", "--out", "same"])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert!(
+        stderr(&o).contains("--pca 8: not fewer than"),
+        "{}",
+        stderr(&o)
+    );
+    let a = Atlas::open(&d.join("same")).unwrap();
+    assert!(a
+        .manifest
+        .provenance
+        .parameters
+        .get("pca_dimensions")
+        .is_none());
+    // Zero components is refused with a message naming the option.
+    let o = common::vitrine()
+        .current_dir(d)
+        .args([
+            "build",
+            "--pca",
+            "0",
+            "--vectors",
+            "vectors.npy",
+            "--out",
+            "zero",
+        ])
+        .output()
+        .unwrap();
+    assert!(!o.status.success());
+    assert!(stderr(&o).contains("--pca"), "{}", stderr(&o));
+    assert!(!d.join("zero").exists());
 }
