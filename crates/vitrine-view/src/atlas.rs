@@ -325,6 +325,11 @@ pub fn about(m: &Manifest) -> Vec<(String, Vec<(String, String)>)> {
     if !q.is_empty() {
         out.push(("Quality (1 = neighbourhoods fully kept)".to_string(), q));
     }
+    if let Some(c) = &m.clusters {
+        let mut lines = vec![("method".to_string(), c.method.clone())];
+        lines.extend(cluster_lines(&c.list));
+        out.push(("Clusters, largest first".to_string(), lines));
+    }
     let p = &m.provenance;
     let mut prov = vec![(
         "built by".to_string(),
@@ -341,6 +346,44 @@ pub fn about(m: &Manifest) -> Vec<(String, Vec<(String, String)>)> {
     }
     out.push(("Provenance".to_string(), prov));
     out
+}
+
+/// Clusters shown by name in the about note; the rest are summed in one line.
+pub const ABOUT_CLUSTERS: usize = 40;
+
+/// One line per cluster, largest first: its label, its size and what makes it stand out
+/// (each over-represented value's share in the cluster and how many times its share in the
+/// whole collection that is).
+fn cluster_lines(list: &[vitrine_format::ClusterInfo]) -> Vec<(String, String)> {
+    let mut order: Vec<usize> = (0..list.len()).collect();
+    order.sort_by(|&a, &b| list[b].size.cmp(&list[a].size).then(a.cmp(&b)));
+    let mut lines: Vec<(String, String)> = order
+        .iter()
+        .take(ABOUT_CLUSTERS)
+        .map(|&i| {
+            let c = &list[i];
+            let mut text = format!("{} items", c.size);
+            for t in &c.terms {
+                text.push_str(&format!(
+                    "; {} = {}: {:.0} % here, {:.1}x the collection",
+                    t.field,
+                    t.value,
+                    100.0 * t.share,
+                    t.lift
+                ));
+            }
+            (c.label.clone(), text)
+        })
+        .collect();
+    if list.len() > ABOUT_CLUSTERS {
+        let rest = &order[ABOUT_CLUSTERS..];
+        let items: u64 = rest.iter().map(|&i| list[i].size).sum();
+        lines.push((
+            format!("{} smaller clusters", rest.len()),
+            format!("{items} items"),
+        ));
+    }
+    lines
 }
 
 /// Axis ticks for the visible x range [x0, x1] of a map with a quantity axis: (x, label) pairs at a

@@ -179,14 +179,29 @@ fn record_lines_hold_every_field_as_written() {
         [
             "This map",
             "Quality (1 = neighbourhoods fully kept)",
+            "Clusters, largest first",
             "Provenance"
         ]
     );
+    // Every cluster with its size, largest first, and the sizes add up to the collection.
+    let clusters = &atlas.manifest.clusters.as_ref().unwrap().list;
+    assert_eq!(about[2].1[0].0, "method");
+    let lines = &about[2].1[1..];
+    assert_eq!(
+        lines.len(),
+        clusters.len().min(vitrine_view::atlas::ABOUT_CLUSTERS)
+    );
+    let sizes: Vec<u64> = lines
+        .iter()
+        .map(|(_, v)| v.split(' ').next().unwrap().parse().unwrap())
+        .collect();
+    assert!(sizes.windows(2).all(|w| w[0] >= w[1]), "{sizes:?}");
+    assert_eq!(sizes.iter().sum::<u64>(), 90);
     let quality = &about[1].1;
     assert!(quality
         .iter()
         .any(|(k, v)| k == "trustworthiness at k = 10" && v.parse::<f64>().unwrap() > 0.5));
-    assert!(about[2]
+    assert!(about[3]
         .1
         .iter()
         .any(|(k, v)| k == "vectors" && v.starts_with("v.npy")));
