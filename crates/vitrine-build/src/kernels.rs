@@ -1,9 +1,10 @@
 //! Distance kernels over f32 rows for the approximate neighbour search.
 //!
-//! Each kernel keeps 32 running sums and adds them up in one fixed order, with a separate multiply
-//! and add (no fused multiply-add). The wide (AVX2) and the baseline (SSE2) instructions therefore
-//! give the same bits, so a build gives the same graph on every x86-64 machine; the wide path is only
-//! faster.
+//! Each kernel keeps 32 running sums, each step one fused multiply-add (one rounding), and adds the
+//! sums up in one fixed order. The wide path (AVX2 with FMA) and the portable path (`f32::mul_add`,
+//! which is exactly rounded everywhere: a hardware instruction on ARM and recent x86, the C
+//! library's exact routine elsewhere) therefore give the same bits, so a build gives the same graph
+//! on every machine; the wide path is only faster.
 
 const LANES: usize = 32;
 
@@ -16,53 +17,57 @@ fn reduce(acc: &[f32; LANES]) -> f32 {
     ((s[0] + s[4]) + (s[2] + s[6])) + ((s[1] + s[5]) + (s[3] + s[7]))
 }
 
-/// The sum over the rows of `term(x, y)`, in 32 running sums (see the module note).
+/// The running sums `acc = step(x, y, acc)` over the rows, in 32 lanes (see the module note).
 #[inline(always)]
-fn sum_any(a: &[f32], b: &[f32], term: impl Fn(f32, f32) -> f32) -> f32 {
+fn sum_any(a: &[f32], b: &[f32], step: impl Fn(f32, f32, f32) -> f32) -> f32 {
     debug_assert_eq!(a.len(), b.len());
     let mut acc = [0f32; LANES];
     let (ca, cb) = (a.chunks_exact(LANES), b.chunks_exact(LANES));
     let (ta, tb) = (ca.remainder(), cb.remainder());
     for (x, y) in ca.zip(cb) {
         for l in 0..LANES {
-            acc[l] += term(x[l], y[l]);
+            acc[l] = step(x[l], y[l], acc[l]);
         }
     }
     let mut tail = 0f32;
     for (&x, &y) in ta.iter().zip(tb) {
-        tail += term(x, y);
+        tail = step(x, y, tail);
     }
     reduce(&acc) + tail
 }
 
 #[inline(always)]
-fn sq_term(x: f32, y: f32) -> f32 {
+fn sq_step(x: f32, y: f32, acc: f32) -> f32 {
     let t = x - y;
-    t * t
+    t.mul_add(t, acc)
 }
 
 #[inline(always)]
-fn dot_term(x: f32, y: f32) -> f32 {
-    x * y
+fn dot_step(x: f32, y: f32, acc: f32) -> f32 {
+    x.mul_add(y, acc)
 }
 
 fn sq_dist_any(a: &[f32], b: &[f32]) -> f32 {
-    sum_any(a, b, sq_term)
+    sum_any(a, b, sq_step)
 }
 
 fn dot_any(a: &[f32], b: &[f32]) -> f32 {
-    sum_any(a, b, dot_term)
+    sum_any(a, b, dot_step)
 }
 
 /// [`sum_any`] with the 32 sums in four 8-lane AVX2 registers, lane for lane the same sums;
-/// `wide` is `term` on eight lanes at once.
+/// `wide` is `step` on eight lanes at once.
 #[cfg(target_arch = "x86_64")]
 #[inline(always)]
 unsafe fn sum_avx2(
     a: &[f32],
     b: &[f32],
-    wide: impl Fn(std::arch::x86_64::__m256, std::arch::x86_64::__m256) -> std::arch::x86_64::__m256,
-    term: impl Fn(f32, f32) -> f32,
+    wide: impl Fn(
+        std::arch::x86_64::__m256,
+        std::arch::x86_64::__m256,
+        std::arch::x86_64::__m256,
+    ) -> std::arch::x86_64::__m256,
+    step: impl Fn(f32, f32, f32) -> f32,
 ) -> f32 {
     use std::arch::x86_64::*;
     let n = a.len().min(b.len());
@@ -76,8 +81,11 @@ unsafe fn sum_avx2(
         for c in 0..chunks {
             for r in 0..4 {
                 let o = c * LANES + 8 * r;
-                let t = wide(_mm256_loadu_ps(pa.add(o)), _mm256_loadu_ps(pb.add(o)));
-                acc[r] = _mm256_add_ps(acc[r], t);
+                acc[r] = wide(
+                    _mm256_loadu_ps(pa.add(o)),
+                    _mm256_loadu_ps(pb.add(o)),
+                    acc[r],
+                );
             }
         }
         for r in 0..4 {
@@ -86,43 +94,50 @@ unsafe fn sum_avx2(
     }
     let mut tail = 0f32;
     for (&x, &y) in a[chunks * LANES..n].iter().zip(&b[chunks * LANES..n]) {
-        tail += term(x, y);
+        tail = step(x, y, tail);
     }
     reduce(&lanes) + tail
 }
 
 #[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
+#[target_feature(enable = "avx2,fma")]
 fn sq_dist_avx2(a: &[f32], b: &[f32]) -> f32 {
     use std::arch::x86_64::*;
-    // SAFETY: this function only runs where AVX2 is present.
+    // SAFETY: this function only runs where AVX2 and FMA are present.
     unsafe {
         sum_avx2(
             a,
             b,
-            |x, y| {
+            |x, y, acc| {
                 let t = _mm256_sub_ps(x, y);
-                _mm256_mul_ps(t, t)
+                _mm256_fmadd_ps(t, t, acc)
             },
-            sq_term,
+            sq_step,
         )
     }
 }
 
 #[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
+#[target_feature(enable = "avx2,fma")]
 fn dot_avx2(a: &[f32], b: &[f32]) -> f32 {
     use std::arch::x86_64::*;
-    // SAFETY: this function only runs where AVX2 is present.
-    unsafe { sum_avx2(a, b, |x, y| _mm256_mul_ps(x, y), dot_term) }
+    // SAFETY: this function only runs where AVX2 and FMA are present.
+    unsafe { sum_avx2(a, b, |x, y, acc| _mm256_fmadd_ps(x, y, acc), dot_step) }
+}
+
+/// Whether the wide path can run here.
+#[cfg(target_arch = "x86_64")]
+#[inline]
+fn wide() -> bool {
+    std::arch::is_x86_feature_detected!("avx2") && std::arch::is_x86_feature_detected!("fma")
 }
 
 /// Squared Euclidean distance.
 #[inline]
 pub fn sq_dist(a: &[f32], b: &[f32]) -> f32 {
     #[cfg(target_arch = "x86_64")]
-    if std::arch::is_x86_feature_detected!("avx2") {
-        // SAFETY: the CPU has just been checked for AVX2.
+    if wide() {
+        // SAFETY: the CPU has just been checked for AVX2 and FMA.
         return unsafe { sq_dist_avx2(a, b) };
     }
     sq_dist_any(a, b)
@@ -132,8 +147,8 @@ pub fn sq_dist(a: &[f32], b: &[f32]) -> f32 {
 #[inline]
 pub fn dot(a: &[f32], b: &[f32]) -> f32 {
     #[cfg(target_arch = "x86_64")]
-    if std::arch::is_x86_feature_detected!("avx2") {
-        // SAFETY: the CPU has just been checked for AVX2.
+    if wide() {
+        // SAFETY: the CPU has just been checked for AVX2 and FMA.
         return unsafe { dot_avx2(a, b) };
     }
     dot_any(a, b)
@@ -177,10 +192,12 @@ mod tests {
             let (a, b) = rows(len);
             assert_eq!(sq_dist(&a, &b).to_bits(), sq_dist_any(&a, &b).to_bits());
             #[cfg(target_arch = "x86_64")]
-            if std::arch::is_x86_feature_detected!("avx2") {
+            if wide() {
                 // SAFETY: checked just above.
-                let wide = unsafe { sq_dist_avx2(&a, &b) };
-                assert_eq!(wide.to_bits(), sq_dist_any(&a, &b).to_bits());
+                let w = unsafe { sq_dist_avx2(&a, &b) };
+                assert_eq!(w.to_bits(), sq_dist_any(&a, &b).to_bits());
+                let w = unsafe { dot_avx2(&a, &b) };
+                assert_eq!(w.to_bits(), dot_any(&a, &b).to_bits());
             }
             assert_eq!(dot(&a, &b).to_bits(), dot_any(&a, &b).to_bits());
             // Symmetric to the bit: the graph never depends on which end of a pair came first.
