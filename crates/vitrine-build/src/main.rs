@@ -1,7 +1,8 @@
 //! The `vitrine` command: a thin layer that parses flags and calls the library.
 
-// The map engine allocates and frees large buffers every round; this allocator keeps them
-// mapped instead of handing them back to the system and faulting them in again.
+// The map engine allocates and frees large buffers every round; this allocator, told to by
+// `keep_freed_memory`, keeps them mapped instead of handing them back to the system and
+// faulting them in again.
 #[global_allocator]
 static ALLOCATOR: mimalloc::MiMalloc = mimalloc::MiMalloc;
 
@@ -302,6 +303,7 @@ fn run() -> anyhow::Result<()> {
 }
 
 fn main() -> ExitCode {
+    vitrine_build::keep_freed_memory();
     match run() {
         Ok(()) => ExitCode::SUCCESS,
         Err(e) => {

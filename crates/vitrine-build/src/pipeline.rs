@@ -777,15 +777,11 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         .map(|c| [c[0] as f32, c[1] as f32])
         .collect();
     stages.lap("lattice");
-    let quality =
-        crate::quality::map_quality_of_sample(&quality_rows, &quality_idx, opts.metric, &pos, 10);
-    let lattice_quality = crate::quality::map_quality_of_sample(
-        &quality_rows,
-        &quality_idx,
-        opts.metric,
-        &lattice_pos,
-        10,
-    );
+    let quality_sample =
+        crate::quality::QualitySample::new(&quality_rows, quality_idx, opts.metric);
+    drop(quality_rows);
+    let quality = quality_sample.quality(&pos, 10);
+    let lattice_quality = quality_sample.quality(&lattice_pos, 10);
     if let Some(q) = &quality {
         log(&format!(
             "map quality on {} items: trustworthiness@10 {:.3}, continuity@10 {:.3}",

@@ -53,6 +53,12 @@ pub fn trustworthiness(
     );
     let high_order = orderings(high, high_metric);
     let low_order = orderings(low, low_metric);
+    trustworthiness_of_orders(&high_order, &low_order, k)
+}
+
+/// Trustworthiness from the two spaces' orderings (see [`orderings`]).
+fn trustworthiness_of_orders(high_order: &[Vec<u32>], low_order: &[Vec<u32>], k: usize) -> f64 {
+    let n = high_order.len();
     let penalty: f64 = (0..n)
         .into_par_iter()
         .map(|i| {
@@ -104,8 +110,43 @@ pub fn map_quality(
     map_quality_of_sample(&rows, &idx, metric, pos, k)
 }
 
+/// The quality sample with its vector-space orderings, computed once for every map measured on it.
+pub struct QualitySample {
+    idx: Vec<usize>,
+    high_order: Vec<Vec<u32>>,
+}
+
+impl QualitySample {
+    /// Row `r` of `sample_rows` is item `idx[r]` (so that a build that reduces its vectors still
+    /// measures its maps against the originals).
+    pub fn new(sample_rows: &Matrix, idx: Vec<usize>, metric: Metric) -> QualitySample {
+        assert_eq!(sample_rows.rows, idx.len());
+        let high: Vec<&[f32]> = (0..idx.len()).map(|r| sample_rows.row(r)).collect();
+        QualitySample {
+            high_order: orderings(&high, metric),
+            idx,
+        }
+    }
+
+    /// Trustworthiness and continuity at `k` of the layout `pos` (all items, indexed as `idx`).
+    pub fn quality(&self, pos: &[[f32; 2]], k: usize) -> Option<MapQuality> {
+        let n = self.idx.len();
+        if 2 * n <= 3 * k + 1 {
+            return None;
+        }
+        let low: Vec<&[f32]> = self.idx.iter().map(|&i| &pos[i][..]).collect();
+        let low_order = orderings(&low, Metric::Euclidean);
+        Some(MapQuality {
+            k,
+            sample: n,
+            trustworthiness: trustworthiness_of_orders(&self.high_order, &low_order, k),
+            continuity: trustworthiness_of_orders(&low_order, &self.high_order, k),
+        })
+    }
+}
+
 /// [`map_quality`] from vectors kept for the sample only: row `r` of `sample_rows` is item
-/// `idx[r]` (so that a build that reduces its vectors still measures its map against the originals).
+/// `idx[r]`.
 pub fn map_quality_of_sample(
     sample_rows: &Matrix,
     idx: &[usize],
@@ -113,16 +154,8 @@ pub fn map_quality_of_sample(
     pos: &[[f32; 2]],
     k: usize,
 ) -> Option<MapQuality> {
-    assert_eq!(sample_rows.rows, idx.len());
     if 2 * idx.len() <= 3 * k + 1 {
         return None;
     }
-    let high: Vec<&[f32]> = (0..idx.len()).map(|r| sample_rows.row(r)).collect();
-    let low: Vec<&[f32]> = idx.iter().map(|&i| &pos[i][..]).collect();
-    Some(MapQuality {
-        k,
-        sample: idx.len(),
-        trustworthiness: trustworthiness(&high, metric, &low, Metric::Euclidean, k),
-        continuity: trustworthiness(&low, Metric::Euclidean, &high, metric, k),
-    })
+    QualitySample::new(sample_rows, idx.to_vec(), metric).quality(pos, k)
 }

@@ -237,6 +237,14 @@ print(trustworthiness(X32, E32, n_neighbors=10), trustworthiness(E32, X32, n_nei
     for (g, w) in got.iter().zip(&want) {
         assert!((g - w).abs() < 1e-6, "ours {got:?}, scikit-learn {want:?}");
     }
+    // The build's path, which orders the vector space once for every map: the same two figures.
+    let pos: Vec<[f32; 2]> = (0..e.rows).map(|i| [e.row(i)[0], e.row(i)[1]]).collect();
+    let q =
+        vitrine_build::quality::QualitySample::new(&x, (0..x.rows).collect(), Metric::Euclidean)
+            .quality(&pos, 10)
+            .unwrap();
+    assert!((q.trustworthiness - want[0]).abs() < 1e-6, "{q:?} {want:?}");
+    assert!((q.continuity - want[1]).abs() < 1e-6, "{q:?} {want:?}");
 }
 
 #[test]

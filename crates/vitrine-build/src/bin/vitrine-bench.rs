@@ -1,8 +1,9 @@
 //! `vitrine-bench`: times one stage of the map engine on a .npy file, for `./build.sh bench-map`.
 //! Prints one JSON line with the timing; writes the result as .npy for the reference comparison.
 
-// The map engine allocates and frees large buffers every round; this allocator keeps them
-// mapped instead of handing them back to the system and faulting them in again.
+// The map engine allocates and frees large buffers every round; this allocator, told to by
+// `keep_freed_memory`, keeps them mapped instead of handing them back to the system and
+// faulting them in again.
 #[global_allocator]
 static ALLOCATOR: mimalloc::MiMalloc = mimalloc::MiMalloc;
 
@@ -13,6 +14,7 @@ use vitrine_build::knn::Metric;
 use vitrine_build::npy::{read_npy, write_npy_f32};
 
 fn main() -> anyhow::Result<()> {
+    vitrine_build::keep_freed_memory();
     let args: Vec<String> = std::env::args().collect();
     let usage = "usage: vitrine-bench knn|map VECTORS.npy OUT.npy [cosine|euclidean] [k] [sequential|parallel]";
     let (stage, input, out) = match (args.get(1), args.get(2), args.get(3)) {
