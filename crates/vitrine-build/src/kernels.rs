@@ -72,7 +72,6 @@ unsafe fn sum_avx2(
     use std::arch::x86_64::*;
     let n = a.len().min(b.len());
     let chunks = n / LANES;
-    let mut lanes = [0f32; LANES];
     // SAFETY: the caller has checked for AVX2; every load reads 8 floats inside the first
     // `chunks * LANES` of both slices.
     unsafe {
@@ -88,15 +87,18 @@ unsafe fn sum_avx2(
                 );
             }
         }
-        for r in 0..4 {
-            _mm256_storeu_ps(lanes.as_mut_ptr().add(8 * r), acc[r]);
+        // The reduction of `reduce`, in registers: lane l of v is s[l], then
+        // t = (s0 + s4, s1 + s5, s2 + s6, s3 + s7) and the sum (t0 + t2) + (t1 + t3).
+        let v = _mm256_add_ps(_mm256_add_ps(acc[0], acc[1]), _mm256_add_ps(acc[2], acc[3]));
+        let t = _mm_add_ps(_mm256_castps256_ps128(v), _mm256_extractf128_ps(v, 1));
+        let u = _mm_add_ps(t, _mm_movehl_ps(t, t));
+        let sum = _mm_cvtss_f32(_mm_add_ss(u, _mm_shuffle_ps(u, u, 1)));
+        let mut tail = 0f32;
+        for (&x, &y) in a[chunks * LANES..n].iter().zip(&b[chunks * LANES..n]) {
+            tail = step(x, y, tail);
         }
+        sum + tail
     }
-    let mut tail = 0f32;
-    for (&x, &y) in a[chunks * LANES..n].iter().zip(&b[chunks * LANES..n]) {
-        tail = step(x, y, tail);
-    }
-    reduce(&lanes) + tail
 }
 
 #[cfg(target_arch = "x86_64")]
