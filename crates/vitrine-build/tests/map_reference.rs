@@ -84,7 +84,9 @@ fn digits_map_is_trustworthy_by_scikit_learn() {
     let g = exact_knn(&x, K, Metric::Euclidean, &|_| {});
     let fuzzy = umap::fuzzy_graph(&g);
     for parallel in [false, true] {
-        let start = umap::pca_start(&x, &mut Rng::new(42));
+        // The start the build uses: spectral, from the PCA start where the graph falls apart.
+        let pca = umap::pca_start(&x, &mut Rng::new(42));
+        let (start, _) = vitrine_build::spectral::spectral_start(&fuzzy, &pca, 42);
         let params = umap::UmapParams {
             parallel,
             ..Default::default()
@@ -94,8 +96,9 @@ fn digits_map_is_trustworthy_by_scikit_learn() {
         let flat: Vec<f32> = pos.iter().flatten().copied().collect();
         let emb = dir.path().join("embedding.npy");
         write_npy_f32(&emb, pos.len(), 2, &flat).unwrap();
-        // sklearn.manifold.trustworthiness is the outside measure; published UMAP figures on digits are near
-        // 0.99 (from memory), the issue asks for at least 0.95.
+        // sklearn.manifold.trustworthiness and a 10-NN classifier on the digits labels (both from
+        // scikit-learn) are the outside measures; published UMAP figures on digits are near 0.99
+        // trustworthiness (from memory); the bar is 0.97, and 0.95 for the label accuracy.
         let out = common::run_python(
             r#"
 import sys, numpy as np
@@ -114,8 +117,8 @@ print(f"{t:.6f} {acc:.6f}")
         let mut it = out.split_whitespace().map(|s| s.parse::<f64>().unwrap());
         let (t, acc) = (it.next().unwrap(), it.next().unwrap());
         eprintln!("digits (parallel: {parallel}): trustworthiness@10 = {t}, 10-NN label accuracy in 2-D = {acc}");
-        assert!(t >= 0.95, "trustworthiness@10 = {t}");
-        assert!(acc >= 0.90, "label accuracy = {acc}");
+        assert!(t >= 0.97, "trustworthiness@10 = {t}");
+        assert!(acc >= 0.95, "label accuracy = {acc}");
     }
 }
 
