@@ -15,10 +15,11 @@ setup() {
   setup_rust
   setup_browser
   echo "[setup] Python venv for the outside-reference tests ($CACHE/venv)"
-  # numpy and scikit-learn are the outside references of the tests; umap-learn gives the method's a, b fit.
-  if [ ! -x "$CACHE/venv/bin/python" ] || ! "$CACHE/venv/bin/python" -c "import numpy, sklearn, umap" 2>/dev/null; then
+  # numpy and scikit-learn are the outside references of the tests; umap-learn gives the method's a, b fit;
+  # Pillow writes and decodes the reference images, scikit-image ships sample photographs.
+  if [ ! -x "$CACHE/venv/bin/python" ] || ! "$CACHE/venv/bin/python" -c "import numpy, sklearn, umap, PIL, skimage" 2>/dev/null; then
     [ -x "$CACHE/venv/bin/python" ] || python3 -m venv "$CACHE/venv"
-    "$CACHE/venv/bin/pip" install --progress-bar on numpy scikit-learn umap-learn
+    "$CACHE/venv/bin/pip" install --progress-bar on numpy scikit-learn umap-learn pillow scikit-image
   fi
 }
 

@@ -5,6 +5,7 @@
 pub mod catalogue;
 pub mod clusters;
 pub mod dates;
+pub mod decode;
 pub mod error;
 pub mod hilbert;
 pub mod kernels;

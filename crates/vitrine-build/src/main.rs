@@ -113,6 +113,13 @@ enum Command {
         /// JPEG quality of the sheets (1-100).
         #[arg(long, default_value_t = 85)]
         jpeg_quality: u8,
+        /// Refuse images with more pixels than this (they get a placeholder and a report entry).
+        #[arg(long, default_value_t = vitrine_build::decode::DEFAULT_MAX_PIXELS)]
+        max_pixels: u64,
+        /// Stop the build when any image is missing or cannot be read, instead of drawing a
+        /// placeholder for it.
+        #[arg(long)]
+        strict: bool,
         /// Folder with the viewer files to copy into the atlas (default: found beside the program).
         #[arg(long)]
         viewer: Option<PathBuf>,
@@ -170,6 +177,8 @@ fn run() -> anyhow::Result<()> {
             epochs,
             sheet_size,
             jpeg_quality,
+            max_pixels,
+            strict,
             viewer,
             quiet,
         } => {
@@ -211,6 +220,11 @@ fn run() -> anyhow::Result<()> {
             opts.epochs = epochs;
             opts.sheet_size = sheet_size;
             opts.jpeg_quality = jpeg_quality;
+            if max_pixels == 0 {
+                anyhow::bail!("--max-pixels must be at least 1");
+            }
+            opts.max_pixels = max_pixels;
+            opts.strict = strict;
             opts.viewer = viewer;
             opts.quiet = quiet;
             let report = build(&opts)?;

@@ -85,6 +85,10 @@ pub struct BuildOptions {
     pub sheet_size: u32,
     pub cells: Vec<u32>,
     pub jpeg_quality: u8,
+    /// Images with more pixels than this get a placeholder (a decompression-bomb guard).
+    pub max_pixels: u64,
+    /// Stop the build when any image cannot be used, instead of drawing a placeholder.
+    pub strict: bool,
     pub viewer: Option<PathBuf>,
     pub quiet: bool,
 }
@@ -112,6 +116,8 @@ impl BuildOptions {
             sheet_size: 2048,
             cells: vec![32, 128],
             jpeg_quality: 85,
+            max_pixels: crate::decode::DEFAULT_MAX_PIXELS,
+            strict: false,
             viewer: None,
             quiet: false,
         }
@@ -1150,6 +1156,7 @@ fn write_atlas(
                 cells: opts.cells.clone(),
                 sheet: opts.sheet_size,
                 quality: opts.jpeg_quality,
+                max_pixels: opts.max_pixels,
             };
             let list: Vec<(String, Result<PathBuf, String>)> = order
                 .iter()
@@ -1158,6 +1165,24 @@ fn write_atlas(
             let pb = bar(opts.quiet, n as u64, "thumbnails");
             let t = thumbs::make_sheets(&list, &plan, dir, &|c| pb.set_position(c))?;
             pb.finish_and_clear();
+            if opts.strict && !t.problems.is_empty() {
+                let listed: Vec<String> = t
+                    .problems
+                    .iter()
+                    .take(10)
+                    .map(|p| format!("  {} ({}): {}", p.id, p.path, p.reason))
+                    .collect();
+                anyhow::bail!(
+                    "--strict: {} image(s) could not be used:\n{}{}",
+                    t.problems.len(),
+                    listed.join("\n"),
+                    if t.problems.len() > 10 {
+                        format!("\n  and {} more", t.problems.len() - 10)
+                    } else {
+                        String::new()
+                    }
+                );
+            }
             stages.lap("thumbnails");
             // The images' provenance: one line per image (SHA-256, bytes, path), hashed as a whole.
             let mut listing = String::new();
@@ -1261,6 +1286,8 @@ fn write_atlas(
     parameters.insert("sheet_size".into(), json!(opts.sheet_size));
     parameters.insert("cells".into(), json!(opts.cells));
     parameters.insert("jpeg_quality".into(), json!(opts.jpeg_quality));
+    parameters.insert("max_pixels".into(), json!(opts.max_pixels));
+    parameters.insert("strict".into(), json!(opts.strict));
     parameters.insert(
         "vector_dimensions".into(),
         json!(reduction.input_dimensions),

@@ -6,15 +6,15 @@ use std::path::{Path, PathBuf};
 use image::{imageops::FilterType, RgbImage};
 use rayon::prelude::*;
 
-/// The background that transparent images are flattened onto (the light theme's paper colour).
-pub const PAPER: [u8; 3] = [0xF3, 0xEE, 0xE4];
-/// Pixel count beyond which an image is refused (a decompression-bomb guard).
-pub const MAX_PIXELS: u64 = 200_000_000;
+use crate::decode::ImageFailure;
+pub use crate::decode::{DEFAULT_MAX_PIXELS as MAX_PIXELS, PAPER};
 
 #[derive(Debug, Clone, serde::Serialize)]
 pub struct ImageProblem {
     pub id: String,
     pub path: String,
+    /// The failure class: missing, unreadable, unsupported, truncated, corrupt or too large.
+    pub kind: String,
     pub reason: String,
 }
 
@@ -24,6 +24,8 @@ pub struct SheetPlan {
     /// Sheet side in pixels.
     pub sheet: u32,
     pub quality: u8,
+    /// Images with more pixels than this are refused.
+    pub max_pixels: u64,
 }
 
 impl SheetPlan {
@@ -43,39 +45,6 @@ pub struct Thumbnailed {
     pub problems: Vec<ImageProblem>,
     /// Per item: SHA-256 and byte size of the image file (empty when there was none).
     pub digests: Vec<(String, u64)>,
-}
-
-/// Decodes an image file held in memory.
-fn decode(bytes: &[u8]) -> Result<RgbImage, String> {
-    let open = || {
-        image::ImageReader::new(std::io::Cursor::new(bytes))
-            .with_guessed_format()
-            .map_err(|e| format!("cannot read: {e}"))
-    };
-    let (w, h) = open()?
-        .into_dimensions()
-        .map_err(|e| format!("not a readable image: {e}"))?;
-    if (w as u64) * (h as u64) > MAX_PIXELS {
-        return Err(format!(
-            "{w} x {h} pixels is more than the limit of {MAX_PIXELS}"
-        ));
-    }
-    let mut reader = open()?;
-    reader.no_limits();
-    let img = reader.decode().map_err(|e| format!("cannot decode: {e}"))?;
-    if img.color().has_alpha() {
-        let rgba = img.to_rgba8();
-        let mut out = RgbImage::new(rgba.width(), rgba.height());
-        for (o, p) in out.pixels_mut().zip(rgba.pixels()) {
-            let a = p[3] as u32;
-            for c in 0..3 {
-                o[c] = ((p[c] as u32 * a + PAPER[c] as u32 * (255 - a) + 127) / 255) as u8;
-            }
-        }
-        Ok(out)
-    } else {
-        Ok(img.to_rgb8())
-    }
 }
 
 /// A thumbnail fitted into a `cell` x `cell` square, aspect kept.
@@ -141,17 +110,20 @@ pub fn make_sheets(
     let mut start = 0;
     while start < n {
         let end = (start + batch).min(n);
-        let thumbs: Vec<(Vec<RgbImage>, Option<String>, (String, u64))> = images[start..end]
+        let thumbs: Vec<(Vec<RgbImage>, Option<ImageFailure>, (String, u64))> = images[start..end]
             .par_iter()
             .map(|(_, path)| {
                 let mut digest = (String::new(), 0);
                 let result = match path {
-                    Err(reason) => Err(reason.clone()),
+                    Err(reason) => Err(ImageFailure::Missing(reason.clone())),
                     Ok(p) => match std::fs::read(p) {
-                        Err(e) => Err(format!("cannot read the file: {e}")),
+                        Err(e) if e.kind() == std::io::ErrorKind::NotFound => {
+                            Err(ImageFailure::Missing("the file does not exist".into()))
+                        }
+                        Err(e) => Err(ImageFailure::Unreadable(e.to_string())),
                         Ok(bytes) => {
                             digest = (vitrine_format::sha256_hex(&bytes), bytes.len() as u64);
-                            decode(&bytes)
+                            crate::decode::decode(&bytes, plan.max_pixels).map(|d| d.rgb)
                         }
                     },
                 };
@@ -183,7 +155,7 @@ pub fn make_sheets(
             let big = levels.last().unwrap();
             extents[i] = big.width() | (big.height() << 16);
             colours[i] = average(&levels[0]);
-            if let Some(reason) = problem {
+            if let Some(failure) = problem {
                 problems.push(ImageProblem {
                     id: images[i].0.clone(),
                     path: images[i]
@@ -191,7 +163,8 @@ pub fn make_sheets(
                         .as_ref()
                         .map(|p| p.display().to_string())
                         .unwrap_or_default(),
-                    reason: reason.trim().to_string(),
+                    kind: failure.kind().to_string(),
+                    reason: failure.to_string().trim().to_string(),
                 });
             }
         }

@@ -975,3 +975,194 @@ fn pca_pre_reduction_keeps_distances_and_is_recorded() {
     assert!(stderr(&o).contains("--pca"), "{}", stderr(&o));
     assert!(!d.join("zero").exists());
 }
+
+#[test]
+fn every_image_failure_gets_a_placeholder_and_a_report_entry_unless_strict() {
+    // 12 records: six good PNGs, then one of each failure class. The build goes on, every record
+    // is in the atlas, and the report names each failure with its class; --strict stops instead.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let n = 12usize;
+    let data: Vec<f32> = (0..n * 4).map(|i| ((i * 7) % 11) as f32 + 1.0).collect();
+    write_npy_f32(&d.join("vectors.npy"), n, 4, &data).unwrap();
+    let mut csv = String::from("id,title\n");
+    for i in 0..n {
+        csv.push_str(&format!("r{i:02},Sheet {i}\n"));
+    }
+    std::fs::write(d.join("records.csv"), csv).unwrap();
+    let img = d.join("images");
+    std::fs::create_dir_all(&img).unwrap();
+    for i in 0..6 {
+        image::RgbImage::from_pixel(60, 40, image::Rgb([30, 90, 160]))
+            .save(img.join(format!("r{i:02}.png")))
+            .unwrap();
+    }
+    // r06: no file at all.
+    // r07: a JPEG cut in half.
+    let mut jpeg = Vec::new();
+    image::codecs::jpeg::JpegEncoder::new_with_quality(&mut jpeg, 90)
+        .encode_image(&image::RgbImage::from_fn(64, 48, |x, y| {
+            image::Rgb([(x * 4) as u8, (y * 5) as u8, 90])
+        }))
+        .unwrap();
+    std::fs::write(img.join("r07.jpg"), &jpeg[..jpeg.len() / 2]).unwrap();
+    // r08: a PNG whose compressed pixel data is overwritten.
+    let mut png = Vec::new();
+    image::DynamicImage::ImageRgb8(image::RgbImage::from_fn(64, 64, |x, y| {
+        image::Rgb([(x * 4) as u8, (y * 4) as u8, 7])
+    }))
+    .write_to(&mut std::io::Cursor::new(&mut png), image::ImageFormat::Png)
+    .unwrap();
+    let at = png.windows(4).position(|w| w == b"IDAT").unwrap() + 8;
+    png[at..at + 40].fill(0x5a);
+    std::fs::write(img.join("r08.png"), &png).unwrap();
+    // r09: text under an image's name.
+    std::fs::write(img.join("r09.jpg"), b"this is a caption, not an image\n").unwrap();
+    // r10: more pixels than --max-pixels allows (200 x 100 = 20,000 > 10,000).
+    image::RgbImage::from_pixel(200, 100, image::Rgb([200, 200, 200]))
+        .save(img.join("r10.png"))
+        .unwrap();
+    // r11: a folder under an image's name (not an image file: missing).
+    std::fs::create_dir_all(img.join("r11.png")).unwrap();
+    let run = |out: &str, extra: &[&str]| {
+        common::vitrine()
+            .current_dir(d)
+            .args([
+                "build",
+                "--quiet",
+                "--epochs",
+                "30",
+                "--max-pixels",
+                "10000",
+            ])
+            .args(["--vectors", "vectors.npy", "--catalogue", "records.csv"])
+            .args(["--images", "images", "--out", out])
+            .args(extra)
+            .output()
+            .unwrap()
+    };
+    let o = run("atlas", &[]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let a = Atlas::open(&d.join("atlas")).unwrap();
+    assert_eq!(a.manifest.item_count as usize, n);
+    let report: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(d.join("atlas/build-report.json")).unwrap())
+            .unwrap();
+    let kinds: std::collections::BTreeMap<String, (String, String)> = report["image_problems"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|p| {
+            (
+                p["id"].as_str().unwrap().to_string(),
+                (
+                    p["kind"].as_str().unwrap().to_string(),
+                    p["reason"].as_str().unwrap().to_string(),
+                ),
+            )
+        })
+        .collect();
+    let want = [
+        ("r06", "missing"),
+        ("r07", "truncated"),
+        ("r08", "corrupt"),
+        ("r09", "unsupported"),
+        ("r10", "too large"),
+        ("r11", "missing"),
+    ];
+    assert_eq!(kinds.len(), want.len(), "{kinds:?}");
+    for (id, kind) in want {
+        assert_eq!(kinds[id].0, kind, "{id}: {:?}", kinds[id]);
+    }
+    assert!(kinds["r10"].1.contains("200 x 100"), "{:?}", kinds["r10"]);
+    assert!(
+        kinds["r10"].1.contains("--max-pixels"),
+        "{:?}",
+        kinds["r10"]
+    );
+    // The summary line of the build report, and every level's sheets are there.
+    let notes = report["notes"].as_array().unwrap();
+    assert!(
+        notes.iter().any(|s| s
+            .as_str()
+            .unwrap()
+            .starts_with("6 image(s) could not be used")),
+        "{notes:?}"
+    );
+    for level in &a.manifest.sheets.as_ref().unwrap().levels {
+        for f in &level.files {
+            assert!(d.join("atlas").join(f).is_file(), "{f}");
+        }
+    }
+    // The good images have real thumbnails: their average colour is the image's blue.
+    let colours: Vec<u8> = a.array(&a.manifest.colours).unwrap();
+    let ids = a.ids().unwrap();
+    let r00 = (0..n).find(|&i| ids.get(i) == "r00").unwrap();
+    let c = &colours[r00 * 4..r00 * 4 + 3];
+    assert!(c[2] > 130 && c[0] < 60, "{c:?}");
+    // --strict: the build stops, names the images, and leaves the atlas as it was.
+    let before = std::fs::read(d.join("atlas/atlas.json")).unwrap();
+    let o = run("atlas", &["--strict", "--seed", "7"]);
+    assert!(!o.status.success());
+    let e = stderr(&o);
+    assert!(e.contains("--strict: 6 image(s) could not be used"), "{e}");
+    assert!(e.contains("r07") && e.contains("truncated"), "{e}");
+    assert_eq!(std::fs::read(d.join("atlas/atlas.json")).unwrap(), before);
+}
+
+#[test]
+fn scikit_image_photographs_thumbnail_to_their_expected_sizes() {
+    // astronaut (512 x 512) and coffee (600 x 400), as scikit-image ships them, written as PNG
+    // and JPEG by Pillow: the largest level (128 px cells) holds 128 x 128 and 128 x 85.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    common::run_python(
+        r#"
+import sys
+from PIL import Image
+from skimage import data
+out = sys.argv[1]
+Image.fromarray(data.astronaut()).save(f"{out}/astronaut.png")
+Image.fromarray(data.coffee()).save(f"{out}/coffee.jpg", quality=90)
+"#,
+        &[d],
+    );
+    let img = d.join("images");
+    std::fs::create_dir_all(&img).unwrap();
+    std::fs::rename(d.join("astronaut.png"), img.join("astronaut.png")).unwrap();
+    std::fs::rename(d.join("coffee.jpg"), img.join("coffee.jpg")).unwrap();
+    std::fs::write(d.join("records.csv"), "id,title\nastronaut,A\ncoffee,B\n").unwrap();
+    write_npy_f32(
+        &d.join("vectors.npy"),
+        2,
+        3,
+        &[1.0, 0.0, 0.2, 0.1, 1.0, 0.0],
+    )
+    .unwrap();
+    let o = common::vitrine()
+        .current_dir(d)
+        .args([
+            "build",
+            "--quiet",
+            "--vectors",
+            "vectors.npy",
+            "--catalogue",
+            "records.csv",
+        ])
+        .args(["--images", "images", "--out", "atlas"])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", stderr(&o));
+    let a = Atlas::open(&d.join("atlas")).unwrap();
+    let sheets = a.manifest.sheets.as_ref().unwrap();
+    let extents: Vec<u32> = a.array(&sheets.extents).unwrap();
+    let ids = a.ids().unwrap();
+    for (i, &e) in extents.iter().enumerate() {
+        let (w, h) = (e & 0xffff, e >> 16);
+        match ids.get(i) {
+            "astronaut" => assert_eq!((w, h), (128, 128)),
+            "coffee" => assert_eq!((w, h), (128, 85)),
+            other => panic!("{other}"),
+        }
+    }
+}
