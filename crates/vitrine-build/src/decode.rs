@@ -91,6 +91,94 @@ pub fn decode_file(path: &Path, max_pixels: u64) -> Result<(Decoded, Vec<u8>), I
     Ok((d, bytes))
 }
 
+/// Decodes an image for thumbnails whose long side is at most `long_side`. A JPEG whose long side
+/// is at least twice that is decoded at a reduced scale in the DCT domain (1/2, 1/4 or 1/8: the
+/// smallest that still gives `long_side` pixels on the long side), which skips most of the inverse
+/// transform and all of the full-size pixels; other images are decoded whole.
+pub fn decode_for(bytes: &[u8], max_pixels: u64, long_side: u32) -> Result<Decoded, ImageFailure> {
+    if let Some(d) = reduced_jpeg(bytes, max_pixels, long_side)? {
+        return Ok(d);
+    }
+    decode(bytes, max_pixels)
+}
+
+/// The reduced-scale JPEG path of [`decode_for`]; `None` when it does not apply (not a JPEG,
+/// not 8-bit RGB or greyscale, or too small to gain).
+fn reduced_jpeg(
+    bytes: &[u8],
+    max_pixels: u64,
+    long_side: u32,
+) -> Result<Option<Decoded>, ImageFailure> {
+    if !bytes.starts_with(&[0xFF, 0xD8, 0xFF]) {
+        return Ok(None);
+    }
+    let mut d = jpeg_decoder::Decoder::new(Cursor::new(bytes));
+    if d.read_info().is_err() {
+        // The general path says what is wrong.
+        return Ok(None);
+    }
+    let Some(info) = d.info() else {
+        return Ok(None);
+    };
+    let (w, h) = (info.width as u32, info.height as u32);
+    let long = w.max(h);
+    let rgb = matches!(
+        info.pixel_format,
+        jpeg_decoder::PixelFormat::RGB24 | jpeg_decoder::PixelFormat::L8
+    );
+    if !rgb || long < 2 * long_side.max(1) || (w as u64) * (h as u64) > max_pixels {
+        return Ok(None);
+    }
+    if !jpeg_is_complete(bytes) {
+        return Err(ImageFailure::Truncated(
+            "the JPEG data ends before its end-of-image marker".into(),
+        ));
+    }
+    let need = |side: u32| ((side as u64 * long_side as u64).div_ceil(long as u64)).max(1) as u16;
+    let (sw, sh) = d
+        .scale(need(w), need(h))
+        .map_err(|e| ImageFailure::Corrupt(e.to_string()))?;
+    let orientation = d
+        .exif_data()
+        .and_then(image::metadata::Orientation::from_exif_chunk)
+        .unwrap_or(image::metadata::Orientation::NoTransforms);
+    let pixels = d.decode().map_err(|e| match e {
+        jpeg_decoder::Error::Io(io) if io.kind() == std::io::ErrorKind::UnexpectedEof => {
+            ImageFailure::Truncated(io.to_string())
+        }
+        jpeg_decoder::Error::Unsupported(u) => ImageFailure::Unsupported(format!("{u:?}")),
+        other => ImageFailure::Corrupt(other.to_string()),
+    })?;
+    let (sw, sh) = (sw as u32, sh as u32);
+    let img = match info.pixel_format {
+        jpeg_decoder::PixelFormat::L8 => {
+            image::GrayImage::from_raw(sw, sh, pixels).map(DynamicImage::ImageLuma8)
+        }
+        _ => RgbImage::from_raw(sw, sh, pixels).map(DynamicImage::ImageRgb8),
+    };
+    let Some(mut img) = img else {
+        return Err(ImageFailure::Corrupt(
+            "the decoded pixels do not fill the image".into(),
+        ));
+    };
+    img.apply_orientation(orientation);
+    let (width, height) = if is_transposing(orientation) {
+        (h, w)
+    } else {
+        (w, h)
+    };
+    Ok(Some(Decoded {
+        rgb: img.to_rgb8(),
+        width,
+        height,
+    }))
+}
+
+fn is_transposing(o: image::metadata::Orientation) -> bool {
+    use image::metadata::Orientation::*;
+    matches!(o, Rotate90 | Rotate270 | Rotate90FlipH | Rotate270FlipH)
+}
+
 /// Decodes an image held in memory.
 pub fn decode(bytes: &[u8], max_pixels: u64) -> Result<Decoded, ImageFailure> {
     if bytes.is_empty() {

@@ -3,7 +3,7 @@
 
 use std::path::{Path, PathBuf};
 
-use image::{imageops::FilterType, RgbImage};
+use image::RgbImage;
 use rayon::prelude::*;
 
 use crate::decode::ImageFailure;
@@ -47,13 +47,26 @@ pub struct Thumbnailed {
     pub digests: Vec<(String, u64)>,
 }
 
-/// A thumbnail fitted into a `cell` x `cell` square, aspect kept.
+/// A thumbnail fitted into a `cell` x `cell` square, aspect kept, resampled with a Lanczos-3
+/// filter (SIMD convolution).
 fn fit(img: &RgbImage, cell: u32) -> RgbImage {
+    use fast_image_resize as fr;
     let (w, h) = img.dimensions();
     let scale = cell as f64 / w.max(h) as f64;
     let tw = ((w as f64 * scale).round() as u32).clamp(1, cell);
     let th = ((h as f64 * scale).round() as u32).clamp(1, cell);
-    image::imageops::resize(img, tw, th, FilterType::CatmullRom)
+    if (tw, th) == (w, h) {
+        return img.clone();
+    }
+    let mut dst = fr::images::Image::new(tw, th, fr::PixelType::U8x3);
+    let options =
+        fr::ResizeOptions::new().resize_alg(fr::ResizeAlg::Convolution(fr::FilterType::Lanczos3));
+    let src = fr::images::ImageRef::new(w, h, img.as_raw(), fr::PixelType::U8x3)
+        .expect("an RGB8 buffer of its own size");
+    fr::Resizer::new()
+        .resize(&src, &mut dst, &options)
+        .expect("RGB8 to RGB8 resizing has no failure case");
+    RgbImage::from_raw(tw, th, dst.into_vec()).expect("the resizer fills the image")
 }
 
 /// The placeholder drawn for an image that could not be read: a grey card with a cross.
@@ -123,7 +136,8 @@ pub fn make_sheets(
                         Err(e) => Err(ImageFailure::Unreadable(e.to_string())),
                         Ok(bytes) => {
                             digest = (vitrine_format::sha256_hex(&bytes), bytes.len() as u64);
-                            crate::decode::decode(&bytes, plan.max_pixels).map(|d| d.rgb)
+                            crate::decode::decode_for(&bytes, plan.max_pixels, largest)
+                                .map(|d| d.rgb)
                         }
                     },
                 };
@@ -190,12 +204,16 @@ pub fn make_sheets(
                     );
                 }
                 let name = format!("sheets/L{cell}-{sheet_index:05}.jpg");
-                let file = std::fs::File::create(out_dir.join(&name))?;
-                let mut w = std::io::BufWriter::new(file);
-                let enc = image::codecs::jpeg::JpegEncoder::new_with_quality(&mut w, plan.quality);
-                sheet
-                    .write_with_encoder(enc)
+                let mut bytes = Vec::new();
+                jpeg_encoder::Encoder::new(&mut bytes, plan.quality)
+                    .encode(
+                        sheet.as_raw(),
+                        sheet.width() as u16,
+                        sheet.height() as u16,
+                        jpeg_encoder::ColorType::Rgb,
+                    )
                     .map_err(|e| std::io::Error::other(format!("encoding {name}: {e}")))?;
+                std::fs::write(out_dir.join(&name), bytes)?;
                 files[l].push(name);
                 first = last;
             }

@@ -3,7 +3,7 @@
 
 mod common;
 
-use vitrine_build::decode::{decode_file, DEFAULT_MAX_PIXELS};
+use vitrine_build::decode::{decode_file, decode_for, DEFAULT_MAX_PIXELS};
 use vitrine_build::npy::read_npy;
 
 /// Writes the test images and Pillow's decode of each (RGB, alpha flattened onto the paper colour
@@ -140,8 +140,9 @@ fn corner_for(orientation: u32) -> (bool, bool, bool) {
 
 #[test]
 fn exif_orientations_put_the_marked_corner_where_the_standard_says() {
-    // 90 x 60 grey JPEGs whose stored top-left 20 x 20 block is red, each tagged with one of the
-    // eight orientations by Pillow; Pillow's exif_transpose is checked against the same table.
+    // 360 x 240 grey JPEGs whose stored top-left 80 x 80 block is red, each tagged with one of the
+    // eight orientations by Pillow; Pillow's exif_transpose is checked against the same table. The
+    // full decode and the reduced-scale one (for 90 px thumbnails: 1/4) must both follow it.
     let dir = tempfile::tempdir().unwrap();
     let out = common::run_python(
         r#"
@@ -149,14 +150,14 @@ import sys
 from PIL import Image, ImageOps
 out = sys.argv[1]
 for v in range(1, 9):
-    img = Image.new("RGB", (90, 60), (128, 128, 128))
-    img.paste((220, 20, 20), (0, 0, 20, 20))
+    img = Image.new("RGB", (360, 240), (128, 128, 128))
+    img.paste((220, 20, 20), (0, 0, 80, 80))
     exif = Image.Exif()
     exif[0x0112] = v
     img.save(f"{out}/o{v}.jpg", "JPEG", quality=95, exif=exif.tobytes())
     t = ImageOps.exif_transpose(Image.open(f"{out}/o{v}.jpg"))
     w, h = t.size
-    r = [t.getpixel(p)[0] > 180 for p in [(5, 5), (w - 6, 5), (5, h - 6), (w - 6, h - 6)]]
+    r = [t.getpixel(p)[0] > 180 for p in [(10, 10), (w - 11, 10), (10, h - 11), (w - 11, h - 11)]]
     print(v, w, h, "".join("1" if x else "0" for x in r))
 "#,
         &[dir.path()],
@@ -164,17 +165,36 @@ for v in range(1, 9):
     for line in out.lines() {
         let f: Vec<&str> = line.split(' ').collect();
         let v: u32 = f[0].parse().unwrap();
-        let (d, _) =
-            decode_file(&dir.path().join(format!("o{v}.jpg")), DEFAULT_MAX_PIXELS).unwrap();
+        let path = dir.path().join(format!("o{v}.jpg"));
+        let (d, bytes) = decode_file(&path, DEFAULT_MAX_PIXELS).unwrap();
+        let small = decode_for(&bytes, DEFAULT_MAX_PIXELS, 90).unwrap();
         let (right, bottom, swapped) = corner_for(v);
-        let (w, h) = if swapped { (60, 90) } else { (90, 60) };
-        assert_eq!((d.width, d.height), (w, h), "orientation {v}");
-        assert_eq!((d.rgb.width(), d.rgb.height()), (w, h), "orientation {v}");
-        let red = |x: u32, y: u32| d.rgb.get_pixel(x, y)[0] > 180;
-        let probes = [red(5, 5), red(w - 6, 5), red(5, h - 6), red(w - 6, h - 6)];
+        let (w, h) = if swapped { (240, 360) } else { (360, 240) };
         let want_at = (right as usize) + 2 * (bottom as usize);
-        for (p, &is_red) in probes.iter().enumerate() {
-            assert_eq!(is_red, p == want_at, "orientation {v}, corner {p}");
+        let mut probes = [false; 4];
+        for (img, scale) in [(&d, 1), (&small, 4)] {
+            assert_eq!((img.width, img.height), (w, h), "orientation {v}");
+            let (sw, sh) = (w / scale, h / scale);
+            assert_eq!(
+                (img.rgb.width(), img.rgb.height()),
+                (sw, sh),
+                "orientation {v}, 1/{scale}"
+            );
+            let red = |x: u32, y: u32| img.rgb.get_pixel(x, y)[0] > 180;
+            let m = 10 / scale;
+            probes = [
+                red(m, m),
+                red(sw - 1 - m, m),
+                red(m, sh - 1 - m),
+                red(sw - 1 - m, sh - 1 - m),
+            ];
+            for (p, &is_red) in probes.iter().enumerate() {
+                assert_eq!(
+                    is_red,
+                    p == want_at,
+                    "orientation {v}, 1/{scale}, corner {p}"
+                );
+            }
         }
         // Pillow agrees with the table and with us.
         assert_eq!(
@@ -185,4 +205,51 @@ for v in range(1, 9):
         assert_eq!(pillow, probes, "orientation {v}: Pillow's corners");
     }
     assert_eq!(out.lines().count(), 8);
+}
+
+#[test]
+fn reduced_scale_jpeg_decoding_matches_pillows_draft_mode() {
+    // Pillow's draft() makes libjpeg-turbo decode at a reduced DCT scale; ours must give the same
+    // size and nearly the same pixels at each scale (1/2, 1/4, 1/8). The JPEG standard does not
+    // define scaled decoding, and the two libraries' reduced inverse transforms and chroma
+    // upsampling differ, so a mean absolute error of up to 2 (of 255) is allowed.
+    let dir = tempfile::tempdir().unwrap();
+    let out = common::run_python(
+        r#"
+import sys, numpy as np
+from PIL import Image
+from skimage import data
+out = sys.argv[1]
+big = Image.fromarray(data.astronaut()).resize((2048, 1536), Image.BICUBIC)
+big.save(f"{out}/big.jpg", quality=90)
+for s in (2, 4, 8):
+    im = Image.open(f"{out}/big.jpg")
+    im.draft("RGB", (2048 // s, 1536 // s))
+    a = np.asarray(im.convert("RGB"))
+    h, w, _ = a.shape
+    np.save(f"{out}/draft{s}.npy", a.reshape(h, w * 3).astype(np.float32))
+    print(s, w, h)
+"#,
+        &[dir.path()],
+    );
+    let bytes = std::fs::read(dir.path().join("big.jpg")).unwrap();
+    for line in out.lines() {
+        let f: Vec<u32> = line.split(' ').map(|x| x.parse().unwrap()).collect();
+        let (s, w, h) = (f[0], f[1], f[2]);
+        let d = decode_for(&bytes, DEFAULT_MAX_PIXELS, 2048 / s).unwrap();
+        assert_eq!((d.width, d.height), (2048, 1536));
+        assert_eq!((d.rgb.width(), d.rgb.height()), (w, h), "1/{s}");
+        let want = rows_of(&read_npy(&dir.path().join(format!("draft{s}.npy"))).unwrap());
+        let mae = d
+            .rgb
+            .as_raw()
+            .iter()
+            .zip(&want)
+            .map(|(&a, &b)| (a as f64 - b as f64).abs())
+            .sum::<f64>()
+            / want.len() as f64;
+        eprintln!("1/{s}: mean absolute error {mae:.3} against Pillow's draft decode");
+        assert!(mae <= 2.0, "1/{s}: mean absolute error {mae:.3}");
+    }
+    assert_eq!(out.lines().count(), 3);
 }
