@@ -100,11 +100,22 @@ case "${1:-}" in
     cargo build --locked --release -p vitrine-build --bin vitrine-bench --bin vitrine
     shift
     "$CACHE/venv/bin/python" bench/bench_map.py --vitrine-bench "$PWD/target/release/vitrine-bench" "$@" ;;
+  bench-images)
+    setup
+    if ! command -v vipsthumbnail >/dev/null; then
+      echo "[bench] vipsthumbnail from Debian (libvips-tools)"
+      sudo=""; [ "$(id -u)" = 0 ] || sudo="sudo"
+      $sudo apt-get update -qq
+      DEBIAN_FRONTEND=noninteractive $sudo apt-get install -y -qq libvips-tools
+    fi
+    cargo build --locked --release -p vitrine-build --bin vitrine-bench
+    shift
+    "$CACHE/venv/bin/python" bench/bench_images.py --vitrine-bench "$PWD/target/release/vitrine-bench" "$@" ;;
   atlas) build_viewer; echo "viewer files in target/viewer (vitrine build copies them into each atlas)" ;;
   demo)
     setup_rust
     build_demo
     echo "[demo] serving demo-atlas/out"
     exec ./target/release/vitrine serve demo-atlas/out --port "${PORT:-8080}" ;;
-  *) echo "usage: ./build.sh setup|demo|test|atlas|bench-map [--million]" >&2; exit 2 ;;
+  *) echo "usage: ./build.sh setup|demo|test|atlas|bench-map [--million]|bench-images" >&2; exit 2 ;;
 esac

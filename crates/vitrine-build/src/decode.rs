@@ -222,13 +222,50 @@ pub fn decode(bytes: &[u8], max_pixels: u64) -> Result<Decoded, ImageFailure> {
     })
 }
 
-/// 8-bit RGB, alpha flattened onto [`PAPER`] (premultiplied, rounded).
+/// The nearest 8-bit value of a 16-bit sample (v / 257, rounded).
+#[inline]
+fn to8(v: u16) -> u8 {
+    ((v as u32 + 128) / 257) as u8
+}
+
+/// 8-bit RGB, alpha flattened onto [`PAPER`] (premultiplied, rounded). The common layouts are
+/// converted here with integer arithmetic; the rest through the `image` crate.
 fn to_rgb8(img: DynamicImage) -> RgbImage {
+    let (w, h) = (img.width(), img.height());
+    let from = |samples: &[u8], per: usize| -> RgbImage {
+        let mut out = Vec::with_capacity(w as usize * h as usize * 3);
+        match per {
+            1 => samples
+                .iter()
+                .for_each(|&v| out.extend_from_slice(&[v, v, v])),
+            _ => out.extend_from_slice(samples),
+        }
+        RgbImage::from_raw(w, h, out).expect("w x h pixels")
+    };
+    match &img {
+        DynamicImage::ImageRgb8(_) => return img.into_rgb8(),
+        DynamicImage::ImageLuma8(g) => return from(g.as_raw(), 1),
+        DynamicImage::ImageLuma16(g) => {
+            let v: Vec<u8> = g.as_raw().iter().map(|&v| to8(v)).collect();
+            return from(&v, 1);
+        }
+        DynamicImage::ImageRgb16(c) => {
+            let v: Vec<u8> = c.as_raw().iter().map(|&v| to8(v)).collect();
+            return from(&v, 3);
+        }
+        _ => {}
+    }
     if !img.color().has_alpha() {
         return img.to_rgb8();
     }
-    let rgba = img.to_rgba8();
-    let mut out = RgbImage::new(rgba.width(), rgba.height());
+    let rgba = match &img {
+        DynamicImage::ImageRgba16(c) => {
+            image::RgbaImage::from_raw(w, h, c.as_raw().iter().map(|&v| to8(v)).collect())
+                .expect("w x h pixels")
+        }
+        _ => img.to_rgba8(),
+    };
+    let mut out = RgbImage::new(w, h);
     for (o, p) in out.pixels_mut().zip(rgba.pixels()) {
         let a = p[3] as u32;
         for c in 0..3 {
@@ -366,5 +403,29 @@ mod tests {
         ));
         let d = decode(&png(&grey), DEFAULT_MAX_PIXELS).unwrap();
         assert_eq!(d.rgb.get_pixel(1, 1).0, [0x80, 0x80, 0x80]);
+        // 16-bit colour, with and without alpha: each sample to its nearest 8-bit value.
+        let samples = [0u16, 128, 129, 385, 386, 32767, 65406, 65535];
+        let want = [0u8, 0, 1, 1, 2, 127, 254, 255];
+        for (&v, &e) in samples.iter().zip(&want) {
+            assert_eq!(
+                ((v as f64) / 257.0).round() as u8,
+                e,
+                "the table itself, {v}"
+            );
+            let c = DynamicImage::ImageRgb16(image::ImageBuffer::from_pixel(
+                2,
+                1,
+                image::Rgb([v, 0, 65535]),
+            ));
+            let d = decode(&png(&c), DEFAULT_MAX_PIXELS).unwrap();
+            assert_eq!(d.rgb.get_pixel(0, 0).0, [e, 0, 255], "{v}");
+            let a = DynamicImage::ImageRgba16(image::ImageBuffer::from_pixel(
+                2,
+                1,
+                image::Rgba([v, v, v, 65535]),
+            ));
+            let d = decode(&png(&a), DEFAULT_MAX_PIXELS).unwrap();
+            assert_eq!(d.rgb.get_pixel(1, 0).0, [e, e, e], "{v}");
+        }
     }
 }

@@ -1231,7 +1231,16 @@ fn write_atlas(
                 })
                 .collect();
             let extents = w.add("thumbnail-extents", &t.extents);
-            (t.colours, Some(Sheets { levels, extents }))
+            let flat: Vec<u32> = t.sizes.iter().flatten().copied().collect();
+            let image_sizes = Some(w.add("image-sizes", &flat));
+            (
+                t.colours,
+                Some(Sheets {
+                    levels,
+                    extents,
+                    image_sizes,
+                }),
+            )
         }
         None => {
             let colours = (0..n)

@@ -40,6 +40,8 @@ pub struct Thumbnailed {
     pub colours: Vec<[u8; 4]>,
     /// Per item: thumbnail width | height << 16 in the largest cell.
     pub extents: Vec<u32>,
+    /// Per item: the image's width and height as shown (0, 0 when it could not be used).
+    pub sizes: Vec<[u32; 2]>,
     /// Per level: sheet file names relative to the atlas.
     pub files: Vec<Vec<String>>,
     pub problems: Vec<ImageProblem>,
@@ -67,6 +69,27 @@ fn fit(img: &RgbImage, cell: u32) -> RgbImage {
         .resize(&src, &mut dst, &options)
         .expect("RGB8 to RGB8 resizing has no failure case");
     RgbImage::from_raw(tw, th, dst.into_vec()).expect("the resizer fills the image")
+}
+
+/// One image's thumbnail with `long_side` pixels on its long side (fewer if the image is smaller):
+/// the reduced-scale decode where it applies, then the Lanczos-3 fit.
+pub fn thumbnail(bytes: &[u8], max_pixels: u64, long_side: u32) -> Result<RgbImage, ImageFailure> {
+    let d = crate::decode::decode_for(bytes, max_pixels, long_side)?;
+    Ok(fit(&d.rgb, long_side))
+}
+
+/// Encodes RGB pixels as a baseline JPEG (4:2:0) at `quality`.
+pub fn encode_jpeg(img: &RgbImage, quality: u8) -> std::io::Result<Vec<u8>> {
+    let mut bytes = Vec::new();
+    jpeg_encoder::Encoder::new(&mut bytes, quality)
+        .encode(
+            img.as_raw(),
+            img.width() as u16,
+            img.height() as u16,
+            jpeg_encoder::ColorType::Rgb,
+        )
+        .map_err(|e| std::io::Error::other(e.to_string()))?;
+    Ok(bytes)
 }
 
 /// The placeholder drawn for an image that could not be read: a grey card with a cross.
@@ -105,6 +128,7 @@ pub fn make_sheets(
     let largest = *plan.cells.last().expect("at least one level");
     let mut colours = vec![[0u8; 4]; n];
     let mut extents = vec![0u32; n];
+    let mut sizes = vec![[0u32; 2]; n];
     let mut problems = Vec::new();
     let mut digests = vec![(String::new(), 0u64); n];
     let mut files: Vec<Vec<String>> = vec![Vec::new(); plan.cells.len()];
@@ -123,7 +147,9 @@ pub fn make_sheets(
     let mut start = 0;
     while start < n {
         let end = (start + batch).min(n);
-        let thumbs: Vec<(Vec<RgbImage>, Option<ImageFailure>, (String, u64))> = images[start..end]
+        #[allow(clippy::type_complexity)]
+        let thumbs: Vec<(Vec<RgbImage>, Option<ImageFailure>, (String, u64), [u32; 2])> = images
+            [start..end]
             .par_iter()
             .map(|(_, path)| {
                 let mut digest = (String::new(), 0);
@@ -137,7 +163,6 @@ pub fn make_sheets(
                         Ok(bytes) => {
                             digest = (vitrine_format::sha256_hex(&bytes), bytes.len() as u64);
                             crate::decode::decode_for(&bytes, plan.max_pixels, largest)
-                                .map(|d| d.rgb)
                         }
                     },
                 };
@@ -146,25 +171,28 @@ pub fn make_sheets(
                     progress(c);
                 }
                 match result {
-                    Ok(img) => {
-                        let big = fit(&img, largest);
+                    Ok(d) => {
+                        let size = [d.width, d.height];
+                        let big = fit(&d.rgb, largest);
                         let mut levels: Vec<RgbImage> = plan.cells[..plan.cells.len() - 1]
                             .iter()
                             .map(|&c| fit(&big, c))
                             .collect();
                         levels.push(big);
-                        (levels, None, digest)
+                        (levels, None, digest, size)
                     }
                     Err(reason) => (
                         plan.cells.iter().map(|&c| placeholder(c)).collect(),
                         Some(reason),
                         digest,
+                        [0, 0],
                     ),
                 }
             })
             .collect();
-        for (off, (levels, problem, digest)) in thumbs.iter().enumerate() {
+        for (off, (levels, problem, digest, size)) in thumbs.iter().enumerate() {
             let i = start + off;
+            sizes[i] = *size;
             digests[i] = digest.clone();
             let big = levels.last().unwrap();
             extents[i] = big.width() | (big.height() << 16);
@@ -204,14 +232,7 @@ pub fn make_sheets(
                     );
                 }
                 let name = format!("sheets/L{cell}-{sheet_index:05}.jpg");
-                let mut bytes = Vec::new();
-                jpeg_encoder::Encoder::new(&mut bytes, plan.quality)
-                    .encode(
-                        sheet.as_raw(),
-                        sheet.width() as u16,
-                        sheet.height() as u16,
-                        jpeg_encoder::ColorType::Rgb,
-                    )
+                let bytes = encode_jpeg(&sheet, plan.quality)
                     .map_err(|e| std::io::Error::other(format!("encoding {name}: {e}")))?;
                 std::fs::write(out_dir.join(&name), bytes)?;
                 files[l].push(name);
@@ -223,6 +244,7 @@ pub fn make_sheets(
     Ok(Thumbnailed {
         colours,
         extents,
+        sizes,
         files,
         problems,
         digests,

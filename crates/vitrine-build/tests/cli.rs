@@ -1094,6 +1094,28 @@ fn every_image_failure_gets_a_placeholder_and_a_report_entry_unless_strict() {
             assert!(d.join("atlas").join(f).is_file(), "{f}");
         }
     }
+    // Sizes of the originals: 60 x 40 for the good ones, 0 x 0 where there was no usable image.
+    let sizes: Vec<u32> = a
+        .array(
+            a.manifest
+                .sheets
+                .as_ref()
+                .unwrap()
+                .image_sizes
+                .as_ref()
+                .unwrap(),
+        )
+        .unwrap();
+    let ids_t = a.ids().unwrap();
+    for i in 0..n {
+        let id = ids_t.get(i);
+        let want = if kinds.contains_key(id) {
+            [0, 0]
+        } else {
+            [60, 40]
+        };
+        assert_eq!([sizes[2 * i], sizes[2 * i + 1]], want, "{id}");
+    }
     // The good images have real thumbnails: their average colour is the image's blue.
     let colours: Vec<u8> = a.array(&a.manifest.colours).unwrap();
     let ids = a.ids().unwrap();
@@ -1156,12 +1178,14 @@ Image.fromarray(data.coffee()).save(f"{out}/coffee.jpg", quality=90)
     let a = Atlas::open(&d.join("atlas")).unwrap();
     let sheets = a.manifest.sheets.as_ref().unwrap();
     let extents: Vec<u32> = a.array(&sheets.extents).unwrap();
+    let sizes: Vec<u32> = a.array(sheets.image_sizes.as_ref().unwrap()).unwrap();
     let ids = a.ids().unwrap();
     for (i, &e) in extents.iter().enumerate() {
         let (w, h) = (e & 0xffff, e >> 16);
+        let original = (sizes[2 * i], sizes[2 * i + 1]);
         match ids.get(i) {
-            "astronaut" => assert_eq!((w, h), (128, 128)),
-            "coffee" => assert_eq!((w, h), (128, 85)),
+            "astronaut" => assert_eq!(((w, h), original), ((128, 128), (512, 512))),
+            "coffee" => assert_eq!(((w, h), original), ((128, 85), (600, 400))),
             other => panic!("{other}"),
         }
     }

@@ -377,6 +377,10 @@ pub struct Sheets {
     pub levels: Vec<SheetLevel>,
     /// u32 per item: thumbnail width and height inside its cell at the largest level, packed as w | h << 16.
     pub extents: ArrayRef,
+    /// u32 pairs per item (2 x items values): the image's width and height in pixels as shown, after
+    /// its EXIF orientation; 0, 0 where the image could not be used.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub image_sizes: Option<ArrayRef>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -535,6 +539,9 @@ impl Manifest {
         }
         if let Some(s) = &self.sheets {
             want(&s.extents, n, DType::U32)?;
+            if let Some(sizes) = &s.image_sizes {
+                want(sizes, 2 * n, DType::U32)?;
+            }
             for l in &s.levels {
                 let per = (l.columns as u64) * (l.rows as u64);
                 if per == 0 || (l.files.len() as u64) < n.div_ceil(per) {
@@ -566,6 +573,9 @@ impl Manifest {
         }
         if let Some(s) = &self.sheets {
             v.push(&s.extents);
+            if let Some(sizes) = &s.image_sizes {
+                v.push(sizes);
+            }
         }
         if let Some(c) = &self.clusters {
             v.push(&c.ids);

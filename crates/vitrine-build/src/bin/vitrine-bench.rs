@@ -16,7 +16,10 @@ use vitrine_build::npy::{read_npy, write_npy_f32};
 fn main() -> anyhow::Result<()> {
     vitrine_build::keep_freed_memory();
     let args: Vec<String> = std::env::args().collect();
-    let usage = "usage: vitrine-bench knn|map VECTORS.npy OUT.npy [cosine|euclidean] [k] [sequential|parallel]";
+    if args.get(1).map(String::as_str) == Some("images") {
+        return images(&args[2..]);
+    }
+    let usage = "usage: vitrine-bench knn|map VECTORS.npy OUT.npy [cosine|euclidean] [k] [sequential|parallel]\n       vitrine-bench images IMAGES_DIR OUT_DIR [long side, default 512]";
     let (stage, input, out) = match (args.get(1), args.get(2), args.get(3)) {
         (Some(s), Some(i), Some(o)) => (s.as_str(), PathBuf::from(i), PathBuf::from(o)),
         _ => anyhow::bail!(usage),
@@ -85,5 +88,53 @@ fn main() -> anyhow::Result<()> {
         }
         _ => anyhow::bail!(usage),
     }
+    Ok(())
+}
+
+/// Thumbnails every file of a folder to one JPEG each (quality 85, `long side` px), on all cores:
+/// the same job as the reference thumbnailers get. Prints one JSON line.
+fn images(args: &[String]) -> anyhow::Result<()> {
+    use rayon::prelude::*;
+    let (src, out) = match (args.first(), args.get(1)) {
+        (Some(s), Some(o)) => (PathBuf::from(s), PathBuf::from(o)),
+        _ => anyhow::bail!("usage: vitrine-bench images IMAGES_DIR OUT_DIR [long side]"),
+    };
+    let long: u32 = args.get(2).map(|s| s.parse()).transpose()?.unwrap_or(512);
+    std::fs::create_dir_all(&out)?;
+    let mut files: Vec<PathBuf> = std::fs::read_dir(&src)?
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|p| p.is_file() && !p.file_name().unwrap().to_string_lossy().starts_with('.'))
+        .collect();
+    files.sort();
+    let t = Instant::now();
+    let failed: usize = files
+        .par_iter()
+        .map(|p| -> anyhow::Result<usize> {
+            let bytes = std::fs::read(p)?;
+            match vitrine_build::thumbs::thumbnail(
+                &bytes,
+                vitrine_build::decode::DEFAULT_MAX_PIXELS,
+                long,
+            ) {
+                Ok(img) => {
+                    let jpeg = vitrine_build::thumbs::encode_jpeg(&img, 85)?;
+                    let name = p.file_stem().unwrap().to_string_lossy().to_string() + ".jpg";
+                    std::fs::write(out.join(name), jpeg)?;
+                    Ok(0)
+                }
+                Err(e) => {
+                    eprintln!("{}: {e}", p.display());
+                    Ok(1)
+                }
+            }
+        })
+        .sum::<anyhow::Result<usize>>()?;
+    let secs = t.elapsed().as_secs_f64();
+    println!(
+        "{{\"stage\":\"images\",\"images\":{},\"failed\":{failed},\"seconds\":{secs:.3},\"per_second\":{:.2},\"threads\":{}}}",
+        files.len(),
+        files.len() as f64 / secs,
+        rayon::current_num_threads()
+    );
     Ok(())
 }
