@@ -20,6 +20,7 @@ pub mod read;
 pub mod rng;
 pub mod serve;
 pub mod spectral;
+pub mod thumbcache;
 pub mod thumbs;
 pub mod timeline;
 pub mod umap;

@@ -120,6 +120,13 @@ enum Command {
         /// placeholder for it.
         #[arg(long)]
         strict: bool,
+        /// Folder where thumbnails are kept so that a rebuild reuses those of unchanged image
+        /// files (same path, size and modification time). Default: ~/.cache/vitrine/thumbs.
+        #[arg(long, value_name = "DIR")]
+        thumb_cache: Option<PathBuf>,
+        /// Make every thumbnail afresh and keep none.
+        #[arg(long, conflicts_with = "thumb_cache")]
+        no_thumb_cache: bool,
         /// Folder with the viewer files to copy into the atlas (default: found beside the program).
         #[arg(long)]
         viewer: Option<PathBuf>,
@@ -179,6 +186,8 @@ fn run() -> anyhow::Result<()> {
             jpeg_quality,
             max_pixels,
             strict,
+            thumb_cache,
+            no_thumb_cache,
             viewer,
             quiet,
         } => {
@@ -225,6 +234,11 @@ fn run() -> anyhow::Result<()> {
             }
             opts.max_pixels = max_pixels;
             opts.strict = strict;
+            opts.thumb_cache = if no_thumb_cache {
+                None
+            } else {
+                thumb_cache.or_else(vitrine_build::thumbcache::default_dir)
+            };
             opts.viewer = viewer;
             opts.quiet = quiet;
             let report = build(&opts)?;

@@ -89,6 +89,8 @@ pub struct BuildOptions {
     pub max_pixels: u64,
     /// Stop the build when any image cannot be used, instead of drawing a placeholder.
     pub strict: bool,
+    /// Where thumbnails of unchanged image files are kept for the next build (None: no cache).
+    pub thumb_cache: Option<PathBuf>,
     pub viewer: Option<PathBuf>,
     pub quiet: bool,
 }
@@ -118,6 +120,7 @@ impl BuildOptions {
             jpeg_quality: 85,
             max_pixels: crate::decode::DEFAULT_MAX_PIXELS,
             strict: false,
+            thumb_cache: None,
             viewer: None,
             quiet: false,
         }
@@ -131,6 +134,9 @@ pub struct BuildReport {
     pub stages: Vec<(String, f64)>,
     pub peak_memory_mib: Option<f64>,
     pub image_problems: Vec<ImageProblem>,
+    /// Thumbnails made from their image files, and taken unchanged from the thumbnail cache.
+    pub thumbnails_made: usize,
+    pub thumbnails_reused: usize,
     pub value_warnings: Vec<ValueWarning>,
     pub notes: Vec<String>,
 }
@@ -1163,8 +1169,33 @@ fn write_atlas(
                 .map(|&i| (items.ids[i].clone(), paths[i].clone()))
                 .collect();
             let pb = bar(opts.quiet, n as u64, "thumbnails");
-            let t = thumbs::make_sheets(&list, &plan, dir, &|c| pb.set_position(c))?;
+            let cache = opts.thumb_cache.as_ref().map(|d| {
+                crate::thumbcache::ThumbCache::new(
+                    d.clone(),
+                    *plan.cells.iter().max().unwrap(),
+                    plan.max_pixels,
+                )
+            });
+            let t =
+                thumbs::make_sheets(&list, &plan, dir, cache.as_ref(), &|c| pb.set_position(c))?;
             pb.finish_and_clear();
+            report.thumbnails_reused = t.reused;
+            report.thumbnails_made = n - t.reused - t.problems.len();
+            if cache.is_some() && !opts.quiet {
+                eprintln!(
+                    "thumbnails: {} made, {} reused from the cache ({})",
+                    report.thumbnails_made,
+                    t.reused,
+                    opts.thumb_cache.as_ref().unwrap().display()
+                );
+            }
+            if t.cache_errors > 0 {
+                report.notes.push(format!(
+                    "{} thumbnail(s) could not be stored in the cache {}; the next build makes them again",
+                    t.cache_errors,
+                    opts.thumb_cache.as_ref().unwrap().display()
+                ));
+            }
             if opts.strict && !t.problems.is_empty() {
                 let listed: Vec<String> = t
                     .problems

@@ -42,6 +42,10 @@ pub struct Thumbnailed {
     pub extents: Vec<u32>,
     /// Per item: the image's width and height as shown (0, 0 when it could not be used).
     pub sizes: Vec<[u32; 2]>,
+    /// Thumbnails taken from the cache (their files unchanged since they were made).
+    pub reused: usize,
+    /// Cache entries that could not be written.
+    pub cache_errors: usize,
     /// Per level: sheet file names relative to the atlas.
     pub files: Vec<Vec<String>>,
     pub problems: Vec<ImageProblem>,
@@ -122,6 +126,7 @@ pub fn make_sheets(
     images: &[(String, Result<PathBuf, String>)],
     plan: &SheetPlan,
     out_dir: &Path,
+    cache: Option<&crate::thumbcache::ThumbCache>,
     progress: &(dyn Fn(u64) + Sync),
 ) -> std::io::Result<Thumbnailed> {
     let n = images.len();
@@ -144,6 +149,8 @@ pub fn make_sheets(
         .unwrap();
     // Every level's sheet capacity divides the batch (cells are powers of two fractions of the sheet).
     let done = std::sync::atomic::AtomicU64::new(0);
+    let reused = std::sync::atomic::AtomicUsize::new(0);
+    let cache_errors = std::sync::atomic::AtomicUsize::new(0);
     let mut start = 0;
     while start < n {
         let end = (start + batch).min(n);
@@ -155,25 +162,56 @@ pub fn make_sheets(
                 let mut digest = (String::new(), 0);
                 let result = match path {
                     Err(reason) => Err(ImageFailure::Missing(reason.clone())),
-                    Ok(p) => match std::fs::read(p) {
-                        Err(e) if e.kind() == std::io::ErrorKind::NotFound => {
-                            Err(ImageFailure::Missing("the file does not exist".into()))
+                    Ok(p) => {
+                        let key = cache.and_then(|c| c.key(p));
+                        let hit = cache.zip(key.as_ref()).and_then(|(c, k)| c.get(k));
+                        match hit {
+                            Some(e) => {
+                                reused.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+                                digest = e.digest;
+                                Ok((e.thumb, e.size))
+                            }
+                            None => match std::fs::read(p) {
+                                Err(e) if e.kind() == std::io::ErrorKind::NotFound => {
+                                    Err(ImageFailure::Missing("the file does not exist".into()))
+                                }
+                                Err(e) => Err(ImageFailure::Unreadable(e.to_string())),
+                                Ok(bytes) => {
+                                    digest =
+                                        (vitrine_format::sha256_hex(&bytes), bytes.len() as u64);
+                                    crate::decode::decode_for(&bytes, plan.max_pixels, largest).map(
+                                        |d| {
+                                            let big = fit(&d.rgb, largest);
+                                            let size = [d.width, d.height];
+                                            if let (Some(c), Some(k)) = (cache, &key) {
+                                                let e = crate::thumbcache::Entry {
+                                                    size,
+                                                    digest: digest.clone(),
+                                                    thumb: big,
+                                                };
+                                                if c.put(k, &e).is_err() {
+                                                    cache_errors.fetch_add(
+                                                        1,
+                                                        std::sync::atomic::Ordering::Relaxed,
+                                                    );
+                                                }
+                                                (e.thumb, size)
+                                            } else {
+                                                (big, size)
+                                            }
+                                        },
+                                    )
+                                }
+                            },
                         }
-                        Err(e) => Err(ImageFailure::Unreadable(e.to_string())),
-                        Ok(bytes) => {
-                            digest = (vitrine_format::sha256_hex(&bytes), bytes.len() as u64);
-                            crate::decode::decode_for(&bytes, plan.max_pixels, largest)
-                        }
-                    },
+                    }
                 };
                 let c = done.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
                 if c % 16 == 0 {
                     progress(c);
                 }
                 match result {
-                    Ok(d) => {
-                        let size = [d.width, d.height];
-                        let big = fit(&d.rgb, largest);
+                    Ok((big, size)) => {
                         let mut levels: Vec<RgbImage> = plan.cells[..plan.cells.len() - 1]
                             .iter()
                             .map(|&c| fit(&big, c))
@@ -242,6 +280,8 @@ pub fn make_sheets(
         start = end;
     }
     Ok(Thumbnailed {
+        reused: reused.into_inner(),
+        cache_errors: cache_errors.into_inner(),
         colours,
         extents,
         sizes,

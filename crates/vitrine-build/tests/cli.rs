@@ -1190,3 +1190,113 @@ Image.fromarray(data.coffee()).save(f"{out}/coffee.jpg", quality=90)
         }
     }
 }
+
+#[test]
+fn a_rebuild_reuses_the_thumbnails_of_unchanged_images_and_remakes_the_rest() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let img = d.join("images");
+    std::fs::create_dir_all(&img).unwrap();
+    let write = |n: usize| {
+        let data: Vec<f32> = (0..n * 4).map(|i| ((i * 7) % 13) as f32 + 1.0).collect();
+        write_npy_f32(&d.join("vectors.npy"), n, 4, &data).unwrap();
+        let mut csv = String::from("id\n");
+        for i in 0..n {
+            csv.push_str(&format!("p{i:02}\n"));
+        }
+        std::fs::write(d.join("records.csv"), csv).unwrap();
+    };
+    let colour = |i: usize| image::Rgb([(i * 8) as u8, 200 - (i * 5) as u8, 60]);
+    for i in 0..30 {
+        image::RgbImage::from_fn(90, 60, |x, _| {
+            if x < 5 {
+                image::Rgb([0, 0, 0])
+            } else {
+                colour(i)
+            }
+        })
+        .save(img.join(format!("p{i:02}.png")))
+        .unwrap();
+    }
+    write(30);
+    let build = |out: &str, cache: Option<&str>| {
+        let mut c = common::vitrine();
+        c.current_dir(d)
+            .args([
+                "build",
+                "--quiet",
+                "--epochs",
+                "30",
+                "--vectors",
+                "vectors.npy",
+            ])
+            .args([
+                "--catalogue",
+                "records.csv",
+                "--images",
+                "images",
+                "--out",
+                out,
+            ]);
+        match cache {
+            Some(dir) => c.args(["--thumb-cache", dir]),
+            None => c.arg("--no-thumb-cache"),
+        };
+        let o = c.output().unwrap();
+        assert!(o.status.success(), "{}", stderr(&o));
+        let r: serde_json::Value = serde_json::from_str(
+            &std::fs::read_to_string(d.join(out).join("build-report.json")).unwrap(),
+        )
+        .unwrap();
+        (
+            r["thumbnails_made"].as_u64().unwrap(),
+            r["thumbnails_reused"].as_u64().unwrap(),
+        )
+    };
+    let sheets = |out: &str| -> Vec<(String, Vec<u8>)> {
+        let mut v: Vec<_> = std::fs::read_dir(d.join(out).join("sheets"))
+            .unwrap()
+            .map(|e| e.unwrap().path())
+            .map(|p| {
+                (
+                    p.file_name().unwrap().to_string_lossy().to_string(),
+                    std::fs::read(&p).unwrap(),
+                )
+            })
+            .collect();
+        v.sort();
+        v
+    };
+    assert_eq!(build("first", Some("cache")), (30, 0));
+    assert_eq!(build("fresh", None), (30, 0));
+    // Nothing changed: every thumbnail comes from the cache, and the sheets are the same bytes
+    // as those of a build that made every thumbnail afresh.
+    assert_eq!(build("again", Some("cache")), (0, 30));
+    assert_eq!(sheets("again"), sheets("fresh"));
+    let digests =
+        |out: &str| std::fs::read_to_string(d.join(out).join("image-digests.txt")).unwrap();
+    assert_eq!(digests("again"), digests("fresh"));
+    // One image repainted (another size on disk) and one record added: those two are made.
+    image::RgbImage::from_pixel(70, 70, image::Rgb([250, 20, 200]))
+        .save(img.join("p03.png"))
+        .unwrap();
+    image::RgbImage::from_pixel(40, 80, image::Rgb([10, 10, 250]))
+        .save(img.join("p30.png"))
+        .unwrap();
+    write(31);
+    assert_eq!(build("grown", Some("cache")), (2, 29));
+    let a = Atlas::open(&d.join("grown")).unwrap();
+    let ids = a.ids().unwrap();
+    let colours: Vec<u8> = a.array(&a.manifest.colours).unwrap();
+    let at = |id: &str| {
+        let i = (0..31).find(|&i| ids.get(i) == id).unwrap();
+        [colours[4 * i], colours[4 * i + 1], colours[4 * i + 2]]
+    };
+    let p03 = at("p03");
+    assert!(
+        p03[0] > 230 && p03[1] < 40 && p03[2] > 180,
+        "repainted p03: {p03:?}"
+    );
+    let p30 = at("p30");
+    assert!(p30[2] > 230 && p30[0] < 30, "new p30: {p30:?}");
+}

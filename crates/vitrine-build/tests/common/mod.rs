@@ -37,6 +37,13 @@ pub fn run_python(script: &str, args: &[&Path]) -> String {
     String::from_utf8(out.stdout).unwrap()
 }
 
+/// The `vitrine` binary, with its default thumbnail cache inside the build's temporary folder
+/// (never the user's own cache).
 pub fn vitrine() -> Command {
-    Command::new(env!("CARGO_BIN_EXE_vitrine"))
+    let mut c = Command::new(env!("CARGO_BIN_EXE_vitrine"));
+    c.env(
+        "VITRINE_CACHE",
+        PathBuf::from(env!("CARGO_TARGET_TMPDIR")).join("vitrine-cache"),
+    );
+    c
 }

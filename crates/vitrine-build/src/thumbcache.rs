@@ -1,0 +1,163 @@
+//! The thumbnail cache: a rebuild reuses the thumbnail of every image file that is unchanged
+//! since it was last thumbnailed (same path, byte size and modification time), so adding a
+//! thousand images to a hundred thousand does not redo the hundred thousand.
+//!
+//! One entry per image, named by a SHA-256 of what the thumbnail depends on (the file's absolute
+//! path, size and modification time, the largest cell, the pixel limit and this format's version):
+//! the original's size as shown, the file's SHA-256 (for the provenance), and the largest level's
+//! pixels as PNG, lossless, so that a reused thumbnail gives the same sheets as a fresh one.
+//! Entries are written to a temporary name and renamed, so a crash never leaves half an entry;
+//! an entry that cannot be read is treated as absent.
+
+use std::io::Cursor;
+use std::path::{Path, PathBuf};
+
+use image::RgbImage;
+use sha2::{Digest, Sha256};
+
+const MAGIC: &[u8; 4] = b"VTC1";
+/// Bumped whenever decoding or fitting changes what a thumbnail looks like.
+const VERSION: u32 = 1;
+
+/// A cached thumbnail.
+pub struct Entry {
+    /// The original's width and height as shown.
+    pub size: [u32; 2],
+    /// SHA-256 (hex) and byte size of the image file.
+    pub digest: (String, u64),
+    /// The largest level's thumbnail.
+    pub thumb: RgbImage,
+}
+
+/// The cache folder and what every key shares.
+pub struct ThumbCache {
+    dir: PathBuf,
+    salt: Vec<u8>,
+}
+
+impl ThumbCache {
+    pub fn new(dir: PathBuf, largest_cell: u32, max_pixels: u64) -> ThumbCache {
+        let mut salt = Vec::new();
+        salt.extend_from_slice(&VERSION.to_le_bytes());
+        salt.extend_from_slice(&largest_cell.to_le_bytes());
+        salt.extend_from_slice(&max_pixels.to_le_bytes());
+        ThumbCache { dir, salt }
+    }
+
+    /// The entry file for an image, from its path and metadata; None when the file cannot be
+    /// looked at (the caller then reads it and reports what is wrong).
+    pub fn key(&self, path: &Path) -> Option<PathBuf> {
+        let meta = std::fs::metadata(path).ok()?;
+        if !meta.is_file() {
+            return None;
+        }
+        let abs = std::fs::canonicalize(path).ok()?;
+        let mtime = meta
+            .modified()
+            .ok()?
+            .duration_since(std::time::UNIX_EPOCH)
+            .ok()?;
+        let mut h = Sha256::new();
+        h.update(&self.salt);
+        h.update(abs.as_os_str().as_encoded_bytes());
+        h.update([0]);
+        h.update(meta.len().to_le_bytes());
+        h.update(mtime.as_secs().to_le_bytes());
+        h.update(mtime.subsec_nanos().to_le_bytes());
+        let hex: String = h.finalize().iter().map(|b| format!("{b:02x}")).collect();
+        Some(self.dir.join(&hex[..2]).join(&hex))
+    }
+
+    pub fn get(&self, key: &Path) -> Option<Entry> {
+        let bytes = std::fs::read(key).ok()?;
+        if bytes.len() < 4 + 8 + 8 + 32 || &bytes[..4] != MAGIC {
+            return None;
+        }
+        let u32_at = |o: usize| u32::from_le_bytes(bytes[o..o + 4].try_into().unwrap());
+        let size = [u32_at(4), u32_at(8)];
+        let file_bytes = u64::from_le_bytes(bytes[12..20].try_into().unwrap());
+        let sha: String = bytes[20..52].iter().map(|b| format!("{b:02x}")).collect();
+        let thumb = image::load_from_memory_with_format(&bytes[52..], image::ImageFormat::Png)
+            .ok()?
+            .into_rgb8();
+        Some(Entry {
+            size,
+            digest: (sha, file_bytes),
+            thumb,
+        })
+    }
+
+    /// Stores an entry; failures are returned for the caller to mention, never fatal.
+    pub fn put(&self, key: &Path, e: &Entry) -> std::io::Result<()> {
+        let mut out = Vec::with_capacity(64 + e.thumb.len() / 2);
+        out.extend_from_slice(MAGIC);
+        out.extend_from_slice(&e.size[0].to_le_bytes());
+        out.extend_from_slice(&e.size[1].to_le_bytes());
+        out.extend_from_slice(&e.digest.1.to_le_bytes());
+        let sha = (0..32)
+            .map(|i| u8::from_str_radix(&e.digest.0[2 * i..2 * i + 2], 16))
+            .collect::<Result<Vec<u8>, _>>()
+            .map_err(|_| std::io::Error::other("not a SHA-256 digest"))?;
+        out.extend_from_slice(&sha);
+        let mut png = Vec::new();
+        e.thumb
+            .write_to(&mut Cursor::new(&mut png), image::ImageFormat::Png)
+            .map_err(std::io::Error::other)?;
+        out.extend_from_slice(&png);
+        let parent = key.parent().expect("entries live in a subfolder");
+        std::fs::create_dir_all(parent)?;
+        let tmp = parent.join(format!(
+            ".{}.{}.tmp",
+            key.file_name().unwrap().to_string_lossy(),
+            std::process::id()
+        ));
+        std::fs::write(&tmp, &out)?;
+        std::fs::rename(&tmp, key)
+    }
+}
+
+/// The default cache folder: `$VITRINE_CACHE/thumbs`, else `$XDG_CACHE_HOME/vitrine/thumbs`, else
+/// `~/.cache/vitrine/thumbs`.
+pub fn default_dir() -> Option<PathBuf> {
+    if let Some(v) = std::env::var_os("VITRINE_CACHE") {
+        return Some(PathBuf::from(v).join("thumbs"));
+    }
+    if let Some(x) = std::env::var_os("XDG_CACHE_HOME") {
+        return Some(PathBuf::from(x).join("vitrine/thumbs"));
+    }
+    std::env::var_os("HOME").map(|h| PathBuf::from(h).join(".cache/vitrine/thumbs"))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn an_entry_comes_back_as_stored_and_a_changed_file_has_another_key() {
+        let dir = tempfile::tempdir().unwrap();
+        let cache = ThumbCache::new(dir.path().join("cache"), 128, 1000);
+        let img = dir.path().join("a.png");
+        std::fs::write(&img, b"first").unwrap();
+        let key = cache.key(&img).unwrap();
+        assert!(cache.get(&key).is_none());
+        let thumb = RgbImage::from_fn(5, 3, |x, y| image::Rgb([x as u8 * 40, y as u8 * 70, 9]));
+        let e = Entry {
+            size: [500, 300],
+            digest: (format!("{:064x}", 0xabcdef_u64), 5),
+            thumb: thumb.clone(),
+        };
+        cache.put(&key, &e).unwrap();
+        let back = cache.get(&key).unwrap();
+        assert_eq!(back.size, [500, 300]);
+        assert_eq!(back.digest, e.digest);
+        assert_eq!(back.thumb, thumb);
+        // Another size (and so another modification) is another key; so is another cell size.
+        std::fs::write(&img, b"second, longer").unwrap();
+        assert_ne!(cache.key(&img).unwrap(), key);
+        let other = ThumbCache::new(dir.path().join("cache"), 512, 1000);
+        assert_ne!(other.key(&img).unwrap(), cache.key(&img).unwrap());
+        // A damaged entry reads as absent.
+        std::fs::write(&key, b"VTC1 short").unwrap();
+        assert!(cache.get(&key).is_none());
+    }
+}
