@@ -121,7 +121,6 @@ fn average(img: &RgbImage) -> [u8; 4] {
 }
 
 /// Makes every sheet. `images[i]` is the file for item i in atlas order, or why there is none.
-/// Work goes in batches of one smallest-level sheet so that memory stays bounded.
 pub fn make_sheets(
     images: &[(String, Result<PathBuf, String>)],
     plan: &SheetPlan,
@@ -138,16 +137,11 @@ pub fn make_sheets(
     let mut digests = vec![(String::new(), 0u64); n];
     let mut files: Vec<Vec<String>> = vec![Vec::new(); plan.cells.len()];
     std::fs::create_dir_all(out_dir.join("sheets"))?;
-    let batch = plan
-        .cells
-        .iter()
-        .map(|&c| {
-            let (a, b) = plan.per_sheet(c);
-            (a * b) as usize
-        })
-        .max()
-        .unwrap();
-    // Every level's sheet capacity divides the batch (cells are powers of two fractions of the sheet).
+    // Items are thumbnailed in parallel a chunk at a time; each level keeps one open sheet that
+    // the chunk's thumbnails are pasted into and that is written out as soon as it is full. Memory
+    // is one chunk of thumbnails and one sheet per level, whatever the collection's size.
+    let batch = (64 * rayon::current_num_threads()).max(64);
+    let mut open: Vec<Option<(usize, RgbImage)>> = vec![None; plan.cells.len()];
     let done = std::sync::atomic::AtomicU64::new(0);
     let reused = std::sync::atomic::AtomicUsize::new(0);
     let cache_errors = std::sync::atomic::AtomicUsize::new(0);
@@ -248,33 +242,31 @@ pub fn make_sheets(
                 });
             }
         }
-        for (l, &cell) in plan.cells.iter().enumerate() {
-            let (cols, rows) = plan.per_sheet(cell);
-            let per = (cols * rows) as usize;
-            let mut first = start;
-            while first < end {
-                let last = (first + per).min(end);
-                let sheet_index = first / per;
-                let used = last - first;
-                let used_rows = (used as u32).div_ceil(cols);
-                let mut sheet =
-                    RgbImage::from_pixel(cols * cell, used_rows * cell, image::Rgb(PAPER));
-                for i in first..last {
-                    let slot = (i % per) as u32;
-                    let (cx, cy) = ((slot % cols) * cell, (slot / cols) * cell);
-                    image::imageops::replace(
-                        &mut sheet,
-                        &thumbs[i - start].0[l],
-                        cx as i64,
-                        cy as i64,
-                    );
+        for (off, (levels, ..)) in thumbs.iter().enumerate() {
+            let i = start + off;
+            for (l, &cell) in plan.cells.iter().enumerate() {
+                let (cols, rows) = plan.per_sheet(cell);
+                let per = (cols * rows) as usize;
+                let sheet_index = i / per;
+                let last = ((sheet_index + 1) * per).min(n) - 1;
+                let (_, sheet) = open[l].get_or_insert_with(|| {
+                    let used_rows = ((last + 1 - sheet_index * per) as u32).div_ceil(cols);
+                    (
+                        sheet_index,
+                        RgbImage::from_pixel(cols * cell, used_rows * cell, image::Rgb(PAPER)),
+                    )
+                });
+                let slot = (i % per) as u32;
+                let (cx, cy) = ((slot % cols) * cell, (slot / cols) * cell);
+                image::imageops::replace(sheet, &levels[l], cx as i64, cy as i64);
+                if i == last {
+                    let (index, sheet) = open[l].take().expect("the sheet just filled");
+                    let name = format!("sheets/L{cell}-{index:05}.jpg");
+                    let bytes = encode_jpeg(&sheet, plan.quality)
+                        .map_err(|e| std::io::Error::other(format!("encoding {name}: {e}")))?;
+                    std::fs::write(out_dir.join(&name), bytes)?;
+                    files[l].push(name);
                 }
-                let name = format!("sheets/L{cell}-{sheet_index:05}.jpg");
-                let bytes = encode_jpeg(&sheet, plan.quality)
-                    .map_err(|e| std::io::Error::other(format!("encoding {name}: {e}")))?;
-                std::fs::write(out_dir.join(&name), bytes)?;
-                files[l].push(name);
-                first = last;
             }
         }
         start = end;
