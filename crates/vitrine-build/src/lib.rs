@@ -11,6 +11,7 @@ pub mod hilbert;
 pub mod kernels;
 pub mod knn;
 pub mod lattice;
+pub mod linalg;
 pub mod nndescent;
 pub mod npy;
 pub mod pca;

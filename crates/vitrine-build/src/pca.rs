@@ -293,33 +293,7 @@ fn jacobi_eigen(mut a: Vec<Vec<f64>>) -> (Vec<f64>, Vec<Vec<f64>>) {
         if off <= 1e-15 * scale.max(1e-300) {
             break;
         }
-        for p in 0..n {
-            for q in p + 1..n {
-                if a[p][q].abs() <= 1e-300 {
-                    continue;
-                }
-                let theta = (a[q][q] - a[p][p]) / (2.0 * a[p][q]);
-                let t = theta.signum() / (theta.abs() + (theta * theta + 1.0).sqrt());
-                let t = if theta == 0.0 { 1.0 } else { t };
-                let c = 1.0 / (t * t + 1.0).sqrt();
-                let s = t * c;
-                for k in 0..n {
-                    let (akp, akq) = (a[k][p], a[k][q]);
-                    a[k][p] = c * akp - s * akq;
-                    a[k][q] = s * akp + c * akq;
-                }
-                for k in 0..n {
-                    let (apk, aqk) = (a[p][k], a[q][k]);
-                    a[p][k] = c * apk - s * aqk;
-                    a[q][k] = s * apk + c * aqk;
-                }
-                for row in v.iter_mut() {
-                    let (vp, vq) = (row[p], row[q]);
-                    row[p] = c * vp - s * vq;
-                    row[q] = s * vp + c * vq;
-                }
-            }
-        }
+        crate::linalg::jacobi_sweep(&mut a, &mut v);
     }
     ((0..n).map(|i| a[i][i]).collect(), v)
 }
