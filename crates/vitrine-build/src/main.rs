@@ -107,6 +107,10 @@ enum Command {
         /// UMAP optimisation epochs (default 500 up to 10,000 items, else 200).
         #[arg(long)]
         epochs: Option<usize>,
+        /// Thumbnail sizes (levels of detail) in pixels on the long side, smallest first,
+        /// e.g. 32,128,512. Each level has its own sheets.
+        #[arg(long, value_delimiter = ',', default_values_t = [32u32, 128])]
+        levels: Vec<u32>,
         /// Side of a thumbnail sheet in pixels.
         #[arg(long, default_value_t = 2048)]
         sheet_size: u32,
@@ -182,6 +186,7 @@ fn run() -> anyhow::Result<()> {
             seed,
             min_dist,
             epochs,
+            levels,
             sheet_size,
             jpeg_quality,
             max_pixels,
@@ -228,6 +233,7 @@ fn run() -> anyhow::Result<()> {
             opts.min_dist = min_dist;
             opts.epochs = epochs;
             opts.sheet_size = sheet_size;
+            opts.cells = levels;
             opts.jpeg_quality = jpeg_quality;
             if max_pixels == 0 {
                 anyhow::bail!("--max-pixels must be at least 1");

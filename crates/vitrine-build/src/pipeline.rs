@@ -546,6 +546,16 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
     if opts.k == 0 {
         bail!("--k must be at least 1");
     }
+    if opts.cells.is_empty()
+        || opts.cells.windows(2).any(|w| w[0] >= w[1])
+        || opts.cells.iter().any(|&c| c < 8 || c > opts.sheet_size)
+    {
+        bail!(
+            "--levels {:?}: give the thumbnail sizes smallest first, each from 8 px to the sheet size ({} px)",
+            opts.cells,
+            opts.sheet_size
+        );
+    }
     let log = |s: &str| {
         if !opts.quiet {
             eprintln!("{s}");

@@ -1189,6 +1189,68 @@ Image.fromarray(data.coffee()).save(f"{out}/coffee.jpg", quality=90)
             other => panic!("{other}"),
         }
     }
+    // Three levels of detail chosen on the command line.
+    let o = common::vitrine()
+        .current_dir(d)
+        .args([
+            "build",
+            "--quiet",
+            "--vectors",
+            "vectors.npy",
+            "--catalogue",
+            "records.csv",
+        ])
+        .args([
+            "--images",
+            "images",
+            "--out",
+            "three",
+            "--levels",
+            "16,64,256",
+        ])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", stderr(&o));
+    let a = Atlas::open(&d.join("three")).unwrap();
+    let sheets = a.manifest.sheets.as_ref().unwrap();
+    assert_eq!(
+        sheets.levels.iter().map(|l| l.cell).collect::<Vec<_>>(),
+        [16, 64, 256]
+    );
+    for l in &sheets.levels {
+        assert_eq!(l.files.len(), 1);
+        let img = image::open(d.join("three").join(&l.files[0])).unwrap();
+        // Two items fill the first row of cells.
+        assert_eq!(
+            (img.width(), img.height()),
+            (2048 / l.cell * l.cell, l.cell)
+        );
+    }
+    let extents: Vec<u32> = a.array(&sheets.extents).unwrap();
+    let ids = a.ids().unwrap();
+    for (i, &e) in extents.iter().enumerate() {
+        let want = if ids.get(i) == "astronaut" {
+            (256, 256)
+        } else {
+            (256, 171)
+        };
+        assert_eq!((e & 0xffff, e >> 16), want);
+    }
+    let o = common::vitrine()
+        .current_dir(d)
+        .args([
+            "build",
+            "--vectors",
+            "vectors.npy",
+            "--out",
+            "bad",
+            "--levels",
+            "128,32",
+        ])
+        .output()
+        .unwrap();
+    assert!(!o.status.success());
+    assert!(stderr(&o).contains("smallest first"), "{}", stderr(&o));
 }
 
 #[test]
