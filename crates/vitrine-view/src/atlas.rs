@@ -361,8 +361,9 @@ fn cluster_lines(list: &[vitrine_format::ClusterInfo]) -> Vec<(String, String)> 
         .iter()
         .take(ABOUT_CLUSTERS)
         .map(|&i| {
+            // The size goes in the (narrow) name column, the label and its figures beside it.
             let c = &list[i];
-            let mut text = format!("{} items", c.size);
+            let mut text = c.label.clone();
             for t in &c.terms {
                 text.push_str(&format!(
                     "; {} = {}: {:.0} % here, {:.1}x the collection",
@@ -372,15 +373,15 @@ fn cluster_lines(list: &[vitrine_format::ClusterInfo]) -> Vec<(String, String)> 
                     t.lift
                 ));
             }
-            (c.label.clone(), text)
+            (format!("{} items", c.size), text)
         })
         .collect();
     if list.len() > ABOUT_CLUSTERS {
         let rest = &order[ABOUT_CLUSTERS..];
         let items: u64 = rest.iter().map(|&i| list[i].size).sum();
         lines.push((
-            format!("{} smaller clusters", rest.len()),
             format!("{items} items"),
+            format!("in {} smaller clusters", rest.len()),
         ));
     }
     lines

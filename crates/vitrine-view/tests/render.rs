@@ -193,7 +193,7 @@ fn record_lines_hold_every_field_as_written() {
     );
     let sizes: Vec<u64> = lines
         .iter()
-        .map(|(_, v)| v.split(' ').next().unwrap().parse().unwrap())
+        .map(|(k, _)| k.split(' ').next().unwrap().parse().unwrap())
         .collect();
     assert!(sizes.windows(2).all(|w| w[0] >= w[1]), "{sizes:?}");
     assert_eq!(sizes.iter().sum::<u64>(), 90);
