@@ -649,14 +649,6 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         }
         None => (vectors, opts.metric, None),
     };
-    let to_build_metric = |d: f32| -> f32 {
-        if reduction.is_some() && opts.metric == Metric::Cosine {
-            0.5 * d * d
-        } else {
-            d
-        }
-    };
-
     // Neighbour graph and map.
     let k = opts.k.min(n.saturating_sub(1)).max(1);
     let exact = match opts.neighbours {
@@ -696,11 +688,9 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         Optimiser::Parallel => true,
     };
     let mut graph = graph;
-    if reduction.is_some() {
-        graph
-            .distances
-            .iter_mut()
-            .for_each(|d| *d = to_build_metric(*d));
+    if reduction.is_some() && opts.metric == Metric::Cosine {
+        // Euclidean distances of unit vectors back to cosine distances: 1 - cos = |u - v|^2 / 2.
+        graph.distances.iter_mut().for_each(|d| *d = 0.5 * *d * *d);
     }
     stages.lap("neighbour graph");
     let params = UmapParams {

@@ -93,23 +93,6 @@ pub struct MapQuality {
     pub continuity: f64,
 }
 
-/// Trustworthiness and continuity at `k` of a 2-D layout, on a sample of at most `max_sample` items.
-pub fn map_quality(
-    vectors: &Matrix,
-    metric: Metric,
-    pos: &[[f32; 2]],
-    k: usize,
-    max_sample: usize,
-) -> Option<MapQuality> {
-    let idx = sample(vectors.rows, max_sample);
-    let rows = Matrix {
-        rows: idx.len(),
-        cols: vectors.cols,
-        data: idx.iter().flat_map(|&i| vectors.row(i)).copied().collect(),
-    };
-    map_quality_of_sample(&rows, &idx, metric, pos, k)
-}
-
 /// The quality sample with its vector-space orderings, computed once for every map measured on it.
 pub struct QualitySample {
     idx: Vec<usize>,
@@ -143,19 +126,4 @@ impl QualitySample {
             continuity: trustworthiness_of_orders(&low_order, &self.high_order, k),
         })
     }
-}
-
-/// [`map_quality`] from vectors kept for the sample only: row `r` of `sample_rows` is item
-/// `idx[r]`.
-pub fn map_quality_of_sample(
-    sample_rows: &Matrix,
-    idx: &[usize],
-    metric: Metric,
-    pos: &[[f32; 2]],
-    k: usize,
-) -> Option<MapQuality> {
-    if 2 * idx.len() <= 3 * k + 1 {
-        return None;
-    }
-    QualitySample::new(sample_rows, idx.to_vec(), metric).quality(pos, k)
 }

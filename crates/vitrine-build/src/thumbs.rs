@@ -6,8 +6,7 @@ use std::path::{Path, PathBuf};
 use image::RgbImage;
 use rayon::prelude::*;
 
-use crate::decode::ImageFailure;
-pub use crate::decode::{DEFAULT_MAX_PIXELS as MAX_PIXELS, PAPER};
+use crate::decode::{ImageFailure, PAPER};
 
 #[derive(Debug, Clone, serde::Serialize)]
 pub struct ImageProblem {
