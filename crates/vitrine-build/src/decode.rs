@@ -81,12 +81,17 @@ pub struct Decoded {
     pub height: u32,
 }
 
-/// Reads and decodes one image file; `Missing` when it does not exist.
-pub fn decode_file(path: &Path, max_pixels: u64) -> Result<(Decoded, Vec<u8>), ImageFailure> {
-    let bytes = std::fs::read(path).map_err(|e| match e.kind() {
+/// Reads one image file's bytes; `Missing` when it does not exist, `Unreadable` otherwise.
+pub fn read_image_file(path: &Path) -> Result<Vec<u8>, ImageFailure> {
+    std::fs::read(path).map_err(|e| match e.kind() {
         std::io::ErrorKind::NotFound => ImageFailure::Missing("the file does not exist".into()),
         _ => ImageFailure::Unreadable(e.to_string()),
-    })?;
+    })
+}
+
+/// Reads and decodes one image file.
+pub fn decode_file(path: &Path, max_pixels: u64) -> Result<(Decoded, Vec<u8>), ImageFailure> {
+    let bytes = read_image_file(path)?;
     let d = decode(&bytes, max_pixels)?;
     Ok((d, bytes))
 }
@@ -129,11 +134,7 @@ fn reduced_jpeg(
     if !rgb || long < 2 * long_side.max(1) || (w as u64) * (h as u64) > max_pixels {
         return Ok(None);
     }
-    if !jpeg_is_complete(bytes) {
-        return Err(ImageFailure::Truncated(
-            "the JPEG data ends before its end-of-image marker".into(),
-        ));
-    }
+    require_complete_jpeg(bytes)?;
     let need = |side: u32| ((side as u64 * long_side as u64).div_ceil(long as u64)).max(1) as u16;
     let (sw, sh) = d
         .scale(need(w), need(h))
@@ -168,7 +169,7 @@ fn reduced_jpeg(
         (w, h)
     };
     Ok(Some(Decoded {
-        rgb: img.to_rgb8(),
+        rgb: to_rgb8(img),
         width,
         height,
     }))
@@ -193,10 +194,8 @@ pub fn decode(bytes: &[u8], max_pixels: u64) -> Result<Decoded, ImageFailure> {
             leading_bytes(bytes)
         ))
     })?;
-    if format == image::ImageFormat::Jpeg && !jpeg_is_complete(bytes) {
-        return Err(ImageFailure::Truncated(
-            "the JPEG data ends before its end-of-image marker".into(),
-        ));
+    if format == image::ImageFormat::Jpeg {
+        require_complete_jpeg(bytes)?;
     }
     let mut reader = reader;
     reader.no_limits();
@@ -294,14 +293,21 @@ fn failure(e: ImageError) -> ImageFailure {
     }
 }
 
-/// Whether a JPEG stream reaches its end-of-image marker. Inside entropy-coded data a 0xFF byte is
-/// always followed by 0x00 or a restart marker, so an FF D9 after the first start-of-scan marker
-/// is the end of the image (JPEG, ITU-T T.81, B.1.1.5 and F.1.2.3).
-fn jpeg_is_complete(bytes: &[u8]) -> bool {
-    let Some(sos) = bytes.windows(2).position(|w| w == [0xFF, 0xDA]) else {
-        return false;
-    };
-    bytes[sos..].windows(2).any(|w| w == [0xFF, 0xD9])
+/// `Truncated` unless a JPEG stream reaches its end-of-image marker. Inside entropy-coded data a
+/// 0xFF byte is always followed by 0x00 or a restart marker, so an FF D9 after the first
+/// start-of-scan marker is the end of the image (JPEG, ITU-T T.81, B.1.1.5 and F.1.2.3).
+fn require_complete_jpeg(bytes: &[u8]) -> Result<(), ImageFailure> {
+    let complete = bytes
+        .windows(2)
+        .position(|w| w == [0xFF, 0xDA])
+        .is_some_and(|sos| bytes[sos..].windows(2).any(|w| w == [0xFF, 0xD9]));
+    if complete {
+        Ok(())
+    } else {
+        Err(ImageFailure::Truncated(
+            "the JPEG data ends before its end-of-image marker".into(),
+        ))
+    }
 }
 
 fn leading_bytes(bytes: &[u8]) -> String {

@@ -13,7 +13,6 @@ use std::io::Cursor;
 use std::path::{Path, PathBuf};
 
 use image::RgbImage;
-use sha2::{Digest, Sha256};
 
 const MAGIC: &[u8; 4] = b"VTC1";
 /// Bumped whenever decoding or fitting changes what a thumbnail looks like.
@@ -57,14 +56,13 @@ impl ThumbCache {
             .ok()?
             .duration_since(std::time::UNIX_EPOCH)
             .ok()?;
-        let mut h = Sha256::new();
-        h.update(&self.salt);
-        h.update(abs.as_os_str().as_encoded_bytes());
-        h.update([0]);
-        h.update(meta.len().to_le_bytes());
-        h.update(mtime.as_secs().to_le_bytes());
-        h.update(mtime.subsec_nanos().to_le_bytes());
-        let hex: String = h.finalize().iter().map(|b| format!("{b:02x}")).collect();
+        let mut id = self.salt.clone();
+        id.extend_from_slice(abs.as_os_str().as_encoded_bytes());
+        id.push(0);
+        id.extend_from_slice(&meta.len().to_le_bytes());
+        id.extend_from_slice(&mtime.as_secs().to_le_bytes());
+        id.extend_from_slice(&mtime.subsec_nanos().to_le_bytes());
+        let hex = vitrine_format::sha256_hex(&id);
         Some(self.dir.join(&hex[..2]).join(&hex))
     }
 
@@ -76,7 +74,7 @@ impl ThumbCache {
         let u32_at = |o: usize| u32::from_le_bytes(bytes[o..o + 4].try_into().unwrap());
         let size = [u32_at(4), u32_at(8)];
         let file_bytes = u64::from_le_bytes(bytes[12..20].try_into().unwrap());
-        let sha: String = bytes[20..52].iter().map(|b| format!("{b:02x}")).collect();
+        let sha = vitrine_format::hex(&bytes[20..52]);
         let thumb = image::load_from_memory_with_format(&bytes[52..], image::ImageFormat::Png)
             .ok()?
             .into_rgb8();
@@ -87,20 +85,32 @@ impl ThumbCache {
         })
     }
 
-    /// Stores an entry; failures are returned for the caller to mention, never fatal.
-    pub fn put(&self, key: &Path, e: &Entry) -> std::io::Result<()> {
-        let mut out = Vec::with_capacity(64 + e.thumb.len() / 2);
+    /// Stores an entry (the fields of [`Entry`]); failures are returned for the caller to
+    /// mention, never fatal.
+    pub fn put(
+        &self,
+        key: &Path,
+        size: [u32; 2],
+        digest: &(String, u64),
+        thumb: &RgbImage,
+    ) -> std::io::Result<()> {
+        let mut out = Vec::with_capacity(64 + thumb.len() / 2);
         out.extend_from_slice(MAGIC);
-        out.extend_from_slice(&e.size[0].to_le_bytes());
-        out.extend_from_slice(&e.size[1].to_le_bytes());
-        out.extend_from_slice(&e.digest.1.to_le_bytes());
+        out.extend_from_slice(&size[0].to_le_bytes());
+        out.extend_from_slice(&size[1].to_le_bytes());
+        out.extend_from_slice(&digest.1.to_le_bytes());
         let sha = (0..32)
-            .map(|i| u8::from_str_radix(&e.digest.0[2 * i..2 * i + 2], 16))
-            .collect::<Result<Vec<u8>, _>>()
-            .map_err(|_| std::io::Error::other("not a SHA-256 digest"))?;
+            .map(|i| {
+                digest
+                    .0
+                    .get(2 * i..2 * i + 2)
+                    .and_then(|h| u8::from_str_radix(h, 16).ok())
+            })
+            .collect::<Option<Vec<u8>>>()
+            .ok_or_else(|| std::io::Error::other("not a SHA-256 digest"))?;
         out.extend_from_slice(&sha);
         let mut png = Vec::new();
-        e.thumb
+        thumb
             .write_to(&mut Cursor::new(&mut png), image::ImageFormat::Png)
             .map_err(std::io::Error::other)?;
         out.extend_from_slice(&png);
@@ -146,7 +156,7 @@ mod tests {
             digest: (format!("{:064x}", 0xabcdef_u64), 5),
             thumb: thumb.clone(),
         };
-        cache.put(&key, &e).unwrap();
+        cache.put(&key, e.size, &e.digest, &e.thumb).unwrap();
         let back = cache.get(&key).unwrap();
         assert_eq!(back.size, [500, 300]);
         assert_eq!(back.digest, e.digest);

@@ -74,11 +74,51 @@ fn fit(img: &RgbImage, cell: u32) -> RgbImage {
     RgbImage::from_raw(tw, th, dst.into_vec()).expect("the resizer fills the image")
 }
 
-/// One image's thumbnail with `long_side` pixels on its long side (fewer if the image is smaller):
-/// the reduced-scale decode where it applies, then the Lanczos-3 fit.
-pub fn thumbnail(bytes: &[u8], max_pixels: u64, long_side: u32) -> Result<RgbImage, ImageFailure> {
+/// One image's thumbnail with `long_side` pixels on its long side, and the image's width and
+/// height as shown: the reduced-scale decode where it applies, then the Lanczos-3 fit.
+pub fn thumbnail(
+    bytes: &[u8],
+    max_pixels: u64,
+    long_side: u32,
+) -> Result<(RgbImage, [u32; 2]), ImageFailure> {
     let d = crate::decode::decode_for(bytes, max_pixels, long_side)?;
-    Ok(fit(&d.rgb, long_side))
+    Ok((fit(&d.rgb, long_side), [d.width, d.height]))
+}
+
+/// The largest level's thumbnail of one image file and the image's size, taken from the cache
+/// when the file is unchanged, else made (and stored in the cache); with the file's digest.
+fn largest_thumbnail(
+    path: &Path,
+    plan: &SheetPlan,
+    cache: Option<&crate::thumbcache::ThumbCache>,
+    counts: &CacheCounts,
+) -> (Result<(RgbImage, [u32; 2]), ImageFailure>, (String, u64)) {
+    use std::sync::atomic::Ordering::Relaxed;
+    let largest = *plan.cells.last().expect("at least one level");
+    let key = cache.and_then(|c| c.key(path));
+    if let Some(e) = cache.zip(key.as_ref()).and_then(|(c, k)| c.get(k)) {
+        counts.reused.fetch_add(1, Relaxed);
+        return (Ok((e.thumb, e.size)), e.digest);
+    }
+    let bytes = match crate::decode::read_image_file(path) {
+        Ok(b) => b,
+        Err(e) => return (Err(e), (String::new(), 0)),
+    };
+    let digest = (vitrine_format::sha256_hex(&bytes), bytes.len() as u64);
+    let made = thumbnail(&bytes, plan.max_pixels, largest);
+    if let (Ok((thumb, size)), Some(c), Some(k)) = (&made, cache, &key) {
+        if c.put(k, *size, &digest, thumb).is_err() {
+            counts.errors.fetch_add(1, Relaxed);
+        }
+    }
+    (made, digest)
+}
+
+/// Thumbnails taken from the cache, and cache entries that could not be written.
+#[derive(Default)]
+struct CacheCounts {
+    reused: std::sync::atomic::AtomicUsize,
+    errors: std::sync::atomic::AtomicUsize,
 }
 
 /// Encodes RGB pixels as a baseline JPEG (4:2:0) at `quality`.
@@ -128,7 +168,6 @@ pub fn make_sheets(
     progress: &(dyn Fn(u64) + Sync),
 ) -> std::io::Result<Thumbnailed> {
     let n = images.len();
-    let largest = *plan.cells.last().expect("at least one level");
     let mut colours = vec![[0u8; 4]; n];
     let mut extents = vec![0u32; n];
     let mut sizes = vec![[0u32; 2]; n];
@@ -142,8 +181,7 @@ pub fn make_sheets(
     let batch = (64 * rayon::current_num_threads()).max(64);
     let mut open: Vec<Option<(usize, RgbImage)>> = vec![None; plan.cells.len()];
     let done = std::sync::atomic::AtomicU64::new(0);
-    let reused = std::sync::atomic::AtomicUsize::new(0);
-    let cache_errors = std::sync::atomic::AtomicUsize::new(0);
+    let counts = CacheCounts::default();
     let mut start = 0;
     while start < n {
         let end = (start + batch).min(n);
@@ -152,52 +190,12 @@ pub fn make_sheets(
             [start..end]
             .par_iter()
             .map(|(_, path)| {
-                let mut digest = (String::new(), 0);
-                let result = match path {
-                    Err(reason) => Err(ImageFailure::Missing(reason.clone())),
-                    Ok(p) => {
-                        let key = cache.and_then(|c| c.key(p));
-                        let hit = cache.zip(key.as_ref()).and_then(|(c, k)| c.get(k));
-                        match hit {
-                            Some(e) => {
-                                reused.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
-                                digest = e.digest;
-                                Ok((e.thumb, e.size))
-                            }
-                            None => match std::fs::read(p) {
-                                Err(e) if e.kind() == std::io::ErrorKind::NotFound => {
-                                    Err(ImageFailure::Missing("the file does not exist".into()))
-                                }
-                                Err(e) => Err(ImageFailure::Unreadable(e.to_string())),
-                                Ok(bytes) => {
-                                    digest =
-                                        (vitrine_format::sha256_hex(&bytes), bytes.len() as u64);
-                                    crate::decode::decode_for(&bytes, plan.max_pixels, largest).map(
-                                        |d| {
-                                            let big = fit(&d.rgb, largest);
-                                            let size = [d.width, d.height];
-                                            if let (Some(c), Some(k)) = (cache, &key) {
-                                                let e = crate::thumbcache::Entry {
-                                                    size,
-                                                    digest: digest.clone(),
-                                                    thumb: big,
-                                                };
-                                                if c.put(k, &e).is_err() {
-                                                    cache_errors.fetch_add(
-                                                        1,
-                                                        std::sync::atomic::Ordering::Relaxed,
-                                                    );
-                                                }
-                                                (e.thumb, size)
-                                            } else {
-                                                (big, size)
-                                            }
-                                        },
-                                    )
-                                }
-                            },
-                        }
-                    }
+                let (result, digest) = match path {
+                    Err(reason) => (
+                        Err(ImageFailure::Missing(reason.clone())),
+                        (String::new(), 0),
+                    ),
+                    Ok(p) => largest_thumbnail(p, plan, cache, &counts),
                 };
                 let c = done.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
                 if c % 16 == 0 {
@@ -271,8 +269,8 @@ pub fn make_sheets(
         start = end;
     }
     Ok(Thumbnailed {
-        reused: reused.into_inner(),
-        cache_errors: cache_errors.into_inner(),
+        reused: counts.reused.into_inner(),
+        cache_errors: counts.errors.into_inner(),
         colours,
         extents,
         sizes,

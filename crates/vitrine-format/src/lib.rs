@@ -92,9 +92,13 @@ pub struct ArrayRef {
 }
 
 pub fn sha256_hex(bytes: &[u8]) -> String {
-    let digest = Sha256::digest(bytes);
-    let mut s = String::with_capacity(64);
-    for b in digest {
+    hex(&Sha256::digest(bytes))
+}
+
+/// Lower-case hex of bytes, two digits each.
+pub fn hex(bytes: &[u8]) -> String {
+    let mut s = String::with_capacity(2 * bytes.len());
+    for b in bytes {
         s.push_str(&format!("{b:02x}"));
     }
     s

@@ -116,7 +116,7 @@ fn images(args: &[String]) -> anyhow::Result<()> {
                 vitrine_build::decode::DEFAULT_MAX_PIXELS,
                 long,
             ) {
-                Ok(img) => {
+                Ok((img, _)) => {
                     let jpeg = vitrine_build::thumbs::encode_jpeg(&img, 85)?;
                     let name = p.file_stem().unwrap().to_string_lossy().to_string() + ".jpg";
                     std::fs::write(out.join(name), jpeg)?;
