@@ -1025,21 +1025,15 @@ fn every_image_failure_gets_a_placeholder_and_a_report_entry_unless_strict() {
     // r11: a folder under an image's name (not an image file: missing).
     std::fs::create_dir_all(img.join("r11.png")).unwrap();
     let run = |out: &str, extra: &[&str]| {
-        common::vitrine()
-            .current_dir(d)
-            .args([
-                "build",
-                "--quiet",
-                "--epochs",
-                "30",
-                "--max-pixels",
-                "10000",
-            ])
-            .args(["--vectors", "vectors.npy", "--catalogue", "records.csv"])
-            .args(["--images", "images", "--out", out])
-            .args(extra)
-            .output()
-            .unwrap()
+        let common = [
+            "--epochs",
+            "30",
+            "--max-pixels",
+            "10000",
+            "--images",
+            "images",
+        ];
+        build(d, out, &[&common[..], extra].concat())
     };
     let o = run("atlas", &[]);
     assert!(o.status.success(), "{}", stderr(&o));
@@ -1161,19 +1155,7 @@ Image.fromarray(data.coffee()).save(f"{out}/coffee.jpg", quality=90)
         &[1.0, 0.0, 0.2, 0.1, 1.0, 0.0],
     )
     .unwrap();
-    let o = common::vitrine()
-        .current_dir(d)
-        .args([
-            "build",
-            "--quiet",
-            "--vectors",
-            "vectors.npy",
-            "--catalogue",
-            "records.csv",
-        ])
-        .args(["--images", "images", "--out", "atlas"])
-        .output()
-        .unwrap();
+    let o = build(d, "atlas", &["--images", "images"]);
     assert!(o.status.success(), "{}", stderr(&o));
     let a = Atlas::open(&d.join("atlas")).unwrap();
     let sheets = a.manifest.sheets.as_ref().unwrap();
@@ -1190,26 +1172,7 @@ Image.fromarray(data.coffee()).save(f"{out}/coffee.jpg", quality=90)
         }
     }
     // Three levels of detail chosen on the command line.
-    let o = common::vitrine()
-        .current_dir(d)
-        .args([
-            "build",
-            "--quiet",
-            "--vectors",
-            "vectors.npy",
-            "--catalogue",
-            "records.csv",
-        ])
-        .args([
-            "--images",
-            "images",
-            "--out",
-            "three",
-            "--levels",
-            "16,64,256",
-        ])
-        .output()
-        .unwrap();
+    let o = build(d, "three", &["--images", "images", "--levels", "16,64,256"]);
     assert!(o.status.success(), "{}", stderr(&o));
     let a = Atlas::open(&d.join("three")).unwrap();
     let sheets = a.manifest.sheets.as_ref().unwrap();
@@ -1236,19 +1199,7 @@ Image.fromarray(data.coffee()).save(f"{out}/coffee.jpg", quality=90)
         };
         assert_eq!((e & 0xffff, e >> 16), want);
     }
-    let o = common::vitrine()
-        .current_dir(d)
-        .args([
-            "build",
-            "--vectors",
-            "vectors.npy",
-            "--out",
-            "bad",
-            "--levels",
-            "128,32",
-        ])
-        .output()
-        .unwrap();
+    let o = build(d, "bad", &["--levels", "128,32"]);
     assert!(!o.status.success());
     assert!(stderr(&o).contains("smallest first"), "{}", stderr(&o));
 }
