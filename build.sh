@@ -44,7 +44,8 @@ setup_wasm_bindgen() {
   fi
 }
 
-# The demo: generate the invented archive (once), build its atlas.
+# The demo: generate the invented archive (once), build its atlas. Its pictures are at most 320 px,
+# so its top level of detail is 320 rather than the default 512.
 build_demo() {
   build_viewer
   cargo build --locked --release -p vitrine-build -p vitrine-demo
@@ -60,7 +61,7 @@ build_demo() {
   fi
   ./target/release/vitrine build --vectors "$src/features.npy" --vector-ids "$src/feature-ids.txt" \
     --catalogue "$src/records.csv" --images "$src/images" --title "Demo archive (invented)" \
-    --viewer target/viewer --out demo-atlas/out
+    --levels 32,128,320 --viewer target/viewer --out demo-atlas/out
 }
 
 # Browser-test tools: Debian's Chromium (test tools cannot download their own here) and playwright-core.

@@ -108,9 +108,10 @@ enum Command {
         #[arg(long)]
         epochs: Option<usize>,
         /// Thumbnail sizes (levels of detail) in pixels on the long side, smallest first,
-        /// e.g. 32,128,512. Each level has its own sheets.
-        #[arg(long, value_delimiter = ',', default_values_t = [32u32, 128])]
-        levels: Vec<u32>,
+        /// e.g. 16,64,256. Each level has its own sheets. [default: 32,128,512, leaving out
+        /// sizes above --sheet-size]
+        #[arg(long, value_delimiter = ',')]
+        levels: Option<Vec<u32>>,
         /// Side of a thumbnail sheet in pixels.
         #[arg(long, default_value_t = 2048)]
         sheet_size: u32,
@@ -233,7 +234,12 @@ fn run() -> anyhow::Result<()> {
             opts.min_dist = min_dist;
             opts.epochs = epochs;
             opts.sheet_size = sheet_size;
-            opts.cells = levels;
+            opts.cells = levels.unwrap_or_else(|| {
+                [32, 128, 512]
+                    .into_iter()
+                    .filter(|&c| c <= sheet_size)
+                    .collect()
+            });
             opts.jpeg_quality = jpeg_quality;
             if max_pixels == 0 {
                 anyhow::bail!("--max-pixels must be at least 1");

@@ -116,7 +116,7 @@ impl BuildOptions {
             min_dist: 0.1,
             epochs: None,
             sheet_size: 2048,
-            cells: vec![32, 128],
+            cells: vec![32, 128, 512],
             jpeg_quality: 85,
             max_pixels: crate::decode::DEFAULT_MAX_PIXELS,
             strict: false,

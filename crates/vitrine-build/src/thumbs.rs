@@ -18,7 +18,7 @@ pub struct ImageProblem {
 }
 
 pub struct SheetPlan {
-    /// Cell sizes, smallest first (e.g. 32 and 128).
+    /// Cell sizes, smallest first (e.g. 32, 128 and 512).
     pub cells: Vec<u32>,
     /// Sheet side in pixels.
     pub sheet: u32,

@@ -29,6 +29,7 @@ fn fixture(dir: &Path) -> AtlasData {
     let mut o = BuildOptions::new(dir.join("v.npy"), dir.join("atlas"));
     o.images = Some(dir.join("images"));
     o.sheet_size = 256;
+    o.cells = vec![32, 128];
     o.epochs = Some(50);
     o.quiet = true;
     build(&o).unwrap();
