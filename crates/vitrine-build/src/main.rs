@@ -258,7 +258,11 @@ fn run() -> anyhow::Result<()> {
                 let laps: Vec<String> = report
                     .stages
                     .iter()
-                    .map(|(name, s)| format!("{name} {s:.1} s"))
+                    .zip(&report.stage_peak_memory_mib)
+                    .map(|((name, s), m)| match m {
+                        Some(m) => format!("{name} {s:.1} s ({m:.0} MiB)"),
+                        None => format!("{name} {s:.1} s"),
+                    })
                     .collect();
                 let total: f64 = report.stages.iter().map(|(_, s)| s).sum();
                 eprintln!("time: {} (total {total:.1} s)", laps.join(", "));

@@ -132,6 +132,11 @@ pub struct BuildReport {
     pub items: usize,
     /// Seconds per stage, in order, and the process's peak resident memory (Linux) in MiB.
     pub stages: Vec<(String, f64)>,
+    /// Per stage (in the order of `stages`), the process's peak resident memory during it in MiB,
+    /// where the system tells (Linux).
+    pub stage_peak_memory_mib: Vec<Option<f64>>,
+    /// Per stage, the resident memory when it began, in MiB (what earlier stages left held).
+    pub stage_start_memory_mib: Vec<Option<f64>>,
     pub peak_memory_mib: Option<f64>,
     pub image_problems: Vec<ImageProblem>,
     /// Thumbnails made from their image files, and taken unchanged from the thumbnail cache.
@@ -141,33 +146,65 @@ pub struct BuildReport {
     pub notes: Vec<String>,
 }
 
-/// Lap times of the build's stages.
+/// Lap times of the build's stages, and each stage's peak memory.
 pub struct Stages {
     last: std::time::Instant,
     pub laps: Vec<(String, f64)>,
+    pub peaks: Vec<Option<f64>>,
+    pub starts: Vec<Option<f64>>,
+    start: Option<f64>,
+    /// The largest peak so far, kept across the per-stage resets.
+    overall: Option<f64>,
 }
 
 impl Stages {
     fn new() -> Stages {
+        reset_peak_memory();
         Stages {
             last: std::time::Instant::now(),
             laps: Vec::new(),
+            peaks: Vec::new(),
+            starts: Vec::new(),
+            start: memory_mib("VmRSS:"),
+            overall: None,
         }
     }
     fn lap(&mut self, name: &str) {
         let now = std::time::Instant::now();
         self.laps
             .push((name.to_string(), (now - self.last).as_secs_f64()));
+        let peak = peak_memory_mib();
+        self.overall = match (self.overall, peak) {
+            (Some(a), Some(b)) => Some(a.max(b)),
+            (a, b) => a.or(b),
+        };
+        self.peaks.push(peak);
+        self.starts.push(self.start);
+        // Each stage's peak is its own: the high-water mark starts again from what is resident.
+        reset_peak_memory();
+        self.start = memory_mib("VmRSS:");
         self.last = now;
     }
 }
 
-/// Peak resident memory of this process in MiB (Linux: VmHWM), if the system tells.
+/// Peak resident memory of this process in MiB since it started or since the last
+/// [`reset_peak_memory`] (Linux: VmHWM), if the system tells.
 pub fn peak_memory_mib() -> Option<f64> {
+    memory_mib("VmHWM:")
+}
+
+/// A memory line of /proc/self/status in MiB.
+fn memory_mib(key: &str) -> Option<f64> {
     let status = std::fs::read_to_string("/proc/self/status").ok()?;
-    let line = status.lines().find(|l| l.starts_with("VmHWM:"))?;
+    let line = status.lines().find(|l| l.starts_with(key))?;
     let kib: f64 = line.split_whitespace().nth(1)?.parse().ok()?;
     Some(kib / 1024.0)
+}
+
+/// Restarts the peak-memory mark from the current resident size (Linux: writing 5 to
+/// /proc/self/clear_refs); elsewhere, or when refused, the mark keeps counting from the start.
+fn reset_peak_memory() {
+    let _ = std::fs::write("/proc/self/clear_refs", "5");
 }
 
 fn bar(quiet: bool, len: u64, what: &str) -> ProgressBar {
@@ -1419,7 +1456,9 @@ fn write_atlas(
     copy_viewer(opts, dir, &mut report)?;
     stages.lap("write atlas");
     report.stages = stages.laps.clone();
-    report.peak_memory_mib = peak_memory_mib();
+    report.stage_peak_memory_mib = stages.peaks.clone();
+    report.stage_start_memory_mib = stages.starts.clone();
+    report.peak_memory_mib = stages.overall;
     std::fs::write(
         dir.join("build-report.json"),
         serde_json::to_string_pretty(&report)?,

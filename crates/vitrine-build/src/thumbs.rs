@@ -177,9 +177,11 @@ pub fn make_sheets(
     std::fs::create_dir_all(out_dir.join("sheets"))?;
     // Items are thumbnailed in parallel a chunk at a time; each level keeps one open sheet that
     // the chunk's thumbnails are pasted into and that is written out as soon as it is full. Memory
-    // is one chunk of thumbnails and one sheet per level, whatever the collection's size.
+    // is one chunk of thumbnails, one open sheet per level and the sheets the chunk filled (at most
+    // a chunk's worth of 512 px cells), whatever the collection's size.
     let batch = (64 * rayon::current_num_threads()).max(64);
     let mut open: Vec<Option<(usize, RgbImage)>> = vec![None; plan.cells.len()];
+    let mut full: Vec<(String, RgbImage)> = Vec::new();
     let done = std::sync::atomic::AtomicU64::new(0);
     let counts = CacheCounts::default();
     let mut start = 0;
@@ -259,13 +261,21 @@ pub fn make_sheets(
                 if i == last {
                     let (index, sheet) = open[l].take().expect("the sheet just filled");
                     let name = format!("sheets/L{cell}-{index:05}.jpg");
-                    let bytes = encode_jpeg(&sheet, plan.quality)
-                        .map_err(|e| std::io::Error::other(format!("encoding {name}: {e}")))?;
-                    std::fs::write(out_dir.join(&name), bytes)?;
-                    files[l].push(name);
+                    files[l].push(name.clone());
+                    full.push((name, sheet));
                 }
             }
         }
+        drop(thumbs);
+        // The sheets this chunk filled are encoded in parallel (at the 512 px level a sheet holds
+        // only 16 thumbnails, and encoding one takes as long as decoding a few photographs).
+        full.par_drain(..)
+            .map(|(name, sheet)| {
+                let bytes = encode_jpeg(&sheet, plan.quality)
+                    .map_err(|e| std::io::Error::other(format!("encoding {name}: {e}")))?;
+                std::fs::write(out_dir.join(&name), bytes)
+            })
+            .collect::<std::io::Result<()>>()?;
         start = end;
     }
     Ok(Thumbnailed {
