@@ -98,7 +98,7 @@ case "${1:-}" in
     echo "[bench] reference libraries into the venv (umap-learn, pynndescent, hnswlib)"
     "$CACHE/venv/bin/python" -c "import umap, pynndescent, hnswlib" 2>/dev/null ||
       "$CACHE/venv/bin/pip" install --progress-bar on umap-learn pynndescent hnswlib
-    cargo build --locked --release -p vitrine-build --bin vitrine-bench --bin vitrine
+    cargo build --locked --release -p vitrine-build --bins --bin vitrine
     shift
     "$CACHE/venv/bin/python" bench/bench_map.py --vitrine-bench "$PWD/target/release/vitrine-bench" "$@" ;;
   bench-images)
@@ -109,14 +109,26 @@ case "${1:-}" in
       $sudo apt-get update -qq
       DEBIAN_FRONTEND=noninteractive $sudo apt-get install -y -qq libvips-tools
     fi
-    cargo build --locked --release -p vitrine-build --bin vitrine-bench
+    cargo build --locked --release -p vitrine-build --bins
     shift
     "$CACHE/venv/bin/python" bench/bench_images.py --vitrine-bench "$PWD/target/release/vitrine-bench" "$@" ;;
+  bench-view)
+    setup
+    if [ ! -e /usr/lib/x86_64-linux-gnu/dri/swrast_dri.so ] && [ ! -e /usr/lib/x86_64-linux-gnu/libEGL_mesa.so.0 ]; then
+      echo "[bench] Mesa's software OpenGL for Chromium's --use-angle=gl-egl (llvmpipe)"
+      sudo=""; [ "$(id -u)" = 0 ] || sudo="sudo"
+      $sudo apt-get update -qq
+      DEBIAN_FRONTEND=noninteractive $sudo apt-get install -y -qq libegl1 libegl-mesa0 libgl1-mesa-dri
+    fi
+    build_viewer
+    cargo build --locked --release -p vitrine-build --bins
+    shift
+    "$CACHE/venv/bin/python" bench/bench_view.py --vitrine "$PWD/target/release/vitrine" --viewer "$PWD/target/viewer" "$@" ;;
   atlas) build_viewer; echo "viewer files in target/viewer (vitrine build copies them into each atlas)" ;;
   demo)
     setup_rust
     build_demo
     echo "[demo] serving demo-atlas/out"
     exec ./target/release/vitrine serve demo-atlas/out --port "${PORT:-8080}" ;;
-  *) echo "usage: ./build.sh setup|demo|test|atlas|bench-map [--million]|bench-images" >&2; exit 2 ;;
+  *) echo "usage: ./build.sh setup|demo|test|atlas|bench-map [--million]|bench-images [--collection N]|bench-view [--sizes 100000,1000000]" >&2; exit 2 ;;
 esac

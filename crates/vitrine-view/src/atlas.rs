@@ -46,6 +46,23 @@ pub struct AtlasData {
     pub current: usize,
     /// Cluster number per item (empty when the atlas has no clusters).
     pub clusters: Vec<u32>,
+    /// Whether the ids, neighbour lists and catalogue columns are loaded (they arrive after the
+    /// first picture; until then `ids`, `neighbours` and `fields` are empty).
+    pub catalogue: bool,
+}
+
+fn get_file<'a>(
+    files: &'a HashMap<String, Vec<u8>>,
+    r: &vitrine_format::ArrayRef,
+) -> Result<&'a [u8], AtlasError> {
+    files
+        .get(&r.file)
+        .map(|v| v.as_slice())
+        .ok_or_else(|| AtlasError::WrongLength {
+            file: r.file.clone(),
+            expected: r.bytes,
+            found: 0,
+        })
 }
 
 /// One line of a record card.
@@ -66,27 +83,40 @@ impl AtlasData {
         seen.into_iter().collect()
     }
 
+    /// The arrays the first picture needs: every map's positions, the average colours, the
+    /// thumbnail extents and the cluster numbers.
+    pub fn first_files(m: &Manifest) -> Vec<(String, u64)> {
+        let mut refs: Vec<&vitrine_format::ArrayRef> =
+            m.maps.iter().map(|p| &p.positions).collect();
+        refs.push(&m.colours);
+        refs.extend(m.sheets.as_ref().map(|s| &s.extents));
+        refs.extend(m.clusters.as_ref().map(|c| &c.ids));
+        let mut seen = std::collections::BTreeMap::new();
+        for r in refs {
+            seen.insert(r.file.clone(), r.bytes);
+        }
+        seen.into_iter().collect()
+    }
+
+    /// The rest (ids, neighbour lists, catalogue columns): fetched while the first picture is
+    /// already on screen, then added with [`AtlasData::complete`].
+    pub fn later_files(m: &Manifest) -> Vec<(String, u64)> {
+        let first: std::collections::HashSet<String> =
+            Self::first_files(m).into_iter().map(|(f, _)| f).collect();
+        Self::files(m)
+            .into_iter()
+            .filter(|(f, _)| !first.contains(f))
+            .collect()
+    }
+
+    /// The atlas from its manifest and fetched array files: at least the [`AtlasData::first_files`];
+    /// when the [`AtlasData::later_files`] are there too, the catalogue is decoded as well.
     pub fn from_parts(
         manifest: Manifest,
         files: &HashMap<String, Vec<u8>>,
     ) -> Result<AtlasData, AtlasError> {
-        let get = |r: &vitrine_format::ArrayRef| -> Result<&[u8], AtlasError> {
-            files
-                .get(&r.file)
-                .map(|v| v.as_slice())
-                .ok_or_else(|| AtlasError::WrongLength {
-                    file: r.file.clone(),
-                    expected: r.bytes,
-                    found: 0,
-                })
-        };
-        let text = |a: &vitrine_format::ArrayRef,
-                    b: &vitrine_format::ArrayRef|
-         -> Result<TextTable, AtlasError> {
-            vitrine_format::decode_text(a, get(a)?, b, get(b)?, manifest.item_count)
-        };
+        let get = |r: &vitrine_format::ArrayRef| get_file(files, r);
         let n = manifest.item_count as usize;
-        let ids = text(&manifest.ids, &manifest.ids_text)?;
         if manifest.maps.is_empty() {
             return Err(AtlasError::Inconsistent("the atlas has no map".into()));
         }
@@ -113,10 +143,6 @@ impl AtlasData {
             .chunks_exact(4)
             .map(|c| [c[0], c[1], c[2], c[3]])
             .collect();
-        let neighbours = manifest
-            .neighbours
-            .ids
-            .decode(get(&manifest.neighbours.ids)?)?;
         let extents = match &manifest.sheets {
             Some(s) => s
                 .extents
@@ -126,8 +152,49 @@ impl AtlasData {
                 .collect(),
             None => vec![(0, 0); n],
         };
+        let clusters = match &manifest.clusters {
+            Some(c) => c.ids.decode::<u32>(get(&c.ids)?)?,
+            None => vec![],
+        };
+        let later = Self::later_files(&manifest)
+            .iter()
+            .all(|(f, _)| files.contains_key(f));
+        let mut atlas = AtlasData {
+            clusters,
+            spacing: maps[0].spacing,
+            n,
+            ids: TextTable::from_strings::<&str>(&[]),
+            positions: maps[0].positions.clone(),
+            bounds: maps[0].bounds,
+            maps,
+            current: 0,
+            colours,
+            fields: Vec::new(),
+            k: manifest.neighbours.k as usize,
+            neighbours: Vec::new(),
+            extents,
+            manifest,
+            catalogue: false,
+        };
+        if later {
+            atlas.complete(files)?;
+        }
+        Ok(atlas)
+    }
+
+    /// Adds the ids, neighbour lists and catalogue columns from the [`AtlasData::later_files`].
+    pub fn complete(&mut self, files: &HashMap<String, Vec<u8>>) -> Result<(), AtlasError> {
+        let get = |r: &vitrine_format::ArrayRef| get_file(files, r);
+        let m = &self.manifest;
+        let text = |a: &vitrine_format::ArrayRef,
+                    b: &vitrine_format::ArrayRef|
+         -> Result<TextTable, AtlasError> {
+            vitrine_format::decode_text(a, get(a)?, b, get(b)?, m.item_count)
+        };
+        let ids = text(&m.ids, &m.ids_text)?;
+        let neighbours = m.neighbours.ids.decode(get(&m.neighbours.ids)?)?;
         let mut fields = Vec::new();
-        for f in &manifest.fields {
+        for f in &m.fields {
             let column = match f.kind {
                 FieldKind::Category => Column::Category(f.column.decode(get(&f.column)?)?),
                 FieldKind::Number => Column::Number(f.column.decode(get(&f.column)?)?),
@@ -152,26 +219,11 @@ impl AtlasData {
                 written,
             });
         }
-        let clusters = match &manifest.clusters {
-            Some(c) => c.ids.decode::<u32>(get(&c.ids)?)?,
-            None => vec![],
-        };
-        Ok(AtlasData {
-            clusters,
-            spacing: maps[0].spacing,
-            n,
-            ids,
-            positions: maps[0].positions.clone(),
-            bounds: maps[0].bounds,
-            maps,
-            current: 0,
-            colours,
-            fields,
-            k: manifest.neighbours.k as usize,
-            neighbours,
-            extents,
-            manifest,
-        })
+        self.ids = ids;
+        self.neighbours = neighbours;
+        self.fields = fields;
+        self.catalogue = true;
+        Ok(())
     }
 
     /// Makes map `i` the one drawn and picked.
@@ -185,7 +237,19 @@ impl AtlasData {
     }
 
     /// A short label for an item: its title-like text field, else its id.
+    /// Item `i`'s id ("" until the catalogue is loaded).
+    pub fn id(&self, i: usize) -> &str {
+        if self.catalogue {
+            self.ids.get(i)
+        } else {
+            ""
+        }
+    }
+
     pub fn label(&self, i: usize) -> String {
+        if !self.catalogue {
+            return format!("item {} (the catalogue is loading)", i + 1);
+        }
         for f in &self.fields {
             if let Column::Text(t) = &f.column {
                 if f.field.name.to_lowercase().contains("title") && !t.get(i).is_empty() {
@@ -200,7 +264,7 @@ impl AtlasData {
     pub fn record(&self, i: usize) -> Vec<RecordLine> {
         let mut out = vec![RecordLine {
             name: "id".into(),
-            value: self.ids.get(i).into(),
+            value: self.id(i).into(),
             link: false,
         }];
         for f in &self.fields {
@@ -261,6 +325,9 @@ impl AtlasData {
 
     /// The item's neighbours from the neighbour graph, nearest first.
     pub fn neighbours_of(&self, i: usize) -> Vec<usize> {
+        if !self.catalogue {
+            return Vec::new();
+        }
         self.neighbours[i * self.k..(i + 1) * self.k]
             .iter()
             .filter(|&&j| j != u32::MAX)

@@ -8,6 +8,7 @@
 
 pub mod atlas;
 pub mod camera;
+pub mod grid;
 pub mod pick;
 pub mod raster;
 

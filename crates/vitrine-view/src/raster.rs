@@ -42,11 +42,21 @@ pub struct SheetLevel {
 pub struct SheetStore {
     /// Smallest cell first.
     pub levels: Vec<SheetLevel>,
+    /// Per level and sheet: the last frame that drew from it (for least-recently-used eviction).
+    last_used: Vec<Vec<u64>>,
+    /// Bytes of decoded sheets held, and the most to hold before evicting.
+    pub bytes: usize,
+    pub budget: usize,
+    /// Sheets evicted so far (a sheet fetched again after eviction costs a second download).
+    pub evicted: usize,
 }
+
+/// Decoded sheets held at most, in bytes, unless the current frame draws from more.
+pub const SHEET_BUDGET: usize = 512 << 20;
 
 impl SheetStore {
     pub fn from_manifest(m: &vitrine_format::Manifest) -> SheetStore {
-        let mut levels: Vec<SheetLevel> = m
+        let levels: Vec<SheetLevel> = m
             .sheets
             .iter()
             .flat_map(|s| s.levels.iter())
@@ -58,8 +68,49 @@ impl SheetStore {
                 loaded: l.files.iter().map(|_| None).collect(),
             })
             .collect();
+        SheetStore::new(levels)
+    }
+
+    pub fn new(mut levels: Vec<SheetLevel>) -> SheetStore {
         levels.sort_by_key(|l| l.cell);
-        SheetStore { levels }
+        let last_used = levels.iter().map(|l| vec![0; l.files.len()]).collect();
+        SheetStore {
+            levels,
+            last_used,
+            bytes: 0,
+            budget: SHEET_BUDGET,
+            evicted: 0,
+        }
+    }
+
+    /// Notes that frame `frame` drew from these sheets.
+    pub fn touch(&mut self, used: &[(usize, usize)], frame: u64) {
+        for &(l, s) in used {
+            self.last_used[l][s] = frame;
+        }
+    }
+
+    /// Keeps a fetched sheet, used in frame `frame`, then evicts the least recently used sheets
+    /// (never one used in `frame`) while more than the budget is held.
+    pub fn insert(&mut self, level: usize, index: usize, sheet: Sheet, frame: u64) {
+        let size = sheet.rgb.len();
+        if let Some(old) = self.levels[level].loaded[index].replace(sheet) {
+            self.bytes -= old.rgb.len();
+        }
+        self.bytes += size;
+        self.last_used[level][index] = frame;
+        while self.bytes > self.budget {
+            let oldest = (0..self.levels.len())
+                .flat_map(|l| (0..self.levels[l].loaded.len()).map(move |s| (l, s)))
+                .filter(|&(l, s)| {
+                    self.levels[l].loaded[s].is_some() && self.last_used[l][s] < frame
+                })
+                .min_by_key(|&(l, s)| (self.last_used[l][s], std::cmp::Reverse(l)));
+            let Some((l, s)) = oldest else { break };
+            let gone = self.levels[l].loaded[s].take().expect("a loaded sheet");
+            self.bytes -= gone.rgb.len();
+            self.evicted += 1;
+        }
     }
     pub fn largest_cell(&self) -> u32 {
         self.levels.last().map_or(0, |l| l.cell)
@@ -100,15 +151,22 @@ impl SheetStore {
 
 #[derive(Debug, Default, Clone, PartialEq)]
 pub struct FrameStats {
+    /// Items the frame looked at (all of them zoomed out; those near the screen zoomed in).
+    pub visited: usize,
     pub marks: usize,
     pub thumbnails: usize,
-    /// (level, sheet) pairs that visible items wanted but are not loaded.
+    /// (level, sheet) pairs that visible items want but are not loaded, smallest level first (a
+    /// coarse picture everywhere before sharp ones).
     pub wanted: Vec<(usize, usize)>,
+    /// (level, sheet) pairs the frame drew from.
+    pub used: Vec<(usize, usize)>,
     pub side_px: f64,
 }
 
 pub struct Scene<'a> {
     pub atlas: &'a AtlasData,
+    /// The current map's grid: with it, a zoomed-in frame visits only the items near the screen.
+    pub grid: Option<&'a crate::grid::Grid>,
     pub sheets: &'a SheetStore,
     pub camera: &'a Camera,
     pub hover: Option<usize>,
@@ -219,12 +277,29 @@ pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
         None
     };
     let mut wanted = std::collections::BTreeSet::new();
+    let mut used = std::collections::BTreeSet::new();
     let margin = side.max(8.0);
     let (wf, hf) = (w as f64, h as f64);
     // The open and hovered items are drawn again last, so that they sit on top of their neighbours.
     let on_top = [scene.open, scene.hover];
-    let order = (0..atlas.n).chain(on_top.iter().flatten().copied());
+    // Zoomed in, only the grid cells near the screen are visited (in item order, as a full pass
+    // would draw them); zoomed out, a plain pass over every item is cheaper than the lookup.
+    let mut near = Vec::new();
+    let culled = scene.grid.is_some_and(|g| {
+        let r = scene.camera.visible(margin + side);
+        g.coverage(r) < 0.5 && {
+            g.query(r, &mut near);
+            true
+        }
+    });
+    let all: Box<dyn Iterator<Item = usize>> = if culled {
+        Box::new(near.iter().map(|&i| i as usize))
+    } else {
+        Box::new(0..atlas.n)
+    };
+    let order = all.chain(on_top.iter().flatten().copied());
     for i in order {
+        stats.visited += 1;
         let r = scene.item_rect(i);
         if r[2] < -margin || r[0] > wf + margin || r[3] < -margin || r[1] > hf + margin {
             continue;
@@ -256,8 +331,13 @@ pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
                         let cell = scene.sheets.cell(l, i, atlas.extents[i]);
                         blit(buf, w, h, r, sheet, cell);
                         stats.thumbnails += 1;
+                        used.insert((l, scene.sheets.sheet_of(l, i)));
                     }
                     None => {
+                        // Nothing to show yet: the smallest level's sheet comes first.
+                        if level > 0 {
+                            wanted.insert((0, scene.sheets.sheet_of(0, i)));
+                        }
                         let c = atlas.colours[i];
                         fill_rect(buf, w, h, r, [c[0], c[1], c[2]]);
                         stats.marks += 1;
@@ -281,12 +361,56 @@ pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
         }
     }
     stats.wanted = wanted.into_iter().collect();
+    stats.used = used.into_iter().collect();
     stats
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn the_sheet_budget_evicts_the_least_recently_drawn_sheets_never_the_current_frames() {
+        let level = |cell: u32, sheets: usize| SheetLevel {
+            cell,
+            columns: 4,
+            rows: 4,
+            files: (0..sheets).map(|i| format!("L{cell}-{i}.jpg")).collect(),
+            loaded: (0..sheets).map(|_| None).collect(),
+        };
+        let sheet = || Sheet {
+            width: 10,
+            height: 10,
+            rgb: vec![0; 300],
+        };
+        let mut s = SheetStore::new(vec![level(128, 5), level(32, 2)]);
+        assert_eq!(s.levels[0].cell, 32, "smallest level first");
+        s.budget = 3 * 300;
+        s.insert(0, 0, sheet(), 1);
+        s.insert(1, 0, sheet(), 2);
+        s.insert(1, 1, sheet(), 3);
+        assert_eq!((s.bytes, s.evicted), (900, 0));
+        // Frame 4 draws from (0, 0) and (1, 1): (1, 0) is the least recently used.
+        s.touch(&[(0, 0), (1, 1)], 4);
+        s.insert(1, 2, sheet(), 4);
+        assert!(s.levels[1].loaded[0].is_none());
+        assert!(s.levels[0].loaded[0].is_some() && s.levels[1].loaded[1].is_some());
+        assert_eq!((s.bytes, s.evicted), (900, 1));
+        // A frame that draws from more sheets than the budget holds keeps them all.
+        s.touch(&[(0, 0), (1, 1), (1, 2)], 5);
+        s.insert(1, 3, sheet(), 5);
+        assert_eq!((s.bytes, s.evicted), (1200, 1));
+        // The next arrival evicts down to the budget again, oldest first; among sheets last drawn
+        // in the same frame the sharper ones go first (the coarse level covers more items).
+        s.touch(&[(1, 3)], 6);
+        s.insert(1, 4, sheet(), 6);
+        assert_eq!((s.bytes, s.evicted), (900, 3));
+        assert!(s.levels[0].loaded[0].is_some());
+        assert!(s.levels[1].loaded[3].is_some() && s.levels[1].loaded[4].is_some());
+        // Replacing a held sheet counts its bytes once.
+        s.insert(1, 4, sheet(), 7);
+        assert_eq!(s.bytes, 900);
+    }
 
     #[test]
     fn rectangles_partly_or_wholly_off_screen_are_clipped() {

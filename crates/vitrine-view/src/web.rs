@@ -12,10 +12,13 @@ use web_sys::{Document, HtmlCanvasElement, HtmlElement};
 
 use crate::atlas::AtlasData;
 use crate::camera::Camera;
+use crate::grid::Grid;
 use crate::pick::Picker;
 use crate::raster::{self, Scene, Sheet, SheetStore, READING_ROOM};
 
 const MAX_FETCHES: usize = 4;
+/// Items per cell of the culling grid on average.
+const GRID_ITEMS_PER_CELL: usize = 16;
 
 struct Gpu {
     surface: wgpu::Surface<'static>,
@@ -35,6 +38,7 @@ struct App {
     atlas: AtlasData,
     sheets: SheetStore,
     picker: Picker,
+    grid: Grid,
     camera: Camera,
     pixels: Vec<u8>,
     hover: Option<usize>,
@@ -47,6 +51,7 @@ struct App {
     frames: u64,
     last: raster::FrameStats,
     base_zoom: f64,
+    first_full: bool,
 }
 
 struct Drag {
@@ -110,8 +115,32 @@ fn progress(fraction: f64, text: &str) {
 }
 
 async fn fetch_bytes(url: &str) -> Result<Vec<u8>, String> {
+    fetched_bytes(url, web_sys::window().unwrap().fetch_with_str(url)).await
+}
+
+/// Fetches many files at once (the requests all start before the first is awaited).
+async fn fetch_many(
+    base: &str,
+    files: &[(String, u64)],
+) -> Result<HashMap<String, Vec<u8>>, String> {
     let window = web_sys::window().unwrap();
-    let resp = JsFuture::from(window.fetch_with_str(url))
+    let started: Vec<(String, js_sys::Promise)> = files
+        .iter()
+        .map(|(f, _)| {
+            let url = format!("{base}{f}");
+            let p = window.fetch_with_str(&url);
+            (url, p)
+        })
+        .collect();
+    let mut got = HashMap::new();
+    for ((file, _), (url, p)) in files.iter().zip(started) {
+        got.insert(file.clone(), fetched_bytes(&url, p).await?);
+    }
+    Ok(got)
+}
+
+async fn fetched_bytes(url: &str, request: js_sys::Promise) -> Result<Vec<u8>, String> {
+    let resp = JsFuture::from(request)
         .await
         .map_err(|e| format!("{url}: {e:?}"))?;
     let resp: web_sys::Response = resp
@@ -353,6 +382,7 @@ impl App {
     fn scene(&self) -> Scene<'_> {
         Scene {
             atlas: &self.atlas,
+            grid: Some(&self.grid),
             sheets: &self.sheets,
             camera: &self.camera,
             hover: self.hover,
@@ -374,7 +404,15 @@ impl App {
         self.gpu.present(&pixels, w, h);
         self.pixels = pixels;
         self.frames += 1;
+        self.sheets.touch(&stats.used, self.frames);
         set_state("frames", &self.frames.to_string());
+        if !self.first_full && stats.wanted.is_empty() {
+            // The first frame with everything on screen drawn as it should be (for benchmarks).
+            self.first_full = true;
+            if let Some(perf) = web_sys::window().and_then(|w| w.performance()) {
+                set_state("firstFull", &format!("{:.1}", perf.now()));
+            }
+        }
         self.update_axis();
         self.update_labels();
         set_state(
@@ -547,11 +585,17 @@ fn fetch_sheets(wanted: Vec<(usize, usize)>) {
                 a.fetching.remove(&(level, index));
                 match result {
                     Ok(img) => {
-                        a.sheets.levels[level].loaded[index] = Some(Sheet {
-                            width: img.width(),
-                            height: img.height(),
-                            rgb: img.into_raw(),
-                        });
+                        let frame = a.frames;
+                        a.sheets.insert(
+                            level,
+                            index,
+                            Sheet {
+                                width: img.width(),
+                                height: img.height(),
+                                rgb: img.into_raw(),
+                            },
+                            frame,
+                        );
                     }
                     Err(e) => web_sys::console::warn_1(&format!("sheet not loaded: {e}").into()),
                 }
@@ -628,7 +672,7 @@ fn open_card(i: Option<usize>) {
             let li = doc.create_element("li").unwrap();
             let b = doc.create_element("button").unwrap();
             b.set_text_content(Some(&a.atlas.label(j)));
-            b.set_attribute("data-id", a.atlas.ids.get(j)).unwrap();
+            b.set_attribute("data-id", a.atlas.id(j)).unwrap();
             let cb = Closure::<dyn FnMut()>::new(move || open_card(Some(j)));
             b.add_event_listener_with_callback("click", cb.as_ref().unchecked_ref())
                 .unwrap();
@@ -639,7 +683,7 @@ fn open_card(i: Option<usize>) {
         let _ = card.append_child(&ol);
     }
     card.set_hidden(false);
-    set_state("card", a.atlas.ids.get(i));
+    set_state("card", a.atlas.id(i));
     drop(a);
     request_frame();
 }
@@ -693,7 +737,7 @@ fn set_hover(i: Option<usize>) {
                 Some(i) => {
                     tip.set_text_content(Some(&format!(
                         "{} · {}",
-                        a.atlas.ids.get(i),
+                        a.atlas.id(i),
                         a.atlas.label(i)
                     )));
                     tip.set_hidden(false);
@@ -701,7 +745,7 @@ fn set_hover(i: Option<usize>) {
                 None => tip.set_hidden(true),
             }
         }
-        set_state("hover", i.map(|i| a.atlas.ids.get(i)).unwrap_or(""));
+        set_state("hover", i.map(|i| a.atlas.id(i)).unwrap_or(""));
         drop(a);
         request_frame();
     }
@@ -762,6 +806,7 @@ fn set_map(i: usize) {
         }
         a.atlas.select_map(i);
         a.picker = Picker::new(&a.atlas.positions);
+        a.grid = Grid::new(&a.atlas.positions, a.atlas.bounds, GRID_ITEMS_PER_CELL);
         let (w, h) = a.size();
         a.camera = Camera::fit(a.atlas.bounds, [w as f64, h as f64]);
         a.base_zoom = a.camera.zoom;
@@ -986,31 +1031,27 @@ async fn load(base: String) -> Result<(), String> {
     };
     let manifest =
         vitrine_format::Manifest::from_json(&text).map_err(|e| format!("atlas.json: {e}"))?;
-    let files = AtlasData::files(&manifest);
-    let total: u64 = files.iter().map(|(_, b)| b).sum::<u64>().max(1);
-    let mut got = HashMap::new();
-    let mut done = 0u64;
-    for (k, (file, bytes)) in files.iter().enumerate() {
-        progress(
-            done as f64 / total as f64,
-            &format!(
-                "Loading {} ({} of {}, {:.1} MB)",
-                manifest.title,
-                k + 1,
-                files.len(),
-                total as f64 / 1e6
-            ),
-        );
-        let data = fetch_bytes(&format!("{base}{file}")).await?;
-        done += bytes;
-        got.insert(file.clone(), data);
-    }
+    // What the first picture needs comes first; ids, neighbour lists and catalogue columns are
+    // fetched while the map is already on screen.
+    let first = AtlasData::first_files(&manifest);
+    let total: u64 = first.iter().map(|(_, b)| b).sum::<u64>().max(1);
+    progress(
+        0.1,
+        &format!(
+            "Loading {} ({} files, {:.1} MB)",
+            manifest.title,
+            first.len(),
+            total as f64 / 1e6
+        ),
+    );
+    let got = fetch_many(&base, &first).await?;
     progress(1.0, "Preparing the map…");
     let atlas = AtlasData::from_parts(manifest, &got).map_err(|e| e.to_string())?;
     drop(got);
     let gpu = init_gpu(&canvas).await?;
     set_state("renderer", &gpu.renderer);
     let picker = Picker::new(&atlas.positions);
+    let grid = Grid::new(&atlas.positions, atlas.bounds, GRID_ITEMS_PER_CELL);
     let camera = Camera::fit(
         atlas.bounds,
         [canvas.width() as f64, canvas.height() as f64],
@@ -1069,6 +1110,7 @@ async fn load(base: String) -> Result<(), String> {
         atlas,
         sheets,
         picker,
+        grid,
         camera,
         pixels: Vec::new(),
         hover: None,
@@ -1081,11 +1123,7 @@ async fn load(base: String) -> Result<(), String> {
         frames: 0,
         last: Default::default(),
         base_zoom,
-    };
-    // The smallest sheets are fetched at once: they serve every zoom level until sharper ones arrive.
-    let first: Vec<(usize, usize)> = match app.sheets.levels.first() {
-        Some(l) => (0..l.files.len()).map(|i| (0, i)).collect(),
-        None => vec![],
+        first_full: false,
     };
     APP.with(|a| *a.borrow_mut() = Some(Rc::new(RefCell::new(app))));
     install_events(&canvas);
@@ -1093,8 +1131,32 @@ async fn load(base: String) -> Result<(), String> {
         l.set_hidden(true);
     }
     request_frame();
-    fetch_sheets(first);
+    load_catalogue(base).await
+}
+
+/// Fetches and adds the ids, neighbour lists and catalogue columns; the page is "ready" after.
+async fn load_catalogue(base: String) -> Result<(), String> {
+    let Some(app) = app() else { return Ok(()) };
+    let later = AtlasData::later_files(&app.borrow().atlas.manifest);
+    let mb = later.iter().map(|(_, b)| b).sum::<u64>() as f64 / 1e6;
+    let count = app.borrow().atlas.n;
+    if let Some(c) = by_id("atlas-count") {
+        c.set_text_content(Some(&format!(
+            "{count} items · loading the catalogue ({mb:.1} MB)…"
+        )));
+    }
+    set_state("catalogue", "loading");
+    let got = fetch_many(&base, &later).await?;
+    app.borrow_mut()
+        .atlas
+        .complete(&got)
+        .map_err(|e| e.to_string())?;
+    if let Some(c) = by_id("atlas-count") {
+        c.set_text_content(Some(&format!("{count} items")));
+    }
+    set_state("catalogue", "ready");
     set_state("state", "ready");
+    request_frame();
     Ok(())
 }
 
@@ -1129,7 +1191,7 @@ pub fn start() {
 pub fn screen_position_of(id: &str) -> Option<Vec<f64>> {
     let app = app()?;
     let a = app.borrow();
-    let i = (0..a.atlas.n).find(|&i| a.atlas.ids.get(i) == id)?;
+    let i = (0..a.atlas.n).find(|&i| a.atlas.id(i) == id)?;
     let s = a.camera.to_screen(a.atlas.positions[i]);
     Some(vec![s[0], s[1]])
 }
@@ -1152,10 +1214,17 @@ pub fn view_state() -> String {
         "side_px": a.last.side_px,
         "marks": a.last.marks,
         "thumbnails": a.last.thumbnails,
+        "visited": a.last.visited,
         "frames": a.frames,
         "sheets_loaded": loaded,
+        "sheet_bytes": a.sheets.bytes,
+        "sheets_evicted": a.sheets.evicted,
         "fetching": a.fetching.len(),
         "map": a.atlas.maps[a.atlas.current].name,
+        "wasm_bytes": wasm_bindgen::memory()
+            .dyn_into::<js_sys::WebAssembly::Memory>()
+            .map(|m| m.buffer().dyn_into::<js_sys::ArrayBuffer>().map(|b| b.byte_length()).unwrap_or(0))
+            .unwrap_or(0),
         "maps": a.atlas.maps.iter().map(|m| m.name.clone()).collect::<Vec<_>>(),
     })
     .to_string()
@@ -1170,6 +1239,20 @@ pub fn zoom_view(factor: f64) {
     }
 }
 
+/// For tests and scripts: moves the view by (dx, dy) canvas pixels, draws at once, and starts
+/// fetching the sheets the new view wants.
+#[wasm_bindgen]
+pub fn pan_view(dx: f64, dy: f64) {
+    let Some(app) = app() else { return };
+    let wanted = {
+        let mut a = app.borrow_mut();
+        a.camera.pan(dx, dy);
+        a.render();
+        a.last.wanted.clone()
+    };
+    fetch_sheets(wanted);
+}
+
 /// Centres the view on the item with this id at `factor` times the fitted zoom, and draws at once.
 /// Returns false when there is no such item.
 #[wasm_bindgen]
@@ -1177,7 +1260,7 @@ pub fn focus_item(id: &str, factor: f64) -> bool {
     let Some(app) = app() else { return false };
     let found = {
         let mut a = app.borrow_mut();
-        match (0..a.atlas.n).find(|&i| a.atlas.ids.get(i) == id) {
+        match (0..a.atlas.n).find(|&i| a.atlas.id(i) == id) {
             Some(i) => {
                 let p = a.atlas.positions[i];
                 a.camera.centre = [p[0] as f64, p[1] as f64];

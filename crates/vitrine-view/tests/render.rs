@@ -82,6 +82,7 @@ fn zoom_changes_what_is_drawn_and_thumbnails_are_the_right_pictures() {
     cam.zoom = cam.zoom.min(4.0 / atlas.spacing);
     let scene = Scene {
         atlas: &atlas,
+        grid: None,
         sheets: &sheets,
         camera: &cam,
         hover: None,
@@ -101,6 +102,7 @@ fn zoom_changes_what_is_drawn_and_thumbnails_are_the_right_pictures() {
     };
     let scene = Scene {
         atlas: &atlas,
+        grid: None,
         sheets: &sheets,
         camera: &cam,
         hover: Some(10),
@@ -109,6 +111,24 @@ fn zoom_changes_what_is_drawn_and_thumbnails_are_the_right_pictures() {
     };
     let s = draw(&scene, &mut buf, w, h);
     assert!(s.thumbnails > 0 && s.marks == 0, "{s:?}");
+    // With the map's grid the frame visits only the items near the screen, and draws the same.
+    let grid = vitrine_view::grid::Grid::new(&atlas.positions, atlas.bounds, 2);
+    let mut culled = vec![0u8; w * h * 4];
+    let sc = draw(
+        &Scene {
+            grid: Some(&grid),
+            ..scene
+        },
+        &mut culled,
+        w,
+        h,
+    );
+    assert!(sc.visited < s.visited / 2, "{sc:?} vs {s:?}");
+    assert_eq!(
+        (sc.marks, sc.thumbnails, &sc.wanted),
+        (s.marks, s.thumbnails, &s.wanted)
+    );
+    assert!(culled == buf, "the grid changed the picture");
     let r = scene.item_rect(10);
     // The hovered item is on top: its centre shows its own group's colour (JPEG tolerance).
     let c = pixel(&buf, w, (r[0] + r[2]) / 2.0, (r[1] + r[3]) / 2.0);
@@ -129,6 +149,7 @@ fn zoom_changes_what_is_drawn_and_thumbnails_are_the_right_pictures() {
     let partial = load_sheets(&atlas, dir.path(), &[0]);
     let scene = Scene {
         atlas: &atlas,
+        grid: None,
         sheets: &partial,
         camera: &cam,
         hover: Some(10),
@@ -147,6 +168,7 @@ fn zoom_changes_what_is_drawn_and_thumbnails_are_the_right_pictures() {
     let none = load_sheets(&atlas, dir.path(), &[]);
     let scene = Scene {
         atlas: &atlas,
+        grid: None,
         sheets: &none,
         camera: &cam,
         hover: None,
@@ -206,4 +228,39 @@ fn record_lines_hold_every_field_as_written() {
         .1
         .iter()
         .any(|(k, v)| k == "vectors" && v.starts_with("v.npy")));
+}
+
+#[test]
+fn the_first_picture_needs_only_the_first_files_and_the_catalogue_follows() {
+    let dir = tempfile::tempdir().unwrap();
+    let full = fixture(dir.path());
+    let a = dir.path().join("atlas");
+    let m = Manifest::from_json(&std::fs::read_to_string(a.join("atlas.json")).unwrap()).unwrap();
+    let read = |list: Vec<(String, u64)>| -> HashMap<String, Vec<u8>> {
+        list.into_iter()
+            .map(|(f, _)| (f.clone(), std::fs::read(a.join(&f)).unwrap()))
+            .collect()
+    };
+    let (first, later) = (AtlasData::first_files(&m), AtlasData::later_files(&m));
+    // The two lists split every array file of the atlas between them.
+    let mut both: Vec<_> = first.iter().chain(&later).cloned().collect();
+    both.sort();
+    assert_eq!(both, AtlasData::files(&m));
+    assert!(first.iter().all(|f| !later.contains(f)) && !later.is_empty());
+    let mut atlas = AtlasData::from_parts(m.clone(), &read(first)).unwrap();
+    // Enough to draw: positions, colours and extents as in the whole atlas; no catalogue yet.
+    assert!(!atlas.catalogue);
+    assert_eq!(atlas.positions, full.positions);
+    assert_eq!(atlas.colours, full.colours);
+    assert_eq!(atlas.extents, full.extents);
+    assert_eq!(atlas.id(3), "");
+    assert!(atlas.neighbours_of(3).is_empty());
+    assert!(atlas.label(3).contains("loading"), "{}", atlas.label(3));
+    atlas.complete(&read(later)).unwrap();
+    assert!(atlas.catalogue);
+    for i in [0, 3, 89] {
+        assert_eq!(atlas.record(i), full.record(i));
+        assert_eq!(atlas.neighbours_of(i), full.neighbours_of(i));
+        assert_eq!(atlas.label(i), full.label(i));
+    }
 }

@@ -1,0 +1,152 @@
+#!/usr/bin/env python3
+"""Viewer benchmark: invented atlases of 100,000 and 1,000,000 items in headless Chromium with
+software WebGL, driven through a scripted session (bench/view_session.mjs).
+
+Each atlas is built once and cached (~/.cache/vitrine/bench/view): vectors from a mixture of
+Gaussians (so the map has clusters), an invented catalogue (technique, place, date), and images:
+1,000 distinct invented 192x144 JPEGs, each used by many records (every record's thumbnail is
+still made and packed on its own). Levels 32 and 128 px (a 512 px level for a million items would
+be tens of gigabytes of sheets).
+"""
+
+import argparse
+import json
+import os
+import shutil
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+ROOT = HERE.parent
+SOURCE_VERSION = 1
+TECHNIQUES = ["etching", "engraving", "woodcut", "drawing", "mezzotint", "lithograph", "photograph"]
+PLACES = ["Varnholt", "Osterlee", "Brisca", "Montaubel", "Kessendorf", "Lurano", "Tremmel", "Saint-Oriel"]
+
+
+def log(msg):
+    print(f"[bench-view] {msg}", file=sys.stderr, flush=True)
+
+
+def ensure_source(cache, n):
+    import numpy as np
+
+    d = cache / f"source-{n}"
+    meta = d / ".meta.json"
+    want = {"n": n, "version": SOURCE_VERSION}
+    if meta.exists() and json.loads(meta.read_text()) == want:
+        return d
+    shutil.rmtree(d, ignore_errors=True)
+    (d / "images").mkdir(parents=True)
+    log(f"inventing a {n}-item archive in {d} (once)")
+    sys.path.insert(0, str(HERE))
+    import bench_images
+
+    bench_images.make_jpegs(d / "images", 1000, 11, 192, 144)
+    pictures = sorted(p.name for p in (d / "images").iterdir())
+    rng = np.random.default_rng(n)
+    k, dims = 60, 24
+    centres = rng.normal(0, 4, (k, dims)).astype(np.float32)
+    label = rng.integers(0, k, n)
+    vec = centres[label] + rng.normal(0, 1, (n, dims)).astype(np.float32)
+    np.save(d / "vectors.npy", vec.astype(np.float32))
+    start = rng.integers(1480, 1880, n)
+    span = rng.integers(0, 40, n)
+    with open(d / "records.csv", "w", encoding="utf-8") as f:
+        f.write("id,image,technique,place,date\n")
+        for i in range(n):
+            t = TECHNIQUES[(label[i] + rng.integers(0, 2)) % len(TECHNIQUES)]
+            p = PLACES[int(rng.integers(0, len(PLACES)))]
+            date = f"c. {start[i]}" if span[i] < 5 else f"{start[i]}-{start[i] + span[i]}"
+            f.write(f"r{i:07d},{pictures[(label[i] * 16 + i) % len(pictures)]},{t},{p},{date}\n")
+    meta.write_text(json.dumps(want))
+    return d
+
+
+def ensure_atlas(cache, n, vitrine, viewer):
+    src = ensure_source(cache, n)
+    out = cache / f"atlas-{n}"
+    stamp = out / ".bench-stamp"
+    want = json.dumps({"source": SOURCE_VERSION, "vitrine": os.path.getmtime(vitrine)})
+    if stamp.exists() and stamp.read_text() == want:
+        # Only the viewer may have changed: copy it in afresh.
+        for f in viewer.rglob("*"):
+            if f.is_file():
+                dst = out / f.relative_to(viewer)
+                dst.parent.mkdir(parents=True, exist_ok=True)
+                shutil.copy2(f, dst)
+        return out
+    log(f"building the {n}-item atlas (once per vitrine build)")
+    t = time.perf_counter()
+    shutil.rmtree(out, ignore_errors=True)
+    subprocess.run([str(vitrine), "build", "--vectors", str(src / "vectors.npy"), "--catalogue",
+                    str(src / "records.csv"), "--images", str(src / "images"), "--levels", "32,128",
+                    "--title", f"Bench archive, {n} items (invented)", "--viewer", str(viewer),
+                    "--thumb-cache", str(cache / "thumbs"), "--out", str(out)], check=True)
+    log(f"  {time.perf_counter() - t:.0f} s")
+    (out / ".bench-stamp").write_text(want)
+    return out
+
+
+def serve(vitrine, atlas):
+    p = subprocess.Popen([str(vitrine), "serve", str(atlas), "--port", "0"], stdout=subprocess.PIPE,
+                         text=True)
+    line = p.stdout.readline()
+    while "http://" not in line:
+        line = p.stdout.readline()
+        if not line:
+            raise SystemExit("vitrine serve did not start")
+    url = line[line.index("http://"):].split()[0]
+    return p, url
+
+
+def main():
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--cache", default=os.path.expanduser("~/.cache/vitrine/bench/view"))
+    ap.add_argument("--sizes", default="100000,1000000")
+    ap.add_argument("--angle", default="swiftshader,gl-egl",
+                    help="Chromium's ANGLE backends to run: swiftshader, gl-egl (llvmpipe)")
+    ap.add_argument("--vitrine", default=str(ROOT / "target" / "release" / "vitrine"))
+    ap.add_argument("--viewer", default=str(ROOT / "target" / "viewer"))
+    a = ap.parse_args()
+    cache = Path(a.cache).expanduser()
+    cache.mkdir(parents=True, exist_ok=True)
+    results = []
+    for n in [int(s) for s in a.sizes.split(",")]:
+        atlas = ensure_atlas(cache, n, Path(a.vitrine), Path(a.viewer))
+        server, url = serve(a.vitrine, atlas)
+        try:
+            for angle in a.angle.split(","):
+                log(f"session on {n} items, ANGLE {angle}")
+                r = subprocess.run(["node", str(HERE / "view_session.mjs"), url, angle],
+                                   cwd=ROOT, capture_output=True, text=True)
+                if r.returncode != 0:
+                    log(f"  failed:\n{r.stderr[-3000:]}")
+                    continue
+                res = json.loads(r.stdout.strip().splitlines()[-1])
+                res.update(items=n, angle=angle)
+                results.append(res)
+        finally:
+            server.kill()
+    (cache / "results.json").write_text(json.dumps(results, indent=1))
+    print()
+    for r in results:
+        print(f"{r['items']:,} items, ANGLE {r['angle']} ({r['renderer']}), 1280x800")
+        print(f"  first full picture {r['first_full_ms']:.0f} ms after navigation; "
+              f"fetched {r['bytes'] / 1e6:.1f} MB in {r['requests']} requests; "
+              f"memory JS heap {r['js_heap'] / 2**20:.0f} MiB + wasm {r['wasm'] / 2**20:.0f} MiB")
+        head = ["phase", "frames", "median ms", "p95 ms", "drawn"]
+        rows = [[p["phase"], str(p["frames"]), f"{p['median']:.1f}", f"{p['p95']:.1f}", p["drawn"]]
+                for p in r["phases"]]
+        widths = [max(len(x) for x in col) for col in zip(head, *rows)]
+        for line in [head, ["-" * w for w in widths]] + rows:
+            print("  " + "  ".join(x.ljust(w) for x, w in zip(line, widths)))
+        print()
+    print("Frame: one scripted step (zoom or pan) drawn at once and read back (a pixel copied out of the")
+    print("canvas), so wgpu's present and the software rasteriser are inside the time.")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,102 @@
+// The viewer benchmark's scripted session: node bench/view_session.mjs URL [swiftshader|gl-egl]
+// Opens the atlas at URL in Debian's headless Chromium at 1280x800 with software WebGL, then: load,
+// fit, zoom in three steps down to single thumbnails, panning back and forth at each level. Every
+// step is drawn at once and read back (a pixel copied out of the canvas), and timed in the page.
+// Prints one JSON line: time to first full picture, per-phase median and 95th-percentile frame
+// times, bytes fetched and the tab's memory (JS heap + wasm memory).
+import { createRequire } from "node:module";
+import path from "node:path";
+import fs from "node:fs";
+import os from "node:os";
+
+const require = createRequire(path.resolve("tests/browser/package.json"));
+const { chromium } = require("playwright-core");
+
+const [url, angle = "swiftshader"] = process.argv.slice(2);
+const FLAGS = [
+  "--no-sandbox", `--use-angle=${angle}`, "--enable-unsafe-swiftshader", "--ignore-gpu-blocklist",
+  "--disable-background-networking", "--disable-component-update", "--disable-sync", "--no-first-run",
+  "--disable-quic", "--enable-precise-memory-info",
+];
+
+const quantile = (xs, q) => {
+  const s = [...xs].sort((a, b) => a - b);
+  return s[Math.min(s.length - 1, Math.floor(q * s.length))];
+};
+
+const profile = fs.mkdtempSync(path.join(os.tmpdir(), "vitrine-bench-view-"));
+const browser = await chromium.launchPersistentContext(profile, {
+  executablePath: process.env.CHROMIUM || "/usr/bin/chromium",
+  args: FLAGS,
+  headless: true,
+  viewport: { width: 1280, height: 800 },
+});
+try {
+  const page = browser.pages()[0] || (await browser.newPage());
+  const errors = [];
+  page.on("pageerror", (e) => errors.push(String(e)));
+  await page.addInitScript(() => performance.setResourceTimingBufferSize(1000000));
+  await page.goto(url);
+  await page.waitForFunction(() => document.body.dataset.firstFull || document.body.dataset.state === "error",
+    null, { timeout: 600000, polling: 50 });
+  if (await page.evaluate(() => document.body.dataset.state) === "error") {
+    throw new Error(`the page reported an error: ${await page.locator("#message").textContent()} ${errors}`);
+  }
+  const firstFull = Number(await page.evaluate(() => document.body.dataset.firstFull));
+  const state = async () => JSON.parse(await page.evaluate(() => window.vitrineView.view_state()));
+  const start = await state();
+
+  // Runs `steps` in the page: each is [kind, a, b] (zoom factor or pan dx, dy), drawn at once and read
+  // back; returns the milliseconds per step. Between steps the page gets a moment for fetches.
+  const run = (steps) => page.evaluate(async (steps) => {
+    const canvas = document.getElementById("map");
+    const probe = new OffscreenCanvas(1, 1).getContext("2d", { willReadFrequently: true });
+    const times = [];
+    for (const [kind, a, b] of steps) {
+      const t0 = performance.now();
+      if (kind === "zoom") window.vitrineView.zoom_view(a);
+      else window.vitrineView.pan_view(a, b);
+      probe.drawImage(canvas, canvas.width / 2, canvas.height / 2, 1, 1, 0, 0, 1, 1);
+      probe.getImageData(0, 0, 1, 1);
+      times.push(performance.now() - t0);
+      await new Promise((r) => setTimeout(r, 20));
+    }
+    return times;
+  }, steps);
+
+  const phases = [];
+  const phase = async (name, steps) => {
+    const times = await run(steps);
+    const s = await state();
+    phases.push({
+      phase: name, frames: times.length, median: quantile(times, 0.5), p95: quantile(times, 0.95),
+      drawn: `${s.marks} marks, ${s.thumbnails} thumbnails (${s.side_px.toFixed(1)} px)`,
+    });
+  };
+  const pans = (dx) => [...Array(10).fill(["pan", dx, 0]), ...Array(10).fill(["pan", -dx, 0])];
+  const zoomTo = (from, to) => Array(8).fill(["zoom", Math.pow(to / from, 1 / 8), 0]);
+
+  await phase("fit (still, redrawn)", Array(10).fill(["zoom", 1.0, 0]));
+  await phase("fit: pan", pans(80));
+  // Three zoom steps: item squares of ~8 px (marks), ~40 px (small thumbnails), ~300 px (one record).
+  let side = start.side_px;
+  for (const [name, target] of [["marks", 8], ["small thumbnails", 40], ["single thumbnails", 300]]) {
+    await phase(`zoom to ${name}`, zoomTo(side, target));
+    side = target;
+    await phase(`${name}: pan`, pans(120));
+  }
+  const end = await state();
+  const cdp = await browser.newCDPSession(page);
+  const heap = await cdp.send("Runtime.getHeapUsage");
+  const fetched = await page.evaluate(() => {
+    const e = performance.getEntriesByType("resource");
+    return { bytes: e.reduce((s, r) => s + (r.encodedBodySize || 0), 0), requests: e.length };
+  });
+  console.log(JSON.stringify({
+    renderer: end.renderer, first_full_ms: firstFull, phases, js_heap: heap.usedSize, wasm: end.wasm_bytes,
+    bytes: fetched.bytes, requests: fetched.requests, sheets_loaded: end.sheets_loaded, errors,
+  }));
+} finally {
+  await browser.close();
+  fs.rmSync(profile, { recursive: true, force: true });
+}
