@@ -11,9 +11,21 @@ setup_rust() {
   setup_wasm_bindgen
 }
 
+# Mesa's software Vulkan (lavapipe) and OpenGL (llvmpipe): the native golden-image tests draw
+# through wgpu on them, and `bench-view --angle gl-egl` gives Chromium llvmpipe.
+setup_mesa() {
+  if ! ls /usr/share/vulkan/icd.d/lvp_icd*.json >/dev/null 2>&1 || ! ls /usr/lib/*/libEGL_mesa.so.0 >/dev/null 2>&1; then
+    echo "[setup] Mesa's software Vulkan and OpenGL (lavapipe, llvmpipe)"
+    local sudo=""; [ "$(id -u)" = 0 ] || sudo="sudo"
+    $sudo apt-get update -qq
+    DEBIAN_FRONTEND=noninteractive $sudo apt-get install -y -qq mesa-vulkan-drivers libvulkan1 libegl1 libegl-mesa0 libgl1-mesa-dri
+  fi
+}
+
 setup() {
   setup_rust
   setup_browser
+  setup_mesa
   echo "[setup] Python venv for the outside-reference tests ($CACHE/venv)"
   # numpy and scikit-learn are the outside references of the tests; umap-learn gives the method's a, b fit;
   # Pillow writes and decodes the reference images, scikit-image ships sample photographs.
@@ -82,6 +94,8 @@ run_tests() {
   setup
   echo "[test] cargo test (workspace)"
   cargo test --workspace --locked --release 2>&1
+  echo "[test] golden images of the renderer through wgpu on Mesa's software Vulkan and GL"
+  XDG_RUNTIME_DIR="${XDG_RUNTIME_DIR:-/tmp}" cargo test --locked --release -p vitrine-view --features native-gpu --test golden 2>&1
   echo "[test] demo atlas for the browser test"
   build_demo
   echo "[test] viewer in headless Chromium (software WebGL)"
@@ -114,12 +128,6 @@ case "${1:-}" in
     "$CACHE/venv/bin/python" bench/bench_images.py --vitrine-bench "$PWD/target/release/vitrine-bench" "$@" ;;
   bench-view)
     setup
-    if [ ! -e /usr/lib/x86_64-linux-gnu/dri/swrast_dri.so ] && [ ! -e /usr/lib/x86_64-linux-gnu/libEGL_mesa.so.0 ]; then
-      echo "[bench] Mesa's software OpenGL for Chromium's --use-angle=gl-egl (llvmpipe)"
-      sudo=""; [ "$(id -u)" = 0 ] || sudo="sudo"
-      $sudo apt-get update -qq
-      DEBIAN_FRONTEND=noninteractive $sudo apt-get install -y -qq libegl1 libegl-mesa0 libgl1-mesa-dri
-    fi
     build_viewer
     cargo build --locked --release -p vitrine-build --bins
     shift

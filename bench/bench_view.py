@@ -133,7 +133,8 @@ def main():
     print()
     for r in results:
         print(f"{r['items']:,} items, ANGLE {r['angle']} ({r['renderer']}), 1280x800")
-        print(f"  first full picture {r['first_full_ms']:.0f} ms after navigation; "
+        print(f"  first full picture {r['first_full_ms']:.0f} ms after navigation (catalogue by "
+              f"{r['catalogue_ready_ms']:.0f} ms); "
               f"fetched {r['bytes'] / 1e6:.1f} MB in {r['requests']} requests; "
               f"memory JS heap {r['js_heap'] / 2**20:.0f} MiB + wasm {r['wasm'] / 2**20:.0f} MiB")
         head = ["phase", "frames", "median ms", "p95 ms", "drawn"]

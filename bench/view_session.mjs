@@ -43,6 +43,8 @@ try {
     throw new Error(`the page reported an error: ${await page.locator("#message").textContent()} ${errors}`);
   }
   const firstFull = Number(await page.evaluate(() => document.body.dataset.firstFull));
+  await page.waitForFunction(() => document.body.dataset.state === "ready", null, { timeout: 600000 });
+  const readyMs = await page.evaluate(() => performance.now());
   const state = async () => JSON.parse(await page.evaluate(() => window.vitrineView.view_state()));
   const start = await state();
 
@@ -78,7 +80,10 @@ try {
 
   await phase("fit (still, redrawn)", Array(10).fill(["zoom", 1.0, 0]));
   await phase("fit: pan", pans(80));
-  // Three zoom steps: item squares of ~8 px (marks), ~40 px (small thumbnails), ~300 px (one record).
+  // Three zoom steps about one record (the first of the atlas, centred at the fitted zoom): item
+  // squares of ~8 px (marks), ~40 px (small thumbnails), ~300 px (one record).
+  const first = await page.evaluate(() => window.vitrineView.item_id(0));
+  await page.evaluate((id) => window.vitrineView.focus_item(id, 1.0), first);
   let side = start.side_px;
   for (const [name, target] of [["marks", 8], ["small thumbnails", 40], ["single thumbnails", 300]]) {
     await phase(`zoom to ${name}`, zoomTo(side, target));
@@ -93,7 +98,7 @@ try {
     return { bytes: e.reduce((s, r) => s + (r.encodedBodySize || 0), 0), requests: e.length };
   });
   console.log(JSON.stringify({
-    renderer: end.renderer, first_full_ms: firstFull, phases, js_heap: heap.usedSize, wasm: end.wasm_bytes,
+    renderer: end.renderer, first_full_ms: firstFull, catalogue_ready_ms: readyMs, phases, js_heap: heap.usedSize, wasm: end.wasm_bytes,
     bytes: fetched.bytes, requests: fetched.requests, sheets_loaded: end.sheets_loaded, errors,
   }));
 } finally {

@@ -79,7 +79,24 @@ pub fn serve(
         .map(|a| a.to_string())
         .unwrap_or_default();
     on_ready(&format!("http://{addr}/"));
-    for request in server.incoming_requests() {
+    // A few workers, as a static host answers requests side by side: one slow or stalled
+    // download never holds up the others.
+    let server = std::sync::Arc::new(server);
+    let workers: Vec<_> = (0..8)
+        .map(|_| {
+            let server = server.clone();
+            let root = root.to_path_buf();
+            std::thread::spawn(move || answer(&server, &root))
+        })
+        .collect();
+    for w in workers {
+        let _ = w.join();
+    }
+    Ok(())
+}
+
+fn answer(server: &tiny_http::Server, root: &Path) {
+    while let Ok(request) = server.recv() {
         let method = request.method().clone();
         if method != tiny_http::Method::Get && method != tiny_http::Method::Head {
             let _ = request.respond(tiny_http::Response::empty(405));
@@ -111,5 +128,4 @@ pub fn serve(
             }
         }
     }
-    Ok(())
 }

@@ -62,6 +62,73 @@ impl Camera {
     }
 }
 
+/// An animated move from one camera to another: zoom changes geometrically and every point on
+/// screen travels on a straight line towards the one point that both cameras show at the same
+/// place (the point under the pointer for a wheel zoom); with no change of zoom it is a plain
+/// slide. Eased out, so the view answers at once and settles softly.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Glide {
+    pub from: Camera,
+    pub to: Camera,
+    /// Start time and length in milliseconds.
+    pub start: f64,
+    pub duration: f64,
+}
+
+impl Glide {
+    pub fn new(from: Camera, to: Camera, start: f64, duration: f64) -> Glide {
+        Glide {
+            from,
+            to,
+            start,
+            duration,
+        }
+    }
+
+    /// Eased progress in [0, 1] at time `now`.
+    fn progress(&self, now: f64) -> f64 {
+        if self.duration <= 0.0 {
+            return 1.0;
+        }
+        let t = ((now - self.start) / self.duration).clamp(0.0, 1.0);
+        1.0 - (1.0 - t).powi(3)
+    }
+
+    pub fn done(&self, now: f64) -> bool {
+        self.progress(now) >= 1.0
+    }
+
+    /// The camera at time `now`: `from` at the start, exactly `to` at the end.
+    pub fn at(&self, now: f64) -> Camera {
+        let e = self.progress(now);
+        if e >= 1.0 {
+            return self.to;
+        }
+        if e <= 0.0 {
+            return self.from;
+        }
+        let (a, b) = (&self.from, &self.to);
+        let mut c = *b;
+        let ratio = b.zoom / a.zoom;
+        let (hw, hh) = (b.size[0] / 2.0, b.size[1] / 2.0);
+        if (ratio - 1.0).abs() < 1e-9 {
+            c.zoom = b.zoom;
+            for k in 0..2 {
+                c.centre[k] = a.centre[k] + (b.centre[k] - a.centre[k]) * e;
+            }
+            return c;
+        }
+        // The fixed point f on screen: a.to_map(f) == b.to_map(f).
+        let inv = 1.0 / b.zoom - 1.0 / a.zoom;
+        let fx = hw + (a.centre[0] - b.centre[0]) / inv;
+        let fy = hh - (a.centre[1] - b.centre[1]) / inv;
+        let m = a.to_map([fx, fy]);
+        c.zoom = a.zoom * ratio.powf(e);
+        c.centre = [m[0] - (fx - hw) / c.zoom, m[1] + (fy - hh) / c.zoom];
+        c
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -100,5 +167,46 @@ mod tests {
         assert!(
             (after[0] - before[0] - 10.0).abs() < 1e-9 && (after[1] - before[1] + 4.0).abs() < 1e-9
         );
+    }
+
+    #[test]
+    fn a_glide_starts_and_ends_on_its_cameras_and_keeps_the_zoom_anchor_still() {
+        let a = Camera::fit([0.0, 0.0, 10.0, 10.0], [800.0, 600.0]);
+        let anchor = [620.0, 130.0];
+        let mut b = a;
+        b.zoom_at(anchor, 6.0, [1e-9, 1e9]);
+        let g = Glide::new(a, b, 1000.0, 200.0);
+        assert_eq!(g.at(900.0), a);
+        assert_eq!(g.at(1200.0), b);
+        assert!(g.done(1200.0) && !g.done(1100.0));
+        let m = a.to_map(anchor);
+        let mut last = a.zoom;
+        for t in (1000..=1200).step_by(10) {
+            let c = g.at(t as f64);
+            let s = c.to_screen([m[0] as f32, m[1] as f32]);
+            assert!(
+                (s[0] - anchor[0]).abs() < 1e-3 && (s[1] - anchor[1]).abs() < 1e-3,
+                "{t}: {s:?}"
+            );
+            assert!(c.zoom >= last, "zoom grows monotonically");
+            last = c.zoom;
+        }
+        // Eased out: more than half the way (in log zoom) after a third of the time.
+        let third = g.at(1000.0 + 200.0 / 3.0).zoom;
+        assert!((third / a.zoom).ln() > 0.5 * (b.zoom / a.zoom).ln());
+    }
+
+    #[test]
+    fn a_glide_without_zoom_slides_in_a_straight_line_and_zero_duration_jumps() {
+        let a = Camera::fit([0.0, 0.0, 10.0, 10.0], [800.0, 600.0]);
+        let mut b = a;
+        b.pan(300.0, -120.0);
+        let g = Glide::new(a, b, 0.0, 100.0);
+        let c = g.at(50.0);
+        assert_eq!(c.zoom, a.zoom);
+        let e = (c.centre[0] - a.centre[0]) / (b.centre[0] - a.centre[0]);
+        assert!(e > 0.5 && e < 1.0);
+        assert!(((c.centre[1] - a.centre[1]) / (b.centre[1] - a.centre[1]) - e).abs() < 1e-9);
+        assert_eq!(Glide::new(a, b, 0.0, 0.0).at(0.0), b);
     }
 }

@@ -4,13 +4,17 @@
 //! The `web` module (wasm32 only) translates DOM events and fetches into calls on the core and hands
 //! finished frames to wgpu.
 //!
-//! Invariant: nothing outside `web` touches the DOM, the network or the GPU.
+//! Invariant: nothing outside `web` touches the DOM or the network, and nothing outside `web` and
+//! `present` (which shows a finished frame through wgpu) touches the GPU.
 
 pub mod atlas;
 pub mod camera;
 pub mod grid;
 pub mod pick;
 pub mod raster;
+
+#[cfg(any(target_arch = "wasm32", feature = "native-gpu"))]
+pub mod present;
 
 #[cfg(target_arch = "wasm32")]
 mod web;

@@ -192,7 +192,7 @@ impl Scene<'_> {
                 (eh as f64 / big * side).max(1.0),
             )
         } else {
-            let m = (side * 0.9).clamp(3.0, 7.0);
+            let m = mark_side(side);
             (m, m)
         };
         [
@@ -204,11 +204,24 @@ impl Scene<'_> {
     }
 }
 
+/// The side of a mark on screen for items `side` pixels apart: small, but never under 3 px.
+fn mark_side(side: f64) -> f64 {
+    (side * 0.9).clamp(3.0, 7.0)
+}
+
+/// A rectangle edge as a pixel index, clamped at 0: the nearest pixel boundary, as `round` then
+/// the clamp gives (but for values one bit below a half, where x + 0.5 rounds up), and `floor` is
+/// one wasm instruction where `round` is a call.
+#[inline]
+fn px(x: f64) -> f64 {
+    (x + 0.5).floor().max(0.0)
+}
+
 fn fill_rect(buf: &mut [u8], w: usize, h: usize, r: [f64; 4], c: [u8; 3]) {
-    let x0 = (r[0].round().max(0.0) as usize).min(w);
-    let y0 = (r[1].round().max(0.0) as usize).min(h);
-    let x1 = (r[2].round().max(0.0) as usize).clamp(x0, w);
-    let y1 = (r[3].round().max(0.0) as usize).clamp(y0, h);
+    let x0 = (px(r[0]) as usize).min(w);
+    let y0 = (px(r[1]) as usize).min(h);
+    let x1 = (px(r[2]) as usize).clamp(x0, w);
+    let y1 = (px(r[3]) as usize).clamp(y0, h);
     for y in y0..y1 {
         let row = &mut buf[(y * w + x0) * 4..(y * w + x1) * 4];
         for px in row.chunks_exact_mut(4) {
@@ -230,10 +243,10 @@ fn outline(buf: &mut [u8], w: usize, h: usize, r: [f64; 4], c: [u8; 3], t: f64) 
 /// Copies the item's cell from a sheet into `r`, sampling the nearest source pixel.
 fn blit(buf: &mut [u8], w: usize, h: usize, r: [f64; 4], sheet: &Sheet, cell: [u32; 4]) {
     let (dw, dh) = (r[2] - r[0], r[3] - r[1]);
-    let x0 = r[0].round().max(0.0) as usize;
-    let y0 = r[1].round().max(0.0) as usize;
-    let x1 = (r[2].round().max(0.0) as usize).min(w);
-    let y1 = (r[3].round().max(0.0) as usize).min(h);
+    let x0 = px(r[0]) as usize;
+    let y0 = px(r[1]) as usize;
+    let x1 = (px(r[2]) as usize).min(w);
+    let y1 = (px(r[3]) as usize).min(h);
     let [cx, cy, cw, ch] = cell;
     let sw = sheet.width as usize;
     for y in y0..y1 {
@@ -258,11 +271,15 @@ fn blit(buf: &mut [u8], w: usize, h: usize, r: [f64; 4], sheet: &Sheet, cell: [u
 /// Draws the scene into `buf` (RGBA, `w` x `h`).
 pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
     let t = scene.theme;
-    for px in buf.chunks_exact_mut(4) {
-        px[0] = t.paper[0];
-        px[1] = t.paper[1];
-        px[2] = t.paper[2];
-        px[3] = 255;
+    // The paper: one row filled, then copied row by row.
+    let paper = [t.paper[0], t.paper[1], t.paper[2], 255];
+    if let Some((first, rest)) = buf.split_at_mut_checked(w * 4) {
+        for px in first.chunks_exact_mut(4) {
+            px.copy_from_slice(&paper);
+        }
+        for row in rest.chunks_exact_mut(w * 4) {
+            row.copy_from_slice(first);
+        }
     }
     let atlas = scene.atlas;
     let side = scene.side_px();
@@ -298,50 +315,69 @@ pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
         Box::new(0..atlas.n)
     };
     let order = all.chain(on_top.iter().flatten().copied());
-    for i in order {
-        stats.visited += 1;
-        let r = scene.item_rect(i);
-        if r[2] < -margin || r[0] > wf + margin || r[3] < -margin || r[1] > hf + margin {
-            continue;
-        }
-        match want_level {
-            None => {
-                let c = atlas.colours[i];
-                fill_rect(buf, w, h, r, [c[0], c[1], c[2]]);
-                stats.marks += 1;
+    if want_level.is_none() {
+        // Marks only (zoomed out, where a frame may hold a million items): the same squares as
+        // item_rect gives, without its per-item choices.
+        let m = mark_side(side);
+        let cam = scene.camera;
+        let (hw, hh) = (cam.size[0] / 2.0, cam.size[1] / 2.0);
+        let reach = m / 2.0;
+        for i in order {
+            stats.visited += 1;
+            let p = atlas.positions[i];
+            let sx = (p[0] as f64 - cam.centre[0]) * cam.zoom + hw;
+            let sy = (cam.centre[1] - p[1] as f64) * cam.zoom + hh;
+            if sx < -reach || sy < -reach || sx > wf + reach || sy > hf + reach {
+                continue;
             }
-            Some(level) => {
-                let sheet_index = scene.sheets.sheet_of(level, i);
-                if scene.sheets.levels[level].loaded[sheet_index].is_none() {
-                    wanted.insert((level, sheet_index));
+            let c = atlas.colours[i];
+            fill_rect(
+                buf,
+                w,
+                h,
+                [sx - reach, sy - reach, sx + reach, sy + reach],
+                [c[0], c[1], c[2]],
+            );
+            stats.marks += 1;
+        }
+    } else {
+        let level = want_level.expect("thumbnails wanted");
+        for i in order {
+            stats.visited += 1;
+            let r = scene.item_rect(i);
+            if r[2] < -margin || r[0] > wf + margin || r[3] < -margin || r[1] > hf + margin {
+                continue;
+            }
+            let sheet_index = scene.sheets.sheet_of(level, i);
+            if scene.sheets.levels[level].loaded[sheet_index].is_none() {
+                wanted.insert((level, sheet_index));
+            }
+            // The wanted level if loaded, else the nearest loaded one (smaller levels first: they are fetched first).
+            let mut chosen = None;
+            for l in std::iter::once(level)
+                .chain((0..scene.sheets.levels.len()).rev().filter(|&l| l != level))
+            {
+                let s = scene.sheets.sheet_of(l, i);
+                if let Some(sheet) = &scene.sheets.levels[l].loaded[s] {
+                    chosen = Some((l, sheet));
+                    break;
                 }
-                // The wanted level if loaded, else the nearest loaded one (smaller levels first: they are fetched first).
-                let mut chosen = None;
-                for l in std::iter::once(level)
-                    .chain((0..scene.sheets.levels.len()).rev().filter(|&l| l != level))
-                {
-                    let s = scene.sheets.sheet_of(l, i);
-                    if let Some(sheet) = &scene.sheets.levels[l].loaded[s] {
-                        chosen = Some((l, sheet));
-                        break;
-                    }
+            }
+            match chosen {
+                Some((l, sheet)) => {
+                    let cell = scene.sheets.cell(l, i, atlas.extents[i]);
+                    blit(buf, w, h, r, sheet, cell);
+                    stats.thumbnails += 1;
+                    used.insert((l, scene.sheets.sheet_of(l, i)));
                 }
-                match chosen {
-                    Some((l, sheet)) => {
-                        let cell = scene.sheets.cell(l, i, atlas.extents[i]);
-                        blit(buf, w, h, r, sheet, cell);
-                        stats.thumbnails += 1;
-                        used.insert((l, scene.sheets.sheet_of(l, i)));
+                None => {
+                    // Nothing to show yet: the smallest level's sheet comes first.
+                    if level > 0 {
+                        wanted.insert((0, scene.sheets.sheet_of(0, i)));
                     }
-                    None => {
-                        // Nothing to show yet: the smallest level's sheet comes first.
-                        if level > 0 {
-                            wanted.insert((0, scene.sheets.sheet_of(0, i)));
-                        }
-                        let c = atlas.colours[i];
-                        fill_rect(buf, w, h, r, [c[0], c[1], c[2]]);
-                        stats.marks += 1;
-                    }
+                    let c = atlas.colours[i];
+                    fill_rect(buf, w, h, r, [c[0], c[1], c[2]]);
+                    stats.marks += 1;
                 }
             }
         }
@@ -410,6 +446,15 @@ mod tests {
         // Replacing a held sheet counts its bytes once.
         s.insert(1, 4, sheet(), 7);
         assert_eq!(s.bytes, 900);
+    }
+
+    #[test]
+    fn pixel_edges_are_rounded_as_round_then_clamped() {
+        let mut xs: Vec<f64> = (-40..=40).map(|i| i as f64 * 0.25).collect();
+        xs.extend([-0.5, 0.5, 1.5, 2.5, 1e-12, -1e-12, 1279.5]);
+        for x in xs {
+            assert_eq!(px(x), x.round().max(0.0), "{x}");
+        }
     }
 
     #[test]

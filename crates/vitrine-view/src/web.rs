@@ -11,25 +11,31 @@ use wasm_bindgen_futures::JsFuture;
 use web_sys::{Document, HtmlCanvasElement, HtmlElement};
 
 use crate::atlas::AtlasData;
-use crate::camera::Camera;
+use crate::camera::{Camera, Glide};
 use crate::grid::Grid;
 use crate::pick::Picker;
+use crate::present::Presenter;
 use crate::raster::{self, Scene, Sheet, SheetStore, READING_ROOM};
 
 const MAX_FETCHES: usize = 4;
+/// Lengths of the animated camera moves: a wheel step or key press, and a return to the whole map.
+const ZOOM_GLIDE_MS: f64 = 160.0;
+const FIT_GLIDE_MS: f64 = 280.0;
 /// Items per cell of the culling grid on average.
 const GRID_ITEMS_PER_CELL: usize = 16;
 
 struct Gpu {
+    /// Kept for the page's life: WebGPU stops drawing once the instance is gone.
+    _instance: wgpu::Instance,
+    _adapter: wgpu::Adapter,
     surface: wgpu::Surface<'static>,
     device: wgpu::Device,
     queue: wgpu::Queue,
     config: wgpu::SurfaceConfiguration,
-    pipeline: wgpu::RenderPipeline,
-    layout: wgpu::BindGroupLayout,
-    texture_format: wgpu::TextureFormat,
-    frame: Option<(wgpu::Texture, wgpu::BindGroup, u32, u32)>,
+    presenter: Presenter,
     renderer: String,
+    /// "WebGPU" or "WebGL2".
+    backend: &'static str,
 }
 
 struct App {
@@ -47,6 +53,8 @@ struct App {
     pointers: HashMap<i32, [f64; 2]>,
     pinch: Option<f64>,
     frame_pending: bool,
+    /// The animated camera move under way, if any.
+    glide: Option<Glide>,
     fetching: HashSet<(usize, usize)>,
     frames: u64,
     last: raster::FrameStats,
@@ -123,18 +131,35 @@ async fn fetch_many(
     base: &str,
     files: &[(String, u64)],
 ) -> Result<HashMap<String, Vec<u8>>, String> {
-    let window = web_sys::window().unwrap();
-    let started: Vec<(String, js_sys::Promise)> = files
-        .iter()
-        .map(|(f, _)| {
-            let url = format!("{base}{f}");
-            let p = window.fetch_with_str(&url);
-            (url, p)
-        })
-        .collect();
+    // Every request starts at once and each body is read as soon as its headers arrive: reading
+    // them one after another would leave later bodies unread, and a host that writes responses in
+    // turn would then wait on the page while the page waits on it.
+    let read_all = js_sys::Function::new_with_args(
+        "urls",
+        "return Promise.all(urls.map(u => fetch(u).then(r => r.ok ? r.arrayBuffer() \
+         : Promise.reject(new Error(u + ': HTTP ' + r.status)))))",
+    );
+    let urls = js_sys::Array::new();
+    for (f, _) in files {
+        urls.push(&JsValue::from_str(&format!("{base}{f}")));
+    }
+    let all = read_all
+        .call1(&JsValue::NULL, &urls)
+        .map_err(|e| format!("{base}: {e:?}"))?;
+    let bodies = JsFuture::from(js_sys::Promise::from(all))
+        .await
+        .map_err(|e| {
+            e.dyn_ref::<js_sys::Error>()
+                .map(|e| String::from(e.message()))
+                .unwrap_or_else(|| format!("{e:?}"))
+        })?;
+    let bodies = js_sys::Array::from(&bodies);
     let mut got = HashMap::new();
-    for ((file, _), (url, p)) in files.iter().zip(started) {
-        got.insert(file.clone(), fetched_bytes(&url, p).await?);
+    for (i, (file, _)) in files.iter().enumerate() {
+        got.insert(
+            file.clone(),
+            js_sys::Uint8Array::new(&bodies.get(i as u32)).to_vec(),
+        );
     }
     Ok(got)
 }
@@ -155,38 +180,66 @@ async fn fetched_bytes(url: &str, request: js_sys::Promise) -> Result<Vec<u8>, S
     Ok(js_sys::Uint8Array::new(&buf).to_vec())
 }
 
-const SHADER: &str = r#"
-@group(0) @binding(0) var frame: texture_2d<f32>;
-
-@vertex
-fn vs(@builtin(vertex_index) i: u32) -> @builtin(position) vec4<f32> {
-    let x = f32(i32(i & 1u) * 4 - 1);
-    let y = f32(i32(i >> 1u) * 4 - 1);
-    return vec4<f32>(x, y, 0.0, 1.0);
-}
-
-@fragment
-fn fs(@builtin(position) p: vec4<f32>) -> @location(0) vec4<f32> {
-    return textureLoad(frame, vec2<i32>(p.xy), 0);
-}
-"#;
-
+/// WebGPU where the browser offers an adapter for it, else WebGL2 (which every current browser
+/// has, in software when there is no GPU). `?backend=webgl2` in the address asks for WebGL2.
 async fn init_gpu(canvas: &HtmlCanvasElement) -> Result<Gpu, String> {
-    let mut desc = wgpu::InstanceDescriptor::new_without_display_handle();
-    desc.backends = wgpu::Backends::GL;
-    let instance = wgpu::Instance::new(desc);
+    let asked = web_sys::window()
+        .and_then(|w| w.location().search().ok())
+        .unwrap_or_default();
+    let has_webgpu = web_sys::window()
+        .map(|w| js_sys::Reflect::has(&w.navigator(), &"gpu".into()).unwrap_or(false))
+        .unwrap_or(false);
+    if has_webgpu && !asked.contains("backend=webgl2") {
+        // The adapter is asked for before the canvas is touched: a canvas that has handed out a
+        // WebGPU context can never give a WebGL2 one, which would end the fallback.
+        let instance = instance(wgpu::Backends::BROWSER_WEBGPU);
+        match instance.request_adapter(&adapter_options(None)).await {
+            Ok(adapter) => {
+                let surface = instance
+                    .create_surface(wgpu::SurfaceTarget::Canvas(canvas.clone()))
+                    .map_err(|e| format!("WebGPU gave no canvas context: {e}"))?;
+                return init_device(instance, surface, adapter, canvas, "WebGPU").await;
+            }
+            Err(e) => web_sys::console::info_1(
+                &format!("WebGPU offers no adapter here ({e}); drawing with WebGL2").into(),
+            ),
+        }
+    }
+    let instance = instance(wgpu::Backends::GL);
     let surface = instance
         .create_surface(wgpu::SurfaceTarget::Canvas(canvas.clone()))
         .map_err(|e| format!("this browser gives no WebGL2 context: {e}"))?;
     let adapter = instance
-        .request_adapter(&wgpu::RequestAdapterOptions {
-            power_preference: wgpu::PowerPreference::LowPower,
-            force_fallback_adapter: false,
-            compatible_surface: Some(&surface),
-            ..Default::default()
-        })
+        .request_adapter(&adapter_options(Some(&surface)))
         .await
         .map_err(|e| format!("no graphics adapter: {e}"))?;
+    init_device(instance, surface, adapter, canvas, "WebGL2").await
+}
+
+fn instance(backends: wgpu::Backends) -> wgpu::Instance {
+    let mut desc = wgpu::InstanceDescriptor::new_without_display_handle();
+    desc.backends = backends;
+    wgpu::Instance::new(desc)
+}
+
+fn adapter_options<'a>(
+    surface: Option<&'a wgpu::Surface<'static>>,
+) -> wgpu::RequestAdapterOptions<'a, 'static> {
+    wgpu::RequestAdapterOptions {
+        power_preference: wgpu::PowerPreference::LowPower,
+        force_fallback_adapter: false,
+        compatible_surface: surface,
+        ..Default::default()
+    }
+}
+
+async fn init_device(
+    instance: wgpu::Instance,
+    surface: wgpu::Surface<'static>,
+    adapter: wgpu::Adapter,
+    canvas: &HtmlCanvasElement,
+    backend: &'static str,
+) -> Result<Gpu, String> {
     let info = adapter.get_info();
     let (device, queue) = adapter
         .request_device(&wgpu::DeviceDescriptor {
@@ -204,11 +257,6 @@ async fn init_gpu(canvas: &HtmlCanvasElement) -> Result<Gpu, String> {
         .copied()
         .find(|f| !f.is_srgb())
         .unwrap_or(caps.formats[0]);
-    let texture_format = if format.is_srgb() {
-        wgpu::TextureFormat::Rgba8UnormSrgb
-    } else {
-        wgpu::TextureFormat::Rgba8Unorm
-    };
     let config = wgpu::SurfaceConfiguration {
         usage: wgpu::TextureUsages::RENDER_ATTACHMENT,
         format,
@@ -221,64 +269,22 @@ async fn init_gpu(canvas: &HtmlCanvasElement) -> Result<Gpu, String> {
         view_formats: vec![],
     };
     surface.configure(&device, &config);
-    let module = device.create_shader_module(wgpu::ShaderModuleDescriptor {
-        label: Some("frame"),
-        source: wgpu::ShaderSource::Wgsl(SHADER.into()),
-    });
-    let layout = device.create_bind_group_layout(&wgpu::BindGroupLayoutDescriptor {
-        label: Some("frame"),
-        entries: &[wgpu::BindGroupLayoutEntry {
-            binding: 0,
-            visibility: wgpu::ShaderStages::FRAGMENT,
-            ty: wgpu::BindingType::Texture {
-                sample_type: wgpu::TextureSampleType::Float { filterable: false },
-                view_dimension: wgpu::TextureViewDimension::D2,
-                multisampled: false,
-            },
-            count: None,
-        }],
-    });
-    let pipeline_layout = device.create_pipeline_layout(&wgpu::PipelineLayoutDescriptor {
-        label: Some("frame"),
-        bind_group_layouts: &[Some(&layout)],
-        immediate_size: 0,
-    });
-    let pipeline = device.create_render_pipeline(&wgpu::RenderPipelineDescriptor {
-        label: Some("frame"),
-        layout: Some(&pipeline_layout),
-        vertex: wgpu::VertexState {
-            module: &module,
-            entry_point: Some("vs"),
-            compilation_options: Default::default(),
-            buffers: &[],
-        },
-        primitive: wgpu::PrimitiveState::default(),
-        depth_stencil: None,
-        multisample: wgpu::MultisampleState::default(),
-        fragment: Some(wgpu::FragmentState {
-            module: &module,
-            entry_point: Some("fs"),
-            compilation_options: Default::default(),
-            targets: &[Some(wgpu::ColorTargetState {
-                format,
-                blend: None,
-                write_mask: wgpu::ColorWrites::ALL,
-            })],
-        }),
-        multiview_mask: None,
-        cache: None,
-    });
-    let renderer = format!("{} ({:?})", info.name, info.backend);
+    let presenter = Presenter::new(&device, format);
+    let renderer = if info.name.is_empty() {
+        backend.to_string()
+    } else {
+        format!("{} ({backend})", info.name)
+    };
     Ok(Gpu {
+        _instance: instance,
+        _adapter: adapter,
         surface,
         device,
         queue,
         config,
-        pipeline,
-        layout,
-        texture_format,
-        frame: None,
+        presenter,
         renderer,
+        backend,
     })
 }
 
@@ -292,52 +298,6 @@ impl Gpu {
     }
 
     fn present(&mut self, pixels: &[u8], w: u32, h: u32) {
-        if !matches!(&self.frame, Some((_, _, fw, fh)) if *fw == w && *fh == h) {
-            let texture = self.device.create_texture(&wgpu::TextureDescriptor {
-                label: Some("frame"),
-                size: wgpu::Extent3d {
-                    width: w,
-                    height: h,
-                    depth_or_array_layers: 1,
-                },
-                mip_level_count: 1,
-                sample_count: 1,
-                dimension: wgpu::TextureDimension::D2,
-                format: self.texture_format,
-                usage: wgpu::TextureUsages::TEXTURE_BINDING | wgpu::TextureUsages::COPY_DST,
-                view_formats: &[],
-            });
-            let view = texture.create_view(&Default::default());
-            let bind = self.device.create_bind_group(&wgpu::BindGroupDescriptor {
-                label: Some("frame"),
-                layout: &self.layout,
-                entries: &[wgpu::BindGroupEntry {
-                    binding: 0,
-                    resource: wgpu::BindingResource::TextureView(&view),
-                }],
-            });
-            self.frame = Some((texture, bind, w, h));
-        }
-        let (texture, bind, _, _) = self.frame.as_ref().unwrap();
-        self.queue.write_texture(
-            wgpu::TexelCopyTextureInfo {
-                texture,
-                mip_level: 0,
-                origin: wgpu::Origin3d::ZERO,
-                aspect: wgpu::TextureAspect::All,
-            },
-            pixels,
-            wgpu::TexelCopyBufferLayout {
-                offset: 0,
-                bytes_per_row: Some(w * 4),
-                rows_per_image: Some(h),
-            },
-            wgpu::Extent3d {
-                width: w,
-                height: h,
-                depth_or_array_layers: 1,
-            },
-        );
         let frame = match self.surface.get_current_texture() {
             wgpu::CurrentSurfaceTexture::Success(t)
             | wgpu::CurrentSurfaceTexture::Suboptimal(t) => t,
@@ -347,29 +307,8 @@ impl Gpu {
             }
         };
         let view = frame.texture.create_view(&Default::default());
-        let mut enc = self.device.create_command_encoder(&Default::default());
-        {
-            let mut pass = enc.begin_render_pass(&wgpu::RenderPassDescriptor {
-                label: Some("frame"),
-                color_attachments: &[Some(wgpu::RenderPassColorAttachment {
-                    view: &view,
-                    depth_slice: None,
-                    resolve_target: None,
-                    ops: wgpu::Operations {
-                        load: wgpu::LoadOp::Clear(wgpu::Color::WHITE),
-                        store: wgpu::StoreOp::Store,
-                    },
-                })],
-                depth_stencil_attachment: None,
-                timestamp_writes: None,
-                occlusion_query_set: None,
-                multiview_mask: None,
-            });
-            pass.set_pipeline(&self.pipeline);
-            pass.set_bind_group(0, bind, &[]);
-            pass.draw(0..3, 0..1);
-        }
-        self.queue.submit([enc.finish()]);
+        self.presenter
+            .draw(&self.device, &self.queue, pixels, w, h, &view);
         self.queue.present(frame);
     }
 }
@@ -548,18 +487,73 @@ fn request_frame() {
     app.borrow_mut().frame_pending = true;
     let cb = Closure::once_into_js(move || {
         if let Some(app) = self::app() {
-            let wanted = {
+            let (wanted, gliding) = {
                 let mut a = app.borrow_mut();
                 a.frame_pending = false;
+                let gliding = match a.glide {
+                    Some(g) => {
+                        let t = now();
+                        a.camera = g.at(t);
+                        if g.done(t) {
+                            a.glide = None;
+                        }
+                        a.glide.is_some()
+                    }
+                    None => false,
+                };
                 a.render();
-                a.last.wanted.clone()
+                (a.last.wanted.clone(), gliding)
             };
-            fetch_sheets(wanted);
+            if gliding {
+                // Sheets are fetched for where the view comes to rest, not for the views on the way.
+                request_frame();
+            } else {
+                fetch_sheets(wanted);
+            }
         }
     });
     let _ = web_sys::window()
         .unwrap()
         .request_animation_frame(cb.unchecked_ref());
+}
+
+fn now() -> f64 {
+    web_sys::window()
+        .and_then(|w| w.performance())
+        .map(|p| p.now())
+        .unwrap_or(0.0)
+}
+
+/// Milliseconds for a glide of this kind; none when the reader asked the system for less motion.
+fn glide_ms(ms: f64) -> f64 {
+    let reduce = web_sys::window()
+        .and_then(|w| {
+            w.match_media("(prefers-reduced-motion: reduce)")
+                .ok()
+                .flatten()
+        })
+        .map(|m| m.matches())
+        .unwrap_or(false);
+    if reduce {
+        0.0
+    } else {
+        ms
+    }
+}
+
+/// The camera a glide under way is heading for, or the camera itself.
+fn camera_target(a: &App) -> Camera {
+    a.glide.map(|g| g.to).unwrap_or(a.camera)
+}
+
+/// Moves the view to `to` in an animated glide from where it is now.
+fn glide_to(to: Camera, ms: f64) {
+    if let Some(app) = app() {
+        let mut a = app.borrow_mut();
+        let from = a.camera;
+        a.glide = Some(Glide::new(from, to, now(), glide_ms(ms)));
+    }
+    request_frame();
 }
 
 /// Starts fetching sheets that visible items want, a few at a time.
@@ -778,22 +772,32 @@ fn listen<E: wasm_bindgen::convert::FromWasmAbi + 'static>(
 }
 
 fn zoom_by(factor: f64, at: Option<[f64; 2]>) {
-    if let Some(app) = app() {
-        let mut a = app.borrow_mut();
+    let Some(app) = app() else { return };
+    let to = {
+        let a = app.borrow();
         let at = at.unwrap_or([a.camera.size[0] / 2.0, a.camera.size[1] / 2.0]);
-        let limits = a.zoom_limits();
-        a.camera.zoom_at(at, factor, limits);
-    }
-    request_frame();
+        let mut to = camera_target(&a);
+        to.zoom_at(at, factor, a.zoom_limits());
+        to
+    };
+    glide_to(to, ZOOM_GLIDE_MS);
+}
+
+fn pan_by(dx: f64, dy: f64) {
+    let Some(app) = app() else { return };
+    let mut to = camera_target(&app.borrow());
+    to.pan(dx, dy);
+    glide_to(to, ZOOM_GLIDE_MS);
 }
 
 fn fit() {
-    if let Some(app) = app() {
-        let mut a = app.borrow_mut();
+    let Some(app) = app() else { return };
+    let to = {
+        let a = app.borrow();
         let (w, h) = a.size();
-        a.camera = Camera::fit(a.atlas.bounds, [w as f64, h as f64]);
-    }
-    request_frame();
+        Camera::fit(a.atlas.bounds, [w as f64, h as f64])
+    };
+    glide_to(to, FIT_GLIDE_MS);
 }
 
 /// Shows map `i` (fitted to the window).
@@ -808,6 +812,7 @@ fn set_map(i: usize) {
         a.picker = Picker::new(&a.atlas.positions);
         a.grid = Grid::new(&a.atlas.positions, a.atlas.bounds, GRID_ITEMS_PER_CELL);
         let (w, h) = a.size();
+        a.glide = None;
         a.camera = Camera::fit(a.atlas.bounds, [w as f64, h as f64]);
         a.base_zoom = a.camera.zoom;
         a.hover = None;
@@ -869,6 +874,7 @@ fn install_events(canvas: &HtmlCanvasElement) {
                     if let Some(prev) = a.pinch {
                         let mid = [(v[0][0] + v[1][0]) / 2.0, (v[0][1] + v[1][1]) / 2.0];
                         let limits = a.zoom_limits();
+                        a.glide = None;
                         a.camera.zoom_at(mid, d / prev.max(1.0), limits);
                     }
                     a.pinch = Some(d);
@@ -879,6 +885,7 @@ fn install_events(canvas: &HtmlCanvasElement) {
                         drag.moved = true;
                     }
                     if drag.moved {
+                        a.glide = None;
                         a.camera.pan(dx, dy);
                     }
                 } else {
@@ -953,12 +960,7 @@ fn install_events(canvas: &HtmlCanvasElement) {
                 return;
             }
             let step = 80.0;
-            let pan = |dx: f64, dy: f64| {
-                if let Some(app) = app() {
-                    app.borrow_mut().camera.pan(dx, dy);
-                }
-                request_frame();
-            };
+            let pan = pan_by;
             match e.key().as_str() {
                 "+" | "=" => zoom_by(1.4, None),
                 "-" | "_" => zoom_by(1.0 / 1.4, None),
@@ -1050,6 +1052,7 @@ async fn load(base: String) -> Result<(), String> {
     drop(got);
     let gpu = init_gpu(&canvas).await?;
     set_state("renderer", &gpu.renderer);
+    set_state("backend", gpu.backend);
     let picker = Picker::new(&atlas.positions);
     let grid = Grid::new(&atlas.positions, atlas.bounds, GRID_ITEMS_PER_CELL);
     let camera = Camera::fit(
@@ -1066,7 +1069,19 @@ async fn load(base: String) -> Result<(), String> {
         let h = doc.create_element("h2").unwrap();
         h.set_text_content(Some(&format!("About {}", atlas.manifest.title)));
         let _ = panel.append_child(&h);
-        for (heading, lines) in crate::atlas::about(&atlas.manifest) {
+        let mut sections = crate::atlas::about(&atlas.manifest);
+        sections.push((
+            "This viewer".to_string(),
+            vec![(
+                "drawn with".to_string(),
+                format!(
+                    "{} — the map is drawn on the processor and shown as one picture, so a \
+                     computer without a graphics card shows it as well",
+                    gpu.renderer
+                ),
+            )],
+        ));
+        for (heading, lines) in sections {
             let h3 = doc.create_element("h3").unwrap();
             h3.set_text_content(Some(&heading));
             let _ = panel.append_child(&h3);
@@ -1119,6 +1134,7 @@ async fn load(base: String) -> Result<(), String> {
         pointers: HashMap::new(),
         pinch: None,
         frame_pending: false,
+        glide: None,
         fetching: HashSet::new(),
         frames: 0,
         last: Default::default(),
@@ -1196,6 +1212,21 @@ pub fn screen_position_of(id: &str) -> Option<Vec<f64>> {
     Some(vec![s[0], s[1]])
 }
 
+/// For tests and scripts: the id of the item at `index` in atlas order ("" when out of range or
+/// before the catalogue is loaded).
+#[wasm_bindgen]
+pub fn item_id(index: usize) -> String {
+    let Some(app) = app() else {
+        return String::new();
+    };
+    let a = app.borrow();
+    if index < a.atlas.n {
+        a.atlas.id(index).to_string()
+    } else {
+        String::new()
+    }
+}
+
 /// For tests and scripts: a JSON summary of what the last frame drew.
 #[wasm_bindgen]
 pub fn view_state() -> String {
@@ -1209,6 +1240,7 @@ pub fn view_state() -> String {
         .collect();
     serde_json::json!({
         "renderer": a.gpu.renderer,
+        "backend": a.gpu.backend,
         "items": a.atlas.n,
         "zoom": a.camera.zoom / a.base_zoom,
         "side_px": a.last.side_px,
@@ -1220,6 +1252,7 @@ pub fn view_state() -> String {
         "sheet_bytes": a.sheets.bytes,
         "sheets_evicted": a.sheets.evicted,
         "fetching": a.fetching.len(),
+        "gliding": a.glide.is_some(),
         "map": a.atlas.maps[a.atlas.current].name,
         "wasm_bytes": wasm_bindgen::memory()
             .dyn_into::<js_sys::WebAssembly::Memory>()
@@ -1230,13 +1263,21 @@ pub fn view_state() -> String {
     .to_string()
 }
 
-/// For tests and scripts: zooms by `factor` about the canvas centre and draws at once.
+/// For tests and scripts: zooms by `factor` about the canvas centre, draws at once, and starts
+/// fetching the sheets the new view wants.
 #[wasm_bindgen]
 pub fn zoom_view(factor: f64) {
-    zoom_by(factor, None);
-    if let Some(app) = app() {
-        app.borrow_mut().render();
-    }
+    let Some(app) = app() else { return };
+    let wanted = {
+        let mut a = app.borrow_mut();
+        let at = [a.camera.size[0] / 2.0, a.camera.size[1] / 2.0];
+        let limits = a.zoom_limits();
+        a.glide = None;
+        a.camera.zoom_at(at, factor, limits);
+        a.render();
+        a.last.wanted.clone()
+    };
+    fetch_sheets(wanted);
 }
 
 /// For tests and scripts: moves the view by (dx, dy) canvas pixels, draws at once, and starts
@@ -1246,6 +1287,7 @@ pub fn pan_view(dx: f64, dy: f64) {
     let Some(app) = app() else { return };
     let wanted = {
         let mut a = app.borrow_mut();
+        a.glide = None;
         a.camera.pan(dx, dy);
         a.render();
         a.last.wanted.clone()
@@ -1263,6 +1305,7 @@ pub fn focus_item(id: &str, factor: f64) -> bool {
         match (0..a.atlas.n).find(|&i| a.atlas.id(i) == id) {
             Some(i) => {
                 let p = a.atlas.positions[i];
+                a.glide = None;
                 a.camera.centre = [p[0] as f64, p[1] as f64];
                 let limits = a.zoom_limits();
                 a.camera.zoom = (a.base_zoom * factor).clamp(limits[0], limits[1]);
