@@ -119,8 +119,12 @@ def main():
         try:
             for angle in a.angle.split(","):
                 log(f"session on {n} items, ANGLE {angle}")
-                r = subprocess.run(["node", str(HERE / "view_session.mjs"), url, angle],
-                                   cwd=ROOT, capture_output=True, text=True)
+                try:
+                    r = subprocess.run(["node", str(HERE / "view_session.mjs"), url, angle],
+                                       cwd=ROOT, capture_output=True, text=True, timeout=1800)
+                except subprocess.TimeoutExpired as e:
+                    log(f"  no result within 30 minutes:\n{(e.stderr or b'')[-3000:]}")
+                    continue
                 if r.returncode != 0:
                     log(f"  failed:\n{r.stderr[-3000:]}")
                     continue
@@ -137,15 +141,18 @@ def main():
               f"{r['catalogue_ready_ms']:.0f} ms); "
               f"fetched {r['bytes'] / 1e6:.1f} MB in {r['requests']} requests; "
               f"memory JS heap {r['js_heap'] / 2**20:.0f} MiB + wasm {r['wasm'] / 2**20:.0f} MiB")
-        head = ["phase", "frames", "median ms", "p95 ms", "drawn"]
-        rows = [[p["phase"], str(p["frames"]), f"{p['median']:.1f}", f"{p['p95']:.1f}", p["drawn"]]
+        head = ["phase", "frames", "median ms", "p95 ms", "raster ms", "to wgpu ms", "drawn"]
+        rows = [[p["phase"], str(p["frames"]), f"{p['median']:.1f}", f"{p['p95']:.1f}",
+                 f"{p['raster']:.1f}", f"{p['handover']:.1f}", p["drawn"]]
                 for p in r["phases"]]
         widths = [max(len(x) for x in col) for col in zip(head, *rows)]
         for line in [head, ["-" * w for w in widths]] + rows:
             print("  " + "  ".join(x.ljust(w) for x, w in zip(line, widths)))
         print()
     print("Frame: one scripted step (zoom or pan) drawn at once and read back (a pixel copied out of the")
-    print("canvas), so wgpu's present and the software rasteriser are inside the time.")
+    print("canvas), so wgpu's present and the software rasteriser are inside the time. Raster: the")
+    print("frame drawn on the CPU in wasm (median); to wgpu: the upload and draw calls handed to wgpu; the")
+    print("rest is the browser's GPU process (SwiftShader or llvmpipe) running them.")
     return 0
 
 

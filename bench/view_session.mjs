@@ -35,6 +35,7 @@ try {
   const page = browser.pages()[0] || (await browser.newPage());
   const errors = [];
   page.on("pageerror", (e) => errors.push(String(e)));
+  page.on("crash", () => console.error("[bench-view]   the page crashed"));
   await page.addInitScript(() => performance.setResourceTimingBufferSize(1000000));
   await page.goto(url);
   await page.waitForFunction(() => document.body.dataset.firstFull || document.body.dataset.state === "error",
@@ -43,6 +44,7 @@ try {
     throw new Error(`the page reported an error: ${await page.locator("#message").textContent()} ${errors}`);
   }
   const firstFull = Number(await page.evaluate(() => document.body.dataset.firstFull));
+  console.error(`[bench-view]   first full picture at ${firstFull} ms; waiting for the catalogue`);
   await page.waitForFunction(() => document.body.dataset.state === "ready", null, { timeout: 600000 });
   const readyMs = await page.evaluate(() => performance.now());
   const state = async () => JSON.parse(await page.evaluate(() => window.vitrineView.view_state()));
@@ -54,6 +56,9 @@ try {
     const canvas = document.getElementById("map");
     const probe = new OffscreenCanvas(1, 1).getContext("2d", { willReadFrequently: true });
     const times = [];
+    const raster = [];
+    const handover = [];
+    const whole = [];
     for (const [kind, a, b] of steps) {
       const t0 = performance.now();
       if (kind === "zoom") window.vitrineView.zoom_view(a);
@@ -61,17 +66,23 @@ try {
       probe.drawImage(canvas, canvas.width / 2, canvas.height / 2, 1, 1, 0, 0, 1, 1);
       probe.getImageData(0, 0, 1, 1);
       times.push(performance.now() - t0);
+      const s = JSON.parse(window.vitrineView.view_state());
+      raster.push(s.raster_ms);
+      handover.push(s.present_ms);
+      whole.push(s.render_ms);
       await new Promise((r) => setTimeout(r, 20));
     }
-    return times;
+    return { times, raster, handover, whole };
   }, steps);
 
   const phases = [];
   const phase = async (name, steps) => {
-    const times = await run(steps);
+    console.error(`[bench-view]   ${name}`);
+    const { times, raster, handover, whole } = await run(steps);
     const s = await state();
     phases.push({
       phase: name, frames: times.length, median: quantile(times, 0.5), p95: quantile(times, 0.95),
+      raster: quantile(raster, 0.5), handover: quantile(handover, 0.5), render: quantile(whole, 0.5),
       drawn: `${s.marks} marks, ${s.thumbnails} thumbnails (${s.side_px.toFixed(1)} px)`,
     });
   };
@@ -80,10 +91,10 @@ try {
 
   await phase("fit (still, redrawn)", Array(10).fill(["zoom", 1.0, 0]));
   await phase("fit: pan", pans(80));
-  // Three zoom steps about one record (the first of the atlas, centred at the fitted zoom): item
-  // squares of ~8 px (marks), ~40 px (small thumbnails), ~300 px (one record).
-  const first = await page.evaluate(() => window.vitrineView.item_id(0));
-  await page.evaluate((id) => window.vitrineView.focus_item(id, 1.0), first);
+  // Three zoom steps about one record in the most crowded part of the map (centred at the fitted
+  // zoom): item squares of ~8 px (marks), ~40 px (small thumbnails), ~300 px (one record).
+  const crowded = await page.evaluate(() => window.vitrineView.crowded_item());
+  await page.evaluate((id) => window.vitrineView.focus_item(id, 1.0), crowded);
   let side = start.side_px;
   for (const [name, target] of [["marks", 8], ["small thumbnails", 40], ["single thumbnails", 300]]) {
     await phase(`zoom to ${name}`, zoomTo(side, target));

@@ -106,6 +106,13 @@ impl Grid {
         }
         out.sort_unstable();
     }
+
+    /// The first item of the most crowded cell (the densest place of the map), if any.
+    pub fn crowded(&self) -> Option<u32> {
+        let c = (0..self.cols * self.rows)
+            .max_by_key(|&c| (self.starts[c + 1] - self.starts[c], std::cmp::Reverse(c)))?;
+        (self.starts[c + 1] > self.starts[c]).then(|| self.items[self.starts[c] as usize])
+    }
 }
 
 #[cfg(test)]
@@ -127,6 +134,13 @@ mod tests {
         pos.extend([[0.0, 0.0], [10.0, 6.0], [0.0, 6.0], [10.0, 0.0]]);
         let bounds = [0.0, 0.0, 10.0, 6.0];
         let g = Grid::new(&pos, bounds, 8);
+        // The densest place is the knot.
+        let knot = pos[g.crowded().unwrap() as usize];
+        assert!(
+            (4.0..=4.1).contains(&knot[0]) && (3.0..=3.1).contains(&knot[1]),
+            "{knot:?}"
+        );
+        assert_eq!(Grid::new(&[], bounds, 8).crowded(), None);
         let mut out = Vec::new();
         for r in [
             [1.0, 1.0, 2.5, 2.0],

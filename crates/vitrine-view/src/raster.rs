@@ -210,18 +210,25 @@ fn mark_side(side: f64) -> f64 {
 }
 
 /// A rectangle edge as a pixel index, clamped at 0: the nearest pixel boundary, as `round` then
-/// the clamp gives (but for values one bit below a half, where x + 0.5 rounds up), and `floor` is
-/// one wasm instruction where `round` is a call.
+/// the clamp gives (but for values one bit below a half, where x + 0.5 rounds up). Truncation
+/// equals `floor` here, as negatives clamp to 0 anyway, and it is one instruction where `floor`
+/// and `round` may be calls.
 #[inline]
-fn px(x: f64) -> f64 {
-    (x + 0.5).floor().max(0.0)
+fn px(x: f64) -> usize {
+    // `as` truncates towards zero and saturates: negatives and NaN give 0.
+    (x + 0.5) as usize
 }
 
 fn fill_rect(buf: &mut [u8], w: usize, h: usize, r: [f64; 4], c: [u8; 3]) {
-    let x0 = (px(r[0]) as usize).min(w);
-    let y0 = (px(r[1]) as usize).min(h);
-    let x1 = (px(r[2]) as usize).clamp(x0, w);
-    let y1 = (px(r[3]) as usize).clamp(y0, h);
+    fill_rect_in(buf, w, [0, 0, w, h], r, c);
+}
+
+/// Fills the pixels of `r` inside `clip` ([x0, y0, x1, y1] in pixels) of a buffer `w` wide.
+fn fill_rect_in(buf: &mut [u8], w: usize, clip: [usize; 4], r: [f64; 4], c: [u8; 3]) {
+    let x0 = px(r[0]).clamp(clip[0], clip[2]);
+    let y0 = px(r[1]).clamp(clip[1], clip[3]);
+    let x1 = px(r[2]).clamp(x0, clip[2]);
+    let y1 = px(r[3]).clamp(y0, clip[3]);
     for y in y0..y1 {
         let row = &mut buf[(y * w + x0) * 4..(y * w + x1) * 4];
         for px in row.chunks_exact_mut(4) {
@@ -243,10 +250,10 @@ fn outline(buf: &mut [u8], w: usize, h: usize, r: [f64; 4], c: [u8; 3], t: f64) 
 /// Copies the item's cell from a sheet into `r`, sampling the nearest source pixel.
 fn blit(buf: &mut [u8], w: usize, h: usize, r: [f64; 4], sheet: &Sheet, cell: [u32; 4]) {
     let (dw, dh) = (r[2] - r[0], r[3] - r[1]);
-    let x0 = px(r[0]) as usize;
-    let y0 = px(r[1]) as usize;
-    let x1 = (px(r[2]) as usize).min(w);
-    let y1 = (px(r[3]) as usize).min(h);
+    let x0 = px(r[0]);
+    let y0 = px(r[1]);
+    let x1 = px(r[2]).min(w);
+    let y1 = px(r[3]).min(h);
     let [cx, cy, cw, ch] = cell;
     let sw = sheet.width as usize;
     for y in y0..y1 {
@@ -268,17 +275,313 @@ fn blit(buf: &mut [u8], w: usize, h: usize, r: [f64; 4], sheet: &Sheet, cell: [u
     }
 }
 
+/// Draws `items` as marks: squares of side 2 x `reach` in their average colours, in the order given.
+/// Written for speed (a zoomed-out frame may hold a million marks): one row of a square is one
+/// slice fill of 32-bit pixels; the pixels are those `fill_rect` would set.
+#[allow(clippy::too_many_arguments)]
+fn draw_marks<I: Iterator<Item = usize>>(
+    buf: &mut [u8],
+    w: usize,
+    clip: [usize; 4],
+    atlas: &AtlasData,
+    cam: &Camera,
+    reach: f64,
+    items: I,
+    stats: &mut FrameStats,
+) {
+    let (hw, hh) = (cam.size[0] / 2.0, cam.size[1] / 2.0);
+    let [cx0, cy0, cx1, cy1] = clip.map(|v| v as f64);
+    let outside = |sx: f64, sy: f64| {
+        sx < cx0 - reach || sy < cy0 - reach || sx > cx1 + reach || sy > cy1 + reach
+    };
+    let px_buf = match bytemuck::try_cast_slice_mut::<u8, u32>(buf) {
+        Ok(px) => px,
+        Err(_) => {
+            // A buffer not aligned to 4 bytes (never seen): the plain path.
+            for i in items {
+                stats.visited += 1;
+                let p = atlas.positions[i];
+                let sx = (p[0] as f64 - cam.centre[0]) * cam.zoom + hw;
+                let sy = (cam.centre[1] - p[1] as f64) * cam.zoom + hh;
+                if outside(sx, sy) {
+                    continue;
+                }
+                let c = atlas.colours[i];
+                let r = [sx - reach, sy - reach, sx + reach, sy + reach];
+                fill_rect_in(buf, w, clip, r, [c[0], c[1], c[2]]);
+                stats.marks += 1;
+            }
+            return;
+        }
+    };
+    for i in items {
+        stats.visited += 1;
+        let p = atlas.positions[i];
+        let sx = (p[0] as f64 - cam.centre[0]) * cam.zoom + hw;
+        let sy = (cam.centre[1] - p[1] as f64) * cam.zoom + hh;
+        if outside(sx, sy) {
+            continue;
+        }
+        let x0 = px(sx - reach).clamp(clip[0], clip[2]);
+        let x1 = px(sx + reach).clamp(x0, clip[2]);
+        let y0 = px(sy - reach).clamp(clip[1], clip[3]);
+        let y1 = px(sy + reach).clamp(y0, clip[3]);
+        let c = atlas.colours[i];
+        let c = u32::from_le_bytes([c[0], c[1], c[2], 255]);
+        for y in y0..y1 {
+            px_buf[y * w + x0..y * w + x1].fill(c);
+        }
+        stats.marks += 1;
+    }
+}
+
+/// The marks of the last zoomed-out frame, kept so that the next frame need not draw them again:
+/// a frame with the same camera reuses them whole, a pan by whole pixels moves them and draws only
+/// the strips that came into view. Hover and selection outlines are drawn over a copy, never into
+/// the layer. The pixels are those a full `draw` gives.
+#[derive(Default)]
+pub struct MarkLayer {
+    pixels: Vec<u8>,
+    size: (usize, usize),
+    camera: Option<Camera>,
+    /// What the marks were drawn from (the map shown and a count of data changes): another value
+    /// means the layer must be drawn afresh.
+    key: u64,
+    marks: usize,
+}
+
+impl MarkLayer {
+    /// Forgets the layer (the next frame draws everything).
+    pub fn clear(&mut self) {
+        self.camera = None;
+    }
+}
+
+/// The screen shift from camera `a` to camera `b` (same zoom and size) when it is a whole number of
+/// pixels smaller than the screen.
+fn whole_pixel_shift(a: &Camera, b: &Camera) -> Option<(i64, i64)> {
+    if a.zoom != b.zoom || a.size != b.size {
+        return None;
+    }
+    let dx = (a.centre[0] - b.centre[0]) * a.zoom;
+    let dy = (b.centre[1] - a.centre[1]) * a.zoom;
+    let (rx, ry) = (dx.round(), dy.round());
+    ((dx - rx).abs() < 1e-6
+        && (dy - ry).abs() < 1e-6
+        && rx.abs() < a.size[0]
+        && ry.abs() < a.size[1])
+        .then_some((rx as i64, ry as i64))
+}
+
+/// Moves the pixels of an RGBA buffer `w` x `h` by (dx, dy); what comes into view is left as it was.
+fn shift_pixels(buf: &mut [u8], w: usize, h: usize, dx: i64, dy: i64) {
+    let row = w * 4;
+    let (ax, ay) = (dx.unsigned_abs() as usize, dy.unsigned_abs() as usize);
+    if dy > 0 {
+        buf.copy_within(0..(h - ay) * row, ay * row);
+    } else if dy < 0 {
+        buf.copy_within(ay * row..h * row, 0);
+    }
+    if ax > 0 {
+        for y in 0..h {
+            let r = &mut buf[y * row..(y + 1) * row];
+            if dx > 0 {
+                r.copy_within(0..(w - ax) * 4, ax * 4);
+            } else {
+                r.copy_within(ax * 4..w * 4, 0);
+            }
+        }
+    }
+}
+
+/// Draws the scene as `draw` does, keeping zoomed-out marks in `layer` between frames (`key` names
+/// what the marks come from: change it when the map or the data change).
+pub fn draw_with_layer(
+    scene: &Scene,
+    layer: &mut MarkLayer,
+    key: u64,
+    buf: &mut [u8],
+    w: usize,
+    h: usize,
+) -> FrameStats {
+    let side = scene.side_px();
+    let thumbs = side >= THUMB_MIN_PX && !scene.sheets.levels.is_empty();
+    if thumbs {
+        layer.camera = None;
+        return draw(scene, buf, w, h);
+    }
+    let atlas = scene.atlas;
+    let cam = *scene.camera;
+    let reach = mark_side(side) / 2.0;
+    let mut stats = FrameStats {
+        side_px: side,
+        ..Default::default()
+    };
+    let paper = scene.theme.paper;
+    let paper = u32::from_le_bytes([paper[0], paper[1], paper[2], 255]);
+    let reuse = match layer.camera {
+        Some(old) if layer.key == key && layer.size == (w, h) => whole_pixel_shift(&old, &cam),
+        _ => None,
+    };
+    // The regions to draw afresh: everything, or the strips a pan brought into view.
+    let strips: Vec<[usize; 4]> = match reuse {
+        None => {
+            layer.pixels.resize(w * h * 4, 0);
+            vec![[0, 0, w, h]]
+        }
+        Some((dx, dy)) => {
+            shift_pixels(&mut layer.pixels, w, h, dx, dy);
+            let (ax, ay) = (dx.unsigned_abs() as usize, dy.unsigned_abs() as usize);
+            let mut v = Vec::new();
+            // Rows first (whole width), then columns over the remaining rows.
+            let (ry0, ry1) = if dy > 0 { (0, ay) } else { (h - ay, h) };
+            if ay > 0 {
+                v.push([0, ry0, w, ry1]);
+            }
+            let (rows0, rows1) = if dy > 0 { (ay, h) } else { (0, h - ay) };
+            if ax > 0 {
+                let (cx0, cx1) = if dx > 0 { (0, ax) } else { (w - ax, w) };
+                v.push([cx0, rows0, cx1, rows1]);
+            }
+            v
+        }
+    };
+    let full = strips.len() == 1 && strips[0] == [0, 0, w, h];
+    let mut near = Vec::new();
+    for clip in strips {
+        if clip[0] >= clip[2] || clip[1] >= clip[3] {
+            continue;
+        }
+        if let Ok(px) = bytemuck::try_cast_slice_mut::<u8, u32>(&mut layer.pixels) {
+            for y in clip[1]..clip[3] {
+                px[y * w + clip[0]..y * w + clip[2]].fill(paper);
+            }
+        } else {
+            let p = scene.theme.paper;
+            fill_rect_in(
+                &mut layer.pixels,
+                w,
+                clip,
+                [0.0, 0.0, w as f64, h as f64],
+                p,
+            );
+        }
+        // The items whose marks reach into the strip, in item order (as a full pass draws them).
+        let m = reach + 1.0;
+        let a = cam.to_map([clip[0] as f64 - m, clip[3] as f64 + m]);
+        let b = cam.to_map([clip[2] as f64 + m, clip[1] as f64 - m]);
+        let r = [a[0], a[1], b[0], b[1]];
+        let culled = !full
+            && scene.grid.is_some_and(|g| {
+                g.coverage(r) < 0.5 && {
+                    g.query(r, &mut near);
+                    true
+                }
+            });
+        let mut drawn = FrameStats::default();
+        if culled {
+            let items = near.iter().map(|&i| i as usize);
+            draw_marks(
+                &mut layer.pixels,
+                w,
+                clip,
+                atlas,
+                &cam,
+                reach,
+                items,
+                &mut drawn,
+            );
+        } else {
+            draw_marks(
+                &mut layer.pixels,
+                w,
+                clip,
+                atlas,
+                &cam,
+                reach,
+                0..atlas.n,
+                &mut drawn,
+            );
+        }
+        stats.visited += drawn.visited;
+        if full {
+            layer.marks = drawn.marks;
+        }
+    }
+    if !full {
+        // The count of marks on screen, without drawing them.
+        let (hw, hh) = (cam.size[0] / 2.0, cam.size[1] / 2.0);
+        let (wf, hf) = (w as f64, h as f64);
+        layer.marks = atlas
+            .positions
+            .iter()
+            .filter(|p| {
+                let sx = (p[0] as f64 - cam.centre[0]) * cam.zoom + hw;
+                let sy = (cam.centre[1] - p[1] as f64) * cam.zoom + hh;
+                !(sx < -reach || sy < -reach || sx > wf + reach || sy > hf + reach)
+            })
+            .count();
+    }
+    layer.camera = Some(cam);
+    layer.key = key;
+    layer.size = (w, h);
+    stats.marks = layer.marks;
+    buf.copy_from_slice(&layer.pixels);
+    draw_on_top(scene, buf, w, h, reach, &mut stats);
+    stats
+}
+
+/// The open and hovered items drawn again over the marks, with their outlines.
+fn draw_on_top(
+    scene: &Scene,
+    buf: &mut [u8],
+    w: usize,
+    h: usize,
+    reach: f64,
+    stats: &mut FrameStats,
+) {
+    let on_top = [scene.open, scene.hover];
+    let items = on_top.iter().flatten().copied();
+    draw_marks(
+        buf,
+        w,
+        [0, 0, w, h],
+        scene.atlas,
+        scene.camera,
+        reach,
+        items,
+        stats,
+    );
+    outlines(scene, buf, w, h, false);
+}
+
+fn outlines(scene: &Scene, buf: &mut [u8], w: usize, h: usize, thumbnails: bool) {
+    for (item, thick) in [(scene.open, 3.0), (scene.hover, 2.0)] {
+        if let Some(i) = item {
+            let r = scene.item_rect(i);
+            let grow = if thumbnails { 0.0 } else { 2.0 };
+            outline(
+                buf,
+                w,
+                h,
+                [r[0] - grow, r[1] - grow, r[2] + grow, r[3] + grow],
+                scene.theme.accent,
+                thick,
+            );
+        }
+    }
+}
+
 /// Draws the scene into `buf` (RGBA, `w` x `h`).
 pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
     let t = scene.theme;
-    // The paper: one row filled, then copied row by row.
     let paper = [t.paper[0], t.paper[1], t.paper[2], 255];
-    if let Some((first, rest)) = buf.split_at_mut_checked(w * 4) {
-        for px in first.chunks_exact_mut(4) {
-            px.copy_from_slice(&paper);
-        }
-        for row in rest.chunks_exact_mut(w * 4) {
-            row.copy_from_slice(first);
+    match bytemuck::try_cast_slice_mut::<u8, u32>(buf) {
+        Ok(px) => px.fill(u32::from_le_bytes(paper)),
+        Err(_) => {
+            for px in buf.chunks_exact_mut(4) {
+                px.copy_from_slice(&paper);
+            }
         }
     }
     let atlas = scene.atlas;
@@ -309,39 +612,28 @@ pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
             true
         }
     });
-    let all: Box<dyn Iterator<Item = usize>> = if culled {
-        Box::new(near.iter().map(|&i| i as usize))
-    } else {
-        Box::new(0..atlas.n)
-    };
-    let order = all.chain(on_top.iter().flatten().copied());
-    if want_level.is_none() {
+    let Some(level) = want_level else {
         // Marks only (zoomed out, where a frame may hold a million items): the same squares as
         // item_rect gives, without its per-item choices.
-        let m = mark_side(side);
+        let reach = mark_side(side) / 2.0;
         let cam = scene.camera;
-        let (hw, hh) = (cam.size[0] / 2.0, cam.size[1] / 2.0);
-        let reach = m / 2.0;
-        for i in order {
-            stats.visited += 1;
-            let p = atlas.positions[i];
-            let sx = (p[0] as f64 - cam.centre[0]) * cam.zoom + hw;
-            let sy = (cam.centre[1] - p[1] as f64) * cam.zoom + hh;
-            if sx < -reach || sy < -reach || sx > wf + reach || sy > hf + reach {
-                continue;
-            }
-            let c = atlas.colours[i];
-            fill_rect(
-                buf,
-                w,
-                h,
-                [sx - reach, sy - reach, sx + reach, sy + reach],
-                [c[0], c[1], c[2]],
-            );
-            stats.marks += 1;
+        let clip = [0, 0, w, h];
+        if culled {
+            let items = near.iter().map(|&i| i as usize);
+            draw_marks(buf, w, clip, atlas, cam, reach, items, &mut stats);
+        } else {
+            draw_marks(buf, w, clip, atlas, cam, reach, 0..atlas.n, &mut stats);
         }
-    } else {
-        let level = want_level.expect("thumbnails wanted");
+        draw_on_top(scene, buf, w, h, reach, &mut stats);
+        return stats;
+    };
+    {
+        let all: Box<dyn Iterator<Item = usize>> = if culled {
+            Box::new(near.iter().map(|&i| i as usize))
+        } else {
+            Box::new(0..atlas.n)
+        };
+        let order = all.chain(on_top.iter().flatten().copied());
         for i in order {
             stats.visited += 1;
             let r = scene.item_rect(i);
@@ -382,20 +674,7 @@ pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
             }
         }
     }
-    for (item, thick) in [(scene.open, 3.0), (scene.hover, 2.0)] {
-        if let Some(i) = item {
-            let r = scene.item_rect(i);
-            let grow = if want_level.is_none() { 2.0 } else { 0.0 };
-            outline(
-                buf,
-                w,
-                h,
-                [r[0] - grow, r[1] - grow, r[2] + grow, r[3] + grow],
-                t.accent,
-                thick,
-            );
-        }
-    }
+    outlines(scene, buf, w, h, true);
     stats.wanted = wanted.into_iter().collect();
     stats.used = used.into_iter().collect();
     stats
@@ -453,7 +732,7 @@ mod tests {
         let mut xs: Vec<f64> = (-40..=40).map(|i| i as f64 * 0.25).collect();
         xs.extend([-0.5, 0.5, 1.5, 2.5, 1e-12, -1e-12, 1279.5]);
         for x in xs {
-            assert_eq!(px(x), x.round().max(0.0), "{x}");
+            assert_eq!(px(x), x.round().max(0.0) as usize, "{x}");
         }
     }
 

@@ -58,6 +58,11 @@ struct App {
     fetching: HashSet<(usize, usize)>,
     frames: u64,
     last: raster::FrameStats,
+    /// The last frame's milliseconds in the raster, in handing the frame to wgpu (the GPU's own
+    /// work on it follows asynchronously) and in the whole of `render` (with labels and axis).
+    frame_ms: [f64; 3],
+    /// Zoomed-out marks kept between frames (a pan draws only what comes into view).
+    layer: raster::MarkLayer,
     base_zoom: f64,
     first_full: bool,
 }
@@ -331,6 +336,7 @@ impl App {
     }
 
     fn render(&mut self) {
+        let start = now();
         let (w, h) = self.size();
         self.gpu.resize(w, h);
         self.camera.size = [w as f64, h as f64];
@@ -339,8 +345,22 @@ impl App {
             self.pixels = vec![0; need];
         }
         let mut pixels = std::mem::take(&mut self.pixels);
-        let stats = raster::draw(&self.scene(), &mut pixels, w as usize, h as usize);
+        let t0 = now();
+        let mut layer = std::mem::take(&mut self.layer);
+        // The marks depend on the map shown (and, later, on what filters leave).
+        let key = self.atlas.current as u64;
+        let stats = raster::draw_with_layer(
+            &self.scene(),
+            &mut layer,
+            key,
+            &mut pixels,
+            w as usize,
+            h as usize,
+        );
+        self.layer = layer;
+        let t1 = now();
         self.gpu.present(&pixels, w, h);
+        self.frame_ms = [t1 - t0, now() - t1, 0.0];
         self.pixels = pixels;
         self.frames += 1;
         self.sheets.touch(&stats.used, self.frames);
@@ -363,6 +383,7 @@ impl App {
             },
         );
         self.last = stats;
+        self.frame_ms[2] = now() - start;
     }
 
     /// The item under a screen point, if the pointer is on its square (or within a few pixels of a mark).
@@ -391,7 +412,7 @@ impl App {
         set_state("axis", "on");
         bar.set_text_content(None);
         let doc = document();
-        let css = self.canvas.client_width().max(1) as f64 / self.canvas.width().max(1) as f64;
+        let css = css_per_px();
         let v = self.camera.visible(0.0);
         let label = doc.create_element("span").unwrap();
         label.set_class_name("label");
@@ -432,7 +453,7 @@ impl App {
             return;
         }
         let doc = document();
-        let css = self.canvas.client_width().max(1) as f64 / self.canvas.width().max(1) as f64;
+        let css = css_per_px();
         let min_size = (self.atlas.n as u64 / 100).max(2);
         // Largest clusters first; a label that would overlap one already placed is left out.
         let mut placed: Vec<[f64; 4]> = Vec::new();
@@ -1000,6 +1021,15 @@ fn install_events(canvas: &HtmlCanvasElement) {
     }
 }
 
+/// CSS pixels per canvas pixel (the canvas is sized at the device's pixel ratio, see
+/// `resize_canvas`). Read from the ratio, not from the canvas's layout: reading a layout size after
+/// the frame has changed the page forces the browser to lay the page out there and then.
+fn css_per_px() -> f64 {
+    1.0 / web_sys::window()
+        .map_or(1.0, |w| w.device_pixel_ratio())
+        .max(1.0)
+}
+
 fn resize_canvas(canvas: &HtmlCanvasElement) {
     let ratio = web_sys::window().unwrap().device_pixel_ratio().max(1.0);
     let w = (canvas.client_width() as f64 * ratio).round().max(1.0) as u32;
@@ -1138,6 +1168,8 @@ async fn load(base: String) -> Result<(), String> {
         fetching: HashSet::new(),
         frames: 0,
         last: Default::default(),
+        frame_ms: [0.0; 3],
+        layer: Default::default(),
         base_zoom,
         first_full: false,
     };
@@ -1212,18 +1244,16 @@ pub fn screen_position_of(id: &str) -> Option<Vec<f64>> {
     Some(vec![s[0], s[1]])
 }
 
-/// For tests and scripts: the id of the item at `index` in atlas order ("" when out of range or
-/// before the catalogue is loaded).
+/// For benchmarks: the id of an item in the most crowded part of the current map ("" if none).
 #[wasm_bindgen]
-pub fn item_id(index: usize) -> String {
+pub fn crowded_item() -> String {
     let Some(app) = app() else {
         return String::new();
     };
     let a = app.borrow();
-    if index < a.atlas.n {
-        a.atlas.id(index).to_string()
-    } else {
-        String::new()
+    match a.grid.crowded() {
+        Some(i) => a.atlas.id(i as usize).to_string(),
+        None => String::new(),
     }
 }
 
@@ -1247,6 +1277,9 @@ pub fn view_state() -> String {
         "marks": a.last.marks,
         "thumbnails": a.last.thumbnails,
         "visited": a.last.visited,
+        "raster_ms": a.frame_ms[0],
+        "present_ms": a.frame_ms[1],
+        "render_ms": a.frame_ms[2],
         "frames": a.frames,
         "sheets_loaded": loaded,
         "sheet_bytes": a.sheets.bytes,

@@ -264,3 +264,72 @@ fn the_first_picture_needs_only_the_first_files_and_the_catalogue_follows() {
         assert_eq!(atlas.label(i), full.label(i));
     }
 }
+
+#[test]
+fn kept_marks_give_the_pixels_of_a_full_draw_while_drawing_only_what_came_into_view() {
+    use vitrine_view::raster::{draw_with_layer, MarkLayer};
+    let dir = tempfile::tempdir().unwrap();
+    let atlas = fixture(dir.path());
+    let sheets = load_sheets(&atlas, dir.path(), &[]);
+    let grid = vitrine_view::grid::Grid::new(&atlas.positions, atlas.bounds, 2);
+    let (w, h) = (160usize, 100usize);
+    let fit = Camera::fit(atlas.bounds, [w as f64, h as f64]);
+    let mut layer = MarkLayer::default();
+    let mut cam = fit;
+    // (pan dx, pan dy, hover, what the frame may visit at most: None = everything)
+    let steps: [(f64, f64, Option<usize>, Option<usize>); 9] = [
+        (0.0, 0.0, None, None),
+        (0.0, 0.0, Some(5), Some(2)), // same camera: nothing but the hovered item again
+        (7.0, 0.0, Some(5), Some(atlas.n / 2)),
+        (-20.0, 0.0, None, Some(atlas.n / 2)),
+        (0.0, 9.0, None, Some(atlas.n / 2)),
+        (-3.0, -4.0, Some(40), Some(atlas.n / 2)),
+        (0.5, 0.0, None, None),   // not a whole pixel: drawn afresh
+        (400.0, 0.0, None, None), // further than the screen: drawn afresh
+        (-400.0, 3.0, None, None),
+    ];
+    let mut partial = 0;
+    for (k, (dx, dy, hover, most)) in steps.into_iter().enumerate() {
+        cam.pan(dx, dy);
+        let scene = Scene {
+            atlas: &atlas,
+            grid: Some(&grid),
+            sheets: &sheets,
+            camera: &cam,
+            hover,
+            open: None,
+            theme: READING_ROOM,
+        };
+        let mut want = vec![0u8; w * h * 4];
+        let full = draw(&scene, &mut want, w, h);
+        let mut got = vec![0u8; w * h * 4];
+        let kept = draw_with_layer(&scene, &mut layer, 1, &mut got, w, h);
+        assert!(
+            got == want,
+            "step {k}: the kept layer's pixels differ from a full draw"
+        );
+        assert_eq!(kept.marks, full.marks, "step {k}");
+        if let Some(most) = most {
+            assert!(
+                kept.visited <= most,
+                "step {k}: visited {} of {}",
+                kept.visited,
+                atlas.n
+            );
+            partial += 1;
+        }
+    }
+    assert_eq!(partial, 5);
+    // Another key (another map, changed data) draws everything again.
+    let scene = Scene {
+        atlas: &atlas,
+        grid: Some(&grid),
+        sheets: &sheets,
+        camera: &cam,
+        hover: None,
+        open: None,
+        theme: READING_ROOM,
+    };
+    let mut got = vec![0u8; w * h * 4];
+    assert!(draw_with_layer(&scene, &mut layer, 2, &mut got, w, h).visited >= atlas.n);
+}
