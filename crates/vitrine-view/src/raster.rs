@@ -9,6 +9,22 @@ use crate::atlas::AtlasData;
 use crate::camera::Camera;
 
 pub const THUMB_MIN_PX: f64 = 9.0;
+/// Thumbnails up to this size fade in from their mark's flat colour (the handover from marks to
+/// pictures is gradual as one zooms in, not a jump).
+pub const THUMB_FADE_PX: f64 = 16.0;
+
+/// The picture's weight out of 256 for thumbnails `side` pixels wide: none while they fade in.
+fn fade_weight(side: f64) -> Option<u32> {
+    (side < THUMB_FADE_PX).then(|| {
+        let t = ((side - THUMB_MIN_PX) / (THUMB_FADE_PX - THUMB_MIN_PX)).clamp(0.0, 1.0);
+        // From a third of the picture at the threshold (a mark's colour with a hint of its image).
+        (85.0 + t * 171.0) as u32
+    })
+}
+
+fn rgb(c: [u8; 4]) -> [u8; 3] {
+    [c[0], c[1], c[2]]
+}
 
 #[derive(Debug, Clone, Copy)]
 pub struct Theme {
@@ -247,8 +263,18 @@ fn outline(buf: &mut [u8], w: usize, h: usize, r: [f64; 4], c: [u8; 3], t: f64) 
     fill_rect(buf, w, h, [r[2], r[1], r[2] + t, r[3]], c);
 }
 
-/// Copies the item's cell from a sheet into `r`, sampling the nearest source pixel.
-fn blit(buf: &mut [u8], w: usize, h: usize, r: [f64; 4], sheet: &Sheet, cell: [u32; 4]) {
+/// Copies the item's cell from a sheet into `r`, sampling the nearest source pixel; with `fade`
+/// (a colour and a weight out of 256 for the picture) it is mixed with that flat colour.
+#[allow(clippy::too_many_arguments)]
+fn blit(
+    buf: &mut [u8],
+    w: usize,
+    h: usize,
+    r: [f64; 4],
+    sheet: &Sheet,
+    cell: [u32; 4],
+    fade: Option<([u8; 3], u32)>,
+) {
     let (dw, dh) = (r[2] - r[0], r[3] - r[1]);
     let x0 = px(r[0]);
     let y0 = px(r[1]);
@@ -267,9 +293,19 @@ fn blit(buf: &mut [u8], w: usize, h: usize, r: [f64; 4], sheet: &Sheet, cell: [u
                 (((x as f64 + 0.5 - r[0]) / dw * cw as f64) as u32).min(cw.saturating_sub(1)) + cx;
             let s = (src_row + u as usize) * 3;
             let d = (y * w + x) * 4;
-            buf[d] = sheet.rgb[s];
-            buf[d + 1] = sheet.rgb[s + 1];
-            buf[d + 2] = sheet.rgb[s + 2];
+            match fade {
+                None => {
+                    buf[d] = sheet.rgb[s];
+                    buf[d + 1] = sheet.rgb[s + 1];
+                    buf[d + 2] = sheet.rgb[s + 2];
+                }
+                Some((c, t)) => {
+                    for k in 0..3 {
+                        let mixed = sheet.rgb[s + k] as u32 * t + c[k] as u32 * (256 - t);
+                        buf[d + k] = ((mixed + 128) >> 8) as u8;
+                    }
+                }
+            }
             buf[d + 3] = 255;
         }
     }
@@ -297,20 +333,11 @@ fn draw_marks<I: Iterator<Item = usize>>(
     let px_buf = match bytemuck::try_cast_slice_mut::<u8, u32>(buf) {
         Ok(px) => px,
         Err(_) => {
-            // A buffer not aligned to 4 bytes (never seen): the plain path.
-            for i in items {
-                stats.visited += 1;
-                let p = atlas.positions[i];
-                let sx = (p[0] as f64 - cam.centre[0]) * cam.zoom + hw;
-                let sy = (cam.centre[1] - p[1] as f64) * cam.zoom + hh;
-                if outside(sx, sy) {
-                    continue;
-                }
-                let c = atlas.colours[i];
-                let r = [sx - reach, sy - reach, sx + reach, sy + reach];
-                fill_rect_in(buf, w, clip, r, [c[0], c[1], c[2]]);
-                stats.marks += 1;
-            }
+            // A buffer not aligned to 4 bytes (never seen): drawn in an aligned copy.
+            let mut copy: Vec<u32> = bytemuck::pod_collect_to_vec(buf);
+            let copy_bytes: &mut [u8] = bytemuck::cast_slice_mut(&mut copy);
+            draw_marks(copy_bytes, w, clip, atlas, cam, reach, items, stats);
+            buf.copy_from_slice(copy_bytes);
             return;
         }
     };
@@ -508,8 +535,8 @@ pub fn draw_with_layer(
             layer.marks = drawn.marks;
         }
     }
-    if !full {
-        // The count of marks on screen, without drawing them.
+    if !full && reuse != Some((0, 0)) {
+        // The count of marks on screen after a pan, without drawing them.
         let (hw, hh) = (cam.size[0] / 2.0, cam.size[1] / 2.0);
         let (wf, hf) = (w as f64, h as f64);
         layer.marks = atlas
@@ -612,6 +639,7 @@ pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
             true
         }
     });
+    let fade = fade_weight(side);
     let Some(level) = want_level else {
         // Marks only (zoomed out, where a frame may hold a million items): the same squares as
         // item_rect gives, without its per-item choices.
@@ -658,7 +686,15 @@ pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
             match chosen {
                 Some((l, sheet)) => {
                     let cell = scene.sheets.cell(l, i, atlas.extents[i]);
-                    blit(buf, w, h, r, sheet, cell);
+                    blit(
+                        buf,
+                        w,
+                        h,
+                        r,
+                        sheet,
+                        cell,
+                        fade.map(|t| (rgb(atlas.colours[i]), t)),
+                    );
                     stats.thumbnails += 1;
                     used.insert((l, scene.sheets.sheet_of(l, i)));
                 }
@@ -725,6 +761,27 @@ mod tests {
         // Replacing a held sheet counts its bytes once.
         s.insert(1, 4, sheet(), 7);
         assert_eq!(s.bytes, 900);
+    }
+
+    #[test]
+    fn thumbnails_fade_in_from_their_marks_then_stay_pictures() {
+        assert_eq!(fade_weight(THUMB_MIN_PX), Some(85));
+        let mut last = 0;
+        for k in 0..=70 {
+            let side = THUMB_MIN_PX + k as f64 * 0.1;
+            match fade_weight(side) {
+                Some(t) => {
+                    assert!(t >= last && t <= 256, "{side}: {t}");
+                    last = t;
+                }
+                None => assert!(side >= THUMB_FADE_PX, "{side}"),
+            }
+        }
+        assert!(
+            last > 240,
+            "nearly the whole picture just before the end: {last}"
+        );
+        assert_eq!(fade_weight(THUMB_FADE_PX), None);
     }
 
     #[test]

@@ -43,7 +43,8 @@ struct App {
     gpu: Gpu,
     atlas: AtlasData,
     sheets: SheetStore,
-    picker: Picker,
+    /// Built after the first picture is on screen (hover and clicks wait for it).
+    picker: Option<Picker>,
     grid: Grid,
     camera: Camera,
     pixels: Vec<u8>,
@@ -136,9 +137,13 @@ async fn fetch_many(
     base: &str,
     files: &[(String, u64)],
 ) -> Result<HashMap<String, Vec<u8>>, String> {
-    // Every request starts at once and each body is read as soon as its headers arrive: reading
-    // them one after another would leave later bodies unread, and a host that writes responses in
-    // turn would then wait on the page while the page waits on it.
+    fetched_many(start_fetches(base, files)?, files).await
+}
+
+/// Starts every request at once; each body is read as soon as its headers arrive: reading them one
+/// after another would leave later bodies unread, and a host that writes responses in turn would
+/// then wait on the page while the page waits on it.
+fn start_fetches(base: &str, files: &[(String, u64)]) -> Result<js_sys::Promise, String> {
     let read_all = js_sys::Function::new_with_args(
         "urls",
         "return Promise.all(urls.map(u => fetch(u).then(r => r.ok ? r.arrayBuffer() \
@@ -151,13 +156,18 @@ async fn fetch_many(
     let all = read_all
         .call1(&JsValue::NULL, &urls)
         .map_err(|e| format!("{base}: {e:?}"))?;
-    let bodies = JsFuture::from(js_sys::Promise::from(all))
-        .await
-        .map_err(|e| {
-            e.dyn_ref::<js_sys::Error>()
-                .map(|e| String::from(e.message()))
-                .unwrap_or_else(|| format!("{e:?}"))
-        })?;
+    Ok(js_sys::Promise::from(all))
+}
+
+async fn fetched_many(
+    all: js_sys::Promise,
+    files: &[(String, u64)],
+) -> Result<HashMap<String, Vec<u8>>, String> {
+    let bodies = JsFuture::from(all).await.map_err(|e| {
+        e.dyn_ref::<js_sys::Error>()
+            .map(|e| String::from(e.message()))
+            .unwrap_or_else(|| format!("{e:?}"))
+    })?;
     let bodies = js_sys::Array::from(&bodies);
     let mut got = HashMap::new();
     for (i, (file, _)) in files.iter().enumerate() {
@@ -167,6 +177,21 @@ async fn fetch_many(
         );
     }
     Ok(got)
+}
+
+/// Resolves in a new task after the next animation frame (so that frame has been shown).
+async fn after_next_frame() {
+    let p = js_sys::Promise::new(&mut |resolve, _| {
+        let later = Closure::once_into_js(move || {
+            let _ = web_sys::window()
+                .unwrap()
+                .set_timeout_with_callback(resolve.unchecked_ref());
+        });
+        let _ = web_sys::window()
+            .unwrap()
+            .request_animation_frame(later.unchecked_ref());
+    });
+    let _ = JsFuture::from(p).await;
 }
 
 async fn fetched_bytes(url: &str, request: js_sys::Promise) -> Result<Vec<u8>, String> {
@@ -389,7 +414,7 @@ impl App {
     /// The item under a screen point, if the pointer is on its square (or within a few pixels of a mark).
     fn pick(&self, s: [f64; 2]) -> Option<usize> {
         let m = self.camera.to_map(s);
-        let (i, _) = self.picker.nearest(m)?;
+        let (i, _) = self.picker.as_ref()?.nearest(m)?;
         let r = self.scene().item_rect(i);
         let slack = 4.0;
         (s[0] >= r[0] - slack
@@ -830,7 +855,7 @@ fn set_map(i: usize) {
             return;
         }
         a.atlas.select_map(i);
-        a.picker = Picker::new(&a.atlas.positions);
+        a.picker = Some(Picker::new(&a.atlas.positions));
         a.grid = Grid::new(&a.atlas.positions, a.atlas.bounds, GRID_ITEMS_PER_CELL);
         let (w, h) = a.size();
         a.glide = None;
@@ -900,8 +925,11 @@ fn install_events(canvas: &HtmlCanvasElement) {
                     }
                     a.pinch = Some(d);
                 } else if let Some(drag) = a.drag.as_mut() {
-                    let (dx, dy) = (p[0] - drag.last[0], p[1] - drag.last[1]);
-                    drag.last = p;
+                    // The map moves by whole pixels (the rest is carried to the next move), so
+                    // that zoomed-out frames can reuse the marks already drawn.
+                    let (fx, fy) = (p[0] - drag.last[0], p[1] - drag.last[1]);
+                    let (dx, dy) = (fx.round(), fy.round());
+                    drag.last = [drag.last[0] + dx, drag.last[1] + dy];
                     if (p[0] - drag.start[0]).abs() + (p[1] - drag.start[1]).abs() > 4.0 {
                         drag.moved = true;
                     }
@@ -1083,7 +1111,6 @@ async fn load(base: String) -> Result<(), String> {
     let gpu = init_gpu(&canvas).await?;
     set_state("renderer", &gpu.renderer);
     set_state("backend", gpu.backend);
-    let picker = Picker::new(&atlas.positions);
     let grid = Grid::new(&atlas.positions, atlas.bounds, GRID_ITEMS_PER_CELL);
     let camera = Camera::fit(
         atlas.bounds,
@@ -1154,7 +1181,7 @@ async fn load(base: String) -> Result<(), String> {
         gpu,
         atlas,
         sheets,
-        picker,
+        picker: None,
         grid,
         camera,
         pixels: Vec::new(),
@@ -1194,7 +1221,14 @@ async fn load_catalogue(base: String) -> Result<(), String> {
         )));
     }
     set_state("catalogue", "loading");
-    let got = fetch_many(&base, &later).await?;
+    let pending = start_fetches(&base, &later)?;
+    // While the catalogue downloads, once the first picture is up: the index for hover and clicks.
+    after_next_frame().await;
+    {
+        let mut a = app.borrow_mut();
+        a.picker = Some(Picker::new(&a.atlas.positions));
+    }
+    let got = fetched_many(pending, &later).await?;
     app.borrow_mut()
         .atlas
         .complete(&got)

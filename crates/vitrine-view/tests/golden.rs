@@ -273,8 +273,17 @@ fn each_level_of_detail_draws_its_stored_picture_through_wgpu() {
         Option<usize>,
         Option<usize>,
         (usize, usize),
-    ); 4] = [
+    ); 5] = [
         ("marks", at_side(6.0), &full, Some(7), None, (N + 1, 0)),
+        // Just past the marks: pictures faint over their marks' colours, then stronger.
+        (
+            "thumbnails-fading-in",
+            at_side(10.0),
+            &full,
+            None,
+            None,
+            (0, N),
+        ),
         (
             "small-thumbnails",
             at_side(14.0),
