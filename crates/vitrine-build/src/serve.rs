@@ -65,67 +65,147 @@ fn percent_decode(s: &str) -> Option<String> {
     String::from_utf8(out).ok()
 }
 
+/// Serves `root` on host:port until the process ends; `on_ready` gets the address. Every connection
+/// has its own thread and keeps alive (HTTP/1.1), as a static host does: one slow or stalled
+/// download never holds up the others.
 pub fn serve(
     root: &Path,
     host: &str,
     port: u16,
     on_ready: impl FnOnce(&str),
 ) -> anyhow::Result<()> {
-    let server = tiny_http::Server::http((host, port))
+    let listener = std::net::TcpListener::bind((host, port))
         .map_err(|e| anyhow::anyhow!("cannot listen on {host}:{port}: {e}"))?;
-    let addr = server
-        .server_addr()
-        .to_ip()
-        .map(|a| a.to_string())
-        .unwrap_or_default();
-    on_ready(&format!("http://{addr}/"));
-    // A few workers, as a static host answers requests side by side: one slow or stalled
-    // download never holds up the others.
-    let server = std::sync::Arc::new(server);
-    let workers: Vec<_> = (0..8)
-        .map(|_| {
-            let server = server.clone();
-            let root = root.to_path_buf();
-            std::thread::spawn(move || answer(&server, &root))
-        })
-        .collect();
-    for w in workers {
-        let _ = w.join();
+    on_ready(&format!("http://{}/", listener.local_addr()?));
+    let root = std::sync::Arc::new(root.to_path_buf());
+    for stream in listener.incoming() {
+        let Ok(stream) = stream else { continue };
+        let root = root.clone();
+        std::thread::spawn(move || {
+            let _ = connection(stream, &root);
+        });
     }
     Ok(())
 }
 
-fn answer(server: &tiny_http::Server, root: &Path) {
-    while let Ok(request) = server.recv() {
-        let method = request.method().clone();
-        if method != tiny_http::Method::Get && method != tiny_http::Method::Head {
-            let _ = request.respond(tiny_http::Response::empty(405));
+/// The longest request line or header line read, and the most header lines.
+const MAX_LINE: u64 = 16 * 1024;
+const MAX_HEADERS: usize = 100;
+
+/// Answers the requests of one connection in turn until the client closes it or asks to.
+fn connection(stream: std::net::TcpStream, root: &Path) -> std::io::Result<()> {
+    use std::io::{BufRead, BufReader, BufWriter, Read, Write};
+    stream.set_read_timeout(Some(std::time::Duration::from_secs(120)))?;
+    let _ = stream.set_nodelay(true);
+    let mut reader = BufReader::new(stream.try_clone()?);
+    let mut out = BufWriter::with_capacity(256 * 1024, stream);
+    let mut line = String::new();
+    loop {
+        line.clear();
+        if (&mut reader).take(MAX_LINE).read_line(&mut line)? == 0 {
+            return Ok(());
+        }
+        let request = line.trim_end().to_string();
+        if request.is_empty() {
             continue;
         }
-        let Some(file) = resolve(root, request.url()) else {
-            let _ = request
-                .respond(tiny_http::Response::from_string("not found").with_status_code(404));
-            continue;
-        };
-        match std::fs::File::open(&file) {
-            Ok(f) => {
-                let header = tiny_http::Header::from_bytes(
-                    &b"Content-Type"[..],
-                    mime_type(&file).as_bytes(),
-                )
-                .unwrap();
-                let cache =
-                    tiny_http::Header::from_bytes(&b"Cache-Control"[..], &b"no-cache"[..]).unwrap();
-                let _ = request.respond(
-                    tiny_http::Response::from_file(f)
-                        .with_header(header)
-                        .with_header(cache),
+        let mut parts = request.split(' ');
+        let (method, target, version) = (
+            parts.next().unwrap_or(""),
+            parts.next().unwrap_or(""),
+            parts.next().unwrap_or(""),
+        );
+        let mut close = version != "HTTP/1.1";
+        let mut body = 0u64;
+        for n in 0.. {
+            line.clear();
+            if (&mut reader).take(MAX_LINE).read_line(&mut line)? == 0 {
+                return Ok(());
+            }
+            let header = line.trim_end();
+            if header.is_empty() {
+                break;
+            }
+            if n == MAX_HEADERS {
+                return respond(
+                    &mut out,
+                    431,
+                    "text/plain",
+                    b"too many headers",
+                    false,
+                    true,
                 );
             }
-            Err(_) => {
-                let _ = request
-                    .respond(tiny_http::Response::from_string("not found").with_status_code(404));
+            if let Some((name, value)) = header.split_once(':') {
+                let value = value.trim();
+                if name.eq_ignore_ascii_case("connection") {
+                    close = value.eq_ignore_ascii_case("close")
+                        || (close && !value.eq_ignore_ascii_case("keep-alive"));
+                } else if name.eq_ignore_ascii_case("content-length") {
+                    body = value.parse().unwrap_or(0);
+                }
             }
         }
+        // A request body (none is expected) is read and dropped.
+        std::io::copy(&mut (&mut reader).take(body), &mut std::io::sink())?;
+        let head = method == "HEAD";
+        if method != "GET" && !head {
+            respond(
+                &mut out,
+                405,
+                "text/plain",
+                b"only GET and HEAD",
+                head,
+                close,
+            )?;
+        } else {
+            match resolve(root, target).and_then(|f| std::fs::File::open(&f).ok().map(|o| (f, o))) {
+                Some((file, mut opened)) => {
+                    let len = opened.metadata()?.len();
+                    write!(
+                        out,
+                        "HTTP/1.1 200 OK\r\nContent-Type: {}\r\nContent-Length: {len}\r\n\
+                         Cache-Control: no-cache\r\nConnection: {}\r\n\r\n",
+                        mime_type(&file),
+                        if close { "close" } else { "keep-alive" }
+                    )?;
+                    if !head {
+                        std::io::copy(&mut opened, &mut out)?;
+                    }
+                    out.flush()?;
+                }
+                None => respond(&mut out, 404, "text/plain", b"not found", head, close)?,
+            }
+        }
+        if close {
+            return Ok(());
+        }
     }
+}
+
+fn respond(
+    out: &mut impl std::io::Write,
+    status: u16,
+    content_type: &str,
+    body: &[u8],
+    head: bool,
+    close: bool,
+) -> std::io::Result<()> {
+    let reason = match status {
+        404 => "Not Found",
+        405 => "Method Not Allowed",
+        431 => "Request Header Fields Too Large",
+        _ => "OK",
+    };
+    write!(
+        out,
+        "HTTP/1.1 {status} {reason}\r\nContent-Type: {content_type}\r\nContent-Length: {}\r\n\
+         Connection: {}\r\n\r\n",
+        body.len(),
+        if close { "close" } else { "keep-alive" }
+    )?;
+    if !head {
+        out.write_all(body)?;
+    }
+    out.flush()
 }

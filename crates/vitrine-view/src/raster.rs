@@ -280,33 +280,41 @@ fn blit(
     let y0 = px(r[1]);
     let x1 = px(r[2]).min(w);
     let y1 = px(r[3]).min(h);
+    if x0 >= x1 || y0 >= y1 {
+        return;
+    }
     let [cx, cy, cw, ch] = cell;
     let sw = sheet.width as usize;
+    // The source column of every destination column, worked out once for all rows.
+    let columns: Vec<usize> = (x0..x1)
+        .map(|x| {
+            ((((x as f64 + 0.5 - r[0]) / dw * cw as f64) as u32).min(cw.saturating_sub(1)) + cx)
+                as usize
+                * 3
+        })
+        .collect();
     for y in y0..y1 {
         let v = (((y as f64 + 0.5 - r[1]) / dh * ch as f64) as u32).min(ch.saturating_sub(1)) + cy;
         if v >= sheet.height {
             continue;
         }
-        let src_row = v as usize * sw;
-        for x in x0..x1 {
-            let u =
-                (((x as f64 + 0.5 - r[0]) / dw * cw as f64) as u32).min(cw.saturating_sub(1)) + cx;
-            let s = (src_row + u as usize) * 3;
-            let d = (y * w + x) * 4;
-            match fade {
-                None => {
-                    buf[d] = sheet.rgb[s];
-                    buf[d + 1] = sheet.rgb[s + 1];
-                    buf[d + 2] = sheet.rgb[s + 2];
-                }
-                Some((c, t)) => {
-                    for k in 0..3 {
-                        let mixed = sheet.rgb[s + k] as u32 * t + c[k] as u32 * (256 - t);
-                        buf[d + k] = ((mixed + 128) >> 8) as u8;
-                    }
+        let src = &sheet.rgb[v as usize * sw * 3..(v as usize + 1) * sw * 3];
+        let dst = &mut buf[(y * w + x0) * 4..(y * w + x1) * 4];
+        match fade {
+            None => {
+                for (d, &s) in dst.chunks_exact_mut(4).zip(&columns) {
+                    d.copy_from_slice(&[src[s], src[s + 1], src[s + 2], 255]);
                 }
             }
-            buf[d + 3] = 255;
+            Some((c, t)) => {
+                for (d, &s) in dst.chunks_exact_mut(4).zip(&columns) {
+                    for k in 0..3 {
+                        let mixed = src[s + k] as u32 * t + c[k] as u32 * (256 - t);
+                        d[k] = ((mixed + 128) >> 8) as u8;
+                    }
+                    d[3] = 255;
+                }
+            }
         }
     }
 }
