@@ -603,6 +603,99 @@ fn serve_gives_mime_types_and_never_leaves_the_folder() {
     assert_eq!(http_get(&addr, "/missing.bin").0, 404);
 }
 
+/// Reads one response (status line, headers, Content-Length body) from a kept-alive connection.
+fn read_response(r: &mut std::io::BufReader<std::net::TcpStream>) -> (u16, Vec<u8>) {
+    use std::io::BufRead;
+    let mut line = String::new();
+    r.read_line(&mut line).unwrap();
+    let status: u16 = line.split_whitespace().nth(1).unwrap().parse().unwrap();
+    let mut len = 0usize;
+    loop {
+        line.clear();
+        r.read_line(&mut line).unwrap();
+        if line.trim_end().is_empty() {
+            break;
+        }
+        if let Some(v) = line.to_ascii_lowercase().strip_prefix("content-length:") {
+            len = v.trim().parse().unwrap();
+        }
+    }
+    let mut body = vec![0u8; len];
+    r.read_exact(&mut body).unwrap();
+    (status, body)
+}
+
+#[test]
+fn serve_keeps_connections_alive_and_answers_them_side_by_side() {
+    // As a browser loads an atlas: several large files at once, and several requests in turn on
+    // one connection (HTTP/1.1 keep-alive, RFC 9112 section 9.3).
+    let dir = tempfile::tempdir().unwrap();
+    let root = dir.path().to_path_buf();
+    let big: Vec<u8> = (0..6_000_000u32).map(|i| (i % 251) as u8).collect();
+    for k in 0..6 {
+        std::fs::write(root.join(format!("part-{k}.bin")), &big).unwrap();
+    }
+    let (tx, rx) = std::sync::mpsc::channel();
+    let r = root.clone();
+    std::thread::spawn(move || {
+        vitrine_build::serve::serve(&r, "127.0.0.1", 0, |url| tx.send(url.to_string()).unwrap())
+            .unwrap();
+    });
+    let addr = rx.recv().unwrap();
+    let hostport = addr
+        .trim_start_matches("http://")
+        .trim_end_matches('/')
+        .to_string();
+    // Six connections send their requests first and are read only afterwards, last first: no
+    // answer may wait for another connection's body to be read.
+    let mut conns: Vec<std::net::TcpStream> = (0..6)
+        .map(|k| {
+            let mut s = std::net::TcpStream::connect(&hostport).unwrap();
+            write!(s, "GET /part-{k}.bin HTTP/1.1\r\nHost: x\r\n\r\n").unwrap();
+            s
+        })
+        .collect();
+    for s in conns.iter_mut().rev() {
+        s.set_read_timeout(Some(std::time::Duration::from_secs(20)))
+            .unwrap();
+        let mut r = std::io::BufReader::new(s.try_clone().unwrap());
+        let (status, body) = read_response(&mut r);
+        assert_eq!(status, 200);
+        assert!(body == big, "the whole file, unchanged");
+        // The same connection answers again, then a HEAD without a body, then a 404.
+        write!(s, "GET /part-0.bin HTTP/1.1\r\nHost: x\r\n\r\n").unwrap();
+        assert_eq!(read_response(&mut r).1.len(), big.len());
+        write!(s, "HEAD /part-1.bin HTTP/1.1\r\nHost: x\r\n\r\n").unwrap();
+        let mut line = String::new();
+        std::io::BufRead::read_line(&mut r, &mut line).unwrap();
+        assert!(line.starts_with("HTTP/1.1 200"), "{line}");
+        loop {
+            line.clear();
+            std::io::BufRead::read_line(&mut r, &mut line).unwrap();
+            if line.trim_end().is_empty() {
+                break;
+            }
+        }
+        write!(
+            s,
+            "GET /nothing HTTP/1.1\r\nHost: x\r\nConnection: close\r\n\r\n"
+        )
+        .unwrap();
+        assert_eq!(read_response(&mut r).0, 404);
+        let mut rest = Vec::new();
+        r.read_to_end(&mut rest).unwrap();
+        assert!(rest.is_empty(), "closed after Connection: close");
+    }
+    let mut s = std::net::TcpStream::connect(&hostport).unwrap();
+    write!(
+        s,
+        "POST /part-0.bin HTTP/1.1\r\nContent-Length: 3\r\nConnection: close\r\n\r\nabc"
+    )
+    .unwrap();
+    let mut r = std::io::BufReader::new(s);
+    assert_eq!(read_response(&mut r).0, 405);
+}
+
 #[test]
 fn nothing_of_the_users_is_ever_deleted_or_overwritten() {
     let dir = tempfile::tempdir().unwrap();
