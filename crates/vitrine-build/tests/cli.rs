@@ -570,13 +570,7 @@ fn serve_gives_mime_types_and_never_leaves_the_folder() {
     std::fs::write(dir.path().join("secret.txt"), "outside").unwrap();
     #[cfg(unix)]
     std::os::unix::fs::symlink(dir.path().join("secret.txt"), root.join("link.txt")).unwrap();
-    let (tx, rx) = std::sync::mpsc::channel();
-    let r = root.clone();
-    std::thread::spawn(move || {
-        vitrine_build::serve::serve(&r, "127.0.0.1", 0, |url| tx.send(url.to_string()).unwrap())
-            .unwrap();
-    });
-    let addr = rx.recv().unwrap();
+    let addr = start_server(&root);
     assert!(addr.starts_with("http://127.0.0.1:"), "{addr}");
     let (s, t, body) = http_get(&addr, "/");
     assert_eq!(
@@ -601,6 +595,17 @@ fn serve_gives_mime_types_and_never_leaves_the_folder() {
         );
     }
     assert_eq!(http_get(&addr, "/missing.bin").0, 404);
+}
+
+/// Starts `vitrine serve` on `root` in a thread; returns its address.
+fn start_server(root: &Path) -> String {
+    let (tx, rx) = std::sync::mpsc::channel();
+    let r = root.to_path_buf();
+    std::thread::spawn(move || {
+        vitrine_build::serve::serve(&r, "127.0.0.1", 0, |url| tx.send(url.to_string()).unwrap())
+            .unwrap();
+    });
+    rx.recv().unwrap()
 }
 
 /// Reads one response (status line, headers, Content-Length body) from a kept-alive connection.
@@ -635,13 +640,7 @@ fn serve_keeps_connections_alive_and_answers_them_side_by_side() {
     for k in 0..6 {
         std::fs::write(root.join(format!("part-{k}.bin")), &big).unwrap();
     }
-    let (tx, rx) = std::sync::mpsc::channel();
-    let r = root.clone();
-    std::thread::spawn(move || {
-        vitrine_build::serve::serve(&r, "127.0.0.1", 0, |url| tx.send(url.to_string()).unwrap())
-            .unwrap();
-    });
-    let addr = rx.recv().unwrap();
+    let addr = start_server(&root);
     let hostport = addr
         .trim_start_matches("http://")
         .trim_end_matches('/')

@@ -370,6 +370,27 @@ fn draw_marks<I: Iterator<Item = usize>>(
     }
 }
 
+/// `draw_marks` over the items a grid query found (`culled`), or over every item.
+#[allow(clippy::too_many_arguments)]
+fn draw_marks_of(
+    buf: &mut [u8],
+    w: usize,
+    clip: [usize; 4],
+    atlas: &AtlasData,
+    cam: &Camera,
+    reach: f64,
+    culled: Option<&[u32]>,
+    stats: &mut FrameStats,
+) {
+    match culled {
+        Some(near) => {
+            let items = near.iter().map(|&i| i as usize);
+            draw_marks(buf, w, clip, atlas, cam, reach, items, stats)
+        }
+        None => draw_marks(buf, w, clip, atlas, cam, reach, 0..atlas.n, stats),
+    }
+}
+
 /// The marks of the last zoomed-out frame, kept so that the next frame need not draw them again:
 /// a frame with the same camera reuses them whole, a pan by whole pixels moves them and draws only
 /// the strips that came into view. Hover and selection outlines are drawn over a copy, never into
@@ -514,30 +535,9 @@ pub fn draw_with_layer(
                 }
             });
         let mut drawn = FrameStats::default();
-        if culled {
-            let items = near.iter().map(|&i| i as usize);
-            draw_marks(
-                &mut layer.pixels,
-                w,
-                clip,
-                atlas,
-                &cam,
-                reach,
-                items,
-                &mut drawn,
-            );
-        } else {
-            draw_marks(
-                &mut layer.pixels,
-                w,
-                clip,
-                atlas,
-                &cam,
-                reach,
-                0..atlas.n,
-                &mut drawn,
-            );
-        }
+        let culled = culled.then_some(near.as_slice());
+        let pixels = &mut layer.pixels;
+        draw_marks_of(pixels, w, clip, atlas, &cam, reach, culled, &mut drawn);
         stats.visited += drawn.visited;
         if full {
             layer.marks = drawn.marks;
@@ -654,12 +654,8 @@ pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
         let reach = mark_side(side) / 2.0;
         let cam = scene.camera;
         let clip = [0, 0, w, h];
-        if culled {
-            let items = near.iter().map(|&i| i as usize);
-            draw_marks(buf, w, clip, atlas, cam, reach, items, &mut stats);
-        } else {
-            draw_marks(buf, w, clip, atlas, cam, reach, 0..atlas.n, &mut stats);
-        }
+        let culled = culled.then_some(near.as_slice());
+        draw_marks_of(buf, w, clip, atlas, cam, reach, culled, &mut stats);
         draw_on_top(scene, buf, w, h, reach, &mut stats);
         return stats;
     };
