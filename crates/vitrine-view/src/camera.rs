@@ -29,6 +29,7 @@ impl Camera {
             size,
         }
     }
+    #[inline]
     pub fn to_screen(&self, p: [f32; 2]) -> [f64; 2] {
         [
             (p[0] as f64 - self.centre[0]) * self.zoom + self.size[0] / 2.0,

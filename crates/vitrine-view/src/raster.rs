@@ -333,7 +333,6 @@ fn draw_marks<I: Iterator<Item = usize>>(
     items: I,
     stats: &mut FrameStats,
 ) {
-    let (hw, hh) = (cam.size[0] / 2.0, cam.size[1] / 2.0);
     let [cx0, cy0, cx1, cy1] = clip.map(|v| v as f64);
     let outside = |sx: f64, sy: f64| {
         sx < cx0 - reach || sy < cy0 - reach || sx > cx1 + reach || sy > cy1 + reach
@@ -351,9 +350,7 @@ fn draw_marks<I: Iterator<Item = usize>>(
     };
     for i in items {
         stats.visited += 1;
-        let p = atlas.positions[i];
-        let sx = (p[0] as f64 - cam.centre[0]) * cam.zoom + hw;
-        let sy = (cam.centre[1] - p[1] as f64) * cam.zoom + hh;
+        let [sx, sy] = cam.to_screen(atlas.positions[i]);
         if outside(sx, sy) {
             continue;
         }
@@ -404,13 +401,6 @@ pub struct MarkLayer {
     /// means the layer must be drawn afresh.
     key: u64,
     marks: usize,
-}
-
-impl MarkLayer {
-    /// Forgets the layer (the next frame draws everything).
-    pub fn clear(&mut self) {
-        self.camera = None;
-    }
 }
 
 /// The screen shift from camera `a` to camera `b` (same zoom and size) when it is a whole number of
@@ -545,14 +535,12 @@ pub fn draw_with_layer(
     }
     if !full && reuse != Some((0, 0)) {
         // The count of marks on screen after a pan, without drawing them.
-        let (hw, hh) = (cam.size[0] / 2.0, cam.size[1] / 2.0);
         let (wf, hf) = (w as f64, h as f64);
         layer.marks = atlas
             .positions
             .iter()
-            .filter(|p| {
-                let sx = (p[0] as f64 - cam.centre[0]) * cam.zoom + hw;
-                let sy = (cam.centre[1] - p[1] as f64) * cam.zoom + hh;
+            .filter(|&&p| {
+                let [sx, sy] = cam.to_screen(p);
                 !(sx < -reach || sy < -reach || sx > wf + reach || sy > hf + reach)
             })
             .count();
