@@ -133,7 +133,16 @@ def main():
                 results.append(res)
         finally:
             server.kill()
-    (cache / "results.json").write_text(json.dumps(results, indent=1))
+    floors = {}
+    for angle in a.angle.split(","):
+        log(f"plain WebGL2 frame costs, ANGLE {angle}")
+        r = subprocess.run(["node", str(HERE / "webgl_floor.mjs"), angle], cwd=ROOT,
+                           capture_output=True, text=True, timeout=600)
+        if r.returncode == 0:
+            floors[angle] = json.loads(r.stdout.strip().splitlines()[-1])
+        else:
+            log(f"  failed:\n{r.stderr[-3000:]}")
+    (cache / "results.json").write_text(json.dumps({"sessions": results, "floors": floors}, indent=1))
     print()
     for r in results:
         print(f"{r['items']:,} items, ANGLE {r['angle']} ({r['renderer']}), 1280x800")
@@ -149,6 +158,12 @@ def main():
         for line in [head, ["-" * w for w in widths]] + rows:
             print("  " + "  ".join(x.ljust(w) for x, w in zip(line, widths)))
         print()
+    for angle, f in floors.items():
+        print(f"Plain WebGL2 in the same browser, ANGLE {angle}, 1280x800, median ms per frame read back: "
+              f"read-back only {f['readback_only']:.1f}; upload + draw into the canvas "
+              f"{f['upload_draw']:.1f}; upload + draw + blit into the canvas (how wgpu's WebGL2 "
+              f"surface presents) {f['upload_draw_blit']:.1f}")
+    print()
     print("Frame: one scripted step (zoom or pan) drawn at once and read back (a pixel copied out of the")
     print("canvas), so wgpu's present and the software rasteriser are inside the time. Raster: the")
     print("frame drawn on the CPU in wasm (median); to wgpu: the upload and draw calls handed to wgpu; the")

@@ -214,14 +214,29 @@ test("the demo atlas loads on software WebGL, draws marks, then thumbnails, and 
   const box = await page.locator("#map").boundingBox();
   await page.mouse.move(box.x + x, box.y + y);
   await page.waitForFunction((id) => document.body.dataset.hover === id, record.id);
+  const chunkUrls = () => page.evaluate(() =>
+    performance.getEntriesByType("resource").map((e) => e.name).filter((n) => n.includes("/arrays/neighbours/")));
+  assert.deepEqual(await chunkUrls(), [], "no neighbour list is fetched before a record card needs one");
   await page.mouse.click(box.x + x, box.y + y);
   await page.waitForFunction((id) => document.body.dataset.card === id, record.id);
+  // The card's neighbour list arrives with its chunk: k = 15 neighbours, one chunk fetched.
+  await page.waitForFunction(() => document.querySelectorAll("#card ol.neighbours li").length === 15);
+  assert.equal((await chunkUrls()).length, 1);
   const card = await page.locator("#card").innerText();
   for (const [name, value] of Object.entries(record)) {
     if (value) assert.ok(card.includes(value), `record card lacks ${name} = ${value}`);
   }
   assert.equal(await page.locator("#card canvas.picture").count(), 1, "the card shows the thumbnail");
   await page.screenshot({ path: path.join(ARTIFACTS, "04-record-card.png") });
+  // Walking to a neighbour in the same chunk needs no further fetch.
+  const next = await page.locator("#card ol.neighbours button").first().getAttribute("data-id");
+  await page.locator("#card ol.neighbours button").first().click();
+  await page.waitForFunction((id) => document.body.dataset.card === id, next);
+  assert.equal(await page.locator("#card ol.neighbours li").count(), 15);
+  assert.equal((await chunkUrls()).length, 1, "the chunk was fetched once");
+  await page.mouse.move(box.x + x, box.y + y);
+  await page.mouse.click(box.x + x, box.y + y);
+  await page.waitForFunction((id) => document.body.dataset.card === id, record.id);
   // Drag pans: the item follows the pointer. The wheel zooms about the pointer.
   const [bx, by] = await page.evaluate((id) => window.vitrineView.screen_position_of(id), record.id);
   await page.mouse.move(box.x + 900, box.y + 400);

@@ -7,8 +7,9 @@ use anyhow::{bail, Context, Result};
 use indicatif::{ProgressBar, ProgressStyle};
 use serde_json::json;
 use vitrine_format::{
-    ArrayRef, Field, InputFile, Manifest, MapLayout, Neighbours, Provenance, SheetLevel, Sheets,
-    TextTable, FORMAT_NAME, FORMAT_VERSION, MANIFEST_FILE,
+    ArrayRef, Field, InputFile, Manifest, MapLayout, NeighbourChunk, Neighbours, Provenance,
+    SheetLevel, Sheets, TextTable, FORMAT_NAME, FORMAT_VERSION, MANIFEST_FILE,
+    NEIGHBOUR_CHUNK_ITEMS,
 };
 
 use crate::catalogue::{self, Catalogue, FieldData, ValueWarning};
@@ -1040,12 +1041,23 @@ fn write_atlas(
             nb_d.push(graph.distances[slot]);
         }
     }
+    // In chunks of consecutive items (a region of the map each): a record card needs one.
+    let per = NEIGHBOUR_CHUNK_ITEMS as usize * graph.k;
+    let chunks = nb_ids
+        .chunks(per.max(1))
+        .zip(nb_d.chunks(per.max(1)))
+        .enumerate()
+        .map(|(c, (ids, d))| NeighbourChunk {
+            ids: w.add(&format!("neighbours/ids-{c:04}"), ids),
+            distances: w.add(&format!("neighbours/distances-{c:04}"), d),
+        })
+        .collect();
     let neighbours = Neighbours {
         k: graph.k as u32,
         metric: opts.metric.name().into(),
         exact,
-        ids: w.add("neighbour-ids", &nb_ids),
-        distances: w.add("neighbour-distances", &nb_d),
+        chunk_items: NEIGHBOUR_CHUNK_ITEMS,
+        chunks,
     };
 
     // Catalogue fields, every column but the id.
@@ -1432,9 +1444,9 @@ fn write_atlas(
             seed: opts.seed,
         },
     };
-    std::fs::create_dir_all(dir.join("arrays"))?;
+    std::fs::create_dir_all(dir.join("arrays").join("neighbours"))?;
     for (name, bytes) in &w.files {
-        std::fs::write(dir.join(name), bytes)?;
+        std::fs::write(dir.join(name), bytes).with_context(|| format!("writing {name}"))?;
     }
     // Validate what was written with the same reader the viewer uses.
     Manifest::from_json(&manifest.to_json())

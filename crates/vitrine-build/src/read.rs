@@ -37,6 +37,22 @@ impl Atlas {
     pub fn ids(&self) -> Result<TextTable> {
         self.text(&self.manifest.ids, &self.manifest.ids_text)
     }
+    /// Every item's neighbour list (k per item, atlas order), read from all chunks.
+    pub fn neighbour_ids(&self) -> Result<Vec<u32>> {
+        let mut v = Vec::new();
+        for c in &self.manifest.neighbours.chunks {
+            v.extend(self.array::<u32>(&c.ids)?);
+        }
+        Ok(v)
+    }
+    /// The distances matching [`Atlas::neighbour_ids`].
+    pub fn neighbour_distances(&self) -> Result<Vec<f32>> {
+        let mut v = Vec::new();
+        for c in &self.manifest.neighbours.chunks {
+            v.extend(self.array::<f32>(&c.distances)?);
+        }
+        Ok(v)
+    }
 }
 
 fn csv_quote(s: &str) -> String {
@@ -95,14 +111,16 @@ pub fn inspect(atlas: &Atlas) -> Result<String> {
         m.arrays().len()
     ));
     s.push_str(&format!(
-        "neighbours k = {}, {} distance, {}\n",
+        "neighbours k = {}, {} distance, {}, in {} chunk(s) of {} items\n",
         m.neighbours.k,
         m.neighbours.metric,
         if m.neighbours.exact {
             "exact"
         } else {
             "approximate"
-        }
+        },
+        m.neighbours.chunks.len(),
+        m.neighbours.chunk_items
     ));
     s.push_str("maps\n");
     for l in &m.maps {

@@ -149,7 +149,7 @@ fn build_inspect_export_end_to_end() {
     assert_eq!((start[i3], written.get(i3)), (i32::MIN, "undated"));
 
     // Neighbours stay inside each invented group (the groups are far apart in vector space).
-    let nb: Vec<u32> = atlas.array(&m.neighbours.ids).unwrap();
+    let nb: Vec<u32> = atlas.neighbour_ids().unwrap();
     let group = |i: usize| ids.get(i)[3..].parse::<usize>().unwrap() / 20;
     for i in 0..60 {
         for s in 0..m.neighbours.k as usize {
@@ -303,7 +303,7 @@ fn build_inspect_export_end_to_end() {
     }
 
     // A corrupted array is caught by inspect.
-    let f = d.join("atlas").join(&m.neighbours.distances.file);
+    let f = d.join("atlas").join(&m.neighbours.chunks[0].distances.file);
     let mut bytes = std::fs::read(&f).unwrap();
     bytes[0] ^= 0xFF;
     std::fs::write(&f, bytes).unwrap();
@@ -328,15 +328,28 @@ fn same_inputs_and_seed_give_the_same_atlas_bytes() {
         let o = build(d, out, &["--title", "Same", "--epochs", "60"]);
         assert!(o.status.success(), "{}", stderr(&o));
     }
+    // Every file under arrays/ (the neighbour chunks sit in arrays/neighbours/), as relative paths.
     let files = |p: &Path| {
-        let mut v: Vec<_> = std::fs::read_dir(p.join("arrays"))
-            .unwrap()
-            .map(|e| e.unwrap().file_name())
-            .collect();
+        let root = p.join("arrays");
+        let mut v = Vec::new();
+        let mut dirs = vec![root.clone()];
+        while let Some(dir) = dirs.pop() {
+            for e in std::fs::read_dir(&dir).unwrap() {
+                let path = e.unwrap().path();
+                if path.is_dir() {
+                    dirs.push(path);
+                } else {
+                    v.push(path.strip_prefix(&root).unwrap().to_path_buf());
+                }
+            }
+        }
         v.sort();
         v
     };
     assert_eq!(files(&d.join("a1")), files(&d.join("a2")));
+    assert!(files(&d.join("a1"))
+        .iter()
+        .any(|f| f.starts_with("neighbours")));
     for f in files(&d.join("a1")) {
         assert_eq!(
             std::fs::read(d.join("a1/arrays").join(&f)).unwrap(),
@@ -937,7 +950,7 @@ fn degenerate_collections_build_with_finite_maps() {
 fn neighbour_distances(a: &Atlas) -> std::collections::BTreeMap<String, Vec<f32>> {
     let ids = a.ids().unwrap();
     let k = a.manifest.neighbours.k as usize;
-    let dist: Vec<f32> = a.array(&a.manifest.neighbours.distances).unwrap();
+    let dist: Vec<f32> = a.neighbour_distances().unwrap();
     (0..ids.len())
         .map(|i| {
             let mut d = dist[i * k..(i + 1) * k].to_vec();

@@ -12,7 +12,7 @@ use serde::{Deserialize, Serialize};
 use sha2::{Digest, Sha256};
 
 /// The format version this crate writes and reads.
-pub const FORMAT_VERSION: u32 = 1;
+pub const FORMAT_VERSION: u32 = 2;
 /// The value of the manifest's `format` key.
 pub const FORMAT_NAME: &str = "vitrine-atlas";
 /// File name of the manifest inside an atlas folder.
@@ -357,10 +357,35 @@ pub struct Neighbours {
     pub k: u32,
     pub metric: String,
     pub exact: bool,
+    /// Items per chunk: chunk c holds the lists of items `c * chunk_items ..` (the last may hold
+    /// fewer). Items are in map order, so a chunk is a region of the map and a reader fetches only
+    /// the chunks of the records it shows.
+    pub chunk_items: u32,
+    pub chunks: Vec<NeighbourChunk>,
+}
+
+/// The neighbour lists of one run of items.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct NeighbourChunk {
     /// u32 item indices, k per item, nearest first; `u32::MAX` pads when fewer exist.
     pub ids: ArrayRef,
     /// f32 distances matching `ids`.
     pub distances: ArrayRef,
+}
+
+/// Items per neighbour chunk that `vitrine build` writes: 16,384 lists of k = 15 are ~1 MB.
+pub const NEIGHBOUR_CHUNK_ITEMS: u32 = 16_384;
+
+impl Neighbours {
+    /// The chunk holding item `i`'s list.
+    pub fn chunk_of(&self, i: usize) -> usize {
+        i / self.chunk_items.max(1) as usize
+    }
+    /// The items whose lists chunk `c` holds, of `n` items in all.
+    pub fn chunk_items_range(&self, c: usize, n: usize) -> std::ops::Range<usize> {
+        let per = self.chunk_items.max(1) as usize;
+        (c * per).min(n)..((c + 1) * per).min(n)
+    }
 }
 
 /// One level of detail of the thumbnails.
@@ -491,9 +516,22 @@ impl Manifest {
         for m in &self.maps {
             want(&m.positions, n * 2, DType::F32)?;
         }
-        let k = self.neighbours.k as u64;
-        want(&self.neighbours.ids, n * k, DType::U32)?;
-        want(&self.neighbours.distances, n * k, DType::F32)?;
+        let nb = &self.neighbours;
+        let k = nb.k as u64;
+        let per = nb.chunk_items as u64;
+        if per == 0 || nb.chunks.len() as u64 != n.div_ceil(per) {
+            return Err(AtlasError::Inconsistent(format!(
+                "{} items in neighbour chunks of {per} need {} chunks, the manifest lists {}",
+                n,
+                n.div_ceil(per.max(1)),
+                nb.chunks.len()
+            )));
+        }
+        for (c, chunk) in nb.chunks.iter().enumerate() {
+            let items = nb.chunk_items_range(c, n as usize).len() as u64;
+            want(&chunk.ids, items * k, DType::U32)?;
+            want(&chunk.distances, items * k, DType::F32)?;
+        }
         for f in &self.fields {
             match f.kind {
                 FieldKind::Category => {
@@ -563,8 +601,10 @@ impl Manifest {
     pub fn arrays(&self) -> Vec<&ArrayRef> {
         let mut v = vec![&self.ids, &self.ids_text, &self.source_rows, &self.colours];
         v.extend(self.maps.iter().map(|m| &m.positions));
-        v.push(&self.neighbours.ids);
-        v.push(&self.neighbours.distances);
+        for c in &self.neighbours.chunks {
+            v.push(&c.ids);
+            v.push(&c.distances);
+        }
         for f in &self.fields {
             v.push(&f.column);
             if let Some(c) = &f.column2 {

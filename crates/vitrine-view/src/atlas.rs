@@ -35,8 +35,9 @@ pub struct AtlasData {
     pub bounds: [f32; 4],
     pub colours: Vec<[u8; 4]>,
     pub fields: Vec<FieldColumn>,
-    pub neighbours: Vec<u32>,
-    pub k: usize,
+    /// Neighbour lists, fetched by chunk (a run of items, so a region of the map) when a record
+    /// card needs one.
+    pub neighbours: NeighbourChunks,
     /// Thumbnail width and height in the largest cell (0 when there are no sheets).
     pub extents: Vec<(u16, u16)>,
     /// Typical spacing between items on the map, in map units (see [`crate::pick::typical_spacing`]).
@@ -46,8 +47,8 @@ pub struct AtlasData {
     pub current: usize,
     /// Cluster number per item (empty when the atlas has no clusters).
     pub clusters: Vec<u32>,
-    /// Whether the ids, neighbour lists and catalogue columns are loaded (they arrive after the
-    /// first picture; until then `ids`, `neighbours` and `fields` are empty).
+    /// Whether the ids and catalogue columns are loaded (they arrive after the first picture;
+    /// until then `ids` and `fields` are empty).
     pub catalogue: bool,
 }
 
@@ -73,12 +74,125 @@ pub struct RecordLine {
     pub link: bool,
 }
 
+/// The neighbour lists of the chunks fetched so far, at most `budget` chunks, the least recently
+/// used dropped first.
+pub struct NeighbourChunks {
+    pub k: usize,
+    chunk_items: usize,
+    n: usize,
+    refs: Vec<vitrine_format::ArrayRef>,
+    loaded: Vec<Option<Vec<u32>>>,
+    last_used: Vec<u64>,
+    tick: u64,
+    budget: usize,
+}
+
+/// Neighbour chunks kept at once: 48 chunks of 16,384 lists of 15 are ~47 MB.
+pub const NEIGHBOUR_CHUNK_BUDGET: usize = 48;
+
+impl NeighbourChunks {
+    pub fn new(m: &Manifest, budget: usize) -> NeighbourChunks {
+        let nb = &m.neighbours;
+        NeighbourChunks {
+            k: nb.k as usize,
+            chunk_items: nb.chunk_items.max(1) as usize,
+            n: m.item_count as usize,
+            refs: nb.chunks.iter().map(|c| c.ids.clone()).collect(),
+            loaded: vec![None; nb.chunks.len()],
+            last_used: vec![0; nb.chunks.len()],
+            tick: 0,
+            budget: budget.max(1),
+        }
+    }
+
+    /// The chunk holding item `i`'s list, and its file and size.
+    pub fn chunk_of(&self, i: usize) -> (usize, &str, u64) {
+        let c = (i / self.chunk_items).min(self.refs.len().saturating_sub(1));
+        (c, &self.refs[c].file, self.refs[c].bytes)
+    }
+
+    pub fn is_loaded(&self, c: usize) -> bool {
+        self.loaded.get(c).is_some_and(|l| l.is_some())
+    }
+
+    /// How many chunks are held now.
+    pub fn held(&self) -> usize {
+        self.loaded.iter().filter(|l| l.is_some()).count()
+    }
+
+    /// Checks and keeps chunk `c` from its fetched bytes; drops the least recently used chunks
+    /// beyond the budget (never `c` itself).
+    pub fn insert(&mut self, c: usize, bytes: &[u8]) -> Result<(), AtlasError> {
+        let r = self
+            .refs
+            .get(c)
+            .ok_or_else(|| AtlasError::Inconsistent(format!("there is no neighbour chunk {c}")))?;
+        let ids: Vec<u32> = r.decode(bytes)?;
+        let items = (c * self.chunk_items).min(self.n)..((c + 1) * self.chunk_items).min(self.n);
+        if ids.len() != items.len() * self.k {
+            return Err(AtlasError::BadContent {
+                file: r.file.clone(),
+                reason: format!(
+                    "{} entries for {} items of {}",
+                    ids.len(),
+                    items.len(),
+                    self.k
+                ),
+            });
+        }
+        if let Some(bad) = ids.iter().find(|&&j| j != u32::MAX && j as usize >= self.n) {
+            return Err(AtlasError::BadContent {
+                file: r.file.clone(),
+                reason: format!("item {bad} does not exist"),
+            });
+        }
+        self.tick += 1;
+        self.loaded[c] = Some(ids);
+        self.last_used[c] = self.tick;
+        while self.held() > self.budget {
+            let oldest = (0..self.loaded.len())
+                .filter(|&o| o != c && self.loaded[o].is_some())
+                .min_by_key(|&o| self.last_used[o]);
+            match oldest {
+                Some(o) => self.loaded[o] = None,
+                None => break,
+            }
+        }
+        Ok(())
+    }
+
+    /// Item `i`'s neighbours, nearest first, or None while its chunk is not loaded.
+    pub fn of(&mut self, i: usize) -> Option<Vec<usize>> {
+        let (c, _, _) = self.chunk_of(i);
+        let list = self.loaded.get(c)?.as_ref()?;
+        let at = (i - c * self.chunk_items) * self.k;
+        let out = list
+            .get(at..at + self.k)?
+            .iter()
+            .filter(|&&j| j != u32::MAX)
+            .map(|&j| j as usize)
+            .collect();
+        self.tick += 1;
+        self.last_used[c] = self.tick;
+        Some(out)
+    }
+}
+
 impl AtlasData {
-    /// Every array file the viewer fetches, with its declared size.
+    /// Every array file the viewer fetches whole, with its declared size (the neighbour chunks are
+    /// fetched one by one when needed, see [`NeighbourChunks`]).
     pub fn files(m: &Manifest) -> Vec<(String, u64)> {
+        let chunked: std::collections::HashSet<&str> = m
+            .neighbours
+            .chunks
+            .iter()
+            .flat_map(|c| [c.ids.file.as_str(), c.distances.file.as_str()])
+            .collect();
         let mut seen = std::collections::BTreeMap::new();
         for r in m.arrays() {
-            seen.insert(r.file.clone(), r.bytes);
+            if !chunked.contains(r.file.as_str()) {
+                seen.insert(r.file.clone(), r.bytes);
+            }
         }
         seen.into_iter().collect()
     }
@@ -98,7 +212,7 @@ impl AtlasData {
         seen.into_iter().collect()
     }
 
-    /// The rest (ids, neighbour lists, catalogue columns): fetched while the first picture is
+    /// The rest (ids, catalogue columns): fetched while the first picture is
     /// already on screen, then added with [`AtlasData::complete`].
     pub fn later_files(m: &Manifest) -> Vec<(String, u64)> {
         let first: std::collections::HashSet<String> =
@@ -170,8 +284,7 @@ impl AtlasData {
             current: 0,
             colours,
             fields: Vec::new(),
-            k: manifest.neighbours.k as usize,
-            neighbours: Vec::new(),
+            neighbours: NeighbourChunks::new(&manifest, NEIGHBOUR_CHUNK_BUDGET),
             extents,
             manifest,
             catalogue: false,
@@ -182,7 +295,7 @@ impl AtlasData {
         Ok(atlas)
     }
 
-    /// Adds the ids, neighbour lists and catalogue columns from the [`AtlasData::later_files`].
+    /// Adds the ids and catalogue columns from the [`AtlasData::later_files`].
     pub fn complete(&mut self, files: &HashMap<String, Vec<u8>>) -> Result<(), AtlasError> {
         let get = |r: &vitrine_format::ArrayRef| get_file(files, r);
         let m = &self.manifest;
@@ -192,7 +305,6 @@ impl AtlasData {
             vitrine_format::decode_text(a, get(a)?, b, get(b)?, m.item_count)
         };
         let ids = text(&m.ids, &m.ids_text)?;
-        let neighbours = m.neighbours.ids.decode(get(&m.neighbours.ids)?)?;
         let mut fields = Vec::new();
         for f in &m.fields {
             let column = match f.kind {
@@ -220,7 +332,6 @@ impl AtlasData {
             });
         }
         self.ids = ids;
-        self.neighbours = neighbours;
         self.fields = fields;
         self.catalogue = true;
         Ok(())
@@ -323,16 +434,10 @@ impl AtlasData {
         out
     }
 
-    /// The item's neighbours from the neighbour graph, nearest first.
-    pub fn neighbours_of(&self, i: usize) -> Vec<usize> {
-        if !self.catalogue {
-            return Vec::new();
-        }
-        self.neighbours[i * self.k..(i + 1) * self.k]
-            .iter()
-            .filter(|&&j| j != u32::MAX)
-            .map(|&j| j as usize)
-            .collect()
+    /// The item's neighbours from the neighbour graph, nearest first; None while the chunk that
+    /// holds them is not loaded.
+    pub fn neighbours_of(&mut self, i: usize) -> Option<Vec<usize>> {
+        self.neighbours.of(i)
     }
 }
 

@@ -7,6 +7,7 @@
 
 use crate::atlas::AtlasData;
 use crate::camera::Camera;
+use std::collections::BTreeSet;
 
 pub const THUMB_MIN_PX: f64 = 9.0;
 /// Thumbnails up to this size fade in from their mark's flat colour (the handover from marks to
@@ -65,6 +66,9 @@ pub struct SheetStore {
     pub budget: usize,
     /// Sheets evicted so far (a sheet fetched again after eviction costs a second download).
     pub evicted: usize,
+    /// Changes with every [`SheetStore::insert`] (which may also evict): kept thumbnails drawn
+    /// from another generation are stale.
+    pub generation: u64,
 }
 
 /// Decoded sheets held at most, in bytes, unless the current frame draws from more.
@@ -96,6 +100,7 @@ impl SheetStore {
             bytes: 0,
             budget: SHEET_BUDGET,
             evicted: 0,
+            generation: 0,
         }
     }
 
@@ -110,6 +115,7 @@ impl SheetStore {
     /// (never one used in `frame`) while more than the budget is held.
     pub fn insert(&mut self, level: usize, index: usize, sheet: Sheet, frame: u64) {
         let size = sheet.rgb.len();
+        self.generation += 1;
         if let Some(old) = self.levels[level].loaded[index].replace(sheet) {
             self.bytes -= old.rgb.len();
         }
@@ -263,23 +269,23 @@ fn outline(buf: &mut [u8], w: usize, h: usize, r: [f64; 4], c: [u8; 3], t: f64) 
     fill_rect(buf, w, h, [r[2], r[1], r[2] + t, r[3]], c);
 }
 
-/// Copies the item's cell from a sheet into `r`, sampling the nearest source pixel; with `fade`
+/// Copies the item's cell from a sheet into the part of `r` inside `clip`, sampling the nearest source pixel; with `fade`
 /// (a colour and a weight out of 256 for the picture) it is mixed with that flat colour.
 #[allow(clippy::too_many_arguments)]
 fn blit(
     buf: &mut [u8],
     w: usize,
-    h: usize,
+    clip: [usize; 4],
     r: [f64; 4],
     sheet: &Sheet,
     cell: [u32; 4],
     fade: Option<([u8; 3], u32)>,
 ) {
     let (dw, dh) = (r[2] - r[0], r[3] - r[1]);
-    let x0 = px(r[0]);
-    let y0 = px(r[1]);
-    let x1 = px(r[2]).min(w);
-    let y1 = px(r[3]).min(h);
+    let x0 = px(r[0]).max(clip[0]);
+    let y0 = px(r[1]).max(clip[1]);
+    let x1 = px(r[2]).min(clip[2]);
+    let y1 = px(r[3]).min(clip[3]);
     if x0 >= x1 || y0 >= y1 {
         return;
     }
@@ -388,19 +394,40 @@ fn draw_marks_of(
     }
 }
 
-/// The marks of the last zoomed-out frame, kept so that the next frame need not draw them again:
-/// a frame with the same camera reuses them whole, a pan by whole pixels moves them and draws only
-/// the strips that came into view. Hover and selection outlines are drawn over a copy, never into
-/// the layer. The pixels are those a full `draw` gives.
+/// The items of the last frame (marks, or thumbnails when zoomed in), kept so that the next frame
+/// need not draw them again: a frame with the same camera reuses them whole, a pan by whole pixels
+/// moves them and draws only the strips that came into view. The open and hovered items and their
+/// outlines are drawn over a copy, never into the layer. The pixels are those a full `draw` gives.
 #[derive(Default)]
 pub struct MarkLayer {
     pixels: Vec<u8>,
     size: (usize, usize),
     camera: Option<Camera>,
-    /// What the marks were drawn from (the map shown and a count of data changes): another value
-    /// means the layer must be drawn afresh.
-    key: u64,
+    /// What the items were drawn from (the caller's key: the map shown and a count of data
+    /// changes; and the sheets' generation when thumbnails are drawn): another value means the
+    /// layer must be drawn afresh.
+    key: (u64, u64),
     marks: usize,
+    /// Whether the last frame drew the whole layer afresh.
+    last_full: bool,
+}
+
+impl MarkLayer {
+    /// Whether the last frame drew every pixel afresh (rather than reusing or moving the layer).
+    pub fn last_full(&self) -> bool {
+        self.last_full
+    }
+}
+
+/// The items near map rectangle `r` when the grid says they are few (under half of all), in item
+/// order, into `near`; false when a pass over every item is the cheaper way.
+fn near_items(scene: &Scene, r: [f64; 4], near: &mut Vec<u32>) -> bool {
+    scene.grid.is_some_and(|g| {
+        g.coverage(r) < 0.5 && {
+            g.query(r, near);
+            true
+        }
+    })
 }
 
 /// The screen shift from camera `a` to camera `b` (same zoom and size) when it is a whole number of
@@ -440,8 +467,8 @@ fn shift_pixels(buf: &mut [u8], w: usize, h: usize, dx: i64, dy: i64) {
     }
 }
 
-/// Draws the scene as `draw` does, keeping zoomed-out marks in `layer` between frames (`key` names
-/// what the marks come from: change it when the map or the data change).
+/// Draws the scene as `draw` does, keeping the drawn items in `layer` between frames (`key` names
+/// what they come from: change it when the map or the data change).
 pub fn draw_with_layer(
     scene: &Scene,
     layer: &mut MarkLayer,
@@ -451,14 +478,11 @@ pub fn draw_with_layer(
     h: usize,
 ) -> FrameStats {
     let side = scene.side_px();
-    let thumbs = side >= THUMB_MIN_PX && !scene.sheets.levels.is_empty();
-    if thumbs {
-        layer.camera = None;
-        return draw(scene, buf, w, h);
-    }
+    let level = thumbnail_level(scene, side);
     let atlas = scene.atlas;
     let cam = *scene.camera;
     let reach = mark_side(side) / 2.0;
+    let key = (key, level.map_or(0, |_| scene.sheets.generation + 1));
     let mut stats = FrameStats {
         side_px: side,
         ..Default::default()
@@ -493,7 +517,14 @@ pub fn draw_with_layer(
         }
     };
     let full = strips.len() == 1 && strips[0] == [0, 0, w, h];
+    // How far beyond a strip an item may sit and still reach into it, in pixels.
+    let m = match level {
+        Some(_) => side.max(8.0) + side,
+        None => reach + 1.0,
+    };
     let mut near = Vec::new();
+    // What a full thumbnail pass notes (the frame's counts and sheets).
+    let mut whole = (FrameStats::default(), BTreeSet::new(), BTreeSet::new());
     for clip in strips {
         if clip[0] >= clip[2] || clip[1] >= clip[3] {
             continue;
@@ -512,46 +543,188 @@ pub fn draw_with_layer(
                 p,
             );
         }
-        // The items whose marks reach into the strip, in item order (as a full pass draws them).
-        let m = reach + 1.0;
+        // The items that reach into the strip, in item order (as a full pass draws them).
         let a = cam.to_map([clip[0] as f64 - m, clip[3] as f64 + m]);
         let b = cam.to_map([clip[2] as f64 + m, clip[1] as f64 - m]);
-        let r = [a[0], a[1], b[0], b[1]];
-        let culled = !full
-            && scene.grid.is_some_and(|g| {
-                g.coverage(r) < 0.5 && {
-                    g.query(r, &mut near);
-                    true
-                }
-            });
-        let mut drawn = FrameStats::default();
+        let culled = near_items(scene, [a[0], a[1], b[0], b[1]], &mut near);
         let culled = culled.then_some(near.as_slice());
         let pixels = &mut layer.pixels;
-        draw_marks_of(pixels, w, clip, atlas, &cam, reach, culled, &mut drawn);
-        stats.visited += drawn.visited;
-        if full {
-            layer.marks = drawn.marks;
+        match level {
+            None => {
+                let mut drawn = FrameStats::default();
+                draw_marks_of(pixels, w, clip, atlas, &cam, reach, culled, &mut drawn);
+                stats.visited += drawn.visited;
+                if full {
+                    layer.marks = drawn.marks;
+                }
+            }
+            Some(level) => {
+                let (st, wanted, used) = &mut whole;
+                match culled {
+                    Some(items) => {
+                        let items = items.iter().map(|&i| i as usize);
+                        draw_thumbnails(
+                            scene,
+                            Some(pixels),
+                            w,
+                            clip,
+                            level,
+                            items,
+                            st,
+                            wanted,
+                            used,
+                        )
+                    }
+                    None => draw_thumbnails(
+                        scene,
+                        Some(pixels),
+                        w,
+                        clip,
+                        level,
+                        0..atlas.n,
+                        st,
+                        wanted,
+                        used,
+                    ),
+                }
+            }
         }
-    }
-    if !full && reuse != Some((0, 0)) {
-        // The count of marks on screen after a pan, without drawing them.
-        let (wf, hf) = (w as f64, h as f64);
-        layer.marks = atlas
-            .positions
-            .iter()
-            .filter(|&&p| {
-                let [sx, sy] = cam.to_screen(p);
-                !(sx < -reach || sy < -reach || sx > wf + reach || sy > hf + reach)
-            })
-            .count();
     }
     layer.camera = Some(cam);
     layer.key = key;
     layer.size = (w, h);
-    stats.marks = layer.marks;
+    layer.last_full = full;
+    let Some(level) = level else {
+        if !full && reuse != Some((0, 0)) {
+            // The count of marks on screen after a pan, without drawing them.
+            let (wf, hf) = (w as f64, h as f64);
+            layer.marks = atlas
+                .positions
+                .iter()
+                .filter(|&&p| {
+                    let [sx, sy] = cam.to_screen(p);
+                    !(sx < -reach || sy < -reach || sx > wf + reach || sy > hf + reach)
+                })
+                .count();
+        }
+        stats.marks = layer.marks;
+        buf.copy_from_slice(&layer.pixels);
+        draw_on_top(scene, buf, w, h, reach, &mut stats);
+        return stats;
+    };
+    // Thumbnails: the frame's counts and sheets come from a pass over what is on screen (the
+    // full pass above, or one that draws nothing), then the open and hovered items go on top.
+    let (mut stats, mut wanted, mut used) = if full {
+        whole
+    } else {
+        let mut pass = (FrameStats::default(), BTreeSet::new(), BTreeSet::new());
+        let (st, wanted, used) = &mut pass;
+        let clip = [0, 0, w, h];
+        if near_items(scene, cam.visible(side.max(8.0) + side), &mut near) {
+            let items = near.iter().map(|&i| i as usize);
+            draw_thumbnails(scene, None, w, clip, level, items, st, wanted, used);
+        } else {
+            draw_thumbnails(scene, None, w, clip, level, 0..atlas.n, st, wanted, used);
+        }
+        pass
+    };
     buf.copy_from_slice(&layer.pixels);
-    draw_on_top(scene, buf, w, h, reach, &mut stats);
+    let on_top = [scene.open, scene.hover];
+    let on_top = on_top.iter().flatten().copied();
+    let clip = [0, 0, w, h];
+    draw_thumbnails(
+        scene,
+        Some(buf),
+        w,
+        clip,
+        level,
+        on_top,
+        &mut stats,
+        &mut wanted,
+        &mut used,
+    );
+    outlines(scene, buf, w, h, true);
+    stats.side_px = side;
+    stats.wanted = wanted.into_iter().collect();
+    stats.used = used.into_iter().collect();
     stats
+}
+
+/// The sheet level items of `side` pixels are drawn from, or None when they are drawn as marks.
+fn thumbnail_level(scene: &Scene, side: f64) -> Option<usize> {
+    if side >= THUMB_MIN_PX && !scene.sheets.levels.is_empty() {
+        scene.sheets.level_for(side)
+    } else {
+        None
+    }
+}
+
+/// Draws `items` (in that order) as thumbnails from sheet `level` (or the nearest loaded level,
+/// or a flat square in the item's colour while none is loaded) into the part of `buf` inside
+/// `clip`; notes the sheets they want and use and counts them in `stats`. With `buf` None it only
+/// notes and counts. Items more than a margin outside `clip` are skipped.
+#[allow(clippy::too_many_arguments)]
+fn draw_thumbnails<I: Iterator<Item = usize>>(
+    scene: &Scene,
+    mut buf: Option<&mut [u8]>,
+    w: usize,
+    clip: [usize; 4],
+    level: usize,
+    items: I,
+    stats: &mut FrameStats,
+    wanted: &mut BTreeSet<(usize, usize)>,
+    used: &mut BTreeSet<(usize, usize)>,
+) {
+    let atlas = scene.atlas;
+    let sheets = scene.sheets;
+    let side = scene.side_px();
+    let margin = side.max(8.0);
+    let fade = fade_weight(side);
+    let [cx0, cy0, cx1, cy1] = clip.map(|v| v as f64);
+    for i in items {
+        stats.visited += 1;
+        let r = scene.item_rect(i);
+        if r[2] < cx0 - margin || r[0] > cx1 + margin || r[3] < cy0 - margin || r[1] > cy1 + margin
+        {
+            continue;
+        }
+        let sheet_index = sheets.sheet_of(level, i);
+        if sheets.levels[level].loaded[sheet_index].is_none() {
+            wanted.insert((level, sheet_index));
+        }
+        // The wanted level if loaded, else the nearest loaded one (smaller levels first: they are fetched first).
+        let mut chosen = None;
+        for l in
+            std::iter::once(level).chain((0..sheets.levels.len()).rev().filter(|&l| l != level))
+        {
+            let s = sheets.sheet_of(l, i);
+            if let Some(sheet) = &sheets.levels[l].loaded[s] {
+                chosen = Some((l, s, sheet));
+                break;
+            }
+        }
+        match chosen {
+            Some((l, s, sheet)) => {
+                if let Some(buf) = buf.as_deref_mut() {
+                    let cell = sheets.cell(l, i, atlas.extents[i]);
+                    let fade = fade.map(|t| (rgb(atlas.colours[i]), t));
+                    blit(buf, w, clip, r, sheet, cell, fade);
+                }
+                stats.thumbnails += 1;
+                used.insert((l, s));
+            }
+            None => {
+                // Nothing to show yet: the smallest level's sheet comes first.
+                if level > 0 {
+                    wanted.insert((0, sheets.sheet_of(0, i)));
+                }
+                if let Some(buf) = buf.as_deref_mut() {
+                    fill_rect_in(buf, w, clip, r, rgb(atlas.colours[i]));
+                }
+                stats.marks += 1;
+            }
+        }
+    }
 }
 
 /// The open and hovered items drawn again over the marks, with their outlines.
@@ -613,30 +786,13 @@ pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
         side_px: side,
         ..Default::default()
     };
-    let thumbs = side >= THUMB_MIN_PX && !scene.sheets.levels.is_empty();
-    let want_level = if thumbs {
-        scene.sheets.level_for(side)
-    } else {
-        None
-    };
-    let mut wanted = std::collections::BTreeSet::new();
-    let mut used = std::collections::BTreeSet::new();
+    let level = thumbnail_level(scene, side);
     let margin = side.max(8.0);
-    let (wf, hf) = (w as f64, h as f64);
-    // The open and hovered items are drawn again last, so that they sit on top of their neighbours.
-    let on_top = [scene.open, scene.hover];
     // Zoomed in, only the grid cells near the screen are visited (in item order, as a full pass
     // would draw them); zoomed out, a plain pass over every item is cheaper than the lookup.
     let mut near = Vec::new();
-    let culled = scene.grid.is_some_and(|g| {
-        let r = scene.camera.visible(margin + side);
-        g.coverage(r) < 0.5 && {
-            g.query(r, &mut near);
-            true
-        }
-    });
-    let fade = fade_weight(side);
-    let Some(level) = want_level else {
+    let culled = near_items(scene, scene.camera.visible(margin + side), &mut near);
+    let Some(level) = level else {
         // Marks only (zoomed out, where a frame may hold a million items): the same squares as
         // item_rect gives, without its per-item choices.
         let reach = mark_side(side) / 2.0;
@@ -647,60 +803,39 @@ pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
         draw_on_top(scene, buf, w, h, reach, &mut stats);
         return stats;
     };
-    {
-        let all: Box<dyn Iterator<Item = usize>> = if culled {
-            Box::new(near.iter().map(|&i| i as usize))
-        } else {
-            Box::new(0..atlas.n)
-        };
-        let order = all.chain(on_top.iter().flatten().copied());
-        for i in order {
-            stats.visited += 1;
-            let r = scene.item_rect(i);
-            if r[2] < -margin || r[0] > wf + margin || r[3] < -margin || r[1] > hf + margin {
-                continue;
-            }
-            let sheet_index = scene.sheets.sheet_of(level, i);
-            if scene.sheets.levels[level].loaded[sheet_index].is_none() {
-                wanted.insert((level, sheet_index));
-            }
-            // The wanted level if loaded, else the nearest loaded one (smaller levels first: they are fetched first).
-            let mut chosen = None;
-            for l in std::iter::once(level)
-                .chain((0..scene.sheets.levels.len()).rev().filter(|&l| l != level))
-            {
-                let s = scene.sheets.sheet_of(l, i);
-                if let Some(sheet) = &scene.sheets.levels[l].loaded[s] {
-                    chosen = Some((l, sheet));
-                    break;
-                }
-            }
-            match chosen {
-                Some((l, sheet)) => {
-                    let cell = scene.sheets.cell(l, i, atlas.extents[i]);
-                    blit(
-                        buf,
-                        w,
-                        h,
-                        r,
-                        sheet,
-                        cell,
-                        fade.map(|t| (rgb(atlas.colours[i]), t)),
-                    );
-                    stats.thumbnails += 1;
-                    used.insert((l, scene.sheets.sheet_of(l, i)));
-                }
-                None => {
-                    // Nothing to show yet: the smallest level's sheet comes first.
-                    if level > 0 {
-                        wanted.insert((0, scene.sheets.sheet_of(0, i)));
-                    }
-                    let c = atlas.colours[i];
-                    fill_rect(buf, w, h, r, [c[0], c[1], c[2]]);
-                    stats.marks += 1;
-                }
-            }
-        }
+    let mut wanted = BTreeSet::new();
+    let mut used = BTreeSet::new();
+    // The open and hovered items are drawn again last, so that they sit on top of their neighbours.
+    let on_top = [scene.open, scene.hover];
+    let on_top = on_top.iter().flatten().copied();
+    let clip = [0, 0, w, h];
+    let st = &mut stats;
+    if culled {
+        let items = near.iter().map(|&i| i as usize).chain(on_top);
+        draw_thumbnails(
+            scene,
+            Some(buf),
+            w,
+            clip,
+            level,
+            items,
+            st,
+            &mut wanted,
+            &mut used,
+        );
+    } else {
+        let items = (0..atlas.n).chain(on_top);
+        draw_thumbnails(
+            scene,
+            Some(buf),
+            w,
+            clip,
+            level,
+            items,
+            st,
+            &mut wanted,
+            &mut used,
+        );
     }
     outlines(scene, buf, w, h, true);
     stats.wanted = wanted.into_iter().collect();

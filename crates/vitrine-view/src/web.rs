@@ -57,6 +57,8 @@ struct App {
     /// The animated camera move under way, if any.
     glide: Option<Glide>,
     fetching: HashSet<(usize, usize)>,
+    /// Neighbour chunks being fetched.
+    fetching_neighbours: HashSet<usize>,
     frames: u64,
     last: raster::FrameStats,
     /// The last frame's milliseconds in the raster, in handing the frame to wgpu (the GPU's own
@@ -655,6 +657,11 @@ fn open_card(i: Option<usize>) {
         request_frame();
         return;
     };
+    // The neighbour list, if its chunk is here (else the chunk is fetched and the card redrawn).
+    let nb = app.borrow_mut().atlas.neighbours_of(i);
+    if nb.is_none() {
+        fetch_neighbours(i);
+    }
     let a = app.borrow();
     let doc = document();
     card.set_text_content(None);
@@ -701,11 +708,16 @@ fn open_card(i: Option<usize>) {
         let _ = dl.append_child(&dd);
     }
     let _ = card.append_child(&dl);
-    let nb = a.atlas.neighbours_of(i);
-    if !nb.is_empty() {
-        let h = doc.create_element("h3").unwrap();
-        h.set_text_content(Some("Nearest neighbours"));
-        let _ = card.append_child(&h);
+    let h = doc.create_element("h3").unwrap();
+    h.set_text_content(Some("Nearest neighbours"));
+    let _ = card.append_child(&h);
+    if nb.is_none() {
+        let p = doc.create_element("p").unwrap();
+        p.set_class_name("pending");
+        p.set_text_content(Some("loading…"));
+        let _ = card.append_child(&p);
+    }
+    if let Some(nb) = nb {
         let ol = doc.create_element("ol").unwrap();
         ol.set_class_name("neighbours");
         for j in nb {
@@ -726,6 +738,45 @@ fn open_card(i: Option<usize>) {
     set_state("card", a.atlas.id(i));
     drop(a);
     request_frame();
+}
+
+/// Fetches the neighbour chunk that holds item `i`'s list, then shows the card again if it is
+/// still open on an item of that chunk.
+fn fetch_neighbours(i: usize) {
+    let Some(app) = app() else { return };
+    let (c, url) = {
+        let mut a = app.borrow_mut();
+        let (c, file, _) = a.atlas.neighbours.chunk_of(i);
+        let file = file.to_string();
+        if !a.fetching_neighbours.insert(c) {
+            return;
+        }
+        (c, file)
+    };
+    wasm_bindgen_futures::spawn_local(async move {
+        let got = fetch_bytes(&url).await;
+        let Some(app) = self::app() else { return };
+        let open = {
+            let mut a = app.borrow_mut();
+            a.fetching_neighbours.remove(&c);
+            let result =
+                got.and_then(|b| a.atlas.neighbours.insert(c, &b).map_err(|e| e.to_string()));
+            if let Err(e) = result {
+                let msg = format!("the neighbour lists could not be loaded: {e}");
+                web_sys::console::warn_1(&msg.clone().into());
+                let pending =
+                    by_id("card").and_then(|c| c.query_selector(".pending").ok().flatten());
+                if let Some(p) = pending {
+                    p.set_text_content(Some(&msg));
+                }
+                return;
+            }
+            a.open.filter(|&o| a.atlas.neighbours.chunk_of(o).0 == c)
+        };
+        if open.is_some() {
+            open_card(open);
+        }
+    });
 }
 
 fn card_picture(a: &App, i: usize) -> Option<web_sys::Element> {
@@ -1193,6 +1244,7 @@ async fn load(base: String) -> Result<(), String> {
         frame_pending: false,
         glide: None,
         fetching: HashSet::new(),
+        fetching_neighbours: HashSet::new(),
         frames: 0,
         last: Default::default(),
         frame_ms: [0.0; 3],

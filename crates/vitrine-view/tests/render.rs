@@ -184,7 +184,7 @@ fn zoom_changes_what_is_drawn_and_thumbnails_are_the_right_pictures() {
 #[test]
 fn record_lines_hold_every_field_as_written() {
     let dir = tempfile::tempdir().unwrap();
-    let atlas = fixture(dir.path());
+    let mut atlas = fixture(dir.path());
     let lines = atlas.record(0);
     assert_eq!(lines[0].name, "id");
     let names: Vec<&str> = lines.iter().map(|l| l.name.as_str()).collect();
@@ -194,7 +194,12 @@ fn record_lines_hold_every_field_as_written() {
         "no catalogue: the id and the item's cluster"
     );
     assert!(lines[1].value.contains("items"), "{:?}", lines[1]);
-    assert_eq!(atlas.neighbours_of(0).len(), 15);
+    // The neighbour lists come by chunk: none until the record card asks for one.
+    assert_eq!(atlas.neighbours_of(0), None);
+    let (c, file, _) = atlas.neighbours.chunk_of(0);
+    let bytes = std::fs::read(dir.path().join("atlas").join(file)).unwrap();
+    atlas.neighbours.insert(c, &bytes).unwrap();
+    assert_eq!(atlas.neighbours_of(0).unwrap().len(), 15);
     let about = vitrine_view::atlas::about(&atlas.manifest);
     let heads: Vec<&str> = about.iter().map(|(h, _)| h.as_str()).collect();
     assert_eq!(
@@ -254,13 +259,11 @@ fn the_first_picture_needs_only_the_first_files_and_the_catalogue_follows() {
     assert_eq!(atlas.colours, full.colours);
     assert_eq!(atlas.extents, full.extents);
     assert_eq!(atlas.id(3), "");
-    assert!(atlas.neighbours_of(3).is_empty());
     assert!(atlas.label(3).contains("loading"), "{}", atlas.label(3));
     atlas.complete(&read(later)).unwrap();
     assert!(atlas.catalogue);
     for i in [0, 3, 89] {
         assert_eq!(atlas.record(i), full.record(i));
-        assert_eq!(atlas.neighbours_of(i), full.neighbours_of(i));
         assert_eq!(atlas.label(i), full.label(i));
     }
 }
@@ -332,4 +335,158 @@ fn kept_marks_give_the_pixels_of_a_full_draw_while_drawing_only_what_came_into_v
     };
     let mut got = vec![0u8; w * h * 4];
     assert!(draw_with_layer(&scene, &mut layer, 2, &mut got, w, h).visited >= atlas.n);
+}
+
+#[test]
+fn neighbour_lists_arrive_by_chunk_and_the_least_recently_used_chunk_goes_first() {
+    use vitrine_format::{ArrayRef, NeighbourChunk};
+    use vitrine_view::atlas::NeighbourChunks;
+    let dir = tempfile::tempdir().unwrap();
+    let _ = fixture(dir.path());
+    let a = dir.path().join("atlas");
+    let atlas = vitrine_build::read::Atlas::open(&a).unwrap();
+    let all = atlas.neighbour_ids().unwrap();
+    let k = atlas.manifest.neighbours.k as usize;
+    // The same lists cut into chunks of 40 items: 40, 40 and 10.
+    let mut m = atlas.manifest.clone();
+    let mut bytes = Vec::new();
+    m.neighbours.chunk_items = 40;
+    m.neighbours.chunks = all
+        .chunks(40 * k)
+        .enumerate()
+        .map(|(c, ids)| {
+            let (r, b) = ArrayRef::encode(&format!("arrays/neighbours/ids-{c}.bin"), ids);
+            bytes.push(b);
+            let (d, _) = ArrayRef::encode(&format!("d{c}"), &vec![0f32; ids.len()]);
+            NeighbourChunk {
+                ids: r,
+                distances: d,
+            }
+        })
+        .collect();
+    let m = Manifest::from_json(&m.to_json()).unwrap();
+    let mut nb = NeighbourChunks::new(&m, 2);
+    let expect = |i: usize| -> Vec<usize> {
+        all[i * k..(i + 1) * k]
+            .iter()
+            .filter(|&&j| j != u32::MAX)
+            .map(|&j| j as usize)
+            .collect()
+    };
+    assert_eq!(nb.chunk_of(85).0, 2);
+    assert_eq!(nb.of(5), None);
+    nb.insert(0, &bytes[0]).unwrap();
+    nb.insert(1, &bytes[1]).unwrap();
+    assert_eq!(nb.of(5), Some(expect(5)));
+    assert_eq!(nb.of(79), Some(expect(79)));
+    assert_eq!(nb.of(40), Some(expect(40)));
+    // Chunk 0 was used less recently than chunk 1: the third chunk displaces it.
+    nb.of(45);
+    nb.insert(2, &bytes[2]).unwrap();
+    assert_eq!(nb.held(), 2);
+    assert!(!nb.is_loaded(0) && nb.is_loaded(1) && nb.is_loaded(2));
+    assert_eq!(nb.of(89), Some(expect(89)));
+    assert_eq!(nb.of(0), None);
+    // A damaged chunk is refused with its file named, and what was held stays.
+    let mut bad = bytes[0].clone();
+    bad[3] ^= 1;
+    let e = nb.insert(0, &bad).unwrap_err().to_string();
+    assert!(e.contains("arrays/neighbours/ids-0.bin"), "{e}");
+    assert_eq!(nb.held(), 2);
+}
+
+#[test]
+fn kept_thumbnails_give_the_pixels_of_a_full_draw_and_a_new_sheet_redraws_them() {
+    use vitrine_view::raster::{draw_with_layer, MarkLayer};
+    let dir = tempfile::tempdir().unwrap();
+    let atlas = fixture(dir.path());
+    // The small level loaded, the large one not: 40 px items want the large level and show the
+    // small one meanwhile.
+    let mut sheets = load_sheets(&atlas, dir.path(), &[0]);
+    let grid = vitrine_view::grid::Grid::new(&atlas.positions, atlas.bounds, 2);
+    let (w, h) = (240usize, 160usize);
+    let c = atlas.positions[10];
+    let mut cam = Camera {
+        centre: [c[0] as f64, c[1] as f64],
+        zoom: 40.0 / 0.92 / atlas.spacing,
+        size: [w as f64, h as f64],
+    };
+    let mut layer = MarkLayer::default();
+    let mut partial = 0;
+    // (pan dx, pan dy, hover, insert a large sheet before the frame)
+    let steps: [(f64, f64, Option<usize>, bool); 8] = [
+        (0.0, 0.0, None, false),
+        (6.0, 0.0, Some(10), false),
+        (0.0, -11.0, Some(10), false),
+        (0.0, 0.0, None, true), // a sheet arrived: drawn afresh
+        (-25.0, 4.0, None, false),
+        (0.5, 0.0, None, false), // not a whole pixel: drawn afresh
+        (3.0, 3.0, None, true),
+        (-9.0, 0.0, Some(11), false),
+    ];
+    for (k, (dx, dy, hover, arrive)) in steps.into_iter().enumerate() {
+        cam.pan(dx, dy);
+        if arrive {
+            let want = draw(
+                &Scene {
+                    atlas: &atlas,
+                    grid: Some(&grid),
+                    sheets: &sheets,
+                    camera: &cam,
+                    hover,
+                    open: None,
+                    theme: READING_ROOM,
+                },
+                &mut vec![0u8; w * h * 4],
+                w,
+                h,
+            )
+            .wanted;
+            let &(l, s) = want
+                .iter()
+                .find(|(l, _)| *l == 1)
+                .expect("a large sheet wanted");
+            let img = image::open(dir.path().join("atlas").join(&sheets.levels[l].files[s]))
+                .unwrap()
+                .to_rgb8();
+            let sheet = Sheet {
+                width: img.width(),
+                height: img.height(),
+                rgb: img.into_raw(),
+            };
+            sheets.insert(l, s, sheet, k as u64);
+        }
+        let scene = Scene {
+            atlas: &atlas,
+            grid: Some(&grid),
+            sheets: &sheets,
+            camera: &cam,
+            hover,
+            open: Some(12),
+            theme: READING_ROOM,
+        };
+        let mut want = vec![0u8; w * h * 4];
+        let full = draw(&scene, &mut want, w, h);
+        assert!(full.thumbnails > 4, "step {k}: {full:?}");
+        let mut got = vec![0u8; w * h * 4];
+        let kept = draw_with_layer(&scene, &mut layer, 1, &mut got, w, h);
+        assert!(
+            got == want,
+            "step {k}: the kept layer's pixels differ from a full draw"
+        );
+        assert_eq!(
+            (kept.thumbnails, kept.marks, &kept.wanted, &kept.used),
+            (full.thumbnails, full.marks, &full.wanted, &full.used),
+            "step {k}"
+        );
+        // Whole-pixel pans with nothing new draw only strips, never the whole screen.
+        let fresh = layer.last_full();
+        if k > 0 && !arrive && dx.fract() == 0.0 {
+            assert!(!fresh, "step {k} was drawn afresh");
+            partial += 1;
+        } else {
+            assert!(fresh, "step {k} should be drawn afresh");
+        }
+    }
+    assert_eq!(partial, 4);
 }
