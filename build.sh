@@ -28,10 +28,11 @@ setup() {
   setup_mesa
   echo "[setup] Python venv for the outside-reference tests ($CACHE/venv)"
   # numpy and scikit-learn are the outside references of the tests; umap-learn gives the method's a, b fit;
-  # Pillow writes and decodes the reference images, scikit-image ships sample photographs.
-  if [ ! -x "$CACHE/venv/bin/python" ] || ! "$CACHE/venv/bin/python" -c "import numpy, sklearn, umap, PIL, skimage" 2>/dev/null; then
+  # Pillow writes and decodes the reference images, scikit-image ships sample photographs; shapely
+  # decides point-in-lasso for the corpus tests.
+  if [ ! -x "$CACHE/venv/bin/python" ] || ! "$CACHE/venv/bin/python" -c "import numpy, sklearn, umap, PIL, skimage, shapely" 2>/dev/null; then
     [ -x "$CACHE/venv/bin/python" ] || python3 -m venv "$CACHE/venv"
-    "$CACHE/venv/bin/pip" install --progress-bar on numpy scikit-learn umap-learn pillow scikit-image
+    "$CACHE/venv/bin/pip" install --progress-bar on numpy scikit-learn umap-learn pillow scikit-image shapely
   fi
 }
 
@@ -84,8 +85,9 @@ setup_browser() {
     $sudo apt-get update -qq
     DEBIAN_FRONTEND=noninteractive $sudo apt-get install -y -qq chromium
   fi
-  if [ ! -d tests/browser/node_modules/playwright-core ] || [ ! -d tests/browser/node_modules/pngjs ]; then
-    echo "[setup] playwright-core and pngjs from npm"
+  if [ ! -d tests/browser/node_modules/playwright-core ] || [ ! -d tests/browser/node_modules/pngjs ] ||
+     [ ! -d tests/browser/node_modules/@iiif/parser ]; then
+    echo "[setup] playwright-core, pngjs and @iiif/parser from npm"
     (cd tests/browser && npm ci --no-audit --no-fund)
   fi
 }

@@ -4,6 +4,7 @@
 
 pub mod catalogue;
 pub mod clusters;
+pub mod corpus_cmd;
 pub mod dates;
 pub mod decode;
 pub mod error;

@@ -165,6 +165,68 @@ enum Command {
         #[arg(long)]
         force: bool,
     },
+    /// Rebuild a corpus without a browser: from a corpus file (saved in the viewer) and/or a
+    /// selection given here, write its catalogue rows (CSV), its corpus file (JSON: the ids and
+    /// how they were chosen) and an IIIF Presentation 3 Manifest. The corpus is the selected items
+    /// that pass every filter; with nothing selected, every item that passes them.
+    Corpus {
+        /// The atlas folder.
+        atlas: PathBuf,
+        /// A corpus file to start from (its map, steps and filters; flags below add to them).
+        #[arg(long)]
+        from: Option<PathBuf>,
+        /// The map the lassos and rectangles are in (default: the corpus file's, else the first).
+        #[arg(long)]
+        map: Option<String>,
+        /// Add the items inside a lasso, "x1,y1 x2,y2 ..." in map coordinates (even-odd rule for
+        /// outlines that cross themselves). Repeatable.
+        #[arg(long, allow_hyphen_values = true)]
+        lasso: Vec<String>,
+        /// Remove the items inside a lasso (from every item when nothing else is selected). Repeatable.
+        #[arg(long = "subtract-lasso", allow_hyphen_values = true)]
+        subtract_lasso: Vec<String>,
+        /// Add the items inside a rectangle "x0,y0,x1,y1" in map coordinates. Repeatable.
+        #[arg(long, allow_hyphen_values = true)]
+        rect: Vec<String>,
+        /// Add items by id, comma-separated.
+        #[arg(long, value_delimiter = ',')]
+        ids: Vec<String>,
+        /// Keep items whose category FIELD has VALUE: FIELD=VALUE. Repeat for more values of one
+        /// field (any of them) or other fields (all of them).
+        #[arg(long)]
+        filter: Vec<String>,
+        /// Keep items whose number FIELD lies in MIN..MAX (either may be left out): FIELD=MIN..MAX.
+        #[arg(long, allow_hyphen_values = true)]
+        range: Vec<String>,
+        /// Keep items dated in FROM..TO years: [FIELD=]FROM..TO (the field may be left out when the
+        /// catalogue has one date field).
+        #[arg(long, allow_hyphen_values = true)]
+        date: Vec<String>,
+        /// How --date treats an item's dating range: overlap (shares a year) or within (inside).
+        #[arg(long = "date-rule", default_value = "overlap")]
+        date_rule: String,
+        /// Keep items where every word occurs (ignoring case and accents) in --search-in's fields.
+        #[arg(long)]
+        search: Option<String>,
+        /// The fields --search looks in, comma-separated (default: every field).
+        #[arg(long = "search-in", value_delimiter = ',')]
+        search_in: Vec<String>,
+        /// Write the corpus's catalogue rows here (CSV, the id column first).
+        #[arg(long)]
+        csv: Option<PathBuf>,
+        /// Write the corpus file here (JSON: ids, steps, filters, atlas hash, build parameters, time).
+        #[arg(long)]
+        json: Option<PathBuf>,
+        /// Write an IIIF Presentation 3 Manifest here, one Canvas per item.
+        #[arg(long)]
+        iiif: Option<PathBuf>,
+        /// Where the IIIF Manifest will be published (its ids are made under this address).
+        #[arg(long = "base-url")]
+        base_url: Option<String>,
+        /// Replace output files that exist.
+        #[arg(long)]
+        force: bool,
+    },
 }
 
 fn run() -> anyhow::Result<()> {
@@ -341,6 +403,55 @@ fn run() -> anyhow::Result<()> {
                 positions.display(),
                 a.manifest.item_count
             );
+        }
+        Command::Corpus {
+            atlas,
+            from,
+            map,
+            lasso,
+            subtract_lasso,
+            rect,
+            ids,
+            filter,
+            range,
+            date,
+            date_rule,
+            search,
+            search_in,
+            csv,
+            json,
+            iiif,
+            base_url,
+            force,
+        } => {
+            let args = vitrine_build::corpus_cmd::CorpusArgs {
+                from,
+                map,
+                lassos: lasso,
+                subtract: subtract_lasso,
+                rects: rect,
+                ids,
+                filters: filter,
+                ranges: range,
+                dates: date,
+                date_rule: Some(date_rule),
+                search,
+                search_in,
+                csv,
+                json,
+                iiif,
+                base_url,
+                force,
+                time: None,
+            };
+            let r = vitrine_build::corpus_cmd::run(&atlas, &args)?;
+            println!("{} items: {}", r.count, r.description);
+            for p in &r.written {
+                eprintln!("wrote {}", p.display());
+            }
+            for n in &r.notes {
+                eprintln!("note: {n}");
+            }
         }
     }
     Ok(())

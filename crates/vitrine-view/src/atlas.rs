@@ -2,20 +2,8 @@
 
 use std::collections::HashMap;
 
-use vitrine_format::{AtlasError, Field, FieldKind, Manifest, TextTable};
-
-pub enum Column {
-    Category(Vec<u32>),
-    Number(Vec<f32>),
-    Date { start: Vec<i32>, end: Vec<i32> },
-    Text(TextTable),
-}
-
-pub struct FieldColumn {
-    pub field: Field,
-    pub column: Column,
-    pub written: Option<TextTable>,
-}
+pub use vitrine_corpus::columns::{Column, FieldColumn};
+use vitrine_format::{AtlasError, FieldKind, Manifest, TextTable};
 
 /// One map of the atlas, decoded.
 pub struct MapView {
@@ -305,32 +293,7 @@ impl AtlasData {
             vitrine_format::decode_text(a, get(a)?, b, get(b)?, m.item_count)
         };
         let ids = text(&m.ids, &m.ids_text)?;
-        let mut fields = Vec::new();
-        for f in &m.fields {
-            let column = match f.kind {
-                FieldKind::Category => Column::Category(f.column.decode(get(&f.column)?)?),
-                FieldKind::Number => Column::Number(f.column.decode(get(&f.column)?)?),
-                FieldKind::Date => {
-                    let end = f.column2.as_ref().unwrap();
-                    Column::Date {
-                        start: f.column.decode(get(&f.column)?)?,
-                        end: end.decode(get(end)?)?,
-                    }
-                }
-                FieldKind::Text | FieldKind::Link => {
-                    Column::Text(text(&f.column, f.column2.as_ref().unwrap())?)
-                }
-            };
-            let written = match &f.written {
-                Some([a, b]) => Some(text(a, b)?),
-                None => None,
-            };
-            fields.push(FieldColumn {
-                field: f.clone(),
-                column,
-                written,
-            });
-        }
+        let fields = vitrine_corpus::columns::decode_fields(m, get)?;
         self.ids = ids;
         self.fields = fields;
         self.catalogue = true;
@@ -379,41 +342,7 @@ impl AtlasData {
             link: false,
         }];
         for f in &self.fields {
-            let value = if let Some(w) = &f.written {
-                w.get(i).to_string()
-            } else {
-                match &f.column {
-                    Column::Category(c) => {
-                        let code = c[i];
-                        if code == u32::MAX {
-                            String::new()
-                        } else {
-                            f.field
-                                .values
-                                .get(code as usize)
-                                .cloned()
-                                .unwrap_or_default()
-                        }
-                    }
-                    Column::Number(v) => {
-                        if v[i].is_nan() {
-                            String::new()
-                        } else {
-                            format!("{}", v[i])
-                        }
-                    }
-                    Column::Date { start, end } => {
-                        if start[i] == i32::MIN {
-                            String::new()
-                        } else if start[i] == end[i] {
-                            format!("{}", start[i])
-                        } else {
-                            format!("{}-{}", start[i], end[i])
-                        }
-                    }
-                    Column::Text(t) => t.get(i).to_string(),
-                }
-            };
+            let value = f.text(i);
             let link = f.field.kind == FieldKind::Link
                 && (value.starts_with("https://") || value.starts_with("http://"));
             out.push(RecordLine {

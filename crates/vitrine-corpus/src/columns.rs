@@ -1,0 +1,89 @@
+//! The catalogue columns of an atlas, decoded: what filters read and exports write.
+
+use vitrine_format::{ArrayRef, AtlasError, Field, FieldKind, Manifest, TextTable};
+
+pub enum Column {
+    Category(Vec<u32>),
+    Number(Vec<f32>),
+    /// Start and end years, `i32::MIN` where undated.
+    Date {
+        start: Vec<i32>,
+        end: Vec<i32>,
+    },
+    Text(TextTable),
+}
+
+pub struct FieldColumn {
+    pub field: Field,
+    pub column: Column,
+    /// Date and number fields: each value as the catalogue wrote it.
+    pub written: Option<TextTable>,
+}
+
+impl FieldColumn {
+    /// Item `i`'s value as text: as the catalogue wrote it where that is kept, else the value
+    /// ("" when empty).
+    pub fn text(&self, i: usize) -> String {
+        if let Some(w) = &self.written {
+            return w.get(i).to_string();
+        }
+        match &self.column {
+            Column::Category(c) => match c[i] {
+                u32::MAX => String::new(),
+                code => self
+                    .field
+                    .values
+                    .get(code as usize)
+                    .cloned()
+                    .unwrap_or_default(),
+            },
+            Column::Number(v) if v[i].is_nan() => String::new(),
+            Column::Number(v) => format!("{}", v[i]),
+            Column::Date { start, .. } if start[i] == i32::MIN => String::new(),
+            Column::Date { start, end } if start[i] == end[i] => format!("{}", start[i]),
+            Column::Date { start, end } => format!("{}-{}", start[i], end[i]),
+            Column::Text(t) => t.get(i).to_string(),
+        }
+    }
+}
+
+/// Decodes every catalogue field of `m`, reading array bytes through `get`.
+pub fn decode_fields<'a>(
+    m: &Manifest,
+    get: impl Fn(&ArrayRef) -> Result<&'a [u8], AtlasError>,
+) -> Result<Vec<FieldColumn>, AtlasError> {
+    let text = |a: &ArrayRef, b: &ArrayRef| -> Result<TextTable, AtlasError> {
+        vitrine_format::decode_text(a, get(a)?, b, get(b)?, m.item_count)
+    };
+    let missing = |f: &Field, what: &str| {
+        AtlasError::Inconsistent(format!("field {} has no {what} column", f.name))
+    };
+    let mut fields = Vec::new();
+    for f in &m.fields {
+        let column = match f.kind {
+            FieldKind::Category => Column::Category(f.column.decode(get(&f.column)?)?),
+            FieldKind::Number => Column::Number(f.column.decode(get(&f.column)?)?),
+            FieldKind::Date => {
+                let end = f.column2.as_ref().ok_or_else(|| missing(f, "end-year"))?;
+                Column::Date {
+                    start: f.column.decode(get(&f.column)?)?,
+                    end: end.decode(get(end)?)?,
+                }
+            }
+            FieldKind::Text | FieldKind::Link => {
+                let bytes = f.column2.as_ref().ok_or_else(|| missing(f, "byte"))?;
+                Column::Text(text(&f.column, bytes)?)
+            }
+        };
+        let written = match &f.written {
+            Some([a, b]) => Some(text(a, b)?),
+            None => None,
+        };
+        fields.push(FieldColumn {
+            field: f.clone(),
+            column,
+            written,
+        });
+    }
+    Ok(fields)
+}

@@ -1,0 +1,302 @@
+//! A corpus: selection steps on one map, the active filters, and the file that records them.
+
+use serde::{Deserialize, Serialize};
+
+use crate::columns::FieldColumn;
+use crate::filter::{apply, Filter};
+use crate::mask::Mask;
+use crate::polygon::{items_inside, Polygon};
+use crate::CorpusError;
+
+/// What a step does with the items its shape covers.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Op {
+    /// The selection becomes these items.
+    Replace,
+    /// These items join the selection.
+    Add,
+    /// These items leave the selection.
+    Subtract,
+}
+
+/// The items a step covers.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Shape {
+    /// A freehand outline in map coordinates (even-odd rule, see [`crate::polygon`]).
+    Lasso(Polygon),
+    /// [x0, y0, x1, y1] in map coordinates.
+    Rect([f64; 4]),
+    /// Items by id (picked one by one).
+    Ids(Vec<String>),
+    /// Every item (the filters still narrow the corpus): "select all that match".
+    Everything(Everything),
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, Default)]
+pub struct Everything {}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Step {
+    pub op: Op,
+    #[serde(flatten)]
+    pub shape: Shape,
+}
+
+/// What replaying needs of the atlas.
+pub struct Lookup<'a> {
+    /// Positions on the map the steps were drawn on.
+    pub positions: &'a [[f32; 2]],
+    /// The item index of an id.
+    pub index_of: &'a dyn Fn(&str) -> Option<usize>,
+    /// Items near a map rectangle, in item order, when a spatial index can say (else every item
+    /// is tested).
+    pub near: Option<&'a dyn Fn([f64; 4]) -> Vec<u32>>,
+}
+
+/// The items a shape covers.
+pub fn covered(shape: &Shape, at: &Lookup) -> Result<Mask, CorpusError> {
+    let n = at.positions.len();
+    let inside = |p: &Polygon| {
+        let near = at.near.map(|f| f(p.bbox()));
+        Mask::from_items(n, items_inside(at.positions, p, near.as_deref()))
+    };
+    Ok(match shape {
+        Shape::Lasso(p) => {
+            p.check()?;
+            inside(p)
+        }
+        Shape::Rect(r) => inside(&Polygon::rect(*r)),
+        Shape::Ids(ids) => {
+            let mut m = Mask::none(n);
+            for id in ids {
+                let i = (at.index_of)(id).ok_or_else(|| {
+                    CorpusError::Invalid(format!("item {id:?} is not in this atlas"))
+                })?;
+                m.set(i, true);
+            }
+            m
+        }
+        Shape::Everything(_) => Mask::all(n),
+    })
+}
+
+/// The selection the steps make, or None when there are none (nothing chosen by hand).
+pub fn replay(steps: &[Step], at: &Lookup) -> Result<Option<Mask>, CorpusError> {
+    if steps.is_empty() {
+        return Ok(None);
+    }
+    let n = at.positions.len();
+    let mut sel = Mask::none(n);
+    for s in steps {
+        let m = covered(&s.shape, at)?;
+        match s.op {
+            Op::Replace => sel = m,
+            Op::Add => sel.or(&m),
+            Op::Subtract => sel.subtract(&m),
+        }
+    }
+    Ok(Some(sel))
+}
+
+/// The corpus: the selection narrowed by the filters; with no selection, what the filters leave.
+pub fn corpus_mask(
+    steps: &[Step],
+    filters: &[Filter],
+    cols: &[FieldColumn],
+    at: &Lookup,
+) -> Result<Mask, CorpusError> {
+    let n = at.positions.len();
+    let mut m = apply(filters, cols, n)?.all;
+    if let Some(sel) = replay(steps, at)? {
+        m.and(&sel);
+    }
+    Ok(m)
+}
+
+pub const CORPUS_FORMAT: &str = "vitrine-corpus";
+pub const CORPUS_VERSION: u32 = 1;
+
+/// The atlas a corpus was drawn from.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct AtlasRef {
+    pub title: String,
+    /// SHA-256 of the atlas's `atlas.json` bytes: another value means another atlas (or another
+    /// build of it), on which the steps may pick other items.
+    pub manifest_sha256: String,
+    pub item_count: u64,
+}
+
+/// Who made the corpus file, and when.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Made {
+    pub tool: String,
+    pub tool_version: String,
+    /// UTC, RFC 3339.
+    pub time: String,
+    /// "viewer" or "vitrine corpus".
+    pub by: String,
+}
+
+/// The corpus file: enough to rebuild the corpus (steps, map, filters) and to check it (the ids
+/// it gave). It is also the JSON export: the ids with the record of how they were chosen.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CorpusFile {
+    pub format: String,
+    pub format_version: u32,
+    pub atlas: AtlasRef,
+    /// The build's parameters and seed, as the atlas records them.
+    pub build: serde_json::Value,
+    /// The map the lassos and rectangles were drawn on.
+    pub map: String,
+    pub steps: Vec<Step>,
+    pub filters: Vec<Filter>,
+    pub count: usize,
+    /// The corpus's items by id, in atlas order.
+    pub ids: Vec<String>,
+    pub made: Made,
+}
+
+impl CorpusFile {
+    pub fn from_json(text: &str) -> Result<CorpusFile, CorpusError> {
+        let v: serde_json::Value =
+            serde_json::from_str(text).map_err(|e| CorpusError::Json(e.to_string()))?;
+        let format = v.get("format").and_then(|f| f.as_str()).unwrap_or("");
+        if format != CORPUS_FORMAT {
+            return Err(CorpusError::Invalid(format!(
+                "not a Vitrine corpus file (format = {format:?})"
+            )));
+        }
+        let version = v.get("format_version").and_then(|f| f.as_u64());
+        if version != Some(CORPUS_VERSION as u64) {
+            return Err(CorpusError::Invalid(format!(
+                "corpus format version {version:?} is not supported (this reader knows {CORPUS_VERSION})"
+            )));
+        }
+        let c: CorpusFile =
+            serde_json::from_value(v).map_err(|e| CorpusError::Json(e.to_string()))?;
+        if c.ids.len() != c.count {
+            return Err(CorpusError::Invalid(format!(
+                "the corpus file says {} items but lists {} ids",
+                c.count,
+                c.ids.len()
+            )));
+        }
+        for s in &c.steps {
+            if let Shape::Lasso(p) = &s.shape {
+                p.check()?;
+            }
+        }
+        Ok(c)
+    }
+
+    pub fn to_json(&self) -> String {
+        serde_json::to_string_pretty(self).expect("a corpus file serialises")
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn steps_replay_in_order_and_read_back_from_json() {
+        // A 10 x 10 grid of items at integer positions; id "p{x}-{y}".
+        let positions: Vec<[f32; 2]> = (0..100)
+            .map(|i| [(i % 10) as f32, (i / 10) as f32])
+            .collect();
+        let index_of = |id: &str| -> Option<usize> {
+            let (x, y) = id.strip_prefix('p')?.split_once('-')?;
+            Some(y.parse::<usize>().ok()? * 10 + x.parse::<usize>().ok()?)
+        };
+        let at = Lookup {
+            positions: &positions,
+            index_of: &index_of,
+            near: None,
+        };
+        let steps = vec![
+            Step {
+                op: Op::Replace,
+                shape: Shape::Rect([-0.5, -0.5, 4.5, 4.5]), // 25 items
+            },
+            Step {
+                op: Op::Subtract,
+                shape: Shape::Lasso(Polygon::parse("-1,-1 3.5,-1 -1,3.5").unwrap()), // x + y < 2.5: 6 items
+            },
+            Step {
+                op: Op::Add,
+                shape: Shape::Ids(vec!["p9-9".into()]),
+            },
+        ];
+        let sel = replay(&steps, &at).unwrap().unwrap();
+        assert_eq!(sel.count(), 25 - 6 + 1);
+        assert!(sel.get(99) && !sel.get(0) && sel.get(44));
+        assert_eq!(replay(&[], &at).unwrap(), None);
+        let json = serde_json::to_string(&steps).unwrap();
+        assert!(json.contains(r#"{"op":"add","ids":["p9-9"]}"#), "{json}");
+        let back: Vec<Step> = serde_json::from_str(&json).unwrap();
+        assert_eq!(back, steps);
+        let e = replay(
+            &[Step {
+                op: Op::Add,
+                shape: Shape::Ids(vec!["nowhere".into()]),
+            }],
+            &at,
+        )
+        .unwrap_err();
+        assert!(e.to_string().contains("\"nowhere\""), "{e}");
+    }
+}
+
+/// How the corpus was chosen, in one line (for summaries and the page).
+pub fn describe(map: &str, steps: &[Step], filters: &[Filter]) -> String {
+    let mut parts = Vec::new();
+    for s in steps {
+        let what = match &s.shape {
+            Shape::Lasso(p) => format!("a lasso of {} vertices on the {map} map", p.0.len()),
+            Shape::Rect(_) => format!("a rectangle on the {map} map"),
+            Shape::Ids(ids) if ids.len() == 1 => format!("item {}", ids[0]),
+            Shape::Ids(ids) => format!("{} items by id", ids.len()),
+            Shape::Everything(_) => "every item".to_string(),
+        };
+        parts.push(match s.op {
+            Op::Replace => format!("selected {what}"),
+            Op::Add => format!("added {what}"),
+            Op::Subtract => format!("removed {what}"),
+        });
+    }
+    let chips: Vec<String> = filters
+        .iter()
+        .map(|f| match f {
+            Filter::Category { field, values } => format!("{field} = {}", values.join(" or ")),
+            Filter::Range { field, min, max } => {
+                let b = |v: &Option<f64>| v.map(|x| x.to_string()).unwrap_or_default();
+                format!("{field} {}..{}", b(min), b(max))
+            }
+            Filter::Date {
+                field,
+                from,
+                to,
+                rule,
+            } => format!(
+                "{field} {from}..{to} ({})",
+                match rule {
+                    crate::filter::DateRule::Overlap => "overlapping",
+                    crate::filter::DateRule::Within => "within",
+                }
+            ),
+            Filter::Text { fields, query } if fields.is_empty() => format!("text \"{query}\""),
+            Filter::Text { fields, query } => format!("\"{query}\" in {}", fields.join(", ")),
+        })
+        .collect();
+    let mut out = if parts.is_empty() {
+        "all items".to_string()
+    } else {
+        parts.join("; ")
+    };
+    if !chips.is_empty() {
+        out.push_str(&format!(", filtered by {}", chips.join(" and ")));
+    }
+    out
+}

@@ -1,0 +1,168 @@
+//! Lassos and rectangles in map coordinates.
+//!
+//! Fill rule: **even-odd**. A point is inside a lasso when a ray from it crosses the lasso's
+//! outline an odd number of times. A lasso that crosses itself therefore leaves out the parts it
+//! wraps twice (the centre of a five-pointed star drawn in one stroke is outside), which is what
+//! one sees when the outline is drawn. Points exactly on the outline may fall either way.
+
+use serde::{Deserialize, Serialize};
+
+use crate::CorpusError;
+
+/// A closed polygon in map coordinates: the last vertex joins the first.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(transparent)]
+pub struct Polygon(pub Vec<[f64; 2]>);
+
+impl Polygon {
+    /// Reads "x1,y1 x2,y2 x3,y3 ..." (at least three vertices).
+    pub fn parse(s: &str) -> Result<Polygon, CorpusError> {
+        let mut pts = Vec::new();
+        for (k, pair) in s.split_whitespace().enumerate() {
+            let bad = || {
+                CorpusError::Invalid(format!(
+                    "lasso vertex {} ({pair:?}) is not \"x,y\" with two finite numbers",
+                    k + 1
+                ))
+            };
+            let (x, y) = pair.split_once(',').ok_or_else(bad)?;
+            let x: f64 = x.trim().parse().map_err(|_| bad())?;
+            let y: f64 = y.trim().parse().map_err(|_| bad())?;
+            if !x.is_finite() || !y.is_finite() {
+                return Err(bad());
+            }
+            pts.push([x, y]);
+        }
+        let p = Polygon(pts);
+        p.check()?;
+        Ok(p)
+    }
+
+    /// At least three vertices, all finite.
+    pub fn check(&self) -> Result<(), CorpusError> {
+        if self.0.len() < 3 {
+            return Err(CorpusError::Invalid(format!(
+                "a lasso needs at least 3 vertices, this one has {}",
+                self.0.len()
+            )));
+        }
+        if self.0.iter().flatten().any(|v| !v.is_finite()) {
+            return Err(CorpusError::Invalid(
+                "a lasso vertex is not a finite number".into(),
+            ));
+        }
+        Ok(())
+    }
+
+    /// The rectangle [x0, y0, x1, y1] as a polygon.
+    pub fn rect(r: [f64; 4]) -> Polygon {
+        let (x0, x1) = (r[0].min(r[2]), r[0].max(r[2]));
+        let (y0, y1) = (r[1].min(r[3]), r[1].max(r[3]));
+        Polygon(vec![[x0, y0], [x1, y0], [x1, y1], [x0, y1]])
+    }
+
+    /// [min_x, min_y, max_x, max_y].
+    pub fn bbox(&self) -> [f64; 4] {
+        let mut b = [
+            f64::INFINITY,
+            f64::INFINITY,
+            f64::NEG_INFINITY,
+            f64::NEG_INFINITY,
+        ];
+        for p in &self.0 {
+            b[0] = b[0].min(p[0]);
+            b[1] = b[1].min(p[1]);
+            b[2] = b[2].max(p[0]);
+            b[3] = b[3].max(p[1]);
+        }
+        b
+    }
+
+    /// Whether `p` is inside, by the even-odd rule (crossings of a ray towards +x).
+    pub fn contains(&self, p: [f64; 2]) -> bool {
+        let v = &self.0;
+        let mut inside = false;
+        let mut j = v.len() - 1;
+        for i in 0..v.len() {
+            let (a, b) = (v[i], v[j]);
+            // Edges that straddle the ray's line (half-open in y, so a vertex counts once).
+            if (a[1] > p[1]) != (b[1] > p[1]) {
+                let x = a[0] + (p[1] - a[1]) * (b[0] - a[0]) / (b[1] - a[1]);
+                if p[0] < x {
+                    inside = !inside;
+                }
+            }
+            j = i;
+        }
+        inside
+    }
+
+    /// The outline as "x1,y1 x2,y2 ..." (what [`Polygon::parse`] reads).
+    pub fn to_text(&self) -> String {
+        self.0
+            .iter()
+            .map(|p| format!("{},{}", p[0], p[1]))
+            .collect::<Vec<_>>()
+            .join(" ")
+    }
+}
+
+/// The items (from `candidates`, or every item) whose position is inside the polygon, in item
+/// order. The bounding box is tested first: most items of a large map fail it at once.
+pub fn items_inside(
+    positions: &[[f32; 2]],
+    poly: &Polygon,
+    candidates: Option<&[u32]>,
+) -> Vec<usize> {
+    let b = poly.bbox();
+    let test = |i: usize| {
+        let p = positions[i];
+        let (x, y) = (p[0] as f64, p[1] as f64);
+        x >= b[0] && x <= b[2] && y >= b[1] && y <= b[3] && poly.contains([x, y])
+    };
+    match candidates {
+        Some(c) => c.iter().map(|&i| i as usize).filter(|&i| test(i)).collect(),
+        None => (0..positions.len()).filter(|&i| test(i)).collect(),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_star_drawn_in_one_stroke_leaves_its_centre_out() {
+        // Five points on a circle joined every second one: the pentagram. Worked example: its
+        // centre is wrapped twice (winding number 2), so even-odd puts it outside; the tips are in.
+        let pts: Vec<[f64; 2]> = (0..5)
+            .map(|k| {
+                let a =
+                    std::f64::consts::FRAC_PI_2 + (2 * k) as f64 * 2.0 * std::f64::consts::PI / 5.0;
+                [a.cos(), a.sin()]
+            })
+            .collect();
+        let star = Polygon(pts);
+        assert!(!star.contains([0.0, 0.0]));
+        assert!(star.contains([0.0, 0.8]));
+        assert!(!star.contains([2.0, 0.0]));
+    }
+
+    #[test]
+    fn a_bow_tie_holds_both_wings_and_not_beyond() {
+        let tie = Polygon::parse("0,0 2,2 2,0 0,2").unwrap();
+        assert!(tie.contains([0.3, 1.0]) && tie.contains([1.7, 1.0]));
+        assert!(!tie.contains([1.0, 0.2]) && !tie.contains([1.0, 1.8]));
+    }
+
+    #[test]
+    fn bad_lassos_are_refused_with_the_vertex_named() {
+        let e = Polygon::parse("0,0 1,1").unwrap_err().to_string();
+        assert!(e.contains("at least 3"), "{e}");
+        let e = Polygon::parse("0,0 1,x 2,2").unwrap_err().to_string();
+        assert!(e.contains("vertex 2") && e.contains("1,x"), "{e}");
+        let e = Polygon::parse("0,0 1,1 inf,2").unwrap_err().to_string();
+        assert!(e.contains("vertex 3"), "{e}");
+        let p = Polygon::parse("0,0 3.5,0 3.5,-2").unwrap();
+        assert_eq!(Polygon::parse(&p.to_text()).unwrap(), p);
+    }
+}
