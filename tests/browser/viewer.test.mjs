@@ -3,7 +3,7 @@
 // VITRINE_CATALOGUE (the CSV it was built from). Screenshots go to tests/artifacts/.
 import { test, before, after } from "node:test";
 import assert from "node:assert/strict";
-import { spawn } from "node:child_process";
+import { execFileSync, spawn } from "node:child_process";
 import fs from "node:fs";
 import os from "node:os";
 import path from "node:path";
@@ -299,6 +299,88 @@ test("the demo atlas loads on software WebGL, draws marks, then thumbnails, and 
   await page.waitForFunction(() => document.getElementById("axis").hidden);
   assert.deepEqual(errors, []);
   await page.close();
+});
+
+test("a lasso selects, Shift and Alt lassos add and take away, and the corpus exports and replays natively", async () => {
+  const url = await serve(ATLAS);
+  const { page, errors } = await newPage(url);
+  await page.waitForFunction(() => document.body.dataset.state === "ready", null, { timeout: 60000 });
+  const box = await page.locator("#map").boundingBox();
+  const selected = () => page.evaluate(() => Number(document.body.dataset.selected || 0));
+  const draw = async (pts, modifier) => {
+    if (modifier) await page.keyboard.down(modifier);
+    await page.mouse.move(box.x + pts[0][0], box.y + pts[0][1]);
+    await page.mouse.down();
+    for (const p of [...pts.slice(1), pts[0]]) await page.mouse.move(box.x + p[0], box.y + p[1], { steps: 10 });
+    await page.mouse.up();
+    if (modifier) await page.keyboard.up(modifier);
+  };
+  // Lasso mode: a drag draws a lasso; the count is live in the bar and the tray.
+  await page.keyboard.press("l");
+  assert.equal(await page.evaluate(() => document.body.dataset.mode), "lasso");
+  await draw([[400, 250], [800, 220], [900, 500], [600, 650], [350, 520]]);
+  await page.waitForFunction(() => Number(document.body.dataset.selected) > 0);
+  const first = await selected();
+  assert.ok(first > 100 && first < 6000, `${first} selected`);
+  assert.equal(await page.locator("#selected-count").innerText(), `${first} selected`);
+  assert.ok(await page.locator("#tray").isVisible());
+  await page.screenshot({ path: path.join(ARTIFACTS, "09-lasso-selection.png") });
+  // Back to moving the map: Shift-drag adds a second region, Alt-drag takes part of it away.
+  await page.keyboard.press("Escape");
+  assert.equal(await page.evaluate(() => document.body.dataset.mode), "move");
+  await draw([[950, 100], [1250, 100], [1250, 400], [950, 400]], "Shift");
+  const added = await selected();
+  assert.ok(added > first, `Shift-lasso: ${added} after ${first}`);
+  await draw([[380, 240], [620, 240], [620, 660], [380, 660]], "Alt");
+  const taken = await selected();
+  assert.ok(taken < added, `Alt-lasso: ${taken} after ${added}`);
+  // Undo and redo walk the steps.
+  await page.keyboard.press("Control+z");
+  assert.equal(await selected(), added);
+  await page.keyboard.press("Control+Shift+z");
+  assert.equal(await selected(), taken);
+
+  // Export: the corpus file and the CSV download; `vitrine corpus --from` replays the file on
+  // the same atlas natively (it fails unless the replay gives the file's ids) and writes the
+  // same CSV bytes.
+  const dir = fs.mkdtempSync(path.join(os.tmpdir(), "vitrine-corpus-"));
+  const save = async (button, name) => {
+    const [d] = await Promise.all([page.waitForEvent("download"), page.click(button)]);
+    await d.saveAs(path.join(dir, name));
+    return path.join(dir, name);
+  };
+  const json = await save("#export-json", "corpus.json");
+  const csvFile = await save("#export-csv", "corpus.csv");
+  const corpus = JSON.parse(fs.readFileSync(json, "utf8"));
+  assert.equal(corpus.count, taken);
+  assert.deepEqual(corpus.steps.map((s) => s.op), ["replace", "add", "subtract"]);
+  assert.equal(corpus.steps[0].lasso.length > 20, true, "the lasso's outline is in map coordinates");
+  const out = execFileSync(BIN, ["corpus", ATLAS, "--from", json, "--csv", path.join(dir, "native.csv")],
+    { encoding: "utf8" });
+  assert.ok(out.startsWith(`${taken} items`), out);
+  assert.ok(fs.readFileSync(csvFile).equals(fs.readFileSync(path.join(dir, "native.csv"))),
+    "the viewer's CSV equals the native one");
+  const rows = readCsv(fs.readFileSync(csvFile, "utf8"));
+  assert.equal(rows.length, taken);
+  assert.deepEqual(rows.map((r) => r.id), corpus.ids);
+
+  // Ctrl-click on an item takes it out of the selection (or adds it); again puts it back.
+  const [cx, cy] = await page.evaluate((id) => window.vitrineView.screen_position_of(id), corpus.ids[0]);
+  await page.mouse.move(box.x + cx, box.y + cy);
+  await page.keyboard.down("Control");
+  await page.mouse.click(box.x + cx, box.y + cy);
+  assert.equal(Math.abs((await selected()) - taken), 1, "Ctrl-click toggles one item");
+  await page.mouse.click(box.x + cx, box.y + cy);
+  await page.keyboard.up("Control");
+  assert.equal(await selected(), taken);
+
+  // Clearing empties the selection (the tray goes); undo brings it back.
+  await page.keyboard.press("x");
+  assert.equal(await page.evaluate(() => document.body.dataset.selected), "");
+  assert.ok(!(await page.locator("#tray").isVisible()));
+  await page.keyboard.press("Control+z");
+  assert.equal(await selected(), taken);
+  assert.deepEqual(errors, []);
 });
 
 test("where the browser offers WebGPU the viewer draws with it, the same pixels as with WebGL2", async () => {

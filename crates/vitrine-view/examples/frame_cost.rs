@@ -36,6 +36,7 @@ fn main() {
             camera: &cam,
             hover: None,
             open: None,
+            tones: None,
             theme: READING_ROOM,
         };
         let mut times = Vec::new();

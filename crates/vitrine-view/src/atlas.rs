@@ -38,6 +38,8 @@ pub struct AtlasData {
     /// Whether the ids and catalogue columns are loaded (they arrive after the first picture;
     /// until then `ids` and `fields` are empty).
     pub catalogue: bool,
+    /// The original images' widths and heights (pairs per item; 0, 0 unknown), with the catalogue.
+    pub image_sizes: Vec<u32>,
 }
 
 fn get_file<'a>(
@@ -276,6 +278,7 @@ impl AtlasData {
             extents,
             manifest,
             catalogue: false,
+            image_sizes: Vec::new(),
         };
         if later {
             atlas.complete(files)?;
@@ -294,6 +297,11 @@ impl AtlasData {
         };
         let ids = text(&m.ids, &m.ids_text)?;
         let fields = vitrine_corpus::columns::decode_fields(m, get)?;
+        let image_sizes = match m.sheets.as_ref().and_then(|s| s.image_sizes.as_ref()) {
+            Some(r) => r.decode(get(r)?)?,
+            None => Vec::new(),
+        };
+        self.image_sizes = image_sizes;
         self.ids = ids;
         self.fields = fields;
         self.catalogue = true;

@@ -12,6 +12,7 @@ pub mod camera;
 pub mod grid;
 pub mod pick;
 pub mod raster;
+pub mod selection;
 
 #[cfg(any(target_arch = "wasm32", feature = "native-gpu"))]
 pub mod present;

@@ -185,8 +185,19 @@ pub struct FrameStats {
     pub side_px: f64,
 }
 
+/// How each item is drawn while a selection or filters are shown.
+pub struct Tones {
+    /// Per item: its mark colour, already mixed towards the paper when dimmed; alpha 0 means the
+    /// item is not drawn.
+    pub colours: Vec<[u8; 4]>,
+    /// Per item: the weight of its own picture out of 256 (the rest is paper); 0 = not drawn.
+    pub weight: Vec<u16>,
+}
+
 pub struct Scene<'a> {
     pub atlas: &'a AtlasData,
+    /// Dimmed and hidden items (None: every item drawn in full).
+    pub tones: Option<&'a Tones>,
     /// The current map's grid: with it, a zoomed-in frame visits only the items near the screen.
     pub grid: Option<&'a crate::grid::Grid>,
     pub sheets: &'a SheetStore,
@@ -197,6 +208,14 @@ pub struct Scene<'a> {
 }
 
 impl Scene<'_> {
+    /// The mark colour of every item as this frame draws it.
+    pub fn mark_colours(&self) -> &[[u8; 4]] {
+        match self.tones {
+            Some(t) => &t.colours,
+            None => &self.atlas.colours,
+        }
+    }
+
     /// The side of an item's square on screen, in pixels.
     pub fn side_px(&self) -> f64 {
         self.atlas.spacing * self.camera.zoom * 0.92
@@ -334,6 +353,7 @@ fn draw_marks<I: Iterator<Item = usize>>(
     w: usize,
     clip: [usize; 4],
     atlas: &AtlasData,
+    colours: &[[u8; 4]],
     cam: &Camera,
     reach: f64,
     items: I,
@@ -349,7 +369,9 @@ fn draw_marks<I: Iterator<Item = usize>>(
             // A buffer not aligned to 4 bytes (never seen): drawn in an aligned copy.
             let mut copy: Vec<u32> = bytemuck::pod_collect_to_vec(buf);
             let copy_bytes: &mut [u8] = bytemuck::cast_slice_mut(&mut copy);
-            draw_marks(copy_bytes, w, clip, atlas, cam, reach, items, stats);
+            draw_marks(
+                copy_bytes, w, clip, atlas, colours, cam, reach, items, stats,
+            );
             buf.copy_from_slice(copy_bytes);
             return;
         }
@@ -364,7 +386,10 @@ fn draw_marks<I: Iterator<Item = usize>>(
         let x1 = px(sx + reach).clamp(x0, clip[2]);
         let y0 = px(sy - reach).clamp(clip[1], clip[3]);
         let y1 = px(sy + reach).clamp(y0, clip[3]);
-        let c = atlas.colours[i];
+        let c = colours[i];
+        if c[3] == 0 {
+            continue;
+        }
         let c = u32::from_le_bytes([c[0], c[1], c[2], 255]);
         for y in y0..y1 {
             px_buf[y * w + x0..y * w + x1].fill(c);
@@ -379,18 +404,22 @@ fn draw_marks_of(
     buf: &mut [u8],
     w: usize,
     clip: [usize; 4],
-    atlas: &AtlasData,
+    scene: &Scene,
     cam: &Camera,
     reach: f64,
     culled: Option<&[u32]>,
     stats: &mut FrameStats,
 ) {
+    let (atlas, colours) = (scene.atlas, scene.mark_colours());
     match culled {
         Some(near) => {
             let items = near.iter().map(|&i| i as usize);
-            draw_marks(buf, w, clip, atlas, cam, reach, items, stats)
+            draw_marks(buf, w, clip, atlas, colours, cam, reach, items, stats)
         }
-        None => draw_marks(buf, w, clip, atlas, cam, reach, 0..atlas.n, stats),
+        None => {
+            let items = 0..atlas.n;
+            draw_marks(buf, w, clip, atlas, colours, cam, reach, items, stats)
+        }
     }
 }
 
@@ -552,7 +581,7 @@ pub fn draw_with_layer(
         match level {
             None => {
                 let mut drawn = FrameStats::default();
-                draw_marks_of(pixels, w, clip, atlas, &cam, reach, culled, &mut drawn);
+                draw_marks_of(pixels, w, clip, scene, &cam, reach, culled, &mut drawn);
                 stats.visited += drawn.visited;
                 if full {
                     layer.marks = drawn.marks;
@@ -680,9 +709,16 @@ fn draw_thumbnails<I: Iterator<Item = usize>>(
     let side = scene.side_px();
     let margin = side.max(8.0);
     let fade = fade_weight(side);
+    let colours = scene.mark_colours();
+    let paper = scene.theme.paper;
     let [cx0, cy0, cx1, cy1] = clip.map(|v| v as f64);
     for i in items {
         stats.visited += 1;
+        // Dimmed items show their picture mixed with the paper; hidden ones nothing.
+        let weight = scene.tones.map_or(256, |t| t.weight[i]);
+        if weight == 0 {
+            continue;
+        }
         let r = scene.item_rect(i);
         if r[2] < cx0 - margin || r[0] > cx1 + margin || r[3] < cy0 - margin || r[1] > cy1 + margin
         {
@@ -707,7 +743,11 @@ fn draw_thumbnails<I: Iterator<Item = usize>>(
             Some((l, s, sheet)) => {
                 if let Some(buf) = buf.as_deref_mut() {
                     let cell = sheets.cell(l, i, atlas.extents[i]);
-                    let fade = fade.map(|t| (rgb(atlas.colours[i]), t));
+                    let fade = if weight < 256 {
+                        Some((paper, weight as u32))
+                    } else {
+                        fade.map(|t| (rgb(atlas.colours[i]), t))
+                    };
                     blit(buf, w, clip, r, sheet, cell, fade);
                 }
                 stats.thumbnails += 1;
@@ -719,7 +759,7 @@ fn draw_thumbnails<I: Iterator<Item = usize>>(
                     wanted.insert((0, sheets.sheet_of(0, i)));
                 }
                 if let Some(buf) = buf.as_deref_mut() {
-                    fill_rect_in(buf, w, clip, r, rgb(atlas.colours[i]));
+                    fill_rect_in(buf, w, clip, r, rgb(colours[i]));
                 }
                 stats.marks += 1;
             }
@@ -743,6 +783,7 @@ fn draw_on_top(
         w,
         [0, 0, w, h],
         scene.atlas,
+        scene.mark_colours(),
         scene.camera,
         reach,
         items,
@@ -799,7 +840,7 @@ pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
         let cam = scene.camera;
         let clip = [0, 0, w, h];
         let culled = culled.then_some(near.as_slice());
-        draw_marks_of(buf, w, clip, atlas, cam, reach, culled, &mut stats);
+        draw_marks_of(buf, w, clip, scene, cam, reach, culled, &mut stats);
         draw_on_top(scene, buf, w, h, reach, &mut stats);
         return stats;
     };

@@ -68,7 +68,25 @@ struct App {
     layer: raster::MarkLayer,
     base_zoom: f64,
     first_full: bool,
+    /// What a drag does: move the map, or draw a lasso or a box to select with.
+    mode: select::Mode,
+    selection: crate::selection::Selection,
+    /// The map the selection's steps were drawn on.
+    selection_map: usize,
+    /// The lasso or box being drawn.
+    sketch: Option<select::Sketch>,
+    /// How items are dimmed for the selection (None: nothing chosen).
+    tones: Option<raster::Tones>,
+    /// Changes with `tones`: the kept layer is redrawn.
+    tones_generation: u64,
+    /// Item index by id (made when a step names items).
+    id_index: Option<HashMap<String, usize>>,
+    /// SHA-256 of the atlas.json text, for the corpus file.
+    manifest_sha: String,
 }
+
+#[path = "web_select.rs"]
+mod select;
 
 struct Drag {
     start: [f64; 2],
@@ -358,6 +376,7 @@ impl App {
             camera: &self.camera,
             hover: self.hover,
             open: self.open,
+            tones: self.tones.as_ref(),
             theme: READING_ROOM,
         }
     }
@@ -374,8 +393,8 @@ impl App {
         let mut pixels = std::mem::take(&mut self.pixels);
         let t0 = now();
         let mut layer = std::mem::take(&mut self.layer);
-        // The marks depend on the map shown (and, later, on what filters leave).
-        let key = self.atlas.current as u64;
+        // The kept items depend on the map shown and on how the selection dims them.
+        let key = self.atlas.current as u64 | self.tones_generation << 8;
         let stats = raster::draw_with_layer(
             &self.scene(),
             &mut layer,
@@ -936,6 +955,16 @@ fn install_events(canvas: &HtmlCanvasElement) {
             if let Some(app) = app() {
                 let mut a = app.borrow_mut();
                 a.pointers.insert(e.pointer_id(), p);
+                let sketch = select::sketch_for(a.mode, e.shift_key(), e.alt_key());
+                if a.pointers.len() == 1 {
+                    if let Some(mut s) = sketch {
+                        s.extend(p);
+                        a.sketch = Some(s);
+                        a.drag = None;
+                        return;
+                    }
+                }
+                a.sketch = None;
                 if a.pointers.len() == 2 {
                     let v: Vec<[f64; 2]> = a.pointers.values().copied().collect();
                     a.pinch =
@@ -964,6 +993,11 @@ fn install_events(canvas: &HtmlCanvasElement) {
                 let mut a = app.borrow_mut();
                 if a.pointers.contains_key(&e.pointer_id()) {
                     a.pointers.insert(e.pointer_id(), p);
+                }
+                if let Some(s) = a.sketch.as_mut() {
+                    s.extend(p);
+                    select::draw_sketch(a.sketch.as_ref());
+                    return;
                 }
                 if a.pointers.len() == 2 {
                     let v: Vec<[f64; 2]> = a.pointers.values().copied().collect();
@@ -1009,18 +1043,28 @@ fn install_events(canvas: &HtmlCanvasElement) {
         move |e: web_sys::PointerEvent| {
             let p = pointer_pos(&c, e.client_x() as f64, e.client_y() as f64);
             let Some(app) = app() else { return };
-            let click = {
+            let (click, sketch) = {
                 let mut a = app.borrow_mut();
                 a.pointers.remove(&e.pointer_id());
                 if a.pointers.len() < 2 {
                     a.pinch = None;
                 }
                 let drag = a.drag.take();
-                drag.is_some_and(|d| !d.moved)
+                (drag.is_some_and(|d| !d.moved), a.sketch.take())
             };
-            if click {
+            if let Some(mut s) = sketch {
+                s.extend(p);
+                select::finish(s, p);
+            } else if click {
                 let i = app.borrow().pick(p);
-                open_card(i);
+                if e.ctrl_key() || e.meta_key() {
+                    // Ctrl-click (Cmd-click) adds the item to the selection or takes it out.
+                    if let Some(i) = i {
+                        select::toggle(i);
+                    }
+                } else {
+                    open_card(i);
+                }
             }
         },
     );
@@ -1034,7 +1078,9 @@ fn install_events(canvas: &HtmlCanvasElement) {
                 a.pointers.remove(&e.pointer_id());
                 a.drag = None;
                 a.pinch = None;
+                a.sketch = None;
             }
+            select::draw_sketch(None);
         },
     );
     listen(
@@ -1056,7 +1102,23 @@ fn install_events(canvas: &HtmlCanvasElement) {
         "keydown",
         false,
         move |e: web_sys::KeyboardEvent| {
-            if e.ctrl_key() || e.meta_key() || e.alt_key() {
+            let typing = e
+                .target()
+                .and_then(|t| t.dyn_into::<web_sys::HtmlElement>().ok())
+                .is_some_and(|t| matches!(t.tag_name().as_str(), "INPUT" | "TEXTAREA" | "SELECT"));
+            if typing {
+                return;
+            }
+            if e.ctrl_key() || e.meta_key() {
+                match e.key().to_lowercase().as_str() {
+                    "z" => select::undo(e.shift_key()),
+                    "y" => select::undo(true),
+                    _ => return,
+                }
+                e.prevent_default();
+                return;
+            }
+            if e.alt_key() {
                 return;
             }
             let step = 80.0;
@@ -1069,7 +1131,18 @@ fn install_events(canvas: &HtmlCanvasElement) {
                 "ArrowRight" => pan(-step, 0.0),
                 "ArrowUp" => pan(0.0, step),
                 "ArrowDown" => pan(0.0, -step),
-                "Escape" => open_card(None),
+                "Escape" => {
+                    let selecting = app().is_some_and(|a| a.borrow().mode != select::Mode::Move);
+                    if selecting {
+                        select::set_mode(select::Mode::Move);
+                    } else {
+                        open_card(None);
+                    }
+                }
+                "l" => select::set_mode(select::Mode::Lasso),
+                "b" => select::set_mode(select::Mode::Box),
+                "a" => select::everything(),
+                "x" => select::clear(),
                 "m" => {
                     if let Some(app) = app() {
                         let next = {
@@ -1142,6 +1215,7 @@ async fn load(base: String) -> Result<(), String> {
     };
     let manifest =
         vitrine_format::Manifest::from_json(&text).map_err(|e| format!("atlas.json: {e}"))?;
+    let manifest_sha = vitrine_format::sha256_hex(text.as_bytes());
     // What the first picture needs comes first; ids, neighbour lists and catalogue columns are
     // fetched while the map is already on screen.
     let first = AtlasData::first_files(&manifest);
@@ -1251,9 +1325,18 @@ async fn load(base: String) -> Result<(), String> {
         layer: Default::default(),
         base_zoom,
         first_full: false,
+        mode: select::Mode::Move,
+        selection: Default::default(),
+        selection_map: 0,
+        sketch: None,
+        tones: None,
+        tones_generation: 0,
+        id_index: None,
+        manifest_sha,
     };
     APP.with(|a| *a.borrow_mut() = Some(Rc::new(RefCell::new(app))));
     install_events(&canvas);
+    select::install();
     if let Some(l) = by_id("loading") {
         l.set_hidden(true);
     }

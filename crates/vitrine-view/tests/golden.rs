@@ -319,6 +319,7 @@ fn each_level_of_detail_draws_its_stored_picture_through_wgpu() {
             camera: &camera,
             hover,
             open,
+            tones: None,
             theme: READING_ROOM,
         };
         let mut cpu = vec![0u8; (W * H * 4) as usize];

@@ -87,6 +87,7 @@ fn zoom_changes_what_is_drawn_and_thumbnails_are_the_right_pictures() {
         camera: &cam,
         hover: None,
         open: None,
+        tones: None,
         theme: READING_ROOM,
     };
     let s = draw(&scene, &mut buf, w, h);
@@ -107,6 +108,7 @@ fn zoom_changes_what_is_drawn_and_thumbnails_are_the_right_pictures() {
         camera: &cam,
         hover: Some(10),
         open: None,
+        tones: None,
         theme: READING_ROOM,
     };
     let s = draw(&scene, &mut buf, w, h);
@@ -154,6 +156,7 @@ fn zoom_changes_what_is_drawn_and_thumbnails_are_the_right_pictures() {
         camera: &cam,
         hover: Some(10),
         open: None,
+        tones: None,
         theme: READING_ROOM,
     };
     let s = draw(&scene, &mut buf, w, h);
@@ -173,6 +176,7 @@ fn zoom_changes_what_is_drawn_and_thumbnails_are_the_right_pictures() {
         camera: &cam,
         hover: None,
         open: None,
+        tones: None,
         theme: READING_ROOM,
     };
     let s = draw(&scene, &mut buf, w, h);
@@ -301,6 +305,7 @@ fn kept_marks_give_the_pixels_of_a_full_draw_while_drawing_only_what_came_into_v
             camera: &cam,
             hover,
             open: None,
+            tones: None,
             theme: READING_ROOM,
         };
         let mut want = vec![0u8; w * h * 4];
@@ -331,6 +336,7 @@ fn kept_marks_give_the_pixels_of_a_full_draw_while_drawing_only_what_came_into_v
         camera: &cam,
         hover: None,
         open: None,
+        tones: None,
         theme: READING_ROOM,
     };
     let mut got = vec![0u8; w * h * 4];
@@ -435,6 +441,7 @@ fn kept_thumbnails_give_the_pixels_of_a_full_draw_and_a_new_sheet_redraws_them()
                     camera: &cam,
                     hover,
                     open: None,
+                    tones: None,
                     theme: READING_ROOM,
                 },
                 &mut vec![0u8; w * h * 4],
@@ -463,6 +470,7 @@ fn kept_thumbnails_give_the_pixels_of_a_full_draw_and_a_new_sheet_redraws_them()
             camera: &cam,
             hover,
             open: Some(12),
+            tones: None,
             theme: READING_ROOM,
         };
         let mut want = vec![0u8; w * h * 4];
@@ -489,4 +497,57 @@ fn kept_thumbnails_give_the_pixels_of_a_full_draw_and_a_new_sheet_redraws_them()
         }
     }
     assert_eq!(partial, 4);
+}
+
+#[test]
+fn a_selection_dims_the_rest_and_hidden_items_leave_paper() {
+    use vitrine_corpus::mask::Mask;
+    use vitrine_view::selection::{tones, UNSELECTED_WEIGHT};
+    let dir = tempfile::tempdir().unwrap();
+    let atlas = fixture(dir.path());
+    let group = |i: usize| atlas.ids.get(i).parse::<usize>().unwrap() / 30;
+    let (w, h) = (400usize, 300usize);
+    let sheets = load_sheets(&atlas, dir.path(), &[0, 1]);
+    let selected = Mask::from_fn(atlas.n, |i| group(i) == 0);
+    let passing = Mask::from_fn(atlas.n, |i| group(i) != 2);
+    let paper = READING_ROOM.paper;
+    let t = tones(&atlas.colours, paper, Some(&selected), Some(&passing), true).unwrap();
+    let mix = |c: u8, p: u8, wt: u32| ((c as u32 * wt + p as u32 * (256 - wt) + 128) >> 8) as u8;
+    for zoom in [4.0, 100.0] {
+        // Zoomed out (marks) and in (thumbnails), one item of each group in the middle.
+        for g in 0..3 {
+            let i = (0..atlas.n).find(|&i| group(i) == g).unwrap();
+            let p = atlas.positions[i];
+            let cam = Camera {
+                centre: [p[0] as f64, p[1] as f64],
+                zoom: zoom / atlas.spacing,
+                size: [w as f64, h as f64],
+            };
+            let scene = Scene {
+                atlas: &atlas,
+                tones: Some(&t),
+                grid: None,
+                sheets: &sheets,
+                camera: &cam,
+                hover: None,
+                open: None,
+                theme: READING_ROOM,
+            };
+            let mut buf = vec![0u8; w * h * 4];
+            draw(&scene, &mut buf, w, h);
+            let c = pixel(&buf, w, w as f64 / 2.0, h as f64 / 2.0);
+            let own = COLOURS[g];
+            let want = match g {
+                0 => own,
+                1 => [0, 1, 2].map(|k| mix(own[k], paper[k], UNSELECTED_WEIGHT as u32)),
+                _ => paper,
+            };
+            // The items sit on top of one another near the group's middle: only groups' colours
+            // (and JPEG noise in thumbnails) are involved, so a small tolerance suffices.
+            assert!(
+                close(c, want, 18),
+                "zoom {zoom}, group {g}: {c:?} vs {want:?}"
+            );
+        }
+    }
 }

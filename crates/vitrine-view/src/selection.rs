@@ -1,0 +1,220 @@
+//! The selection as the viewer holds it: steps with undo and redo, the items they pick, and how
+//! every item is drawn given the selection and the filters. Plain Rust, no DOM.
+
+use vitrine_corpus::corpus::{covered, replay, Lookup, Op, Step};
+use vitrine_corpus::mask::Mask;
+use vitrine_corpus::CorpusError;
+
+use crate::raster::Tones;
+
+/// Selection steps on the map shown, with their history.
+#[derive(Default)]
+pub struct Selection {
+    steps: Vec<Step>,
+    past: Vec<Vec<Step>>,
+    future: Vec<Vec<Step>>,
+    mask: Option<Mask>,
+    /// Changes whenever the selected items may have changed.
+    pub generation: u64,
+}
+
+impl Selection {
+    pub fn steps(&self) -> &[Step] {
+        &self.steps
+    }
+
+    /// The selected items, or None when nothing has been chosen.
+    pub fn mask(&self) -> Option<&Mask> {
+        self.mask.as_ref()
+    }
+
+    /// Applies a step (a lasso, a rectangle, items by id, everything) to the selection.
+    pub fn push(&mut self, step: Step, at: &Lookup) -> Result<(), CorpusError> {
+        let m = covered(&step.shape, at)?;
+        let n = at.positions.len();
+        let mut sel = self.mask.take().unwrap_or_else(|| Mask::none(n));
+        match step.op {
+            Op::Replace => sel = m,
+            Op::Add => sel.or(&m),
+            Op::Subtract => sel.subtract(&m),
+        }
+        self.past.push(self.steps.clone());
+        self.future.clear();
+        self.steps.push(step);
+        self.mask = Some(sel);
+        self.generation += 1;
+        Ok(())
+    }
+
+    /// Forgets every step (undoable).
+    pub fn clear(&mut self) {
+        if self.steps.is_empty() {
+            return;
+        }
+        self.past.push(std::mem::take(&mut self.steps));
+        self.future.clear();
+        self.mask = None;
+        self.generation += 1;
+    }
+
+    /// Puts back the steps as they were before the last change; false when there is none.
+    pub fn undo(&mut self, at: &Lookup) -> Result<bool, CorpusError> {
+        let Some(prev) = self.past.pop() else {
+            return Ok(false);
+        };
+        self.future.push(std::mem::replace(&mut self.steps, prev));
+        self.mask = replay(&self.steps, at)?;
+        self.generation += 1;
+        Ok(true)
+    }
+
+    pub fn redo(&mut self, at: &Lookup) -> Result<bool, CorpusError> {
+        let Some(next) = self.future.pop() else {
+            return Ok(false);
+        };
+        self.past.push(std::mem::replace(&mut self.steps, next));
+        self.mask = replay(&self.steps, at)?;
+        self.generation += 1;
+        Ok(true)
+    }
+
+    /// Replaces the steps (a corpus file or a shared link opened): one undoable change.
+    pub fn set_steps(&mut self, steps: Vec<Step>, at: &Lookup) -> Result<(), CorpusError> {
+        let mask = replay(&steps, at)?;
+        self.past.push(std::mem::replace(&mut self.steps, steps));
+        self.future.clear();
+        self.mask = mask;
+        self.generation += 1;
+        Ok(())
+    }
+
+    /// Whether an undo or a redo is possible.
+    pub fn history(&self) -> (bool, bool) {
+        (!self.past.is_empty(), !self.future.is_empty())
+    }
+}
+
+/// Weight of an item's own colour or picture when a selection is shown and it is not in it.
+pub const UNSELECTED_WEIGHT: u16 = 80;
+/// Weight of an item the filters leave out (when it is dimmed rather than hidden).
+pub const FILTERED_WEIGHT: u16 = 40;
+
+/// How each item is drawn: full where it is in the corpus, faint where a selection exists and it
+/// is not selected, fainter (or hidden) where the filters leave it out. None when nothing is
+/// chosen and no filter is active (every item full).
+pub fn tones(
+    colours: &[[u8; 4]],
+    paper: [u8; 3],
+    selected: Option<&Mask>,
+    passing: Option<&Mask>,
+    hide_filtered: bool,
+) -> Option<Tones> {
+    if selected.is_none() && passing.is_none() {
+        return None;
+    }
+    let mix = |c: [u8; 4], w: u16| -> [u8; 4] {
+        let m =
+            |a: u8, p: u8| ((a as u32 * w as u32 + p as u32 * (256 - w as u32) + 128) >> 8) as u8;
+        [m(c[0], paper[0]), m(c[1], paper[1]), m(c[2], paper[2]), 255]
+    };
+    let mut out = Tones {
+        colours: Vec::with_capacity(colours.len()),
+        weight: Vec::with_capacity(colours.len()),
+    };
+    for (i, &c) in colours.iter().enumerate() {
+        let w = if passing.is_some_and(|p| !p.get(i)) {
+            if hide_filtered {
+                0
+            } else {
+                FILTERED_WEIGHT
+            }
+        } else if selected.is_some_and(|s| !s.get(i)) {
+            UNSELECTED_WEIGHT
+        } else {
+            256
+        };
+        out.weight.push(w);
+        out.colours.push(match w {
+            0 => [0, 0, 0, 0],
+            256 => c,
+            w => mix(c, w),
+        });
+    }
+    Some(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use vitrine_corpus::corpus::Shape;
+    use vitrine_corpus::polygon::Polygon;
+
+    fn grid() -> Vec<[f32; 2]> {
+        (0..100)
+            .map(|i| [(i % 10) as f32, (i / 10) as f32])
+            .collect()
+    }
+
+    #[test]
+    fn steps_undo_and_redo_through_clear() {
+        let positions = grid();
+        let index_of = |id: &str| id.parse::<usize>().ok();
+        let at = Lookup {
+            positions: &positions,
+            index_of: &index_of,
+            near: None,
+        };
+        let mut s = Selection::default();
+        let rect = |op, r| Step {
+            op,
+            shape: Shape::Rect(r),
+        };
+        s.push(rect(Op::Replace, [-0.5, -0.5, 2.5, 2.5]), &at)
+            .unwrap(); // 9
+        s.push(rect(Op::Add, [6.5, 6.5, 9.5, 9.5]), &at).unwrap(); // + 9
+        let lasso = Polygon::parse("-1,-1 0.5,-1 0.5,0.5 -1,0.5").unwrap(); // item 0
+        s.push(
+            Step {
+                op: Op::Subtract,
+                shape: Shape::Lasso(lasso),
+            },
+            &at,
+        )
+        .unwrap();
+        assert_eq!(s.mask().unwrap().count(), 17);
+        s.clear();
+        assert!(s.mask().is_none());
+        assert!(s.undo(&at).unwrap());
+        assert_eq!(s.mask().unwrap().count(), 17);
+        assert!(s.undo(&at).unwrap());
+        assert_eq!(s.mask().unwrap().count(), 18);
+        assert!(s.redo(&at).unwrap());
+        assert_eq!(s.mask().unwrap().count(), 17);
+        // A new step forgets what could be redone.
+        s.push(rect(Op::Add, [-0.5, -0.5, 0.5, 0.5]), &at).unwrap();
+        assert_eq!(s.history(), (true, false));
+        assert_eq!(s.mask().unwrap().count(), 18);
+        while s.undo(&at).unwrap() {}
+        assert!(s.mask().is_none() && s.steps().is_empty());
+    }
+
+    #[test]
+    fn tones_dim_what_is_outside_the_corpus() {
+        let colours = vec![[200, 100, 0, 255]; 4];
+        let paper = [250, 250, 250];
+        assert!(tones(&colours, paper, None, None, false).is_none());
+        let sel = Mask::from_items(4, [0, 1]);
+        let pass = Mask::from_items(4, [1, 2]);
+        let t = tones(&colours, paper, Some(&sel), Some(&pass), false).unwrap();
+        assert_eq!(
+            t.weight,
+            [FILTERED_WEIGHT, 256, UNSELECTED_WEIGHT, FILTERED_WEIGHT]
+        );
+        assert_eq!(t.colours[1], colours[1]);
+        // Dimmed towards the paper: 80/256 of the colour.
+        assert_eq!(t.colours[2][0], ((200 * 80 + 250 * 176 + 128) >> 8) as u8);
+        let hidden = tones(&colours, paper, None, Some(&pass), true).unwrap();
+        assert_eq!(hidden.weight, [0, 256, 256, 0]);
+        assert_eq!(hidden.colours[0][3], 0);
+    }
+}

@@ -1,0 +1,510 @@
+//! The page's side of selection: lasso and box drawn with the pointer, clicks that add or remove
+//! one item, undo and redo, the selected count, the corpus tray and its exports (downloads).
+
+use super::*;
+use vitrine_corpus::corpus::{corpus_mask, AtlasRef, CorpusFile, Lookup, Made, Op, Shape, Step};
+use vitrine_corpus::corpus::{CORPUS_FORMAT, CORPUS_VERSION};
+use vitrine_corpus::export::{build_record, csv, iiif_manifest, IiifOptions};
+
+/// What a drag on the map does.
+#[derive(Clone, Copy, PartialEq, Eq)]
+pub enum Mode {
+    Move,
+    Lasso,
+    Box,
+}
+
+/// A lasso or box being drawn: screen points (canvas pixels) and what it will do.
+pub struct Sketch {
+    pub op: Op,
+    pub boxed: bool,
+    pub points: Vec<[f64; 2]>,
+}
+
+/// Screen points closer than this to the last kept one are dropped from a lasso.
+const LASSO_STEP_PX: f64 = 3.0;
+
+impl Mode {
+    fn name(self) -> &'static str {
+        match self {
+            Mode::Move => "move",
+            Mode::Lasso => "lasso",
+            Mode::Box => "box",
+        }
+    }
+}
+
+/// Switches the drag mode (the same mode again goes back to moving the map).
+pub fn set_mode(m: Mode) {
+    let Some(app) = app() else { return };
+    let m = {
+        let mut a = app.borrow_mut();
+        a.mode = if a.mode == m { Mode::Move } else { m };
+        a.mode
+    };
+    set_state("mode", m.name());
+    for (id, mode) in [("mode-lasso", Mode::Lasso), ("mode-box", Mode::Box)] {
+        if let Some(b) = by_id(id) {
+            let _ = b.set_attribute("aria-pressed", if m == mode { "true" } else { "false" });
+        }
+    }
+    if let Some(c) = by_id("map") {
+        let _ = c
+            .class_list()
+            .toggle_with_force("selecting", m != Mode::Move);
+    }
+}
+
+/// What a drag starting now does with these modifier keys: a sketch, or None (move the map).
+pub fn sketch_for(mode: Mode, shift: bool, alt: bool) -> Option<Sketch> {
+    let op = if shift {
+        Op::Add
+    } else if alt {
+        Op::Subtract
+    } else {
+        Op::Replace
+    };
+    match mode {
+        Mode::Move if !(shift || alt) => None,
+        Mode::Box => Some(Sketch {
+            op,
+            boxed: true,
+            points: Vec::new(),
+        }),
+        _ => Some(Sketch {
+            op,
+            boxed: false,
+            points: Vec::new(),
+        }),
+    }
+}
+
+impl Sketch {
+    pub fn extend(&mut self, p: [f64; 2]) {
+        let far = self
+            .points
+            .last()
+            .is_none_or(|q| (p[0] - q[0]).hypot(p[1] - q[1]) >= LASSO_STEP_PX);
+        if self.boxed && self.points.len() >= 2 {
+            self.points[1] = p;
+        } else if far {
+            self.points.push(p);
+        }
+    }
+
+    /// Whether the pointer barely moved (a click, not a drawing).
+    pub fn is_click(&self) -> bool {
+        let (mut lo, mut hi) = ([f64::INFINITY; 2], [f64::NEG_INFINITY; 2]);
+        for p in &self.points {
+            for k in 0..2 {
+                lo[k] = lo[k].min(p[k]);
+                hi[k] = hi[k].max(p[k]);
+            }
+        }
+        self.points.len() < 2 || (hi[0] - lo[0]).max(hi[1] - lo[1]) < 5.0
+    }
+}
+
+/// Redraws the sketch overlay (an SVG outline over the map), or hides it.
+pub fn draw_sketch(s: Option<&Sketch>) {
+    let Some(svg) = document().get_element_by_id("sketch") else {
+        return;
+    };
+    let Some(s) = s.filter(|s| s.points.len() >= 2) else {
+        let _ = svg.set_attribute("hidden", "");
+        return;
+    };
+    let k = css_per_px();
+    let pts: Vec<[f64; 2]> = if s.boxed {
+        let (a, b) = (s.points[0], s.points[1]);
+        vec![a, [b[0], a[1]], b, [a[0], b[1]]]
+    } else {
+        s.points.clone()
+    };
+    let text: Vec<String> = pts
+        .iter()
+        .map(|p| format!("{:.1},{:.1}", p[0] * k, p[1] * k))
+        .collect();
+    if let Some(poly) = svg.query_selector("polygon").ok().flatten() {
+        let _ = poly.set_attribute("points", &text.join(" "));
+        let _ = poly.set_attribute(
+            "class",
+            match s.op {
+                Op::Subtract => "subtract",
+                _ => "add",
+            },
+        );
+    }
+    let _ = svg.remove_attribute("hidden");
+}
+
+/// The item index of an id (the index is made on first use).
+fn index_of<'a>(a: &'a mut App) -> &'a HashMap<String, usize> {
+    if a.id_index.is_none() {
+        let m = (0..a.atlas.n)
+            .map(|i| (a.atlas.ids.get(i).to_string(), i))
+            .collect();
+        a.id_index = Some(m);
+    }
+    a.id_index.as_ref().unwrap()
+}
+
+/// Runs `f` with the selection and a lookup on the selection's map.
+fn with_lookup<R>(
+    a: &mut App,
+    f: impl FnOnce(&mut crate::selection::Selection, &Lookup) -> R,
+) -> R {
+    index_of(a);
+    let App {
+        atlas,
+        selection,
+        selection_map,
+        id_index,
+        grid,
+        ..
+    } = a;
+    let index = id_index.as_ref().unwrap();
+    let find = |id: &str| index.get(id).copied();
+    let same_map = *selection_map == atlas.current;
+    let near = |r: [f64; 4]| {
+        let mut v = Vec::new();
+        grid.query(r, &mut v);
+        v
+    };
+    let at = Lookup {
+        positions: &atlas.maps[*selection_map].positions,
+        index_of: &find,
+        // The grid is of the map shown: it can narrow lassos only on that map.
+        near: if same_map { Some(&near) } else { None },
+    };
+    f(selection, &at)
+}
+
+/// Adds a step to the selection (the page's count, tray and picture follow).
+pub fn apply(step: Step) {
+    let Some(app) = app() else { return };
+    let result = {
+        let mut a = app.borrow_mut();
+        if !a.atlas.catalogue {
+            return message_line("The catalogue is still loading: select again in a moment.");
+        }
+        let drawn = matches!(step.shape, Shape::Lasso(_) | Shape::Rect(_));
+        if a.selection.steps().is_empty() {
+            a.selection_map = a.atlas.current;
+        } else if drawn && a.selection_map != a.atlas.current {
+            let name = a.atlas.maps[a.selection_map].name.clone();
+            drop(a);
+            return message_line(&format!(
+                "This selection was drawn on the {name} map: go back to it to draw more, or clear it (x) to start on this one."
+            ));
+        }
+        with_lookup(&mut a, |sel, at| sel.push(step, at))
+    };
+    if let Err(e) = result {
+        message_line(&e.to_string());
+    }
+    refresh();
+}
+
+/// Ends a sketch at pointer-up: a lasso or box becomes a step; a click adds or removes the item
+/// under the pointer.
+pub fn finish(s: Sketch, p: [f64; 2]) {
+    draw_sketch(None);
+    let Some(app) = app() else { return };
+    if s.is_click() {
+        let i = app.borrow().pick(p);
+        if let Some(i) = i {
+            toggle(i);
+        }
+        return;
+    }
+    let cam = app.borrow().camera;
+    let shape = if s.boxed {
+        let (a, b) = (cam.to_map(s.points[0]), cam.to_map(s.points[1]));
+        Shape::Rect([a[0], a[1], b[0], b[1]])
+    } else {
+        let pts = s.points.iter().map(|&q| cam.to_map(q)).collect();
+        Shape::Lasso(vitrine_corpus::polygon::Polygon(pts))
+    };
+    apply(Step { op: s.op, shape });
+}
+
+/// Adds item `i` to the selection, or removes it when it is selected.
+pub fn toggle(i: usize) {
+    let Some(app) = app() else { return };
+    let (id, on) = {
+        let a = app.borrow();
+        let on = a.selection.mask().is_some_and(|m| m.get(i));
+        (a.atlas.id(i).to_string(), on)
+    };
+    if id.is_empty() {
+        return;
+    }
+    let op = if on { Op::Subtract } else { Op::Add };
+    apply(Step {
+        op,
+        shape: Shape::Ids(vec![id]),
+    });
+}
+
+pub fn everything() {
+    apply(Step {
+        op: Op::Replace,
+        shape: Shape::Everything(Default::default()),
+    });
+}
+
+pub fn clear() {
+    if let Some(app) = app() {
+        app.borrow_mut().selection.clear();
+    }
+    refresh();
+}
+
+pub fn undo(redo: bool) {
+    let Some(app) = app() else { return };
+    let r = {
+        let mut a = app.borrow_mut();
+        with_lookup(
+            &mut a,
+            |sel, at| if redo { sel.redo(at) } else { sel.undo(at) },
+        )
+    };
+    if let Err(e) = r {
+        message_line(&e.to_string());
+    }
+    refresh();
+}
+
+/// A short note in the bar's status line (cleared by the next one).
+fn message_line(text: &str) {
+    if let Some(n) = by_id("select-note") {
+        n.set_text_content(Some(text));
+        n.set_hidden(text.is_empty());
+    }
+}
+
+/// The corpus's items: the selection narrowed by the filters, in atlas order.
+fn corpus_items(a: &mut App) -> Vec<usize> {
+    let steps = a.selection.steps().to_vec();
+    let cols = std::mem::take(&mut a.atlas.fields);
+    let items = with_lookup(a, |_, at| corpus_mask(&steps, &[], &cols, at));
+    a.atlas.fields = cols;
+    match items {
+        Ok(m) => m.items().collect(),
+        Err(e) => {
+            message_line(&e.to_string());
+            Vec::new()
+        }
+    }
+}
+
+/// After any change of the selection: the dimming, the count, the tray, the undo buttons.
+pub fn refresh() {
+    let Some(app) = app() else { return };
+    let (count, history, any) = {
+        let mut a = app.borrow_mut();
+        let paper = READING_ROOM.paper;
+        let tones =
+            crate::selection::tones(&a.atlas.colours, paper, a.selection.mask(), None, false);
+        a.tones = tones;
+        a.tones_generation += 1;
+        let count = a.selection.mask().map(|m| m.count());
+        (
+            count,
+            a.selection.history(),
+            !a.selection.steps().is_empty(),
+        )
+    };
+    set_state("selected", &count.map_or(String::new(), |c| c.to_string()));
+    if let Some(c) = by_id("selected-count") {
+        c.set_text_content(Some(&match count {
+            Some(1) => "1 selected".to_string(),
+            Some(c) => format!("{c} selected"),
+            None => String::new(),
+        }));
+    }
+    if let Some(t) = by_id("tray") {
+        t.set_hidden(!any);
+    }
+    if let Some(t) = by_id("tray-count") {
+        t.set_text_content(Some(&count.unwrap_or(0).to_string()));
+    }
+    for (id, on) in [("undo", history.0), ("redo", history.1)] {
+        if let Some(b) = by_id(id) {
+            let _ = if on {
+                b.remove_attribute("disabled")
+            } else {
+                b.set_attribute("disabled", "")
+            };
+        }
+    }
+    if let Some(d) = by_id("tray-how") {
+        let a = app.borrow();
+        let map = &a.atlas.maps[a.selection_map].name;
+        d.set_text_content(Some(&vitrine_corpus::corpus::describe(
+            map,
+            a.selection.steps(),
+            &[],
+        )));
+    }
+    message_line("");
+    request_frame();
+}
+
+/// Offers `text` as a file download.
+fn download(name: &str, mime: &str, text: &str) {
+    let parts = js_sys::Array::of1(&JsValue::from_str(text));
+    let opts = web_sys::BlobPropertyBag::new();
+    opts.set_type(mime);
+    let Ok(blob) = web_sys::Blob::new_with_str_sequence_and_options(&parts, &opts) else {
+        return;
+    };
+    let Ok(url) = web_sys::Url::create_object_url_with_blob(&blob) else {
+        return;
+    };
+    if let Ok(a) = document().create_element("a") {
+        let a: web_sys::HtmlAnchorElement = a.unchecked_into();
+        a.set_href(&url);
+        a.set_download(name);
+        a.click();
+    }
+    let _ = web_sys::Url::revoke_object_url(&url);
+}
+
+/// A file name from the atlas title: letters, digits and dashes.
+fn file_stem(title: &str) -> String {
+    let s: String = title
+        .chars()
+        .map(|c| {
+            if c.is_alphanumeric() {
+                c.to_ascii_lowercase()
+            } else {
+                '-'
+            }
+        })
+        .collect();
+    let s = s
+        .split('-')
+        .filter(|p| !p.is_empty())
+        .collect::<Vec<_>>()
+        .join("-");
+    if s.is_empty() {
+        "atlas".into()
+    } else {
+        s
+    }
+}
+
+/// Writes the corpus as `kind` ("csv", "json" for the corpus file, "iiif") and downloads it.
+pub fn export(kind: &str) {
+    let Some(app) = app() else { return };
+    let mut a = app.borrow_mut();
+    if !a.atlas.catalogue {
+        drop(a);
+        return message_line("The catalogue is still loading: export in a moment.");
+    }
+    let items = corpus_items(&mut a);
+    let m = &a.atlas.manifest;
+    let stem = format!("{}-corpus-{}", file_stem(&m.title), items.len());
+    let map = a.atlas.maps[a.selection_map].name.clone();
+    let description = vitrine_corpus::corpus::describe(&map, a.selection.steps(), &[]);
+    let (name, mime, text) = match kind {
+        "csv" => (
+            format!("{stem}.csv"),
+            "text/csv;charset=utf-8",
+            csv(m, &a.atlas.ids, &a.atlas.fields, &items),
+        ),
+        "iiif" => {
+            let href = web_sys::window()
+                .and_then(|w| w.location().href().ok())
+                .unwrap_or_default();
+            let dir = href.split(['?', '#']).next().unwrap_or("");
+            let dir = &dir[..dir.rfind('/').map_or(0, |k| k + 1)];
+            let base = format!("{dir}corpus/{}/", &a.manifest_sha[..16]);
+            let summary = format!("{} items of {}: {description}", items.len(), m.title);
+            let sizes = (!a.atlas.image_sizes.is_empty()).then_some(a.atlas.image_sizes.as_slice());
+            let o = IiifOptions {
+                base: &base,
+                image_sizes: sizes,
+                extents: &a.atlas.extents,
+                summary: &summary,
+            };
+            let v = iiif_manifest(m, &a.atlas.ids, &a.atlas.fields, &items, &o);
+            (
+                format!("{stem}.iiif.json"),
+                "application/ld+json",
+                serde_json::to_string_pretty(&v).unwrap_or_default(),
+            )
+        }
+        _ => {
+            let file = CorpusFile {
+                format: CORPUS_FORMAT.into(),
+                format_version: CORPUS_VERSION,
+                atlas: AtlasRef {
+                    title: m.title.clone(),
+                    manifest_sha256: a.manifest_sha.clone(),
+                    item_count: m.item_count,
+                },
+                build: build_record(m),
+                map,
+                steps: a.selection.steps().to_vec(),
+                filters: Vec::new(),
+                count: items.len(),
+                ids: items
+                    .iter()
+                    .map(|&i| a.atlas.ids.get(i).to_string())
+                    .collect(),
+                made: Made {
+                    tool: "vitrine".into(),
+                    tool_version: env!("CARGO_PKG_VERSION").into(),
+                    time: js_sys::Date::new_0().to_iso_string().into(),
+                    by: "viewer".into(),
+                },
+            };
+            (
+                format!("{stem}.corpus.json"),
+                "application/json",
+                file.to_json(),
+            )
+        }
+    };
+    drop(a);
+    download(&name, mime, &text);
+}
+
+/// The selection's buttons and keys.
+pub fn install() {
+    for (id, what) in [
+        ("mode-lasso", 0u8),
+        ("mode-box", 1),
+        ("undo", 2),
+        ("redo", 3),
+        ("clear", 4),
+        ("select-all", 5),
+        ("export-csv", 6),
+        ("export-json", 7),
+        ("export-iiif", 8),
+    ] {
+        if let Some(b) = by_id(id) {
+            listen(
+                &b,
+                "click",
+                true,
+                move |_e: web_sys::MouseEvent| match what {
+                    0 => set_mode(Mode::Lasso),
+                    1 => set_mode(Mode::Box),
+                    2 => undo(false),
+                    3 => undo(true),
+                    4 => clear(),
+                    5 => everything(),
+                    6 => export("csv"),
+                    7 => export("json"),
+                    _ => export("iiif"),
+                },
+            );
+        }
+    }
+    set_state("mode", "move");
+    refresh();
+}
