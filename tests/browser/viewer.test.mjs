@@ -383,6 +383,64 @@ test("a lasso selects, Shift and Alt lassos add and take away, and the corpus ex
   assert.deepEqual(errors, []);
 });
 
+test("field chips: search, a category and a date range narrow the corpus as vitrine corpus does", async () => {
+  const url = await serve(ATLAS);
+  const { page, errors } = await newPage(url);
+  await page.waitForFunction(() => document.body.dataset.state === "ready", null, { timeout: 60000 });
+  const passing = () => page.evaluate(() => document.body.dataset.passing || "");
+  const native = (...args) => Number(execFileSync(BIN, ["corpus", ATLAS, ...args], { encoding: "utf8" }).split(" ")[0]);
+  // Search: typed into the box (keys typed there are text, not commands), run with Enter.
+  await page.keyboard.press("/");
+  await page.keyboard.type("Figure ");
+  await page.keyboard.press("Enter");
+  await page.waitForFunction(() => document.body.dataset.passing);
+  assert.equal(Number(await passing()), native("--search", "figure"));
+  assert.ok(await page.locator("#about").isHidden(), "typing 'i' in the search box did not open About");
+  await page.keyboard.press("Escape");
+  await page.waitForFunction(() => !document.body.dataset.passing);
+  // A category value and a date range from the filter panel; counts beside values follow.
+  await page.keyboard.press("c");
+  const technique = page.locator("#filter-panel details", { has: page.locator("summary", { hasText: "technique" }) });
+  await technique.locator("summary").click();
+  await technique.locator("input[data-value='etching']").check();
+  await page.waitForFunction(() => document.body.dataset.passing);
+  assert.equal(Number(await passing()), native("--filter", "technique=etching"));
+  const dating = page.locator("#filter-panel details", { has: page.locator("summary", { hasText: "dating" }) });
+  await dating.locator("summary").click();
+  await dating.locator("input[aria-label=from]").fill("1500");
+  await dating.locator("input[aria-label=to]").fill("1560");
+  await dating.locator("select").selectOption("within");
+  await dating.locator("button").click();
+  await page.waitForFunction(() => document.body.dataset.filters === "2");
+  const both = Number(await passing());
+  assert.equal(both, native("--filter", "technique=etching", "--date", "1500..1560", "--date-rule", "within"));
+  // The etching count beside its value is taken under the date filter alone (cross-filtering).
+  const etching = Number(await technique.locator("label", { has: page.locator("input[data-value='etching']") })
+    .locator(".n").innerText());
+  assert.equal(etching, both);
+  const woodcut = Number(await technique.locator("label", { has: page.locator("input[data-value='woodcut']") })
+    .locator(".n").innerText());
+  assert.equal(woodcut, native("--filter", "technique=woodcut", "--date", "1500..1560", "--date-rule", "within"));
+  const chips = await page.locator("#chips .chip").allInnerTexts();
+  assert.equal(chips.length, 2);
+  assert.ok(chips[0].startsWith("technique: etching") && chips[1].startsWith("dating: 1500–1560 (within)"),
+    JSON.stringify(chips));
+  await page.screenshot({ path: path.join(ARTIFACTS, "10-field-chips.png") });
+  // The corpus file keeps the filters; replayed natively, it gives the same items.
+  const dir = fs.mkdtempSync(path.join(os.tmpdir(), "vitrine-chips-"));
+  const [d] = await Promise.all([page.waitForEvent("download"), page.click("#export-json")]);
+  await d.saveAs(path.join(dir, "c.json"));
+  const file = JSON.parse(fs.readFileSync(path.join(dir, "c.json"), "utf8"));
+  assert.equal(file.count, both);
+  assert.deepEqual(file.filters.map((f) => f.kind), ["category", "date"]);
+  execFileSync(BIN, ["corpus", ATLAS, "--from", path.join(dir, "c.json")]);
+  // Removing a chip drops its filter.
+  await page.locator("#chips .chip button").first().click();
+  await page.waitForFunction(() => document.body.dataset.filters === "1");
+  assert.equal(Number(await passing()), native("--date", "1500..1560", "--date-rule", "within"));
+  assert.deepEqual(errors, []);
+});
+
 test("where the browser offers WebGPU the viewer draws with it, the same pixels as with WebGL2", async () => {
   // SwiftShader also gives Chromium a WebGPU adapter when unsafe WebGPU is allowed; its canvas
   // shows what is drawn only when Chromium composites with Vulkan (SwiftShader's too).

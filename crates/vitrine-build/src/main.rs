@@ -208,7 +208,7 @@ enum Command {
         /// Keep items where every word occurs (ignoring case and accents) in --search-in's fields.
         #[arg(long)]
         search: Option<String>,
-        /// The fields --search looks in, comma-separated (default: every field).
+        /// The fields --search looks in, comma-separated (default: every text and category field).
         #[arg(long = "search-in", value_delimiter = ',')]
         search_in: Vec<String>,
         /// Write the corpus's catalogue rows here (CSV, the id column first).

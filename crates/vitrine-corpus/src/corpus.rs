@@ -286,7 +286,7 @@ pub fn describe(map: &str, steps: &[Step], filters: &[Filter]) -> String {
                     crate::filter::DateRule::Within => "within",
                 }
             ),
-            Filter::Text { fields, query } if fields.is_empty() => format!("text \"{query}\""),
+            Filter::Text { fields, query } if fields.is_empty() => format!("search \"{query}\""),
             Filter::Text { fields, query } => format!("\"{query}\" in {}", fields.join(", ")),
         })
         .collect();

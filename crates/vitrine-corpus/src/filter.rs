@@ -5,6 +5,8 @@ use serde::{Deserialize, Serialize};
 use unicode_normalization::char::is_combining_mark;
 use unicode_normalization::UnicodeNormalization;
 
+use vitrine_format::FieldKind;
+
 use crate::columns::{Column, FieldColumn};
 use crate::mask::Mask;
 use crate::CorpusError;
@@ -30,8 +32,8 @@ pub enum Filter {
         to: i32,
         rule: DateRule,
     },
-    /// Items where every word of `query` occurs in one of `fields` (every field when empty),
-    /// ignoring case and accents.
+    /// Items where every word of `query` occurs in one of `fields` (when empty: every text and
+    /// category field), ignoring case and accents.
     Text {
         #[serde(default)]
         fields: Vec<String>,
@@ -166,7 +168,9 @@ impl Filter {
             Filter::Text { fields, query } => {
                 let words: Vec<String> = query.split_whitespace().map(fold).collect();
                 let chosen: Vec<&FieldColumn> = if fields.is_empty() {
-                    cols.iter().collect()
+                    cols.iter()
+                        .filter(|c| matches!(c.field.kind, FieldKind::Text | FieldKind::Category))
+                        .collect()
                 } else {
                     fields
                         .iter()

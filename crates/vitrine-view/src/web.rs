@@ -83,8 +83,11 @@ struct App {
     id_index: Option<HashMap<String, usize>>,
     /// SHA-256 of the atlas.json text, for the corpus file.
     manifest_sha: String,
+    filters: crate::filters::Filters,
 }
 
+#[path = "web_filters.rs"]
+mod filters;
 #[path = "web_select.rs"]
 mod select;
 
@@ -1143,6 +1146,12 @@ fn install_events(canvas: &HtmlCanvasElement) {
                 "b" => select::set_mode(select::Mode::Box),
                 "a" => select::everything(),
                 "x" => select::clear(),
+                "/" => {
+                    if let Some(i) = by_id("search") {
+                        let _ = i.focus();
+                    }
+                }
+                "c" => filters::toggle_panel(),
                 "m" => {
                     if let Some(app) = app() {
                         let next = {
@@ -1333,10 +1342,12 @@ async fn load(base: String) -> Result<(), String> {
         tones_generation: 0,
         id_index: None,
         manifest_sha,
+        filters: Default::default(),
     };
     APP.with(|a| *a.borrow_mut() = Some(Rc::new(RefCell::new(app))));
     install_events(&canvas);
     select::install();
+    filters::install();
     if let Some(l) = by_id("loading") {
         l.set_hidden(true);
     }

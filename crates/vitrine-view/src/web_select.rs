@@ -139,7 +139,7 @@ pub fn draw_sketch(s: Option<&Sketch>) {
 }
 
 /// The item index of an id (the index is made on first use).
-fn index_of<'a>(a: &'a mut App) -> &'a HashMap<String, usize> {
+fn index_of(a: &mut App) -> &HashMap<String, usize> {
     if a.id_index.is_none() {
         let m = (0..a.atlas.n)
             .map(|i| (a.atlas.ids.get(i).to_string(), i))
@@ -186,7 +186,7 @@ pub fn apply(step: Step) {
     let result = {
         let mut a = app.borrow_mut();
         if !a.atlas.catalogue {
-            return message_line("The catalogue is still loading: select again in a moment.");
+            return note("The catalogue is still loading: select again in a moment.");
         }
         let drawn = matches!(step.shape, Shape::Lasso(_) | Shape::Rect(_));
         if a.selection.steps().is_empty() {
@@ -194,14 +194,14 @@ pub fn apply(step: Step) {
         } else if drawn && a.selection_map != a.atlas.current {
             let name = a.atlas.maps[a.selection_map].name.clone();
             drop(a);
-            return message_line(&format!(
+            return note(&format!(
                 "This selection was drawn on the {name} map: go back to it to draw more, or clear it (x) to start on this one."
             ));
         }
         with_lookup(&mut a, |sel, at| sel.push(step, at))
     };
     if let Err(e) = result {
-        message_line(&e.to_string());
+        note(&e.to_string());
     }
     refresh();
 }
@@ -271,13 +271,13 @@ pub fn undo(redo: bool) {
         )
     };
     if let Err(e) = r {
-        message_line(&e.to_string());
+        note(&e.to_string());
     }
     refresh();
 }
 
 /// A short note in the bar's status line (cleared by the next one).
-fn message_line(text: &str) {
+pub fn note(text: &str) {
     if let Some(n) = by_id("select-note") {
         n.set_text_content(Some(text));
         n.set_hidden(text.is_empty());
@@ -287,13 +287,14 @@ fn message_line(text: &str) {
 /// The corpus's items: the selection narrowed by the filters, in atlas order.
 fn corpus_items(a: &mut App) -> Vec<usize> {
     let steps = a.selection.steps().to_vec();
+    let filters = a.filters.list().to_vec();
     let cols = std::mem::take(&mut a.atlas.fields);
-    let items = with_lookup(a, |_, at| corpus_mask(&steps, &[], &cols, at));
+    let items = with_lookup(a, |_, at| corpus_mask(&steps, &filters, &cols, at));
     a.atlas.fields = cols;
     match items {
         Ok(m) => m.items().collect(),
         Err(e) => {
-            message_line(&e.to_string());
+            note(&e.to_string());
             Vec::new()
         }
     }
@@ -302,20 +303,27 @@ fn corpus_items(a: &mut App) -> Vec<usize> {
 /// After any change of the selection: the dimming, the count, the tray, the undo buttons.
 pub fn refresh() {
     let Some(app) = app() else { return };
-    let (count, history, any) = {
+    let (count, corpus, history, any) = {
         let mut a = app.borrow_mut();
         let paper = READING_ROOM.paper;
-        let tones =
-            crate::selection::tones(&a.atlas.colours, paper, a.selection.mask(), None, false);
+        let (sel, pass) = (a.selection.mask(), a.filters.passing());
+        let tones = crate::selection::tones(&a.atlas.colours, paper, sel, pass, a.filters.hide);
+        let corpus = match (sel, pass) {
+            (Some(s), Some(p)) => {
+                let mut m = s.clone();
+                m.and(p);
+                Some(m.count())
+            }
+            (Some(m), None) | (None, Some(m)) => Some(m.count()),
+            (None, None) => None,
+        };
+        let count = sel.map(|m| m.count());
         a.tones = tones;
         a.tones_generation += 1;
-        let count = a.selection.mask().map(|m| m.count());
-        (
-            count,
-            a.selection.history(),
-            !a.selection.steps().is_empty(),
-        )
+        let history = a.selection.history();
+        (count, corpus, history, corpus.is_some())
     };
+    set_state("corpus", &corpus.map_or(String::new(), |c| c.to_string()));
     set_state("selected", &count.map_or(String::new(), |c| c.to_string()));
     if let Some(c) = by_id("selected-count") {
         c.set_text_content(Some(&match count {
@@ -328,7 +336,7 @@ pub fn refresh() {
         t.set_hidden(!any);
     }
     if let Some(t) = by_id("tray-count") {
-        t.set_text_content(Some(&count.unwrap_or(0).to_string()));
+        t.set_text_content(Some(&corpus.unwrap_or(0).to_string()));
     }
     for (id, on) in [("undo", history.0), ("redo", history.1)] {
         if let Some(b) = by_id(id) {
@@ -345,10 +353,10 @@ pub fn refresh() {
         d.set_text_content(Some(&vitrine_corpus::corpus::describe(
             map,
             a.selection.steps(),
-            &[],
+            a.filters.list(),
         )));
     }
-    message_line("");
+    note("");
     request_frame();
 }
 
@@ -402,13 +410,13 @@ pub fn export(kind: &str) {
     let mut a = app.borrow_mut();
     if !a.atlas.catalogue {
         drop(a);
-        return message_line("The catalogue is still loading: export in a moment.");
+        return note("The catalogue is still loading: export in a moment.");
     }
     let items = corpus_items(&mut a);
     let m = &a.atlas.manifest;
     let stem = format!("{}-corpus-{}", file_stem(&m.title), items.len());
     let map = a.atlas.maps[a.selection_map].name.clone();
-    let description = vitrine_corpus::corpus::describe(&map, a.selection.steps(), &[]);
+    let description = vitrine_corpus::corpus::describe(&map, a.selection.steps(), a.filters.list());
     let (name, mime, text) = match kind {
         "csv" => (
             format!("{stem}.csv"),
@@ -449,7 +457,7 @@ pub fn export(kind: &str) {
                 build: build_record(m),
                 map,
                 steps: a.selection.steps().to_vec(),
-                filters: Vec::new(),
+                filters: a.filters.list().to_vec(),
                 count: items.len(),
                 ids: items
                     .iter()

@@ -1,0 +1,122 @@
+//! The timeline strip's histogram: items by year, each item's weight spread evenly over the years
+//! of its dating range (a "1520-1529" item adds a tenth to each of ten years), so that a bar
+//! counts items, not ranges, and the bars of a collection sum to its dated items.
+
+/// Bins of `bin` years from year `from`: `bins` counts, plus what fell outside them.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Histogram {
+    pub from: i32,
+    pub bin: i32,
+    pub counts: Vec<f64>,
+}
+
+/// A bin width that gives at most `max_bins` bins over `lo..=hi`: 1, 2, 5, 10, 20, 25, 50, 100 ...
+pub fn bin_years(lo: i32, hi: i32, max_bins: usize) -> i32 {
+    let span = (hi as i64 - lo as i64 + 1).max(1);
+    let mut step: i64 = 1;
+    let nice = [1i64, 2, 5];
+    let mut k = 0usize;
+    let mut scale = 1i64;
+    while span.div_euclid(step) + 1 > max_bins.max(1) as i64 {
+        k += 1;
+        if k == nice.len() {
+            k = 0;
+            scale *= 10;
+        }
+        step = nice[k] * scale;
+    }
+    step as i32
+}
+
+impl Histogram {
+    /// Empty bins covering `lo..=hi` in steps of `bin` years, starting at a multiple of `bin`.
+    pub fn covering(lo: i32, hi: i32, bin: i32) -> Histogram {
+        let bin = bin.max(1);
+        let from = lo.div_euclid(bin) * bin;
+        let bins = ((hi - from).div_euclid(bin) + 1).max(1) as usize;
+        Histogram {
+            from,
+            bin,
+            counts: vec![0.0; bins],
+        }
+    }
+
+    /// Adds the items (by index) with their ranges `start[i]..=end[i]`; undated items
+    /// (`i32::MIN`) are left out. Years outside the bins are clamped into the first or last.
+    pub fn add(&mut self, start: &[i32], end: &[i32], items: impl Iterator<Item = usize>) {
+        let nb = self.counts.len() as i64;
+        let (from, bin) = (self.from as i64, self.bin as i64);
+        for i in items {
+            let (s, e) = (start[i] as i64, end[i] as i64);
+            if start[i] == i32::MIN || e < s {
+                continue;
+            }
+            let years = (e - s + 1) as f64;
+            let b0 = (s - from).div_euclid(bin);
+            let b1 = (e - from).div_euclid(bin);
+            for b in b0..=b1 {
+                // The years of the range inside bin b.
+                let lo = s.max(from + b * bin);
+                let hi = e.min(from + (b + 1) * bin - 1);
+                self.counts[b.clamp(0, nb - 1) as usize] += (hi - lo + 1) as f64 / years;
+            }
+        }
+    }
+
+    pub fn total(&self) -> f64 {
+        self.counts.iter().sum()
+    }
+
+    /// The years bin `b` covers.
+    pub fn years(&self, b: usize) -> (i32, i32) {
+        let a = self.from + b as i32 * self.bin;
+        (a, a + self.bin - 1)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn an_items_weight_is_spread_over_its_years_and_the_bars_sum_to_the_items() {
+        // Worked example: bins of 10 years from 1500. A single year adds 1 to its bin; 1515-1524
+        // adds half to each of two bins; 1500-1549 adds a fifth to each of five.
+        let start = [1503, 1515, 1500, i32::MIN];
+        let end = [1503, 1524, 1549, i32::MIN];
+        let mut h = Histogram::covering(1500, 1549, 10);
+        h.add(&start, &end, 0..4);
+        let want = [1.0 + 0.2, 0.5 + 0.2, 0.5 + 0.2, 0.2, 0.2];
+        for (a, b) in h.counts.iter().zip(want) {
+            assert!((a - b).abs() < 1e-12, "{:?}", h.counts);
+        }
+        assert!((h.total() - 3.0).abs() < 1e-12, "three dated items");
+        assert_eq!(h.years(1), (1510, 1519));
+    }
+
+    #[test]
+    fn random_ranges_sum_to_the_dated_count() {
+        let mut s = 12345u64;
+        let mut r = |m: u64| {
+            s = s
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            (s >> 33) % m
+        };
+        let n = 5000;
+        let start: Vec<i32> = (0..n).map(|_| 1400 + r(300) as i32).collect();
+        let end: Vec<i32> = start.iter().map(|&a| a + r(80) as i32).collect();
+        for bin in [1, 7, 25, 100] {
+            let mut h = Histogram::covering(1400, 1800, bin);
+            h.add(&start, &end, 0..n);
+            assert!(
+                (h.total() - n as f64).abs() < 1e-6,
+                "bin {bin}: {}",
+                h.total()
+            );
+        }
+        assert_eq!(bin_years(1400, 1800, 100), 5);
+        assert_eq!(bin_years(1500, 1510, 100), 1);
+        assert_eq!(bin_years(-3000, 2000, 60), 100);
+    }
+}

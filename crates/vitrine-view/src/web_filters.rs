@@ -1,0 +1,465 @@
+//! The page's side of the catalogue filters: the search box, the field chips, the filter panel
+//! (category values with their cross-filtered counts, number and date ranges), dim or hide.
+
+use super::*;
+use vitrine_corpus::columns::Column;
+use vitrine_corpus::filter::{DateRule, Filter};
+use vitrine_format::FieldKind;
+
+/// Category values listed per field in the panel (the rest are reached by search).
+const PANEL_VALUES: usize = 40;
+/// Milliseconds of quiet typing before a search runs.
+const SEARCH_DELAY_MS: i32 = 250;
+
+fn input(id: &str) -> Option<web_sys::HtmlInputElement> {
+    document()
+        .get_element_by_id(id)
+        .and_then(|e| e.dyn_into().ok())
+}
+
+/// Sets a filter (replacing the one on its field) and shows the result.
+pub fn set(f: Filter) {
+    let Some(app) = app() else { return };
+    let r = {
+        let mut a = app.borrow_mut();
+        if !a.atlas.catalogue {
+            return;
+        }
+        let n = a.atlas.n;
+        let App { filters, atlas, .. } = &mut *a;
+        filters.set(f, &atlas.fields, n)
+    };
+    if let Err(e) = r {
+        select::note(&e.to_string());
+        return;
+    }
+    changed();
+}
+
+pub fn remove(k: usize) {
+    let Some(app) = app() else { return };
+    {
+        let mut a = app.borrow_mut();
+        let n = a.atlas.n;
+        let App { filters, atlas, .. } = &mut *a;
+        let _ = filters.remove(k, &atlas.fields, n);
+    }
+    // The search box mirrors the search filter.
+    let has_search = app
+        .borrow()
+        .filters
+        .list()
+        .iter()
+        .any(|f| matches!(f, Filter::Text { .. }));
+    if !has_search {
+        if let Some(i) = input("search") {
+            i.set_value("");
+        }
+    }
+    changed();
+}
+
+/// After any change of the filters: chips, panel, counts, dimming.
+pub fn changed() {
+    render_chips();
+    if by_id("filter-panel").is_some_and(|p| !p.hidden()) {
+        render_panel();
+    }
+    if let Some(app) = app() {
+        let a = app.borrow();
+        set_state("filters", &a.filters.list().len().to_string());
+        let text = match a.filters.passing() {
+            Some(p) => format!("{} of {} pass the filters", p.count(), a.atlas.n),
+            None => String::new(),
+        };
+        set_state(
+            "passing",
+            &a.filters
+                .passing()
+                .map_or(String::new(), |p| p.count().to_string()),
+        );
+        if let Some(c) = by_id("filtered-count") {
+            c.set_text_content(Some(&text));
+        }
+    }
+    select::refresh();
+}
+
+/// What a chip says for a filter.
+fn chip_text(f: &Filter) -> String {
+    match f {
+        Filter::Category { field, values } => format!("{field}: {}", values.join(", ")),
+        Filter::Range { field, min, max } => {
+            let b = |v: &Option<f64>| v.map(|x| x.to_string()).unwrap_or_else(|| "…".into());
+            format!("{field}: {}–{}", b(min), b(max))
+        }
+        Filter::Date {
+            field,
+            from,
+            to,
+            rule,
+        } => format!(
+            "{field}: {from}–{to} ({})",
+            match rule {
+                DateRule::Overlap => "overlapping",
+                DateRule::Within => "within",
+            }
+        ),
+        Filter::Text { fields, query } if fields.is_empty() => format!("“{query}”"),
+        Filter::Text { fields, query } => format!("“{query}” in {}", fields.join(", ")),
+    }
+}
+
+fn render_chips() {
+    let Some(box_) = by_id("chips") else { return };
+    box_.set_text_content(None);
+    let Some(app) = app() else { return };
+    let list = app.borrow().filters.list().to_vec();
+    let doc = document();
+    for (k, f) in list.iter().enumerate() {
+        let chip = doc.create_element("span").unwrap();
+        chip.set_class_name("chip");
+        chip.set_text_content(Some(&chip_text(f)));
+        let x = doc.create_element("button").unwrap();
+        x.set_text_content(Some("×"));
+        let _ = x.set_attribute("aria-label", &format!("Remove the filter {}", chip_text(f)));
+        listen(&x, "click", true, move |_e: web_sys::MouseEvent| remove(k));
+        let _ = chip.append_child(&x);
+        let _ = box_.append_child(&chip);
+    }
+}
+
+/// The filter panel: one section per category, number and date field.
+fn render_panel() {
+    let Some(panel) = by_id("filter-panel") else {
+        return;
+    };
+    let Some(app) = app() else { return };
+    let a = app.borrow();
+    let doc = document();
+    // Keep which sections were open across the rebuild.
+    let open: Vec<String> = (0..a.atlas.fields.len())
+        .filter(|&k| {
+            doc.get_element_by_id(&format!("field-{k}"))
+                .is_some_and(|d| d.has_attribute("open"))
+        })
+        .map(|k| a.atlas.fields[k].field.name.clone())
+        .collect();
+    panel.set_text_content(None);
+    if !a.atlas.catalogue {
+        panel.set_text_content(Some("The catalogue is loading…"));
+        return;
+    }
+    let n = a.atlas.n;
+    for (k, c) in a.atlas.fields.iter().enumerate() {
+        let name = c.field.name.clone();
+        let body = doc.create_element("div").unwrap();
+        body.set_class_name("field-body");
+        match (&c.column, c.field.kind) {
+            (Column::Category(_), _) => {
+                let counts = a.filters.counts(c, n);
+                let chosen: Vec<String> = match a.filters.on(&name) {
+                    Some(Filter::Category { values, .. }) => values.clone(),
+                    _ => Vec::new(),
+                };
+                let mut order: Vec<usize> = (0..c.field.values.len()).collect();
+                order.sort_by_key(|&v| std::cmp::Reverse(counts[v]));
+                for &v in order.iter().take(PANEL_VALUES) {
+                    let value = c.field.values[v].clone();
+                    let label = doc.create_element("label").unwrap();
+                    let cb: web_sys::HtmlInputElement =
+                        doc.create_element("input").unwrap().unchecked_into();
+                    cb.set_type("checkbox");
+                    cb.set_checked(chosen.contains(&value));
+                    let _ = cb.set_attribute("data-value", &value);
+                    let field = name.clone();
+                    listen(&cb, "change", true, move |_e: web_sys::Event| {
+                        category_changed(&field, k)
+                    });
+                    let _ = label.append_child(&cb);
+                    let t = doc.create_element("span").unwrap();
+                    t.set_text_content(Some(&value));
+                    let _ = label.append_child(&t);
+                    let num = doc.create_element("span").unwrap();
+                    num.set_class_name("n");
+                    num.set_text_content(Some(&counts[v].to_string()));
+                    let _ = label.append_child(&num);
+                    let _ = body.append_child(&label);
+                }
+                if order.len() > PANEL_VALUES {
+                    let more = doc.create_element("p").unwrap();
+                    more.set_class_name("more");
+                    more.set_text_content(Some(&format!(
+                        "and {} more values: type one in the search box",
+                        order.len() - PANEL_VALUES
+                    )));
+                    let _ = body.append_child(&more);
+                }
+            }
+            (Column::Number(v), _) => {
+                let (lo, hi) = v
+                    .iter()
+                    .filter(|x| !x.is_nan())
+                    .fold((f32::INFINITY, f32::NEG_INFINITY), |(a, b), &x| {
+                        (a.min(x), b.max(x))
+                    });
+                let (min, max) = match a.filters.on(&name) {
+                    Some(Filter::Range { min, max, .. }) => (*min, *max),
+                    _ => (None, None),
+                };
+                range_editor(
+                    &doc,
+                    &body,
+                    k,
+                    &format!("{lo}"),
+                    &format!("{hi}"),
+                    min,
+                    max,
+                    None,
+                );
+            }
+            (Column::Date { .. }, _) => {
+                let span = a.filters.date_span(c, n).unwrap_or((0, 0));
+                let (from, to, rule) = match a.filters.on(&name) {
+                    Some(Filter::Date { from, to, rule, .. }) => {
+                        (Some(*from as f64), Some(*to as f64), *rule)
+                    }
+                    _ => (None, None, DateRule::Overlap),
+                };
+                let (lo, hi) = (span.0.to_string(), span.1.to_string());
+                range_editor(&doc, &body, k, &lo, &hi, from, to, Some(rule));
+            }
+            (Column::Text(_), FieldKind::Link) | (Column::Text(_), _) => continue,
+        }
+        let det = doc.create_element("details").unwrap();
+        det.set_id(&format!("field-{k}"));
+        if open.contains(&name) || a.filters.on(&name).is_some() {
+            let _ = det.set_attribute("open", "");
+        }
+        let sum = doc.create_element("summary").unwrap();
+        sum.set_text_content(Some(&name));
+        let _ = det.append_child(&sum);
+        let _ = det.append_child(&body);
+        let _ = panel.append_child(&det);
+    }
+}
+
+/// From/to inputs (with the data's own span as placeholders), a rule choice for dates, Apply.
+#[allow(clippy::too_many_arguments)]
+fn range_editor(
+    doc: &Document,
+    body: &web_sys::Element,
+    k: usize,
+    lo: &str,
+    hi: &str,
+    from: Option<f64>,
+    to: Option<f64>,
+    rule: Option<DateRule>,
+) {
+    let row = doc.create_element("div").unwrap();
+    row.set_class_name("range");
+    for (id, place, value) in [("from", lo, from), ("to", hi, to)] {
+        let i: web_sys::HtmlInputElement = doc.create_element("input").unwrap().unchecked_into();
+        i.set_type("number");
+        i.set_id(&format!("field-{k}-{id}"));
+        i.set_placeholder(place);
+        let _ = i.set_attribute("aria-label", id);
+        if let Some(v) = value {
+            i.set_value(&v.to_string());
+        }
+        let _ = row.append_child(&i);
+    }
+    if let Some(rule) = rule {
+        let s: web_sys::HtmlSelectElement = doc.create_element("select").unwrap().unchecked_into();
+        s.set_id(&format!("field-{k}-rule"));
+        for (v, t) in [("overlap", "overlapping"), ("within", "within")] {
+            let o = web_sys::HtmlOptionElement::new_with_text_and_value(t, v).unwrap();
+            let _ = s.append_child(&o);
+        }
+        s.set_value(if rule == DateRule::Within {
+            "within"
+        } else {
+            "overlap"
+        });
+        let _ = s.set_attribute(
+            "title",
+            "overlapping: the dating shares a year with the range; within: it lies wholly inside",
+        );
+        let _ = row.append_child(&s);
+    }
+    let b = doc.create_element("button").unwrap();
+    b.set_text_content(Some("Apply"));
+    b.set_id(&format!("field-{k}-apply"));
+    listen(&b, "click", true, move |_e: web_sys::MouseEvent| {
+        range_applied(k)
+    });
+    let _ = row.append_child(&b);
+    let _ = body.append_child(&row);
+}
+
+fn category_changed(field: &str, k: usize) {
+    let Some(det) = document().get_element_by_id(&format!("field-{k}")) else {
+        return;
+    };
+    let mut values = Vec::new();
+    if let Ok(list) = det.query_selector_all("input[type=checkbox]") {
+        for j in 0..list.length() {
+            let Some(cb) = list
+                .item(j)
+                .and_then(|n| n.dyn_into::<web_sys::HtmlInputElement>().ok())
+            else {
+                continue;
+            };
+            if cb.checked() {
+                values.extend(cb.get_attribute("data-value"));
+            }
+        }
+    }
+    set(Filter::Category {
+        field: field.to_string(),
+        values,
+    });
+}
+
+fn range_applied(k: usize) {
+    let Some(app) = app() else { return };
+    let (name, is_date) = {
+        let a = app.borrow();
+        let Some(c) = a.atlas.fields.get(k) else {
+            return;
+        };
+        (
+            c.field.name.clone(),
+            matches!(c.column, Column::Date { .. }),
+        )
+    };
+    let read = |id: &str| -> Result<Option<f64>, String> {
+        let v = input(&format!("field-{k}-{id}"))
+            .map(|i| i.value())
+            .unwrap_or_default();
+        let v = v.trim();
+        if v.is_empty() {
+            return Ok(None);
+        }
+        v.parse::<f64>()
+            .map(Some)
+            .map_err(|_| format!("{name}: {v:?} is not a number"))
+    };
+    let (from, to) = match (read("from"), read("to")) {
+        (Ok(a), Ok(b)) => (a, b),
+        (Err(e), _) | (_, Err(e)) => return select::note(&e),
+    };
+    if from.is_none() && to.is_none() {
+        // Both empty: the field's filter goes.
+        let k =
+            app.borrow().filters.list().iter().position(|f| {
+                !matches!(f, Filter::Text { .. }) && f.fields().contains(&name.as_str())
+            });
+        if let Some(k) = k {
+            remove(k);
+        }
+        return;
+    }
+    let f = if is_date {
+        let rule = document()
+            .get_element_by_id(&format!("field-{k}-rule"))
+            .and_then(|e| e.dyn_into::<web_sys::HtmlSelectElement>().ok())
+            .map(|s| s.value());
+        Filter::Date {
+            field: name,
+            from: from.map_or(i32::MIN + 1, |v| v.floor() as i32),
+            to: to.map_or(i32::MAX, |v| v.floor() as i32),
+            rule: if rule.as_deref() == Some("within") {
+                DateRule::Within
+            } else {
+                DateRule::Overlap
+            },
+        }
+    } else {
+        Filter::Range {
+            field: name,
+            min: from,
+            max: to,
+        }
+    };
+    set(f);
+}
+
+/// Runs the search in the box (after a pause in typing, or at once on Enter).
+fn search_now() {
+    let q = input("search").map(|i| i.value()).unwrap_or_default();
+    set(Filter::Text {
+        fields: Vec::new(),
+        query: q.trim().to_string(),
+    });
+}
+
+thread_local! {
+    static SEARCH_TIMER: RefCell<Option<i32>> = const { RefCell::new(None) };
+}
+
+pub fn install() {
+    if let Some(i) = input("search") {
+        listen(&i, "input", true, move |_e: web_sys::Event| {
+            let w = web_sys::window().unwrap();
+            SEARCH_TIMER.with(|t| {
+                if let Some(id) = t.borrow_mut().take() {
+                    w.clear_timeout_with_handle(id);
+                }
+                let cb = Closure::once_into_js(search_now);
+                let id = w
+                    .set_timeout_with_callback_and_timeout_and_arguments_0(
+                        cb.unchecked_ref(),
+                        SEARCH_DELAY_MS,
+                    )
+                    .ok();
+                *t.borrow_mut() = id;
+            });
+        });
+        listen(&i, "keydown", false, move |e: web_sys::KeyboardEvent| {
+            if e.key() == "Enter" {
+                SEARCH_TIMER.with(|t| {
+                    if let Some(id) = t.borrow_mut().take() {
+                        web_sys::window().unwrap().clear_timeout_with_handle(id);
+                    }
+                });
+                search_now();
+            } else if e.key() == "Escape" {
+                if let Some(i) = input("search") {
+                    i.set_value("");
+                    let _ = i.blur();
+                }
+                search_now();
+            }
+        });
+    }
+    if let Some(b) = by_id("filter-button") {
+        listen(&b, "click", true, move |_e: web_sys::MouseEvent| {
+            toggle_panel()
+        });
+    }
+    if let Some(h) = input("hide-filtered") {
+        let h2 = h.clone();
+        listen(&h, "change", true, move |_e: web_sys::Event| {
+            if let Some(app) = app() {
+                app.borrow_mut().filters.hide = h2.checked();
+            }
+            select::refresh();
+        });
+    }
+}
+
+/// Opens or closes the filter panel.
+pub fn toggle_panel() {
+    let Some(p) = by_id("filter-panel") else {
+        return;
+    };
+    let open = p.hidden();
+    p.set_hidden(!open);
+    if let Some(b) = by_id("filter-button") {
+        let _ = b.set_attribute("aria-expanded", if open { "true" } else { "false" });
+    }
+    if open {
+        render_panel();
+    }
+}
