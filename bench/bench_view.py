@@ -150,9 +150,10 @@ def main():
               f"{r['catalogue_ready_ms']:.0f} ms); "
               f"fetched {r['bytes'] / 1e6:.1f} MB in {r['requests']} requests; "
               f"memory JS heap {r['js_heap'] / 2**20:.0f} MiB + wasm {r['wasm'] / 2**20:.0f} MiB")
-        head = ["phase", "frames", "median ms", "p95 ms", "raster ms", "to wgpu ms", "drawn"]
+        head = ["phase", "frames", "median ms", "p95 ms", "raster ms", "to wgpu ms", "work ms (max)", "drawn"]
+        work = lambda p: "" if p.get("work") is None else f"{p['work']:.1f} ({p['work_max']:.1f})"
         rows = [[p["phase"], str(p["frames"]), f"{p['median']:.1f}", f"{p['p95']:.1f}",
-                 f"{p['raster']:.1f}", f"{p['handover']:.1f}", p["drawn"]]
+                 f"{p['raster']:.1f}", f"{p['handover']:.1f}", work(p), p["drawn"]]
                 for p in r["phases"]]
         widths = [max(len(x) for x in col) for col in zip(head, *rows)]
         for line in [head, ["-" * w for w in widths]] + rows:
@@ -167,7 +168,9 @@ def main():
     print("Frame: one scripted step (zoom or pan) drawn at once and read back (a pixel copied out of the")
     print("canvas), so wgpu's present and the software rasteriser are inside the time. Raster: the")
     print("frame drawn on the CPU in wasm (median); to wgpu: the upload and draw calls handed to wgpu; the")
-    print("rest is the browser's GPU process (SwiftShader or llvmpipe) running them.")
+    print("rest is the browser's GPU process (SwiftShader or llvmpipe) running them. Work (filter and")
+    print("lasso phases): the filter or selection itself — every item's pass or membership, the counts,")
+    print("the dimming — before the frame is drawn.")
     return 0
 
 

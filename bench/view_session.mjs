@@ -59,10 +59,19 @@ try {
     const raster = [];
     const handover = [];
     const whole = [];
+    const work = [];
     for (const [kind, a, b] of steps) {
       const t0 = performance.now();
       if (kind === "zoom") window.vitrineView.zoom_view(a);
-      else window.vitrineView.pan_view(a, b);
+      else if (kind === "filter") {
+        window.vitrineView.set_filter(a);
+        work.push(performance.now() - t0);
+        window.vitrineView.zoom_view(1.0);
+      } else if (kind === "lasso") {
+        window.vitrineView.select_lasso(a, b);
+        work.push(performance.now() - t0);
+        window.vitrineView.zoom_view(1.0);
+      } else window.vitrineView.pan_view(a, b);
       probe.drawImage(canvas, canvas.width / 2, canvas.height / 2, 1, 1, 0, 0, 1, 1);
       probe.getImageData(0, 0, 1, 1);
       times.push(performance.now() - t0);
@@ -72,17 +81,18 @@ try {
       whole.push(s.render_ms);
       await new Promise((r) => setTimeout(r, 20));
     }
-    return { times, raster, handover, whole };
+    return { times, raster, handover, whole, work };
   }, steps);
 
   const phases = [];
   const phase = async (name, steps) => {
     console.error(`[bench-view]   ${name}`);
-    const { times, raster, handover, whole } = await run(steps);
+    const { times, raster, handover, whole, work } = await run(steps);
     const s = await state();
     phases.push({
       phase: name, frames: times.length, median: quantile(times, 0.5), p95: quantile(times, 0.95),
       raster: quantile(raster, 0.5), handover: quantile(handover, 0.5), render: quantile(whole, 0.5),
+      work: work.length ? quantile(work, 0.5) : null, work_max: work.length ? Math.max(...work) : null,
       drawn: `${s.marks} marks, ${s.thumbnails} thumbnails (${s.side_px.toFixed(1)} px)`,
     });
   };
@@ -101,6 +111,26 @@ try {
     side = target;
     await phase(`${name}: pan`, pans(120));
   }
+  // Corpus work at the fitted view: filters changed one after another (each recomputes every
+  // item's passing and the cross-filtered counts' masks, then redraws), and lassos of 200 points.
+  await page.evaluate(() => window.vitrineView.fit_view());
+  const cat = (values) => ["filter", JSON.stringify({ kind: "category", field: "technique", values }), 0];
+  await phase("filter: category", [cat(["etching"]), cat(["etching", "engraving"]), cat(["woodcut"]),
+    cat(["drawing", "woodcut"]), cat(["etching"]), cat(["mezzotint"])]);
+  const date = (from, to, rule) => ["filter", JSON.stringify({ kind: "date", field: "date", from, to, rule }), 0];
+  await phase("filter: date range", [date(1500, 1560, "overlap"), date(1520, 1600, "within"),
+    date(1450, 1700, "overlap"), date(1600, 1650, "within"), date(1480, 1520, "overlap"), date(1500, 1800, "overlap")]);
+  const lasso = (r, op) => {
+    const pts = [];
+    for (let k = 0; k < 200; k++) {
+      const a = (k / 200) * 2 * Math.PI;
+      const rr = r * (1 + 0.25 * Math.sin(5 * a));
+      pts.push(640 + rr * Math.cos(a), 400 + rr * Math.sin(a));
+    }
+    return ["lasso", pts, op];
+  };
+  await phase("lasso (200 points)", [lasso(300, "replace"), lasso(150, "subtract"), lasso(200, "add"),
+    lasso(350, "replace"), lasso(100, "subtract"), lasso(250, "replace")]);
   const end = await state();
   const cdp = await browser.newCDPSession(page);
   const heap = await cdp.send("Runtime.getHeapUsage");

@@ -438,6 +438,28 @@ test("field chips: search, a category and a date range narrow the corpus as vitr
   await page.locator("#chips .chip button").first().click();
   await page.waitForFunction(() => document.body.dataset.filters === "1");
   assert.equal(Number(await passing()), native("--date", "1500..1560", "--date-rule", "within"));
+  await page.keyboard.press("c");
+
+  // The timeline strip: its bars (each item's weight spread over its dating) sum to the dated
+  // items; brushing it sets the date chip to the brushed years (overlapping), as vitrine corpus
+  // counts them.
+  assert.equal(await page.evaluate(() => document.body.dataset.timeline), "dating");
+  const dated = native("--date", "-100000..100000");
+  assert.ok(Math.abs(Number(await page.evaluate(() => document.body.dataset.timelineTotal)) - dated) < 1e-3);
+  const strip = await page.locator("#timeline").boundingBox();
+  await page.mouse.move(strip.x + strip.width * 0.3, strip.y + strip.height / 2);
+  await page.mouse.down();
+  await page.mouse.move(strip.x + strip.width * 0.55, strip.y + strip.height / 2, { steps: 8 });
+  await page.mouse.up();
+  await page.waitForFunction(() => /\(overlapping\)/.test(document.getElementById("chips").innerText));
+  const chip = (await page.locator("#chips .chip").allInnerTexts())[0];
+  const [, from, to] = /dating: (-?\d+)–(-?\d+) \(overlapping\)/.exec(chip);
+  assert.ok(Number(from) < Number(to), chip);
+  assert.equal(Number(await passing()), native("--date", `${from}..${to}`));
+  await page.screenshot({ path: path.join(ARTIFACTS, "11-timeline-brush.png") });
+  // A click on the strip without a drag clears the date chip.
+  await page.mouse.click(strip.x + strip.width * 0.8, strip.y + strip.height / 2);
+  await page.waitForFunction(() => document.body.dataset.filters === "0");
   assert.deepEqual(errors, []);
 });
 

@@ -1,7 +1,7 @@
 //! The selection as the viewer holds it: steps with undo and redo, the items they pick, and how
 //! every item is drawn given the selection and the filters. Plain Rust, no DOM.
 
-use vitrine_corpus::corpus::{covered, replay, Lookup, Op, Step};
+use vitrine_corpus::corpus::{covered, replay, Lookup, Op, Shape, Step};
 use vitrine_corpus::mask::Mask;
 use vitrine_corpus::CorpusError;
 
@@ -88,6 +88,14 @@ impl Selection {
         Ok(())
     }
 
+    /// Whether any step, now or in the history, names items by id.
+    pub fn names_items(&self) -> bool {
+        let names = |steps: &[Step]| steps.iter().any(|s| matches!(s.shape, Shape::Ids(_)));
+        names(&self.steps)
+            || self.past.iter().any(|s| names(s))
+            || self.future.iter().any(|s| names(s))
+    }
+
     /// Whether an undo or a redo is possible.
     pub fn history(&self) -> (bool, bool) {
         (!self.past.is_empty(), !self.future.is_empty())
@@ -146,7 +154,6 @@ pub fn tones(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use vitrine_corpus::corpus::Shape;
     use vitrine_corpus::polygon::Polygon;
 
     fn grid() -> Vec<[f32; 2]> {

@@ -84,12 +84,16 @@ struct App {
     /// SHA-256 of the atlas.json text, for the corpus file.
     manifest_sha: String,
     filters: crate::filters::Filters,
+    /// The date histogram along the bottom (when the catalogue has a date field).
+    timeline: Option<timeline::Strip>,
 }
 
 #[path = "web_filters.rs"]
 mod filters;
 #[path = "web_select.rs"]
 mod select;
+#[path = "web_timeline.rs"]
+mod timeline;
 
 struct Drag {
     start: [f64; 2],
@@ -1166,9 +1170,24 @@ fn install_events(canvas: &HtmlCanvasElement) {
             e.prevent_default();
         },
     );
+    // The canvas changes size with the window and when the bars above and below it grow or
+    // shrink (chips wrapping, the timeline strip appearing): its pixels must follow its box, or
+    // the browser would scale the picture and pointer positions would drift.
+    let c = canvas.clone();
+    let on_resize = Closure::<dyn FnMut(js_sys::Array)>::new(move |_entries: js_sys::Array| {
+        resize_canvas(&c);
+        timeline::draw();
+        request_frame();
+    });
+    if let Ok(ro) = web_sys::ResizeObserver::new(on_resize.as_ref().unchecked_ref()) {
+        ro.observe(canvas);
+        std::mem::forget(ro);
+    }
+    on_resize.forget();
     let c = canvas.clone();
     listen(&window, "resize", true, move |_e: web_sys::Event| {
         resize_canvas(&c);
+        timeline::draw();
         request_frame();
     });
     for (id, f) in [("zoom-in", 0u8), ("zoom-out", 1), ("fit", 2)] {
@@ -1343,6 +1362,7 @@ async fn load(base: String) -> Result<(), String> {
         id_index: None,
         manifest_sha,
         filters: Default::default(),
+        timeline: None,
     };
     APP.with(|a| *a.borrow_mut() = Some(Rc::new(RefCell::new(app))));
     install_events(&canvas);
@@ -1379,6 +1399,8 @@ async fn load_catalogue(base: String) -> Result<(), String> {
         .atlas
         .complete(&got)
         .map_err(|e| e.to_string())?;
+    timeline::install(&mut app.borrow_mut());
+    timeline::draw();
     if let Some(c) = by_id("atlas-count") {
         c.set_text_content(Some(&format!("{count} items")));
     }
@@ -1474,6 +1496,17 @@ pub fn view_state() -> String {
         "maps": a.atlas.maps.iter().map(|m| m.name.clone()).collect::<Vec<_>>(),
     })
     .to_string()
+}
+
+/// For tests and scripts: shows the whole map at once (no glide) and draws.
+#[wasm_bindgen]
+pub fn fit_view() {
+    let Some(app) = app() else { return };
+    let mut a = app.borrow_mut();
+    let (w, h) = a.size();
+    a.glide = None;
+    a.camera = Camera::fit(a.atlas.bounds, [w as f64, h as f64]);
+    a.render();
 }
 
 /// For tests and scripts: zooms by `factor` about the canvas centre, draws at once, and starts

@@ -463,3 +463,14 @@ pub fn toggle_panel() {
         render_panel();
     }
 }
+
+/// For tests and scripts: sets a filter given as JSON (as a corpus file writes it, e.g.
+/// {"kind":"category","field":"technique","values":["etching"]}); returns the count passing.
+#[wasm_bindgen]
+pub fn set_filter(json: &str) -> Result<usize, JsValue> {
+    let f: Filter = serde_json::from_str(json).map_err(|e| JsValue::from_str(&e.to_string()))?;
+    set(f);
+    Ok(app()
+        .and_then(|a| a.borrow().filters.passing().map(|m| m.count()))
+        .unwrap_or(0))
+}

@@ -152,9 +152,13 @@ fn index_of(a: &mut App) -> &HashMap<String, usize> {
 /// Runs `f` with the selection and a lookup on the selection's map.
 fn with_lookup<R>(
     a: &mut App,
+    needs_ids: bool,
     f: impl FnOnce(&mut crate::selection::Selection, &Lookup) -> R,
 ) -> R {
-    index_of(a);
+    // The id index (a million strings for a million items) is made only when a step names items.
+    if needs_ids {
+        index_of(a);
+    }
     let App {
         atlas,
         selection,
@@ -163,8 +167,7 @@ fn with_lookup<R>(
         grid,
         ..
     } = a;
-    let index = id_index.as_ref().unwrap();
-    let find = |id: &str| index.get(id).copied();
+    let find = |id: &str| id_index.as_ref().and_then(|m| m.get(id).copied());
     let same_map = *selection_map == atlas.current;
     let near = |r: [f64; 4]| {
         let mut v = Vec::new();
@@ -198,7 +201,8 @@ pub fn apply(step: Step) {
                 "This selection was drawn on the {name} map: go back to it to draw more, or clear it (x) to start on this one."
             ));
         }
-        with_lookup(&mut a, |sel, at| sel.push(step, at))
+        let ids = matches!(step.shape, Shape::Ids(_));
+        with_lookup(&mut a, ids, |sel, at| sel.push(step, at))
     };
     if let Err(e) = result {
         note(&e.to_string());
@@ -265,9 +269,17 @@ pub fn undo(redo: bool) {
     let Some(app) = app() else { return };
     let r = {
         let mut a = app.borrow_mut();
+        let ids = a.selection.names_items();
         with_lookup(
             &mut a,
-            |sel, at| if redo { sel.redo(at) } else { sel.undo(at) },
+            ids,
+            |sel, at| {
+                if redo {
+                    sel.redo(at)
+                } else {
+                    sel.undo(at)
+                }
+            },
         )
     };
     if let Err(e) = r {
@@ -289,7 +301,8 @@ fn corpus_items(a: &mut App) -> Vec<usize> {
     let steps = a.selection.steps().to_vec();
     let filters = a.filters.list().to_vec();
     let cols = std::mem::take(&mut a.atlas.fields);
-    let items = with_lookup(a, |_, at| corpus_mask(&steps, &filters, &cols, at));
+    let ids = steps.iter().any(|s| matches!(s.shape, Shape::Ids(_)));
+    let items = with_lookup(a, ids, |_, at| corpus_mask(&steps, &filters, &cols, at));
     a.atlas.fields = cols;
     match items {
         Ok(m) => m.items().collect(),
@@ -357,6 +370,7 @@ pub fn refresh() {
         )));
     }
     note("");
+    timeline::draw();
     request_frame();
 }
 
@@ -515,4 +529,26 @@ pub fn install() {
     }
     set_state("mode", "move");
     refresh();
+}
+
+/// For tests and scripts: selects with a lasso through canvas points [x0, y0, x1, y1, ...] and
+/// `op` ("replace", "add" or "subtract"), as a drawn lasso does; returns the selected count.
+#[wasm_bindgen]
+pub fn select_lasso(points: Vec<f64>, op: &str) -> usize {
+    let op = match op {
+        "add" => Op::Add,
+        "subtract" => Op::Subtract,
+        _ => Op::Replace,
+    };
+    let s = Sketch {
+        op,
+        boxed: false,
+        points: points.chunks_exact(2).map(|p| [p[0], p[1]]).collect(),
+    };
+    if let Some(&last) = s.points.last() {
+        finish(s, last);
+    }
+    app()
+        .and_then(|a| a.borrow().selection.mask().map(|m| m.count()))
+        .unwrap_or(0)
 }

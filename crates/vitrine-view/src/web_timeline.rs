@@ -1,0 +1,259 @@
+//! The timeline strip along the bottom: the date histogram of the whole collection, of what the
+//! filters leave and of the corpus, each item's weight spread over its dating range. Brushing it
+//! sets the date chip (overlapping years); a click without a drag removes it.
+
+use super::*;
+use vitrine_corpus::columns::Column;
+use vitrine_corpus::filter::{DateRule, Filter};
+use vitrine_corpus::timeline::{bin_years, Histogram};
+
+/// Bars at most, over the strip's width.
+const MAX_BINS: usize = 160;
+
+pub struct Strip {
+    /// The date field it shows.
+    field: usize,
+    name: String,
+    whole: Histogram,
+    /// The brush being dragged: canvas x of its two ends.
+    brush: Option<(f64, f64)>,
+}
+
+fn canvas() -> Option<HtmlCanvasElement> {
+    document()
+        .get_element_by_id("timeline")
+        .and_then(|e| e.dyn_into().ok())
+}
+
+/// Makes the strip for the first date field, once the catalogue is loaded.
+pub fn install(a: &mut App) {
+    let Some((k, c)) = a
+        .atlas
+        .fields
+        .iter()
+        .enumerate()
+        .find(|(_, c)| matches!(c.column, Column::Date { .. }))
+    else {
+        return;
+    };
+    let Column::Date { start, end } = &c.column else {
+        return;
+    };
+    let mut span: Option<(i32, i32)> = None;
+    for i in 0..a.atlas.n {
+        if start[i] != i32::MIN {
+            span = Some(span.map_or((start[i], end[i]), |(x, y)| {
+                (x.min(start[i]), y.max(end[i]))
+            }));
+        }
+    }
+    let Some((lo, hi)) = span else { return };
+    let mut whole = Histogram::covering(lo, hi, bin_years(lo, hi, MAX_BINS));
+    whole.add(start, end, 0..a.atlas.n);
+    a.timeline = Some(Strip {
+        field: k,
+        name: c.field.name.clone(),
+        whole,
+        brush: None,
+    });
+    if let Some(f) = by_id("timeline-strip") {
+        f.set_hidden(false);
+    }
+    set_state("timeline", &c.field.name);
+    if let Some(cv) = canvas() {
+        listen_brush(&cv);
+    }
+}
+
+/// The year under canvas x.
+fn year_at(s: &Strip, w: f64, x: f64) -> i32 {
+    let years = (s.whole.counts.len() as i32 * s.whole.bin) as f64;
+    s.whole.from + ((x / w).clamp(0.0, 1.0) * years).floor() as i32
+}
+
+fn listen_brush(cv: &HtmlCanvasElement) {
+    let c = cv.clone();
+    let x_of = move |e: &web_sys::PointerEvent| {
+        let r = c.get_bounding_client_rect();
+        (e.client_x() as f64 - r.left()) * c.width() as f64 / r.width().max(1.0)
+    };
+    let x1 = x_of.clone();
+    let c1 = cv.clone();
+    listen(cv, "pointerdown", false, move |e: web_sys::PointerEvent| {
+        let _ = c1.set_pointer_capture(e.pointer_id());
+        let x = x1(&e);
+        if let Some(app) = app() {
+            if let Some(s) = app.borrow_mut().timeline.as_mut() {
+                s.brush = Some((x, x));
+            }
+        }
+        draw();
+    });
+    let x2 = x_of.clone();
+    listen(cv, "pointermove", false, move |e: web_sys::PointerEvent| {
+        let x = x2(&e);
+        let moved = app().is_some_and(|app| {
+            let mut a = app.borrow_mut();
+            match a.timeline.as_mut().and_then(|s| s.brush.as_mut()) {
+                Some(b) => {
+                    b.1 = x;
+                    true
+                }
+                None => false,
+            }
+        });
+        if moved {
+            draw();
+        }
+    });
+    let c3 = cv.clone();
+    listen(cv, "pointerup", false, move |e: web_sys::PointerEvent| {
+        let x = x_of(&e);
+        let Some(app) = app() else { return };
+        let (filter, name) = {
+            let mut a = app.borrow_mut();
+            let Some(s) = a.timeline.as_mut() else { return };
+            let Some((x0, _)) = s.brush.take() else {
+                return;
+            };
+            let w = c3.width() as f64;
+            let name = s.name.clone();
+            if (x - x0).abs() < 3.0 {
+                (None, name)
+            } else {
+                let (a0, a1) = (year_at(s, w, x0.min(x)), year_at(s, w, x0.max(x)));
+                (
+                    Some(Filter::Date {
+                        field: name.clone(),
+                        from: a0,
+                        to: a1,
+                        rule: DateRule::Overlap,
+                    }),
+                    name,
+                )
+            }
+        };
+        match filter {
+            Some(f) => filters::set(f),
+            None => {
+                let k = app
+                    .borrow()
+                    .filters
+                    .list()
+                    .iter()
+                    .position(|f| matches!(f, Filter::Date { field, .. } if *field == name));
+                match k {
+                    Some(k) => filters::remove(k),
+                    None => draw(),
+                }
+            }
+        }
+    });
+}
+
+/// Draws the strip: whole collection, filtered, corpus; the brush; year ticks.
+pub fn draw() {
+    let Some(app) = app() else { return };
+    let Some(cv) = canvas() else { return };
+    let a = app.borrow();
+    let Some(s) = a.timeline.as_ref() else { return };
+    let ratio = web_sys::window()
+        .map_or(1.0, |w| w.device_pixel_ratio())
+        .max(1.0);
+    let (cw, ch) = (
+        (cv.client_width() as f64 * ratio).round().max(1.0) as u32,
+        (cv.client_height() as f64 * ratio).round().max(1.0) as u32,
+    );
+    if cv.width() != cw || cv.height() != ch {
+        cv.set_width(cw);
+        cv.set_height(ch);
+    }
+    let Some(ctx) = cv
+        .get_context("2d")
+        .ok()
+        .flatten()
+        .and_then(|c| c.dyn_into::<web_sys::CanvasRenderingContext2d>().ok())
+    else {
+        return;
+    };
+    let (w, h) = (cw as f64, ch as f64);
+    ctx.clear_rect(0.0, 0.0, w, h);
+    let Column::Date { start, end } = &a.atlas.fields[s.field].column else {
+        return;
+    };
+    let empty = || Histogram {
+        counts: vec![0.0; s.whole.counts.len()],
+        ..s.whole.clone()
+    };
+    let pass = a.filters.passing();
+    let filtered = pass.map(|p| {
+        let mut hist = empty();
+        hist.add(start, end, p.items());
+        hist
+    });
+    let corpus = a.selection.mask().map(|m| {
+        let mut c = m.clone();
+        if let Some(p) = pass {
+            c.and(p);
+        }
+        let mut hist = empty();
+        hist.add(start, end, c.items());
+        hist
+    });
+    let axis = 14.0 * ratio;
+    let top = 4.0 * ratio;
+    let max = s.whole.counts.iter().cloned().fold(0.0, f64::max).max(1e-9);
+    let bw = w / s.whole.counts.len() as f64;
+    let bars = |hist: &Histogram, colour: &str| {
+        ctx.set_fill_style_str(colour);
+        for (b, &v) in hist.counts.iter().enumerate() {
+            if v > 0.0 {
+                let bh = ((h - axis - top) * v / max).max(1.0);
+                ctx.fill_rect(b as f64 * bw, h - axis - bh, (bw - ratio).max(1.0), bh);
+            }
+        }
+    };
+    bars(&s.whole, "#d9d0bf");
+    if let Some(f) = &filtered {
+        bars(f, "#8c8577");
+    }
+    if let Some(c) = &corpus {
+        bars(c, "#116466");
+    }
+    // Year ticks: about one per 90 CSS pixels, on round years.
+    ctx.set_fill_style_str("#5f5a55");
+    ctx.set_font(&format!("{}px sans-serif", (11.0 * ratio).round()));
+    let years = s.whole.counts.len() as i32 * s.whole.bin;
+    let step = bin_years(0, years, ((w / ratio) / 90.0).max(2.0) as usize).max(1);
+    let first = (s.whole.from + step - 1).div_euclid(step) * step;
+    let mut y = first;
+    while y <= s.whole.from + years {
+        let x = (y - s.whole.from) as f64 / years as f64 * w;
+        ctx.fill_rect(x, h - axis, ratio, 3.0 * ratio);
+        let _ = ctx.fill_text(&y.to_string(), x + 2.0 * ratio, h - 2.0 * ratio);
+        y += step;
+    }
+    // The brush, or the date chip's range.
+    let range = s
+        .brush
+        .map(|(x0, x1)| (x0.min(x1), x0.max(x1)))
+        .or_else(|| {
+            a.filters.list().iter().find_map(|f| match f {
+                Filter::Date {
+                    field, from, to, ..
+                } if *field == s.name => {
+                    let x = |yr: i32| ((yr - s.whole.from) as f64 / years as f64 * w).clamp(0.0, w);
+                    Some((x(*from), x(to.saturating_add(1))))
+                }
+                _ => None,
+            })
+        });
+    if let Some((x0, x1)) = range {
+        ctx.set_fill_style_str("rgba(17, 100, 102, 0.12)");
+        ctx.fill_rect(x0, 0.0, (x1 - x0).max(1.0), h - axis);
+        ctx.set_fill_style_str("#116466");
+        ctx.fill_rect(x0, 0.0, ratio, h - axis);
+        ctx.fill_rect(x1 - ratio, 0.0, ratio, h - axis);
+    }
+    set_state("timelineTotal", &format!("{:.3}", s.whole.total()));
+}
