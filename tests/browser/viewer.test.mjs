@@ -463,6 +463,58 @@ test("field chips: search, a category and a date range narrow the corpus as vitr
   assert.deepEqual(errors, []);
 });
 
+test("a copied link reopens the corpus in a fresh page, and a saved corpus file opens again", async () => {
+  const url = await serve(ATLAS);
+  const { page, errors } = await newPage(url);
+  await page.waitForFunction(() => document.body.dataset.state === "ready", null, { timeout: 60000 });
+  // A lasso, a hand-picked item, a category filter and a zoomed view.
+  const pts = [];
+  for (let k = 0; k < 60; k++) {
+    const a = (k / 60) * 2 * Math.PI;
+    pts.push(640 + 300 * Math.cos(a), 380 + 220 * Math.sin(a));
+  }
+  await page.evaluate((p) => window.vitrineView.select_lasso(p, "replace"), pts);
+  await page.evaluate(() => window.vitrineView.set_filter(JSON.stringify({ kind: "category", field: "subject", values: ["figure", "ornament"] })));
+  await page.evaluate(() => window.vitrineView.zoom_view(1.7));
+  await page.click("#copy-link");
+  const link = page.url();
+  assert.match(link, /#corpus=/);
+  const corpus = Number(await page.evaluate(() => document.body.dataset.corpus));
+  const selected = Number(await page.evaluate(() => document.body.dataset.selected));
+  assert.ok(corpus > 0 && corpus < selected, `${corpus} of ${selected}`);
+  const zoom = (await viewState(page)).zoom;
+  // A colleague's browser: a fresh page on the link.
+  const fresh = await newPage(link);
+  await fresh.page.waitForFunction(() => document.body.dataset.restored === "link", null, { timeout: 60000 });
+  assert.equal(Number(await fresh.page.evaluate(() => document.body.dataset.selected)), selected);
+  assert.equal(Number(await fresh.page.evaluate(() => document.body.dataset.corpus)), corpus);
+  assert.deepEqual(await fresh.page.locator("#chips .chip").allInnerTexts(), await page.locator("#chips .chip").allInnerTexts());
+  assert.ok(Math.abs((await viewState(fresh.page)).zoom / zoom - 1) < 1e-3, "the view comes with the link");
+  await fresh.page.screenshot({ path: path.join(ARTIFACTS, "12-link-reopened.png") });
+  // The corpus file saved in the first page opens in the second after clearing there.
+  const dir = fs.mkdtempSync(path.join(os.tmpdir(), "vitrine-share-"));
+  const [d] = await Promise.all([page.waitForEvent("download"), page.click("#export-json")]);
+  await d.saveAs(path.join(dir, "c.json"));
+  await fresh.page.keyboard.press("x");
+  await fresh.page.locator("#chips .chip button").first().click();
+  await fresh.page.waitForFunction(() => !document.body.dataset.corpus);
+  await fresh.page.setInputFiles("#open-corpus", path.join(dir, "c.json"));
+  await fresh.page.waitForFunction(() => document.body.dataset.restored === "file");
+  assert.equal(Number(await fresh.page.evaluate(() => document.body.dataset.corpus)), corpus);
+  assert.match(await fresh.page.locator("#select-note").innerText(), new RegExp(`Opened the corpus of ${corpus} items`));
+  // Too much for a link: a lasso of thousands of points gives a clear message, not a broken link.
+  const many = [];
+  for (let k = 0; k < 3000; k++) {
+    const a = (k / 3000) * 2 * Math.PI;
+    many.push(640 + 300 * Math.cos(a) + (k % 7), 380 + 220 * Math.sin(a) + (k % 5));
+  }
+  await page.evaluate((p) => window.vitrineView.select_lasso(p, "replace"), many);
+  await page.click("#copy-link");
+  assert.match(await page.locator("#select-note").innerText(), /too detailed for a link/);
+  assert.deepEqual(errors, []);
+  assert.deepEqual(fresh.errors, []);
+});
+
 test("where the browser offers WebGPU the viewer draws with it, the same pixels as with WebGL2", async () => {
   // SwiftShader also gives Chromium a WebGPU adapter when unsafe WebGPU is allowed; its canvas
   // shows what is drawn only when Chromium composites with Vulkan (SwiftShader's too).

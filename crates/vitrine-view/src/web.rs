@@ -92,6 +92,8 @@ struct App {
 mod filters;
 #[path = "web_select.rs"]
 mod select;
+#[path = "web_share.rs"]
+mod share;
 #[path = "web_timeline.rs"]
 mod timeline;
 
@@ -1368,6 +1370,7 @@ async fn load(base: String) -> Result<(), String> {
     install_events(&canvas);
     select::install();
     filters::install();
+    share::install();
     if let Some(l) = by_id("loading") {
         l.set_hidden(true);
     }
@@ -1401,6 +1404,7 @@ async fn load_catalogue(base: String) -> Result<(), String> {
         .map_err(|e| e.to_string())?;
     timeline::install(&mut app.borrow_mut());
     timeline::draw();
+    share::restore_from_address();
     if let Some(c) = by_id("atlas-count") {
         c.set_text_content(Some(&format!("{count} items")));
     }

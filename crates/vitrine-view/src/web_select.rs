@@ -150,7 +150,7 @@ fn index_of(a: &mut App) -> &HashMap<String, usize> {
 }
 
 /// Runs `f` with the selection and a lookup on the selection's map.
-fn with_lookup<R>(
+pub fn with_lookup<R>(
     a: &mut App,
     needs_ids: bool,
     f: impl FnOnce(&mut crate::selection::Selection, &Lookup) -> R,
@@ -371,6 +371,8 @@ pub fn refresh() {
     }
     note("");
     timeline::draw();
+    // The address carries the corpus (when it fits in a link).
+    let _ = share::update_address();
     request_frame();
 }
 
