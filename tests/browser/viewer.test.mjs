@@ -460,6 +460,23 @@ test("field chips: search, a category and a date range narrow the corpus as vitr
   // A click on the strip without a drag clears the date chip.
   await page.mouse.click(strip.x + strip.width * 0.8, strip.y + strip.height / 2);
   await page.waitForFunction(() => document.body.dataset.filters === "0");
+
+  // Colour by field: the seven largest values in the Okabe-Ito palette (the largest orange,
+  // #E69F00), the rest grey, with a legend.
+  await page.selectOption("#colour-choice", { label: "subject" });
+  await page.waitForFunction(() => document.body.dataset.colour === "subject");
+  await settle(page);
+  const rows = await page.locator("#legend .swatch-row").allInnerTexts();
+  assert.equal(rows.length, 8, JSON.stringify(rows));
+  assert.match(rows[7], /^other values \(\d+\)$/);
+  const shot = PNG.sync.read(await canvasShot(page, "13-colour-by-subject.png"));
+  let orange = 0;
+  for (let i = 0; i < shot.data.length; i += 4) {
+    if (shot.data[i] === 0xE6 && shot.data[i + 1] === 0x9F && shot.data[i + 2] === 0x00) orange++;
+  }
+  assert.ok(orange > 50, `${orange} pixels in the first palette colour`);
+  await page.selectOption("#colour-choice", { label: "pictures" });
+  await page.waitForFunction(() => document.body.dataset.colour === "pictures");
   assert.deepEqual(errors, []);
 });
 

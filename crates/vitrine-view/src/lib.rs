@@ -9,6 +9,7 @@
 
 pub mod atlas;
 pub mod camera;
+pub mod colour;
 pub mod filters;
 pub mod grid;
 pub mod pick;

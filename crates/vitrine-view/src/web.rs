@@ -86,6 +86,8 @@ struct App {
     filters: crate::filters::Filters,
     /// The date histogram along the bottom (when the catalogue has a date field).
     timeline: Option<timeline::Strip>,
+    /// The marks' own colours (their pictures' averages) while the marks are coloured by a field.
+    picture_colours: Option<Vec<[u8; 4]>>,
 }
 
 #[path = "web_filters.rs"]
@@ -1365,6 +1367,7 @@ async fn load(base: String) -> Result<(), String> {
         manifest_sha,
         filters: Default::default(),
         timeline: None,
+        picture_colours: None,
     };
     APP.with(|a| *a.borrow_mut() = Some(Rc::new(RefCell::new(app))));
     install_events(&canvas);
@@ -1404,6 +1407,7 @@ async fn load_catalogue(base: String) -> Result<(), String> {
         .map_err(|e| e.to_string())?;
     timeline::install(&mut app.borrow_mut());
     timeline::draw();
+    filters::install_colour_menu();
     share::restore_from_address();
     if let Some(c) = by_id("atlas-count") {
         c.set_text_content(Some(&format!("{count} items")));

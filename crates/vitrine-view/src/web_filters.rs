@@ -474,3 +474,127 @@ pub fn set_filter(json: &str) -> Result<usize, JsValue> {
         .and_then(|a| a.borrow().filters.passing().map(|m| m.count()))
         .unwrap_or(0))
 }
+
+/// Colours the marks by catalogue field `k` (None: by their pictures), with a legend.
+pub fn colour_by(k: Option<usize>) {
+    let Some(app) = app() else { return };
+    let legend = {
+        let mut a = app.borrow_mut();
+        if !a.atlas.catalogue {
+            return;
+        }
+        let n = a.atlas.n;
+        if a.picture_colours.is_none() {
+            a.picture_colours = Some(a.atlas.colours.clone());
+        }
+        match k.and_then(|k| a.atlas.fields.get(k)) {
+            Some(c) => {
+                let name = c.field.name.clone();
+                let (cols, legend) = crate::colour::by_field(c, n);
+                a.atlas.colours = cols;
+                Some((name, legend))
+            }
+            None => {
+                let pictures = a.picture_colours.take().unwrap_or_default();
+                a.atlas.colours = pictures;
+                None
+            }
+        }
+    };
+    set_state(
+        "colour",
+        legend.as_ref().map_or("pictures", |(n, _)| n.as_str()),
+    );
+    show_legend(legend);
+    select::refresh();
+}
+
+fn show_legend(legend: Option<(String, crate::colour::Legend)>) {
+    use crate::colour::{Legend, OTHER};
+    let Some(box_) = by_id("legend") else { return };
+    box_.set_text_content(None);
+    let Some((name, legend)) = legend else {
+        box_.set_hidden(true);
+        return;
+    };
+    let doc = document();
+    let h = doc.create_element("h3").unwrap();
+    h.set_text_content(Some(&name));
+    let _ = box_.append_child(&h);
+    let hex = |c: [u8; 3]| format!("#{:02x}{:02x}{:02x}", c[0], c[1], c[2]);
+    let row = |colour: [u8; 3], text: &str| {
+        let r = doc.create_element("div").unwrap();
+        r.set_class_name("swatch-row");
+        let sw = doc.create_element("span").unwrap();
+        sw.set_class_name("swatch");
+        let _ = sw.set_attribute("style", &format!("background:{}", hex(colour)));
+        let t = doc.create_element("span").unwrap();
+        t.set_text_content(Some(text));
+        let _ = r.append_child(&sw);
+        let _ = r.append_child(&t);
+        r
+    };
+    match legend {
+        Legend::Categories(shown, rest) => {
+            for (v, c, count) in shown {
+                let _ = box_.append_child(&row(c, &format!("{v} ({count})")));
+            }
+            if rest > 0 {
+                let _ = box_.append_child(&row(OTHER, &format!("other values ({rest})")));
+            }
+        }
+        Legend::Ramp { lo, hi, stops } => {
+            let bar = doc.create_element("div").unwrap();
+            bar.set_class_name("ramp");
+            let stops: Vec<String> = stops.iter().map(|&c| hex(c)).collect();
+            let _ = bar.set_attribute(
+                "style",
+                &format!("background:linear-gradient(to right,{})", stops.join(",")),
+            );
+            let _ = box_.append_child(&bar);
+            let ends = doc.create_element("div").unwrap();
+            ends.set_class_name("ramp-ends");
+            let fmt = |x: f64| {
+                if x.fract() == 0.0 || x.abs() >= 100.0 {
+                    format!("{}", x.round())
+                } else {
+                    format!("{x:.1}")
+                }
+            };
+            for x in [lo, hi] {
+                let s = doc.create_element("span").unwrap();
+                s.set_text_content(Some(&fmt(x)));
+                let _ = ends.append_child(&s);
+            }
+            let _ = box_.append_child(&ends);
+        }
+    }
+    box_.set_hidden(false);
+}
+
+/// Fills the Colour menu once the catalogue is there.
+pub fn install_colour_menu() {
+    let Some(app) = app() else { return };
+    let Some(sel) = document()
+        .get_element_by_id("colour-choice")
+        .and_then(|e| e.dyn_into::<web_sys::HtmlSelectElement>().ok())
+    else {
+        return;
+    };
+    let a = app.borrow();
+    for (k, c) in a.atlas.fields.iter().enumerate() {
+        if matches!(c.column, Column::Text(_)) {
+            continue;
+        }
+        if let Ok(o) =
+            web_sys::HtmlOptionElement::new_with_text_and_value(&c.field.name, &k.to_string())
+        {
+            let _ = sel.append_child(&o);
+        }
+    }
+    drop(a);
+    let s2 = sel.clone();
+    listen(&sel, "change", true, move |_e: web_sys::Event| {
+        colour_by(s2.value().parse::<usize>().ok());
+    });
+}
