@@ -234,6 +234,19 @@ test("the demo atlas loads on software WebGL, draws marks, then thumbnails, and 
   await page.waitForFunction((id) => document.body.dataset.card === id, next);
   assert.equal(await page.locator("#card ol.neighbours li").count(), 15);
   assert.equal((await chunkUrls()).length, 1, "the chunk was fetched once");
+  // Keys walk the neighbour graph: n opens the nearest neighbour not yet seen, Backspace goes back.
+  // (The card came from the record's card, so the record itself is skipped.)
+  const nbIds = await page.locator("#card ol.neighbours button").evaluateAll((bs) => bs.map((b) => b.dataset.id));
+  const firstNb = nbIds.find((id) => id !== record.id);
+  await page.keyboard.press("n");
+  await page.waitForFunction((id) => document.body.dataset.card === id, firstNb);
+  await page.keyboard.press("Backspace");
+  await page.waitForFunction((id) => document.body.dataset.card === id, next);
+  // The card's picture is from the largest thumbnail level (fetched for the card if need be).
+  await page.waitForFunction(() => {
+    const c = document.querySelector("#card canvas.picture");
+    return c && Math.max(c.width, c.height) > 200;
+  });
   await page.mouse.move(box.x + x, box.y + y);
   await page.mouse.click(box.x + x, box.y + y);
   await page.waitForFunction((id) => document.body.dataset.card === id, record.id);

@@ -88,6 +88,9 @@ struct App {
     timeline: Option<timeline::Strip>,
     /// The marks' own colours (their pictures' averages) while the marks are coloured by a field.
     picture_colours: Option<Vec<[u8; 4]>>,
+    /// The record cards walked through (for Backspace), and the one shown last.
+    walk: Vec<usize>,
+    open_prev: Option<usize>,
 }
 
 #[path = "web_filters.rs"]
@@ -652,9 +655,15 @@ fn fetch_sheets(wanted: Vec<(usize, usize)>) {
                     .map(|img| img.to_rgb8())
                     .map_err(|e| format!("{url}: {e}"))
             });
+            let mut card = None;
             if let Some(app) = self::app() {
                 let mut a = app.borrow_mut();
                 a.fetching.remove(&(level, index));
+                // The open record card waits for this sheet for its picture: show it again.
+                let largest = a.sheets.levels.len().saturating_sub(1);
+                card = a
+                    .open
+                    .filter(|&o| level == largest && a.sheets.sheet_of(largest, o) == index);
                 match result {
                     Ok(img) => {
                         let frame = a.frames;
@@ -672,6 +681,9 @@ fn fetch_sheets(wanted: Vec<(usize, usize)>) {
                     Err(e) => web_sys::console::warn_1(&format!("sheet not loaded: {e}").into()),
                 }
             }
+            if card.is_some() {
+                open_card(card);
+            }
             request_frame();
         });
     }
@@ -682,6 +694,10 @@ fn open_card(i: Option<usize>) {
     app.borrow_mut().open = i;
     let Some(card) = by_id("card") else { return };
     let Some(i) = i else {
+        let mut a = app.borrow_mut();
+        a.walk.clear();
+        a.open_prev = None;
+        drop(a);
         card.set_hidden(true);
         set_state("card", "");
         request_frame();
@@ -691,6 +707,27 @@ fn open_card(i: Option<usize>) {
     let nb = app.borrow_mut().atlas.neighbours_of(i);
     if nb.is_none() {
         fetch_neighbours(i);
+    }
+    // The card shows the largest thumbnail level: its sheet is fetched if it is not here yet.
+    let want = {
+        let a = app.borrow();
+        let l = a.sheets.levels.len();
+        (l > 0 && a.atlas.extents[i].0 > 0)
+            .then(|| (l - 1, a.sheets.sheet_of(l - 1, i)))
+            .filter(|&(l, s)| a.sheets.levels[l].loaded[s].is_none())
+    };
+    if let Some(w) = want {
+        fetch_sheets(vec![w]);
+    }
+    // Walking from card to card: the way back.
+    {
+        let mut a = app.borrow_mut();
+        if let Some(prev) = a.open_prev.take() {
+            if prev != i {
+                a.walk.push(prev);
+            }
+        }
+        a.open_prev = Some(i);
     }
     let a = app.borrow();
     let doc = document();
@@ -807,6 +844,30 @@ fn fetch_neighbours(i: usize) {
             open_card(open);
         }
     });
+}
+
+/// With a record card open: `forward` opens its nearest neighbour not yet walked through; else the
+/// card before it.
+fn card_step(forward: bool) {
+    let Some(app) = app() else { return };
+    let next = {
+        let mut a = app.borrow_mut();
+        let Some(i) = a.open else { return };
+        if forward {
+            let walked = a.walk.clone();
+            a.atlas
+                .neighbours_of(i)
+                .and_then(|nb| nb.into_iter().find(|j| !walked.contains(j) && *j != i))
+        } else {
+            let back = a.walk.pop();
+            // Going back must not record the card left as a step forward.
+            a.open_prev = None;
+            back
+        }
+    };
+    if let Some(j) = next {
+        open_card(Some(j));
+    }
 }
 
 fn card_picture(a: &App, i: usize) -> Option<web_sys::Element> {
@@ -1150,6 +1211,8 @@ fn install_events(canvas: &HtmlCanvasElement) {
                         open_card(None);
                     }
                 }
+                "n" => card_step(true),
+                "Backspace" => card_step(false),
                 "l" => select::set_mode(select::Mode::Lasso),
                 "b" => select::set_mode(select::Mode::Box),
                 "a" => select::everything(),
@@ -1368,6 +1431,8 @@ async fn load(base: String) -> Result<(), String> {
         filters: Default::default(),
         timeline: None,
         picture_colours: None,
+        walk: Vec::new(),
+        open_prev: None,
     };
     APP.with(|a| *a.borrow_mut() = Some(Rc::new(RefCell::new(app))));
     install_events(&canvas);
