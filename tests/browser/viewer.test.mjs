@@ -337,6 +337,10 @@ test("a lasso selects, Shift and Alt lassos add and take away, and the corpus ex
   assert.ok(first > 100 && first < 6000, `${first} selected`);
   assert.equal(await page.locator("#selected-count").innerText(), `${first} selected`);
   assert.ok(await page.locator("#tray").isVisible());
+  // The tray's figures: the years the corpus spans and its commonest values per category field.
+  const figures = await page.locator("#tray-figures").innerText();
+  assert.match(figures, /dating\s+\d{4}–\d{4}/);
+  assert.match(figures, /technique\s+[^\n]+ \d+%/);
   await page.screenshot({ path: path.join(ARTIFACTS, "09-lasso-selection.png") });
   // Back to moving the map: Shift-drag adds a second region, Alt-drag takes part of it away.
   await page.keyboard.press("Escape");

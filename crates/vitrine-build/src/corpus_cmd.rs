@@ -182,7 +182,8 @@ fn filters_from_args(a: &CorpusArgs, atlas: &Atlas) -> Result<Vec<Filter>> {
     Ok(out)
 }
 
-fn steps_from_args(a: &CorpusArgs) -> Result<Vec<Step>> {
+/// The steps the flags give; `before` says whether steps come before them (from a corpus file).
+fn steps_from_args(a: &CorpusArgs, before: bool) -> Result<Vec<Step>> {
     let mut steps = Vec::new();
     for s in &a.lassos {
         let p = Polygon::parse(s).with_context(|| format!("--lasso {s:?}"))?;
@@ -205,7 +206,7 @@ fn steps_from_args(a: &CorpusArgs) -> Result<Vec<Step>> {
     }
     for s in &a.subtract {
         let p = Polygon::parse(s).with_context(|| format!("--subtract-lasso {s:?}"))?;
-        if steps.is_empty() && a.from.is_none() {
+        if steps.is_empty() && !before {
             // Removing from nothing: start from every item.
             steps.push(Step {
                 op: Op::Replace,
@@ -246,6 +247,9 @@ pub fn run(atlas_dir: &Path, a: &CorpusArgs) -> Result<CorpusReport> {
     let atlas = Atlas::open(atlas_dir)?;
     let m = &atlas.manifest;
     let n = m.item_count as usize;
+    if m.maps.is_empty() {
+        bail!("{}: the atlas has no map", atlas_dir.display());
+    }
     for (p, flag) in [(&a.csv, "--csv"), (&a.json, "--json"), (&a.iiif, "--iiif")] {
         if let Some(p) = p {
             check_output(p, flag, atlas_dir, a.force)?;
@@ -265,7 +269,7 @@ pub fn run(atlas_dir: &Path, a: &CorpusArgs) -> Result<CorpusReport> {
     };
     let mut steps = from.as_ref().map(|c| c.steps.clone()).unwrap_or_default();
     let mut filters = from.as_ref().map(|c| c.filters.clone()).unwrap_or_default();
-    let extra_steps = steps_from_args(a)?;
+    let extra_steps = steps_from_args(a, !steps.is_empty())?;
     let extra_filters = filters_from_args(a, &atlas)?;
     let changed = !extra_steps.is_empty() || !extra_filters.is_empty();
     steps.extend(extra_steps);
@@ -291,7 +295,7 @@ pub fn run(atlas_dir: &Path, a: &CorpusArgs) -> Result<CorpusReport> {
             notes.push(format!(
                 "the corpus file was made on another atlas or build ({:?}, manifest {}); its steps are replayed on this one",
                 c.atlas.title,
-                &c.atlas.manifest_sha256[..c.atlas.manifest_sha256.len().min(12)]
+                c.atlas.manifest_sha256.chars().take(12).collect::<String>()
             ));
         }
     }

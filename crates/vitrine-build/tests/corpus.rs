@@ -221,6 +221,23 @@ fn a_corpus_file_replays_to_the_same_items_and_bad_input_is_named() {
     assert!(!o.status.success());
     let e = String::from_utf8_lossy(&o.stderr);
     assert!(e.contains(&format!("lists {} items", a.len() - 1)), "{e}");
+    // A corpus file with filters only, and a lasso taken away: the lasso is taken from every
+    // item the filters pass (not from nothing).
+    ok(&corpus(
+        d,
+        &["--filter", "technique=etching", "--json", "f.json"],
+    ));
+    let only = ids_of(&d.join("f.json")).len();
+    let out = ok(&corpus(
+        d,
+        &[
+            "--from",
+            "f.json",
+            "--subtract-lasso",
+            "1e6,1e6 1e6,1.1e6 1.1e6,1e6",
+        ],
+    ));
+    assert!(out.starts_with(&format!("{only} items")), "{out}");
     // The date rule: "within" keeps only items whose whole range lies inside.
     let within = ok(&corpus(
         d,
@@ -240,6 +257,8 @@ fn a_corpus_file_replays_to_the_same_items_and_bad_input_is_named() {
         (vec!["--lasso", "0,0 1,1"], "at least 3 vertices"),
         (vec!["--lasso", "0,0 1,one 2,2"], "vertex 2"),
         (vec!["--date", "1600..1500"], "ends before it starts"),
+        (vec!["--range", "height_cm=30..12"], "ends before it starts"),
+        (vec!["--range", "height_cm=nan..12"], "must be finite"),
         (vec!["--map", "atlas-of-stars"], "the atlas has the maps"),
         (
             vec!["--ids", "ob-001,ob-999"],

@@ -128,6 +128,20 @@ impl Filter {
                         reason: "is not a number field".into(),
                     });
                 };
+                if min.is_some_and(|v| !v.is_finite()) || max.is_some_and(|v| !v.is_finite()) {
+                    return Err(CorpusError::Field {
+                        field: name.clone(),
+                        reason: "a range's bounds must be finite numbers".into(),
+                    });
+                }
+                if let (Some(a), Some(b)) = (min, max) {
+                    if a > b {
+                        return Err(CorpusError::Field {
+                            field: name.clone(),
+                            reason: format!("the range {a}..{b} ends before it starts"),
+                        });
+                    }
+                }
                 let (lo, hi) = (
                     min.unwrap_or(f64::NEG_INFINITY),
                     max.unwrap_or(f64::INFINITY),

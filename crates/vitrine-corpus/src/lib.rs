@@ -14,6 +14,7 @@ pub mod export;
 pub mod filter;
 pub mod mask;
 pub mod polygon;
+pub mod summary;
 pub mod timeline;
 
 #[derive(Debug, thiserror::Error)]

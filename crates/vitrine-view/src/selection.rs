@@ -7,12 +7,15 @@ use vitrine_corpus::CorpusError;
 
 use crate::raster::Tones;
 
-/// Selection steps on the map shown, with their history.
+/// Selection steps with their history; the steps are drawn on one map (`map`), which the
+/// history keeps with them.
 #[derive(Default)]
 pub struct Selection {
     steps: Vec<Step>,
-    past: Vec<Vec<Step>>,
-    future: Vec<Vec<Step>>,
+    /// The map (its index in the atlas) the steps were drawn on.
+    pub map: usize,
+    past: Vec<(usize, Vec<Step>)>,
+    future: Vec<(usize, Vec<Step>)>,
     mask: Option<Mask>,
     /// Changes whenever the selected items may have changed.
     pub generation: u64,
@@ -28,7 +31,8 @@ impl Selection {
         self.mask.as_ref()
     }
 
-    /// Applies a step (a lasso, a rectangle, items by id, everything) to the selection.
+    /// Applies a step (a lasso, a rectangle, items by id, everything) to the selection; `at`
+    /// looks up positions on map `self.map`.
     pub fn push(&mut self, step: Step, at: &Lookup) -> Result<(), CorpusError> {
         let m = covered(&step.shape, at)?;
         let n = at.positions.len();
@@ -38,7 +42,7 @@ impl Selection {
             Op::Add => sel.or(&m),
             Op::Subtract => sel.subtract(&m),
         }
-        self.past.push(self.steps.clone());
+        self.past.push((self.map, self.steps.clone()));
         self.future.clear();
         self.steps.push(step);
         self.mask = Some(sel);
@@ -51,37 +55,57 @@ impl Selection {
         if self.steps.is_empty() {
             return;
         }
-        self.past.push(std::mem::take(&mut self.steps));
+        self.past.push((self.map, std::mem::take(&mut self.steps)));
         self.future.clear();
         self.mask = None;
         self.generation += 1;
     }
 
-    /// Puts back the steps as they were before the last change; false when there is none.
-    pub fn undo(&mut self, at: &Lookup) -> Result<bool, CorpusError> {
-        let Some(prev) = self.past.pop() else {
-            return Ok(false);
+    /// Puts back the steps (and their map) as they were before the last change; false when there
+    /// is none. The selected items then need [`Selection::recompute`] on the restored map.
+    pub fn undo(&mut self) -> bool {
+        let Some((map, steps)) = self.past.pop() else {
+            return false;
         };
-        self.future.push(std::mem::replace(&mut self.steps, prev));
-        self.mask = replay(&self.steps, at)?;
+        self.future
+            .push((self.map, std::mem::replace(&mut self.steps, steps)));
+        self.map = map;
+        self.mask = None;
         self.generation += 1;
-        Ok(true)
+        true
     }
 
-    pub fn redo(&mut self, at: &Lookup) -> Result<bool, CorpusError> {
-        let Some(next) = self.future.pop() else {
-            return Ok(false);
+    pub fn redo(&mut self) -> bool {
+        let Some((map, steps)) = self.future.pop() else {
+            return false;
         };
-        self.past.push(std::mem::replace(&mut self.steps, next));
-        self.mask = replay(&self.steps, at)?;
+        self.past
+            .push((self.map, std::mem::replace(&mut self.steps, steps)));
+        self.map = map;
+        self.mask = None;
         self.generation += 1;
-        Ok(true)
+        true
     }
 
-    /// Replaces the steps (a corpus file or a shared link opened): one undoable change.
-    pub fn set_steps(&mut self, steps: Vec<Step>, at: &Lookup) -> Result<(), CorpusError> {
+    /// The selected items again from the steps (`at` on map `self.map`).
+    pub fn recompute(&mut self, at: &Lookup) -> Result<(), CorpusError> {
+        self.mask = replay(&self.steps, at)?;
+        self.generation += 1;
+        Ok(())
+    }
+
+    /// Replaces the steps (a corpus file or a shared link opened), drawn on `map`: one undoable
+    /// change. `at` must look up positions on `map`. Nothing changes if the steps fail.
+    pub fn set_steps(
+        &mut self,
+        map: usize,
+        steps: Vec<Step>,
+        at: &Lookup,
+    ) -> Result<(), CorpusError> {
         let mask = replay(&steps, at)?;
-        self.past.push(std::mem::replace(&mut self.steps, steps));
+        self.past
+            .push((self.map, std::mem::replace(&mut self.steps, steps)));
+        self.map = map;
         self.future.clear();
         self.mask = mask;
         self.generation += 1;
@@ -92,8 +116,8 @@ impl Selection {
     pub fn names_items(&self) -> bool {
         let names = |steps: &[Step]| steps.iter().any(|s| matches!(s.shape, Shape::Ids(_)));
         names(&self.steps)
-            || self.past.iter().any(|s| names(s))
-            || self.future.iter().any(|s| names(s))
+            || self.past.iter().any(|(_, s)| names(s))
+            || self.future.iter().any(|(_, s)| names(s))
     }
 
     /// Whether an undo or a redo is possible.
@@ -191,18 +215,34 @@ mod tests {
         assert_eq!(s.mask().unwrap().count(), 17);
         s.clear();
         assert!(s.mask().is_none());
-        assert!(s.undo(&at).unwrap());
+        let undo = |s: &mut Selection| {
+            let done = s.undo();
+            s.recompute(&at).unwrap();
+            done
+        };
+        assert!(undo(&mut s));
         assert_eq!(s.mask().unwrap().count(), 17);
-        assert!(s.undo(&at).unwrap());
+        assert!(undo(&mut s));
         assert_eq!(s.mask().unwrap().count(), 18);
-        assert!(s.redo(&at).unwrap());
+        assert!(s.redo());
+        s.recompute(&at).unwrap();
         assert_eq!(s.mask().unwrap().count(), 17);
         // A new step forgets what could be redone.
         s.push(rect(Op::Add, [-0.5, -0.5, 0.5, 0.5]), &at).unwrap();
         assert_eq!(s.history(), (true, false));
         assert_eq!(s.mask().unwrap().count(), 18);
-        while s.undo(&at).unwrap() {}
+        while undo(&mut s) {}
         assert!(s.mask().is_none() && s.steps().is_empty());
+        // The history keeps each state's map: steps drawn on map 0, cleared, then drawn on map 1;
+        // undoing back past the clear returns to map 0's steps and map 0.
+        s.push(rect(Op::Replace, [-0.5, -0.5, 2.5, 2.5]), &at)
+            .unwrap();
+        s.clear();
+        s.map = 1;
+        s.push(rect(Op::Replace, [6.5, 6.5, 9.5, 9.5]), &at)
+            .unwrap();
+        assert!(s.undo() && s.map == 1 && s.steps().is_empty());
+        assert!(s.undo() && s.map == 0 && s.steps().len() == 1);
     }
 
     #[test]

@@ -71,8 +71,6 @@ struct App {
     /// What a drag does: move the map, or draw a lasso or a box to select with.
     mode: select::Mode,
     selection: crate::selection::Selection,
-    /// The map the selection's steps were drawn on.
-    selection_map: usize,
     /// The lasso or box being drawn.
     sketch: Option<select::Sketch>,
     /// How items are dimmed for the selection (None: nothing chosen).
@@ -1036,7 +1034,10 @@ fn install_events(canvas: &HtmlCanvasElement) {
                         return;
                     }
                 }
-                a.sketch = None;
+                if a.sketch.take().is_some() {
+                    // A second finger ends the lasso being drawn.
+                    select::draw_sketch(None);
+                }
                 if a.pointers.len() == 2 {
                     let v: Vec<[f64; 2]> = a.pointers.values().copied().collect();
                     a.pinch =
@@ -1422,7 +1423,6 @@ async fn load(base: String) -> Result<(), String> {
         first_full: false,
         mode: select::Mode::Move,
         selection: Default::default(),
-        selection_map: 0,
         sketch: None,
         tones: None,
         tones_generation: 0,

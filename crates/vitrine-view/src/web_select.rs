@@ -139,14 +139,15 @@ pub fn draw_sketch(s: Option<&Sketch>) {
 }
 
 /// The item index of an id (the index is made on first use).
-fn index_of(a: &mut App) -> &HashMap<String, usize> {
-    if a.id_index.is_none() {
+fn index_of(a: &mut App) -> Option<&HashMap<String, usize>> {
+    // Never from the empty id table of a catalogue still loading.
+    if a.id_index.is_none() && a.atlas.catalogue {
         let m = (0..a.atlas.n)
             .map(|i| (a.atlas.ids.get(i).to_string(), i))
             .collect();
         a.id_index = Some(m);
     }
-    a.id_index.as_ref().unwrap()
+    a.id_index.as_ref()
 }
 
 /// Runs `f` with the selection and a lookup on the selection's map.
@@ -162,11 +163,11 @@ pub fn with_lookup<R>(
     let App {
         atlas,
         selection,
-        selection_map,
         id_index,
         grid,
         ..
     } = a;
+    let selection_map = &selection.map.min(atlas.maps.len() - 1);
     let find = |id: &str| id_index.as_ref().and_then(|m| m.get(id).copied());
     let same_map = *selection_map == atlas.current;
     let near = |r: [f64; 4]| {
@@ -186,6 +187,7 @@ pub fn with_lookup<R>(
 /// Adds a step to the selection (the page's count, tray and picture follow).
 pub fn apply(step: Step) {
     let Some(app) = app() else { return };
+    note("");
     let result = {
         let mut a = app.borrow_mut();
         if !a.atlas.catalogue {
@@ -193,9 +195,9 @@ pub fn apply(step: Step) {
         }
         let drawn = matches!(step.shape, Shape::Lasso(_) | Shape::Rect(_));
         if a.selection.steps().is_empty() {
-            a.selection_map = a.atlas.current;
-        } else if drawn && a.selection_map != a.atlas.current {
-            let name = a.atlas.maps[a.selection_map].name.clone();
+            a.selection.map = a.atlas.current;
+        } else if drawn && a.selection.map != a.atlas.current {
+            let name = a.atlas.maps[a.selection.map].name.clone();
             drop(a);
             return note(&format!(
                 "This selection was drawn on the {name} map: go back to it to draw more, or clear it (x) to start on this one."
@@ -204,10 +206,10 @@ pub fn apply(step: Step) {
         let ids = matches!(step.shape, Shape::Ids(_));
         with_lookup(&mut a, ids, |sel, at| sel.push(step, at))
     };
+    refresh();
     if let Err(e) = result {
         note(&e.to_string());
     }
-    refresh();
 }
 
 /// Ends a sketch at pointer-up: a lasso or box becomes a step; a click adds or removes the item
@@ -269,23 +271,23 @@ pub fn undo(redo: bool) {
     let Some(app) = app() else { return };
     let r = {
         let mut a = app.borrow_mut();
+        let done = if redo {
+            a.selection.redo()
+        } else {
+            a.selection.undo()
+        };
         let ids = a.selection.names_items();
-        with_lookup(
-            &mut a,
-            ids,
-            |sel, at| {
-                if redo {
-                    sel.redo(at)
-                } else {
-                    sel.undo(at)
-                }
-            },
-        )
+        // Replayed on the map the restored steps were drawn on.
+        if done {
+            with_lookup(&mut a, ids, |sel, at| sel.recompute(at))
+        } else {
+            Ok(())
+        }
     };
+    refresh();
     if let Err(e) = r {
         note(&e.to_string());
     }
-    refresh();
 }
 
 /// A short note in the bar's status line (cleared by the next one).
@@ -321,15 +323,20 @@ pub fn refresh() {
         let paper = READING_ROOM.paper;
         let (sel, pass) = (a.selection.mask(), a.filters.passing());
         let tones = crate::selection::tones(&a.atlas.colours, paper, sel, pass, a.filters.hide);
-        let corpus = match (sel, pass) {
+        let corpus_mask = match (sel, pass) {
             (Some(s), Some(p)) => {
                 let mut m = s.clone();
                 m.and(p);
-                Some(m.count())
+                Some(m)
             }
-            (Some(m), None) | (None, Some(m)) => Some(m.count()),
+            (Some(m), None) | (None, Some(m)) => Some(m.clone()),
             (None, None) => None,
         };
+        let corpus = corpus_mask.as_ref().map(|m| m.count());
+        let figures = corpus_mask
+            .as_ref()
+            .map(|m| vitrine_corpus::summary::figures(&a.atlas.fields, m, 3));
+        show_figures(figures.as_ref());
         let count = sel.map(|m| m.count());
         a.tones = tones;
         a.tones_generation += 1;
@@ -362,18 +369,45 @@ pub fn refresh() {
     }
     if let Some(d) = by_id("tray-how") {
         let a = app.borrow();
-        let map = &a.atlas.maps[a.selection_map].name;
+        let map = &a.atlas.maps[a.selection.map.min(a.atlas.maps.len() - 1)].name;
         d.set_text_content(Some(&vitrine_corpus::corpus::describe(
             map,
             a.selection.steps(),
             a.filters.list(),
         )));
     }
-    note("");
     timeline::draw();
     // The address carries the corpus (when it fits in a link).
     let _ = share::update_address();
     request_frame();
+}
+
+/// The tray's figures: the years the corpus spans and the commonest values of each category.
+fn show_figures(f: Option<&vitrine_corpus::summary::Figures>) {
+    let Some(dl) = by_id("tray-figures") else {
+        return;
+    };
+    dl.set_text_content(None);
+    let Some(f) = f else { return };
+    let doc = document();
+    let line = |k: &str, v: &str| {
+        let dt = doc.create_element("dt").unwrap();
+        dt.set_text_content(Some(k));
+        let dd = doc.create_element("dd").unwrap();
+        dd.set_text_content(Some(v));
+        let _ = dl.append_child(&dt);
+        let _ = dl.append_child(&dd);
+    };
+    for (name, a, b) in &f.spans {
+        line(name, &format!("{a}–{b}"));
+    }
+    for (name, top) in &f.top {
+        let v: Vec<String> = top
+            .iter()
+            .map(|(value, n)| format!("{value} {}%", (100 * n) / f.count.max(1) as u64))
+            .collect();
+        line(name, &v.join(", "));
+    }
 }
 
 /// Offers `text` as a file download.
@@ -431,7 +465,9 @@ pub fn export(kind: &str) {
     let items = corpus_items(&mut a);
     let m = &a.atlas.manifest;
     let stem = format!("{}-corpus-{}", file_stem(&m.title), items.len());
-    let map = a.atlas.maps[a.selection_map].name.clone();
+    let map = a.atlas.maps[a.selection.map.min(a.atlas.maps.len() - 1)]
+        .name
+        .clone();
     let description = vitrine_corpus::corpus::describe(&map, a.selection.steps(), a.filters.list());
     let (name, mime, text) = match kind {
         "csv" => (

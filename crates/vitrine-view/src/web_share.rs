@@ -43,8 +43,9 @@ fn rounded(steps: &[Step]) -> Vec<Step> {
 struct Shared {
     v: u32,
     map: String,
-    /// Centre x, y and zoom relative to the fitted view.
-    view: [f64; 3],
+    /// Centre x, y and zoom relative to the fitted view (of `map`; none when another map is shown).
+    #[serde(default)]
+    view: Option<[f64; 3]>,
     #[serde(default)]
     steps: Vec<Step>,
     #[serde(default)]
@@ -53,19 +54,22 @@ struct Shared {
 
 /// The address of the current corpus and view, and its length.
 fn link(a: &App) -> String {
-    let map = &a.atlas.maps[if a.selection.steps().is_empty() {
+    let k = if a.selection.steps().is_empty() {
         a.atlas.current
     } else {
-        a.selection_map
-    }];
+        a.selection.map.min(a.atlas.maps.len() - 1)
+    };
+    let map = &a.atlas.maps[k];
     let s = Shared {
         v: 1,
         map: map.name.clone(),
-        view: [
-            round(a.camera.centre[0]),
-            round(a.camera.centre[1]),
-            round(a.camera.zoom / a.base_zoom),
-        ],
+        view: (k == a.atlas.current).then(|| {
+            [
+                round(a.camera.centre[0]),
+                round(a.camera.centre[1]),
+                round(a.camera.zoom / a.base_zoom),
+            ]
+        }),
         steps: rounded(a.selection.steps()),
         filters: a.filters.list().to_vec(),
     };
@@ -92,6 +96,11 @@ pub fn update_address() -> Result<String, String> {
         link(&a)
     };
     if url.len() > MAX_LINK {
+        // The address must not keep an older corpus that reloading would bring back.
+        let plain = url.split('#').next().unwrap_or("").to_string();
+        if let Some(h) = web_sys::window().and_then(|w| w.history().ok()) {
+            let _ = h.replace_state_with_url(&JsValue::NULL, "", Some(&plain));
+        }
         return Err(format!(
             "this corpus is too detailed for a link ({} characters; links here stay under {MAX_LINK}): \
              save the corpus file instead and share that",
@@ -137,17 +146,22 @@ fn apply(
     if app.borrow().atlas.current != i {
         set_map(i);
     }
-    {
+    let result = (|| -> Result<(), String> {
         let mut a = app.borrow_mut();
         let n = a.atlas.n;
+        // Steps first (on map i), then filters: each leaves things as they were if it fails.
+        let ids = steps.iter().any(|s| matches!(s.shape, Shape::Ids(_)));
+        let old_map = a.selection.map;
+        a.selection.map = i;
+        let r = select::with_lookup(&mut a, ids, |sel, at| sel.set_steps(i, steps, at));
+        if let Err(e) = r {
+            a.selection.map = old_map;
+            return Err(e.to_string());
+        }
         let App {
             filters: f, atlas, ..
         } = &mut *a;
         f.replace(filters, &atlas.fields, n)
-            .map_err(|e| e.to_string())?;
-        a.selection_map = i;
-        let ids = steps.iter().any(|s| matches!(s.shape, Shape::Ids(_)));
-        select::with_lookup(&mut a, ids, |sel, at| sel.set_steps(steps, at))
             .map_err(|e| e.to_string())?;
         if let Some([x, y, z]) = view {
             let limits = a.zoom_limits();
@@ -158,9 +172,10 @@ fn apply(
                 a.camera.zoom = zoom;
             }
         }
-    }
+        Ok(())
+    })();
     filters::changed();
-    Ok(())
+    result
 }
 
 /// Opens the corpus the address carries, if any (after the catalogue has loaded).
@@ -179,7 +194,7 @@ pub fn restore_from_address() {
         Ok(s) => s,
         Err(e) => return select::note(&format!("The link's corpus could not be read: {e}.")),
     };
-    if let Err(e) = apply(&shared.map, shared.filters, shared.steps, Some(shared.view)) {
+    if let Err(e) = apply(&shared.map, shared.filters, shared.steps, shared.view) {
         return select::note(&format!("The link's corpus could not be opened: {e}."));
     }
     set_state("restored", "link");
@@ -188,6 +203,9 @@ pub fn restore_from_address() {
 /// Opens a corpus file chosen by the user: its map, filters and steps; says when it was made on
 /// another atlas or gives other items here.
 pub fn open_file(text: String) {
+    if !app().is_some_and(|a| a.borrow().atlas.catalogue) {
+        return select::note("The catalogue is still loading: open the corpus file in a moment.");
+    }
     let file = match CorpusFile::from_json(&text) {
         Ok(f) => f,
         Err(e) => return select::note(&format!("Not opened: {e}.")),

@@ -65,10 +65,20 @@ pub fn install(a: &mut App) {
     }
 }
 
-/// The year under canvas x.
-fn year_at(s: &Strip, w: f64, x: f64) -> i32 {
-    let years = (s.whole.counts.len() as i32 * s.whole.bin) as f64;
-    s.whole.from + ((x / w).clamp(0.0, 1.0) * years).floor() as i32
+/// The years the strip shows.
+fn years(s: &Strip) -> i64 {
+    s.whole.counts.len() as i64 * s.whole.bin as i64
+}
+
+/// The year whose span holds canvas x (`end`: the year just left of x, for a brush's right end).
+fn year_at(s: &Strip, w: f64, x: f64, end: bool) -> i32 {
+    let t = (x / w).clamp(0.0, 1.0) * years(s) as f64;
+    let y = if end {
+        t.ceil() as i64 - 1
+    } else {
+        t.floor() as i64
+    };
+    (s.whole.from as i64 + y.clamp(0, years(s) - 1)) as i32
 }
 
 fn listen_brush(cv: &HtmlCanvasElement) {
@@ -121,7 +131,8 @@ fn listen_brush(cv: &HtmlCanvasElement) {
             if (x - x0).abs() < 3.0 {
                 (None, name)
             } else {
-                let (a0, a1) = (year_at(s, w, x0.min(x)), year_at(s, w, x0.max(x)));
+                let a0 = year_at(s, w, x0.min(x), false);
+                let a1 = year_at(s, w, x0.max(x), true).max(a0);
                 (
                     Some(Filter::Date {
                         field: name.clone(),
@@ -223,12 +234,13 @@ pub fn draw() {
     // Year ticks: about one per 90 CSS pixels, on round years.
     ctx.set_fill_style_str("#5f5a55");
     ctx.set_font(&format!("{}px sans-serif", (11.0 * ratio).round()));
-    let years = s.whole.counts.len() as i32 * s.whole.bin;
-    let step = bin_years(0, years, ((w / ratio) / 90.0).max(2.0) as usize).max(1);
-    let first = (s.whole.from + step - 1).div_euclid(step) * step;
-    let mut y = first;
-    while y <= s.whole.from + years {
-        let x = (y - s.whole.from) as f64 / years as f64 * w;
+    let years = years(s);
+    let wide = ((w / ratio) / 90.0).max(2.0) as usize;
+    let step = bin_years(0, years.min(i32::MAX as i64) as i32, wide).max(1) as i64;
+    let origin = s.whole.from as i64;
+    let mut y = (origin + step - 1).div_euclid(step) * step;
+    while y <= origin + years {
+        let x = (y - origin) as f64 / years as f64 * w;
         ctx.fill_rect(x, h - axis, ratio, 3.0 * ratio);
         let _ = ctx.fill_text(&y.to_string(), x + 2.0 * ratio, h - 2.0 * ratio);
         y += step;
@@ -242,8 +254,8 @@ pub fn draw() {
                 Filter::Date {
                     field, from, to, ..
                 } if *field == s.name => {
-                    let x = |yr: i32| ((yr - s.whole.from) as f64 / years as f64 * w).clamp(0.0, w);
-                    Some((x(*from), x(to.saturating_add(1))))
+                    let x = |yr: i64| ((yr - origin) as f64 / years as f64 * w).clamp(0.0, w);
+                    Some((x(*from as i64), x(*to as i64 + 1)))
                 }
                 _ => None,
             })
