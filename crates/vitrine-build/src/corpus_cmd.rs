@@ -421,7 +421,7 @@ pub fn run(atlas_dir: &Path, a: &CorpusArgs) -> Result<CorpusReport> {
                 .extents
                 .decode::<u32>(get(&s.extents)?)?
                 .into_iter()
-                .map(|e| ((e & 0xFFFF) as u16, (e >> 16) as u16))
+                .map(vitrine_format::unpack_extent)
                 .collect(),
             None => vec![],
         };

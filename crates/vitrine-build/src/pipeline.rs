@@ -22,16 +22,7 @@ use crate::umap::{self, UmapParams};
 
 pub const IMAGE_EXTENSIONS: &[&str] = &["jpg", "jpeg", "png", "tif", "tiff", "webp", "gif", "bmp"];
 
-/// The Okabe-Ito colour-blind-safe palette (Okabe and Ito, "Color Universal Design", 2002), without black.
-pub const OKABE_ITO: [[u8; 3]; 7] = [
-    [0xE6, 0x9F, 0x00],
-    [0x56, 0xB4, 0xE9],
-    [0x00, 0x9E, 0x73],
-    [0xF0, 0xE4, 0x42],
-    [0x00, 0x72, 0xB2],
-    [0xD5, 0x5E, 0x00],
-    [0xCC, 0x79, 0xA7],
-];
+pub use vitrine_format::OKABE_ITO;
 pub const INK: [u8; 3] = [0x2B, 0x2A, 0x33];
 
 /// Collections up to this size get the sequential layout optimiser when it is `auto`.

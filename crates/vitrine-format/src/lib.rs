@@ -104,6 +104,23 @@ pub fn hex(bytes: &[u8]) -> String {
     s
 }
 
+/// The Okabe-Ito colour-blind-safe palette (Okabe and Ito, "Color Universal Design", 2002), without
+/// black: the build colours marks of atlases without images by it, the viewer colours by field with it.
+pub const OKABE_ITO: [[u8; 3]; 7] = [
+    [0xE6, 0x9F, 0x00],
+    [0x56, 0xB4, 0xE9],
+    [0x00, 0x9E, 0x73],
+    [0xF0, 0xE4, 0x42],
+    [0x00, 0x72, 0xB2],
+    [0xD5, 0x5E, 0x00],
+    [0xCC, 0x79, 0xA7],
+];
+
+/// A thumbnail extent as the `extents` array packs it (width | height << 16), unpacked.
+pub fn unpack_extent(e: u32) -> (u16, u16) {
+    ((e & 0xFFFF) as u16, (e >> 16) as u16)
+}
+
 /// Element types that can be cast from little-endian bytes.
 pub trait Element: bytemuck::Pod {
     const DTYPE: DType;

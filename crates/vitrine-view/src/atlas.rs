@@ -252,7 +252,7 @@ impl AtlasData {
                 .extents
                 .decode::<u32>(get(&s.extents)?)?
                 .into_iter()
-                .map(|e| ((e & 0xFFFF) as u16, (e >> 16) as u16))
+                .map(vitrine_format::unpack_extent)
                 .collect(),
             None => vec![(0, 0); n],
         };

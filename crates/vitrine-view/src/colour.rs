@@ -4,17 +4,7 @@
 
 use vitrine_corpus::columns::{Column, FieldColumn};
 
-/// The Okabe-Ito palette without its black (orange, sky blue, bluish green, yellow, blue,
-/// vermillion, reddish purple), as published by Okabe and Ito (2008).
-pub const OKABE_ITO: [[u8; 3]; 7] = [
-    [0xE6, 0x9F, 0x00],
-    [0x56, 0xB4, 0xE9],
-    [0x00, 0x9E, 0x73],
-    [0xF0, 0xE4, 0x42],
-    [0x00, 0x72, 0xB2],
-    [0xD5, 0x5E, 0x00],
-    [0xCC, 0x79, 0xA7],
-];
+pub use vitrine_format::OKABE_ITO;
 /// Values beyond the seventh, and items without a value.
 pub const OTHER: [u8; 3] = [0xB4, 0xAE, 0xA4];
 pub const MISSING: [u8; 3] = [0xD8, 0xD2, 0xC8];
