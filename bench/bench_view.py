@@ -150,10 +150,12 @@ def main():
               f"{r['catalogue_ready_ms']:.0f} ms); "
               f"fetched {r['bytes'] / 1e6:.1f} MB in {r['requests']} requests; "
               f"memory JS heap {r['js_heap'] / 2**20:.0f} MiB + wasm {r['wasm'] / 2**20:.0f} MiB")
-        head = ["phase", "frames", "median ms", "p95 ms", "raster ms", "to wgpu ms", "work ms (max)", "drawn"]
+        head = ["phase", "frames", "median ms", "p95 ms", "raster ms", "to wgpu ms", "work ms (max)",
+                "settled ms", "drawn"]
         work = lambda p: "" if p.get("work") is None else f"{p['work']:.1f} ({p['work_max']:.1f})"
+        settled = lambda p: "" if p.get("settled") is None else f"{p['settled']:.1f}"
         rows = [[p["phase"], str(p["frames"]), f"{p['median']:.1f}", f"{p['p95']:.1f}",
-                 f"{p['raster']:.1f}", f"{p['handover']:.1f}", work(p), p["drawn"]]
+                 f"{p['raster']:.1f}", f"{p['handover']:.1f}", work(p), settled(p), p["drawn"]]
                 for p in r["phases"]]
         widths = [max(len(x) for x in col) for col in zip(head, *rows)]
         for line in [head, ["-" * w for w in widths]] + rows:
@@ -170,7 +172,9 @@ def main():
     print("frame drawn on the CPU in wasm (median); to wgpu: the upload and draw calls handed to wgpu; the")
     print("rest is the browser's GPU process (SwiftShader or llvmpipe) running them. Work (filter and")
     print("lasso phases): the filter or selection itself — every item's pass or membership, the counts,")
-    print("the dimming — before the frame is drawn.")
+    print("the dimming — before the frame is drawn. Settled (same phases): from the step until the")
+    print("browser has drawn two frames of the whole page after it (chips, counts, tray, timeline")
+    print("strip) and the map reads back again; each such step starts once the previous has settled.")
     return 0
 
 
