@@ -13,6 +13,7 @@ pub mod corpus;
 pub mod export;
 pub mod filter;
 pub mod mask;
+pub mod packed;
 pub mod polygon;
 pub mod summary;
 pub mod timeline;

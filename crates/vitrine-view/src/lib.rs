@@ -15,6 +15,7 @@ pub mod grid;
 pub mod pick;
 pub mod raster;
 pub mod selection;
+pub mod tray;
 
 #[cfg(any(target_arch = "wasm32", feature = "native-gpu"))]
 pub mod present;

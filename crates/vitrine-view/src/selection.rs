@@ -34,20 +34,45 @@ impl Selection {
     /// Applies a step (a lasso, a rectangle, items by id, everything) to the selection; `at`
     /// looks up positions on map `self.map`.
     pub fn push(&mut self, step: Step, at: &Lookup) -> Result<(), CorpusError> {
-        let m = covered(&step.shape, at)?;
+        self.push_all(vec![step], at)
+    }
+
+    /// Applies several steps as one change (one undo takes them all back); nothing changes if
+    /// one of them fails.
+    pub fn push_all(&mut self, steps: Vec<Step>, at: &Lookup) -> Result<(), CorpusError> {
         let n = at.positions.len();
-        let mut sel = self.mask.take().unwrap_or_else(|| Mask::none(n));
-        match step.op {
-            Op::Replace => sel = m,
-            Op::Add => sel.or(&m),
-            Op::Subtract => sel.subtract(&m),
+        let mut sel = self.mask.clone().unwrap_or_else(|| Mask::none(n));
+        for step in &steps {
+            let m = covered(&step.shape, at)?;
+            match step.op {
+                Op::Replace => sel = m,
+                Op::Add => sel.or(&m),
+                Op::Subtract => sel.subtract(&m),
+            }
         }
         self.past.push((self.map, self.steps.clone()));
         self.future.clear();
-        self.steps.push(step);
+        self.steps.extend(steps);
         self.mask = Some(sel);
         self.generation += 1;
         Ok(())
+    }
+
+    /// Takes items (by id) out of the corpus as one change: out of the selection, or, when
+    /// nothing is selected by hand (the corpus is what the filters leave), out of everything.
+    pub fn remove_ids(&mut self, ids: Vec<String>, at: &Lookup) -> Result<(), CorpusError> {
+        let mut steps = Vec::new();
+        if self.mask.is_none() {
+            steps.push(Step {
+                op: Op::Replace,
+                shape: Shape::Everything(Default::default()),
+            });
+        }
+        steps.push(Step {
+            op: Op::Subtract,
+            shape: Shape::Ids(ids),
+        });
+        self.push_all(steps, at)
     }
 
     /// Forgets every step (undoable).
@@ -243,6 +268,44 @@ mod tests {
             .unwrap();
         assert!(s.undo() && s.map == 1 && s.steps().is_empty());
         assert!(s.undo() && s.map == 0 && s.steps().len() == 1);
+    }
+
+    #[test]
+    fn removing_items_from_the_tray_is_one_undoable_change() {
+        let positions = grid();
+        let index_of = |id: &str| id.parse::<usize>().ok();
+        let at = Lookup {
+            positions: &positions,
+            index_of: &index_of,
+            near: None,
+        };
+        // Nothing selected by hand (the corpus is what the filters leave): removing two items
+        // selects everything but them, in one step of the history.
+        let mut s = Selection::default();
+        s.remove_ids(vec!["3".into(), "40".into()], &at).unwrap();
+        let m = s.mask().unwrap();
+        assert_eq!(m.count(), 98);
+        assert!(!m.get(3) && !m.get(40) && m.get(4));
+        assert_eq!(s.steps().len(), 2);
+        assert!(s.undo());
+        s.recompute(&at).unwrap();
+        assert!(s.mask().is_none() && !s.history().0);
+        // With a selection: only the items go.
+        s.push(
+            Step {
+                op: Op::Replace,
+                shape: Shape::Rect([-0.5, -0.5, 2.5, 2.5]),
+            },
+            &at,
+        )
+        .unwrap();
+        s.remove_ids(vec!["11".into()], &at).unwrap();
+        assert_eq!(s.mask().unwrap().count(), 8);
+        assert_eq!(s.steps().len(), 2);
+        // An id the atlas does not have changes nothing.
+        assert!(s.remove_ids(vec!["nope".into()], &at).is_err());
+        assert_eq!(s.mask().unwrap().count(), 8);
+        assert_eq!(s.steps().len(), 2);
     }
 
     #[test]

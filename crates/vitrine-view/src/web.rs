@@ -54,6 +54,11 @@ struct App {
     pointers: HashMap<i32, [f64; 2]>,
     pinch: Option<f64>,
     frame_pending: bool,
+    /// Something changed since the last frame was drawn (a frame drawn at once, as zooming by key
+    /// does, clears it, so the requested one is not drawn a second time).
+    dirty: bool,
+    /// The corpus's items in atlas order, as the tray's grid shows them.
+    tray_items: Vec<u32>,
     /// The animated camera move under way, if any.
     glide: Option<Glide>,
     fetching: HashSet<(usize, usize)>,
@@ -97,6 +102,8 @@ mod filters;
 mod select;
 #[path = "web_share.rs"]
 mod share;
+#[path = "web_tray.rs"]
+mod tiles;
 #[path = "web_timeline.rs"]
 mod timeline;
 
@@ -395,6 +402,7 @@ impl App {
 
     fn render(&mut self) {
         let start = now();
+        self.dirty = false;
         let (w, h) = self.size();
         self.gpu.resize(w, h);
         self.camera.size = [w as f64, h as f64];
@@ -560,15 +568,20 @@ impl App {
 
 fn request_frame() {
     let Some(app) = app() else { return };
-    if app.borrow().frame_pending {
-        return;
+    {
+        let mut a = app.borrow_mut();
+        a.dirty = true;
+        if a.frame_pending {
+            return;
+        }
+        a.frame_pending = true;
     }
-    app.borrow_mut().frame_pending = true;
     let cb = Closure::once_into_js(move || {
         if let Some(app) = self::app() {
             let (wanted, gliding) = {
                 let mut a = app.borrow_mut();
                 a.frame_pending = false;
+                let moved = a.glide.is_some();
                 let gliding = match a.glide {
                     Some(g) => {
                         let t = now();
@@ -580,7 +593,10 @@ fn request_frame() {
                     }
                     None => false,
                 };
-                a.render();
+                // A frame drawn since the request (at once, by a caller) already shows it all.
+                if a.dirty || moved {
+                    a.render();
+                }
                 (a.last.wanted.clone(), gliding)
             };
             if gliding {
@@ -1412,6 +1428,8 @@ async fn load(base: String) -> Result<(), String> {
         pointers: HashMap::new(),
         pinch: None,
         frame_pending: false,
+        dirty: false,
+        tray_items: Vec::new(),
         glide: None,
         fetching: HashSet::new(),
         fetching_neighbours: HashSet::new(),
@@ -1439,6 +1457,7 @@ async fn load(base: String) -> Result<(), String> {
     select::install();
     filters::install();
     share::install();
+    tiles::install();
     if let Some(l) = by_id("loading") {
         l.set_hidden(true);
     }

@@ -139,7 +139,7 @@ pub fn draw_sketch(s: Option<&Sketch>) {
 }
 
 /// The item index of an id (the index is made on first use).
-fn index_of(a: &mut App) -> Option<&HashMap<String, usize>> {
+pub fn index_of(a: &mut App) -> Option<&HashMap<String, usize>> {
     // Never from the empty id table of a catalogue still loading.
     if a.id_index.is_none() && a.atlas.catalogue {
         let m = (0..a.atlas.n)
@@ -338,6 +338,10 @@ pub fn refresh() {
             .map(|m| vitrine_corpus::summary::figures(&a.atlas.fields, m, 3));
         show_figures(figures.as_ref());
         let count = sel.map(|m| m.count());
+        a.tray_items = corpus_mask
+            .as_ref()
+            .map(|m| m.items().map(|i| i as u32).collect())
+            .unwrap_or_default();
         a.tones = tones;
         a.tones_generation += 1;
         let history = a.selection.history();
@@ -377,6 +381,7 @@ pub fn refresh() {
         )));
     }
     timeline::draw();
+    tiles::render();
     // The address carries the corpus (when it fits in a link).
     let _ = share::update_address();
     request_frame();

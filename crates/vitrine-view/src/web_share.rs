@@ -3,7 +3,7 @@
 //! saved earlier can be opened again.
 
 use super::*;
-use vitrine_corpus::corpus::{CorpusFile, Shape, Step};
+use vitrine_corpus::corpus::{CorpusFile, Op, Shape, Step};
 use vitrine_corpus::filter::Filter;
 use vitrine_corpus::polygon::Polygon;
 
@@ -38,6 +38,22 @@ fn rounded(steps: &[Step]) -> Vec<Step> {
         .collect()
 }
 
+/// A selection step as a link carries it: items picked by hand go by their numbers in this
+/// build of the atlas, packed (a few characters each rather than a whole id); other steps as
+/// they are.
+#[derive(serde::Serialize, serde::Deserialize)]
+#[serde(untagged)]
+enum LinkStep {
+    Packed { op: Op, items: String },
+    Plain(Step),
+}
+
+/// The first 16 hex digits of the manifest's SHA-256: names the build whose item numbers a link
+/// uses.
+fn build_of(a: &App) -> String {
+    a.manifest_sha.chars().take(16).collect()
+}
+
 /// What a link carries.
 #[derive(serde::Serialize, serde::Deserialize)]
 struct Shared {
@@ -46,14 +62,76 @@ struct Shared {
     /// Centre x, y and zoom relative to the fitted view (of `map`; none when another map is shown).
     #[serde(default)]
     view: Option<[f64; 3]>,
+    /// The build (see [`build_of`]) whose item numbers packed steps use.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    build: Option<String>,
     #[serde(default)]
-    steps: Vec<Step>,
+    steps: Vec<LinkStep>,
     #[serde(default)]
     filters: Vec<Filter>,
 }
 
+/// The steps as a link carries them: items by id packed as item numbers (ids this atlas does not
+/// have stay as they are).
+fn link_steps(a: &mut App) -> (Vec<LinkStep>, bool) {
+    let steps = rounded(a.selection.steps());
+    let mut packed = false;
+    let mut out = Vec::with_capacity(steps.len());
+    for s in steps {
+        let Shape::Ids(ids) = &s.shape else {
+            out.push(LinkStep::Plain(s));
+            continue;
+        };
+        let numbers: Option<Vec<u32>> = select::index_of(a)
+            .and_then(|m| ids.iter().map(|id| m.get(id).map(|&i| i as u32)).collect());
+        match numbers {
+            Some(v) => {
+                packed = true;
+                out.push(LinkStep::Packed {
+                    op: s.op,
+                    items: vitrine_corpus::packed::pack(&v),
+                });
+            }
+            None => out.push(LinkStep::Plain(s)),
+        }
+    }
+    (out, packed)
+}
+
+/// The steps of a link as steps (packed items back to their ids); packed items need the link to
+/// come from this build of the atlas.
+fn from_link_steps(
+    a: &App,
+    build: Option<&str>,
+    steps: Vec<LinkStep>,
+) -> Result<Vec<Step>, String> {
+    let mut out = Vec::with_capacity(steps.len());
+    for s in steps {
+        match s {
+            LinkStep::Plain(s) => out.push(s),
+            LinkStep::Packed { op, items } => {
+                if build != Some(build_of(a).as_str()) {
+                    return Err(
+                        "it names items by their place in another build of this atlas \
+                                (ask for the corpus file, which names them by id)"
+                            .into(),
+                    );
+                }
+                let numbers =
+                    vitrine_corpus::packed::unpack(&items, a.atlas.n).map_err(|e| e.to_string())?;
+                let ids = numbers.iter().map(|&i| a.atlas.id(i as usize).to_string());
+                out.push(Step {
+                    op,
+                    shape: Shape::Ids(ids.collect()),
+                });
+            }
+        }
+    }
+    Ok(out)
+}
+
 /// The address of the current corpus and view, and its length.
-fn link(a: &App) -> String {
+fn link(a: &mut App) -> String {
     let k = if a.selection.steps().is_empty() {
         a.atlas.current
     } else {
@@ -70,8 +148,15 @@ fn link(a: &App) -> String {
                 round(a.camera.zoom / a.base_zoom),
             ]
         }),
-        steps: rounded(a.selection.steps()),
+        build: None,
+        steps: Vec::new(),
         filters: a.filters.list().to_vec(),
+    };
+    let (steps, packed) = link_steps(a);
+    let s = Shared {
+        steps,
+        build: packed.then(|| build_of(a)),
+        ..s
     };
     let json = serde_json::to_string(&s).unwrap_or_default();
     let enc: String = js_sys::encode_uri_component(&json).into();
@@ -89,11 +174,11 @@ pub fn update_address() -> Result<String, String> {
         return Err("not started".into());
     };
     let url = {
-        let a = app.borrow();
+        let mut a = app.borrow_mut();
         if !a.atlas.catalogue {
             return Err("the catalogue is loading".into());
         }
-        link(&a)
+        link(&mut a)
     };
     if url.len() > MAX_LINK {
         // The address must not keep an older corpus that reloading would bring back.
@@ -194,7 +279,15 @@ pub fn restore_from_address() {
         Ok(s) => s,
         Err(e) => return select::note(&format!("The link's corpus could not be read: {e}.")),
     };
-    if let Err(e) = apply(&shared.map, shared.filters, shared.steps, shared.view) {
+    let steps = match app() {
+        Some(a) => from_link_steps(&a.borrow(), shared.build.as_deref(), shared.steps),
+        None => return,
+    };
+    let steps = match steps {
+        Ok(s) => s,
+        Err(e) => return select::note(&format!("The link's corpus could not be opened: {e}.")),
+    };
+    if let Err(e) = apply(&shared.map, shared.filters, steps, shared.view) {
         return select::note(&format!("The link's corpus could not be opened: {e}."));
     }
     set_state("restored", "link");
