@@ -50,8 +50,8 @@ pub struct Lookup<'a> {
     pub positions: &'a [[f32; 2]],
     /// The item index of an id.
     pub index_of: &'a dyn Fn(&str) -> Option<usize>,
-    /// Items near a map rectangle, in item order, when a spatial index can say (else every item
-    /// is tested).
+    /// Items near a map rectangle (a superset of those inside it, in any order), when a spatial
+    /// index can say (else every item is tested).
     pub near: Option<&'a dyn Fn([f64; 4]) -> Vec<u32>>,
 }
 

@@ -167,8 +167,8 @@ impl<'a> Prepared<'a> {
     }
 }
 
-/// The items (from `candidates`, or every item) whose position is inside the polygon, in item
-/// order. The bounding box is tested first: most items of a large map fail it at once.
+/// The items (from `candidates`, in their order, or every item in item order) whose position is
+/// inside the polygon. The bounding box is tested first: most items of a large map fail it at once.
 pub fn items_inside(
     positions: &[[f32; 2]],
     poly: &Polygon,

@@ -43,24 +43,42 @@ impl Histogram {
 
     /// Adds the items (by index) with their ranges `start[i]..=end[i]`; undated items
     /// (`i32::MIN`) are left out. Years outside the bins are clamped into the first or last.
+    ///
+    /// Each item costs the same whatever its range: its weight per year goes into a difference
+    /// array over the years the bins cover (+w at its first year, -w after its last), whose
+    /// running sum is then the weight of every year.
     pub fn add(&mut self, start: &[i32], end: &[i32], items: impl Iterator<Item = usize>) {
-        let nb = self.counts.len() as i64;
+        let nb = self.counts.len();
         let (from, bin) = (self.from as i64, self.bin as i64);
+        let years_covered = nb * self.bin as usize;
+        let last = from + years_covered as i64 - 1;
+        let mut diff = vec![0.0f64; years_covered + 1];
+        let (mut under, mut over) = (0.0f64, 0.0f64);
         for i in items {
             let (s, e) = (start[i] as i64, end[i] as i64);
             if start[i] == i32::MIN || e < s {
                 continue;
             }
-            let years = (e - s + 1) as f64;
-            let b0 = (s - from).div_euclid(bin);
-            let b1 = (e - from).div_euclid(bin);
-            for b in b0..=b1 {
-                // The years of the range inside bin b.
-                let lo = s.max(from + b * bin);
-                let hi = e.min(from + (b + 1) * bin - 1);
-                self.counts[b.clamp(0, nb - 1) as usize] += (hi - lo + 1) as f64 / years;
+            let w = 1.0 / (e - s + 1) as f64;
+            if s < from {
+                under += (e.min(from - 1) - s + 1) as f64 * w;
+            }
+            if e > last {
+                over += (e - s.max(last + 1) + 1) as f64 * w;
+            }
+            let (lo, hi) = (s.max(from), e.min(last));
+            if lo <= hi {
+                diff[(lo - from) as usize] += w;
+                diff[(hi - from + 1) as usize] -= w;
             }
         }
+        let mut per_year = 0.0;
+        for (y, d) in diff[..years_covered].iter().enumerate() {
+            per_year += d;
+            self.counts[y / bin as usize] += per_year;
+        }
+        self.counts[0] += under;
+        self.counts[nb - 1] += over;
     }
 
     pub fn total(&self) -> f64 {
@@ -92,6 +110,40 @@ mod tests {
         }
         assert!((h.total() - 3.0).abs() < 1e-12, "three dated items");
         assert_eq!(h.years(1), (1510, 1519));
+    }
+
+    #[test]
+    fn the_running_sum_gives_what_spreading_year_by_year_gives() {
+        // The plain method as the reference: every year of every range adds 1/years to its bin
+        // (years outside the bins into the first or last).
+        let mut s = 99u64;
+        let mut r = |m: u64| {
+            s = s
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            (s >> 33) % m
+        };
+        let n = 3000;
+        let start: Vec<i32> = (0..n).map(|_| 1350 + r(500) as i32).collect();
+        let end: Vec<i32> = start.iter().map(|&a| a + r(120) as i32).collect();
+        for bin in [1, 3, 10, 50] {
+            let mut h = Histogram::covering(1400, 1750, bin);
+            h.add(&start, &end, 0..n);
+            let mut want = vec![0.0; h.counts.len()];
+            for i in 0..n {
+                let w = 1.0 / (end[i] - start[i] + 1) as f64;
+                for y in start[i]..=end[i] {
+                    let b = ((y - h.from).div_euclid(bin)).clamp(0, want.len() as i32 - 1);
+                    want[b as usize] += w;
+                }
+            }
+            for (b, (a, w)) in h.counts.iter().zip(&want).enumerate() {
+                assert!(
+                    (a - w).abs() < 1e-9,
+                    "bin width {bin}, bin {b}: {a} against {w}"
+                );
+            }
+        }
     }
 
     #[test]

@@ -93,6 +93,13 @@ impl Grid {
     /// Every item whose position lies in a cell touched by the map rectangle [x0, y0, x1, y1]
     /// (a superset of the items inside it), in increasing order.
     pub fn query(&self, r: [f64; 4], out: &mut Vec<u32>) {
+        self.query_any_order(r, out);
+        out.sort_unstable();
+    }
+
+    /// The items [`Grid::query`] gives, in no particular order (cell by cell): for those who
+    /// only test membership (a lasso over most of a million items need not sort them).
+    pub fn query_any_order(&self, r: [f64; 4], out: &mut Vec<u32>) {
         out.clear();
         if self.items.is_empty() || self.misses(r) {
             return;
@@ -104,7 +111,6 @@ impl Grid {
             let b = self.starts[row * self.cols + c1 + 1] as usize;
             out.extend_from_slice(&self.items[a..b]);
         }
-        out.sort_unstable();
     }
 
     /// The first item of the most crowded cell (the densest place of the map), if any.
@@ -151,6 +157,10 @@ mod tests {
             [20.0, 20.0, 30.0, 30.0],
         ] {
             g.query(r, &mut out);
+            let mut any = Vec::new();
+            g.query_any_order(r, &mut any);
+            any.sort_unstable();
+            assert_eq!(any, out, "the same items in another order");
             assert!(
                 out.windows(2).all(|w| w[0] < w[1]),
                 "increasing, no repeats"

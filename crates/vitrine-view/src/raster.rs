@@ -358,6 +358,7 @@ fn draw_marks<I: Iterator<Item = usize>>(
     reach: f64,
     items: I,
     stats: &mut FrameStats,
+    mut spots: Option<&mut Vec<Spot>>,
 ) {
     let [cx0, cy0, cx1, cy1] = clip.map(|v| v as f64);
     let outside = |sx: f64, sy: f64| {
@@ -370,7 +371,7 @@ fn draw_marks<I: Iterator<Item = usize>>(
             let mut copy: Vec<u32> = bytemuck::pod_collect_to_vec(buf);
             let copy_bytes: &mut [u8] = bytemuck::cast_slice_mut(&mut copy);
             draw_marks(
-                copy_bytes, w, clip, atlas, colours, cam, reach, items, stats,
+                copy_bytes, w, clip, atlas, colours, cam, reach, items, stats, spots,
             );
             buf.copy_from_slice(copy_bytes);
             return;
@@ -380,12 +381,22 @@ fn draw_marks<I: Iterator<Item = usize>>(
         stats.visited += 1;
         let [sx, sy] = cam.to_screen(atlas.positions[i]);
         if outside(sx, sy) {
+            if let Some(v) = spots.as_deref_mut() {
+                v.push(Spot::default());
+            }
             continue;
         }
         let x0 = px(sx - reach).clamp(clip[0], clip[2]);
         let x1 = px(sx + reach).clamp(x0, clip[2]);
         let y0 = px(sy - reach).clamp(clip[1], clip[3]);
         let y1 = px(sy + reach).clamp(y0, clip[3]);
+        if let Some(v) = spots.as_deref_mut() {
+            v.push(Spot {
+                at: (y0 * w + x0) as u32,
+                w: (x1 - x0) as u16,
+                h: (y1 - y0) as u16,
+            });
+        }
         let c = colours[i];
         if c[3] == 0 {
             continue;
@@ -414,11 +425,11 @@ fn draw_marks_of(
     match culled {
         Some(near) => {
             let items = near.iter().map(|&i| i as usize);
-            draw_marks(buf, w, clip, atlas, colours, cam, reach, items, stats)
+            draw_marks(buf, w, clip, atlas, colours, cam, reach, items, stats, None)
         }
         None => {
             let items = 0..atlas.n;
-            draw_marks(buf, w, clip, atlas, colours, cam, reach, items, stats)
+            draw_marks(buf, w, clip, atlas, colours, cam, reach, items, stats, None)
         }
     }
 }
@@ -427,15 +438,38 @@ fn draw_marks_of(
 /// need not draw them again: a frame with the same camera reuses them whole, a pan by whole pixels
 /// moves them and draws only the strips that came into view. The open and hovered items and their
 /// outlines are drawn over a copy, never into the layer. The pixels are those a full `draw` gives.
+/// Where one item's mark went in a full pass: the offset of its top-left pixel and its size in
+/// pixels (0 x 0: not on screen).
+#[derive(Clone, Copy, Default)]
+struct Spot {
+    at: u32,
+    w: u16,
+    h: u16,
+}
+
+/// What a kept layer was drawn from, as the caller names it: `places` changes when the items'
+/// positions do (another map), `looks` when only how they are drawn does (colours, dimming).
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
+pub struct LayerKey {
+    pub places: u64,
+    pub looks: u64,
+}
+
 #[derive(Default)]
 pub struct MarkLayer {
     pixels: Vec<u8>,
     size: (usize, usize),
     camera: Option<Camera>,
-    /// What the items were drawn from (the caller's key: the map shown and a count of data
-    /// changes; and the sheets' generation when thumbnails are drawn): another value means the
-    /// layer must be drawn afresh.
-    key: (u64, u64),
+    /// What the items were drawn from (the caller's key; and the sheets' generation when
+    /// thumbnails are drawn): another value means the layer must be drawn afresh.
+    key: (LayerKey, u64),
+    /// Every item's mark in the last full pass over all items, for the camera, size, positions
+    /// and mark size it was made with: when only the looks change (a filter, a lasso), the
+    /// marks are filled in again at these places without placing them anew.
+    spots: Vec<Spot>,
+    spots_for: Option<(Camera, (usize, usize), u64, u64)>,
+    /// Whether the last frame filled the marks in at noted spots.
+    spots_reused: bool,
     marks: usize,
     /// Whether the last frame drew the whole layer afresh.
     last_full: bool,
@@ -445,6 +479,12 @@ impl MarkLayer {
     /// Whether the last frame drew every pixel afresh (rather than reusing or moving the layer).
     pub fn last_full(&self) -> bool {
         self.last_full
+    }
+
+    /// Whether the last frame drew the marks at the places noted by an earlier one (the same
+    /// view with other colours or dimming).
+    pub fn spots_reused(&self) -> bool {
+        self.spots_reused
     }
 }
 
@@ -496,12 +536,39 @@ fn shift_pixels(buf: &mut [u8], w: usize, h: usize, dx: i64, dy: i64) {
     }
 }
 
+/// Fills every item's mark at its noted spot, in item order (the pixels `draw_marks` gives for
+/// the same camera).
+fn fill_spots(
+    buf: &mut [u8],
+    w: usize,
+    spots: &[Spot],
+    colours: &[[u8; 4]],
+    stats: &mut FrameStats,
+) {
+    let Ok(px) = bytemuck::try_cast_slice_mut::<u8, u32>(buf) else {
+        unreachable!("the layer's pixels are 4-byte aligned: they were drawn as u32 above");
+    };
+    for (s, c) in spots.iter().zip(colours) {
+        stats.visited += 1;
+        if s.w == 0 || s.h == 0 || c[3] == 0 {
+            continue;
+        }
+        let c = u32::from_le_bytes([c[0], c[1], c[2], 255]);
+        let mut o = s.at as usize;
+        for _ in 0..s.h {
+            px[o..o + s.w as usize].fill(c);
+            o += w;
+        }
+        stats.marks += 1;
+    }
+}
+
 /// Draws the scene as `draw` does, keeping the drawn items in `layer` between frames (`key` names
 /// what they come from: change it when the map or the data change).
 pub fn draw_with_layer(
     scene: &Scene,
     layer: &mut MarkLayer,
-    key: u64,
+    key: LayerKey,
     buf: &mut [u8],
     w: usize,
     h: usize,
@@ -552,6 +619,7 @@ pub fn draw_with_layer(
         None => reach + 1.0,
     };
     let mut near = Vec::new();
+    let mut reused = false;
     // What a full thumbnail pass notes (the frame's counts and sheets).
     let mut whole = (FrameStats::default(), BTreeSet::new(), BTreeSet::new());
     for clip in strips {
@@ -581,7 +649,35 @@ pub fn draw_with_layer(
         match level {
             None => {
                 let mut drawn = FrameStats::default();
-                draw_marks_of(pixels, w, clip, scene, &cam, reach, culled, &mut drawn);
+                let spots_for = Some((cam, (w, h), key.0.places, reach.to_bits()));
+                if full && culled.is_none() {
+                    // Every item afresh: at the places noted last time when they still hold,
+                    // else placed and noted.
+                    reused = layer.spots_for == spots_for && layer.spots.len() == atlas.n;
+                    if reused {
+                        fill_spots(pixels, w, &layer.spots, scene.mark_colours(), &mut drawn);
+                    } else {
+                        let mut spots = std::mem::take(&mut layer.spots);
+                        spots.clear();
+                        let colours = scene.mark_colours();
+                        draw_marks(
+                            pixels,
+                            w,
+                            clip,
+                            atlas,
+                            colours,
+                            &cam,
+                            reach,
+                            0..atlas.n,
+                            &mut drawn,
+                            Some(&mut spots),
+                        );
+                        layer.spots = spots;
+                        layer.spots_for = spots_for;
+                    }
+                } else {
+                    draw_marks_of(pixels, w, clip, scene, &cam, reach, culled, &mut drawn);
+                }
                 stats.visited += drawn.visited;
                 if full {
                     layer.marks = drawn.marks;
@@ -623,16 +719,19 @@ pub fn draw_with_layer(
     layer.key = key;
     layer.size = (w, h);
     layer.last_full = full;
+    layer.spots_reused = reused;
     let Some(level) = level else {
         if !full && reuse != Some((0, 0)) {
             // The count of marks on screen after a pan, without drawing them.
             let (wf, hf) = (w as f64, h as f64);
+            let colours = scene.mark_colours();
             layer.marks = atlas
                 .positions
                 .iter()
-                .filter(|&&p| {
+                .zip(colours)
+                .filter(|&(&p, c)| {
                     let [sx, sy] = cam.to_screen(p);
-                    !(sx < -reach || sy < -reach || sx > wf + reach || sy > hf + reach)
+                    c[3] != 0 && !(sx < -reach || sy < -reach || sx > wf + reach || sy > hf + reach)
                 })
                 .count();
         }
@@ -788,6 +887,7 @@ fn draw_on_top(
         reach,
         items,
         stats,
+        None,
     );
     outlines(scene, buf, w, h, false);
 }

@@ -414,7 +414,10 @@ impl App {
         let t0 = now();
         let mut layer = std::mem::take(&mut self.layer);
         // The kept items depend on the map shown and on how the selection dims them.
-        let key = self.atlas.current as u64 | self.tones_generation << 8;
+        let key = raster::LayerKey {
+            places: self.atlas.current as u64,
+            looks: self.tones_generation,
+        };
         let stats = raster::draw_with_layer(
             &self.scene(),
             &mut layer,

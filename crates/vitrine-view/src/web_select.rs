@@ -172,7 +172,7 @@ pub fn with_lookup<R>(
     let same_map = *selection_map == atlas.current;
     let near = |r: [f64; 4]| {
         let mut v = Vec::new();
-        grid.query(r, &mut v);
+        grid.query_any_order(r, &mut v);
         v
     };
     let at = Lookup {

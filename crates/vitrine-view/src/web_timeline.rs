@@ -15,6 +15,10 @@ pub struct Strip {
     field: usize,
     name: String,
     whole: Histogram,
+    /// What the filters leave, for the filters' generation it was made for.
+    filtered: Option<(u64, Option<Histogram>)>,
+    /// The corpus, for the (selection, filters) generations it was made for.
+    corpus: Option<((u64, u64), Option<Histogram>)>,
     /// The brush being dragged: canvas x of its two ends.
     brush: Option<(f64, f64)>,
 }
@@ -54,6 +58,8 @@ pub fn install(a: &mut App) {
         field: k,
         name: c.field.name.clone(),
         whole,
+        filtered: None,
+        corpus: None,
         brush: None,
     });
     if let Some(f) = by_id("timeline-strip") {
@@ -162,10 +168,56 @@ fn listen_brush(cv: &HtmlCanvasElement) {
     });
 }
 
+/// Brings the filtered and corpus histograms up to date, each only when what it counts changed
+/// (a lasso leaves the filtered one as it was).
+fn update_histograms(a: &mut App) {
+    let (fg, sg) = (a.filters.generation, a.selection.generation);
+    let App {
+        timeline,
+        atlas,
+        filters,
+        selection,
+        ..
+    } = a;
+    let Some(s) = timeline.as_mut() else { return };
+    let Column::Date { start, end } = &atlas.fields[s.field].column else {
+        return;
+    };
+    let empty = || Histogram {
+        counts: vec![0.0; s.whole.counts.len()],
+        ..s.whole.clone()
+    };
+    let pass = filters.passing();
+    if s.filtered.as_ref().map(|(g, _)| *g) != Some(fg) {
+        let hist = pass.map(|p| {
+            let mut hist = empty();
+            hist.add(start, end, p.items());
+            hist
+        });
+        s.filtered = Some((fg, hist));
+    }
+    if s.corpus.as_ref().map(|(g, _)| *g) != Some((sg, fg)) {
+        let hist = selection.mask().map(|m| {
+            let mut hist = empty();
+            match pass {
+                Some(p) => {
+                    let mut c = m.clone();
+                    c.and(p);
+                    hist.add(start, end, c.items());
+                }
+                None => hist.add(start, end, m.items()),
+            }
+            hist
+        });
+        s.corpus = Some(((sg, fg), hist));
+    }
+}
+
 /// Draws the strip: whole collection, filtered, corpus; the brush; year ticks.
 pub fn draw() {
     let Some(app) = app() else { return };
     let Some(cv) = canvas() else { return };
+    update_histograms(&mut app.borrow_mut());
     let a = app.borrow();
     let Some(s) = a.timeline.as_ref() else { return };
     let ratio = web_sys::window()
@@ -189,28 +241,8 @@ pub fn draw() {
     };
     let (w, h) = (cw as f64, ch as f64);
     ctx.clear_rect(0.0, 0.0, w, h);
-    let Column::Date { start, end } = &a.atlas.fields[s.field].column else {
-        return;
-    };
-    let empty = || Histogram {
-        counts: vec![0.0; s.whole.counts.len()],
-        ..s.whole.clone()
-    };
-    let pass = a.filters.passing();
-    let filtered = pass.map(|p| {
-        let mut hist = empty();
-        hist.add(start, end, p.items());
-        hist
-    });
-    let corpus = a.selection.mask().map(|m| {
-        let mut c = m.clone();
-        if let Some(p) = pass {
-            c.and(p);
-        }
-        let mut hist = empty();
-        hist.add(start, end, c.items());
-        hist
-    });
+    let filtered = s.filtered.as_ref().and_then(|(_, h)| h.as_ref());
+    let corpus = s.corpus.as_ref().and_then(|(_, h)| h.as_ref());
     let axis = 14.0 * ratio;
     let top = 4.0 * ratio;
     let max = s.whole.counts.iter().cloned().fold(0.0, f64::max).max(1e-9);
@@ -225,10 +257,10 @@ pub fn draw() {
         }
     };
     bars(&s.whole, "#d9d0bf");
-    if let Some(f) = &filtered {
+    if let Some(f) = filtered {
         bars(f, "#8c8577");
     }
-    if let Some(c) = &corpus {
+    if let Some(c) = corpus {
         bars(c, "#116466");
     }
     // Year ticks: about one per 90 CSS pixels, on round years.

@@ -274,10 +274,11 @@ fn the_first_picture_needs_only_the_first_files_and_the_catalogue_follows() {
 
 #[test]
 fn kept_marks_give_the_pixels_of_a_full_draw_while_drawing_only_what_came_into_view() {
-    use vitrine_view::raster::{draw_with_layer, MarkLayer};
+    use vitrine_view::raster::{draw_with_layer, LayerKey, MarkLayer};
     let dir = tempfile::tempdir().unwrap();
     let atlas = fixture(dir.path());
     let sheets = load_sheets(&atlas, dir.path(), &[]);
+    let key = |places, looks| LayerKey { places, looks };
     let grid = vitrine_view::grid::Grid::new(&atlas.positions, atlas.bounds, 2);
     let (w, h) = (160usize, 100usize);
     let fit = Camera::fit(atlas.bounds, [w as f64, h as f64]);
@@ -311,7 +312,7 @@ fn kept_marks_give_the_pixels_of_a_full_draw_while_drawing_only_what_came_into_v
         let mut want = vec![0u8; w * h * 4];
         let full = draw(&scene, &mut want, w, h);
         let mut got = vec![0u8; w * h * 4];
-        let kept = draw_with_layer(&scene, &mut layer, 1, &mut got, w, h);
+        let kept = draw_with_layer(&scene, &mut layer, key(1, 0), &mut got, w, h);
         assert!(
             got == want,
             "step {k}: the kept layer's pixels differ from a full draw"
@@ -340,7 +341,60 @@ fn kept_marks_give_the_pixels_of_a_full_draw_while_drawing_only_what_came_into_v
         theme: READING_ROOM,
     };
     let mut got = vec![0u8; w * h * 4];
-    assert!(draw_with_layer(&scene, &mut layer, 2, &mut got, w, h).visited >= atlas.n);
+    assert!(draw_with_layer(&scene, &mut layer, key(2, 0), &mut got, w, h).visited >= atlas.n);
+
+    // Only the looks change (a filter, a lasso) at a still view: the marks are filled in at the
+    // places the last full pass noted, with the pixels of a full draw; after a pan the places
+    // are noted again.
+    let mut cam = fit;
+    let mut draw_both = |cam: &Camera, tones: Option<&vitrine_view::raster::Tones>, looks| {
+        let scene = Scene {
+            atlas: &atlas,
+            grid: Some(&grid),
+            sheets: &sheets,
+            camera: cam,
+            hover: Some(3),
+            open: None,
+            tones,
+            theme: READING_ROOM,
+        };
+        let mut want = vec![0u8; w * h * 4];
+        let full = draw(&scene, &mut want, w, h);
+        let mut got = vec![0u8; w * h * 4];
+        let kept = draw_with_layer(&scene, &mut layer, key(2, looks), &mut got, w, h);
+        assert!(got == want, "looks {looks}: pixels differ from a full draw");
+        assert_eq!(kept.marks, full.marks, "looks {looks}");
+        layer.spots_reused()
+    };
+    let tones = |k: usize| vitrine_view::raster::Tones {
+        colours: (0..atlas.n)
+            .map(|i| match (i + k) % 3 {
+                0 => [0, 0, 0, 0],
+                1 => [200, 40, 40, 255],
+                _ => atlas.colours[i],
+            })
+            .collect(),
+        weight: (0..atlas.n)
+            .map(|i| if (i + k) % 3 == 0 { 0 } else { 256 })
+            .collect(),
+    };
+    assert!(
+        !draw_both(&cam, None, 10),
+        "the first pass notes the places"
+    );
+    let (t1, t2) = (tones(1), tones(2));
+    assert!(
+        draw_both(&cam, Some(&t1), 11),
+        "new looks, same view: places reused"
+    );
+    assert!(draw_both(&cam, Some(&t2), 12));
+    cam.pan(5.0, 0.0);
+    let _ = draw_both(&cam, Some(&t2), 12);
+    assert!(
+        !draw_both(&cam, Some(&t1), 13),
+        "a moved view places the marks anew"
+    );
+    assert!(draw_both(&cam, None, 14));
 }
 
 #[test]
@@ -403,7 +457,7 @@ fn neighbour_lists_arrive_by_chunk_and_the_least_recently_used_chunk_goes_first(
 
 #[test]
 fn kept_thumbnails_give_the_pixels_of_a_full_draw_and_a_new_sheet_redraws_them() {
-    use vitrine_view::raster::{draw_with_layer, MarkLayer};
+    use vitrine_view::raster::{draw_with_layer, LayerKey, MarkLayer};
     let dir = tempfile::tempdir().unwrap();
     let atlas = fixture(dir.path());
     // The small level loaded, the large one not: 40 px items want the large level and show the
@@ -477,7 +531,17 @@ fn kept_thumbnails_give_the_pixels_of_a_full_draw_and_a_new_sheet_redraws_them()
         let full = draw(&scene, &mut want, w, h);
         assert!(full.thumbnails > 4, "step {k}: {full:?}");
         let mut got = vec![0u8; w * h * 4];
-        let kept = draw_with_layer(&scene, &mut layer, 1, &mut got, w, h);
+        let kept = draw_with_layer(
+            &scene,
+            &mut layer,
+            LayerKey {
+                places: 1,
+                looks: 0,
+            },
+            &mut got,
+            w,
+            h,
+        );
         assert!(
             got == want,
             "step {k}: the kept layer's pixels differ from a full draw"
