@@ -145,6 +145,11 @@ try {
   };
   await phase("lasso (200 points)", [lasso(300, "replace"), lasso(150, "subtract"), lasso(200, "add"),
     lasso(350, "replace"), lasso(100, "subtract"), lasso(250, "replace")]);
+  // Search over every text and category field (ids, image names, techniques, places): the
+  // first search folds a million texts once, later ones read the folded copy.
+  const search = (query) => ["filter", JSON.stringify({ kind: "text", fields: [], query }), 0];
+  await phase("filter: search", [search("varn"), search("osterlee 12"), search("etching"),
+    search("r00042"), search("brisca 7"), search("scan-0038")]);
   const end = await state();
   const cdp = await browser.newCDPSession(page);
   const heap = await cdp.send("Runtime.getHeapUsage");

@@ -397,6 +397,27 @@ test("a lasso selects, Shift and Alt lassos add and take away, and the corpus ex
   assert.ok(!(await page.locator("#tray").isVisible()));
   await page.keyboard.press("Control+z");
   assert.equal(await selected(), taken);
+
+  // From the keyboard: in lasso mode Enter drops a point at the centre of the view, the arrow
+  // keys move the view between points, Space closes the lasso; it replays natively too.
+  await page.keyboard.press("x");
+  await page.locator("#map").focus();
+  await page.keyboard.press("l");
+  await page.keyboard.press("Enter");
+  await page.locator("#crosshair").waitFor({ state: "visible", timeout: 5000 });
+  for (let k = 0; k < 4; k++) await page.keyboard.press("ArrowRight");
+  await page.keyboard.press("Enter");
+  for (let k = 0; k < 4; k++) await page.keyboard.press("ArrowDown");
+  await page.keyboard.press("Enter");
+  await page.keyboard.press("Space");
+  await page.waitForFunction(() => Number(document.body.dataset.selected) > 0);
+  const keyed = await selected();
+  assert.match(await page.locator("#tray-how").innerText(), /lasso of 3 vertices/);
+  assert.ok(!(await page.locator("#crosshair").isVisible()));
+  const kjson = await save("#export-json", "keyed.json");
+  assert.equal(JSON.parse(fs.readFileSync(kjson, "utf8")).steps[0].lasso.length, 3);
+  const kout = execFileSync(BIN, ["corpus", ATLAS, "--from", kjson], { encoding: "utf8" });
+  assert.ok(kout.startsWith(`${keyed} items`), kout);
   assert.deepEqual(errors, []);
 });
 

@@ -80,8 +80,8 @@ pub fn louvain(n: usize, graph: &FuzzyGraph, resolution: f64) -> Vec<u32> {
         // Renumber communities densely and aggregate.
         let mut id = vec![u32::MAX; m];
         let mut next = 0u32;
-        for v in 0..m {
-            let c = comm[v] as usize;
+        for &c in &comm[..m] {
+            let c = c as usize;
             if id[c] == u32::MAX {
                 id[c] = next;
                 next += 1;

@@ -274,11 +274,22 @@ pub fn run(atlas_dir: &Path, a: &CorpusArgs) -> Result<CorpusReport> {
     let changed = !extra_steps.is_empty() || !extra_filters.is_empty();
     steps.extend(extra_steps);
     filters.extend(extra_filters);
-    let map_name = a
-        .map
-        .clone()
-        .or_else(|| from.as_ref().map(|c| c.map.clone()))
-        .unwrap_or_else(|| m.maps[0].name.clone());
+    if let (Some(given), Some(c), Some(p)) = (&a.map, &from, &a.from) {
+        if given != &c.map && !c.steps.is_empty() {
+            bail!(
+                "--map {given:?}: the steps of {} were drawn on the {:?} map, and would pick other \
+                 items on another (leave out --map, or give --map {:?})",
+                p.display(),
+                c.map,
+                c.map
+            );
+        }
+    }
+    let (map_name, named_by) = match (&a.map, &from, &a.from) {
+        (Some(name), _, _) => (name.clone(), "--map".to_string()),
+        (None, Some(c), Some(p)) => (c.map.clone(), format!("{} (its \"map\")", p.display())),
+        _ => (m.maps[0].name.clone(), "the atlas's first map".to_string()),
+    };
     let map = m
         .maps
         .iter()
@@ -286,7 +297,8 @@ pub fn run(atlas_dir: &Path, a: &CorpusArgs) -> Result<CorpusReport> {
         .with_context(|| {
             let names: Vec<&str> = m.maps.iter().map(|l| l.name.as_str()).collect();
             format!(
-                "--map {map_name:?}: the atlas has the maps {}",
+                "{named_by} names the map {map_name:?}, but {} has the maps {}",
+                atlas_dir.display(),
                 names.join(", ")
             )
         })?;

@@ -86,7 +86,7 @@ pub fn parse_date(text: &str) -> Option<YearRange> {
             // "1550-75": the end shares the start's leading digits.
             if b.len() < a.len() && b.chars().all(|c| c.is_ascii_digit()) && start >= 0 {
                 let scale = 10i32.pow(b.len() as u32);
-                end = start - start % scale + end;
+                end += start - start % scale;
                 if end < start {
                     end += scale;
                 }

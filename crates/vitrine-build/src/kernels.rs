@@ -78,12 +78,12 @@ unsafe fn sum_avx2(
         let (pa, pb) = (a.as_ptr(), b.as_ptr());
         let mut acc = [_mm256_setzero_ps(); 4];
         for c in 0..chunks {
-            for r in 0..4 {
+            for (r, acc_r) in acc.iter_mut().enumerate() {
                 let o = c * LANES + 8 * r;
-                acc[r] = wide(
+                *acc_r = wide(
                     _mm256_loadu_ps(pa.add(o)),
                     _mm256_loadu_ps(pb.add(o)),
-                    acc[r],
+                    *acc_r,
                 );
             }
         }

@@ -259,7 +259,10 @@ fn a_corpus_file_replays_to_the_same_items_and_bad_input_is_named() {
         (vec!["--date", "1600..1500"], "ends before it starts"),
         (vec!["--range", "height_cm=30..12"], "ends before it starts"),
         (vec!["--range", "height_cm=nan..12"], "must be finite"),
-        (vec!["--map", "atlas-of-stars"], "the atlas has the maps"),
+        (
+            vec!["--map", "atlas-of-stars"],
+            "--map names the map \"atlas-of-stars\", but",
+        ),
         (
             vec!["--ids", "ob-001,ob-999"],
             "\"ob-999\" is not in this atlas",
@@ -271,6 +274,28 @@ fn a_corpus_file_replays_to_the_same_items_and_bad_input_is_named() {
         let e = String::from_utf8_lossy(&o.stderr);
         assert!(e.contains(says), "{args:?}: {e}");
     }
+    // A corpus file's lassos belong to its map: another --map is refused, and a map the atlas
+    // lacks is named with the file it came from.
+    ok(&corpus(
+        d,
+        &["--lasso", "1e6,1e6 1e6,1.1e6 1.1e6,1e6", "--json", "l.json"],
+    ));
+    let o = corpus(d, &["--from", "l.json", "--map", "timeline"]);
+    let e = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        !o.status.success() && e.contains("were drawn on the \"similarity\" map"),
+        "{e}"
+    );
+    let mut v: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(d.join("l.json")).unwrap()).unwrap();
+    v["map"] = "gone".into();
+    std::fs::write(d.join("gone.json"), v.to_string()).unwrap();
+    let o = corpus(d, &["--from", "gone.json"]);
+    let e = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        !o.status.success() && e.contains("gone.json (its \"map\") names the map \"gone\""),
+        "{e}"
+    );
 }
 
 #[test]

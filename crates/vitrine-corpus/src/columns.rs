@@ -18,6 +18,40 @@ pub struct FieldColumn {
     pub column: Column,
     /// Date and number fields: each value as the catalogue wrote it.
     pub written: Option<TextTable>,
+    /// Every item's text folded for search, made by the first search that reads the field and
+    /// kept: a million titles are folded once, not at every keystroke.
+    pub folded: std::sync::OnceLock<FoldedText>,
+}
+
+/// Texts folded for search (see [`crate::filter::fold`]), one per item, in one buffer.
+#[derive(Default)]
+pub struct FoldedText {
+    text: String,
+    ends: Vec<u32>,
+}
+
+impl FoldedText {
+    pub fn new(texts: impl Iterator<Item = String>) -> FoldedText {
+        let mut f = FoldedText::default();
+        for t in texts {
+            f.text.push_str(&t);
+            f.ends.push(f.text.len() as u32);
+        }
+        f
+    }
+
+    pub fn get(&self, i: usize) -> &str {
+        let a = if i == 0 { 0 } else { self.ends[i - 1] as usize };
+        &self.text[a..self.ends[i] as usize]
+    }
+
+    pub fn len(&self) -> usize {
+        self.ends.len()
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.ends.is_empty()
+    }
 }
 
 impl FieldColumn {
@@ -83,6 +117,7 @@ pub fn decode_fields<'a>(
             field: f.clone(),
             column,
             written,
+            folded: Default::default(),
         });
     }
     Ok(fields)

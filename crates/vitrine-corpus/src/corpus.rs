@@ -174,6 +174,33 @@ impl CorpusFile {
                 "corpus format version {version:?} is not supported (this reader knows {CORPUS_VERSION})"
             )));
         }
+        // Steps and filters one by one first, so that an error names the one at fault.
+        let each = |key: &str,
+                    what: &str,
+                    check: &dyn Fn(&serde_json::Value) -> Result<(), String>|
+         -> Result<(), CorpusError> {
+            let Some(list) = v.get(key).and_then(|l| l.as_array()) else {
+                return Ok(());
+            };
+            for (k, item) in list.iter().enumerate() {
+                check(item).map_err(|e| {
+                    CorpusError::Invalid(format!("{what} {} of {}: {e}", k + 1, list.len()))
+                })?;
+            }
+            Ok(())
+        };
+        each("steps", "step", &|item| {
+            let s: Step = serde_json::from_value(item.clone()).map_err(|e| e.to_string())?;
+            match &s.shape {
+                Shape::Lasso(p) => p.check().map_err(|e| e.to_string()),
+                _ => Ok(()),
+            }
+        })?;
+        each("filters", "filter", &|item| {
+            serde_json::from_value::<Filter>(item.clone())
+                .map(|_| ())
+                .map_err(|e| e.to_string())
+        })?;
         let c: CorpusFile =
             serde_json::from_value(v).map_err(|e| CorpusError::Json(e.to_string()))?;
         if c.ids.len() != c.count {
@@ -183,69 +210,11 @@ impl CorpusFile {
                 c.ids.len()
             )));
         }
-        for s in &c.steps {
-            if let Shape::Lasso(p) = &s.shape {
-                p.check()?;
-            }
-        }
         Ok(c)
     }
 
     pub fn to_json(&self) -> String {
         serde_json::to_string_pretty(self).expect("a corpus file serialises")
-    }
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn steps_replay_in_order_and_read_back_from_json() {
-        // A 10 x 10 grid of items at integer positions; id "p{x}-{y}".
-        let positions: Vec<[f32; 2]> = (0..100)
-            .map(|i| [(i % 10) as f32, (i / 10) as f32])
-            .collect();
-        let index_of = |id: &str| -> Option<usize> {
-            let (x, y) = id.strip_prefix('p')?.split_once('-')?;
-            Some(y.parse::<usize>().ok()? * 10 + x.parse::<usize>().ok()?)
-        };
-        let at = Lookup {
-            positions: &positions,
-            index_of: &index_of,
-            near: None,
-        };
-        let steps = vec![
-            Step {
-                op: Op::Replace,
-                shape: Shape::Rect([-0.5, -0.5, 4.5, 4.5]), // 25 items
-            },
-            Step {
-                op: Op::Subtract,
-                shape: Shape::Lasso(Polygon::parse("-1,-1 3.5,-1 -1,3.5").unwrap()), // x + y < 2.5: 6 items
-            },
-            Step {
-                op: Op::Add,
-                shape: Shape::Ids(vec!["p9-9".into()]),
-            },
-        ];
-        let sel = replay(&steps, &at).unwrap().unwrap();
-        assert_eq!(sel.count(), 25 - 6 + 1);
-        assert!(sel.get(99) && !sel.get(0) && sel.get(44));
-        assert_eq!(replay(&[], &at).unwrap(), None);
-        let json = serde_json::to_string(&steps).unwrap();
-        assert!(json.contains(r#"{"op":"add","ids":["p9-9"]}"#), "{json}");
-        let back: Vec<Step> = serde_json::from_str(&json).unwrap();
-        assert_eq!(back, steps);
-        let e = replay(
-            &[Step {
-                op: Op::Add,
-                shape: Shape::Ids(vec!["nowhere".into()]),
-            }],
-            &at,
-        )
-        .unwrap_err();
-        assert!(e.to_string().contains("\"nowhere\""), "{e}");
     }
 }
 
@@ -299,4 +268,98 @@ pub fn describe(map: &str, steps: &[Step], filters: &[Filter]) -> String {
         out.push_str(&format!(", filtered by {}", chips.join(" and ")));
     }
     out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn steps_replay_in_order_and_read_back_from_json() {
+        // A 10 x 10 grid of items at integer positions; id "p{x}-{y}".
+        let positions: Vec<[f32; 2]> = (0..100)
+            .map(|i| [(i % 10) as f32, (i / 10) as f32])
+            .collect();
+        let index_of = |id: &str| -> Option<usize> {
+            let (x, y) = id.strip_prefix('p')?.split_once('-')?;
+            Some(y.parse::<usize>().ok()? * 10 + x.parse::<usize>().ok()?)
+        };
+        let at = Lookup {
+            positions: &positions,
+            index_of: &index_of,
+            near: None,
+        };
+        let steps = vec![
+            Step {
+                op: Op::Replace,
+                shape: Shape::Rect([-0.5, -0.5, 4.5, 4.5]), // 25 items
+            },
+            Step {
+                op: Op::Subtract,
+                shape: Shape::Lasso(Polygon::parse("-1,-1 3.5,-1 -1,3.5").unwrap()), // x + y < 2.5: 6 items
+            },
+            Step {
+                op: Op::Add,
+                shape: Shape::Ids(vec!["p9-9".into()]),
+            },
+        ];
+        let sel = replay(&steps, &at).unwrap().unwrap();
+        assert_eq!(sel.count(), 25 - 6 + 1);
+        assert!(sel.get(99) && !sel.get(0) && sel.get(44));
+        assert_eq!(replay(&[], &at).unwrap(), None);
+        let json = serde_json::to_string(&steps).unwrap();
+        assert!(json.contains(r#"{"op":"add","ids":["p9-9"]}"#), "{json}");
+        let back: Vec<Step> = serde_json::from_str(&json).unwrap();
+        assert_eq!(back, steps);
+        let e = replay(
+            &[Step {
+                op: Op::Add,
+                shape: Shape::Ids(vec!["nowhere".into()]),
+            }],
+            &at,
+        )
+        .unwrap_err();
+        assert!(e.to_string().contains("\"nowhere\""), "{e}");
+    }
+
+    #[test]
+    fn a_bad_step_or_filter_in_a_corpus_file_is_named() {
+        let file = |steps: &str, filters: &str| {
+            format!(
+                r#"{{"format": "vitrine-corpus", "format_version": 1,
+                "atlas": {{"title": "t", "manifest_sha256": "00", "item_count": 3}},
+                "build": {{}}, "map": "similarity", "steps": {steps}, "filters": {filters},
+                "count": 0, "ids": [],
+                "made": {{"tool": "vitrine", "tool_version": "0", "time": "2026-01-01T00:00:00Z", "by": "viewer"}}}}"#
+            )
+        };
+        let good_step = r#"{"op": "add", "rect": [0, 0, 1, 1]}"#;
+        let ok = CorpusFile::from_json(&file(&format!("[{good_step}]"), "[]")).unwrap();
+        assert_eq!(ok.steps.len(), 1);
+        // The second step has a lasso of two points.
+        let e = CorpusFile::from_json(&file(
+            &format!(r#"[{good_step}, {{"op": "add", "lasso": [[0, 0], [1, 1]]}}]"#),
+            "[]",
+        ))
+        .unwrap_err()
+        .to_string();
+        assert!(e.starts_with("step 2 of 2:"), "{e}");
+        // An unknown operation.
+        let e = CorpusFile::from_json(&file(r#"[{"op": "xor", "rect": [0, 0, 1, 1]}]"#, "[]"))
+            .unwrap_err()
+            .to_string();
+        assert!(e.starts_with("step 1 of 1:") && e.contains("xor"), "{e}");
+        // A misspelt key of a filter is refused, naming the filter and the key.
+        let e = CorpusFile::from_json(&file(
+            "[]",
+            r#"[{"kind": "category", "field": "technique", "values": ["etching"]},
+                {"kind": "date", "field": "date", "from": 1500, "to": 1600, "rule": "within", "rulee": "overlap"}]"#,
+        ))
+        .unwrap_err()
+        .to_string();
+        assert!(
+            e.starts_with("filter 2 of 2:") && e.contains("rulee"),
+            "{e}"
+        );
+    }
 }

@@ -11,8 +11,10 @@ use crate::columns::{Column, FieldColumn};
 use crate::mask::Mask;
 use crate::CorpusError;
 
+/// A misspelt key ("rulee", "vaules") is refused rather than ignored: a filter read without it
+/// would give another corpus than the one written.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-#[serde(tag = "kind", rename_all = "snake_case")]
+#[serde(tag = "kind", rename_all = "snake_case", deny_unknown_fields)]
 pub enum Filter {
     /// Items whose value is one of `values` (as the catalogue writes them).
     Category { field: String, values: Vec<String> },
@@ -210,20 +212,24 @@ impl Filter {
     }
 }
 
-/// A field's values folded once for search: category fields per value, others per item.
-enum Folded {
-    Values(Vec<u32>, Vec<String>),
-    Items(Vec<String>),
+/// A field's values folded for search: category fields per value (few), others per item (kept
+/// in the column once made).
+enum Folded<'a> {
+    Values(&'a [u32], Vec<String>),
+    Items(&'a crate::columns::FoldedText),
 }
 
-impl Folded {
-    fn new(c: &FieldColumn, n: usize) -> Folded {
+impl<'a> Folded<'a> {
+    fn new(c: &'a FieldColumn, n: usize) -> Folded<'a> {
         match &c.column {
-            Column::Category(codes) if c.written.is_none() => Folded::Values(
-                codes.clone(),
-                c.field.values.iter().map(|v| fold(v)).collect(),
-            ),
-            _ => Folded::Items((0..n).map(|i| fold(&c.text(i))).collect()),
+            Column::Category(codes) if c.written.is_none() => {
+                Folded::Values(codes, c.field.values.iter().map(|v| fold(v)).collect())
+            }
+            _ => {
+                Folded::Items(c.folded.get_or_init(|| {
+                    crate::columns::FoldedText::new((0..n).map(|i| fold(&c.text(i))))
+                }))
+            }
         }
     }
 
@@ -233,7 +239,7 @@ impl Folded {
                 let hit: Vec<bool> = values.iter().map(|v| v.contains(word)).collect();
                 Mask::from_fn(n, |i| hit.get(codes[i] as usize).copied().unwrap_or(false))
             }
-            Folded::Items(texts) => Mask::from_fn(n, |i| texts[i].contains(word)),
+            Folded::Items(texts) => Mask::from_fn(n, |i| texts.get(i).contains(word)),
         }
     }
 }
@@ -245,9 +251,29 @@ pub struct Applied {
 }
 
 pub fn apply(filters: &[Filter], cols: &[FieldColumn], n: usize) -> Result<Applied, CorpusError> {
+    apply_reusing(filters, cols, n, None)
+}
+
+/// [`apply`], taking the items of a filter unchanged since `before` (the filters applied last
+/// time) from there: changing one chip recomputes that chip alone.
+pub fn apply_reusing(
+    filters: &[Filter],
+    cols: &[FieldColumn],
+    n: usize,
+    before: Option<(&[Filter], &Applied)>,
+) -> Result<Applied, CorpusError> {
     let each: Vec<Mask> = filters
         .iter()
-        .map(|f| f.mask(cols, n))
+        .map(|f| {
+            let kept = before.and_then(|(list, applied)| {
+                let k = list.iter().position(|g| g == f)?;
+                applied.each.get(k).filter(|m| m.len() == n).cloned()
+            });
+            match kept {
+                Some(m) => Ok(m),
+                None => f.mask(cols, n),
+            }
+        })
         .collect::<Result<_, _>>()?;
     let mut all = Mask::all(n);
     for m in &each {

@@ -92,6 +92,7 @@ mod tests {
                     end: vec![1510, 1560, i32::MIN, 1490],
                 },
                 written: None,
+                folded: Default::default(),
             },
             FieldColumn {
                 field: field(
@@ -101,6 +102,7 @@ mod tests {
                 ),
                 column: Column::Category(vec![1, 0, 1, 2]),
                 written: None,
+                folded: Default::default(),
             },
         ];
         // Items 0, 1 and 2 (item 3, the earliest, is left out; item 2 is undated).

@@ -204,6 +204,7 @@ mod tests {
             field,
             column: Column::Category(codes.clone()),
             written: None,
+            folded: Default::default(),
         };
         let (cols, legend) = by_field(&c, n);
         let Legend::Categories(shown, rest) = legend else {

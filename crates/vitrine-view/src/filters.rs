@@ -3,7 +3,7 @@
 //! under every other filter (cross-filtering). Plain Rust, no DOM.
 
 use vitrine_corpus::columns::{Column, FieldColumn};
-use vitrine_corpus::filter::{apply, category_counts, Applied, Filter};
+use vitrine_corpus::filter::{apply_reusing, category_counts, Applied, Filter};
 use vitrine_corpus::mask::Mask;
 use vitrine_corpus::CorpusError;
 
@@ -78,7 +78,8 @@ impl Filters {
         cols: &[FieldColumn],
         n: usize,
     ) -> Result<(), CorpusError> {
-        let applied = apply(&list, cols, n)?;
+        let before = self.applied.as_ref().map(|a| (self.list.as_slice(), a));
+        let applied = apply_reusing(&list, cols, n, before)?;
         self.list = list;
         self.applied = Some(applied);
         self.generation += 1;
@@ -123,6 +124,33 @@ impl Filters {
     }
 }
 
+/// Which values of a category field the filter panel lists, as indices into `values`: the chosen
+/// ones always (a box not shown could not keep its tick), then those whose folded text contains
+/// the folded `query` (every value for an empty one), largest count first, up to `limit` in all;
+/// and how many more match.
+pub fn panel_values(
+    values: &[String],
+    counts: &[u64],
+    chosen: &[String],
+    query: &str,
+    limit: usize,
+) -> (Vec<usize>, usize) {
+    let q = vitrine_corpus::filter::fold(query.trim());
+    let mut order: Vec<usize> = (0..values.len()).collect();
+    order.sort_by_key(|&v| std::cmp::Reverse(counts.get(v).copied().unwrap_or(0)));
+    let (mut shown, rest): (Vec<usize>, Vec<usize>) = order
+        .into_iter()
+        .partition(|&v| chosen.contains(&values[v]));
+    let matching: Vec<usize> = rest
+        .into_iter()
+        .filter(|&v| q.is_empty() || vitrine_corpus::filter::fold(&values[v]).contains(&q))
+        .collect();
+    let room = limit.saturating_sub(shown.len());
+    let more = matching.len().saturating_sub(room);
+    shown.extend(matching.into_iter().take(room));
+    (shown, more)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -148,6 +176,7 @@ mod tests {
             },
             column: Column::Category(codes),
             written: None,
+            folded: Default::default(),
         }
     }
 
@@ -182,5 +211,82 @@ mod tests {
         // A bad filter changes nothing.
         assert!(f.set(cat("technique", &["c"]), &cols, 8).is_err());
         assert!(f.list().is_empty());
+    }
+
+    #[test]
+    fn a_changed_chip_is_recomputed_alone_with_the_same_items_as_afresh() {
+        let n = 12;
+        let titles: Vec<String> = (0..n)
+            .map(|i| ["Étude", "Landscape", "Portrait of a Stag"][i % 3].to_string())
+            .collect();
+        let mut title = category("title", &[], vec![0; n]);
+        title.field.kind = FieldKind::Text;
+        title.column = Column::Text(vitrine_format::TextTable::from_strings(&titles));
+        let cols = vec![
+            category(
+                "technique",
+                &["a", "b"],
+                (0..n as u32).map(|i| i % 2).collect(),
+            ),
+            category("place", &["x", "y"], (0..n as u32).map(|i| i / 6).collect()),
+            title,
+        ];
+        let cat = |field: &str, v: &[&str]| Filter::Category {
+            field: field.into(),
+            values: v.iter().map(|s| s.to_string()).collect(),
+        };
+        let search = Filter::Text {
+            fields: vec!["title".into()],
+            query: "etude".into(),
+        };
+        let mut f = Filters::default();
+        assert!(cols[2].folded.get().is_none());
+        f.set(search.clone(), &cols, n).unwrap();
+        // The search folded the titles once; the column keeps them.
+        assert_eq!(cols[2].folded.get().map(|t| t.len()), Some(n));
+        assert_eq!(cols[2].folded.get().unwrap().get(0), "etude");
+        f.set(cat("technique", &["a"]), &cols, n).unwrap();
+        for step in [
+            cat("place", &["y"]),
+            cat("technique", &["b"]),
+            cat("place", &[]),
+        ] {
+            f.set(step, &cols, n).unwrap();
+            let fresh = vitrine_corpus::filter::apply(f.list(), &cols, n).unwrap();
+            assert_eq!(f.passing().unwrap(), &fresh.all);
+        }
+        // Items 3 and 9 are "Étude" and technique b (odd): what the last state leaves.
+        assert_eq!(f.passing().unwrap().items().collect::<Vec<_>>(), [3, 9]);
+    }
+
+    #[test]
+    fn the_panel_lists_chosen_values_then_the_largest_that_match() {
+        let values: Vec<String> = ["Étampes", "Varnholt", "Osterlee", "Vèrnay", "Brisca"]
+            .iter()
+            .map(|s| s.to_string())
+            .collect();
+        let counts = [5, 50, 40, 30, 1];
+        // Nothing chosen, no query: by count, cut at the limit, the rest counted.
+        assert_eq!(
+            panel_values(&values, &counts, &[], "", 3),
+            (vec![1, 2, 3], 2)
+        );
+        // A chosen value too small to make the list is still there, first.
+        let chosen = vec!["Brisca".to_string()];
+        assert_eq!(
+            panel_values(&values, &counts, &chosen, "", 3),
+            (vec![4, 1, 2], 2)
+        );
+        // The query ignores case and accents: "VE" finds Vèrnay alone.
+        assert_eq!(panel_values(&values, &counts, &[], "VE", 10), (vec![3], 0));
+        assert_eq!(
+            panel_values(&values, &counts, &[], "etam", 10),
+            (vec![0], 0)
+        );
+        // Chosen values stay whatever the query.
+        assert_eq!(
+            panel_values(&values, &counts, &chosen, "etam", 10),
+            (vec![4, 0], 0)
+        );
     }
 }

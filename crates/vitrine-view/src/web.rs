@@ -78,6 +78,8 @@ struct App {
     selection: crate::selection::Selection,
     /// The lasso or box being drawn.
     sketch: Option<select::Sketch>,
+    /// A lasso or box being drawn from the keyboard.
+    key_sketch: Option<select::KeySketch>,
     /// How items are dimmed for the selection (None: nothing chosen).
     tones: Option<raster::Tones>,
     /// Changes with `tones`: the kept layer is redrawn.
@@ -443,6 +445,9 @@ impl App {
         }
         self.update_axis();
         self.update_labels();
+        if self.key_sketch.is_some() {
+            select::show_key_sketch(self);
+        }
         set_state(
             "level",
             if stats.thumbnails > 0 {
@@ -1201,6 +1206,27 @@ fn install_events(canvas: &HtmlCanvasElement) {
             if typing {
                 return;
             }
+            // Keyboard lassos and boxes: Enter drops a vertex at the centre of the view, Space
+            // closes the lasso (not on buttons and links, whose own Enter and Space these are).
+            let on_control = e
+                .target()
+                .and_then(|t| t.dyn_into::<web_sys::HtmlElement>().ok())
+                .is_some_and(|t| matches!(t.tag_name().as_str(), "BUTTON" | "A" | "SUMMARY"));
+            let selecting = app().is_some_and(|a| a.borrow().mode != select::Mode::Move);
+            if selecting && !on_control && !(e.ctrl_key() || e.meta_key()) {
+                let done = match e.key().as_str() {
+                    "Enter" => {
+                        select::key_vertex(e.shift_key(), e.alt_key());
+                        true
+                    }
+                    " " => select::key_close(),
+                    _ => false,
+                };
+                if done {
+                    e.prevent_default();
+                    return;
+                }
+            }
             if e.ctrl_key() || e.meta_key() {
                 match e.key().to_lowercase().as_str() {
                     "z" => select::undo(e.shift_key()),
@@ -1224,8 +1250,9 @@ fn install_events(canvas: &HtmlCanvasElement) {
                 "ArrowUp" => pan(0.0, step),
                 "ArrowDown" => pan(0.0, -step),
                 "Escape" => {
-                    let selecting = app().is_some_and(|a| a.borrow().mode != select::Mode::Move);
-                    if selecting {
+                    if select::key_cancel() {
+                        // The keyboard sketch is dropped; the mode stays.
+                    } else if selecting {
                         select::set_mode(select::Mode::Move);
                     } else {
                         open_card(None);
@@ -1236,6 +1263,8 @@ fn install_events(canvas: &HtmlCanvasElement) {
                 "l" => select::set_mode(select::Mode::Lasso),
                 "b" => select::set_mode(select::Mode::Box),
                 "a" => select::everything(),
+                "v" => select::select_view(false),
+                "V" => select::select_view(true),
                 "x" => select::clear(),
                 "/" => {
                     if let Some(i) = by_id("search") {
@@ -1258,7 +1287,8 @@ fn install_events(canvas: &HtmlCanvasElement) {
         },
     );
     // The canvas changes size with the window and when the bars above and below it grow or
-    // shrink (chips wrapping, the timeline strip appearing): its pixels must follow its box, or
+    // shrink (the timeline strip appearing, the chip bar wrapping on a narrow window): its
+    // pixels must follow its box, or
     // the browser would scale the picture and pointer positions would drift.
     let c = canvas.clone();
     let on_resize = Closure::<dyn FnMut(js_sys::Array)>::new(move |_entries: js_sys::Array| {
@@ -1445,6 +1475,7 @@ async fn load(base: String) -> Result<(), String> {
         mode: select::Mode::Move,
         selection: Default::default(),
         sketch: None,
+        key_sketch: None,
         tones: None,
         tones_generation: 0,
         id_index: None,

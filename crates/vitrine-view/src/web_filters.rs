@@ -6,7 +6,12 @@ use vitrine_corpus::columns::Column;
 use vitrine_corpus::filter::{DateRule, Filter};
 use vitrine_format::FieldKind;
 
-/// Category values listed per field in the panel (the rest are reached by search).
+thread_local! {
+    /// Per field (index): what its value finder holds, kept while the panel is rebuilt.
+    static VALUE_FIND: RefCell<HashMap<usize, String>> = RefCell::new(HashMap::new());
+}
+
+/// Category values listed per field in the panel (the rest through the field's value finder).
 const PANEL_VALUES: usize = 40;
 /// Milliseconds of quiet typing before a search runs.
 const SEARCH_DELAY_MS: i32 = 250;
@@ -162,9 +167,39 @@ fn render_panel() {
                     Some(Filter::Category { values, .. }) => values.clone(),
                     _ => Vec::new(),
                 };
-                let mut order: Vec<usize> = (0..c.field.values.len()).collect();
-                order.sort_by_key(|&v| std::cmp::Reverse(counts[v]));
-                for &v in order.iter().take(PANEL_VALUES) {
+                let many = c.field.values.len() > PANEL_VALUES;
+                let query = VALUE_FIND.with(|q| q.borrow().get(&k).cloned().unwrap_or_default());
+                if many {
+                    // A long list gets a finder: it narrows the values listed, never the filter.
+                    let find: web_sys::HtmlInputElement =
+                        doc.create_element("input").unwrap().unchecked_into();
+                    find.set_type("search");
+                    find.set_class_name("value-find");
+                    find.set_id(&format!("field-{k}-find"));
+                    find.set_value(&query);
+                    find.set_placeholder(&format!("Find among {} values", c.field.values.len()));
+                    let _ = find.set_attribute("aria-label", &format!("Find a value of {name}"));
+                    let f2 = find.clone();
+                    listen(&find, "input", true, move |_e: web_sys::Event| {
+                        VALUE_FIND.with(|q| q.borrow_mut().insert(k, f2.value()));
+                        render_panel();
+                        // The finder was made anew: typing goes on in it.
+                        if let Some(i) = input(&format!("field-{k}-find")) {
+                            let _ = i.focus();
+                            let end = i.value().len() as u32;
+                            let _ = i.set_selection_range(end, end);
+                        }
+                    });
+                    let _ = body.append_child(&find);
+                }
+                let (order, more_values) = crate::filters::panel_values(
+                    &c.field.values,
+                    &counts,
+                    &chosen,
+                    &query,
+                    PANEL_VALUES,
+                );
+                for &v in &order {
                     let value = c.field.values[v].clone();
                     let label = doc.create_element("label").unwrap();
                     let cb: web_sys::HtmlInputElement =
@@ -186,13 +221,14 @@ fn render_panel() {
                     let _ = label.append_child(&num);
                     let _ = body.append_child(&label);
                 }
-                if order.len() > PANEL_VALUES {
+                if more_values > 0 || (many && order.len() == chosen.len()) {
                     let more = doc.create_element("p").unwrap();
                     more.set_class_name("more");
-                    more.set_text_content(Some(&format!(
-                        "and {} more values: type one in the search box",
-                        order.len() - PANEL_VALUES
-                    )));
+                    more.set_text_content(Some(&if more_values > 0 {
+                        format!("and {more_values} more: type in the finder above to list them")
+                    } else {
+                        "no other value contains that".to_string()
+                    }));
                     let _ = body.append_child(&more);
                 }
             }

@@ -40,6 +40,9 @@ pub fn set_mode(m: Mode) {
     let m = {
         let mut a = app.borrow_mut();
         a.mode = if a.mode == m { Mode::Move } else { m };
+        // A keyboard sketch belongs to the mode it was begun in.
+        a.key_sketch = None;
+        show_key_sketch(&a);
         a.mode
     };
     set_state("mode", m.name());
@@ -103,6 +106,127 @@ impl Sketch {
         }
         self.points.len() < 2 || (hi[0] - lo[0]).max(hi[1] - lo[1]) < 5.0
     }
+}
+
+/// A lasso or box drawn from the keyboard: Enter drops a vertex (a corner) at the centre of the
+/// view, which the arrow keys and zoom keys move; Space closes a lasso. Vertices are kept in map
+/// coordinates, so the view may move between them.
+pub struct KeySketch {
+    pub op: Op,
+    pub boxed: bool,
+    pub points: Vec<[f64; 2]>,
+}
+
+/// Enter in lasso or box mode: a vertex at the view's centre; a box's second corner applies it.
+/// The first vertex fixes what the lasso does: Shift adds, Alt takes away.
+pub fn key_vertex(shift: bool, alt: bool) {
+    let Some(app) = app() else { return };
+    let done = {
+        let mut a = app.borrow_mut();
+        if a.mode == Mode::Move {
+            return;
+        }
+        let boxed = a.mode == Mode::Box;
+        let centre = camera_target(&a).centre;
+        let op = sketch_for(a.mode, shift, alt).map_or(Op::Replace, |s| s.op);
+        let ks = a.key_sketch.get_or_insert_with(|| KeySketch {
+            op,
+            boxed,
+            points: Vec::new(),
+        });
+        ks.points.push(centre);
+        boxed && ks.points.len() >= 2
+    };
+    if done {
+        key_close();
+    } else {
+        show_key_sketch(&app.borrow());
+        let n = app
+            .borrow()
+            .key_sketch
+            .as_ref()
+            .map_or(0, |k| k.points.len());
+        // The hint sits by the crosshair (a note in the bar would make the bar, and the map, change size).
+        let hint = if app.borrow().mode == Mode::Box {
+            "corner 1 — move the view, Enter for the other corner".to_string()
+        } else {
+            format!("point {n} — move the view, Enter for the next; Space closes, Escape drops")
+        };
+        if let Some(h) = by_id("crosshair-hint") {
+            h.set_text_content(Some(&hint));
+        }
+        request_frame();
+    }
+}
+
+/// Space in lasso mode: closes the keyboard lasso and applies it; false when none is being drawn.
+pub fn key_close() -> bool {
+    let Some(app) = app() else { return false };
+    let Some(ks) = app.borrow_mut().key_sketch.take() else {
+        return false;
+    };
+    show_key_sketch(&app.borrow());
+    if !ks.boxed && ks.points.len() < 3 {
+        note("A lasso needs three points at least: Enter drops one at the centre of the view.");
+        return true;
+    }
+    let shape = if ks.boxed {
+        let (a, b) = (ks.points[0], ks.points[1]);
+        Shape::Rect([a[0], a[1], b[0], b[1]])
+    } else {
+        Shape::Lasso(vitrine_corpus::polygon::Polygon(ks.points))
+    };
+    apply(Step { op: ks.op, shape });
+    true
+}
+
+/// Escape: drops the keyboard lasso or box being drawn; false when there is none.
+pub fn key_cancel() -> bool {
+    let Some(app) = app() else { return false };
+    let had = app.borrow_mut().key_sketch.take().is_some();
+    if had {
+        show_key_sketch(&app.borrow());
+        note("");
+    }
+    had
+}
+
+/// The keyboard sketch over the map as the view now is: its vertices joined to the centre of the
+/// view (marked by a crosshair), or nothing.
+pub fn show_key_sketch(a: &App) {
+    let cross = by_id("crosshair");
+    let Some(ks) = &a.key_sketch else {
+        if let Some(c) = cross {
+            c.set_hidden(true);
+        }
+        if a.sketch.is_none() {
+            draw_sketch(None);
+        }
+        return;
+    };
+    if let Some(c) = cross {
+        c.set_hidden(false);
+    }
+    let cam = a.camera;
+    let screen = |p: [f64; 2]| cam.to_screen([p[0] as f32, p[1] as f32]);
+    let centre = [cam.size[0] / 2.0, cam.size[1] / 2.0];
+    let mut points: Vec<[f64; 2]> = ks.points.iter().map(|&p| screen(p)).collect();
+    points.push(centre);
+    draw_sketch(Some(&Sketch {
+        op: ks.op,
+        boxed: ks.boxed,
+        points,
+    }));
+}
+
+/// The items in view: v makes them the selection, Shift+V adds them.
+pub fn select_view(add: bool) {
+    let Some(app) = app() else { return };
+    let r = camera_target(&app.borrow()).visible(0.0);
+    apply(Step {
+        op: if add { Op::Add } else { Op::Replace },
+        shape: Shape::Rect(r),
+    });
 }
 
 /// Redraws the sketch overlay (an SVG outline over the map), or hides it.
