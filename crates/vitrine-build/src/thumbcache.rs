@@ -4,8 +4,8 @@
 //!
 //! One entry per image, named by a SHA-256 of what the thumbnail depends on (the file's absolute
 //! path, size and modification time, the largest cell, the pixel limit and this format's version):
-//! the original's size as shown, the file's SHA-256 (for the provenance), and the largest level's
-//! pixels as a JPEG at quality 95 without chroma subsampling. Lossless PNG would make the sheets of
+//! a header (bincode) with the original's size as shown and the file's size and SHA-256 (for the
+//! provenance), then the largest level's pixels as a JPEG at quality 95 without chroma subsampling. Lossless PNG would make the sheets of
 //! a rebuild byte-identical, but at the 512 px level it costs ~250 KB per image (a quarter of a
 //! terabyte per million images); this JPEG is ~4x smaller and a rebuilt sheet differs from a fresh
 //! one by a fraction of a grey level on average (tested).
@@ -16,9 +16,18 @@ use std::path::{Path, PathBuf};
 
 use image::RgbImage;
 
-const MAGIC: &[u8; 4] = b"VTC2";
-/// Bumped whenever decoding or fitting changes what a thumbnail looks like.
-const VERSION: u32 = 2;
+const MAGIC: &[u8; 4] = b"VTC3";
+/// Bumped whenever decoding or fitting changes what a thumbnail looks like (or the entry's layout).
+const VERSION: u32 = 3;
+
+/// What an entry says of its image, before the thumbnail's JPEG bytes: written with bincode
+/// (standard configuration), which gives its length back on reading.
+#[derive(serde::Serialize, serde::Deserialize)]
+struct Header {
+    size: [u32; 2],
+    file_bytes: u64,
+    sha256: [u8; 32],
+}
 /// JPEG quality of the stored thumbnail.
 const QUALITY: u8 = 95;
 
@@ -72,19 +81,18 @@ impl ThumbCache {
 
     pub fn get(&self, key: &Path) -> Option<Entry> {
         let bytes = std::fs::read(key).ok()?;
-        if bytes.len() < 4 + 8 + 8 + 32 || &bytes[..4] != MAGIC {
+        if bytes.len() < 4 || &bytes[..4] != MAGIC {
             return None;
         }
-        let u32_at = |o: usize| u32::from_le_bytes(bytes[o..o + 4].try_into().unwrap());
-        let size = [u32_at(4), u32_at(8)];
-        let file_bytes = u64::from_le_bytes(bytes[12..20].try_into().unwrap());
-        let sha = vitrine_format::hex(&bytes[20..52]);
-        let thumb = image::load_from_memory_with_format(&bytes[52..], image::ImageFormat::Jpeg)
+        let (h, used): (Header, usize) =
+            bincode::serde::decode_from_slice(&bytes[4..], bincode::config::standard()).ok()?;
+        let jpeg = bytes.get(4 + used..)?;
+        let thumb = image::load_from_memory_with_format(jpeg, image::ImageFormat::Jpeg)
             .ok()?
             .into_rgb8();
         Some(Entry {
-            size,
-            digest: (sha, file_bytes),
+            size: h.size,
+            digest: (vitrine_format::hex(&h.sha256), h.file_bytes),
             thumb,
         })
     }
@@ -98,21 +106,24 @@ impl ThumbCache {
         digest: &(String, u64),
         thumb: &RgbImage,
     ) -> std::io::Result<()> {
+        let mut sha256 = [0u8; 32];
+        for (i, b) in sha256.iter_mut().enumerate() {
+            *b = digest
+                .0
+                .get(2 * i..2 * i + 2)
+                .and_then(|h| u8::from_str_radix(h, 16).ok())
+                .ok_or_else(|| std::io::Error::other("not a SHA-256 digest"))?;
+        }
+        let header = Header {
+            size,
+            file_bytes: digest.1,
+            sha256,
+        };
         let mut out = Vec::with_capacity(64 + thumb.len() / 2);
         out.extend_from_slice(MAGIC);
-        out.extend_from_slice(&size[0].to_le_bytes());
-        out.extend_from_slice(&size[1].to_le_bytes());
-        out.extend_from_slice(&digest.1.to_le_bytes());
-        let sha = (0..32)
-            .map(|i| {
-                digest
-                    .0
-                    .get(2 * i..2 * i + 2)
-                    .and_then(|h| u8::from_str_radix(h, 16).ok())
-            })
-            .collect::<Option<Vec<u8>>>()
-            .ok_or_else(|| std::io::Error::other("not a SHA-256 digest"))?;
-        out.extend_from_slice(&sha);
+        let head = bincode::serde::encode_to_vec(&header, bincode::config::standard())
+            .map_err(|e| std::io::Error::other(e.to_string()))?;
+        out.extend_from_slice(&head);
         let mut enc = jpeg_encoder::Encoder::new(&mut out, QUALITY);
         enc.set_sampling_factor(jpeg_encoder::SamplingFactor::R_4_4_4);
         enc.encode(
@@ -185,7 +196,7 @@ mod tests {
         let other = ThumbCache::new(dir.path().join("cache"), 512, 1000);
         assert_ne!(other.key(&img).unwrap(), cache.key(&img).unwrap());
         // A damaged entry reads as absent.
-        std::fs::write(&key, b"VTC2 short").unwrap();
+        std::fs::write(&key, b"VTC3 short").unwrap();
         assert!(cache.get(&key).is_none());
     }
 }

@@ -235,37 +235,14 @@ pub fn describe(map: &str, steps: &[Step], filters: &[Filter]) -> String {
             Op::Subtract => format!("removed {what}"),
         });
     }
-    let chips: Vec<String> = filters
-        .iter()
-        .map(|f| match f {
-            Filter::Category { field, values } => format!("{field} = {}", values.join(" or ")),
-            Filter::Range { field, min, max } => {
-                let b = |v: &Option<f64>| v.map(|x| x.to_string()).unwrap_or_default();
-                format!("{field} {}..{}", b(min), b(max))
-            }
-            Filter::Date {
-                field,
-                from,
-                to,
-                rule,
-            } => format!(
-                "{field} {from}..{to} ({})",
-                match rule {
-                    crate::filter::DateRule::Overlap => "overlapping",
-                    crate::filter::DateRule::Within => "within",
-                }
-            ),
-            Filter::Text { fields, query } if fields.is_empty() => format!("search \"{query}\""),
-            Filter::Text { fields, query } => format!("\"{query}\" in {}", fields.join(", ")),
-        })
-        .collect();
+    let chips: Vec<String> = filters.iter().map(Filter::label).collect();
     let mut out = if parts.is_empty() {
         "all items".to_string()
     } else {
         parts.join("; ")
     };
     if !chips.is_empty() {
-        out.push_str(&format!(", filtered by {}", chips.join(" and ")));
+        out.push_str(&format!(", filtered by {}", chips.join("; ")));
     }
     out
 }
@@ -273,6 +250,38 @@ pub fn describe(map: &str, steps: &[Step], filters: &[Filter]) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_corpus_is_described_in_one_line_with_its_filters_as_their_chips_say() {
+        let steps = vec![
+            Step {
+                op: Op::Replace,
+                shape: Shape::Lasso(Polygon::parse("0,0 1,0 1,1 0,1").unwrap()),
+            },
+            Step {
+                op: Op::Subtract,
+                shape: Shape::Ids(vec!["VA-1".into()]),
+            },
+        ];
+        let filters = vec![
+            Filter::Category {
+                field: "technique".into(),
+                values: vec!["etching".into(), "woodcut".into()],
+            },
+            Filter::Date {
+                field: "dating".into(),
+                from: 1500,
+                to: 1560,
+                rule: crate::filter::DateRule::Overlap,
+            },
+        ];
+        assert_eq!(
+            describe("similarity", &steps, &filters),
+            "selected a lasso of 4 vertices on the similarity map; removed item VA-1, \
+             filtered by technique: etching, woodcut; dating: 1500–1560 (overlapping)"
+        );
+        assert_eq!(describe("similarity", &[], &[]), "all items");
+    }
 
     #[test]
     fn steps_replay_in_order_and_read_back_from_json() {

@@ -84,6 +84,32 @@ impl Filter {
         }
     }
 
+    /// The filter in a few words, as its chip shows it and corpus descriptions write it:
+    /// "technique: etching, woodcut", "dating: 1500–1560 (overlapping)", "“ash tree”".
+    pub fn label(&self) -> String {
+        match self {
+            Filter::Category { field, values } => format!("{field}: {}", values.join(", ")),
+            Filter::Range { field, min, max } => {
+                let b = |v: &Option<f64>| v.map(|x| x.to_string()).unwrap_or_else(|| "…".into());
+                format!("{field}: {}–{}", b(min), b(max))
+            }
+            Filter::Date {
+                field,
+                from,
+                to,
+                rule,
+            } => format!(
+                "{field}: {from}–{to} ({})",
+                match rule {
+                    DateRule::Overlap => "overlapping",
+                    DateRule::Within => "within",
+                }
+            ),
+            Filter::Text { fields, query } if fields.is_empty() => format!("“{query}”"),
+            Filter::Text { fields, query } => format!("“{query}” in {}", fields.join(", ")),
+        }
+    }
+
     /// The items that pass, of `n`.
     pub fn mask(&self, cols: &[FieldColumn], n: usize) -> Result<Mask, CorpusError> {
         match self {

@@ -685,33 +685,8 @@ pub fn draw_with_layer(
             }
             Some(level) => {
                 let (st, wanted, used) = &mut whole;
-                match culled {
-                    Some(items) => {
-                        let items = items.iter().map(|&i| i as usize);
-                        draw_thumbnails(
-                            scene,
-                            Some(pixels),
-                            w,
-                            clip,
-                            level,
-                            items,
-                            st,
-                            wanted,
-                            used,
-                        )
-                    }
-                    None => draw_thumbnails(
-                        scene,
-                        Some(pixels),
-                        w,
-                        clip,
-                        level,
-                        0..atlas.n,
-                        st,
-                        wanted,
-                        used,
-                    ),
-                }
+                let px = Some(&mut pixels[..]);
+                thumbnails_of(scene, px, w, clip, level, culled, &[], st, wanted, used);
             }
         }
     }
@@ -748,12 +723,9 @@ pub fn draw_with_layer(
         let mut pass = (FrameStats::default(), BTreeSet::new(), BTreeSet::new());
         let (st, wanted, used) = &mut pass;
         let clip = [0, 0, w, h];
-        if near_items(scene, cam.visible(side.max(8.0) + side), &mut near) {
-            let items = near.iter().map(|&i| i as usize);
-            draw_thumbnails(scene, None, w, clip, level, items, st, wanted, used);
-        } else {
-            draw_thumbnails(scene, None, w, clip, level, 0..atlas.n, st, wanted, used);
-        }
+        let culled = near_items(scene, cam.visible(side.max(8.0) + side), &mut near);
+        let culled = culled.then_some(near.as_slice());
+        thumbnails_of(scene, None, w, clip, level, culled, &[], st, wanted, used);
         pass
     };
     buf.copy_from_slice(&layer.pixels);
@@ -784,6 +756,34 @@ fn thumbnail_level(scene: &Scene, side: f64) -> Option<usize> {
         scene.sheets.level_for(side)
     } else {
         None
+    }
+}
+
+/// `draw_thumbnails` over the items a grid query found (`culled`), or over every item; then
+/// `extra` (the open and hovered items, drawn again on top).
+#[allow(clippy::too_many_arguments)]
+fn thumbnails_of(
+    scene: &Scene,
+    buf: Option<&mut [u8]>,
+    w: usize,
+    clip: [usize; 4],
+    level: usize,
+    culled: Option<&[u32]>,
+    extra: &[usize],
+    stats: &mut FrameStats,
+    wanted: &mut BTreeSet<(usize, usize)>,
+    used: &mut BTreeSet<(usize, usize)>,
+) {
+    let extra = extra.iter().copied();
+    match culled {
+        Some(near) => {
+            let items = near.iter().map(|&i| i as usize).chain(extra);
+            draw_thumbnails(scene, buf, w, clip, level, items, stats, wanted, used)
+        }
+        None => {
+            let items = (0..scene.atlas.n).chain(extra);
+            draw_thumbnails(scene, buf, w, clip, level, items, stats, wanted, used)
+        }
     }
 }
 
@@ -921,7 +921,6 @@ pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
             }
         }
     }
-    let atlas = scene.atlas;
     let side = scene.side_px();
     let mut stats = FrameStats {
         side_px: side,
@@ -950,34 +949,21 @@ pub fn draw(scene: &Scene, buf: &mut [u8], w: usize, h: usize) -> FrameStats {
     let on_top = [scene.open, scene.hover];
     let on_top = on_top.iter().flatten().copied();
     let clip = [0, 0, w, h];
-    let st = &mut stats;
-    if culled {
-        let items = near.iter().map(|&i| i as usize).chain(on_top);
-        draw_thumbnails(
-            scene,
-            Some(buf),
-            w,
-            clip,
-            level,
-            items,
-            st,
-            &mut wanted,
-            &mut used,
-        );
-    } else {
-        let items = (0..atlas.n).chain(on_top);
-        draw_thumbnails(
-            scene,
-            Some(buf),
-            w,
-            clip,
-            level,
-            items,
-            st,
-            &mut wanted,
-            &mut used,
-        );
-    }
+    let on_top: Vec<usize> = on_top.collect();
+    let culled = culled.then_some(near.as_slice());
+    let (st, wanted_, used_) = (&mut stats, &mut wanted, &mut used);
+    thumbnails_of(
+        scene,
+        Some(buf),
+        w,
+        clip,
+        level,
+        culled,
+        &on_top,
+        st,
+        wanted_,
+        used_,
+    );
     outlines(scene, buf, w, h, true);
     stats.wanted = wanted.into_iter().collect();
     stats.used = used.into_iter().collect();

@@ -89,23 +89,25 @@ impl Selection {
     /// Puts back the steps (and their map) as they were before the last change; false when there
     /// is none. The selected items then need [`Selection::recompute`] on the restored map.
     pub fn undo(&mut self) -> bool {
-        let Some((map, steps)) = self.past.pop() else {
-            return false;
-        };
-        self.future
-            .push((self.map, std::mem::replace(&mut self.steps, steps)));
-        self.map = map;
-        self.mask = None;
-        self.generation += 1;
-        true
+        self.walk(true)
     }
 
     pub fn redo(&mut self) -> bool {
-        let Some((map, steps)) = self.future.pop() else {
+        self.walk(false)
+    }
+
+    /// One step back in the history (undo) or forward (redo); the state left goes to the other
+    /// side.
+    fn walk(&mut self, back: bool) -> bool {
+        let (from, to) = if back {
+            (&mut self.past, &mut self.future)
+        } else {
+            (&mut self.future, &mut self.past)
+        };
+        let Some((map, steps)) = from.pop() else {
             return false;
         };
-        self.past
-            .push((self.map, std::mem::replace(&mut self.steps, steps)));
+        to.push((self.map, std::mem::replace(&mut self.steps, steps)));
         self.map = map;
         self.mask = None;
         self.generation += 1;

@@ -91,30 +91,6 @@ pub fn changed() {
 }
 
 /// What a chip says for a filter.
-fn chip_text(f: &Filter) -> String {
-    match f {
-        Filter::Category { field, values } => format!("{field}: {}", values.join(", ")),
-        Filter::Range { field, min, max } => {
-            let b = |v: &Option<f64>| v.map(|x| x.to_string()).unwrap_or_else(|| "…".into());
-            format!("{field}: {}–{}", b(min), b(max))
-        }
-        Filter::Date {
-            field,
-            from,
-            to,
-            rule,
-        } => format!(
-            "{field}: {from}–{to} ({})",
-            match rule {
-                DateRule::Overlap => "overlapping",
-                DateRule::Within => "within",
-            }
-        ),
-        Filter::Text { fields, query } if fields.is_empty() => format!("“{query}”"),
-        Filter::Text { fields, query } => format!("“{query}” in {}", fields.join(", ")),
-    }
-}
-
 fn render_chips() {
     let Some(box_) = by_id("chips") else { return };
     box_.set_text_content(None);
@@ -124,10 +100,10 @@ fn render_chips() {
     for (k, f) in list.iter().enumerate() {
         let chip = doc.create_element("span").unwrap();
         chip.set_class_name("chip");
-        chip.set_text_content(Some(&chip_text(f)));
+        chip.set_text_content(Some(&f.label()));
         let x = doc.create_element("button").unwrap();
         x.set_text_content(Some("×"));
-        let _ = x.set_attribute("aria-label", &format!("Remove the filter {}", chip_text(f)));
+        let _ = x.set_attribute("aria-label", &format!("Remove the filter {}", f.label()));
         listen(&x, "click", true, move |_e: web_sys::MouseEvent| remove(k));
         let _ = chip.append_child(&x);
         let _ = box_.append_child(&chip);
