@@ -505,7 +505,7 @@ pub fn refresh() {
         )));
     }
     timeline::draw();
-    tiles::render();
+    tiles::schedule();
     // The address carries the corpus (when it fits in a link).
     let _ = share::update_address();
     request_frame();

@@ -5,8 +5,39 @@
 use super::*;
 use crate::tray::{self as layout, PITCH};
 
-/// Draws the tiles in view (after the corpus changed, the grid scrolled or the tray resized).
+/// Milliseconds the corpus must stay unchanged before the grid shows its pictures again: while a
+/// brush is dragged or filters are clicked through, the count and figures follow at once, but
+/// the pictures (thumbnail sheets the browser must fetch and decode) only once it settles.
+const SETTLE_MS: i32 = 250;
+
+thread_local! {
+    static TIMER: RefCell<Option<i32>> = const { RefCell::new(None) };
+}
+
+/// The corpus changed: the grid is drawn again once it has stayed so for [`SETTLE_MS`].
+pub fn schedule() {
+    let Some(w) = web_sys::window() else { return };
+    TIMER.with(|t| {
+        if let Some(id) = t.borrow_mut().take() {
+            w.clear_timeout_with_handle(id);
+        }
+        let cb = Closure::once_into_js(|| {
+            TIMER.with(|t| t.borrow_mut().take());
+            render();
+        });
+        *t.borrow_mut() = w
+            .set_timeout_with_callback_and_timeout_and_arguments_0(cb.unchecked_ref(), SETTLE_MS)
+            .ok();
+    });
+}
+
+/// Draws the tiles in view now (after the grid scrolled, or an item was taken out through it).
 pub fn render() {
+    if let Some(id) = TIMER.with(|t| t.borrow_mut().take()) {
+        if let Some(w) = web_sys::window() {
+            w.clear_timeout_with_handle(id);
+        }
+    }
     let Some(app) = app() else { return };
     let (Some(grid), Some(space)) = (by_id("tray-grid"), by_id("tray-space")) else {
         return;
@@ -102,6 +133,8 @@ fn remove(i: usize) {
         select::note(&e.to_string());
     }
     select::refresh();
+    // The grid answers its own click at once (and keeps the focus where it was).
+    render();
 }
 
 /// Opens item `i`'s record card, moving the view to it when it is off screen.
