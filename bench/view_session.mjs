@@ -128,6 +128,11 @@ try {
   // Corpus work at the fitted view: filters changed one after another (each recomputes every
   // item's passing and the cross-filtered counts' masks, then redraws), and lassos of 200 points.
   await page.evaluate(() => window.vitrineView.fit_view());
+  // With the filter panel open, as when values are ticked in it: every filter change also
+  // recounts each category field's values under the other filters (cross-filtering) and lists them.
+  await page.focus("#map");
+  await page.keyboard.press("c");
+  await page.waitForFunction(() => !document.getElementById("filter-panel").hidden);
   const cat = (values) => ["filter", JSON.stringify({ kind: "category", field: "technique", values }), 0];
   await phase("filter: category", [cat(["etching"]), cat(["etching", "engraving"]), cat(["woodcut"]),
     cat(["drawing", "woodcut"]), cat(["etching"]), cat(["mezzotint"])]);

@@ -418,6 +418,19 @@ test("a lasso selects, Shift and Alt lassos add and take away, and the corpus ex
   assert.equal(JSON.parse(fs.readFileSync(kjson, "utf8")).steps[0].lasso.length, 3);
   const kout = execFileSync(BIN, ["corpus", ATLAS, "--from", kjson], { encoding: "utf8" });
   assert.ok(kout.startsWith(`${keyed} items`), kout);
+  // A box from the keyboard: Space with one corner keeps it and says why; the second Enter
+  // applies it. (The export button had the focus: Enter there is the button's own.)
+  await page.locator("#map").focus();
+  await page.keyboard.press("b");
+  await page.keyboard.press("Enter");
+  await page.keyboard.press("Space");
+  await page.locator("#crosshair").waitFor({ state: "visible", timeout: 5000 });
+  assert.match(await page.locator("#crosshair-hint").innerText(), /other corner/);
+  for (let k = 0; k < 3; k++) await page.keyboard.press("ArrowLeft");
+  for (let k = 0; k < 3; k++) await page.keyboard.press("ArrowUp");
+  await page.keyboard.press("Enter");
+  await page.waitForFunction(() => /rectangle/.test(document.getElementById("tray-how").innerText));
+  assert.ok(!(await page.locator("#crosshair").isVisible()));
   assert.deepEqual(errors, []);
 });
 

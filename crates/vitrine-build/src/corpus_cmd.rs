@@ -275,7 +275,11 @@ pub fn run(atlas_dir: &Path, a: &CorpusArgs) -> Result<CorpusReport> {
     steps.extend(extra_steps);
     filters.extend(extra_filters);
     if let (Some(given), Some(c), Some(p)) = (&a.map, &from, &a.from) {
-        if given != &c.map && !c.steps.is_empty() {
+        let drawn = c
+            .steps
+            .iter()
+            .any(|s| matches!(s.shape, Shape::Lasso(_) | Shape::Rect(_)));
+        if given != &c.map && drawn {
             bail!(
                 "--map {given:?}: the steps of {} were drawn on the {:?} map, and would pick other \
                  items on another (leave out --map, or give --map {:?})",

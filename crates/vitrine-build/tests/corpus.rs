@@ -286,6 +286,9 @@ fn a_corpus_file_replays_to_the_same_items_and_bad_input_is_named() {
         !o.status.success() && e.contains("were drawn on the \"similarity\" map"),
         "{e}"
     );
+    // Items picked by id are the same on every map: such a file takes another --map.
+    ok(&corpus(d, &["--ids", "ob-001", "--json", "i.json"]));
+    ok(&corpus(d, &["--from", "i.json", "--map", "timeline"]));
     let mut v: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(d.join("l.json")).unwrap()).unwrap();
     v["map"] = "gone".into();

@@ -382,7 +382,7 @@ fn draw_marks<I: Iterator<Item = usize>>(
         let [sx, sy] = cam.to_screen(atlas.positions[i]);
         if outside(sx, sy) {
             if let Some(v) = spots.as_deref_mut() {
-                v.push(Spot::default());
+                v.push(Spot::OFF);
             }
             continue;
         }
@@ -439,12 +439,20 @@ fn draw_marks_of(
 /// moves them and draws only the strips that came into view. The open and hovered items and their
 /// outlines are drawn over a copy, never into the layer. The pixels are those a full `draw` gives.
 /// Where one item's mark went in a full pass: the offset of its top-left pixel and its size in
-/// pixels (0 x 0: not on screen).
-#[derive(Clone, Copy, Default)]
+/// pixels (which clipping at an edge may make 0); [`Spot::OFF`] when it was not on screen.
+#[derive(Clone, Copy)]
 struct Spot {
     at: u32,
     w: u16,
     h: u16,
+}
+
+impl Spot {
+    const OFF: Spot = Spot {
+        at: u32::MAX,
+        w: 0,
+        h: 0,
+    };
 }
 
 /// What a kept layer was drawn from, as the caller names it: `places` changes when the items'
@@ -536,21 +544,22 @@ fn shift_pixels(buf: &mut [u8], w: usize, h: usize, dx: i64, dy: i64) {
     }
 }
 
-/// Fills every item's mark at its noted spot, in item order (the pixels `draw_marks` gives for
-/// the same camera).
+/// Fills every item's mark at its noted spot, in item order (the pixels and the count
+/// `draw_marks` gives for the same camera); false, drawing nothing, when the buffer is not
+/// aligned for 32-bit pixels (the caller then draws the usual way).
 fn fill_spots(
     buf: &mut [u8],
     w: usize,
     spots: &[Spot],
     colours: &[[u8; 4]],
     stats: &mut FrameStats,
-) {
+) -> bool {
     let Ok(px) = bytemuck::try_cast_slice_mut::<u8, u32>(buf) else {
-        unreachable!("the layer's pixels are 4-byte aligned: they were drawn as u32 above");
+        return false;
     };
     for (s, c) in spots.iter().zip(colours) {
         stats.visited += 1;
-        if s.w == 0 || s.h == 0 || c[3] == 0 {
+        if s.at == u32::MAX || c[3] == 0 {
             continue;
         }
         let c = u32::from_le_bytes([c[0], c[1], c[2], 255]);
@@ -561,6 +570,7 @@ fn fill_spots(
         }
         stats.marks += 1;
     }
+    true
 }
 
 /// Draws the scene as `draw` does, keeping the drawn items in `layer` between frames (`key` names
@@ -653,10 +663,10 @@ pub fn draw_with_layer(
                 if full && culled.is_none() {
                     // Every item afresh: at the places noted last time when they still hold,
                     // else placed and noted.
-                    reused = layer.spots_for == spots_for && layer.spots.len() == atlas.n;
-                    if reused {
-                        fill_spots(pixels, w, &layer.spots, scene.mark_colours(), &mut drawn);
-                    } else {
+                    reused = layer.spots_for == spots_for
+                        && layer.spots.len() == atlas.n
+                        && fill_spots(pixels, w, &layer.spots, scene.mark_colours(), &mut drawn);
+                    if !reused {
                         let mut spots = std::mem::take(&mut layer.spots);
                         spots.clear();
                         let colours = scene.mark_colours();

@@ -54,8 +54,9 @@ struct App {
     pointers: HashMap<i32, [f64; 2]>,
     pinch: Option<f64>,
     frame_pending: bool,
-    /// Something changed since the last frame was drawn (a frame drawn at once, as zooming by key
-    /// does, clears it, so the requested one is not drawn a second time).
+    /// Something changed since the last frame was drawn (a frame drawn at once, as the script
+    /// hooks zoom_view, pan_view and fit_view do, clears it, so the requested one is not drawn a
+    /// second time).
     dirty: bool,
     /// The corpus's items in atlas order, as the tray's grid shows them.
     tray_items: Vec<u32>,
@@ -1026,6 +1027,9 @@ fn set_map(i: usize) {
         a.camera = Camera::fit(a.atlas.bounds, [w as f64, h as f64]);
         a.base_zoom = a.camera.zoom;
         a.hover = None;
+        // A keyboard sketch's points belong to the map they were dropped on.
+        a.key_sketch = None;
+        select::show_key_sketch(&a);
         set_state("map", &a.atlas.maps[i].name);
     }
     if let Some(sel) = document()

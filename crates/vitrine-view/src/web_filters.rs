@@ -156,15 +156,20 @@ fn render_panel() {
                     find.set_placeholder(&format!("Find among {} values", c.field.values.len()));
                     let _ = find.set_attribute("aria-label", &format!("Find a value of {name}"));
                     let f2 = find.clone();
-                    listen(&find, "input", true, move |_e: web_sys::Event| {
-                        VALUE_FIND.with(|q| q.borrow_mut().insert(k, f2.value()));
-                        render_panel();
-                        // The finder was made anew: typing goes on in it.
-                        if let Some(i) = input(&format!("field-{k}-find")) {
-                            let _ = i.focus();
-                            let end = i.value().len() as u32;
-                            let _ = i.set_selection_range(end, end);
+                    listen(&find, "input", true, move |e: web_sys::Event| {
+                        // Not while an input method is composing a character (the field is
+                        // made anew, which would break the composition): at its end instead.
+                        let composing = js_sys::Reflect::get(&e, &"isComposing".into())
+                            .ok()
+                            .and_then(|v| v.as_bool())
+                            .unwrap_or(false);
+                        if !composing {
+                            finder_changed(k, f2.value());
                         }
+                    });
+                    let f3 = find.clone();
+                    listen(&find, "compositionend", true, move |_e: web_sys::Event| {
+                        finder_changed(k, f3.value())
                     });
                     let _ = body.append_child(&find);
                 }
@@ -253,6 +258,18 @@ fn render_panel() {
         let _ = det.append_child(&sum);
         let _ = det.append_child(&body);
         let _ = panel.append_child(&det);
+    }
+}
+
+/// The value finder of field `k` now holds `value`: the panel lists what matches, and typing
+/// goes on in the finder made anew.
+fn finder_changed(k: usize, value: String) {
+    VALUE_FIND.with(|q| q.borrow_mut().insert(k, value));
+    render_panel();
+    if let Some(i) = input(&format!("field-{k}-find")) {
+        let _ = i.focus();
+        let end = i.value().encode_utf16().count() as u32;
+        let _ = i.set_selection_range(end, end);
     }
 }
 

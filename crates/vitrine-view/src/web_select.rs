@@ -160,16 +160,27 @@ pub fn key_vertex(shift: bool, alt: bool) {
 }
 
 /// Space in lasso mode: closes the keyboard lasso and applies it; false when none is being drawn.
+/// A lasso of fewer than three points, or a box with one corner, stays as it is, with a note.
 pub fn key_close() -> bool {
     let Some(app) = app() else { return false };
+    let short = match app.borrow().key_sketch.as_ref() {
+        None => return false,
+        Some(ks) if ks.boxed => (ks.points.len() < 2)
+            .then_some("A box needs its other corner: move the view and press Enter."),
+        Some(ks) => (ks.points.len() < 3).then_some(
+            "A lasso needs three points at least: move the view and press Enter for each.",
+        ),
+    };
+    if let Some(why) = short {
+        if let Some(h) = by_id("crosshair-hint") {
+            h.set_text_content(Some(why));
+        }
+        return true;
+    }
     let Some(ks) = app.borrow_mut().key_sketch.take() else {
         return false;
     };
     show_key_sketch(&app.borrow());
-    if !ks.boxed && ks.points.len() < 3 {
-        note("A lasso needs three points at least: Enter drops one at the centre of the view.");
-        return true;
-    }
     let shape = if ks.boxed {
         let (a, b) = (ks.points[0], ks.points[1]);
         Shape::Rect([a[0], a[1], b[0], b[1]])

@@ -14,8 +14,12 @@ thread_local! {
     static TIMER: RefCell<Option<i32>> = const { RefCell::new(None) };
 }
 
-/// The corpus changed: the grid is drawn again once it has stayed so for [`SETTLE_MS`].
+/// The corpus changed: the grid is drawn again once it has stayed so for [`SETTLE_MS`] (an empty
+/// corpus empties it at once).
 pub fn schedule() {
+    if app().is_some_and(|a| a.borrow().tray_items.is_empty()) {
+        return render();
+    }
     let Some(w) = web_sys::window() else { return };
     TIMER.with(|t| {
         if let Some(id) = t.borrow_mut().take() {
@@ -44,6 +48,12 @@ pub fn render() {
     };
     let a = app.borrow();
     let n = a.tray_items.len();
+    // The tile that has the keyboard focus gets it back once the tiles are made anew.
+    let focused: Option<String> = document()
+        .active_element()
+        .filter(|e| space.contains(Some(e.as_ref())))
+        .and_then(|e| e.closest(".tile").ok().flatten())
+        .and_then(|t| t.get_attribute("data-item"));
     grid.set_hidden(n == 0);
     space.set_text_content(None);
     if n == 0 {
@@ -107,6 +117,17 @@ pub fn render() {
         let _ = space.append_child(&tile);
     }
     set_state("trayTiles", &space.child_element_count().to_string());
+    if let Some(item) = focused {
+        let sel = format!(".tile[data-item=\"{item}\"] .pic");
+        if let Some(b) = space
+            .query_selector(&sel)
+            .ok()
+            .flatten()
+            .and_then(|e| e.dyn_into::<HtmlElement>().ok())
+        {
+            let _ = b.focus();
+        }
+    }
 }
 
 /// The item of the tile an event happened in, and whether it was on the tile's ×.
@@ -126,6 +147,10 @@ fn remove(i: usize) {
         let id = a.atlas.id(i).to_string();
         if id.is_empty() {
             return;
+        }
+        // A selection begun here (the corpus was the filters' alone) is on the map shown.
+        if a.selection.steps().is_empty() {
+            a.selection.map = a.atlas.current;
         }
         select::with_lookup(&mut a, true, |sel, at| sel.remove_ids(vec![id], at))
     };

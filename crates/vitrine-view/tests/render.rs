@@ -395,6 +395,17 @@ fn kept_marks_give_the_pixels_of_a_full_draw_while_drawing_only_what_came_into_v
         "a moved view places the marks anew"
     );
     assert!(draw_both(&cam, None, 14));
+    // Marks cut by the screen's edges (some clipped to nothing): the noted places give the same
+    // pixels and the same count as placing them anew.
+    // Item 0 is put a quarter pixel inside the band left of the screen where its mark still
+    // counts but is clipped to no pixel at all.
+    let side = atlas.spacing * cam.zoom * 0.92;
+    let reach = (side * 0.9).clamp(3.0, 7.0) / 2.0;
+    let s0 = cam.to_screen(atlas.positions[0]);
+    cam.pan(-reach + 0.25 - s0[0], 0.0);
+    assert!((cam.to_screen(atlas.positions[0])[0] + reach - 0.25).abs() < 1e-9);
+    let _ = draw_both(&cam, Some(&t1), 15);
+    assert!(draw_both(&cam, Some(&t2), 16), "edges: places reused");
 }
 
 #[test]
