@@ -68,13 +68,13 @@ pub fn remove(k: usize) {
 pub fn changed() {
     render_chips();
     if by_id("filter-panel").is_some_and(|p| !p.hidden()) {
-        render_panel();
+        update_panel();
     }
     if let Some(app) = app() {
         let a = app.borrow();
         set_state("filters", &a.filters.list().len().to_string());
         let text = match a.filters.passing() {
-            Some(p) => format!("{} of {} pass the filters", p.count(), a.atlas.n),
+            Some(p) => format!("{} of {} pass", p.count(), a.atlas.n),
             None => String::new(),
         };
         set_state(
@@ -108,6 +108,14 @@ fn render_chips() {
         let _ = chip.append_child(&x);
         let _ = box_.append_child(&chip);
     }
+    // More chips than the row shows: the row fades at its end and says how to see the rest.
+    let over = box_.scroll_width() > box_.client_width();
+    let _ = box_.class_list().toggle_with_force("overflowing", over);
+    box_.set_title(if over {
+        "More filters: scroll sideways (or turn the wheel here) to see them all"
+    } else {
+        ""
+    });
 }
 
 /// The filter panel: one section per category, number and date field.
@@ -173,9 +181,16 @@ fn render_panel() {
                     });
                     let _ = body.append_child(&find);
                 }
+                // Values keep their places as the other filters change (by their share of the
+                // whole collection); only their counts follow.
+                let whole = if c.field.value_counts.len() == c.field.values.len() {
+                    c.field.value_counts.clone()
+                } else {
+                    vitrine_corpus::filter::category_counts(c, &vitrine_corpus::mask::Mask::all(n))
+                };
                 let (order, more_values) = crate::filters::panel_values(
                     &c.field.values,
-                    &counts,
+                    &whole,
                     &chosen,
                     &query,
                     PANEL_VALUES,
@@ -258,6 +273,104 @@ fn render_panel() {
         let _ = det.append_child(&sum);
         let _ = det.append_child(&body);
         let _ = panel.append_child(&det);
+    }
+}
+
+/// Brings the open panel up to date after the filters changed: each category value's count and
+/// tick in place (the values keep their places, and the page repaints only what changed), each
+/// range's inputs unless they are being typed in; the whole panel is made anew only when a chosen
+/// value is not listed yet (a link or corpus file chose it).
+fn update_panel() {
+    let Some(app) = app() else { return };
+    let doc = document();
+    let typing = doc.active_element();
+    let rebuild = {
+        let a = app.borrow();
+        let n = a.atlas.n;
+        let mut rebuild = !a.atlas.catalogue;
+        for (k, c) in a.atlas.fields.iter().enumerate() {
+            if rebuild {
+                break;
+            }
+            let name = &c.field.name;
+            match &c.column {
+                Column::Category(_) => {
+                    let Some(det) = doc.get_element_by_id(&format!("field-{k}")) else {
+                        rebuild = true;
+                        break;
+                    };
+                    let chosen: Vec<String> = match a.filters.on(name) {
+                        Some(Filter::Category { values, .. }) => values.clone(),
+                        _ => Vec::new(),
+                    };
+                    let counts = a.filters.counts(c, n);
+                    let mut listed = 0;
+                    let Ok(boxes) = det.query_selector_all("label") else {
+                        continue;
+                    };
+                    for j in 0..boxes.length() {
+                        let Some(label) = boxes
+                            .item(j)
+                            .and_then(|l| l.dyn_into::<web_sys::Element>().ok())
+                        else {
+                            continue;
+                        };
+                        let cb = label
+                            .query_selector("input[type=checkbox]")
+                            .ok()
+                            .flatten()
+                            .and_then(|e| e.dyn_into::<web_sys::HtmlInputElement>().ok());
+                        let Some(cb) = cb else { continue };
+                        let value = cb.get_attribute("data-value").unwrap_or_default();
+                        let on = chosen.contains(&value);
+                        listed += on as usize;
+                        cb.set_checked(on);
+                        let count = c.field.values.iter().position(|v| *v == value);
+                        let count = count.and_then(|v| counts.get(v)).copied().unwrap_or(0);
+                        if let Some(num) = label.query_selector(".n").ok().flatten() {
+                            let text = count.to_string();
+                            if num.text_content().as_deref() != Some(text.as_str()) {
+                                num.set_text_content(Some(&text));
+                            }
+                        }
+                    }
+                    rebuild = listed < chosen.len();
+                }
+                Column::Number(_) | Column::Date { .. } => {
+                    let (from, to, rule) = match a.filters.on(name) {
+                        Some(Filter::Range { min, max, .. }) => (*min, *max, None),
+                        Some(Filter::Date { from, to, rule, .. }) => {
+                            (Some(*from as f64), Some(*to as f64), Some(*rule))
+                        }
+                        _ => (None, None, None),
+                    };
+                    for (id, v) in [("from", from), ("to", to)] {
+                        let Some(i) = input(&format!("field-{k}-{id}")) else {
+                            continue;
+                        };
+                        if typing.as_ref() != Some(i.as_ref()) {
+                            i.set_value(&v.map_or(String::new(), |v| v.to_string()));
+                        }
+                    }
+                    if let (Some(rule), Some(sel)) = (
+                        rule,
+                        doc.get_element_by_id(&format!("field-{k}-rule"))
+                            .and_then(|e| e.dyn_into::<web_sys::HtmlSelectElement>().ok()),
+                    ) {
+                        sel.set_value(if rule == DateRule::Within {
+                            "within"
+                        } else {
+                            "overlap"
+                        });
+                    }
+                }
+                Column::Text(_) => {}
+            }
+        }
+        rebuild
+    };
+    if rebuild {
+        render_panel();
     }
 }
 
@@ -428,6 +541,16 @@ thread_local! {
 }
 
 pub fn install() {
+    if let Some(c) = by_id("chips") {
+        // The wheel over the chips scrolls them sideways.
+        let c2 = c.clone();
+        listen(&c, "wheel", false, move |e: web_sys::WheelEvent| {
+            if c2.scroll_width() > c2.client_width() && e.delta_y() != 0.0 {
+                c2.set_scroll_left(c2.scroll_left() + e.delta_y() as i32);
+                e.prevent_default();
+            }
+        });
+    }
     if let Some(i) = input("search") {
         listen(&i, "input", true, move |_e: web_sys::Event| {
             let w = web_sys::window().unwrap();
