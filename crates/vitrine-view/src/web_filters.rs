@@ -118,6 +118,31 @@ fn render_chips() {
     });
 }
 
+/// The values chosen for category field `name` (none when it has no filter).
+fn chosen_values(f: &crate::filters::Filters, name: &str) -> Vec<String> {
+    match f.on(name) {
+        Some(Filter::Category { values, .. }) => values.clone(),
+        _ => Vec::new(),
+    }
+}
+
+/// The bounds a range or date filter on `name` sets (None where open or unfiltered) and its rule.
+fn bounds_of(f: &crate::filters::Filters, name: &str) -> (Option<f64>, Option<f64>, DateRule) {
+    match f.on(name) {
+        Some(Filter::Range { min, max, .. }) => (*min, *max, DateRule::Overlap),
+        Some(Filter::Date { from, to, rule, .. }) => (Some(*from as f64), Some(*to as f64), *rule),
+        _ => (None, None, DateRule::Overlap),
+    }
+}
+
+/// A date rule as the rule menu's option value.
+fn rule_value(rule: DateRule) -> &'static str {
+    match rule {
+        DateRule::Within => "within",
+        DateRule::Overlap => "overlap",
+    }
+}
+
 /// The filter panel: one section per category, number and date field.
 fn render_panel() {
     let Some(panel) = by_id("filter-panel") else {
@@ -147,10 +172,7 @@ fn render_panel() {
         match (&c.column, c.field.kind) {
             (Column::Category(_), _) => {
                 let counts = a.filters.counts(c, n);
-                let chosen: Vec<String> = match a.filters.on(&name) {
-                    Some(Filter::Category { values, .. }) => values.clone(),
-                    _ => Vec::new(),
-                };
+                let chosen = chosen_values(&a.filters, &name);
                 let many = c.field.values.len() > PANEL_VALUES;
                 let query = VALUE_FIND.with(|q| q.borrow().get(&k).cloned().unwrap_or_default());
                 if many {
@@ -235,10 +257,7 @@ fn render_panel() {
                     .fold((f32::INFINITY, f32::NEG_INFINITY), |(a, b), &x| {
                         (a.min(x), b.max(x))
                     });
-                let (min, max) = match a.filters.on(&name) {
-                    Some(Filter::Range { min, max, .. }) => (*min, *max),
-                    _ => (None, None),
-                };
+                let (min, max, _) = bounds_of(&a.filters, &name);
                 range_editor(
                     &doc,
                     &body,
@@ -252,12 +271,7 @@ fn render_panel() {
             }
             (Column::Date { .. }, _) => {
                 let span = a.filters.date_span(c, n).unwrap_or((0, 0));
-                let (from, to, rule) = match a.filters.on(&name) {
-                    Some(Filter::Date { from, to, rule, .. }) => {
-                        (Some(*from as f64), Some(*to as f64), *rule)
-                    }
-                    _ => (None, None, DateRule::Overlap),
-                };
+                let (from, to, rule) = bounds_of(&a.filters, &name);
                 let (lo, hi) = (span.0.to_string(), span.1.to_string());
                 range_editor(&doc, &body, k, &lo, &hi, from, to, Some(rule));
             }
@@ -299,10 +313,7 @@ fn update_panel() {
                         rebuild = true;
                         break;
                     };
-                    let chosen: Vec<String> = match a.filters.on(name) {
-                        Some(Filter::Category { values, .. }) => values.clone(),
-                        _ => Vec::new(),
-                    };
+                    let chosen = chosen_values(&a.filters, name);
                     let counts = a.filters.counts(c, n);
                     let mut listed = 0;
                     let Ok(boxes) = det.query_selector_all("label") else {
@@ -337,13 +348,7 @@ fn update_panel() {
                     rebuild = listed < chosen.len();
                 }
                 Column::Number(_) | Column::Date { .. } => {
-                    let (from, to, rule) = match a.filters.on(name) {
-                        Some(Filter::Range { min, max, .. }) => (*min, *max, None),
-                        Some(Filter::Date { from, to, rule, .. }) => {
-                            (Some(*from as f64), Some(*to as f64), Some(*rule))
-                        }
-                        _ => (None, None, None),
-                    };
+                    let (from, to, rule) = bounds_of(&a.filters, name);
                     for (id, v) in [("from", from), ("to", to)] {
                         let Some(i) = input(&format!("field-{k}-{id}")) else {
                             continue;
@@ -352,16 +357,12 @@ fn update_panel() {
                             i.set_value(&v.map_or(String::new(), |v| v.to_string()));
                         }
                     }
-                    if let (Some(rule), Some(sel)) = (
-                        rule,
-                        doc.get_element_by_id(&format!("field-{k}-rule"))
-                            .and_then(|e| e.dyn_into::<web_sys::HtmlSelectElement>().ok()),
-                    ) {
-                        sel.set_value(if rule == DateRule::Within {
-                            "within"
-                        } else {
-                            "overlap"
-                        });
+                    // As the panel made anew would show it (a number field has no rule menu).
+                    if let Some(sel) = doc
+                        .get_element_by_id(&format!("field-{k}-rule"))
+                        .and_then(|e| e.dyn_into::<web_sys::HtmlSelectElement>().ok())
+                    {
+                        sel.set_value(rule_value(rule));
                     }
                 }
                 Column::Text(_) => {}
@@ -418,11 +419,7 @@ fn range_editor(
             let o = web_sys::HtmlOptionElement::new_with_text_and_value(t, v).unwrap();
             let _ = s.append_child(&o);
         }
-        s.set_value(if rule == DateRule::Within {
-            "within"
-        } else {
-            "overlap"
-        });
+        s.set_value(rule_value(rule));
         let _ = s.set_attribute(
             "title",
             "overlapping: the dating shares a year with the range; within: it lies wholly inside",

@@ -121,7 +121,7 @@ pub struct KeySketch {
 /// The first vertex fixes what the lasso does: Shift adds, Alt takes away.
 pub fn key_vertex(shift: bool, alt: bool) {
     let Some(app) = app() else { return };
-    let done = {
+    let (boxed, n) = {
         let mut a = app.borrow_mut();
         if a.mode == Mode::Move {
             return;
@@ -135,19 +135,14 @@ pub fn key_vertex(shift: bool, alt: bool) {
             points: Vec::new(),
         });
         ks.points.push(centre);
-        boxed && ks.points.len() >= 2
+        (boxed, ks.points.len())
     };
-    if done {
+    if boxed && n >= 2 {
         key_close();
     } else {
         show_key_sketch(&app.borrow());
-        let n = app
-            .borrow()
-            .key_sketch
-            .as_ref()
-            .map_or(0, |k| k.points.len());
         // The hint sits by the crosshair (a note in the bar would make the bar, and the map, change size).
-        let hint = if app.borrow().mode == Mode::Box {
+        let hint = if boxed {
             "corner 1 — move the view, Enter for the other corner".to_string()
         } else {
             format!("point {n} — move the view, Enter for the next; Space closes, Escape drops")
@@ -330,7 +325,7 @@ pub fn apply(step: Step) {
         }
         let drawn = matches!(step.shape, Shape::Lasso(_) | Shape::Rect(_));
         if a.selection.steps().is_empty() {
-            a.selection.map = a.atlas.current;
+            begin_here(&mut a);
         } else if drawn && a.selection.map != a.atlas.current {
             let name = a.atlas.maps[a.selection.map].name.clone();
             drop(a);
@@ -344,6 +339,13 @@ pub fn apply(step: Step) {
     refresh();
     if let Err(e) = result {
         note(&e.to_string());
+    }
+}
+
+/// A selection begun now (there are no steps yet) is on the map shown.
+pub fn begin_here(a: &mut App) {
+    if a.selection.steps().is_empty() {
+        a.selection.map = a.atlas.current;
     }
 }
 

@@ -132,6 +132,7 @@ fn from_link_steps(
 
 /// The address of the current corpus and view, and its length.
 fn link(a: &mut App) -> String {
+    let (steps, packed) = link_steps(a);
     let k = if a.selection.steps().is_empty() {
         a.atlas.current
     } else {
@@ -148,15 +149,9 @@ fn link(a: &mut App) -> String {
                 round(a.camera.zoom / a.base_zoom),
             ]
         }),
-        build: None,
-        steps: Vec::new(),
-        filters: a.filters.list().to_vec(),
-    };
-    let (steps, packed) = link_steps(a);
-    let s = Shared {
-        steps,
         build: packed.then(|| build_of(a)),
-        ..s
+        steps,
+        filters: a.filters.list().to_vec(),
     };
     let json = serde_json::to_string(&s).unwrap_or_default();
     let enc: String = js_sys::encode_uri_component(&json).into();

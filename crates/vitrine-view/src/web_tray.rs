@@ -118,15 +118,20 @@ pub fn render() {
     }
     set_state("trayTiles", &space.child_element_count().to_string());
     if let Some(item) = focused {
-        let sel = format!(".tile[data-item=\"{item}\"] .pic");
-        if let Some(b) = space
-            .query_selector(&sel)
-            .ok()
-            .flatten()
-            .and_then(|e| e.dyn_into::<HtmlElement>().ok())
-        {
-            let _ = b.focus();
-        }
+        focus_pic(&item);
+    }
+}
+
+/// Gives the keyboard focus to the picture of item `item`'s tile, if it is drawn.
+fn focus_pic(item: &str) {
+    let sel = format!("#tray-space .tile[data-item=\"{item}\"] .pic");
+    if let Some(b) = document()
+        .query_selector(&sel)
+        .ok()
+        .flatten()
+        .and_then(|e| e.dyn_into::<HtmlElement>().ok())
+    {
+        let _ = b.focus();
     }
 }
 
@@ -148,10 +153,8 @@ fn remove(i: usize) {
         if id.is_empty() {
             return;
         }
-        // A selection begun here (the corpus was the filters' alone) is on the map shown.
-        if a.selection.steps().is_empty() {
-            a.selection.map = a.atlas.current;
-        }
+        // The corpus may have been the filters' alone: the selection begins here.
+        select::begin_here(&mut a);
         select::with_lookup(&mut a, true, |sel, at| sel.remove_ids(vec![id], at))
     };
     if let Err(e) = r {
@@ -224,13 +227,5 @@ fn focus_tile(k: usize) {
         }
         a.tray_items[k.min(n - 1)]
     };
-    let sel = format!("#tray-space .tile[data-item=\"{item}\"] .pic");
-    if let Some(b) = document()
-        .query_selector(&sel)
-        .ok()
-        .flatten()
-        .and_then(|e| e.dyn_into::<HtmlElement>().ok())
-    {
-        let _ = b.focus();
-    }
+    focus_pic(&item.to_string());
 }
