@@ -174,35 +174,38 @@ impl CorpusFile {
                 "corpus format version {version:?} is not supported (this reader knows {CORPUS_VERSION})"
             )));
         }
-        // Steps and filters one by one first, so that an error names the one at fault.
-        let each = |key: &str,
-                    what: &str,
-                    check: &dyn Fn(&serde_json::Value) -> Result<(), String>|
-         -> Result<(), CorpusError> {
-            let Some(list) = v.get(key).and_then(|l| l.as_array()) else {
-                return Ok(());
-            };
-            for (k, item) in list.iter().enumerate() {
-                check(item).map_err(|e| {
-                    CorpusError::Invalid(format!("{what} {} of {}: {e}", k + 1, list.len()))
+        // Read whole; when that fails, read the steps and filters one by one to name the one at
+        // fault. Lassos are checked (at least three vertices, finite) step by step.
+        let named = |key: &str, what: &str, read: &dyn Fn(&serde_json::Value) -> Option<String>| {
+            let list = v.get(key).and_then(|l| l.as_array())?;
+            list.iter().enumerate().find_map(|(k, item)| {
+                read(item).map(|e| format!("{what} {} of {}: {e}", k + 1, list.len()))
+            })
+        };
+        let c = match CorpusFile::deserialize(&v) {
+            Ok(c) => c,
+            Err(e) => {
+                let culprit = named("steps", "step", &|i| {
+                    Step::deserialize(i).err().map(|e| e.to_string())
+                })
+                .or_else(|| {
+                    named("filters", "filter", &|i| {
+                        Filter::deserialize(i).err().map(|e| e.to_string())
+                    })
+                });
+                return Err(match culprit {
+                    Some(why) => CorpusError::Invalid(why),
+                    None => CorpusError::Json(e.to_string()),
+                });
+            }
+        };
+        for (k, st) in c.steps.iter().enumerate() {
+            if let Shape::Lasso(p) = &st.shape {
+                p.check().map_err(|e| {
+                    CorpusError::Invalid(format!("step {} of {}: {e}", k + 1, c.steps.len()))
                 })?;
             }
-            Ok(())
-        };
-        each("steps", "step", &|item| {
-            let s: Step = serde_json::from_value(item.clone()).map_err(|e| e.to_string())?;
-            match &s.shape {
-                Shape::Lasso(p) => p.check().map_err(|e| e.to_string()),
-                _ => Ok(()),
-            }
-        })?;
-        each("filters", "filter", &|item| {
-            serde_json::from_value::<Filter>(item.clone())
-                .map(|_| ())
-                .map_err(|e| e.to_string())
-        })?;
-        let c: CorpusFile =
-            serde_json::from_value(v).map_err(|e| CorpusError::Json(e.to_string()))?;
+        }
         if c.ids.len() != c.count {
             return Err(CorpusError::Invalid(format!(
                 "the corpus file says {} items but lists {} ids",

@@ -112,20 +112,32 @@ mod tests {
         assert_eq!(h.years(1), (1510, 1519));
     }
 
-    #[test]
-    fn the_running_sum_gives_what_spreading_year_by_year_gives() {
-        // The plain method as the reference: every year of every range adds 1/years to its bin
-        // (years outside the bins into the first or last).
-        let mut s = 99u64;
+    /// `n` seeded ranges: starts in `first..first + starts`, each up to `longest` years long.
+    fn random_ranges(
+        seed: u64,
+        n: usize,
+        first: i32,
+        starts: u64,
+        longest: u64,
+    ) -> (Vec<i32>, Vec<i32>) {
+        let mut s = seed;
         let mut r = |m: u64| {
             s = s
                 .wrapping_mul(6364136223846793005)
                 .wrapping_add(1442695040888963407);
             (s >> 33) % m
         };
+        let start: Vec<i32> = (0..n).map(|_| first + r(starts) as i32).collect();
+        let end: Vec<i32> = start.iter().map(|&a| a + r(longest) as i32).collect();
+        (start, end)
+    }
+
+    #[test]
+    fn the_running_sum_gives_what_spreading_year_by_year_gives() {
+        // The plain method as the reference: every year of every range adds 1/years to its bin
+        // (years outside the bins into the first or last).
         let n = 3000;
-        let start: Vec<i32> = (0..n).map(|_| 1350 + r(500) as i32).collect();
-        let end: Vec<i32> = start.iter().map(|&a| a + r(120) as i32).collect();
+        let (start, end) = random_ranges(99, n, 1350, 500, 120);
         for bin in [1, 3, 10, 50] {
             let mut h = Histogram::covering(1400, 1750, bin);
             h.add(&start, &end, 0..n);
@@ -148,16 +160,8 @@ mod tests {
 
     #[test]
     fn random_ranges_sum_to_the_dated_count() {
-        let mut s = 12345u64;
-        let mut r = |m: u64| {
-            s = s
-                .wrapping_mul(6364136223846793005)
-                .wrapping_add(1442695040888963407);
-            (s >> 33) % m
-        };
         let n = 5000;
-        let start: Vec<i32> = (0..n).map(|_| 1400 + r(300) as i32).collect();
-        let end: Vec<i32> = start.iter().map(|&a| a + r(80) as i32).collect();
+        let (start, end) = random_ranges(12345, n, 1400, 300, 80);
         for bin in [1, 7, 25, 100] {
             let mut h = Histogram::covering(1400, 1800, bin);
             h.add(&start, &end, 0..n);
