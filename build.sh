@@ -61,7 +61,7 @@ setup_wasm_bindgen() {
 # so its top level of detail is 320 rather than the default 512.
 build_demo() {
   build_viewer
-  cargo build --locked --release -p vitrine-build -p vitrine-demo
+  cargo build --locked --release -p vitrine-cli -p vitrine-demo
   local src="$CACHE/demo-source"
   # Regenerate when the generator's source changed since the cached copy was made.
   local stamp
@@ -114,7 +114,7 @@ case "${1:-}" in
     echo "[bench] reference libraries into the venv (umap-learn, pynndescent, hnswlib)"
     "$CACHE/venv/bin/python" -c "import umap, pynndescent, hnswlib" 2>/dev/null ||
       "$CACHE/venv/bin/pip" install --progress-bar on umap-learn pynndescent hnswlib
-    cargo build --locked --release -p vitrine-build --bins --bin vitrine
+    cargo build --locked --release -p vitrine-cli -p vitrine-bench
     shift
     "$CACHE/venv/bin/python" bench/bench_map.py --vitrine-bench "$PWD/target/release/vitrine-bench" "$@" ;;
   bench-images)
@@ -125,13 +125,13 @@ case "${1:-}" in
       $sudo apt-get update -qq
       DEBIAN_FRONTEND=noninteractive $sudo apt-get install -y -qq libvips-tools
     fi
-    cargo build --locked --release -p vitrine-build --bins
+    cargo build --locked --release -p vitrine-cli -p vitrine-bench
     shift
     "$CACHE/venv/bin/python" bench/bench_images.py --vitrine-bench "$PWD/target/release/vitrine-bench" "$@" ;;
   bench-view)
     setup
     build_viewer
-    cargo build --locked --release -p vitrine-build --bins
+    cargo build --locked --release -p vitrine-cli -p vitrine-bench
     shift
     "$CACHE/venv/bin/python" bench/bench_view.py --vitrine "$PWD/target/release/vitrine" --viewer "$PWD/target/viewer" "$@" ;;
   atlas) build_viewer; echo "viewer files in target/viewer (vitrine build copies them into each atlas)" ;;

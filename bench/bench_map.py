@@ -502,12 +502,12 @@ def main():
         tools -= {mod for mod, pkg in REFERENCES.items() if pkg in missing}
     binary = Path(a.vitrine_bench)
     if "vitrine" in tools and not os.access(binary, os.X_OK):
-        log(f"{binary} not found; build it with: cargo build --release -p vitrine-build --bin vitrine-bench")
+        log(f"{binary} not found; build it with: cargo build --release -p vitrine-bench")
         return 2
 
     cli = Path(a.vitrine) if a.vitrine else binary.parent / "vitrine"
     if "vitrine" in tools and not os.access(cli, os.X_OK):
-        log(f"{cli} not found; build it with: cargo build --release -p vitrine-build --bin vitrine")
+        log(f"{cli} not found; build it with: cargo build --release -p vitrine-cli")
         return 2
 
     names = a.datasets.split(",") if a.datasets else ["mix100k", "digits"] + (["mix1m"] if a.million else [])

@@ -10,11 +10,7 @@
 //! - `2023-04-05` (an ISO calendar date) → 2023; `17th c.` and `17th cent.` read as `17th century`.
 //! - A trailing `?` is ignored. Anything else is not a date: the build keeps the text and reports it.
 
-#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
-pub struct YearRange {
-    pub start: i32,
-    pub end: i32,
-}
+pub use vitrine_format::YearRange;
 
 const CIRCA_SPAN: i32 = 5;
 const OPEN_SPAN: i32 = 20;

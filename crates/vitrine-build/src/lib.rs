@@ -1,42 +1,18 @@
-//! Building a Vitrine atlas: ingest, neighbour graph, map, thumbnails, writing; and reading one back.
+//! `vitrine build` as a library: ingest and validation of the user's files, the build's stages,
+//! and writing the atlas folder; and reading one back.
 //!
-//! Invariant: nothing here is needed by the viewer; the viewer depends on `vitrine-format` only.
+//! - ingest: [`vectors`] (.npy), [`catalogue`] (CSV, field kinds inferred), [`dates`] (catalogue
+//!   datings to year ranges), errors that name the file, row or field ([`error`]);
+//! - [`pipeline`]: the build from options to atlas folder, calling the map engine
+//!   (`vitrine-map`) and the image pipeline (`vitrine-images`);
+//! - [`read`]: an atlas folder read back (`vitrine inspect`, `vitrine export`, `vitrine corpus`).
+//!
+//! Invariants: nothing here is needed by the viewer; nothing is written at `--out` until the whole
+//! atlas is complete and has validated; the same inputs and seed give the same bytes.
 
 pub mod catalogue;
-pub mod clusters;
-pub mod corpus_cmd;
 pub mod dates;
-pub mod decode;
 pub mod error;
-pub mod hilbert;
-pub mod kernels;
-pub mod knn;
-pub mod lattice;
-pub mod linalg;
-pub mod nndescent;
-pub mod npy;
-pub mod pca;
 pub mod pipeline;
-pub mod quality;
 pub mod read;
-pub mod rng;
-pub mod serve;
-pub mod spectral;
-pub mod thumbcache;
-pub mod thumbs;
-pub mod timeline;
-pub mod umap;
-
-/// Tells the allocator (mimalloc, the binaries' global allocator) to keep freed memory for reuse
-/// instead of returning it to the system a few milliseconds later: the map engine frees and
-/// allocates buffers of the same sizes every round, and memory handed back has to be faulted in
-/// and zeroed again by the system (about a tenth of the neighbour graph's time on 100,000 items).
-/// A build is one process that ends when the atlas is written, so nothing is held for long.
-pub fn keep_freed_memory() {
-    // mi_option_purge_delay: entry 15 of `mi_option_e` in the bundled mimalloc's
-    // include/mimalloc.h (v2 and v3 alike; the Rust bindings name 14 and 16 but not 15);
-    // -1 means never purge.
-    const MI_OPTION_PURGE_DELAY: libmimalloc_sys::mi_option_t = 15;
-    // SAFETY: setting an option is a plain store into mimalloc's option table.
-    unsafe { libmimalloc_sys::mi_option_set(MI_OPTION_PURGE_DELAY, -1) }
-}
+pub mod vectors;

@@ -14,16 +14,15 @@ use vitrine_format::{
 
 use crate::catalogue::{self, Catalogue, FieldData, ValueWarning};
 use crate::error::{id_list, InputError};
-use crate::knn::{self, Metric};
-use crate::npy::{self, Matrix};
-use crate::rng::Rng;
-use crate::thumbs::{self, ImageProblem, SheetPlan};
-use crate::umap::{self, UmapParams};
+use vitrine_images::thumbs::{self, ImageProblem, SheetPlan};
+use vitrine_map::knn::{self, Metric};
+use vitrine_map::matrix::Matrix;
+use vitrine_map::rng::Rng;
+use vitrine_map::umap::{self, UmapParams};
 
 pub const IMAGE_EXTENSIONS: &[&str] = &["jpg", "jpeg", "png", "tif", "tiff", "webp", "gif", "bmp"];
 
-pub use vitrine_format::OKABE_ITO;
-pub const INK: [u8; 3] = [0x2B, 0x2A, 0x33];
+use vitrine_format::palette::{INK, OKABE_ITO, UNLISTED};
 
 /// Collections up to this size get the sequential layout optimiser when it is `auto`.
 pub const SEQUENTIAL_UP_TO: usize = 50_000;
@@ -43,7 +42,7 @@ pub const QUALITY_SAMPLE: usize = 2000;
 /// What was done to the vectors before the neighbour graph.
 pub struct Reduction {
     pub input_dimensions: usize,
-    pub pca: Option<crate::pca::Pca>,
+    pub pca: Option<vitrine_map::pca::Pca>,
     pub notes: Vec<String>,
 }
 
@@ -110,7 +109,7 @@ impl BuildOptions {
             sheet_size: 2048,
             cells: vec![32, 128, 512],
             jpeg_quality: 85,
-            max_pixels: crate::decode::DEFAULT_MAX_PIXELS,
+            max_pixels: vitrine_images::decode::DEFAULT_MAX_PIXELS,
             strict: false,
             thumb_cache: None,
             viewer: None,
@@ -591,7 +590,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         }
     };
     let mut stages = Stages::new();
-    let vectors = npy::read_npy(&opts.vectors)?;
+    let vectors = crate::vectors::read_vectors(&opts.vectors)?;
     log(&format!(
         "vectors: {} x {} from {}",
         vectors.rows,
@@ -631,7 +630,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
 
     // The quality figures measure the map against the vectors as given, so their sample is kept
     // before any reduction.
-    let quality_idx = crate::quality::sample(n, QUALITY_SAMPLE);
+    let quality_idx = vitrine_map::quality::sample(n, QUALITY_SAMPLE);
     let quality_rows = Matrix {
         rows: quality_idx.len(),
         cols: vectors.cols,
@@ -650,12 +649,12 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         Some(dims) if dims < vectors.cols && n > 1 => {
             let prepared = knn::prepare(&vectors, opts.metric);
             drop(vectors);
-            let pb = bar(opts.quiet, crate::pca::FIT_STEPS, "PCA");
-            let fit = crate::pca::fit_with_progress(&prepared, dims, opts.seed, &|i, of| {
+            let pb = bar(opts.quiet, vitrine_map::pca::FIT_STEPS, "PCA");
+            let fit = vitrine_map::pca::fit_with_progress(&prepared, dims, opts.seed, &|i, of| {
                 pb.set_length(of);
                 pb.set_position(i);
             });
-            let reduced = crate::pca::project(&prepared, &fit);
+            let reduced = vitrine_map::pca::project(&prepared, &fit);
             pb.finish_and_clear();
             log(&format!(
                 "PCA: {} -> {} dimensions, {:.1} % of the variance kept (fitted on {} items)",
@@ -693,17 +692,18 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         g
     } else {
         let pb = bar(opts.quiet, 1, "neighbours");
-        let params = crate::nndescent::NnDescentParams::new(k, opts.seed);
-        let g = crate::nndescent::nn_descent(&vectors, graph_metric, &params, &|stage, i, of| {
-            pb.set_prefix(stage.to_string());
-            pb.set_length(of);
-            pb.set_position(i);
-        });
+        let params = vitrine_map::nndescent::NnDescentParams::new(k, opts.seed);
+        let g =
+            vitrine_map::nndescent::nn_descent(&vectors, graph_metric, &params, &|stage, i, of| {
+                pb.set_prefix(stage.to_string());
+                pb.set_length(of);
+                pb.set_position(i);
+            });
         pb.finish_and_clear();
         // Recall against exact search on a sample, recorded with the map's quality figures.
-        let sample = crate::quality::sample(n, 500);
-        let truth = crate::nndescent::exact_for(&vectors, graph_metric, k, &sample);
-        let r = crate::nndescent::recall(&g, &truth, &sample);
+        let sample = vitrine_map::quality::sample(n, 500);
+        let truth = vitrine_map::nndescent::exact_for(&vectors, graph_metric, k, &sample);
+        let r = vitrine_map::nndescent::recall(&g, &truth, &sample);
         log(&format!(
             "neighbour graph: NN-descent, recall@{k} {r:.3} on {} sampled items",
             sample.len()
@@ -734,7 +734,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
     let start_vectors = knn::prepare(&vectors, graph_metric);
     let pca = umap::pca_start(&start_vectors, &mut rng);
     drop(start_vectors);
-    let (start, start_report) = crate::spectral::spectral_start(&fuzzy, &pca, opts.seed);
+    let (start, start_report) = vitrine_map::spectral::spectral_start(&fuzzy, &pca, opts.seed);
     drop(pca);
     log(&format!(
         "map start: {} ({} connected part(s) of the graph, {} laid out spectrally, residual {:.1e})",
@@ -781,7 +781,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
                         .map(|&r| crate::dates::parse_date(&cat.rows[r][c]))
                         .collect();
                     let pb = bar(opts.quiet, 1, "timeline");
-                    let t = crate::timeline::timeline(
+                    let t = vitrine_map::timeline_map::timeline_map(
                         &fuzzy,
                         order_start,
                         &ranges,
@@ -809,9 +809,9 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
     if timeline.is_some() {
         stages.lap("timeline map");
     }
-    let clusters = crate::clusters::louvain(n, &fuzzy, 1.0);
+    let clusters = vitrine_map::clusters::louvain(n, &fuzzy, 1.0);
     stages.lap("clusters");
-    let lattice = crate::lattice::lattice(&pos);
+    let lattice = vitrine_map::lattice::lattice(&pos);
     let lattice_pos: Vec<[f32; 2]> = lattice
         .cells
         .iter()
@@ -819,7 +819,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
         .collect();
     stages.lap("lattice");
     let quality_sample =
-        crate::quality::QualitySample::new(&quality_rows, quality_idx, opts.metric);
+        vitrine_map::quality::QualitySample::new(&quality_rows, quality_idx, opts.metric);
     drop(quality_rows);
     let quality = quality_sample.quality(&pos, 10);
     let lattice_quality = quality_sample.quality(&lattice_pos, 10);
@@ -831,7 +831,7 @@ pub fn build(opts: &BuildOptions) -> Result<BuildReport> {
     }
 
     // Atlas order: along a Hilbert curve over the map.
-    let order = crate::hilbert::hilbert_order(&pos);
+    let order = vitrine_map::hilbert::hilbert_order(&pos);
     stages.lap("quality figures");
     let mut rank = vec![0u32; n];
     for (new, &old) in order.iter().enumerate() {
@@ -936,18 +936,18 @@ fn write_atlas(
     order: &[usize],
     rank: &[u32],
     image_paths: Option<Vec<Result<PathBuf, String>>>,
-    quality: Option<crate::quality::MapQuality>,
+    quality: Option<vitrine_map::quality::MapQuality>,
     recall: Option<(f64, usize)>,
     exact: bool,
-    timeline: Option<crate::timeline::Timeline>,
+    timeline: Option<vitrine_map::timeline_map::TimelineMap>,
     lattice: (
-        crate::lattice::Lattice,
+        vitrine_map::lattice::Lattice,
         Vec<[f32; 2]>,
-        Option<crate::quality::MapQuality>,
+        Option<vitrine_map::quality::MapQuality>,
     ),
     clusters: Vec<u32>,
     umap_params: &UmapParams,
-    start: &crate::spectral::StartReport,
+    start: &vitrine_map::spectral::StartReport,
     reduction: Reduction,
     stages: &mut Stages,
 ) -> Result<BuildReport> {
@@ -1143,7 +1143,7 @@ fn write_atlas(
             category_columns.push((f.name.clone(), codes.clone(), f.values.clone()));
         }
     }
-    let terms = crate::clusters::label_terms(&cluster_of, &category_columns, 3);
+    let terms = vitrine_map::clusters::label_terms(&cluster_of, &category_columns, 3);
     let k = terms.len();
     let mut members: Vec<Vec<[f32; 2]>> = vec![Vec::new(); k];
     for (slot, &c) in cluster_of.iter().enumerate() {
@@ -1210,7 +1210,7 @@ fn write_atlas(
                 .collect();
             let pb = bar(opts.quiet, n as u64, "thumbnails");
             let cache = opts.thumb_cache.as_ref().map(|d| {
-                crate::thumbcache::ThumbCache::new(
+                vitrine_images::cache::ThumbCache::new(
                     d.clone(),
                     *plan.cells.iter().max().unwrap(),
                     plan.max_pixels,
@@ -1320,7 +1320,7 @@ fn write_atlas(
                         Some(codes) if (codes[i] as usize) < OKABE_ITO.len() => {
                             OKABE_ITO[codes[i] as usize]
                         }
-                        Some(_) => [0x9A, 0x96, 0x8E],
+                        Some(_) => UNLISTED,
                         None => INK,
                     };
                     [c[0], c[1], c[2], 255]
@@ -1380,7 +1380,7 @@ fn write_atlas(
             json!(p.explained_variance_ratio),
         );
         parameters.insert("pca_fit_items".into(), json!(p.fit_rows));
-        parameters.insert("pca_method".into(), json!(crate::pca::method()));
+        parameters.insert("pca_method".into(), json!(vitrine_map::pca::method()));
     }
 
     let title = opts.title.clone().unwrap_or_else(|| {

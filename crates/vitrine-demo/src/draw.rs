@@ -2,7 +2,7 @@
 //! motifs and palettes, varied per sheet by a seeded generator.
 
 use image::{Rgb, RgbImage};
-use vitrine_build::rng::Rng;
+use vitrine_map::rng::Rng;
 
 pub const FAMILIES: [&str; 14] = [
     "standing figure",

@@ -8,7 +8,7 @@ pub mod features;
 use std::path::Path;
 
 use rayon::prelude::*;
-use vitrine_build::rng::Rng;
+use vitrine_map::rng::Rng;
 
 pub const WORKSHOPS: [&str; 14] = [
     "Workshop of the Grey Heron",
@@ -256,11 +256,9 @@ pub fn generate(
     }
     std::fs::write(out.join("records.csv"), csv)?;
     std::fs::write(out.join("feature-ids.txt"), ids)?;
-    vitrine_build::npy::write_npy_f32(
-        &out.join("features.npy"),
-        count,
-        features::DIMENSIONS,
-        &data,
+    std::fs::write(
+        out.join("features.npy"),
+        vitrine_format::npy::encode_f32(count, features::DIMENSIONS, &data),
     )?;
     Ok(Generated { families })
 }
@@ -268,8 +266,7 @@ pub fn generate(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use vitrine_build::knn::{exact_knn, Metric};
-    use vitrine_build::npy::read_npy;
+    use vitrine_map::knn::{exact_knn, Metric};
 
     #[test]
     fn families_are_told_apart_by_the_descriptor() {
@@ -277,7 +274,7 @@ mod tests {
         // most of an item's nearest neighbours should share its family.
         let dir = std::env::temp_dir().join(format!("vitrine-demo-test-{}", std::process::id()));
         let g = generate(&dir, 280, 3, &|_| {}).unwrap();
-        let m = read_npy(&dir.join("features.npy")).unwrap();
+        let m = vitrine_build::vectors::read_vectors(&dir.join("features.npy")).unwrap();
         assert_eq!((m.rows, m.cols), (280, features::DIMENSIONS));
         let graph = exact_knn(&m, 5, Metric::Cosine, &|_| {});
         let mut same = 0;

@@ -6,10 +6,16 @@
 //! handing out typed data. Nothing here panics on bad bytes: every failure is an
 //! [`AtlasError`].
 //!
-//! Invariant: this crate has no dependency that cannot compile for wasm32.
+//! Beside the atlas it holds what build, viewer and tests must agree on: the colours of the
+//! product (`palette`) and NumPy's `.npy` layout (`npy`).
+//!
+//! Invariant: this crate has no dependency that cannot compile for wasm32, and reads no files.
 
 use serde::{Deserialize, Serialize};
 use sha2::{Digest, Sha256};
+
+pub mod npy;
+pub mod palette;
 
 /// The format version this crate writes and reads.
 pub const FORMAT_VERSION: u32 = 2;
@@ -104,17 +110,13 @@ pub fn hex(bytes: &[u8]) -> String {
     s
 }
 
-/// The Okabe-Ito colour-blind-safe palette (Okabe and Ito, "Color Universal Design", 2002), without
-/// black: the build colours marks of atlases without images by it, the viewer colours by field with it.
-pub const OKABE_ITO: [[u8; 3]; 7] = [
-    [0xE6, 0x9F, 0x00],
-    [0x56, 0xB4, 0xE9],
-    [0x00, 0x9E, 0x73],
-    [0xF0, 0xE4, 0x42],
-    [0x00, 0x72, 0xB2],
-    [0xD5, 0x5E, 0x00],
-    [0xCC, 0x79, 0xA7],
-];
+/// A dating as whole years, both ends included (a single year has `start == end`); years before
+/// the common era are negative.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+pub struct YearRange {
+    pub start: i32,
+    pub end: i32,
+}
 
 /// A thumbnail extent as the `extents` array packs it (width | height << 16), unpacked.
 pub fn unpack_extent(e: u32) -> (u16, u16) {

@@ -4,7 +4,7 @@
 
 use vitrine_corpus::columns::{Column, FieldColumn};
 
-pub use vitrine_format::OKABE_ITO;
+pub use vitrine_format::palette::OKABE_ITO;
 /// Values beyond the seventh, and items without a value.
 pub const OTHER: [u8; 3] = [0xB4, 0xAE, 0xA4];
 pub const MISSING: [u8; 3] = [0xD8, 0xD2, 0xC8];

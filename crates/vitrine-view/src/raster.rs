@@ -35,9 +35,9 @@ pub struct Theme {
 }
 
 pub const READING_ROOM: Theme = Theme {
-    paper: [0xF3, 0xEE, 0xE4],
-    ink: [0x2B, 0x2A, 0x33],
-    accent: [0x11, 0x64, 0x66],
+    paper: vitrine_format::palette::PAPER,
+    ink: vitrine_format::palette::INK,
+    accent: vitrine_format::palette::ACCENT,
 };
 
 /// A decoded sheet: RGB pixels.

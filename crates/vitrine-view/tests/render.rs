@@ -4,9 +4,9 @@
 use std::collections::HashMap;
 use std::path::Path;
 
-use vitrine_build::npy::write_npy_f32;
 use vitrine_build::pipeline::{build, BuildOptions};
 use vitrine_format::Manifest;
+use vitrine_test_support::write_npy_f32;
 use vitrine_view::atlas::AtlasData;
 use vitrine_view::camera::Camera;
 use vitrine_view::raster::{draw, Scene, Sheet, SheetStore, READING_ROOM};

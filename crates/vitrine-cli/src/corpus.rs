@@ -1,0 +1,474 @@
+//! `vitrine corpus`: a corpus rebuilt without a browser, from an atlas and a corpus file or a
+//! selection given on the command line, written as CSV, JSON (the corpus file) and IIIF.
+
+use std::collections::HashMap;
+use std::path::{Path, PathBuf};
+
+use anyhow::{bail, Context, Result};
+use vitrine_corpus::columns::{decode_fields, Column};
+use vitrine_corpus::corpus::{
+    corpus_mask, describe, AtlasRef, CorpusFile, Lookup, Made, Op, Shape, Step, CORPUS_FORMAT,
+    CORPUS_VERSION,
+};
+use vitrine_corpus::export::{build_record, csv, iiif_manifest, IiifOptions};
+use vitrine_corpus::filter::{DateRule, Filter};
+use vitrine_corpus::polygon::Polygon;
+use vitrine_format::{ArrayRef, AtlasError, MANIFEST_FILE};
+
+use vitrine_build::read::Atlas;
+
+/// What to select and where to write it (the CLI's flags).
+#[derive(Default)]
+pub struct CorpusArgs {
+    pub from: Option<PathBuf>,
+    pub map: Option<String>,
+    pub lassos: Vec<String>,
+    pub subtract: Vec<String>,
+    pub rects: Vec<String>,
+    pub ids: Vec<String>,
+    pub filters: Vec<String>,
+    pub ranges: Vec<String>,
+    pub dates: Vec<String>,
+    pub date_rule: Option<String>,
+    pub search: Option<String>,
+    pub search_in: Vec<String>,
+    pub csv: Option<PathBuf>,
+    pub json: Option<PathBuf>,
+    pub iiif: Option<PathBuf>,
+    pub base_url: Option<String>,
+    pub force: bool,
+    /// The time to record (RFC 3339); the clock's when None.
+    pub time: Option<String>,
+}
+
+/// What `vitrine corpus` found and wrote.
+pub struct CorpusReport {
+    pub count: usize,
+    pub description: String,
+    pub written: Vec<PathBuf>,
+    pub notes: Vec<String>,
+}
+
+/// UTC time of `secs` since 1970 as RFC 3339 ("2026-12-03T19:40:00Z").
+pub fn rfc3339_utc(secs: u64) -> String {
+    let days = (secs / 86_400) as i64;
+    let rem = secs % 86_400;
+    // Civil date from days since 1970-01-01 (the proleptic Gregorian calendar).
+    let z = days + 719_468;
+    let era = z.div_euclid(146_097);
+    let doe = z - era * 146_097;
+    let yoe = (doe - doe / 1_460 + doe / 36_524 - doe / 146_096) / 365;
+    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
+    let mp = (5 * doy + 2) / 153;
+    let d = doy - (153 * mp + 2) / 5 + 1;
+    let m = if mp < 10 { mp + 3 } else { mp - 9 };
+    let y = yoe + era * 400 + i64::from(m <= 2);
+    format!(
+        "{y:04}-{m:02}-{d:02}T{:02}:{:02}:{:02}Z",
+        rem / 3600,
+        rem / 60 % 60,
+        rem % 60
+    )
+}
+
+fn parse_rect(s: &str) -> Result<[f64; 4]> {
+    let v: Vec<f64> = s
+        .split(',')
+        .map(|x| x.trim().parse::<f64>())
+        .collect::<Result<_, _>>()
+        .ok()
+        .filter(|v: &Vec<f64>| v.len() == 4 && v.iter().all(|x| x.is_finite()))
+        .with_context(|| format!("--rect {s:?}: give x0,y0,x1,y1 (four finite numbers)"))?;
+    Ok([v[0], v[1], v[2], v[3]])
+}
+
+fn split_field<'a>(flag: &str, s: &'a str) -> Result<(&'a str, &'a str)> {
+    s.split_once('=')
+        .filter(|(f, _)| !f.trim().is_empty())
+        .map(|(f, v)| (f.trim(), v.trim()))
+        .with_context(|| format!("{flag} {s:?}: give FIELD=VALUE"))
+}
+
+/// "a..b" (either side may be empty) or a single value.
+fn parse_span<T: std::str::FromStr>(flag: &str, s: &str) -> Result<(Option<T>, Option<T>)> {
+    let bad = || format!("{flag} {s:?}: give FROM..TO (either may be left out) or one value");
+    let one = |x: &str| -> Result<Option<T>> {
+        let x = x.trim();
+        if x.is_empty() {
+            Ok(None)
+        } else {
+            x.parse().map(Some).map_err(|_| anyhow::anyhow!(bad()))
+        }
+    };
+    match s.split_once("..") {
+        Some((a, b)) => Ok((one(a)?, one(b)?)),
+        None => {
+            let v = one(s)?;
+            if v.is_none() {
+                bail!(bad());
+            }
+            let w = one(s)?;
+            Ok((v, w))
+        }
+    }
+}
+
+/// The filters the flags give, in the order given (category values of one field merged).
+fn filters_from_args(a: &CorpusArgs, atlas: &Atlas) -> Result<Vec<Filter>> {
+    let m = &atlas.manifest;
+    let mut out: Vec<Filter> = Vec::new();
+    for s in &a.filters {
+        let (field, value) = split_field("--filter", s)?;
+        let merged = out.iter_mut().find_map(|f| match f {
+            Filter::Category { field: g, values } if g == field => Some(values),
+            _ => None,
+        });
+        match merged {
+            Some(values) => values.push(value.to_string()),
+            None => out.push(Filter::Category {
+                field: field.into(),
+                values: vec![value.to_string()],
+            }),
+        }
+    }
+    for s in &a.ranges {
+        let (field, span) = split_field("--range", s)?;
+        let (min, max) = parse_span::<f64>("--range", span)?;
+        out.push(Filter::Range {
+            field: field.into(),
+            min,
+            max,
+        });
+    }
+    let rule = match a.date_rule.as_deref() {
+        None | Some("overlap") => DateRule::Overlap,
+        Some("within") => DateRule::Within,
+        Some(x) => bail!("--date-rule {x:?}: give overlap or within"),
+    };
+    for s in &a.dates {
+        let (field, span) = match s.split_once('=') {
+            Some((f, span)) => (f.trim().to_string(), span),
+            None => {
+                let dated: Vec<&str> = m
+                    .fields
+                    .iter()
+                    .filter(|f| f.kind == vitrine_format::FieldKind::Date)
+                    .map(|f| f.name.as_str())
+                    .collect();
+                match dated.as_slice() {
+                    [one] => (one.to_string(), s.as_str()),
+                    [] => bail!("--date {s:?}: the catalogue has no date field"),
+                    many => bail!(
+                        "--date {s:?}: the catalogue has several date fields ({}); write FIELD=FROM..TO",
+                        many.join(", ")
+                    ),
+                }
+            }
+        };
+        let (from, to) = parse_span::<i32>("--date", span)?;
+        out.push(Filter::Date {
+            field,
+            from: from.unwrap_or(i32::MIN + 1),
+            to: to.unwrap_or(i32::MAX),
+            rule,
+        });
+    }
+    if let Some(q) = &a.search {
+        out.push(Filter::Text {
+            fields: a.search_in.clone(),
+            query: q.clone(),
+        });
+    }
+    Ok(out)
+}
+
+/// The steps the flags give; `before` says whether steps come before them (from a corpus file).
+fn steps_from_args(a: &CorpusArgs, before: bool) -> Result<Vec<Step>> {
+    let mut steps = Vec::new();
+    for s in &a.lassos {
+        let p = Polygon::parse(s).with_context(|| format!("--lasso {s:?}"))?;
+        steps.push(Step {
+            op: Op::Add,
+            shape: Shape::Lasso(p),
+        });
+    }
+    for s in &a.rects {
+        steps.push(Step {
+            op: Op::Add,
+            shape: Shape::Rect(parse_rect(s)?),
+        });
+    }
+    if !a.ids.is_empty() {
+        steps.push(Step {
+            op: Op::Add,
+            shape: Shape::Ids(a.ids.clone()),
+        });
+    }
+    for s in &a.subtract {
+        let p = Polygon::parse(s).with_context(|| format!("--subtract-lasso {s:?}"))?;
+        if steps.is_empty() && !before {
+            // Removing from nothing: start from every item.
+            steps.push(Step {
+                op: Op::Replace,
+                shape: Shape::Everything(Default::default()),
+            });
+        }
+        steps.push(Step {
+            op: Op::Subtract,
+            shape: Shape::Lasso(p),
+        });
+    }
+    Ok(steps)
+}
+
+fn check_output(p: &Path, flag: &str, atlas_dir: &Path, force: bool) -> Result<()> {
+    let parent = p
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
+    if let (Ok(pp), Ok(ap)) = (parent.canonicalize(), atlas_dir.canonicalize()) {
+        if pp.starts_with(ap) {
+            bail!(
+                "{flag} {}: that is inside the atlas folder; write exports elsewhere",
+                p.display()
+            );
+        }
+    }
+    if p.exists() && !force {
+        bail!(
+            "{flag} {}: the file exists (add --force to replace it)",
+            p.display()
+        );
+    }
+    Ok(())
+}
+
+pub fn run(atlas_dir: &Path, a: &CorpusArgs) -> Result<CorpusReport> {
+    let atlas = Atlas::open(atlas_dir)?;
+    let m = &atlas.manifest;
+    let n = m.item_count as usize;
+    if m.maps.is_empty() {
+        bail!("{}: the atlas has no map", atlas_dir.display());
+    }
+    for (p, flag) in [(&a.csv, "--csv"), (&a.json, "--json"), (&a.iiif, "--iiif")] {
+        if let Some(p) = p {
+            check_output(p, flag, atlas_dir, a.force)?;
+        }
+    }
+    let manifest_bytes = std::fs::read(atlas_dir.join(MANIFEST_FILE))?;
+    let manifest_sha = vitrine_format::sha256_hex(&manifest_bytes);
+    let mut notes = Vec::new();
+
+    let from = match &a.from {
+        Some(p) => {
+            let text =
+                std::fs::read_to_string(p).with_context(|| format!("reading {}", p.display()))?;
+            Some(CorpusFile::from_json(&text).with_context(|| format!("{}", p.display()))?)
+        }
+        None => None,
+    };
+    let mut steps = from.as_ref().map(|c| c.steps.clone()).unwrap_or_default();
+    let mut filters = from.as_ref().map(|c| c.filters.clone()).unwrap_or_default();
+    let extra_steps = steps_from_args(a, !steps.is_empty())?;
+    let extra_filters = filters_from_args(a, &atlas)?;
+    let changed = !extra_steps.is_empty() || !extra_filters.is_empty();
+    steps.extend(extra_steps);
+    filters.extend(extra_filters);
+    if let (Some(given), Some(c), Some(p)) = (&a.map, &from, &a.from) {
+        let drawn = c
+            .steps
+            .iter()
+            .any(|s| matches!(s.shape, Shape::Lasso(_) | Shape::Rect(_)));
+        if given != &c.map && drawn {
+            bail!(
+                "--map {given:?}: the steps of {} were drawn on the {:?} map, and would pick other \
+                 items on another (leave out --map, or give --map {:?})",
+                p.display(),
+                c.map,
+                c.map
+            );
+        }
+    }
+    let (map_name, named_by) = match (&a.map, &from, &a.from) {
+        (Some(name), _, _) => (name.clone(), "--map".to_string()),
+        (None, Some(c), Some(p)) => (c.map.clone(), format!("{} (its \"map\")", p.display())),
+        _ => (m.maps[0].name.clone(), "the atlas's first map".to_string()),
+    };
+    let map = m
+        .maps
+        .iter()
+        .find(|l| l.name == map_name)
+        .with_context(|| {
+            let names: Vec<&str> = m.maps.iter().map(|l| l.name.as_str()).collect();
+            format!(
+                "{named_by} names the map {map_name:?}, but {} has the maps {}",
+                atlas_dir.display(),
+                names.join(", ")
+            )
+        })?;
+    if let Some(c) = &from {
+        if c.atlas.manifest_sha256 != manifest_sha {
+            notes.push(format!(
+                "the corpus file was made on another atlas or build ({:?}, manifest {}); its steps are replayed on this one",
+                c.atlas.title,
+                c.atlas.manifest_sha256.chars().take(12).collect::<String>()
+            ));
+        }
+    }
+
+    // The arrays the corpus needs: positions, ids, catalogue columns, sizes.
+    let mut wanted: Vec<&ArrayRef> = vec![&map.positions, &m.ids, &m.ids_text];
+    for f in &m.fields {
+        wanted.push(&f.column);
+        wanted.extend(f.column2.as_ref());
+        if let Some([o, b]) = &f.written {
+            wanted.push(o);
+            wanted.push(b);
+        }
+    }
+    if let Some(s) = &m.sheets {
+        wanted.push(&s.extents);
+        wanted.extend(s.image_sizes.as_ref());
+    }
+    let mut files: HashMap<String, Vec<u8>> = HashMap::new();
+    for r in wanted {
+        if !files.contains_key(&r.file) {
+            let bytes = std::fs::read(atlas_dir.join(&r.file))
+                .with_context(|| format!("reading {}", r.file))?;
+            files.insert(r.file.clone(), bytes);
+        }
+    }
+    let get = |r: &ArrayRef| -> Result<&[u8], AtlasError> {
+        files
+            .get(&r.file)
+            .map(|v| v.as_slice())
+            .ok_or_else(|| AtlasError::Inconsistent(format!("{} was not read", r.file)))
+    };
+    let flat: Vec<f32> = map.positions.decode(get(&map.positions)?)?;
+    let positions: Vec<[f32; 2]> = flat.chunks_exact(2).map(|c| [c[0], c[1]]).collect();
+    let ids = vitrine_format::decode_text(
+        &m.ids,
+        get(&m.ids)?,
+        &m.ids_text,
+        get(&m.ids_text)?,
+        m.item_count,
+    )?;
+    let cols = decode_fields(m, get)?;
+    let index: HashMap<&str, usize> = (0..n).map(|i| (ids.get(i), i)).collect();
+    let index_of = |id: &str| index.get(id).copied();
+    let at = Lookup {
+        positions: &positions,
+        index_of: &index_of,
+        near: None,
+    };
+    let mask = corpus_mask(&steps, &filters, &cols, &at)?;
+    let items: Vec<usize> = mask.items().collect();
+    if let (Some(c), false) = (&from, changed) {
+        let same_atlas = c.atlas.manifest_sha256 == manifest_sha;
+        let listed: Vec<&str> = c.ids.iter().map(|s| s.as_str()).collect();
+        let got: Vec<&str> = items.iter().map(|&i| ids.get(i)).collect();
+        if same_atlas && listed != got {
+            bail!(
+                "the corpus file lists {} items, but its steps and filters give {} on the same atlas",
+                listed.len(),
+                got.len()
+            );
+        }
+    }
+    let description = describe(&map_name, &steps, &filters);
+    let time = a.time.clone().unwrap_or_else(|| {
+        let secs = std::time::SystemTime::now()
+            .duration_since(std::time::UNIX_EPOCH)
+            .map(|d| d.as_secs())
+            .unwrap_or(0);
+        rfc3339_utc(secs)
+    });
+    let file = CorpusFile {
+        format: CORPUS_FORMAT.into(),
+        format_version: CORPUS_VERSION,
+        atlas: AtlasRef {
+            title: m.title.clone(),
+            manifest_sha256: manifest_sha.clone(),
+            item_count: m.item_count,
+        },
+        build: build_record(m),
+        map: map_name.clone(),
+        steps: steps.clone(),
+        filters: filters.clone(),
+        count: items.len(),
+        ids: items.iter().map(|&i| ids.get(i).to_string()).collect(),
+        made: Made {
+            tool: "vitrine".into(),
+            tool_version: env!("CARGO_PKG_VERSION").into(),
+            time,
+            by: "vitrine corpus".into(),
+        },
+    };
+    let mut written = Vec::new();
+    if let Some(p) = &a.csv {
+        std::fs::write(p, csv(m, &ids, &cols, &items))
+            .with_context(|| format!("writing {}", p.display()))?;
+        written.push(p.clone());
+    }
+    if let Some(p) = &a.json {
+        std::fs::write(p, file.to_json()).with_context(|| format!("writing {}", p.display()))?;
+        written.push(p.clone());
+    }
+    if let Some(p) = &a.iiif {
+        let base = match &a.base_url {
+            Some(b) if b.starts_with("https://") || b.starts_with("http://") => {
+                if b.ends_with('/') {
+                    b.clone()
+                } else {
+                    format!("{b}/")
+                }
+            }
+            Some(b) => bail!("--base-url {b:?}: give an http:// or https:// address"),
+            None => {
+                let b = format!("https://corpus.invalid/{}/", &manifest_sha[..16]);
+                notes.push(format!(
+                    "the IIIF ids are under {b} (a placeholder): give --base-url with the address where the manifest will be published"
+                ));
+                b
+            }
+        };
+        let extents: Vec<(u16, u16)> = match &m.sheets {
+            Some(s) => s
+                .extents
+                .decode::<u32>(get(&s.extents)?)?
+                .into_iter()
+                .map(vitrine_format::unpack_extent)
+                .collect(),
+            None => vec![],
+        };
+        let sizes: Option<Vec<u32>> = match m.sheets.as_ref().and_then(|s| s.image_sizes.as_ref()) {
+            Some(r) => Some(r.decode(get(r)?)?),
+            None => None,
+        };
+        let summary = format!("{} items of {}: {description}", items.len(), m.title);
+        let o = IiifOptions {
+            base: &base,
+            image_sizes: sizes.as_deref(),
+            extents: &extents,
+            summary: &summary,
+        };
+        let v = iiif_manifest(m, &ids, &cols, &items, &o);
+        std::fs::write(p, serde_json::to_string_pretty(&v)?)
+            .with_context(|| format!("writing {}", p.display()))?;
+        written.push(p.clone());
+        if !cols.iter().any(|c| {
+            matches!(c.column, Column::Text(_)) && c.field.kind == vitrine_format::FieldKind::Link
+        }) {
+            notes.push(
+                "the catalogue has no link field: the IIIF canvases carry metadata but no image"
+                    .into(),
+            );
+        }
+    }
+    Ok(CorpusReport {
+        count: items.len(),
+        description,
+        written,
+        notes,
+    })
+}

@@ -1,0 +1,436 @@
+//! Decoding archive images into upright 8-bit sRGB pixels.
+//!
+//! Every format the `image` crate reads is accepted (JPEG baseline and progressive, also CMYK and
+//! YCCK; PNG 8/16-bit, palette, alpha; TIFF 8/16-bit RGB, greyscale and CMYK, uncompressed, LZW or
+//! Deflate, the first page of a multi-page file; WebP; the first frame of a GIF; BMP). The EXIF
+//! orientation tag is honoured (all eight values, as the EXIF 2.32 / CIPA DC-008 Orientation tag
+//! defines them), 16-bit samples are rounded to 8 bits, greyscale is spread to RGB, and alpha is
+//! flattened onto the paper colour. Colour profiles are not applied: pixels are taken as sRGB, and
+//! CMYK is converted by the usual naive formula.
+//!
+//! A file that cannot be used yields an [`ImageFailure`] that says which of the failure classes it
+//! is and why, so that the build can draw a placeholder and list it in the build report.
+
+use std::fmt;
+use std::io::Cursor;
+use std::path::Path;
+
+use image::{DynamicImage, ImageDecoder, ImageError, ImageReader, RgbImage};
+
+use vitrine_format::palette::PAPER;
+/// Default pixel-count limit beyond which an image is refused (a decompression-bomb guard).
+pub const DEFAULT_MAX_PIXELS: u64 = 200_000_000;
+
+/// Why an image could not be used.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum ImageFailure {
+    /// No file was found for the record (or the path does not exist).
+    Missing(String),
+    /// The file exists but could not be read from the disk.
+    Unreadable(String),
+    /// Not an image format Vitrine reads, or a variant of one it does not support.
+    Unsupported(String),
+    /// The file ends before the image does.
+    Truncated(String),
+    /// The data is damaged.
+    Corrupt(String),
+    /// More pixels than the limit allows (a guard against decompression bombs).
+    TooLarge { width: u32, height: u32, limit: u64 },
+}
+
+impl ImageFailure {
+    /// A short name of the failure class, for the build report.
+    pub fn kind(&self) -> &'static str {
+        match self {
+            ImageFailure::Missing(_) => "missing",
+            ImageFailure::Unreadable(_) => "unreadable",
+            ImageFailure::Unsupported(_) => "unsupported",
+            ImageFailure::Truncated(_) => "truncated",
+            ImageFailure::Corrupt(_) => "corrupt",
+            ImageFailure::TooLarge { .. } => "too large",
+        }
+    }
+}
+
+impl fmt::Display for ImageFailure {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            ImageFailure::Missing(why) => write!(f, "missing: {why}"),
+            ImageFailure::Unreadable(why) => write!(f, "cannot read the file: {why}"),
+            ImageFailure::Unsupported(why) => write!(f, "unsupported: {why}"),
+            ImageFailure::Truncated(why) => write!(f, "truncated: {why}"),
+            ImageFailure::Corrupt(why) => write!(f, "corrupt: {why}"),
+            ImageFailure::TooLarge {
+                width,
+                height,
+                limit,
+            } => write!(
+                f,
+                "too large: {width} x {height} pixels is more than the limit of {limit} (--max-pixels)"
+            ),
+        }
+    }
+}
+
+/// An upright 8-bit RGB image and the size of the original, as displayed (after orientation).
+#[derive(Debug)]
+pub struct Decoded {
+    pub rgb: RgbImage,
+    pub width: u32,
+    pub height: u32,
+}
+
+/// Reads one image file's bytes; `Missing` when it does not exist, `Unreadable` otherwise.
+pub fn read_image_file(path: &Path) -> Result<Vec<u8>, ImageFailure> {
+    std::fs::read(path).map_err(|e| match e.kind() {
+        std::io::ErrorKind::NotFound => ImageFailure::Missing("the file does not exist".into()),
+        _ => ImageFailure::Unreadable(e.to_string()),
+    })
+}
+
+/// Reads and decodes one image file.
+pub fn decode_file(path: &Path, max_pixels: u64) -> Result<(Decoded, Vec<u8>), ImageFailure> {
+    let bytes = read_image_file(path)?;
+    let d = decode(&bytes, max_pixels)?;
+    Ok((d, bytes))
+}
+
+/// Decodes an image for thumbnails whose long side is at most `long_side`. A JPEG whose long side
+/// is at least twice that is decoded at a reduced scale in the DCT domain (1/2, 1/4 or 1/8: the
+/// smallest that still gives `long_side` pixels on the long side), which skips most of the inverse
+/// transform and all of the full-size pixels; other images are decoded whole.
+pub fn decode_for(bytes: &[u8], max_pixels: u64, long_side: u32) -> Result<Decoded, ImageFailure> {
+    if let Some(d) = reduced_jpeg(bytes, max_pixels, long_side)? {
+        return Ok(d);
+    }
+    decode(bytes, max_pixels)
+}
+
+/// The reduced-scale JPEG path of [`decode_for`]; `None` when it does not apply (not a JPEG,
+/// not 8-bit RGB or greyscale, or too small to gain).
+fn reduced_jpeg(
+    bytes: &[u8],
+    max_pixels: u64,
+    long_side: u32,
+) -> Result<Option<Decoded>, ImageFailure> {
+    if !bytes.starts_with(&[0xFF, 0xD8, 0xFF]) {
+        return Ok(None);
+    }
+    let mut d = jpeg_decoder::Decoder::new(Cursor::new(bytes));
+    if d.read_info().is_err() {
+        // The general path says what is wrong.
+        return Ok(None);
+    }
+    let Some(info) = d.info() else {
+        return Ok(None);
+    };
+    let (w, h) = (info.width as u32, info.height as u32);
+    let long = w.max(h);
+    let rgb = matches!(
+        info.pixel_format,
+        jpeg_decoder::PixelFormat::RGB24 | jpeg_decoder::PixelFormat::L8
+    );
+    if !rgb || long < 2 * long_side.max(1) || (w as u64) * (h as u64) > max_pixels {
+        return Ok(None);
+    }
+    require_complete_jpeg(bytes)?;
+    let need = |side: u32| ((side as u64 * long_side as u64).div_ceil(long as u64)).max(1) as u16;
+    let (sw, sh) = d
+        .scale(need(w), need(h))
+        .map_err(|e| ImageFailure::Corrupt(e.to_string()))?;
+    let orientation = d
+        .exif_data()
+        .and_then(image::metadata::Orientation::from_exif_chunk)
+        .unwrap_or(image::metadata::Orientation::NoTransforms);
+    let pixels = d.decode().map_err(|e| match e {
+        jpeg_decoder::Error::Io(io) if io.kind() == std::io::ErrorKind::UnexpectedEof => {
+            ImageFailure::Truncated(io.to_string())
+        }
+        jpeg_decoder::Error::Unsupported(u) => ImageFailure::Unsupported(format!("{u:?}")),
+        other => ImageFailure::Corrupt(other.to_string()),
+    })?;
+    let (sw, sh) = (sw as u32, sh as u32);
+    let img = match info.pixel_format {
+        jpeg_decoder::PixelFormat::L8 => {
+            image::GrayImage::from_raw(sw, sh, pixels).map(DynamicImage::ImageLuma8)
+        }
+        _ => RgbImage::from_raw(sw, sh, pixels).map(DynamicImage::ImageRgb8),
+    };
+    let Some(mut img) = img else {
+        return Err(ImageFailure::Corrupt(
+            "the decoded pixels do not fill the image".into(),
+        ));
+    };
+    img.apply_orientation(orientation);
+    let (width, height) = if is_transposing(orientation) {
+        (h, w)
+    } else {
+        (w, h)
+    };
+    Ok(Some(Decoded {
+        rgb: to_rgb8(img),
+        width,
+        height,
+    }))
+}
+
+fn is_transposing(o: image::metadata::Orientation) -> bool {
+    use image::metadata::Orientation::*;
+    matches!(o, Rotate90 | Rotate270 | Rotate90FlipH | Rotate270FlipH)
+}
+
+/// Decodes an image held in memory.
+pub fn decode(bytes: &[u8], max_pixels: u64) -> Result<Decoded, ImageFailure> {
+    if bytes.is_empty() {
+        return Err(ImageFailure::Truncated("the file is empty".into()));
+    }
+    let reader = ImageReader::new(Cursor::new(bytes))
+        .with_guessed_format()
+        .map_err(|e| ImageFailure::Unreadable(e.to_string()))?;
+    let format = reader.format().ok_or_else(|| {
+        ImageFailure::Unsupported(format!(
+            "not an image format Vitrine reads (the file starts with {})",
+            leading_bytes(bytes)
+        ))
+    })?;
+    if format == image::ImageFormat::Jpeg {
+        require_complete_jpeg(bytes)?;
+    }
+    let mut reader = reader;
+    reader.no_limits();
+    let mut decoder = reader.into_decoder().map_err(failure)?;
+    let (w, h) = decoder.dimensions();
+    if (w as u64) * (h as u64) > max_pixels {
+        return Err(ImageFailure::TooLarge {
+            width: w,
+            height: h,
+            limit: max_pixels,
+        });
+    }
+    let orientation = decoder
+        .orientation()
+        .unwrap_or(image::metadata::Orientation::NoTransforms);
+    let mut img = DynamicImage::from_decoder(decoder).map_err(failure)?;
+    img.apply_orientation(orientation);
+    let (width, height) = (img.width(), img.height());
+    Ok(Decoded {
+        rgb: to_rgb8(img),
+        width,
+        height,
+    })
+}
+
+/// The nearest 8-bit value of a 16-bit sample (v / 257, rounded).
+#[inline]
+fn to8(v: u16) -> u8 {
+    ((v as u32 + 128) / 257) as u8
+}
+
+/// 8-bit RGB, alpha flattened onto [`PAPER`] (premultiplied, rounded). The common layouts are
+/// converted here with integer arithmetic; the rest through the `image` crate.
+fn to_rgb8(img: DynamicImage) -> RgbImage {
+    let (w, h) = (img.width(), img.height());
+    let from = |samples: &[u8], per: usize| -> RgbImage {
+        let mut out = Vec::with_capacity(w as usize * h as usize * 3);
+        match per {
+            1 => samples
+                .iter()
+                .for_each(|&v| out.extend_from_slice(&[v, v, v])),
+            _ => out.extend_from_slice(samples),
+        }
+        RgbImage::from_raw(w, h, out).expect("w x h pixels")
+    };
+    match &img {
+        DynamicImage::ImageRgb8(_) => return img.into_rgb8(),
+        DynamicImage::ImageLuma8(g) => return from(g.as_raw(), 1),
+        DynamicImage::ImageLuma16(g) => {
+            let v: Vec<u8> = g.as_raw().iter().map(|&v| to8(v)).collect();
+            return from(&v, 1);
+        }
+        DynamicImage::ImageRgb16(c) => {
+            let v: Vec<u8> = c.as_raw().iter().map(|&v| to8(v)).collect();
+            return from(&v, 3);
+        }
+        _ => {}
+    }
+    if !img.color().has_alpha() {
+        return img.to_rgb8();
+    }
+    let rgba = match &img {
+        DynamicImage::ImageRgba16(c) => {
+            image::RgbaImage::from_raw(w, h, c.as_raw().iter().map(|&v| to8(v)).collect())
+                .expect("w x h pixels")
+        }
+        _ => img.to_rgba8(),
+    };
+    let mut out = RgbImage::new(w, h);
+    for (o, p) in out.pixels_mut().zip(rgba.pixels()) {
+        let a = p[3] as u32;
+        for c in 0..3 {
+            o[c] = ((p[c] as u32 * a + PAPER[c] as u32 * (255 - a) + 127) / 255) as u8;
+        }
+    }
+    out
+}
+
+/// Sorts the decoder's errors into the failure classes.
+fn failure(e: ImageError) -> ImageFailure {
+    let text = e.to_string();
+    let eof = |t: &str| {
+        let t = t.to_lowercase();
+        t.contains("eof") || t.contains("end of file") || t.contains("unexpected end")
+    };
+    match e {
+        ImageError::Unsupported(u) => ImageFailure::Unsupported(u.to_string()),
+        ImageError::Limits(_) => ImageFailure::Unsupported(text),
+        ImageError::IoError(io) if io.kind() == std::io::ErrorKind::UnexpectedEof => {
+            ImageFailure::Truncated(io.to_string())
+        }
+        ImageError::IoError(io) => ImageFailure::Corrupt(io.to_string()),
+        _ if eof(&text) => ImageFailure::Truncated(text),
+        _ => ImageFailure::Corrupt(text),
+    }
+}
+
+/// `Truncated` unless a JPEG stream reaches its end-of-image marker. Inside entropy-coded data a
+/// 0xFF byte is always followed by 0x00 or a restart marker, so an FF D9 after the first
+/// start-of-scan marker is the end of the image (JPEG, ITU-T T.81, B.1.1.5 and F.1.2.3).
+fn require_complete_jpeg(bytes: &[u8]) -> Result<(), ImageFailure> {
+    let complete = bytes
+        .windows(2)
+        .position(|w| w == [0xFF, 0xDA])
+        .is_some_and(|sos| bytes[sos..].windows(2).any(|w| w == [0xFF, 0xD9]));
+    if complete {
+        Ok(())
+    } else {
+        Err(ImageFailure::Truncated(
+            "the JPEG data ends before its end-of-image marker".into(),
+        ))
+    }
+}
+
+fn leading_bytes(bytes: &[u8]) -> String {
+    bytes
+        .iter()
+        .take(8)
+        .map(|b| format!("{b:02x}"))
+        .collect::<Vec<_>>()
+        .join(" ")
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn png(img: &DynamicImage) -> Vec<u8> {
+        let mut out = Vec::new();
+        img.write_to(&mut Cursor::new(&mut out), image::ImageFormat::Png)
+            .unwrap();
+        out
+    }
+
+    fn jpeg(img: &RgbImage) -> Vec<u8> {
+        let mut out = Vec::new();
+        image::codecs::jpeg::JpegEncoder::new_with_quality(&mut out, 90)
+            .encode_image(img)
+            .unwrap();
+        out
+    }
+
+    #[test]
+    fn every_failure_class_is_named() {
+        let good = jpeg(&RgbImage::from_pixel(40, 30, image::Rgb([200, 10, 10])));
+        assert!(decode(&good, DEFAULT_MAX_PIXELS).is_ok());
+        let cut = &good[..good.len() / 2];
+        assert_eq!(
+            decode(cut, DEFAULT_MAX_PIXELS).unwrap_err().kind(),
+            "truncated"
+        );
+        assert_eq!(
+            decode(&[], DEFAULT_MAX_PIXELS).unwrap_err().kind(),
+            "truncated"
+        );
+        let text = b"id,title\n1,not an image\n";
+        let e = decode(text, DEFAULT_MAX_PIXELS).unwrap_err();
+        assert_eq!(e.kind(), "unsupported");
+        assert!(e.to_string().contains("69 64 2c 74"), "{e}");
+        // A PNG with its pixel data overwritten.
+        let mut bad = png(&DynamicImage::ImageRgb8(RgbImage::from_fn(
+            64,
+            64,
+            |x, y| image::Rgb([(x * 4) as u8, (y * 4) as u8, 7]),
+        )));
+        let at = bad.windows(4).position(|w| w == b"IDAT").unwrap() + 8;
+        for b in &mut bad[at..at + 40] {
+            *b = 0x5a;
+        }
+        let e = decode(&bad, DEFAULT_MAX_PIXELS).unwrap_err();
+        assert!(matches!(e.kind(), "corrupt" | "truncated"), "{e}");
+        let e = decode(&good, 40 * 30 - 1).unwrap_err();
+        assert_eq!(
+            e,
+            ImageFailure::TooLarge {
+                width: 40,
+                height: 30,
+                limit: 1199
+            }
+        );
+        let dir = tempfile::tempdir().unwrap();
+        let e = decode_file(&dir.path().join("nothing.jpg"), DEFAULT_MAX_PIXELS).unwrap_err();
+        assert_eq!(e.kind(), "missing");
+    }
+
+    #[test]
+    fn alpha_is_flattened_onto_paper_and_grey_spread_to_rgb() {
+        let clear = DynamicImage::ImageRgba8(image::RgbaImage::from_pixel(
+            3,
+            2,
+            image::Rgba([0, 0, 0, 0]),
+        ));
+        let d = decode(&png(&clear), DEFAULT_MAX_PIXELS).unwrap();
+        assert!(d.rgb.pixels().all(|p| p.0 == PAPER));
+        let half = DynamicImage::ImageRgba8(image::RgbaImage::from_pixel(
+            3,
+            2,
+            image::Rgba([255, 255, 255, 128]),
+        ));
+        let d = decode(&png(&half), DEFAULT_MAX_PIXELS).unwrap();
+        // 255 * 128/255 + paper * 127/255, rounded.
+        let want: Vec<u8> = PAPER
+            .iter()
+            .map(|&p| ((255 * 128 + p as u32 * 127 + 127) / 255) as u8)
+            .collect();
+        assert_eq!(d.rgb.get_pixel(0, 0).0.to_vec(), want);
+        let grey = DynamicImage::ImageLuma16(image::ImageBuffer::from_pixel(
+            2,
+            2,
+            image::Luma([0x8080u16]),
+        ));
+        let d = decode(&png(&grey), DEFAULT_MAX_PIXELS).unwrap();
+        assert_eq!(d.rgb.get_pixel(1, 1).0, [0x80, 0x80, 0x80]);
+        // 16-bit colour, with and without alpha: each sample to its nearest 8-bit value.
+        let samples = [0u16, 128, 129, 385, 386, 32767, 65406, 65535];
+        let want = [0u8, 0, 1, 1, 2, 127, 254, 255];
+        for (&v, &e) in samples.iter().zip(&want) {
+            assert_eq!(
+                ((v as f64) / 257.0).round() as u8,
+                e,
+                "the table itself, {v}"
+            );
+            let c = DynamicImage::ImageRgb16(image::ImageBuffer::from_pixel(
+                2,
+                1,
+                image::Rgb([v, 0, 65535]),
+            ));
+            let d = decode(&png(&c), DEFAULT_MAX_PIXELS).unwrap();
+            assert_eq!(d.rgb.get_pixel(0, 0).0, [e, 0, 255], "{v}");
+            let a = DynamicImage::ImageRgba16(image::ImageBuffer::from_pixel(
+                2,
+                1,
+                image::Rgba([v, v, v, 65535]),
+            ));
+            let d = decode(&png(&a), DEFAULT_MAX_PIXELS).unwrap();
+            assert_eq!(d.rgb.get_pixel(1, 0).0, [e, e, e], "{v}");
+        }
+    }
+}
