@@ -3,8 +3,11 @@
 //!
 //! - ingest: [`vectors`] (.npy), [`catalogue`] (CSV, field kinds inferred), [`dates`] (catalogue
 //!   datings to year ranges), errors that name the file, row or field ([`error`]);
-//! - [`pipeline`]: the build from options to atlas folder, calling the map engine
-//!   (`vitrine-map`) and the image pipeline (`vitrine-images`);
+//! - [`options`] (every setting, checked once), [`ingest`] (inputs read and matched), [`stages`]
+//!   (the computing stages as typed values, calling the map engine `vitrine-map`), [`write`] (the
+//!   atlas written, with `vitrine-images` for the pictures), [`folder`] (the temporary folder and
+//!   the rename into place), [`report`] and [`progress`] (what the build tells);
+//! - [`pipeline`]: the build from options to atlas folder, stage by stage;
 //! - [`read`]: an atlas folder read back (`vitrine inspect`, `vitrine export`, `vitrine corpus`).
 //!
 //! Invariants: nothing here is needed by the viewer; nothing is written at `--out` until the whole
@@ -13,6 +16,13 @@
 pub mod catalogue;
 pub mod dates;
 pub mod error;
+pub mod folder;
+pub mod ingest;
+pub mod options;
 pub mod pipeline;
+pub mod progress;
 pub mod read;
+pub mod report;
+pub mod stages;
 pub mod vectors;
+pub mod write;

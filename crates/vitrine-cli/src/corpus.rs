@@ -5,6 +5,7 @@ use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 
 use anyhow::{bail, Context, Result};
+use clap::Args;
 use vitrine_corpus::columns::{decode_fields, Column};
 use vitrine_corpus::corpus::{
     corpus_mask, describe, AtlasRef, CorpusFile, Lookup, Made, Op, Shape, Step, CORPUS_FORMAT,
@@ -13,31 +14,74 @@ use vitrine_corpus::corpus::{
 use vitrine_corpus::export::{build_record, csv, iiif_manifest, IiifOptions};
 use vitrine_corpus::filter::{DateRule, Filter};
 use vitrine_corpus::polygon::Polygon;
-use vitrine_format::{ArrayRef, AtlasError, MANIFEST_FILE};
+use vitrine_format::ArrayRef;
 
 use vitrine_build::read::Atlas;
 
-/// What to select and where to write it (the CLI's flags).
-#[derive(Default)]
+/// Rebuild a corpus without a browser: from a corpus file (saved in the viewer) and/or a
+/// selection given here, write its catalogue rows (CSV), its corpus file (JSON: the ids and
+/// how they were chosen) and an IIIF Presentation 3 Manifest. The corpus is the selected items
+/// that pass every filter; with nothing selected, every item that passes them.
+#[derive(Args, Default)]
 pub struct CorpusArgs {
+    /// The atlas folder.
+    pub atlas: PathBuf,
+    /// A corpus file to start from (its map, steps and filters; flags below add to them).
+    #[arg(long)]
     pub from: Option<PathBuf>,
+    /// The map the lassos and rectangles are in (default: the corpus file's, else the first).
+    #[arg(long)]
     pub map: Option<String>,
+    /// Add the items inside a lasso, "x1,y1 x2,y2 ..." in map coordinates (even-odd rule for
+    /// outlines that cross themselves). Repeatable.
+    #[arg(long = "lasso", allow_hyphen_values = true)]
     pub lassos: Vec<String>,
+    /// Remove the items inside a lasso (from every item when nothing else is selected). Repeatable.
+    #[arg(long = "subtract-lasso", allow_hyphen_values = true)]
     pub subtract: Vec<String>,
+    /// Add the items inside a rectangle "x0,y0,x1,y1" in map coordinates. Repeatable.
+    #[arg(long = "rect", allow_hyphen_values = true)]
     pub rects: Vec<String>,
+    /// Add items by id, comma-separated.
+    #[arg(long, value_delimiter = ',')]
     pub ids: Vec<String>,
+    /// Keep items whose category FIELD has VALUE: FIELD=VALUE. Repeat for more values of one
+    /// field (any of them) or other fields (all of them).
+    #[arg(long = "filter")]
     pub filters: Vec<String>,
+    /// Keep items whose number FIELD lies in MIN..MAX (either may be left out): FIELD=MIN..MAX.
+    #[arg(long = "range", allow_hyphen_values = true)]
     pub ranges: Vec<String>,
+    /// Keep items dated in FROM..TO years: [FIELD=]FROM..TO (the field may be left out when the
+    /// catalogue has one date field).
+    #[arg(long = "date", allow_hyphen_values = true)]
     pub dates: Vec<String>,
+    /// How --date treats an item's dating range: overlap (shares a year) or within (inside).
+    #[arg(long = "date-rule", default_value = "overlap")]
     pub date_rule: Option<String>,
+    /// Keep items where every word occurs (ignoring case and accents) in --search-in's fields.
+    #[arg(long)]
     pub search: Option<String>,
+    /// The fields --search looks in, comma-separated (default: every text and category field).
+    #[arg(long = "search-in", value_delimiter = ',')]
     pub search_in: Vec<String>,
+    /// Write the corpus's catalogue rows here (CSV, the id column first).
+    #[arg(long)]
     pub csv: Option<PathBuf>,
+    /// Write the corpus file here (JSON: ids, steps, filters, atlas hash, build parameters, time).
+    #[arg(long)]
     pub json: Option<PathBuf>,
+    /// Write an IIIF Presentation 3 Manifest here, one Canvas per item.
+    #[arg(long)]
     pub iiif: Option<PathBuf>,
+    /// Where the IIIF Manifest will be published (its ids are made under this address).
+    #[arg(long = "base-url")]
     pub base_url: Option<String>,
+    /// Replace output files that exist.
+    #[arg(long)]
     pub force: bool,
     /// The time to record (RFC 3339); the clock's when None.
+    #[arg(skip)]
     pub time: Option<String>,
 }
 
@@ -221,7 +265,8 @@ fn steps_from_args(a: &CorpusArgs, before: bool) -> Result<Vec<Step>> {
     Ok(steps)
 }
 
-fn check_output(p: &Path, flag: &str, atlas_dir: &Path, force: bool) -> Result<()> {
+/// Refuses an output file inside the atlas folder, or one that exists unless `force`.
+pub fn check_output(p: &Path, flag: &str, atlas_dir: &Path, force: bool) -> Result<()> {
     let parent = p
         .parent()
         .filter(|p| !p.as_os_str().is_empty())
@@ -243,7 +288,22 @@ fn check_output(p: &Path, flag: &str, atlas_dir: &Path, force: bool) -> Result<(
     Ok(())
 }
 
-pub fn run(atlas_dir: &Path, a: &CorpusArgs) -> Result<CorpusReport> {
+/// Runs `vitrine corpus` and prints what it found and wrote.
+pub fn run(a: CorpusArgs) -> Result<()> {
+    let r = corpus(&a)?;
+    println!("{} items: {}", r.count, r.description);
+    for p in &r.written {
+        eprintln!("wrote {}", p.display());
+    }
+    for n in &r.notes {
+        eprintln!("note: {n}");
+    }
+    Ok(())
+}
+
+/// Makes the corpus `a` describes and writes the files it asks for.
+pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
+    let atlas_dir = a.atlas.as_path();
     let atlas = Atlas::open(atlas_dir)?;
     let m = &atlas.manifest;
     let n = m.item_count as usize;
@@ -255,8 +315,7 @@ pub fn run(atlas_dir: &Path, a: &CorpusArgs) -> Result<CorpusReport> {
             check_output(p, flag, atlas_dir, a.force)?;
         }
     }
-    let manifest_bytes = std::fs::read(atlas_dir.join(MANIFEST_FILE))?;
-    let manifest_sha = vitrine_format::sha256_hex(&manifest_bytes);
+    let manifest_sha = atlas.manifest_sha.clone();
     let mut notes = Vec::new();
 
     let from = match &a.from {
@@ -330,30 +389,10 @@ pub fn run(atlas_dir: &Path, a: &CorpusArgs) -> Result<CorpusReport> {
         wanted.push(&s.extents);
         wanted.extend(s.image_sizes.as_ref());
     }
-    let mut files: HashMap<String, Vec<u8>> = HashMap::new();
-    for r in wanted {
-        if !files.contains_key(&r.file) {
-            let bytes = std::fs::read(atlas_dir.join(&r.file))
-                .with_context(|| format!("reading {}", r.file))?;
-            files.insert(r.file.clone(), bytes);
-        }
-    }
-    let get = |r: &ArrayRef| -> Result<&[u8], AtlasError> {
-        files
-            .get(&r.file)
-            .map(|v| v.as_slice())
-            .ok_or_else(|| AtlasError::Inconsistent(format!("{} was not read", r.file)))
-    };
-    let flat: Vec<f32> = map.positions.decode(get(&map.positions)?)?;
-    let positions: Vec<[f32; 2]> = flat.chunks_exact(2).map(|c| [c[0], c[1]]).collect();
-    let ids = vitrine_format::decode_text(
-        &m.ids,
-        get(&m.ids)?,
-        &m.ids_text,
-        get(&m.ids_text)?,
-        m.item_count,
-    )?;
-    let cols = decode_fields(m, get)?;
+    let files = atlas.load(wanted)?;
+    let positions = files.positions(map)?;
+    let ids = files.ids(m)?;
+    let cols = decode_fields(m, &files)?;
     let index: HashMap<&str, usize> = (0..n).map(|i| (ids.get(i), i)).collect();
     let index_of = |id: &str| index.get(id).copied();
     let at = Lookup {
@@ -432,19 +471,8 @@ pub fn run(atlas_dir: &Path, a: &CorpusArgs) -> Result<CorpusReport> {
                 b
             }
         };
-        let extents: Vec<(u16, u16)> = match &m.sheets {
-            Some(s) => s
-                .extents
-                .decode::<u32>(get(&s.extents)?)?
-                .into_iter()
-                .map(vitrine_format::unpack_extent)
-                .collect(),
-            None => vec![],
-        };
-        let sizes: Option<Vec<u32>> = match m.sheets.as_ref().and_then(|s| s.image_sizes.as_ref()) {
-            Some(r) => Some(r.decode(get(r)?)?),
-            None => None,
-        };
+        let extents = files.extents(m)?.unwrap_or_default();
+        let sizes = files.image_sizes(m)?;
         let summary = format!("{} items of {}: {description}", items.len(), m.title);
         let o = IiifOptions {
             base: &base,

@@ -1,8 +1,15 @@
-//! The `vitrine` command's library: one module per command, each taking options already checked
-//! and typed, and the small HTTP server of `vitrine serve`. `main.rs` only parses the flags.
+//! The `vitrine` command's library: one module per command, each with its flags (documented
+//! there, the one place) converted once into the typed options of the library that does the
+//! work; the small HTTP server of `vitrine serve`; the terminal's progress bars. `main.rs` only
+//! parses the flags and dispatches.
 
+pub mod build;
 pub mod corpus;
+pub mod export;
 pub mod http;
+pub mod inspect;
+pub mod progress;
+pub mod serve;
 
 /// Tells the allocator (mimalloc, the binaries' global allocator) to keep freed memory for reuse
 /// instead of returning it to the system a few milliseconds later: the map engine frees and

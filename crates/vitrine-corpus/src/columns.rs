@@ -1,6 +1,6 @@
 //! The catalogue columns of an atlas, decoded: what filters read and exports write.
 
-use vitrine_format::{ArrayRef, AtlasError, Field, FieldKind, Manifest, TextTable};
+use vitrine_format::{ArrayRef, AtlasError, AtlasFiles, Field, FieldKind, Manifest, TextTable};
 
 pub enum Column {
     Category(Vec<u32>),
@@ -81,27 +81,22 @@ impl FieldColumn {
     }
 }
 
-/// Decodes every catalogue field of `m`, reading array bytes through `get`.
-pub fn decode_fields<'a>(
-    m: &Manifest,
-    get: impl Fn(&ArrayRef) -> Result<&'a [u8], AtlasError>,
-) -> Result<Vec<FieldColumn>, AtlasError> {
-    let text = |a: &ArrayRef, b: &ArrayRef| -> Result<TextTable, AtlasError> {
-        vitrine_format::decode_text(a, get(a)?, b, get(b)?, m.item_count)
-    };
+/// Decodes every catalogue field of `m` from its array files.
+pub fn decode_fields(m: &Manifest, files: &AtlasFiles) -> Result<Vec<FieldColumn>, AtlasError> {
+    let text = |a: &ArrayRef, b: &ArrayRef| files.text(a, b, m.item_count);
     let missing = |f: &Field, what: &str| {
         AtlasError::Inconsistent(format!("field {} has no {what} column", f.name))
     };
     let mut fields = Vec::new();
     for f in &m.fields {
         let column = match f.kind {
-            FieldKind::Category => Column::Category(f.column.decode(get(&f.column)?)?),
-            FieldKind::Number => Column::Number(f.column.decode(get(&f.column)?)?),
+            FieldKind::Category => Column::Category(files.array(&f.column)?),
+            FieldKind::Number => Column::Number(files.array(&f.column)?),
             FieldKind::Date => {
                 let end = f.column2.as_ref().ok_or_else(|| missing(f, "end-year"))?;
                 Column::Date {
-                    start: f.column.decode(get(&f.column)?)?,
-                    end: end.decode(get(end)?)?,
+                    start: files.array(&f.column)?,
+                    end: files.array(end)?,
                 }
             }
             FieldKind::Text | FieldKind::Link => {

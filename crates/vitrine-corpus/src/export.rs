@@ -6,12 +6,25 @@ use vitrine_format::{FieldKind, Manifest, TextTable};
 use crate::columns::{Column, FieldColumn};
 
 /// A CSV field (RFC 4180): quoted when it holds a comma, a quote, a line break or outer spaces.
-fn csv_field(s: &str) -> String {
+/// One CSV field (RFC 4180): quoted when it holds a comma, a quote, a line break or outer spaces.
+/// The one quoting rule of every CSV the product writes.
+pub fn csv_field(s: &str) -> String {
     if s.contains([',', '"', '\n', '\r']) || s.starts_with(' ') || s.ends_with(' ') {
         format!("\"{}\"", s.replace('"', "\"\""))
     } else {
         s.to_string()
     }
+}
+
+/// Appends one CSV record (RFC 4180: fields quoted by [`csv_field`], CRLF at the end).
+pub fn csv_row<'a>(out: &mut String, fields: impl Iterator<Item = &'a str>) {
+    for (k, f) in fields.enumerate() {
+        if k > 0 {
+            out.push(',');
+        }
+        out.push_str(&csv_field(f));
+    }
+    out.push_str("\r\n");
 }
 
 /// The name of the catalogue's id column, as the build recorded it ("id" when it did not).
@@ -28,15 +41,17 @@ pub fn id_column(m: &Manifest) -> String {
 /// wrote it, one row per item, CRLF line ends (RFC 4180).
 pub fn csv(m: &Manifest, ids: &TextTable, cols: &[FieldColumn], items: &[usize]) -> String {
     let mut out = String::new();
-    let mut head = vec![csv_field(&id_column(m))];
-    head.extend(cols.iter().map(|c| csv_field(&c.field.name)));
-    out.push_str(&head.join(","));
-    out.push_str("\r\n");
+    let id = id_column(m);
+    csv_row(
+        &mut out,
+        std::iter::once(id.as_str()).chain(cols.iter().map(|c| c.field.name.as_str())),
+    );
     for &i in items {
-        let mut row = vec![csv_field(ids.get(i))];
-        row.extend(cols.iter().map(|c| csv_field(&c.text(i))));
-        out.push_str(&row.join(","));
-        out.push_str("\r\n");
+        let texts: Vec<String> = cols.iter().map(|c| c.text(i)).collect();
+        csv_row(
+            &mut out,
+            std::iter::once(ids.get(i)).chain(texts.iter().map(String::as_str)),
+        );
     }
     out
 }

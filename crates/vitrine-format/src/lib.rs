@@ -14,8 +14,11 @@
 use serde::{Deserialize, Serialize};
 use sha2::{Digest, Sha256};
 
+mod files;
 pub mod npy;
 pub mod palette;
+
+pub use files::AtlasFiles;
 
 /// The format version this crate writes and reads.
 pub const FORMAT_VERSION: u32 = 2;
@@ -396,6 +399,20 @@ pub struct NeighbourChunk {
 pub const NEIGHBOUR_CHUNK_ITEMS: u32 = 16_384;
 
 impl Neighbours {
+    /// How the graph was made, in words: "15 nearest, cosine distance, exact search".
+    pub fn describe(&self) -> String {
+        format!(
+            "{} nearest, {} distance, {}",
+            self.k,
+            self.metric,
+            if self.exact {
+                "exact search"
+            } else {
+                "approximate (NN-descent)"
+            }
+        )
+    }
+
     /// The chunk holding item `i`'s list.
     pub fn chunk_of(&self, i: usize) -> usize {
         i / self.chunk_items.max(1) as usize

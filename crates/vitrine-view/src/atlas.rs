@@ -1,9 +1,7 @@
 //! The atlas as the viewer holds it: checked arrays decoded into plain vectors.
 
-use std::collections::HashMap;
-
 pub use vitrine_corpus::columns::{Column, FieldColumn};
-use vitrine_format::{AtlasError, FieldKind, Manifest, TextTable};
+use vitrine_format::{AtlasError, AtlasFiles, FieldKind, Manifest, TextTable};
 
 /// One map of the atlas, decoded.
 pub struct MapView {
@@ -40,20 +38,6 @@ pub struct AtlasData {
     pub catalogue: bool,
     /// The original images' widths and heights (pairs per item; 0, 0 unknown), with the catalogue.
     pub image_sizes: Vec<u32>,
-}
-
-fn get_file<'a>(
-    files: &'a HashMap<String, Vec<u8>>,
-    r: &vitrine_format::ArrayRef,
-) -> Result<&'a [u8], AtlasError> {
-    files
-        .get(&r.file)
-        .map(|v| v.as_slice())
-        .ok_or_else(|| AtlasError::WrongLength {
-            file: r.file.clone(),
-            expected: r.bytes,
-            found: 0,
-        })
 }
 
 /// One line of a record card.
@@ -215,19 +199,14 @@ impl AtlasData {
 
     /// The atlas from its manifest and fetched array files: at least the [`AtlasData::first_files`];
     /// when the [`AtlasData::later_files`] are there too, the catalogue is decoded as well.
-    pub fn from_parts(
-        manifest: Manifest,
-        files: &HashMap<String, Vec<u8>>,
-    ) -> Result<AtlasData, AtlasError> {
-        let get = |r: &vitrine_format::ArrayRef| get_file(files, r);
+    pub fn from_parts(manifest: Manifest, files: &AtlasFiles) -> Result<AtlasData, AtlasError> {
         let n = manifest.item_count as usize;
         if manifest.maps.is_empty() {
             return Err(AtlasError::Inconsistent("the atlas has no map".into()));
         }
         let mut maps = Vec::new();
         for map in &manifest.maps {
-            let flat: Vec<f32> = map.positions.decode(get(&map.positions)?)?;
-            let positions: Vec<[f32; 2]> = flat.chunks_exact(2).map(|c| [c[0], c[1]]).collect();
+            let positions = files.positions(map)?;
             let w = (map.bounds[2] - map.bounds[0]).max(1e-6) as f64;
             let h = (map.bounds[3] - map.bounds[1]).max(1e-6) as f64;
             // Without two distinct positions, fall back to the side each item would have if items covered half the map.
@@ -242,27 +221,12 @@ impl AtlasData {
                 axis: map.x_axis.clone(),
             });
         }
-        let colours: Vec<u8> = manifest.colours.decode(get(&manifest.colours)?)?;
-        let colours = colours
-            .chunks_exact(4)
-            .map(|c| [c[0], c[1], c[2], c[3]])
-            .collect();
-        let extents = match &manifest.sheets {
-            Some(s) => s
-                .extents
-                .decode::<u32>(get(&s.extents)?)?
-                .into_iter()
-                .map(vitrine_format::unpack_extent)
-                .collect(),
-            None => vec![(0, 0); n],
-        };
-        let clusters = match &manifest.clusters {
-            Some(c) => c.ids.decode::<u32>(get(&c.ids)?)?,
-            None => vec![],
-        };
+        let colours = files.colours(&manifest)?;
+        let extents = files.extents(&manifest)?.unwrap_or_else(|| vec![(0, 0); n]);
+        let clusters = files.clusters(&manifest)?.unwrap_or_default();
         let later = Self::later_files(&manifest)
             .iter()
-            .all(|(f, _)| files.contains_key(f));
+            .all(|(f, _)| files.contains(f));
         let mut atlas = AtlasData {
             clusters,
             spacing: maps[0].spacing,
@@ -287,20 +251,11 @@ impl AtlasData {
     }
 
     /// Adds the ids and catalogue columns from the [`AtlasData::later_files`].
-    pub fn complete(&mut self, files: &HashMap<String, Vec<u8>>) -> Result<(), AtlasError> {
-        let get = |r: &vitrine_format::ArrayRef| get_file(files, r);
+    pub fn complete(&mut self, files: &AtlasFiles) -> Result<(), AtlasError> {
         let m = &self.manifest;
-        let text = |a: &vitrine_format::ArrayRef,
-                    b: &vitrine_format::ArrayRef|
-         -> Result<TextTable, AtlasError> {
-            vitrine_format::decode_text(a, get(a)?, b, get(b)?, m.item_count)
-        };
-        let ids = text(&m.ids, &m.ids_text)?;
-        let fields = vitrine_corpus::columns::decode_fields(m, get)?;
-        let image_sizes = match m.sheets.as_ref().and_then(|s| s.image_sizes.as_ref()) {
-            Some(r) => r.decode(get(r)?)?,
-            None => Vec::new(),
-        };
+        let ids = files.ids(m)?;
+        let fields = vitrine_corpus::columns::decode_fields(m, files)?;
+        let image_sizes = files.image_sizes(m)?.unwrap_or_default();
         self.image_sizes = image_sizes;
         self.ids = ids;
         self.fields = fields;
@@ -385,19 +340,7 @@ pub fn about(m: &Manifest) -> Vec<(String, Vec<(String, String)>)> {
     for l in &m.maps {
         general.push((format!("{} map", l.name), l.description.clone()));
     }
-    general.push((
-        "neighbour graph".into(),
-        format!(
-            "{} nearest, {} distance, {}",
-            m.neighbours.k,
-            m.neighbours.metric,
-            if m.neighbours.exact {
-                "exact search"
-            } else {
-                "approximate (NN-descent)"
-            }
-        ),
-    ));
+    general.push(("neighbour graph".into(), m.neighbours.describe()));
     out.push(("This map".to_string(), general));
     let names: &[(&str, &str)] = &[
         (

@@ -178,7 +178,7 @@ async fn fetch_bytes(url: &str) -> Result<Vec<u8>, String> {
 async fn fetch_many(
     base: &str,
     files: &[(String, u64)],
-) -> Result<HashMap<String, Vec<u8>>, String> {
+) -> Result<vitrine_format::AtlasFiles, String> {
     fetched_many(start_fetches(base, files)?, files).await
 }
 
@@ -204,14 +204,14 @@ fn start_fetches(base: &str, files: &[(String, u64)]) -> Result<js_sys::Promise,
 async fn fetched_many(
     all: js_sys::Promise,
     files: &[(String, u64)],
-) -> Result<HashMap<String, Vec<u8>>, String> {
+) -> Result<vitrine_format::AtlasFiles, String> {
     let bodies = JsFuture::from(all).await.map_err(|e| {
         e.dyn_ref::<js_sys::Error>()
             .map(|e| String::from(e.message()))
             .unwrap_or_else(|| format!("{e:?}"))
     })?;
     let bodies = js_sys::Array::from(&bodies);
-    let mut got = HashMap::new();
+    let mut got = vitrine_format::AtlasFiles::new();
     for (i, (file, _)) in files.iter().enumerate() {
         got.insert(
             file.clone(),

@@ -9,7 +9,7 @@
 
 use std::path::{Path, PathBuf};
 
-use vitrine_build::pipeline::{build, BuildOptions};
+use vitrine_build::pipeline::{build, BuildOptions, Silent};
 use vitrine_format::Manifest;
 use vitrine_test_support::write_npy_f32;
 use vitrine_view::atlas::AtlasData;
@@ -49,14 +49,12 @@ fn atlas(dir: &Path) -> AtlasData {
     write_npy_f32(&dir.join("v.npy"), N, 4, &data).unwrap();
     let mut o = BuildOptions::new(dir.join("v.npy"), dir.join("atlas"));
     o.epochs = Some(10);
-    o.quiet = true;
-    build(&o).unwrap();
-    let a = dir.join("atlas");
-    let m = Manifest::from_json(&std::fs::read_to_string(a.join("atlas.json")).unwrap()).unwrap();
-    let files = AtlasData::files(&m)
-        .into_iter()
-        .map(|(f, _)| (f.clone(), std::fs::read(a.join(&f)).unwrap()))
-        .collect();
+    build(&o, &Silent).unwrap();
+    let on_disk = vitrine_build::read::Atlas::open(&dir.join("atlas")).unwrap();
+    let m = on_disk.manifest.clone();
+    let files = on_disk
+        .load_files(AtlasData::files(&m).iter().map(|(f, _)| f.as_str()))
+        .unwrap();
     let mut atlas = AtlasData::from_parts(m, &files).unwrap();
     atlas.positions = (0..N)
         .map(|i| {

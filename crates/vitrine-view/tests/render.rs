@@ -1,10 +1,9 @@
 //! The frame raster on a real atlas written by `vitrine build`: marks when zoomed out, the right
 //! thumbnails when zoomed in, fallbacks while sheets load, and the hover outline.
 
-use std::collections::HashMap;
 use std::path::Path;
 
-use vitrine_build::pipeline::{build, BuildOptions};
+use vitrine_build::pipeline::{build, BuildOptions, Silent};
 use vitrine_format::Manifest;
 use vitrine_test_support::write_npy_f32;
 use vitrine_view::atlas::AtlasData;
@@ -31,14 +30,12 @@ fn fixture(dir: &Path) -> AtlasData {
     o.sheet_size = 256;
     o.cells = vec![32, 128];
     o.epochs = Some(50);
-    o.quiet = true;
-    build(&o).unwrap();
-    let a = dir.join("atlas");
-    let m = Manifest::from_json(&std::fs::read_to_string(a.join("atlas.json")).unwrap()).unwrap();
-    let files: HashMap<String, Vec<u8>> = AtlasData::files(&m)
-        .into_iter()
-        .map(|(f, _)| (f.clone(), std::fs::read(a.join(&f)).unwrap()))
-        .collect();
+    build(&o, &Silent).unwrap();
+    let on_disk = vitrine_build::read::Atlas::open(&dir.join("atlas")).unwrap();
+    let m = on_disk.manifest.clone();
+    let files = on_disk
+        .load_files(AtlasData::files(&m).iter().map(|(f, _)| f.as_str()))
+        .unwrap();
     AtlasData::from_parts(m, &files).unwrap()
 }
 
@@ -245,10 +242,11 @@ fn the_first_picture_needs_only_the_first_files_and_the_catalogue_follows() {
     let full = fixture(dir.path());
     let a = dir.path().join("atlas");
     let m = Manifest::from_json(&std::fs::read_to_string(a.join("atlas.json")).unwrap()).unwrap();
-    let read = |list: Vec<(String, u64)>| -> HashMap<String, Vec<u8>> {
-        list.into_iter()
-            .map(|(f, _)| (f.clone(), std::fs::read(a.join(&f)).unwrap()))
-            .collect()
+    let on_disk = vitrine_build::read::Atlas::open(&a).unwrap();
+    let read = |list: Vec<(String, u64)>| {
+        on_disk
+            .load_files(list.iter().map(|(f, _)| f.as_str()))
+            .unwrap()
     };
     let (first, later) = (AtlasData::first_files(&m), AtlasData::later_files(&m));
     // The two lists split every array file of the atlas between them.

@@ -1,9 +1,7 @@
-//! Native cost of the frame raster on a built atlas: `cargo run --release -p vitrine-view --example
-//! frame_cost ATLAS_DIR` prints the median milliseconds of a fitted frame and of zoomed-in frames at
+//! Native cost of the frame raster on a built atlas: `cargo run --release -p vitrine-bench --bin
+//! frame-cost ATLAS_DIR` prints the median milliseconds of a fitted frame and of zoomed-in frames at
 //! 1280 x 800 (marks only: no sheets are loaded).
-use std::collections::HashMap;
-
-use vitrine_format::Manifest;
+use vitrine_build::read::Atlas;
 use vitrine_view::atlas::AtlasData;
 use vitrine_view::camera::Camera;
 use vitrine_view::grid::Grid;
@@ -11,11 +9,12 @@ use vitrine_view::raster::{draw, Scene, SheetStore, READING_ROOM};
 
 fn main() {
     let dir = std::path::PathBuf::from(std::env::args().nth(1).expect("an atlas folder"));
-    let m = Manifest::from_json(&std::fs::read_to_string(dir.join("atlas.json")).unwrap()).unwrap();
-    let files: HashMap<String, Vec<u8>> = AtlasData::first_files(&m)
-        .into_iter()
-        .map(|(f, _)| (f.clone(), std::fs::read(dir.join(&f)).unwrap()))
-        .collect();
+    let on_disk = Atlas::open(&dir).unwrap();
+    let m = on_disk.manifest.clone();
+    let first = AtlasData::first_files(&m);
+    let files = on_disk
+        .load_files(first.iter().map(|(f, _)| f.as_str()))
+        .unwrap();
     let atlas = AtlasData::from_parts(m.clone(), &files).unwrap();
     let sheets = SheetStore::from_manifest(&m);
     let grid = Grid::new(&atlas.positions, atlas.bounds, 16);

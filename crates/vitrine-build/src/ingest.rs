@@ -1,0 +1,362 @@
+//! The user's files read, matched and checked before any computing: vectors, their ids, the
+//! catalogue, each item's image file. Every error names the file and the row, id or field.
+
+use std::collections::HashMap;
+use std::path::{Path, PathBuf};
+
+use anyhow::{bail, Result};
+use vitrine_format::YearRange;
+use vitrine_map::matrix::Matrix;
+
+use crate::catalogue::{self, Catalogue};
+use crate::error::{id_list, InputError};
+use crate::options::BuildOptions;
+use crate::progress::Progress;
+use crate::report::Laps;
+
+pub const IMAGE_EXTENSIONS: &[&str] = &["jpg", "jpeg", "png", "tif", "tiff", "webp", "gif", "bmp"];
+
+/// The user's files but the vectors, read, matched and checked.
+pub struct Inputs {
+    pub catalogue: Option<Catalogue>,
+    pub items: Items,
+    /// Each item's image file, or why it has none (None: the build has no --images).
+    pub image_paths: Option<Vec<Result<PathBuf, String>>>,
+}
+
+/// Reads and checks every input of `opts`: the vectors, one row an item, and the rest (the lap
+/// "read inputs" ends once they are matched).
+pub fn read(
+    opts: &BuildOptions,
+    progress: &dyn Progress,
+    laps: &mut Laps,
+) -> Result<(Matrix, Inputs)> {
+    let vectors = crate::vectors::read_vectors(&opts.vectors)?;
+    progress.note(&format!(
+        "vectors: {} x {} from {}",
+        vectors.rows,
+        vectors.cols,
+        opts.vectors.display()
+    ));
+    let cat = match &opts.catalogue {
+        Some(p) => {
+            let c = catalogue::read_csv(p, &opts.id_column)?;
+            progress.note(&format!(
+                "catalogue: {} records, {} columns from {}",
+                c.rows.len(),
+                c.header.len(),
+                p.display()
+            ));
+            Some(c)
+        }
+        None => None,
+    };
+    let items = match_items(&vectors, opts, cat.as_ref())?;
+    laps.lap("read inputs");
+    check_finite(&vectors, &items.ids, &opts.vectors)?;
+    if vectors.rows == 0 {
+        bail!("{}: there are no vectors", opts.vectors.display());
+    }
+    let image_paths = match &opts.images {
+        Some(dir) => Some(find_images(
+            dir,
+            &items.ids,
+            cat.as_ref(),
+            items.catalogue_rows.as_deref(),
+            opts.image_column.as_deref(),
+        )?),
+        None => None,
+    };
+    Ok((
+        vectors,
+        Inputs {
+            catalogue: cat,
+            items,
+            image_paths,
+        },
+    ))
+}
+
+impl Inputs {
+    /// The catalogue date field that orders the timeline map: `--date-field`, else the first
+    /// column read as dates; with each item's dating. None when there is no catalogue or no date field.
+    pub fn datings(
+        &self,
+        date_field: Option<&str>,
+    ) -> Result<Option<(String, Vec<Option<YearRange>>)>, InputError> {
+        let (Some(cat), Some(rows)) = (&self.catalogue, &self.items.catalogue_rows) else {
+            return Ok(None);
+        };
+        let chosen = match date_field {
+            Some(name) => Some(cat.column(name).ok_or_else(|| {
+                InputError::Usage(format!(
+                    "--date-field {name:?}: the catalogue has no such column"
+                ))
+            })?),
+            None => (0..cat.header.len())
+                .filter(|&c| c != cat.id_column)
+                .find(|&c| {
+                    let values: Vec<&str> = rows.iter().map(|&r| cat.rows[r][c].as_str()).collect();
+                    catalogue::infer_kind(&cat.header[c], &values)
+                        == vitrine_format::FieldKind::Date
+                }),
+        };
+        Ok(chosen.map(|c| {
+            let ranges = rows
+                .iter()
+                .map(|&r| crate::dates::parse_date(&cat.rows[r][c]))
+                .collect();
+            (cat.header[c].clone(), ranges)
+        }))
+    }
+}
+
+/// Items as the build sees them: vector rows, their ids and their catalogue rows.
+pub struct Items {
+    pub ids: Vec<String>,
+    /// Catalogue row for each vector row.
+    pub catalogue_rows: Option<Vec<usize>>,
+}
+
+fn read_id_list(path: &Path) -> Result<Vec<String>, InputError> {
+    let text = std::fs::read_to_string(path).map_err(|e| InputError::io(path, e))?;
+    let text = text.strip_prefix('\u{feff}').unwrap_or(&text);
+    let ids: Vec<String> = text.lines().map(|l| l.trim().to_string()).collect();
+    let ids: Vec<String> = match ids.iter().rposition(|l| !l.is_empty()) {
+        Some(last) => ids[..=last].to_vec(),
+        None => vec![],
+    };
+    let mut seen = HashMap::new();
+    for (i, id) in ids.iter().enumerate() {
+        if id.is_empty() {
+            return Err(InputError::Vectors {
+                file: path.display().to_string(),
+                reason: format!("line {} is an empty id", i + 1),
+            });
+        }
+        if let Some(j) = seen.insert(id.clone(), i) {
+            return Err(InputError::Vectors {
+                file: path.display().to_string(),
+                reason: format!(
+                    "the id {id:?} appears twice (lines {} and {})",
+                    j + 1,
+                    i + 1
+                ),
+            });
+        }
+    }
+    Ok(ids)
+}
+
+fn match_items(
+    vectors: &Matrix,
+    opts: &BuildOptions,
+    cat: Option<&Catalogue>,
+) -> Result<Items, InputError> {
+    let vfile = opts.vectors.display().to_string();
+    let vector_ids = match &opts.vector_ids {
+        Some(p) => {
+            let ids = read_id_list(p)?;
+            if ids.len() != vectors.rows {
+                return Err(InputError::Matching(format!(
+                    "{} lists {} ids but {vfile} has {} rows",
+                    p.display(),
+                    ids.len(),
+                    vectors.rows
+                )));
+            }
+            Some(ids)
+        }
+        None => None,
+    };
+    let Some(cat) = cat else {
+        let ids = vector_ids.unwrap_or_else(|| (0..vectors.rows).map(|i| i.to_string()).collect());
+        return Ok(Items {
+            ids,
+            catalogue_rows: None,
+        });
+    };
+    match vector_ids {
+        Some(vids) => {
+            let by_id: HashMap<&str, usize> =
+                cat.ids().enumerate().map(|(i, id)| (id, i)).collect();
+            let vset: std::collections::HashSet<&str> = vids.iter().map(String::as_str).collect();
+            let no_vector: Vec<String> = cat
+                .ids()
+                .filter(|id| !vset.contains(id))
+                .map(String::from)
+                .collect();
+            let no_record: Vec<String> = vids
+                .iter()
+                .filter(|id| !by_id.contains_key(id.as_str()))
+                .cloned()
+                .collect();
+            let mut msg = Vec::new();
+            if !no_vector.is_empty() {
+                msg.push(format!(
+                    "{} catalogue record(s) in {} have no vector: {}",
+                    no_vector.len(),
+                    cat.file,
+                    id_list(&no_vector)
+                ));
+            }
+            if !no_record.is_empty() {
+                msg.push(format!(
+                    "{} vector(s) in {vfile} have no catalogue record: {}",
+                    no_record.len(),
+                    id_list(&no_record)
+                ));
+            }
+            if !msg.is_empty() {
+                return Err(InputError::Matching(msg.join("\n")));
+            }
+            let rows = vids.iter().map(|id| by_id[id.as_str()]).collect();
+            Ok(Items {
+                ids: vids,
+                catalogue_rows: Some(rows),
+            })
+        }
+        None => {
+            let ids: Vec<String> = cat.ids().map(String::from).collect();
+            if ids.len() != vectors.rows {
+                let detail = if ids.len() > vectors.rows {
+                    format!(
+                        "catalogue record(s) with no vector: {}",
+                        id_list(&ids[vectors.rows..])
+                    )
+                } else {
+                    format!(
+                        "vector rows {}..{} have no catalogue record",
+                        ids.len(),
+                        vectors.rows - 1
+                    )
+                };
+                return Err(InputError::Matching(format!(
+                    "{} has {} records but {vfile} has {} rows; without --vector-ids they are matched in order. {detail}",
+                    cat.file,
+                    ids.len(),
+                    vectors.rows
+                )));
+            }
+            Ok(Items {
+                ids,
+                catalogue_rows: Some((0..vectors.rows).collect()),
+            })
+        }
+    }
+}
+
+fn check_finite(vectors: &Matrix, ids: &[String], file: &Path) -> Result<(), InputError> {
+    let bad: Vec<String> = (0..vectors.rows)
+        .filter(|&i| vectors.row(i).iter().any(|x| !x.is_finite()))
+        .map(|i| format!("row {i} (id {})", ids[i]))
+        .collect();
+    if bad.is_empty() {
+        return Ok(());
+    }
+    Err(InputError::Vectors {
+        file: file.display().to_string(),
+        reason: format!(
+            "{} row(s) hold NaN or infinite values: {}",
+            bad.len(),
+            id_list(&bad)
+        ),
+    })
+}
+
+/// Finds each item's image: the image column's relative path, or a file named id + an image extension.
+fn find_images(
+    dir: &Path,
+    ids: &[String],
+    cat: Option<&Catalogue>,
+    cat_rows: Option<&[usize]>,
+    image_column: Option<&str>,
+) -> Result<Vec<Result<PathBuf, String>>, InputError> {
+    if !dir.is_dir() {
+        return Err(InputError::Usage(format!(
+            "--images {}: not a folder",
+            dir.display()
+        )));
+    }
+    let column = match (cat, image_column) {
+        (Some(c), Some(name)) => Some(c.column(name).ok_or_else(|| {
+            InputError::Usage(format!(
+                "--image-column {name:?}: the catalogue has no such column"
+            ))
+        })?),
+        (Some(c), None) => ["image", "image_path", "file", "filename"]
+            .iter()
+            .find_map(|n| c.column(n)),
+        (None, Some(_)) => {
+            return Err(InputError::Usage("--image-column needs --catalogue".into()))
+        }
+        (None, None) => None,
+    };
+    let mut by_stem: HashMap<String, PathBuf> = HashMap::new();
+    if column.is_none() {
+        for entry in walk(dir) {
+            let ext = entry
+                .extension()
+                .and_then(|e| e.to_str())
+                .map(|e| e.to_lowercase())
+                .unwrap_or_default();
+            if IMAGE_EXTENSIONS.contains(&ext.as_str()) {
+                if let Some(stem) = entry.file_stem().and_then(|s| s.to_str()) {
+                    by_stem.entry(stem.to_string()).or_insert(entry.clone());
+                }
+            }
+        }
+    }
+    Ok(ids
+        .iter()
+        .enumerate()
+        .map(|(i, id)| match (column, cat, cat_rows) {
+            (Some(c), Some(cat), Some(rows)) => {
+                let rel = cat.rows[rows[i]][c].trim();
+                if rel.is_empty() {
+                    return Err(format!(
+                        "the catalogue's {:?} field is empty",
+                        cat.header[c]
+                    ));
+                }
+                let inside = Path::new(rel).components().all(|p| {
+                    matches!(
+                        p,
+                        std::path::Component::Normal(_) | std::path::Component::CurDir
+                    )
+                });
+                if !inside {
+                    return Err(format!(
+                        "the path {rel:?} leads outside the --images folder; it was not read"
+                    ));
+                }
+                Ok(dir.join(rel))
+            }
+            _ => by_stem.get(id).cloned().ok_or_else(|| {
+                format!("no file named {id} with an image extension in the --images folder")
+            }),
+        })
+        .collect())
+}
+
+/// Every file below `dir`, sorted (folders that cannot be read are passed over).
+pub fn walk(dir: &Path) -> Vec<PathBuf> {
+    let mut out = Vec::new();
+    let mut stack = vec![dir.to_path_buf()];
+    while let Some(d) = stack.pop() {
+        let Ok(rd) = std::fs::read_dir(&d) else {
+            continue;
+        };
+        let mut entries: Vec<PathBuf> = rd.filter_map(|e| e.ok().map(|e| e.path())).collect();
+        entries.sort();
+        for p in entries {
+            if p.is_dir() {
+                stack.push(p);
+            } else {
+                out.push(p);
+            }
+        }
+    }
+    out.sort();
+    out
+}

@@ -1,0 +1,153 @@
+//! What a build is asked to do: every setting in one typed value, checked once before any work.
+
+use std::path::PathBuf;
+
+use anyhow::{bail, Result};
+use vitrine_map::knn::Metric;
+
+/// Collections up to this size get the sequential layout optimiser when it is `auto`.
+pub const SEQUENTIAL_UP_TO: usize = 50_000;
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Optimiser {
+    Auto,
+    Sequential,
+    Parallel,
+}
+
+/// Collections up to this size get the exact neighbour graph when the search is `auto`.
+pub const EXACT_UP_TO: usize = 20_000;
+/// Items in the sample on which trustworthiness and continuity are measured.
+pub const QUALITY_SAMPLE: usize = 2000;
+
+/// What was done to the vectors before the neighbour graph.
+pub struct Reduction {
+    pub input_dimensions: usize,
+    pub pca: Option<vitrine_map::pca::Pca>,
+    pub notes: Vec<String>,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum NeighbourSearch {
+    Auto,
+    Exact,
+    Approximate,
+}
+
+#[derive(Debug, Clone)]
+pub struct BuildOptions {
+    pub vectors: PathBuf,
+    pub vector_ids: Option<PathBuf>,
+    pub catalogue: Option<PathBuf>,
+    pub id_column: String,
+    pub images: Option<PathBuf>,
+    pub date_field: Option<String>,
+    pub image_column: Option<String>,
+    pub out: PathBuf,
+    pub title: Option<String>,
+    pub metric: Metric,
+    pub neighbours: NeighbourSearch,
+    pub optimiser: Optimiser,
+    pub k: usize,
+    /// Principal components to keep before the neighbour graph (None: the vectors as given).
+    pub pca: Option<usize>,
+    pub seed: u64,
+    pub min_dist: f32,
+    pub epochs: Option<usize>,
+    pub sheet_size: u32,
+    pub cells: Vec<u32>,
+    pub jpeg_quality: u8,
+    /// Images with more pixels than this get a placeholder (a decompression-bomb guard).
+    pub max_pixels: u64,
+    /// Stop the build when any image cannot be used, instead of drawing a placeholder.
+    pub strict: bool,
+    /// Where thumbnails of unchanged image files are kept for the next build (None: no cache).
+    pub thumb_cache: Option<PathBuf>,
+    /// Folder with the viewer files to copy into the atlas (None: found beside the program).
+    pub viewer: Option<PathBuf>,
+}
+
+impl BuildOptions {
+    pub fn new(vectors: PathBuf, out: PathBuf) -> BuildOptions {
+        BuildOptions {
+            vectors,
+            vector_ids: None,
+            catalogue: None,
+            id_column: "id".into(),
+            images: None,
+            date_field: None,
+            image_column: None,
+            out,
+            title: None,
+            metric: Metric::Cosine,
+            neighbours: NeighbourSearch::Auto,
+            optimiser: Optimiser::Auto,
+            k: 15,
+            pca: None,
+            seed: 42,
+            min_dist: 0.1,
+            epochs: None,
+            sheet_size: 2048,
+            cells: vec![32, 128, 512],
+            jpeg_quality: 85,
+            max_pixels: vitrine_images::decode::DEFAULT_MAX_PIXELS,
+            strict: false,
+            thumb_cache: None,
+            viewer: None,
+        }
+    }
+
+    /// Refuses settings no build can honour, before anything is read.
+    pub fn check(&self) -> Result<()> {
+        if !(1..=100).contains(&self.jpeg_quality) {
+            bail!("--jpeg-quality must be between 1 and 100");
+        }
+        if !(64..=4096).contains(&self.sheet_size) {
+            bail!("--sheet-size must be between 64 and 4096");
+        }
+        if self.pca == Some(0) {
+            bail!("--pca must be at least 1 (or left out for no reduction)");
+        }
+        if self.max_pixels == 0 {
+            bail!("--max-pixels must be at least 1");
+        }
+        crate::folder::check_out(&self.out)?;
+        if let Some(v) = &self.viewer {
+            if crate::folder::viewer_dir(Some(v)).is_none() {
+                bail!("--viewer {}: not a folder with the viewer's index.html (./build.sh atlas makes one in target/viewer)", v.display());
+            }
+        }
+        if self.k == 0 {
+            bail!("--k must be at least 1");
+        }
+        if self.cells.is_empty()
+            || self.cells.windows(2).any(|w| w[0] >= w[1])
+            || self.cells.iter().any(|&c| c < 8 || c > self.sheet_size)
+        {
+            bail!(
+                "--levels {:?}: give the thumbnail sizes smallest first, each from 8 px to the sheet size ({} px)",
+                self.cells,
+                self.sheet_size
+            );
+        }
+        Ok(())
+    }
+
+    /// Whether the graph is found by exact search for `n` items.
+    pub fn exact_neighbours(&self, n: usize) -> bool {
+        match self.neighbours {
+            NeighbourSearch::Exact => true,
+            NeighbourSearch::Approximate => false,
+            NeighbourSearch::Auto => n <= EXACT_UP_TO,
+        }
+    }
+
+    /// Whether the layout is optimised in parallel blocks for `n` items.
+    pub fn parallel_layout(&self, n: usize) -> bool {
+        match self.optimiser {
+            Optimiser::Auto => n > SEQUENTIAL_UP_TO,
+            Optimiser::Sequential => false,
+            Optimiser::Parallel => true,
+        }
+    }
+}

@@ -1,0 +1,694 @@
+//! Writing the atlas into its (temporary) folder: arrays in atlas order, the manifest with its
+//! provenance, thumbnails and sheets, the viewer files and the build report.
+
+use std::path::{Path, PathBuf};
+
+use anyhow::{Context, Result};
+use serde_json::json;
+use vitrine_format::palette::{INK, OKABE_ITO, UNLISTED};
+use vitrine_format::{
+    ArrayRef, ClusterInfo, ClusterTerm, Clusters, Field, InputFile, Manifest, MapLayout,
+    NeighbourChunk, Neighbours, Provenance, SheetLevel, Sheets, TextTable, FORMAT_NAME,
+    FORMAT_VERSION, MANIFEST_FILE, NEIGHBOUR_CHUNK_ITEMS,
+};
+use vitrine_images::thumbs::{self, SheetPlan};
+
+use crate::catalogue::{self, FieldData, ValueWarning};
+use crate::ingest::Inputs;
+use crate::options::BuildOptions;
+use crate::progress::Progress;
+use crate::report::{BuildReport, Laps};
+use crate::stages::{Computed, NeighbourGraph, Reduction};
+
+/// Writes the whole atlas into `dir` and returns the build report (also written there).
+pub fn write_atlas(
+    opts: &BuildOptions,
+    dir: &Path,
+    inputs: Inputs,
+    c: Computed,
+    laps: &mut Laps,
+    progress: &dyn Progress,
+) -> Result<BuildReport> {
+    let n = inputs.items.ids.len();
+    let mut report = BuildReport {
+        items: n,
+        notes: c.reduction.notes.clone(),
+        ..Default::default()
+    };
+    let order = &c.order.order;
+    let mut w = ArrayWriter { files: Vec::new() };
+    let ids_sorted: Vec<&str> = order
+        .iter()
+        .map(|&i| inputs.items.ids[i].as_str())
+        .collect();
+    let [ids, ids_text] = w.text("ids", &ids_sorted);
+    let source_rows = w.add(
+        "source-rows",
+        &order.iter().map(|&i| i as u32).collect::<Vec<_>>(),
+    );
+    let (maps, xy) = maps(&mut w, opts, &c);
+    let neighbours = neighbours(&mut w, opts, &c.graph, order, &c.order.rank);
+    let fields = fields(
+        &mut w,
+        &inputs,
+        order,
+        &ids_sorted,
+        &mut report.value_warnings,
+    );
+    let clusters = clusters(&mut w, &c.clusters, order, &xy, &fields);
+
+    // Thumbnails and colours.
+    let mut input_files = vec![input_file("vectors", &opts.vectors)?];
+    if let Some(p) = &opts.vector_ids {
+        input_files.push(input_file("vector-ids", p)?);
+    }
+    if let Some(p) = &opts.catalogue {
+        input_files.push(input_file("catalogue", p)?);
+    }
+    let (colours, sheets) = match &inputs.image_paths {
+        Some(paths) => {
+            let (colours, sheets, images) = pictures(
+                &mut w,
+                opts,
+                dir,
+                &inputs,
+                paths,
+                order,
+                &mut report,
+                progress,
+            )?;
+            laps.lap("thumbnails");
+            input_files.push(images);
+            (colours, Some(sheets))
+        }
+        None => {
+            let first_category = fields.iter().find_map(|f| f.codes.as_ref());
+            let colours = (0..n)
+                .map(|i| {
+                    let c = match first_category {
+                        Some(codes) if (codes[i] as usize) < OKABE_ITO.len() => {
+                            OKABE_ITO[codes[i] as usize]
+                        }
+                        Some(_) => UNLISTED,
+                        None => INK,
+                    };
+                    [c[0], c[1], c[2], 255]
+                })
+                .collect();
+            (colours, None)
+        }
+    };
+    let flat: Vec<u8> = colours.iter().flatten().copied().collect::<Vec<u8>>();
+    let colours = w.add("colours", &flat);
+
+    let title = opts.title.clone().unwrap_or_else(|| {
+        opts.out
+            .file_name()
+            .map(|s| s.to_string_lossy().to_string())
+            .unwrap_or_else(|| "Atlas".into())
+    });
+    let manifest = Manifest {
+        format: FORMAT_NAME.into(),
+        format_version: FORMAT_VERSION,
+        title,
+        item_count: n as u64,
+        ids,
+        ids_text,
+        source_rows,
+        colours,
+        fields: fields.into_iter().map(|f| f.field).collect(),
+        maps,
+        neighbours,
+        sheets,
+        quality: quality_figures(&c, clusters.list.len()),
+        clusters: Some(clusters),
+        provenance: Provenance {
+            tool: "vitrine".into(),
+            tool_version: env!("CARGO_PKG_VERSION").into(),
+            inputs: input_files,
+            parameters: parameters(opts, &c, n),
+            seed: opts.seed,
+        },
+    };
+    std::fs::create_dir_all(dir.join("arrays").join("neighbours"))?;
+    for (name, bytes) in &w.files {
+        std::fs::write(dir.join(name), bytes).with_context(|| format!("writing {name}"))?;
+    }
+    // Validate what was written with the same reader the viewer uses.
+    Manifest::from_json(&manifest.to_json())
+        .context("the manifest this build wrote does not validate")?;
+    std::fs::write(dir.join(MANIFEST_FILE), manifest.to_json())?;
+
+    if !report.image_problems.is_empty() {
+        report.notes.push(format!(
+            "{} image(s) could not be used and are drawn as placeholders",
+            report.image_problems.len()
+        ));
+    }
+    if !report.value_warnings.is_empty() {
+        report.notes.push(format!(
+            "{} catalogue value(s) could not be read as their field's kind; kept as written",
+            report.value_warnings.len()
+        ));
+    }
+    crate::folder::copy_viewer(opts.viewer.as_deref(), dir, &mut report)?;
+    laps.lap("write atlas");
+    report.set_laps(laps);
+    std::fs::write(
+        dir.join("build-report.json"),
+        serde_json::to_string_pretty(&report)?,
+    )?;
+    Ok(report)
+}
+
+/// The similarity map, the lattice and the timeline map (when there is one), in atlas order;
+/// with the similarity map's interleaved positions.
+fn maps(w: &mut ArrayWriter, opts: &BuildOptions, c: &Computed) -> (Vec<MapLayout>, Vec<f32>) {
+    let order = &c.order.order;
+    let (xy, bounds) = in_atlas_order(order, &c.map.positions);
+    let similarity = MapLayout {
+        name: "similarity".into(),
+        description: format!(
+            "UMAP of the {} neighbour graph{} (k = {}, min_dist = {}, seed {})",
+            opts.metric.name(),
+            match &c.reduction.pca {
+                Some(p) => format!(
+                    " on {} principal components ({:.0} % of the variance)",
+                    p.components.len(),
+                    100.0 * p.explained()
+                ),
+                None => String::new(),
+            },
+            c.graph.graph.k,
+            opts.min_dist,
+            opts.seed
+        ),
+        positions: w.add("map-similarity", &xy),
+        bounds,
+        x_axis: None,
+    };
+    let grid = &c.lattice.lattice;
+    let cells: Vec<f32> = order.iter().flat_map(|&i| c.lattice.positions[i]).collect();
+    let lattice = MapLayout {
+        name: "lattice".into(),
+        description: format!(
+            "the similarity map snapped to a {} x {} grid, one item per cell (recursive balanced bisection)",
+            grid.columns, grid.rows
+        ),
+        positions: w.add("map-lattice", &cells),
+        bounds: [
+            0.0,
+            0.0,
+            grid.columns.saturating_sub(1) as f32,
+            grid.rows.saturating_sub(1) as f32,
+        ],
+        x_axis: None,
+    };
+    let mut maps = vec![similarity, lattice];
+    if let Some(t) = &c.timeline {
+        let (txy, b) = in_atlas_order(order, &t.positions);
+        maps.push(MapLayout {
+            name: "timeline".into(),
+            description: format!(
+                "x: {:?} (a random year within each item's range), y: a 1-D UMAP of the same neighbour graph; {} of {} items dated",
+                t.axis.label, t.dated, order.len()
+            ),
+            positions: w.add("map-timeline", &txy),
+            bounds: b,
+            x_axis: Some(t.axis.clone()),
+        });
+    }
+    (maps, xy)
+}
+
+/// Neighbour lists renumbered into atlas order, in chunks of consecutive items (a region of the
+/// map each: a record card needs one).
+fn neighbours(
+    w: &mut ArrayWriter,
+    opts: &BuildOptions,
+    g: &NeighbourGraph,
+    order: &[usize],
+    rank: &[u32],
+) -> Neighbours {
+    let graph = &g.graph;
+    let n = order.len();
+    let mut nb_ids = Vec::with_capacity(n * graph.k);
+    let mut nb_d = Vec::with_capacity(n * graph.k);
+    for &i in order {
+        let s = i * graph.k;
+        for slot in s..s + graph.k {
+            let j = graph.ids[slot];
+            nb_ids.push(if j == u32::MAX {
+                u32::MAX
+            } else {
+                rank[j as usize]
+            });
+            nb_d.push(graph.distances[slot]);
+        }
+    }
+    let per = (NEIGHBOUR_CHUNK_ITEMS as usize * graph.k).max(1);
+    let chunks = nb_ids
+        .chunks(per)
+        .zip(nb_d.chunks(per))
+        .enumerate()
+        .map(|(c, (ids, d))| NeighbourChunk {
+            ids: w.add(&format!("neighbours/ids-{c:04}"), ids),
+            distances: w.add(&format!("neighbours/distances-{c:04}"), d),
+        })
+        .collect();
+    Neighbours {
+        k: graph.k as u32,
+        metric: opts.metric.name().into(),
+        exact: g.exact,
+        chunk_items: NEIGHBOUR_CHUNK_ITEMS,
+        chunks,
+    }
+}
+
+/// A catalogue field as written, with its category codes (atlas order) when it is a category.
+struct WrittenField {
+    field: Field,
+    codes: Option<Vec<u32>>,
+}
+
+/// Every catalogue column but the id, its kind inferred, in atlas order.
+fn fields(
+    w: &mut ArrayWriter,
+    inputs: &Inputs,
+    order: &[usize],
+    ids_sorted: &[&str],
+    warnings: &mut Vec<ValueWarning>,
+) -> Vec<WrittenField> {
+    let mut fields = Vec::new();
+    let (Some(cat), Some(rows)) = (&inputs.catalogue, &inputs.items.catalogue_rows) else {
+        return fields;
+    };
+    let item_rows: Vec<usize> = order.iter().map(|&i| rows[i]).collect();
+    for (c, name) in cat.header.iter().enumerate() {
+        if c == cat.id_column {
+            continue;
+        }
+        let values: Vec<&str> = item_rows.iter().map(|&r| cat.rows[r][c].as_str()).collect();
+        let kind = catalogue::infer_kind(name, &values);
+        let data = catalogue::field_data(name, kind, &values, ids_sorted, warnings);
+        let tag = format!("field-{}-{}", fields.len(), safe_name(name));
+        let (column, column2, values, value_counts, written, codes) = match data {
+            FieldData::Category {
+                codes,
+                values,
+                counts,
+            } => (w.add(&tag, &codes), None, values, counts, None, Some(codes)),
+            FieldData::Number { values, written } => {
+                let written = w.text(&format!("{tag}.written"), &written);
+                (
+                    w.add(&tag, &values),
+                    None,
+                    vec![],
+                    vec![],
+                    Some(written),
+                    None,
+                )
+            }
+            FieldData::Date { ranges, written } => {
+                let s: Vec<i32> = ranges
+                    .iter()
+                    .map(|r| r.map_or(i32::MIN, |r| r.start))
+                    .collect();
+                let e: Vec<i32> = ranges
+                    .iter()
+                    .map(|r| r.map_or(i32::MIN, |r| r.end))
+                    .collect();
+                let start = w.add(&format!("{tag}.start"), &s);
+                let end = w.add(&format!("{tag}.end"), &e);
+                let written = w.text(&format!("{tag}.written"), &written);
+                (start, Some(end), vec![], vec![], Some(written), None)
+            }
+            FieldData::Text(t) | FieldData::Link(t) => {
+                let [a, b] = w.text(&tag, &t);
+                (a, Some(b), vec![], vec![], None, None)
+            }
+        };
+        fields.push(WrittenField {
+            field: Field {
+                name: name.clone(),
+                kind,
+                column,
+                column2,
+                values,
+                value_counts,
+                written,
+            },
+            codes,
+        });
+    }
+    fields
+}
+
+/// Clusters in atlas order, labelled by the catalogue's over-represented category values, each
+/// placed at the median of its members on the similarity map (`xy`, interleaved, atlas order).
+fn clusters(
+    w: &mut ArrayWriter,
+    clusters: &[u32],
+    order: &[usize],
+    xy: &[f32],
+    fields: &[WrittenField],
+) -> Clusters {
+    let cluster_of: Vec<u32> = order.iter().map(|&i| clusters[i]).collect();
+    let category_columns: Vec<(String, Vec<u32>, Vec<String>)> = fields
+        .iter()
+        .filter_map(|f| {
+            let codes = f.codes.as_ref()?;
+            Some((f.field.name.clone(), codes.clone(), f.field.values.clone()))
+        })
+        .collect();
+    let terms = vitrine_map::clusters::label_terms(&cluster_of, &category_columns, 3);
+    let k = terms.len();
+    let mut members: Vec<Vec<[f32; 2]>> = vec![Vec::new(); k];
+    for (slot, &c) in cluster_of.iter().enumerate() {
+        members[c as usize].push([xy[2 * slot], xy[2 * slot + 1]]);
+    }
+    let median = |v: &mut Vec<f32>| -> f32 {
+        v.sort_by(|a, b| a.total_cmp(b));
+        v[v.len() / 2]
+    };
+    let list: Vec<ClusterInfo> = (0..k)
+        .map(|c| {
+            let mut xs: Vec<f32> = members[c].iter().map(|p| p[0]).collect();
+            let mut ys: Vec<f32> = members[c].iter().map(|p| p[1]).collect();
+            let label = if terms[c].is_empty() {
+                format!("cluster {}", c + 1)
+            } else {
+                terms[c]
+                    .iter()
+                    .map(|t| t.value.as_str())
+                    .collect::<Vec<_>>()
+                    .join(" · ")
+            };
+            ClusterInfo {
+                size: members[c].len() as u64,
+                label,
+                position: [median(&mut xs), median(&mut ys)],
+                terms: terms[c]
+                    .iter()
+                    .map(|t| ClusterTerm {
+                        field: t.field.clone(),
+                        value: t.value.clone(),
+                        share: t.share,
+                        lift: t.lift,
+                    })
+                    .collect(),
+            }
+        })
+        .collect();
+    Clusters {
+        method: "Louvain modularity on the fuzzy neighbour graph (resolution 1)".into(),
+        ids: w.add("clusters", &cluster_of),
+        list,
+    }
+}
+
+/// Thumbnails and sheets of every level, the average colour of each picture, and the images'
+/// provenance (`image-digests.txt`: one line per image, SHA-256, bytes and path, hashed as a whole).
+#[allow(clippy::too_many_arguments)]
+fn pictures(
+    w: &mut ArrayWriter,
+    opts: &BuildOptions,
+    dir: &Path,
+    inputs: &Inputs,
+    paths: &[Result<PathBuf, String>],
+    order: &[usize],
+    report: &mut BuildReport,
+    progress: &dyn Progress,
+) -> Result<(Vec<[u8; 4]>, Sheets, InputFile)> {
+    let n = order.len();
+    let plan = SheetPlan {
+        cells: opts.cells.clone(),
+        sheet: opts.sheet_size,
+        quality: opts.jpeg_quality,
+        max_pixels: opts.max_pixels,
+    };
+    let list: Vec<(String, Result<PathBuf, String>)> = order
+        .iter()
+        .map(|&i| (inputs.items.ids[i].clone(), paths[i].clone()))
+        .collect();
+    let cache = opts.thumb_cache.as_ref().map(|d| {
+        vitrine_images::cache::ThumbCache::new(
+            d.clone(),
+            *plan.cells.iter().max().unwrap(),
+            plan.max_pixels,
+        )
+    });
+    let bar = progress.bar("thumbnails", n as u64);
+    let t = thumbs::make_sheets(&list, &plan, dir, cache.as_ref(), &|c| bar.set(c, n as u64))?;
+    drop(bar);
+    report.thumbnails_reused = t.reused;
+    report.thumbnails_made = n - t.reused - t.problems.len();
+    if let Some(cache_dir) = &opts.thumb_cache {
+        progress.note(&format!(
+            "thumbnails: {} made, {} reused from the cache ({})",
+            report.thumbnails_made,
+            t.reused,
+            cache_dir.display()
+        ));
+        if t.cache_errors > 0 {
+            report.notes.push(format!(
+                "{} thumbnail(s) could not be stored in the cache {}; the next build makes them again",
+                t.cache_errors,
+                cache_dir.display()
+            ));
+        }
+    }
+    if opts.strict && !t.problems.is_empty() {
+        let listed: Vec<String> = t
+            .problems
+            .iter()
+            .take(10)
+            .map(|p| format!("  {} ({}): {}", p.id, p.path, p.reason))
+            .collect();
+        anyhow::bail!(
+            "--strict: {} image(s) could not be used:\n{}{}",
+            t.problems.len(),
+            listed.join("\n"),
+            if t.problems.len() > 10 {
+                format!("\n  and {} more", t.problems.len() - 10)
+            } else {
+                String::new()
+            }
+        );
+    }
+    let mut listing = String::new();
+    let mut total = 0u64;
+    let images_dir = opts
+        .images
+        .as_ref()
+        .expect("pictures are made only with --images");
+    let relative = |p: &Path| {
+        p.strip_prefix(images_dir)
+            .unwrap_or(p)
+            .display()
+            .to_string()
+    };
+    for ((_, p), (sha, bytes)) in list.iter().zip(&t.digests) {
+        // Files that could not be read have no digest; the build report lists them.
+        if let (Ok(p), false) = (p, sha.is_empty()) {
+            listing.push_str(&format!("{sha}  {bytes}  {}\n", relative(p)));
+            total += bytes;
+        }
+    }
+    std::fs::write(dir.join("image-digests.txt"), &listing)?;
+    let images = InputFile {
+        role: "images (digest of image-digests.txt)".into(),
+        path: file_name(images_dir),
+        bytes: total,
+        sha256: vitrine_format::sha256_hex(listing.as_bytes()),
+    };
+    report.image_problems = t
+        .problems
+        .into_iter()
+        .map(|mut p| {
+            p.path = relative(Path::new(&p.path));
+            p
+        })
+        .collect();
+    let levels = plan
+        .cells
+        .iter()
+        .zip(t.files)
+        .map(|(&cell, files)| {
+            let (columns, rows) = plan.per_sheet(cell);
+            SheetLevel {
+                cell,
+                columns,
+                rows,
+                files,
+            }
+        })
+        .collect();
+    let extents = w.add("thumbnail-extents", &t.extents);
+    let flat: Vec<u32> = t.sizes.iter().flatten().copied().collect();
+    let image_sizes = Some(w.add("image-sizes", &flat));
+    Ok((
+        t.colours,
+        Sheets {
+            levels,
+            extents,
+            image_sizes,
+        },
+        images,
+    ))
+}
+
+/// Every setting that shaped the atlas, for its provenance.
+fn parameters(
+    opts: &BuildOptions,
+    c: &Computed,
+    n: usize,
+) -> serde_json::Map<String, serde_json::Value> {
+    let (umap_params, start, reduction): (_, _, &Reduction) =
+        (&c.map.params, &c.map.start, &c.reduction);
+    let mut p = serde_json::Map::new();
+    p.insert("metric".into(), json!(opts.metric.name()));
+    p.insert("k".into(), json!(c.graph.graph.k));
+    p.insert(
+        "neighbour_search".into(),
+        json!(if c.graph.exact { "exact" } else { "nn-descent" }),
+    );
+    p.insert("layout".into(), json!("umap"));
+    p.insert("min_dist".into(), json!(opts.min_dist));
+    p.insert("spread".into(), json!(1.0));
+    let (a, b) = vitrine_map::umap::fit_ab(opts.min_dist, 1.0);
+    p.insert("umap_a".into(), json!(a));
+    p.insert("umap_b".into(), json!(b));
+    p.insert(
+        "epochs".into(),
+        json!(vitrine_map::umap::epochs_for(n, umap_params.epochs)),
+    );
+    p.insert("start".into(), json!(start.method));
+    p.insert("start_graph_parts".into(), json!(start.parts));
+    p.insert("start_spectral_parts".into(), json!(start.spectral_parts));
+    p.insert("start_residual".into(), json!(start.max_residual));
+    p.insert(
+        "layout_optimiser".into(),
+        json!(if umap_params.parallel {
+            "parallel blocks"
+        } else {
+            "sequential"
+        }),
+    );
+    p.insert("pca".into(), json!(opts.pca));
+    p.insert("id_column".into(), json!(opts.id_column));
+    p.insert("sheet_size".into(), json!(opts.sheet_size));
+    p.insert("cells".into(), json!(opts.cells));
+    p.insert("jpeg_quality".into(), json!(opts.jpeg_quality));
+    p.insert("max_pixels".into(), json!(opts.max_pixels));
+    p.insert("strict".into(), json!(opts.strict));
+    p.insert(
+        "vector_dimensions".into(),
+        json!(reduction.input_dimensions),
+    );
+    if let Some(pca) = &reduction.pca {
+        p.insert("pca_dimensions".into(), json!(pca.components.len()));
+        p.insert("pca_explained_variance".into(), json!(pca.explained()));
+        p.insert(
+            "pca_explained_variance_ratios".into(),
+            json!(pca.explained_variance_ratio),
+        );
+        p.insert("pca_fit_items".into(), json!(pca.fit_rows));
+        p.insert("pca_method".into(), json!(vitrine_map::pca::method()));
+    }
+    p
+}
+
+/// The manifest's quality figures: cluster count, trustworthiness and continuity of the
+/// similarity map and the lattice, NN-descent's recall.
+fn quality_figures(c: &Computed, clusters: usize) -> serde_json::Map<String, serde_json::Value> {
+    let mut q = serde_json::Map::new();
+    q.insert("clusters".into(), json!(clusters));
+    if let Some(mq) = &c.quality {
+        q.insert(
+            "similarity_trustworthiness_at_10".into(),
+            json!(mq.trustworthiness),
+        );
+        q.insert("similarity_continuity_at_10".into(), json!(mq.continuity));
+        q.insert("quality_sample_items".into(), json!(mq.sample));
+    }
+    if let Some(lq) = &c.lattice.quality {
+        q.insert(
+            "lattice_trustworthiness_at_10".into(),
+            json!(lq.trustworthiness),
+        );
+        q.insert("lattice_continuity_at_10".into(), json!(lq.continuity));
+    }
+    if let Some((r, items)) = c.graph.recall {
+        q.insert("neighbour_recall".into(), json!(r));
+        q.insert("neighbour_recall_sample_items".into(), json!(items));
+    }
+    q
+}
+
+fn input_file(role: &str, path: &Path) -> Result<InputFile> {
+    let bytes = std::fs::read(path).with_context(|| format!("reading {}", path.display()))?;
+    // Only the file name: the atlas is meant for publishing, and a local folder layout is nobody's business.
+    Ok(InputFile {
+        role: role.into(),
+        path: file_name(path),
+        bytes: bytes.len() as u64,
+        sha256: vitrine_format::sha256_hex(&bytes),
+    })
+}
+
+fn file_name(path: &Path) -> String {
+    path.file_name()
+        .map(|s| s.to_string_lossy().to_string())
+        .unwrap_or_else(|| path.display().to_string())
+}
+
+/// Collects the arrays of the atlas being written.
+struct ArrayWriter {
+    files: Vec<(String, Vec<u8>)>,
+}
+
+impl ArrayWriter {
+    fn add<T: vitrine_format::Element>(&mut self, name: &str, data: &[T]) -> ArrayRef {
+        let (r, bytes) = ArrayRef::encode(&format!("arrays/{name}.bin"), data);
+        self.files.push((r.file.clone(), bytes));
+        r
+    }
+    fn text(&mut self, name: &str, items: &[impl AsRef<str>]) -> [ArrayRef; 2] {
+        let t = TextTable::from_strings(items);
+        [
+            self.add(&format!("{name}.offsets"), &t.offsets),
+            self.add(&format!("{name}.text"), &t.utf8),
+        ]
+    }
+}
+
+fn safe_name(s: &str) -> String {
+    s.chars()
+        .map(|c| {
+            if c.is_ascii_alphanumeric() || c == '-' || c == '_' {
+                c.to_ascii_lowercase()
+            } else {
+                '_'
+            }
+        })
+        .collect()
+}
+
+/// Positions rearranged into atlas order, interleaved x, y, with their bounds [min_x, min_y, max_x, max_y].
+fn in_atlas_order(order: &[usize], pos: &[[f32; 2]]) -> (Vec<f32>, [f32; 4]) {
+    let mut xy = Vec::with_capacity(order.len() * 2);
+    let mut b = [
+        f32::INFINITY,
+        f32::INFINITY,
+        f32::NEG_INFINITY,
+        f32::NEG_INFINITY,
+    ];
+    for &i in order {
+        let [x, y] = pos[i];
+        xy.push(x);
+        xy.push(y);
+        b = [b[0].min(x), b[1].min(y), b[2].max(x), b[3].max(y)];
+    }
+    (xy, b)
+}

@@ -1,0 +1,214 @@
+//! `vitrine build`: flags converted once into [`BuildOptions`], the build run, its summary printed.
+
+use std::path::PathBuf;
+
+use anyhow::Result;
+use clap::{Args, ValueEnum};
+use vitrine_build::pipeline::{build, BuildOptions, NeighbourSearch, Optimiser};
+use vitrine_map::knn::Metric;
+
+use crate::progress::Terminal;
+
+#[derive(Clone, Copy, ValueEnum)]
+pub enum MetricArg {
+    Cosine,
+    Euclidean,
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+pub enum NeighbourArg {
+    /// Exact up to 20,000 items, NN-descent above.
+    Auto,
+    Exact,
+    Approximate,
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+pub enum OptimiserArg {
+    /// Sequential up to 50,000 items, parallel above.
+    Auto,
+    /// The method as published, on one core; keeps neighbourhoods best.
+    Sequential,
+    /// Over all cores; the same map for any number of threads.
+    Parallel,
+}
+
+/// Build an atlas folder from feature vectors, a catalogue and images.
+#[derive(Args)]
+pub struct BuildArgs {
+    /// Feature vectors: a NumPy .npy file, items x dimensions (float16, float32 or float64).
+    #[arg(long)]
+    vectors: PathBuf,
+    /// A text file with one id per line, one line per vector row. Without it, vectors match
+    /// catalogue records in order.
+    #[arg(long)]
+    vector_ids: Option<PathBuf>,
+    /// The catalogue: a CSV file with a header row. Without it, items are numbered.
+    #[arg(long)]
+    catalogue: Option<PathBuf>,
+    /// The catalogue column that holds each record's id.
+    #[arg(long, default_value = "id")]
+    id_column: String,
+    /// A folder of images. Optional: without it each item is drawn as a coloured mark.
+    #[arg(long)]
+    images: Option<PathBuf>,
+    /// The catalogue column with each image's path inside --images (default: a column named
+    /// image, image_path, file or filename; else files are found by id + image extension).
+    #[arg(long)]
+    image_column: Option<String>,
+    /// The catalogue date field that orders the timeline map (default: the first date field).
+    #[arg(long)]
+    date_field: Option<String>,
+    /// Where to write the atlas folder (replaced only when the build has succeeded).
+    #[arg(long)]
+    out: PathBuf,
+    /// The atlas title shown in the viewer (default: the folder name).
+    #[arg(long)]
+    title: Option<String>,
+    /// Distance between vectors.
+    #[arg(long, value_enum, default_value = "cosine")]
+    metric: MetricArg,
+    /// How the neighbour graph is found: exact search, or NN-descent (approximate, for large collections).
+    #[arg(long, value_enum, default_value = "auto")]
+    neighbours: NeighbourArg,
+    /// How the map's layout is optimised.
+    #[arg(long, value_enum, default_value = "auto")]
+    optimiser: OptimiserArg,
+    /// Neighbours per item in the neighbour graph.
+    #[arg(long, default_value_t = 15)]
+    k: usize,
+    /// Reduce the vectors to this many principal components (randomized PCA) before the
+    /// neighbour graph; the explained variance is recorded in the atlas. Off by default.
+    #[arg(long, value_name = "DIMS")]
+    pca: Option<usize>,
+    /// Seed for every random choice: the same seed gives the same atlas.
+    #[arg(long, default_value_t = 42)]
+    seed: u64,
+    /// UMAP's minimum distance between points on the map.
+    #[arg(long, default_value_t = 0.1)]
+    min_dist: f32,
+    /// UMAP optimisation epochs (default 500 up to 10,000 items, else 200).
+    #[arg(long)]
+    epochs: Option<usize>,
+    /// Thumbnail sizes (levels of detail) in pixels on the long side, smallest first,
+    /// e.g. 16,64,256. Each level has its own sheets. [default: 32,128,512, leaving out
+    /// sizes above --sheet-size]
+    #[arg(long, value_delimiter = ',')]
+    levels: Option<Vec<u32>>,
+    /// Side of a thumbnail sheet in pixels.
+    #[arg(long, default_value_t = 2048)]
+    sheet_size: u32,
+    /// JPEG quality of the sheets (1-100).
+    #[arg(long, default_value_t = 85)]
+    jpeg_quality: u8,
+    /// Refuse images with more pixels than this (they get a placeholder and a report entry).
+    #[arg(long, default_value_t = vitrine_images::decode::DEFAULT_MAX_PIXELS)]
+    max_pixels: u64,
+    /// Stop the build when any image is missing or cannot be read, instead of drawing a
+    /// placeholder for it.
+    #[arg(long)]
+    strict: bool,
+    /// Folder where thumbnails are kept so that a rebuild reuses those of unchanged image
+    /// files (same path, size and modification time). Default: ~/.cache/vitrine/thumbs.
+    #[arg(long, value_name = "DIR")]
+    thumb_cache: Option<PathBuf>,
+    /// Make every thumbnail afresh and keep none.
+    #[arg(long, conflicts_with = "thumb_cache")]
+    no_thumb_cache: bool,
+    /// Folder with the viewer files to copy into the atlas (default: found beside the program).
+    #[arg(long)]
+    viewer: Option<PathBuf>,
+    /// Print nothing but errors.
+    #[arg(long)]
+    quiet: bool,
+}
+
+impl BuildArgs {
+    /// The flags as the build's options (checked by the build itself, before it reads anything).
+    pub fn into_options(self) -> BuildOptions {
+        let sheet_size = self.sheet_size;
+        BuildOptions {
+            vectors: self.vectors,
+            vector_ids: self.vector_ids,
+            catalogue: self.catalogue,
+            id_column: self.id_column,
+            images: self.images,
+            date_field: self.date_field,
+            image_column: self.image_column,
+            out: self.out,
+            title: self.title,
+            metric: match self.metric {
+                MetricArg::Cosine => Metric::Cosine,
+                MetricArg::Euclidean => Metric::Euclidean,
+            },
+            neighbours: match self.neighbours {
+                NeighbourArg::Auto => NeighbourSearch::Auto,
+                NeighbourArg::Exact => NeighbourSearch::Exact,
+                NeighbourArg::Approximate => NeighbourSearch::Approximate,
+            },
+            optimiser: match self.optimiser {
+                OptimiserArg::Auto => Optimiser::Auto,
+                OptimiserArg::Sequential => Optimiser::Sequential,
+                OptimiserArg::Parallel => Optimiser::Parallel,
+            },
+            k: self.k,
+            pca: self.pca,
+            seed: self.seed,
+            min_dist: self.min_dist,
+            epochs: self.epochs,
+            sheet_size,
+            cells: self.levels.unwrap_or_else(|| {
+                [32, 128, 512]
+                    .into_iter()
+                    .filter(|&c| c <= sheet_size)
+                    .collect()
+            }),
+            jpeg_quality: self.jpeg_quality,
+            max_pixels: self.max_pixels,
+            strict: self.strict,
+            thumb_cache: if self.no_thumb_cache {
+                None
+            } else {
+                self.thumb_cache.or_else(vitrine_images::cache::default_dir)
+            },
+            viewer: self.viewer,
+        }
+    }
+}
+
+pub fn run(args: BuildArgs) -> Result<()> {
+    let progress = Terminal { quiet: args.quiet };
+    let opts = args.into_options();
+    let report = build(&opts, &progress)?;
+    if progress.quiet {
+        return Ok(());
+    }
+    let laps: Vec<String> = report
+        .stages
+        .iter()
+        .zip(&report.stage_peak_memory_mib)
+        .map(|((name, s), m)| match m {
+            Some(m) => format!("{name} {s:.1} s ({m:.0} MiB)"),
+            None => format!("{name} {s:.1} s"),
+        })
+        .collect();
+    let total: f64 = report.stages.iter().map(|(_, s)| s).sum();
+    eprintln!("time: {} (total {total:.1} s)", laps.join(", "));
+    if let Some(m) = report.peak_memory_mib {
+        eprintln!("peak memory: {m:.0} MiB");
+    }
+    for note in &report.notes {
+        eprintln!("note: {note}");
+    }
+    for p in report.image_problems.iter().take(10) {
+        if p.path.is_empty() {
+            eprintln!("  image for {}: {}", p.id, p.reason);
+        } else {
+            eprintln!("  image for {}: {} ({})", p.id, p.reason, p.path);
+        }
+    }
+    if !report.image_problems.is_empty() || !report.value_warnings.is_empty() {
+        eprintln!("details: {}", opts.out.join("build-report.json").display());
+    }
+    Ok(())
+}

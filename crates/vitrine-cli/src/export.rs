@@ -1,0 +1,70 @@
+//! `vitrine export`: data out of an atlas (each item's id and its place on every map).
+
+use std::path::{Path, PathBuf};
+
+use anyhow::{Context, Result};
+use clap::Args;
+use vitrine_build::read::Atlas;
+use vitrine_corpus::export::csv_row;
+
+/// Write data out of an atlas.
+#[derive(Args)]
+pub struct ExportArgs {
+    /// The atlas folder.
+    atlas: PathBuf,
+    /// CSV with each item's id and its x, y on every map, one row per item in atlas order.
+    #[arg(long)]
+    positions: PathBuf,
+    /// Replace the file if it exists.
+    #[arg(long)]
+    force: bool,
+}
+
+pub fn run(a: ExportArgs) -> Result<()> {
+    let atlas = Atlas::open(&a.atlas)?;
+    crate::corpus::check_output(&a.positions, "--positions", &a.atlas, a.force)?;
+    export_positions(&atlas, &a.positions)?;
+    eprintln!(
+        "wrote {} ({} items)",
+        a.positions.display(),
+        atlas.manifest.item_count
+    );
+    Ok(())
+}
+
+/// Writes id and x, y per map, one row per item in atlas order.
+pub fn export_positions(atlas: &Atlas, out: &Path) -> Result<()> {
+    let m = &atlas.manifest;
+    let files = atlas.load(
+        [&m.ids, &m.ids_text]
+            .into_iter()
+            .chain(m.maps.iter().map(|l| &l.positions)),
+    )?;
+    let ids = files.ids(m)?;
+    let maps: Vec<Vec<[f32; 2]>> = m
+        .maps
+        .iter()
+        .map(|l| files.positions(l))
+        .collect::<Result<_, _>>()?;
+    let mut s = String::new();
+    let head: Vec<String> = std::iter::once("id".to_string())
+        .chain(
+            m.maps
+                .iter()
+                .flat_map(|l| [format!("{}_x", l.name), format!("{}_y", l.name)]),
+        )
+        .collect();
+    csv_row(&mut s, head.iter().map(String::as_str));
+    for i in 0..m.item_count as usize {
+        // Shortest text that reads back to the same f32.
+        let xy: Vec<String> = maps
+            .iter()
+            .flat_map(|p| [p[i][0].to_string(), p[i][1].to_string()])
+            .collect();
+        csv_row(
+            &mut s,
+            std::iter::once(ids.get(i)).chain(xy.iter().map(String::as_str)),
+        );
+    }
+    std::fs::write(out, s).with_context(|| format!("writing {}", out.display()))
+}
