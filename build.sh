@@ -40,11 +40,11 @@ setup() {
 build_viewer() {
   setup_wasm_bindgen
   echo "[viewer] compiling the viewer to WebAssembly"
-  cargo build --locked -p vitrine-view --target wasm32-unknown-unknown --profile wasm-release
+  cargo build --locked -p vitrine-web --target wasm32-unknown-unknown --profile wasm-release
   rm -rf target/viewer
   mkdir -p target/viewer/viewer
   wasm-bindgen --target web --no-typescript --out-dir target/viewer/viewer \
-    target/wasm32-unknown-unknown/wasm-release/vitrine_view.wasm
+    target/wasm32-unknown-unknown/wasm-release/vitrine_web.wasm
   cp web/index.html target/viewer/
   cp web/loader.js web/style.css target/viewer/viewer/
 }
@@ -97,7 +97,7 @@ run_tests() {
   echo "[test] cargo test (workspace)"
   cargo test --workspace --locked --release 2>&1
   echo "[test] golden images of the renderer through wgpu on Mesa's software Vulkan and GL"
-  XDG_RUNTIME_DIR="${XDG_RUNTIME_DIR:-/tmp}" cargo test --locked --release -p vitrine-view --features native-gpu --test golden 2>&1
+  XDG_RUNTIME_DIR="${XDG_RUNTIME_DIR:-/tmp}" cargo test --locked --release -p vitrine-view --features gpu --test golden 2>&1
   echo "[test] demo atlas for the browser test"
   build_demo
   echo "[test] viewer in headless Chromium (software WebGL)"

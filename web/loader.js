@@ -1,5 +1,5 @@
 // Loads the viewer module and starts it; all behaviour lives in the Rust code.
-import init, * as viewer from "./vitrine_view.js";
+import init, * as viewer from "./vitrine_web.js";
 
 const help = document.getElementById("help");
 const about = document.getElementById("about");

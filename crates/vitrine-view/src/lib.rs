@@ -1,11 +1,10 @@
-//! The Vitrine viewer.
+//! The Vitrine viewer's platform-free core: plain Rust with unit tests that need no browser.
+//! The web crate (`vitrine-web`) translates DOM events and fetches into calls on it and puts
+//! its answers on the page.
 //!
-//! The core (atlas data, camera, frame raster, picking) is plain Rust with unit tests that need no browser.
-//! The `web` module (wasm32 only) translates DOM events and fetches into calls on the core and hands
-//! finished frames to wgpu.
-//!
-//! Invariant: nothing outside `web` touches the DOM or the network, and nothing outside `web` and
-//! `present` (which shows a finished frame through wgpu) touches the GPU.
+//! Invariants: nothing here touches the DOM or the network; nothing but `present` (feature `gpu`,
+//! which shows a finished frame through wgpu) touches the GPU; a frame is a finished RGBA buffer
+//! drawn by [`raster`] on the processor.
 
 pub mod atlas;
 pub mod camera;
@@ -17,8 +16,5 @@ pub mod raster;
 pub mod selection;
 pub mod tray;
 
-#[cfg(any(target_arch = "wasm32", feature = "native-gpu"))]
+#[cfg(feature = "gpu")]
 pub mod present;
-
-#[cfg(target_arch = "wasm32")]
-mod web;

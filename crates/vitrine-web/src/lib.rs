@@ -1,5 +1,9 @@
 //! The browser layer: fetches the atlas, turns DOM events into camera moves and picks, puts the
 //! record card on the page, and hands each finished frame to wgpu as one texture.
+//!
+//! Invariant: only this crate touches the DOM and the network; it holds no logic that the core
+//! (`vitrine-view`) could hold and test without a browser.
+#![cfg(target_arch = "wasm32")]
 
 use std::cell::RefCell;
 use std::collections::{HashMap, HashSet};
@@ -10,12 +14,12 @@ use wasm_bindgen::JsCast;
 use wasm_bindgen_futures::JsFuture;
 use web_sys::{Document, HtmlCanvasElement, HtmlElement};
 
-use crate::atlas::AtlasData;
-use crate::camera::{Camera, Glide};
-use crate::grid::Grid;
-use crate::pick::Picker;
-use crate::present::Presenter;
-use crate::raster::{self, Scene, Sheet, SheetStore, READING_ROOM};
+use vitrine_view::atlas::AtlasData;
+use vitrine_view::camera::{Camera, Glide};
+use vitrine_view::grid::Grid;
+use vitrine_view::pick::Picker;
+use vitrine_view::present::Presenter;
+use vitrine_view::raster::{self, Scene, Sheet, SheetStore, READING_ROOM};
 
 const MAX_FETCHES: usize = 4;
 /// Lengths of the animated camera moves: a wheel step or key press, and a return to the whole map.
@@ -76,7 +80,7 @@ struct App {
     first_full: bool,
     /// What a drag does: move the map, or draw a lasso or a box to select with.
     mode: select::Mode,
-    selection: crate::selection::Selection,
+    selection: vitrine_view::selection::Selection,
     /// The lasso or box being drawn.
     sketch: Option<select::Sketch>,
     /// A lasso or box being drawn from the keyboard.
@@ -89,9 +93,9 @@ struct App {
     id_index: Option<HashMap<String, usize>>,
     /// SHA-256 of the atlas.json text, for the corpus file.
     manifest_sha: String,
-    filters: crate::filters::Filters,
+    filters: vitrine_view::filters::Filters,
     /// The date histogram along the bottom (when the catalogue has a date field).
-    timeline: Option<timeline::Strip>,
+    timeline: Option<timeline_strip::Strip>,
     /// The marks' own colours (their pictures' averages) while the marks are coloured by a field.
     picture_colours: Option<Vec<[u8; 4]>>,
     /// The record cards walked through (for Backspace), and the one shown last.
@@ -99,16 +103,11 @@ struct App {
     open_prev: Option<usize>,
 }
 
-#[path = "web_filters.rs"]
 mod filters;
-#[path = "web_select.rs"]
 mod select;
-#[path = "web_share.rs"]
 mod share;
-#[path = "web_tray.rs"]
-mod tiles;
-#[path = "web_timeline.rs"]
-mod timeline;
+mod timeline_strip;
+mod tray;
 
 struct Drag {
     start: [f64; 2],
@@ -493,7 +492,7 @@ impl App {
         label.set_class_name("label");
         label.set_text_content(Some(&axis.label));
         let _ = bar.append_child(&label);
-        let mut ticks = crate::atlas::axis_ticks(axis, v[0], v[2]);
+        let mut ticks = vitrine_view::atlas::axis_ticks(axis, v[0], v[2]);
         if let Some(m) = axis.missing_at {
             if (m as f64) >= v[0] && (m as f64) <= v[2] {
                 // Year ticks too close to the undated band's label give way to it.
@@ -569,8 +568,8 @@ impl App {
 
     fn zoom_limits(&self) -> [f64; 2] {
         [
-            self.base_zoom * crate::camera::MIN_ZOOM_FACTOR,
-            self.base_zoom * crate::camera::MAX_ZOOM_FACTOR,
+            self.base_zoom * vitrine_view::camera::MIN_ZOOM_FACTOR,
+            self.base_zoom * vitrine_view::camera::MAX_ZOOM_FACTOR,
         ]
     }
 }
@@ -1297,7 +1296,7 @@ fn install_events(canvas: &HtmlCanvasElement) {
     let c = canvas.clone();
     let on_resize = Closure::<dyn FnMut(js_sys::Array)>::new(move |_entries: js_sys::Array| {
         resize_canvas(&c);
-        timeline::draw();
+        timeline_strip::draw();
         request_frame();
     });
     if let Ok(ro) = web_sys::ResizeObserver::new(on_resize.as_ref().unchecked_ref()) {
@@ -1308,7 +1307,7 @@ fn install_events(canvas: &HtmlCanvasElement) {
     let c = canvas.clone();
     listen(&window, "resize", true, move |_e: web_sys::Event| {
         resize_canvas(&c);
-        timeline::draw();
+        timeline_strip::draw();
         request_frame();
     });
     for (id, f) in [("zoom-in", 0u8), ("zoom-out", 1), ("fit", 2)] {
@@ -1400,7 +1399,7 @@ async fn load(base: String) -> Result<(), String> {
         let h = doc.create_element("h2").unwrap();
         h.set_text_content(Some(&format!("About {}", atlas.manifest.title)));
         let _ = panel.append_child(&h);
-        let mut sections = crate::atlas::about(&atlas.manifest);
+        let mut sections = vitrine_view::atlas::about(&atlas.manifest);
         sections.push((
             "This viewer".to_string(),
             vec![(
@@ -1495,7 +1494,7 @@ async fn load(base: String) -> Result<(), String> {
     select::install();
     filters::install();
     share::install();
-    tiles::install();
+    tray::install();
     if let Some(l) = by_id("loading") {
         l.set_hidden(true);
     }
@@ -1527,8 +1526,8 @@ async fn load_catalogue(base: String) -> Result<(), String> {
         .atlas
         .complete(&got)
         .map_err(|e| e.to_string())?;
-    timeline::install(&mut app.borrow_mut());
-    timeline::draw();
+    timeline_strip::install(&mut app.borrow_mut());
+    timeline_strip::draw();
     filters::install_colour_menu();
     share::restore_from_address();
     if let Some(c) = by_id("atlas-count") {

@@ -284,7 +284,7 @@ pub fn index_of(a: &mut App) -> Option<&HashMap<String, usize>> {
 pub fn with_lookup<R>(
     a: &mut App,
     needs_ids: bool,
-    f: impl FnOnce(&mut crate::selection::Selection, &Lookup) -> R,
+    f: impl FnOnce(&mut vitrine_view::selection::Selection, &Lookup) -> R,
 ) -> R {
     // The id index (a million strings for a million items) is made only when a step names items.
     if needs_ids {
@@ -459,7 +459,8 @@ pub fn refresh() {
         let mut a = app.borrow_mut();
         let paper = READING_ROOM.paper;
         let (sel, pass) = (a.selection.mask(), a.filters.passing());
-        let tones = crate::selection::tones(&a.atlas.colours, paper, sel, pass, a.filters.hide);
+        let tones =
+            vitrine_view::selection::tones(&a.atlas.colours, paper, sel, pass, a.filters.hide);
         let corpus_mask = match (sel, pass) {
             (Some(s), Some(p)) => {
                 let mut m = s.clone();
@@ -517,8 +518,8 @@ pub fn refresh() {
             a.filters.list(),
         )));
     }
-    timeline::draw();
-    tiles::schedule();
+    timeline_strip::draw();
+    tray::schedule();
     // The address carries the corpus (when it fits in a link).
     let _ = share::update_address();
     request_frame();

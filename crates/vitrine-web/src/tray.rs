@@ -3,7 +3,7 @@
 //! A tile opens its record card; its × (or Delete on it) takes the item out of the corpus.
 
 use super::*;
-use crate::tray::{self as layout, PITCH};
+use vitrine_view::tray::{self as layout, PITCH};
 
 /// Milliseconds the corpus must stay unchanged before the grid shows its pictures again: while a
 /// brush is dragged or filters are clicked through, the count and figures follow at once, but

@@ -119,7 +119,7 @@ fn render_chips() {
 }
 
 /// The values chosen for category field `name` (none when it has no filter).
-fn chosen_values(f: &crate::filters::Filters, name: &str) -> Vec<String> {
+fn chosen_values(f: &vitrine_view::filters::Filters, name: &str) -> Vec<String> {
     match f.on(name) {
         Some(Filter::Category { values, .. }) => values.clone(),
         _ => Vec::new(),
@@ -127,7 +127,10 @@ fn chosen_values(f: &crate::filters::Filters, name: &str) -> Vec<String> {
 }
 
 /// The bounds a range or date filter on `name` sets (None where open or unfiltered) and its rule.
-fn bounds_of(f: &crate::filters::Filters, name: &str) -> (Option<f64>, Option<f64>, DateRule) {
+fn bounds_of(
+    f: &vitrine_view::filters::Filters,
+    name: &str,
+) -> (Option<f64>, Option<f64>, DateRule) {
     match f.on(name) {
         Some(Filter::Range { min, max, .. }) => (*min, *max, DateRule::Overlap),
         Some(Filter::Date { from, to, rule, .. }) => (Some(*from as f64), Some(*to as f64), *rule),
@@ -210,7 +213,7 @@ fn render_panel() {
                 } else {
                     vitrine_corpus::filter::category_counts(c, &vitrine_corpus::mask::Mask::all(n))
                 };
-                let (order, more_values) = crate::filters::panel_values(
+                let (order, more_values) = vitrine_view::filters::panel_values(
                     &c.field.values,
                     &whole,
                     &chosen,
@@ -639,7 +642,7 @@ pub fn colour_by(k: Option<usize>) {
         match k.and_then(|k| a.atlas.fields.get(k)) {
             Some(c) => {
                 let name = c.field.name.clone();
-                let (cols, legend) = crate::colour::by_field(c, n);
+                let (cols, legend) = vitrine_view::colour::by_field(c, n);
                 a.atlas.colours = cols;
                 Some((name, legend))
             }
@@ -658,8 +661,8 @@ pub fn colour_by(k: Option<usize>) {
     select::refresh();
 }
 
-fn show_legend(legend: Option<(String, crate::colour::Legend)>) {
-    use crate::colour::{Legend, OTHER};
+fn show_legend(legend: Option<(String, vitrine_view::colour::Legend)>) {
+    use vitrine_view::colour::{Legend, OTHER};
     let Some(box_) = by_id("legend") else { return };
     box_.set_text_content(None);
     let Some((name, legend)) = legend else {
