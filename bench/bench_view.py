@@ -173,7 +173,7 @@ def main():
     print("rest is the browser's GPU process (SwiftShader or llvmpipe) running them. Work (filter and")
     print("lasso phases): the filter or selection itself — every item's pass or membership, the counts,")
     print("the dimming — before the frame is drawn. Settled (same phases): from the step until the")
-    print("browser has drawn two frames of the whole page after it (chips, counts, tray, timeline")
+    print("browser has drawn two frames of the whole page after it (filters row, counts, tray, timeline")
     print("strip) and the map reads back again; each such step starts once the previous has settled.")
     return 0
 

@@ -80,7 +80,7 @@ try {
       read();
       times.push(performance.now() - t0);
       if (kind === "filter" || kind === "lasso") {
-        // A filter or lasso also changes the page around the map (chips, counts, tray, timeline
+        // A filter or lasso also changes the page around the map (filters row, counts, tray, timeline
         // strip): the step has settled once the browser has drawn two frames of the page after
         // it and the map reads back again. The next step starts only then, as a person's next
         // click would.

@@ -418,10 +418,10 @@ test("a lasso selects, Shift and Alt lassos add and take away, and the corpus ex
   assert.equal(JSON.parse(fs.readFileSync(kjson, "utf8")).steps[0].lasso.length, 3);
   const kout = execFileSync(BIN, ["corpus", ATLAS, "--from", kjson], { encoding: "utf8" });
   assert.ok(kout.startsWith(`${keyed} items`), kout);
-  // A box from the keyboard: Space with one corner keeps it and says why; the second Enter
+  // A rectangle from the keyboard: Space with one corner keeps it and says why; the second Enter
   // applies it. (The export button had the focus: Enter there is the button's own.)
   await page.locator("#map").focus();
-  await page.keyboard.press("b");
+  await page.keyboard.press("r");
   await page.keyboard.press("Enter");
   await page.keyboard.press("Space");
   await page.locator("#crosshair").waitFor({ state: "visible", timeout: 5000 });
@@ -434,7 +434,7 @@ test("a lasso selects, Shift and Alt lassos add and take away, and the corpus ex
   assert.deepEqual(errors, []);
 });
 
-test("field chips: search, a category and a date range narrow the corpus as vitrine corpus does", async () => {
+test("filters: search, a category and a date range narrow the corpus as vitrine corpus does", async () => {
   const url = await serve(ATLAS);
   const { page, errors } = await newPage(url);
   await page.waitForFunction(() => document.body.dataset.state === "ready", null, { timeout: 60000 });
@@ -472,27 +472,27 @@ test("field chips: search, a category and a date range narrow the corpus as vitr
   const woodcut = Number(await technique.locator("label", { has: page.locator("input[data-value='woodcut']") })
     .locator(".n").innerText());
   assert.equal(woodcut, native("--filter", "technique=woodcut", "--date", "1500..1560", "--date-rule", "within"));
-  const chips = await page.locator("#chips .chip").allInnerTexts();
-  assert.equal(chips.length, 2);
-  assert.ok(chips[0].startsWith("technique: etching") && chips[1].startsWith("dating: 1500–1560 (within)"),
-    JSON.stringify(chips));
-  await page.screenshot({ path: path.join(ARTIFACTS, "10-field-chips.png") });
+  const shown = await page.locator("#filters .filter").allInnerTexts();
+  assert.equal(shown.length, 2);
+  assert.ok(shown[0].startsWith("technique: etching") && shown[1].startsWith("dating: 1500–1560 (within)"),
+    JSON.stringify(shown));
+  await page.screenshot({ path: path.join(ARTIFACTS, "10-filters.png") });
   // The corpus file keeps the filters; replayed natively, it gives the same items.
-  const dir = fs.mkdtempSync(path.join(os.tmpdir(), "vitrine-chips-"));
+  const dir = fs.mkdtempSync(path.join(os.tmpdir(), "vitrine-filters-"));
   const [d] = await Promise.all([page.waitForEvent("download"), page.click("#export-json")]);
   await d.saveAs(path.join(dir, "c.json"));
   const file = JSON.parse(fs.readFileSync(path.join(dir, "c.json"), "utf8"));
   assert.equal(file.count, both);
   assert.deepEqual(file.filters.map((f) => f.kind), ["category", "date"]);
   execFileSync(BIN, ["corpus", ATLAS, "--from", path.join(dir, "c.json")]);
-  // Removing a chip drops its filter.
-  await page.locator("#chips .chip button").first().click();
+  // Removing a filter drops its filter.
+  await page.locator("#filters .filter button").first().click();
   await page.waitForFunction(() => document.body.dataset.filters === "1");
   assert.equal(Number(await passing()), native("--date", "1500..1560", "--date-rule", "within"));
   await page.keyboard.press("c");
 
   // The timeline strip: its bars (each item's weight spread over its dating) sum to the dated
-  // items; brushing it sets the date chip to the brushed years (overlapping), as vitrine corpus
+  // items; brushing it sets the date filter to the brushed years (overlapping), as vitrine corpus
   // counts them.
   assert.equal(await page.evaluate(() => document.body.dataset.timeline), "dating");
   const dated = native("--date", "-100000..100000");
@@ -502,13 +502,13 @@ test("field chips: search, a category and a date range narrow the corpus as vitr
   await page.mouse.down();
   await page.mouse.move(strip.x + strip.width * 0.55, strip.y + strip.height / 2, { steps: 8 });
   await page.mouse.up();
-  await page.waitForFunction(() => /\(overlapping\)/.test(document.getElementById("chips").innerText));
-  const chip = (await page.locator("#chips .chip").allInnerTexts())[0];
-  const [, from, to] = /dating: (-?\d+)–(-?\d+) \(overlapping\)/.exec(chip);
-  assert.ok(Number(from) < Number(to), chip);
+  await page.waitForFunction(() => /\(overlapping\)/.test(document.getElementById("filters").innerText));
+  const brushed = (await page.locator("#filters .filter").allInnerTexts())[0];
+  const [, from, to] = /dating: (-?\d+)–(-?\d+) \(overlapping\)/.exec(brushed);
+  assert.ok(Number(from) < Number(to), brushed);
   assert.equal(Number(await passing()), native("--date", `${from}..${to}`));
   await page.screenshot({ path: path.join(ARTIFACTS, "11-timeline-brush.png") });
-  // A click on the strip without a drag clears the date chip.
+  // A click on the strip without a drag clears the date filter.
   await page.mouse.click(strip.x + strip.width * 0.8, strip.y + strip.height / 2);
   await page.waitForFunction(() => document.body.dataset.filters === "0");
 
@@ -577,7 +577,7 @@ test("a copied link reopens the corpus in a fresh page, and a saved corpus file 
   await fresh.page.waitForFunction(() => document.body.dataset.restored === "link", null, { timeout: 60000 });
   assert.equal(Number(await fresh.page.evaluate(() => document.body.dataset.selected)), selected);
   assert.equal(Number(await fresh.page.evaluate(() => document.body.dataset.corpus)), corpus);
-  assert.deepEqual(await fresh.page.locator("#chips .chip").allInnerTexts(), await page.locator("#chips .chip").allInnerTexts());
+  assert.deepEqual(await fresh.page.locator("#filters .filter").allInnerTexts(), await page.locator("#filters .filter").allInnerTexts());
   assert.ok(Math.abs((await viewState(fresh.page)).zoom / zoom - 1) < 1e-3, "the view comes with the link");
   await fresh.page.screenshot({ path: path.join(ARTIFACTS, "12-link-reopened.png") });
   // The corpus file saved in the first page opens in the second after clearing there.
@@ -585,7 +585,7 @@ test("a copied link reopens the corpus in a fresh page, and a saved corpus file 
   const [d] = await Promise.all([page.waitForEvent("download"), page.click("#export-json")]);
   await d.saveAs(path.join(dir, "c.json"));
   await fresh.page.keyboard.press("x");
-  await fresh.page.locator("#chips .chip button").first().click();
+  await fresh.page.locator("#filters .filter button").first().click();
   await fresh.page.waitForFunction(() => !document.body.dataset.corpus);
   await fresh.page.setInputFiles("#open-corpus", path.join(dir, "c.json"));
   await fresh.page.waitForFunction(() => document.body.dataset.restored === "file");

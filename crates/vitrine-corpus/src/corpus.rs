@@ -238,14 +238,14 @@ pub fn describe(map: &str, steps: &[Step], filters: &[Filter]) -> String {
             Op::Subtract => format!("removed {what}"),
         });
     }
-    let chips: Vec<String> = filters.iter().map(Filter::label).collect();
+    let labels: Vec<String> = filters.iter().map(Filter::label).collect();
     let mut out = if parts.is_empty() {
         "all items".to_string()
     } else {
         parts.join("; ")
     };
-    if !chips.is_empty() {
-        out.push_str(&format!(", filtered by {}", chips.join("; ")));
+    if !labels.is_empty() {
+        out.push_str(&format!(", filtered by {}", labels.join("; ")));
     }
     out
 }
@@ -255,7 +255,7 @@ mod tests {
     use super::*;
 
     #[test]
-    fn a_corpus_is_described_in_one_line_with_its_filters_as_their_chips_say() {
+    fn a_corpus_is_described_in_one_line_with_its_filters_as_the_filters_row_says() {
         let steps = vec![
             Step {
                 op: Op::Replace,

@@ -1,4 +1,4 @@
-//! Catalogue filters (the field chips): category values, number ranges, date ranges and text
+//! Catalogue filters (the filters row of the viewer): category values, number ranges, date ranges and text
 //! search. Filters combine with AND; the values of one category filter combine with OR.
 
 use serde::{Deserialize, Serialize};
@@ -84,7 +84,7 @@ impl Filter {
         }
     }
 
-    /// The filter in a few words, as its chip shows it and corpus descriptions write it:
+    /// The filter in a few words, as the filters row shows it and corpus descriptions write it:
     /// "technique: etching, woodcut", "dating: 1500–1560 (overlapping)", "“ash tree”".
     pub fn label(&self) -> String {
         match self {
@@ -281,7 +281,7 @@ pub fn apply(filters: &[Filter], cols: &[FieldColumn], n: usize) -> Result<Appli
 }
 
 /// [`apply`], taking the items of a filter unchanged since `before` (the filters applied last
-/// time) from there: changing one chip recomputes that chip alone.
+/// time) from there: changing one filter recomputes that filter alone.
 pub fn apply_reusing(
     filters: &[Filter],
     cols: &[FieldColumn],

@@ -7,6 +7,9 @@ pub const PAPER: [u8; 3] = [0xF3, 0xEE, 0xE4];
 pub const INK: [u8; 3] = [0x2B, 0x2A, 0x33];
 /// The one accent colour (the open record's outline, the selection).
 pub const ACCENT: [u8; 3] = [0x11, 0x64, 0x66];
+/// The neutral grey surround of the viewer's grey theme (sRGB 124, about 20 % reflectance); the
+/// page's CSS repeats it.
+pub const GREY_SURROUND: [u8; 3] = [0x7C, 0x7C, 0x7C];
 /// Marks of category values beyond the palette's seven.
 pub const UNLISTED: [u8; 3] = [0x9A, 0x96, 0x8E];
 

@@ -1,4 +1,4 @@
-//! The active catalogue filters (the field chips) as the viewer holds them: one filter per field
+//! The active catalogue filters (shown as the filters row) as the viewer holds them: one filter per field
 //! (or per search), their combined items, and the counts shown beside each category value, taken
 //! under every other filter (cross-filtering). Plain Rust, no DOM.
 
@@ -53,7 +53,7 @@ impl Filters {
         };
         let mut list: Vec<Filter> = self.list.iter().filter(|g| key(g) != k).cloned().collect();
         if !empty {
-            // Kept in the order first set, so that chips do not jump about.
+            // Kept in the order first set, so that the filters row does not jump about.
             match self.list.iter().position(|g| key(g) == k) {
                 Some(at) => list.insert(at.min(list.len()), f),
                 None => list.push(f),
@@ -62,7 +62,7 @@ impl Filters {
         self.replace(list, cols, n)
     }
 
-    /// Removes filter `k` (a chip's ×).
+    /// Removes filter `k` (the × of its item in the filters row).
     pub fn remove(&mut self, k: usize, cols: &[FieldColumn], n: usize) -> Result<(), CorpusError> {
         let mut list = self.list.clone();
         if k < list.len() {
@@ -203,7 +203,7 @@ mod tests {
         assert_eq!(f.list().len(), 2);
         assert_eq!(f.list()[0].fields(), ["technique"]);
         assert_eq!(f.passing().unwrap().count(), 4);
-        // An empty choice removes the chip; removing the last leaves no filter at all.
+        // An empty choice removes the filter; removing the last leaves no filter at all.
         f.set(cat("technique", &[]), &cols, 8).unwrap();
         assert_eq!(f.list().len(), 1);
         f.remove(0, &cols, 8).unwrap();
@@ -214,7 +214,7 @@ mod tests {
     }
 
     #[test]
-    fn a_changed_chip_is_recomputed_alone_with_the_same_items_as_afresh() {
+    fn a_changed_filter_is_recomputed_alone_with_the_same_items_as_afresh() {
         let n = 12;
         let titles: Vec<String> = (0..n)
             .map(|i| ["Étude", "Landscape", "Portrait of a Stag"][i % 3].to_string())

@@ -1,173 +1,30 @@
-//! Shows a finished frame (the RGBA buffer the raster drew) through wgpu: one texture upload and
-//! one full-screen triangle that copies texels to the target unchanged. The page draws into its
-//! canvas with it; the native golden-image tests draw into an offscreen texture with the same code.
+//! Where a finished frame goes. The raster draws every frame into an RGBA buffer on the
+//! processor; a [`Present`] shows it: the page's canvas through wgpu's surface (the web crate,
+//! WebGPU where the browser offers it, else WebGL2), an offscreen texture read back (the golden
+//! tests, [`crate::gpu::Offscreen`]), or nowhere ([`NullPresent`], for tests of the core).
 
-/// Copies texel (x, y) of the frame to pixel (x, y) of the target: no filtering, no scaling.
-const SHADER: &str = r#"
-@group(0) @binding(0) var frame: texture_2d<f32>;
-
-@vertex
-fn vs(@builtin(vertex_index) i: u32) -> @builtin(position) vec4<f32> {
-    let x = f32(i32(i & 1u) * 4 - 1);
-    let y = f32(i32(i >> 1u) * 4 - 1);
-    return vec4<f32>(x, y, 0.0, 1.0);
+/// Shows finished frames.
+pub trait Present {
+    /// Shows `pixels` (RGBA, `w` x `h`, rows top to bottom).
+    fn present(&mut self, pixels: &[u8], w: u32, h: u32);
+    /// What draws, for the About note and the tests ("SwiftShader (WebGL2)", "none").
+    fn name(&self) -> &str;
 }
 
-@fragment
-fn fs(@builtin(position) p: vec4<f32>) -> @location(0) vec4<f32> {
-    return textureLoad(frame, vec2<i32>(p.xy), 0);
-}
-"#;
-
-pub struct Presenter {
-    pipeline: wgpu::RenderPipeline,
-    layout: wgpu::BindGroupLayout,
-    /// The frame texture's format: sRGB exactly when the target's is, so that texel values pass
-    /// through unchanged.
-    texture_format: wgpu::TextureFormat,
-    frame: Option<(wgpu::Texture, wgpu::BindGroup, u32, u32)>,
+/// Shows nothing; counts what it was given.
+#[derive(Debug, Default)]
+pub struct NullPresent {
+    pub frames: u64,
+    pub size: (u32, u32),
 }
 
-impl Presenter {
-    pub fn new(device: &wgpu::Device, target: wgpu::TextureFormat) -> Presenter {
-        let texture_format = if target.is_srgb() {
-            wgpu::TextureFormat::Rgba8UnormSrgb
-        } else {
-            wgpu::TextureFormat::Rgba8Unorm
-        };
-        let module = device.create_shader_module(wgpu::ShaderModuleDescriptor {
-            label: Some("frame"),
-            source: wgpu::ShaderSource::Wgsl(SHADER.into()),
-        });
-        let layout = device.create_bind_group_layout(&wgpu::BindGroupLayoutDescriptor {
-            label: Some("frame"),
-            entries: &[wgpu::BindGroupLayoutEntry {
-                binding: 0,
-                visibility: wgpu::ShaderStages::FRAGMENT,
-                ty: wgpu::BindingType::Texture {
-                    sample_type: wgpu::TextureSampleType::Float { filterable: false },
-                    view_dimension: wgpu::TextureViewDimension::D2,
-                    multisampled: false,
-                },
-                count: None,
-            }],
-        });
-        let pipeline_layout = device.create_pipeline_layout(&wgpu::PipelineLayoutDescriptor {
-            label: Some("frame"),
-            bind_group_layouts: &[Some(&layout)],
-            immediate_size: 0,
-        });
-        let pipeline = device.create_render_pipeline(&wgpu::RenderPipelineDescriptor {
-            label: Some("frame"),
-            layout: Some(&pipeline_layout),
-            vertex: wgpu::VertexState {
-                module: &module,
-                entry_point: Some("vs"),
-                compilation_options: Default::default(),
-                buffers: &[],
-            },
-            primitive: wgpu::PrimitiveState::default(),
-            depth_stencil: None,
-            multisample: wgpu::MultisampleState::default(),
-            fragment: Some(wgpu::FragmentState {
-                module: &module,
-                entry_point: Some("fs"),
-                compilation_options: Default::default(),
-                targets: &[Some(wgpu::ColorTargetState {
-                    format: target,
-                    blend: None,
-                    write_mask: wgpu::ColorWrites::ALL,
-                })],
-            }),
-            multiview_mask: None,
-            cache: None,
-        });
-        Presenter {
-            pipeline,
-            layout,
-            texture_format,
-            frame: None,
-        }
+impl Present for NullPresent {
+    fn present(&mut self, pixels: &[u8], w: u32, h: u32) {
+        debug_assert_eq!(pixels.len(), (w * h * 4) as usize);
+        self.frames += 1;
+        self.size = (w, h);
     }
-
-    /// Uploads `pixels` (RGBA, `w` x `h`) and draws them into `target`, which must be `w` x `h`.
-    pub fn draw(
-        &mut self,
-        device: &wgpu::Device,
-        queue: &wgpu::Queue,
-        pixels: &[u8],
-        w: u32,
-        h: u32,
-        target: &wgpu::TextureView,
-    ) {
-        if !matches!(&self.frame, Some((_, _, fw, fh)) if *fw == w && *fh == h) {
-            let texture = device.create_texture(&wgpu::TextureDescriptor {
-                label: Some("frame"),
-                size: wgpu::Extent3d {
-                    width: w,
-                    height: h,
-                    depth_or_array_layers: 1,
-                },
-                mip_level_count: 1,
-                sample_count: 1,
-                dimension: wgpu::TextureDimension::D2,
-                format: self.texture_format,
-                usage: wgpu::TextureUsages::TEXTURE_BINDING | wgpu::TextureUsages::COPY_DST,
-                view_formats: &[],
-            });
-            let view = texture.create_view(&Default::default());
-            let bind = device.create_bind_group(&wgpu::BindGroupDescriptor {
-                label: Some("frame"),
-                layout: &self.layout,
-                entries: &[wgpu::BindGroupEntry {
-                    binding: 0,
-                    resource: wgpu::BindingResource::TextureView(&view),
-                }],
-            });
-            self.frame = Some((texture, bind, w, h));
-        }
-        let (texture, bind, _, _) = self.frame.as_ref().expect("the frame texture");
-        queue.write_texture(
-            wgpu::TexelCopyTextureInfo {
-                texture,
-                mip_level: 0,
-                origin: wgpu::Origin3d::ZERO,
-                aspect: wgpu::TextureAspect::All,
-            },
-            pixels,
-            wgpu::TexelCopyBufferLayout {
-                offset: 0,
-                bytes_per_row: Some(w * 4),
-                rows_per_image: Some(h),
-            },
-            wgpu::Extent3d {
-                width: w,
-                height: h,
-                depth_or_array_layers: 1,
-            },
-        );
-        let mut enc = device.create_command_encoder(&Default::default());
-        {
-            let mut pass = enc.begin_render_pass(&wgpu::RenderPassDescriptor {
-                label: Some("frame"),
-                color_attachments: &[Some(wgpu::RenderPassColorAttachment {
-                    view: target,
-                    depth_slice: None,
-                    resolve_target: None,
-                    ops: wgpu::Operations {
-                        load: wgpu::LoadOp::Clear(wgpu::Color::WHITE),
-                        store: wgpu::StoreOp::Store,
-                    },
-                })],
-                depth_stencil_attachment: None,
-                timestamp_writes: None,
-                occlusion_query_set: None,
-                multiview_mask: None,
-            });
-            pass.set_pipeline(&self.pipeline);
-            pass.set_bind_group(0, bind, &[]);
-            pass.draw(0..3, 0..1);
-        }
-        queue.submit([enc.finish()]);
+    fn name(&self) -> &str {
+        "none"
     }
 }

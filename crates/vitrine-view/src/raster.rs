@@ -34,10 +34,22 @@ pub struct Theme {
     pub accent: [u8; 3],
 }
 
+/// The default look: warm paper, dark ink, one accent.
 pub const READING_ROOM: Theme = Theme {
     paper: vitrine_format::palette::PAPER,
     ink: vitrine_format::palette::INK,
     accent: vitrine_format::palette::ACCENT,
+};
+
+/// A neutral grey surround for judging the colour of pictures: ISO 3664 (viewing conditions for
+/// graphic technology and photography) asks for a neutral, matt grey surround; the value used
+/// here, about 20 % luminous reflectance (sRGB 124), is taken from memory of that standard. Ink
+/// and accent are neutral too (the accent nearly white), so that nothing around the pictures has
+/// a hue; ink on this grey is 4.7:1, the accent 3.7:1.
+pub const NEUTRAL_GREY: Theme = Theme {
+    paper: vitrine_format::palette::GREY_SURROUND,
+    ink: [0x0A, 0x0A, 0x0A],
+    accent: [0xF5, 0xF5, 0xF5],
 };
 
 /// A decoded sheet: RGB pixels.

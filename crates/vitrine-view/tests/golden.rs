@@ -10,11 +10,11 @@
 use std::path::{Path, PathBuf};
 
 use vitrine_build::pipeline::{build, BuildOptions, Silent};
-use vitrine_format::Manifest;
 use vitrine_test_support::write_npy_f32;
 use vitrine_view::atlas::AtlasData;
 use vitrine_view::camera::Camera;
-use vitrine_view::present::Presenter;
+use vitrine_view::gpu::Offscreen;
+use vitrine_view::present::Present;
 use vitrine_view::raster::{draw, Scene, Sheet, SheetLevel, SheetStore, READING_ROOM};
 
 const W: u32 = 320;
@@ -134,14 +134,9 @@ fn sheets(with_large: bool) -> SheetStore {
     SheetStore::new(vec![level(16, false, true), level(BIG, true, with_large)])
 }
 
-struct Gpu {
-    device: wgpu::Device,
-    queue: wgpu::Queue,
-    name: String,
-}
-
-/// Every software-capable adapter here, one per backend: Vulkan (lavapipe) and GL (llvmpipe).
-fn gpus() -> Vec<Gpu> {
+/// Every software-capable adapter here, tried in order: Vulkan (lavapipe), then GL (llvmpipe);
+/// each as an offscreen target that reads its frames back.
+fn gpus() -> Vec<Offscreen> {
     let mut found = Vec::new();
     for backends in [wgpu::Backends::VULKAN, wgpu::Backends::GL] {
         let mut desc = wgpu::InstanceDescriptor::new_without_display_handle();
@@ -163,11 +158,8 @@ fn gpus() -> Vec<Gpu> {
             ..Default::default()
         }))
         .expect("a wgpu device");
-        found.push(Gpu {
-            device,
-            queue,
-            name: format!("{} ({:?}, {:?})", info.name, info.backend, info.device_type),
-        });
+        let name = format!("{} ({:?}, {:?})", info.name, info.backend, info.device_type);
+        found.push(Offscreen::new(device, queue, name));
     }
     assert!(
         !found.is_empty(),
@@ -175,70 +167,6 @@ fn gpus() -> Vec<Gpu> {
          libegl-mesa0 libgl1-mesa-dri; ./build.sh setup does)"
     );
     found
-}
-
-/// Shows `pixels` through the viewer's presenter into an offscreen texture and reads it back.
-fn through_gpu(g: &Gpu, presenter: &mut Presenter, pixels: &[u8]) -> Vec<u8> {
-    let target = g.device.create_texture(&wgpu::TextureDescriptor {
-        label: Some("target"),
-        size: wgpu::Extent3d {
-            width: W,
-            height: H,
-            depth_or_array_layers: 1,
-        },
-        mip_level_count: 1,
-        sample_count: 1,
-        dimension: wgpu::TextureDimension::D2,
-        format: wgpu::TextureFormat::Rgba8Unorm,
-        usage: wgpu::TextureUsages::RENDER_ATTACHMENT | wgpu::TextureUsages::COPY_SRC,
-        view_formats: &[],
-    });
-    presenter.draw(
-        &g.device,
-        &g.queue,
-        pixels,
-        W,
-        H,
-        &target.create_view(&Default::default()),
-    );
-    // W * 4 = 1280 bytes a row, a multiple of the 256 a copy's rows must align to.
-    let out = g.device.create_buffer(&wgpu::BufferDescriptor {
-        label: Some("read back"),
-        size: (W * H * 4) as u64,
-        usage: wgpu::BufferUsages::COPY_DST | wgpu::BufferUsages::MAP_READ,
-        mapped_at_creation: false,
-    });
-    let mut enc = g.device.create_command_encoder(&Default::default());
-    enc.copy_texture_to_buffer(
-        wgpu::TexelCopyTextureInfo {
-            texture: &target,
-            mip_level: 0,
-            origin: wgpu::Origin3d::ZERO,
-            aspect: wgpu::TextureAspect::All,
-        },
-        wgpu::TexelCopyBufferInfo {
-            buffer: &out,
-            layout: wgpu::TexelCopyBufferLayout {
-                offset: 0,
-                bytes_per_row: Some(W * 4),
-                rows_per_image: Some(H),
-            },
-        },
-        wgpu::Extent3d {
-            width: W,
-            height: H,
-            depth_or_array_layers: 1,
-        },
-    );
-    g.queue.submit([enc.finish()]);
-    out.map_async(wgpu::MapMode::Read, .., |r| {
-        r.expect("mapping the read-back buffer")
-    });
-    g.device
-        .poll(wgpu::PollType::wait_indefinitely())
-        .expect("the GPU finished");
-    let bytes = out.get_mapped_range(..).expect("the mapped range").to_vec();
-    bytes
 }
 
 fn golden_dir() -> PathBuf {
@@ -249,11 +177,7 @@ fn golden_dir() -> PathBuf {
 fn each_level_of_detail_draws_its_stored_picture_through_wgpu() {
     let dir = tempfile::tempdir().unwrap();
     let atlas = atlas(dir.path());
-    let gpus = gpus();
-    let mut presenters: Vec<Presenter> = gpus
-        .iter()
-        .map(|g| Presenter::new(&g.device, wgpu::TextureFormat::Rgba8Unorm))
-        .collect();
+    let mut gpus = gpus();
     let bless = std::env::var_os("VITRINE_BLESS").is_some();
     let fit = Camera::fit(atlas.bounds, [W as f64, H as f64]);
     let at_side = |side: f64| Camera {
@@ -334,13 +258,14 @@ fn each_level_of_detail_draws_its_stored_picture_through_wgpu() {
             );
         }
         let mut shown = Vec::new();
-        for (g, presenter) in gpus.iter().zip(presenters.iter_mut()) {
-            shown = through_gpu(g, presenter, &cpu);
-            println!("{name}: shown through {}", g.name);
+        for g in gpus.iter_mut() {
+            g.present(&cpu, W, H);
+            shown = g.pixels.clone();
+            println!("{name}: shown through {}", g.name());
             assert!(
                 shown == cpu,
                 "{name}: wgpu on {} did not show the frame's pixels unchanged",
-                g.name
+                g.name()
             );
         }
         let path = golden_dir().join(format!("{name}.png"));

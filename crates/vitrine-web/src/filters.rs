@@ -1,4 +1,4 @@
-//! The page's side of the catalogue filters: the search box, the field chips, the filter panel
+//! The page's side of the catalogue filters: the search box, the filters row, the filter panel
 //! (category values with their cross-filtered counts, number and date ranges), dim or hide.
 
 use super::*;
@@ -31,7 +31,7 @@ pub fn set(f: Filter) {
             return;
         }
         let n = a.atlas.n;
-        let App { filters, atlas, .. } = &mut *a;
+        let Viewer { filters, atlas, .. } = &mut a.viewer;
         filters.set(f, &atlas.fields, n)
     };
     if let Err(e) = r {
@@ -46,7 +46,7 @@ pub fn remove(k: usize) {
     {
         let mut a = app.borrow_mut();
         let n = a.atlas.n;
-        let App { filters, atlas, .. } = &mut *a;
+        let Viewer { filters, atlas, .. } = &mut a.viewer;
         let _ = filters.remove(k, &atlas.fields, n);
     }
     // The search box mirrors the search filter.
@@ -64,9 +64,9 @@ pub fn remove(k: usize) {
     changed();
 }
 
-/// After any change of the filters: chips, panel, counts, dimming.
+/// After any change of the filters: the filters row, panel, counts, dimming.
 pub fn changed() {
-    render_chips();
+    render_filters_row();
     if by_id("filter-panel").is_some_and(|p| !p.hidden()) {
         update_panel();
     }
@@ -90,25 +90,25 @@ pub fn changed() {
     select::refresh();
 }
 
-/// What a chip says for a filter.
-fn render_chips() {
-    let Some(box_) = by_id("chips") else { return };
+/// The filters row: an item with its × for each active filter.
+fn render_filters_row() {
+    let Some(box_) = by_id("filters") else { return };
     box_.set_text_content(None);
     let Some(app) = app() else { return };
     let list = app.borrow().filters.list().to_vec();
     let doc = document();
     for (k, f) in list.iter().enumerate() {
-        let chip = doc.create_element("span").unwrap();
-        chip.set_class_name("chip");
-        chip.set_text_content(Some(&f.label()));
+        let item = doc.create_element("span").unwrap();
+        item.set_class_name("filter");
+        item.set_text_content(Some(&f.label()));
         let x = doc.create_element("button").unwrap();
         x.set_text_content(Some("×"));
         let _ = x.set_attribute("aria-label", &format!("Remove the filter {}", f.label()));
         listen(&x, "click", true, move |_e: web_sys::MouseEvent| remove(k));
-        let _ = chip.append_child(&x);
-        let _ = box_.append_child(&chip);
+        let _ = item.append_child(&x);
+        let _ = box_.append_child(&item);
     }
-    // More chips than the row shows: the row fades at its end and says how to see the rest.
+    // More filters than the row shows: the row fades at its end and says how to see the rest.
     let over = box_.scroll_width() > box_.client_width();
     let _ = box_.class_list().toggle_with_force("overflowing", over);
     box_.set_title(if over {
@@ -541,8 +541,8 @@ thread_local! {
 }
 
 pub fn install() {
-    if let Some(c) = by_id("chips") {
-        // The wheel over the chips scrolls them sideways.
+    if let Some(c) = by_id("filters") {
+        // The wheel over the filters row scrolls them sideways.
         let c2 = c.clone();
         listen(&c, "wheel", false, move |e: web_sys::WheelEvent| {
             if c2.scroll_width() > c2.client_width() && e.delta_y() != 0.0 {
@@ -598,6 +598,13 @@ pub fn install() {
             }
             select::refresh();
         });
+    }
+}
+
+/// Closes the filter panel if it is open.
+pub fn close_panel() {
+    if by_id("filter-panel").is_some_and(|p| !p.hidden()) {
+        toggle_panel();
     }
 }
 

@@ -15,18 +15,18 @@ use wasm_bindgen_futures::JsFuture;
 use web_sys::{Document, HtmlCanvasElement, HtmlElement};
 
 use vitrine_view::atlas::AtlasData;
-use vitrine_view::camera::{Camera, Glide};
-use vitrine_view::grid::Grid;
-use vitrine_view::pick::Picker;
-use vitrine_view::present::Presenter;
-use vitrine_view::raster::{self, Scene, Sheet, SheetStore, READING_ROOM};
+use vitrine_view::camera::Camera;
+use vitrine_view::gpu::Presenter;
+use vitrine_view::input::{Action, KeyPress};
+use vitrine_view::present::Present;
+use vitrine_view::raster::{self, Sheet};
+use vitrine_view::sketch::Mode;
+use vitrine_view::viewer::{Pointer, Viewer};
 
 const MAX_FETCHES: usize = 4;
 /// Lengths of the animated camera moves: a wheel step or key press, and a return to the whole map.
 const ZOOM_GLIDE_MS: f64 = 160.0;
 const FIT_GLIDE_MS: f64 = 280.0;
-/// Items per cell of the culling grid on average.
-const GRID_ITEMS_PER_CELL: usize = 16;
 
 struct Gpu {
     /// Kept for the page's life: WebGPU stops drawing once the instance is gone.
@@ -42,65 +42,40 @@ struct Gpu {
     backend: &'static str,
 }
 
+/// The page's viewer: the core's [`Viewer`] (everything it knows and decides) and what only a
+/// page has — the canvas, the GPU, the fetches under way, the frame timing.
 struct App {
+    viewer: Viewer,
     canvas: HtmlCanvasElement,
     gpu: Gpu,
-    atlas: AtlasData,
-    sheets: SheetStore,
-    /// Built after the first picture is on screen (hover and clicks wait for it).
-    picker: Option<Picker>,
-    grid: Grid,
-    camera: Camera,
     pixels: Vec<u8>,
-    hover: Option<usize>,
-    open: Option<usize>,
-    drag: Option<Drag>,
-    pointers: HashMap<i32, [f64; 2]>,
-    pinch: Option<f64>,
     frame_pending: bool,
     /// Something changed since the last frame was drawn (a frame drawn at once, as the script
     /// hooks zoom_view, pan_view and fit_view do, clears it, so the requested one is not drawn a
     /// second time).
     dirty: bool,
-    /// The corpus's items in atlas order, as the tray's grid shows them.
-    tray_items: Vec<u32>,
-    /// The animated camera move under way, if any.
-    glide: Option<Glide>,
     fetching: HashSet<(usize, usize)>,
     /// Neighbour chunks being fetched.
     fetching_neighbours: HashSet<usize>,
-    frames: u64,
-    last: raster::FrameStats,
     /// The last frame's milliseconds in the raster, in handing the frame to wgpu (the GPU's own
     /// work on it follows asynchronously) and in the whole of `render` (with labels and axis).
     frame_ms: [f64; 3],
-    /// Zoomed-out marks kept between frames (a pan draws only what comes into view).
-    layer: raster::MarkLayer,
-    base_zoom: f64,
     first_full: bool,
-    /// What a drag does: move the map, or draw a lasso or a box to select with.
-    mode: select::Mode,
-    selection: vitrine_view::selection::Selection,
-    /// The lasso or box being drawn.
-    sketch: Option<select::Sketch>,
-    /// A lasso or box being drawn from the keyboard.
-    key_sketch: Option<select::KeySketch>,
-    /// How items are dimmed for the selection (None: nothing chosen).
-    tones: Option<raster::Tones>,
-    /// Changes with `tones`: the kept layer is redrawn.
-    tones_generation: u64,
-    /// Item index by id (made when a step names items).
-    id_index: Option<HashMap<String, usize>>,
-    /// SHA-256 of the atlas.json text, for the corpus file.
-    manifest_sha: String,
-    filters: vitrine_view::filters::Filters,
     /// The date histogram along the bottom (when the catalogue has a date field).
     timeline: Option<timeline_strip::Strip>,
-    /// The marks' own colours (their pictures' averages) while the marks are coloured by a field.
-    picture_colours: Option<Vec<[u8; 4]>>,
-    /// The record cards walked through (for Backspace), and the one shown last.
-    walk: Vec<usize>,
-    open_prev: Option<usize>,
+}
+
+impl std::ops::Deref for App {
+    type Target = Viewer;
+    fn deref(&self) -> &Viewer {
+        &self.viewer
+    }
+}
+
+impl std::ops::DerefMut for App {
+    fn deref_mut(&mut self) -> &mut Viewer {
+        &mut self.viewer
+    }
 }
 
 mod filters;
@@ -108,12 +83,6 @@ mod select;
 mod share;
 mod timeline_strip;
 mod tray;
-
-struct Drag {
-    start: [f64; 2],
-    last: [f64; 2],
-    moved: bool,
-}
 
 thread_local! {
     static APP: RefCell<Option<Rc<RefCell<App>>>> = const { RefCell::new(None) };
@@ -367,8 +336,15 @@ impl Gpu {
             self.surface.configure(&self.device, &self.config);
         }
     }
+}
+
+impl Present for Gpu {
+    fn name(&self) -> &str {
+        &self.renderer
+    }
 
     fn present(&mut self, pixels: &[u8], w: u32, h: u32) {
+        self.resize(w, h);
         let frame = match self.surface.get_current_texture() {
             wgpu::CurrentSurfaceTexture::Success(t)
             | wgpu::CurrentSurfaceTexture::Suboptimal(t) => t,
@@ -389,54 +365,23 @@ impl App {
         (self.canvas.width().max(1), self.canvas.height().max(1))
     }
 
-    fn scene(&self) -> Scene<'_> {
-        Scene {
-            atlas: &self.atlas,
-            grid: Some(&self.grid),
-            sheets: &self.sheets,
-            camera: &self.camera,
-            hover: self.hover,
-            open: self.open,
-            tones: self.tones.as_ref(),
-            theme: READING_ROOM,
-        }
-    }
-
     fn render(&mut self) {
         let start = now();
         self.dirty = false;
         let (w, h) = self.size();
-        self.gpu.resize(w, h);
-        self.camera.size = [w as f64, h as f64];
         let need = (w * h * 4) as usize;
         if self.pixels.len() != need {
             self.pixels = vec![0; need];
         }
         let mut pixels = std::mem::take(&mut self.pixels);
         let t0 = now();
-        let mut layer = std::mem::take(&mut self.layer);
-        // The kept items depend on the map shown and on how the selection dims them.
-        let key = raster::LayerKey {
-            places: self.atlas.current as u64,
-            looks: self.tones_generation,
-        };
-        let stats = raster::draw_with_layer(
-            &self.scene(),
-            &mut layer,
-            key,
-            &mut pixels,
-            w as usize,
-            h as usize,
-        );
-        self.layer = layer;
+        self.viewer.draw(&mut pixels, w as usize, h as usize);
         let t1 = now();
         self.gpu.present(&pixels, w, h);
         self.frame_ms = [t1 - t0, now() - t1, 0.0];
         self.pixels = pixels;
-        self.frames += 1;
-        self.sheets.touch(&stats.used, self.frames);
         set_state("frames", &self.frames.to_string());
-        if !self.first_full && stats.wanted.is_empty() {
+        if !self.first_full && self.last.wanted.is_empty() {
             // The first frame with everything on screen drawn as it should be (for benchmarks).
             self.first_full = true;
             if let Some(perf) = web_sys::window().and_then(|w| w.performance()) {
@@ -450,27 +395,13 @@ impl App {
         }
         set_state(
             "level",
-            if stats.thumbnails > 0 {
+            if self.last.thumbnails > 0 {
                 "thumbnails"
             } else {
                 "marks"
             },
         );
-        self.last = stats;
         self.frame_ms[2] = now() - start;
-    }
-
-    /// The item under a screen point, if the pointer is on its square (or within a few pixels of a mark).
-    fn pick(&self, s: [f64; 2]) -> Option<usize> {
-        let m = self.camera.to_map(s);
-        let (i, _) = self.picker.as_ref()?.nearest(m)?;
-        let r = self.scene().item_rect(i);
-        let slack = 4.0;
-        (s[0] >= r[0] - slack
-            && s[0] <= r[2] + slack
-            && s[1] >= r[1] - slack
-            && s[1] <= r[3] + slack)
-            .then_some(i)
     }
 
     /// Year ticks along the bottom for maps whose x axis is a quantity (the timeline map).
@@ -515,62 +446,47 @@ impl App {
         }
     }
 
-    /// Cluster labels over the similarity map while it is zoomed out (the larger clusters only).
+    /// Wall labels beside the larger clusters of the similarity map while it is zoomed out: small
+    /// capitals joined to their group by a thin leader line, set where they cover no marks.
     fn update_labels(&self) {
         let Some(layer) = by_id("labels") else { return };
         layer.set_text_content(None);
         let map = &self.atlas.maps[self.atlas.current];
-        let Some(c) = &self.atlas.manifest.clusters else {
-            return;
-        };
         if map.name != "similarity" || self.last.thumbnails > 0 {
             return;
         }
         let doc = document();
         let css = css_per_px();
+        let metrics = vitrine_view::labels::LabelMetrics {
+            char_px: 7.2 / css,
+            height_px: 18.0 / css,
+            reach_px: [18.0 / css, 40.0 / css, 70.0 / css],
+        };
         let min_size = (self.atlas.n as u64 / 100).max(2);
-        // Largest clusters first; a label that would overlap one already placed is left out.
-        let mut placed: Vec<[f64; 4]> = Vec::new();
-        for info in c.list.iter().filter(|i| i.size >= min_size).take(40) {
-            let s = self.camera.to_screen(info.position);
-            if s[0] < 0.0 || s[1] < 0.0 || s[0] > self.camera.size[0] || s[1] > self.camera.size[1]
-            {
-                continue;
+        let labels = vitrine_view::labels::wall_labels(&self.viewer, metrics, 24, min_size);
+        set_state("wallLabels", &labels.len().to_string());
+        let svg_ns = Some("http://www.w3.org/2000/svg");
+        let Ok(svg) = doc.create_element_ns(svg_ns, "svg") else {
+            return;
+        };
+        let _ = svg.set_attribute("class", "leaders");
+        for l in &labels {
+            let (a, b) = vitrine_view::labels::leader(l);
+            if let Ok(line) = doc.create_element_ns(svg_ns, "line") {
+                for (k, v) in [("x1", a[0]), ("y1", a[1]), ("x2", b[0]), ("y2", b[1])] {
+                    let _ = line.set_attribute(k, &format!("{:.1}", v * css));
+                }
+                let _ = svg.append_child(&line);
             }
-            let text: String = info
-                .label
-                .split(" · ")
-                .take(2)
-                .collect::<Vec<_>>()
-                .join(" · ");
-            let (cx, cy) = (s[0] * css, s[1] * css);
-            let half_w = text.chars().count() as f64 * 3.3 + 6.0;
-            let rect = [cx - half_w, cy - 10.0, cx + half_w, cy + 10.0];
-            if placed
-                .iter()
-                .any(|r| r[0] < rect[2] && rect[0] < r[2] && r[1] < rect[3] && rect[1] < r[3])
-            {
-                continue;
-            }
-            placed.push(rect);
             let t: HtmlElement = doc.create_element("span").unwrap().dyn_into().unwrap();
-            t.set_text_content(Some(&text));
-            t.set_title(&format!("{} ({} items)", info.label, info.size));
-            let _ = t
-                .style()
-                .set_property("left", &format!("{:.1}px", s[0] * css));
-            let _ = t
-                .style()
-                .set_property("top", &format!("{:.1}px", s[1] * css));
+            t.set_text_content(Some(&l.text));
+            t.set_title(&l.title);
+            let style = t.style();
+            let _ = style.set_property("left", &format!("{:.1}px", l.rect[0] * css));
+            let _ = style.set_property("top", &format!("{:.1}px", l.rect[1] * css));
             let _ = layer.append_child(&t);
         }
-    }
-
-    fn zoom_limits(&self) -> [f64; 2] {
-        [
-            self.base_zoom * vitrine_view::camera::MIN_ZOOM_FACTOR,
-            self.base_zoom * vitrine_view::camera::MAX_ZOOM_FACTOR,
-        ]
+        let _ = layer.insert_before(&svg, layer.first_child().as_ref());
     }
 }
 
@@ -590,17 +506,7 @@ fn request_frame() {
                 let mut a = app.borrow_mut();
                 a.frame_pending = false;
                 let moved = a.glide.is_some();
-                let gliding = match a.glide {
-                    Some(g) => {
-                        let t = now();
-                        a.camera = g.at(t);
-                        if g.done(t) {
-                            a.glide = None;
-                        }
-                        a.glide.is_some()
-                    }
-                    None => false,
-                };
+                let gliding = a.step_glide(now());
                 // A frame drawn since the request (at once, by a caller) already shows it all.
                 if a.dirty || moved {
                     a.render();
@@ -644,17 +550,10 @@ fn glide_ms(ms: f64) -> f64 {
     }
 }
 
-/// The camera a glide under way is heading for, or the camera itself.
-fn camera_target(a: &App) -> Camera {
-    a.glide.map(|g| g.to).unwrap_or(a.camera)
-}
-
 /// Moves the view to `to` in an animated glide from where it is now.
 fn glide_to(to: Camera, ms: f64) {
     if let Some(app) = app() {
-        let mut a = app.borrow_mut();
-        let from = a.camera;
-        a.glide = Some(Glide::new(from, to, now(), glide_ms(ms)));
+        app.borrow_mut().glide_to(to, now(), glide_ms(ms));
     }
     request_frame();
 }
@@ -713,15 +612,18 @@ fn fetch_sheets(wanted: Vec<(usize, usize)>) {
 
 fn open_card(i: Option<usize>) {
     let Some(app) = app() else { return };
-    app.borrow_mut().open = i;
+    app.borrow_mut().open_card(i);
     let Some(card) = by_id("card") else { return };
     let Some(i) = i else {
-        let mut a = app.borrow_mut();
-        a.walk.clear();
-        a.open_prev = None;
-        drop(a);
+        // Focus that was in the card goes back to the map.
+        let inside = document()
+            .active_element()
+            .is_some_and(|e| card.contains(Some(e.as_ref())));
         card.set_hidden(true);
         set_state("card", "");
+        if inside {
+            focus_map();
+        }
         request_frame();
         return;
     };
@@ -740,16 +642,6 @@ fn open_card(i: Option<usize>) {
     };
     if let Some(w) = want {
         fetch_sheets(vec![w]);
-    }
-    // Walking from card to card: the way back.
-    {
-        let mut a = app.borrow_mut();
-        if let Some(prev) = a.open_prev.take() {
-            if prev != i {
-                a.walk.push(prev);
-            }
-        }
-        a.open_prev = Some(i);
     }
     let a = app.borrow();
     let doc = document();
@@ -872,23 +764,50 @@ fn fetch_neighbours(i: usize) {
 /// card before it.
 fn card_step(forward: bool) {
     let Some(app) = app() else { return };
-    let next = {
-        let mut a = app.borrow_mut();
-        let Some(i) = a.open else { return };
-        if forward {
-            let walked = a.walk.clone();
-            a.atlas
-                .neighbours_of(i)
-                .and_then(|nb| nb.into_iter().find(|j| !walked.contains(j) && *j != i))
-        } else {
-            let back = a.walk.pop();
-            // Going back must not record the card left as a step forward.
-            a.open_prev = None;
-            back
-        }
-    };
+    let next = app.borrow_mut().card_step(forward);
     if let Some(j) = next {
         open_card(Some(j));
+    }
+}
+
+/// Opens the record card of the item nearest the centre of the view, and moves the keyboard's
+/// focus into it (Escape closes it and brings the focus back to the map).
+fn open_nearest() {
+    let Some(app) = app() else { return };
+    let i = app.borrow().nearest_to_centre();
+    match i {
+        Some(i) => {
+            open_card(Some(i));
+            if let Some(h) = by_id("card").and_then(|c| c.query_selector("h2").ok().flatten()) {
+                if let Ok(h) = h.dyn_into::<HtmlElement>() {
+                    let _ = h.set_attribute("tabindex", "-1");
+                    let _ = h.focus();
+                }
+            }
+        }
+        None => select::note("No item in view: move or zoom out first."),
+    }
+}
+
+/// The help overlay's list of keys, from the one key map's help (so it cannot drift from the keys).
+fn write_help() {
+    let Some(dl) = by_id("help-keys") else { return };
+    let doc = document();
+    dl.set_text_content(None);
+    for (keys, what) in vitrine_view::input::KEYS {
+        let dt = doc.create_element("dt").unwrap();
+        dt.set_text_content(Some(keys));
+        let dd = doc.create_element("dd").unwrap();
+        dd.set_text_content(Some(what));
+        let _ = dl.append_child(&dt);
+        let _ = dl.append_child(&dd);
+    }
+}
+
+/// Gives the keyboard's focus to the map.
+fn focus_map() {
+    if let Some(m) = by_id("map") {
+        let _ = m.focus();
     }
 }
 
@@ -983,30 +902,19 @@ fn listen<E: wasm_bindgen::convert::FromWasmAbi + 'static>(
 
 fn zoom_by(factor: f64, at: Option<[f64; 2]>) {
     let Some(app) = app() else { return };
-    let to = {
-        let a = app.borrow();
-        let at = at.unwrap_or([a.camera.size[0] / 2.0, a.camera.size[1] / 2.0]);
-        let mut to = camera_target(&a);
-        to.zoom_at(at, factor, a.zoom_limits());
-        to
-    };
+    let to = app.borrow().zoomed(factor, at);
     glide_to(to, ZOOM_GLIDE_MS);
 }
 
 fn pan_by(dx: f64, dy: f64) {
     let Some(app) = app() else { return };
-    let mut to = camera_target(&app.borrow());
-    to.pan(dx, dy);
+    let to = app.borrow().panned(dx, dy);
     glide_to(to, ZOOM_GLIDE_MS);
 }
 
 fn fit() {
     let Some(app) = app() else { return };
-    let to = {
-        let a = app.borrow();
-        let (w, h) = a.size();
-        Camera::fit(a.atlas.bounds, [w as f64, h as f64])
-    };
+    let to = app.borrow().fitted();
     glide_to(to, FIT_GLIDE_MS);
 }
 
@@ -1015,19 +923,9 @@ fn set_map(i: usize) {
     let Some(app) = app() else { return };
     {
         let mut a = app.borrow_mut();
-        if i >= a.atlas.maps.len() {
+        if !a.set_map(i) {
             return;
         }
-        a.atlas.select_map(i);
-        a.picker = Some(Picker::new(&a.atlas.positions));
-        a.grid = Grid::new(&a.atlas.positions, a.atlas.bounds, GRID_ITEMS_PER_CELL);
-        let (w, h) = a.size();
-        a.glide = None;
-        a.camera = Camera::fit(a.atlas.bounds, [w as f64, h as f64]);
-        a.base_zoom = a.camera.zoom;
-        a.hover = None;
-        // A keyboard sketch's points belong to the map they were dropped on.
-        a.key_sketch = None;
         select::show_key_sketch(&a);
         set_state("map", &a.atlas.maps[i].name);
     }
@@ -1040,6 +938,162 @@ fn set_map(i: usize) {
     request_frame();
 }
 
+/// Carries out one action: every key, button and script command of the page comes here.
+fn dispatch(action: Action) {
+    use vitrine_view::input::ZOOM_STEP;
+    match action {
+        Action::ZoomIn => zoom_by(ZOOM_STEP, None),
+        Action::ZoomOut => zoom_by(1.0 / ZOOM_STEP, None),
+        Action::Fit => fit(),
+        Action::Pan { dx, dy } => pan_by(dx, dy),
+        Action::NextMap => {
+            if let Some(app) = app() {
+                let next = app.borrow().next_map();
+                set_map(next);
+            }
+        }
+        Action::OpenNearest => open_nearest(),
+        Action::NextNeighbour => card_step(true),
+        Action::PreviousCard => card_step(false),
+        Action::Escape => escape(),
+        Action::SetMode(m) => select::set_mode(m),
+        Action::SelectAll => select::everything(),
+        Action::SelectView { add } => select::select_view(add),
+        Action::ClearSelection => select::clear(),
+        Action::Undo => select::undo(false),
+        Action::Redo => select::undo(true),
+        Action::KeyPoint { add, subtract } => select::key_point(add, subtract),
+        Action::KeyClose => {
+            select::key_close();
+        }
+        Action::FocusSearch => {
+            if let Some(i) = by_id("search") {
+                let _ = i.focus();
+            }
+        }
+        Action::ToggleFilterPanel => filters::toggle_panel(),
+        Action::ToggleHelp => toggle_panel("help"),
+        Action::ToggleAbout => toggle_panel("about"),
+        Action::ToggleTheme => toggle_theme(),
+    }
+}
+
+/// Escape: drops a keyboard lasso under way, else leaves a selection mode, else closes every
+/// open panel (record card, help, about, filter panel).
+fn escape() {
+    if select::key_cancel() {
+        return;
+    }
+    let selecting = app().is_some_and(|a| a.borrow().mode != Mode::Move);
+    if selecting {
+        return select::set_mode(Mode::Move);
+    }
+    open_card(None);
+    for id in ["help", "about"] {
+        if let Some(p) = by_id(id) {
+            if !p.hidden() {
+                p.set_hidden(true);
+                focus_map();
+            }
+        }
+    }
+    filters::close_panel();
+}
+
+/// Shows or hides a panel of the page (help, about), moving the focus into it and back.
+fn toggle_panel(id: &str) {
+    let Some(p) = by_id(id) else { return };
+    let show = p.hidden();
+    p.set_hidden(!show);
+    if show {
+        let _ = p.set_attribute("tabindex", "-1");
+        let _ = p.focus();
+    } else {
+        focus_map();
+    }
+}
+
+/// The themes, in the order `g` steps through them: the paper reading room, and a neutral grey
+/// surround for judging colour (ISO 3664 asks for a neutral grey surround when pictures are
+/// compared for colour).
+const THEMES: [(&str, raster::Theme); 2] = [
+    ("paper", raster::READING_ROOM),
+    ("grey", raster::NEUTRAL_GREY),
+];
+
+/// The theme kept in the browser between visits (local storage), or the paper one.
+fn stored_theme() -> usize {
+    web_sys::window()
+        .and_then(|w| w.local_storage().ok().flatten())
+        .and_then(|s| s.get_item("vitrine-theme").ok().flatten())
+        .and_then(|t| THEMES.iter().position(|(n, _)| *n == t))
+        .unwrap_or(0)
+}
+
+/// Puts theme `k` on the page and the map, and remembers it.
+fn apply_theme(k: usize) {
+    let (name, theme) = THEMES[k % THEMES.len()];
+    if let Some(b) = document().body() {
+        let _ = b.set_attribute("data-theme", name);
+    }
+    if let Some(s) = web_sys::window().and_then(|w| w.local_storage().ok().flatten()) {
+        let _ = s.set_item("vitrine-theme", name);
+    }
+    if let Some(c) = document()
+        .get_element_by_id("theme-choice")
+        .and_then(|e| e.dyn_into::<web_sys::HtmlSelectElement>().ok())
+    {
+        c.set_value(name);
+    }
+    if let Some(app) = app() {
+        app.borrow_mut().set_theme(theme);
+        timeline_strip::draw();
+    }
+    request_frame();
+}
+
+fn toggle_theme() {
+    let now = document()
+        .body()
+        .and_then(|b| b.get_attribute("data-theme"))
+        .and_then(|t| THEMES.iter().position(|(n, _)| *n == t))
+        .unwrap_or(0);
+    apply_theme(now + 1);
+}
+
+/// What a pointer event came to, on the page.
+fn pointer_outcome(outcome: Pointer) {
+    match outcome {
+        Pointer::Nothing => {}
+        Pointer::Sketch => {
+            let a = app();
+            select::draw_sketch(a.as_ref().and_then(|a| a.borrow().sketch.clone()).as_ref());
+        }
+        Pointer::Moved => request_frame(),
+        Pointer::Hover(p) => {
+            let i = app().and_then(|a| a.borrow().pick(p));
+            set_hover(i);
+        }
+        Pointer::Click { at, ctrl } => {
+            let Some(app) = app() else { return };
+            let i = app.borrow().pick(at);
+            if ctrl {
+                // Ctrl-click (Cmd-click) adds the item to the selection or takes it out.
+                let step = i.and_then(|i| app.borrow().toggle_step(i));
+                if let Some(step) = step {
+                    select::apply(step);
+                }
+            } else {
+                open_card(i);
+            }
+        }
+        Pointer::Step(step) => {
+            select::draw_sketch(None);
+            select::apply(step);
+        }
+    }
+}
+
 fn install_events(canvas: &HtmlCanvasElement) {
     let c = canvas.clone();
     listen(
@@ -1049,35 +1103,11 @@ fn install_events(canvas: &HtmlCanvasElement) {
         move |e: web_sys::PointerEvent| {
             let p = pointer_pos(&c, e.client_x() as f64, e.client_y() as f64);
             let _ = c.set_pointer_capture(e.pointer_id());
-            if let Some(app) = app() {
-                let mut a = app.borrow_mut();
-                a.pointers.insert(e.pointer_id(), p);
-                let sketch = select::sketch_for(a.mode, e.shift_key(), e.alt_key());
-                if a.pointers.len() == 1 {
-                    if let Some(mut s) = sketch {
-                        s.extend(p);
-                        a.sketch = Some(s);
-                        a.drag = None;
-                        return;
-                    }
-                }
-                if a.sketch.take().is_some() {
-                    // A second finger ends the lasso being drawn.
-                    select::draw_sketch(None);
-                }
-                if a.pointers.len() == 2 {
-                    let v: Vec<[f64; 2]> = a.pointers.values().copied().collect();
-                    a.pinch =
-                        Some(((v[0][0] - v[1][0]).powi(2) + (v[0][1] - v[1][1]).powi(2)).sqrt());
-                    a.drag = None;
-                } else {
-                    a.drag = Some(Drag {
-                        start: p,
-                        last: p,
-                        moved: false,
-                    });
-                }
-            }
+            let Some(app) = app() else { return };
+            let outcome =
+                app.borrow_mut()
+                    .pointer_down(e.pointer_id(), p, e.shift_key(), e.alt_key());
+            pointer_outcome(outcome);
         },
     );
     let c = canvas.clone();
@@ -1088,51 +1118,8 @@ fn install_events(canvas: &HtmlCanvasElement) {
         move |e: web_sys::PointerEvent| {
             let p = pointer_pos(&c, e.client_x() as f64, e.client_y() as f64);
             let Some(app) = app() else { return };
-            let mut hover_query = None;
-            {
-                let mut a = app.borrow_mut();
-                if a.pointers.contains_key(&e.pointer_id()) {
-                    a.pointers.insert(e.pointer_id(), p);
-                }
-                if let Some(s) = a.sketch.as_mut() {
-                    s.extend(p);
-                    select::draw_sketch(a.sketch.as_ref());
-                    return;
-                }
-                if a.pointers.len() == 2 {
-                    let v: Vec<[f64; 2]> = a.pointers.values().copied().collect();
-                    let d = ((v[0][0] - v[1][0]).powi(2) + (v[0][1] - v[1][1]).powi(2)).sqrt();
-                    if let Some(prev) = a.pinch {
-                        let mid = [(v[0][0] + v[1][0]) / 2.0, (v[0][1] + v[1][1]) / 2.0];
-                        let limits = a.zoom_limits();
-                        a.glide = None;
-                        a.camera.zoom_at(mid, d / prev.max(1.0), limits);
-                    }
-                    a.pinch = Some(d);
-                } else if let Some(drag) = a.drag.as_mut() {
-                    // The map moves by whole pixels (the rest is carried to the next move), so
-                    // that zoomed-out frames can reuse the marks already drawn.
-                    let (fx, fy) = (p[0] - drag.last[0], p[1] - drag.last[1]);
-                    let (dx, dy) = (fx.round(), fy.round());
-                    drag.last = [drag.last[0] + dx, drag.last[1] + dy];
-                    if (p[0] - drag.start[0]).abs() + (p[1] - drag.start[1]).abs() > 4.0 {
-                        drag.moved = true;
-                    }
-                    if drag.moved {
-                        a.glide = None;
-                        a.camera.pan(dx, dy);
-                    }
-                } else {
-                    hover_query = Some(p);
-                }
-            }
-            match hover_query {
-                Some(p) => {
-                    let i = app.borrow().pick(p);
-                    set_hover(i);
-                }
-                None => request_frame(),
-            }
+            let outcome = app.borrow_mut().pointer_move(e.pointer_id(), p);
+            pointer_outcome(outcome);
         },
     );
     let c = canvas.clone();
@@ -1143,29 +1130,10 @@ fn install_events(canvas: &HtmlCanvasElement) {
         move |e: web_sys::PointerEvent| {
             let p = pointer_pos(&c, e.client_x() as f64, e.client_y() as f64);
             let Some(app) = app() else { return };
-            let (click, sketch) = {
-                let mut a = app.borrow_mut();
-                a.pointers.remove(&e.pointer_id());
-                if a.pointers.len() < 2 {
-                    a.pinch = None;
-                }
-                let drag = a.drag.take();
-                (drag.is_some_and(|d| !d.moved), a.sketch.take())
-            };
-            if let Some(mut s) = sketch {
-                s.extend(p);
-                select::finish(s, p);
-            } else if click {
-                let i = app.borrow().pick(p);
-                if e.ctrl_key() || e.meta_key() {
-                    // Ctrl-click (Cmd-click) adds the item to the selection or takes it out.
-                    if let Some(i) = i {
-                        select::toggle(i);
-                    }
-                } else {
-                    open_card(i);
-                }
-            }
+            let outcome =
+                app.borrow_mut()
+                    .pointer_up(e.pointer_id(), p, e.ctrl_key() || e.meta_key());
+            pointer_outcome(outcome);
         },
     );
     listen(
@@ -1174,11 +1142,7 @@ fn install_events(canvas: &HtmlCanvasElement) {
         false,
         move |e: web_sys::PointerEvent| {
             if let Some(app) = app() {
-                let mut a = app.borrow_mut();
-                a.pointers.remove(&e.pointer_id());
-                a.drag = None;
-                a.pinch = None;
-                a.sketch = None;
+                app.borrow_mut().pointer_cancel(e.pointer_id());
             }
             select::draw_sketch(None);
         },
@@ -1202,95 +1166,31 @@ fn install_events(canvas: &HtmlCanvasElement) {
         "keydown",
         false,
         move |e: web_sys::KeyboardEvent| {
-            let typing = e
+            let target = e
                 .target()
-                .and_then(|t| t.dyn_into::<web_sys::HtmlElement>().ok())
-                .is_some_and(|t| matches!(t.tag_name().as_str(), "INPUT" | "TEXTAREA" | "SELECT"));
-            if typing {
+                .and_then(|t| t.dyn_into::<web_sys::HtmlElement>().ok());
+            let tag = target.as_ref().map(|t| t.tag_name()).unwrap_or_default();
+            // Keys typed into the search box or a filter's fields are text, not commands.
+            if matches!(tag.as_str(), "INPUT" | "TEXTAREA" | "SELECT") {
                 return;
             }
-            // Keyboard lassos and boxes: Enter drops a vertex at the centre of the view, Space
-            // closes the lasso (not on buttons and links, whose own Enter and Space these are).
-            let on_control = e
-                .target()
-                .and_then(|t| t.dyn_into::<web_sys::HtmlElement>().ok())
-                .is_some_and(|t| matches!(t.tag_name().as_str(), "BUTTON" | "A" | "SUMMARY"));
-            let selecting = app().is_some_and(|a| a.borrow().mode != select::Mode::Move);
-            if selecting && !on_control && !(e.ctrl_key() || e.meta_key()) {
-                let done = match e.key().as_str() {
-                    "Enter" => {
-                        select::key_vertex(e.shift_key(), e.alt_key());
-                        true
-                    }
-                    " " => select::key_close(),
-                    _ => false,
-                };
-                if done {
-                    e.prevent_default();
-                    return;
-                }
-            }
-            if e.ctrl_key() || e.meta_key() {
-                match e.key().to_lowercase().as_str() {
-                    "z" => select::undo(e.shift_key()),
-                    "y" => select::undo(true),
-                    _ => return,
-                }
+            let key = e.key();
+            let press = KeyPress {
+                key: &key,
+                shift: e.shift_key(),
+                ctrl: e.ctrl_key() || e.meta_key(),
+                alt: e.alt_key(),
+                on_control: matches!(tag.as_str(), "BUTTON" | "A" | "SUMMARY"),
+            };
+            let selecting = app().is_some_and(|a| a.borrow().mode != Mode::Move);
+            if let Some(action) = vitrine_view::input::key_action(&press, selecting) {
                 e.prevent_default();
-                return;
+                dispatch(action);
             }
-            if e.alt_key() {
-                return;
-            }
-            let step = 80.0;
-            let pan = pan_by;
-            match e.key().as_str() {
-                "+" | "=" => zoom_by(1.4, None),
-                "-" | "_" => zoom_by(1.0 / 1.4, None),
-                "0" | "f" => fit(),
-                "ArrowLeft" => pan(step, 0.0),
-                "ArrowRight" => pan(-step, 0.0),
-                "ArrowUp" => pan(0.0, step),
-                "ArrowDown" => pan(0.0, -step),
-                "Escape" => {
-                    if select::key_cancel() {
-                        // The keyboard sketch is dropped; the mode stays.
-                    } else if selecting {
-                        select::set_mode(select::Mode::Move);
-                    } else {
-                        open_card(None);
-                    }
-                }
-                "n" => card_step(true),
-                "Backspace" => card_step(false),
-                "l" => select::set_mode(select::Mode::Lasso),
-                "b" => select::set_mode(select::Mode::Box),
-                "a" => select::everything(),
-                "v" => select::select_view(false),
-                "V" => select::select_view(true),
-                "x" => select::clear(),
-                "/" => {
-                    if let Some(i) = by_id("search") {
-                        let _ = i.focus();
-                    }
-                }
-                "c" => filters::toggle_panel(),
-                "m" => {
-                    if let Some(app) = app() {
-                        let next = {
-                            let a = app.borrow();
-                            (a.atlas.current + 1) % a.atlas.maps.len()
-                        };
-                        set_map(next);
-                    }
-                }
-                _ => return,
-            }
-            e.prevent_default();
         },
     );
     // The canvas changes size with the window and when the bars above and below it grow or
-    // shrink (the timeline strip appearing, the chip bar wrapping on a narrow window): its
+    // shrink (the timeline strip appearing, the filters bar wrapping on a narrow window): its
     // pixels must follow its box, or
     // the browser would scale the picture and pointer positions would drift.
     let c = canvas.clone();
@@ -1310,15 +1210,33 @@ fn install_events(canvas: &HtmlCanvasElement) {
         timeline_strip::draw();
         request_frame();
     });
-    for (id, f) in [("zoom-in", 0u8), ("zoom-out", 1), ("fit", 2)] {
+    for (id, action) in [
+        ("zoom-in", Action::ZoomIn),
+        ("zoom-out", Action::ZoomOut),
+        ("fit", Action::Fit),
+        ("help-button", Action::ToggleHelp),
+        ("about-button", Action::ToggleAbout),
+    ] {
         if let Some(b) = by_id(id) {
-            listen(&b, "click", true, move |_e: web_sys::MouseEvent| match f {
-                0 => zoom_by(1.4, None),
-                1 => zoom_by(1.0 / 1.4, None),
-                _ => fit(),
+            listen(&b, "click", true, move |_e: web_sys::MouseEvent| {
+                dispatch(action)
             });
         }
     }
+    if let Some(sel) = document()
+        .get_element_by_id("theme-choice")
+        .and_then(|e| e.dyn_into::<web_sys::HtmlSelectElement>().ok())
+    {
+        let s2 = sel.clone();
+        listen(&sel, "change", true, move |_e: web_sys::Event| {
+            let k = THEMES
+                .iter()
+                .position(|(n, _)| *n == s2.value())
+                .unwrap_or(0);
+            apply_theme(k);
+        });
+    }
+    write_help();
 }
 
 /// CSS pixels per canvas pixel (the canvas is sized at the device's pixel ratio, see
@@ -1384,12 +1302,6 @@ async fn load(base: String) -> Result<(), String> {
     let gpu = init_gpu(&canvas).await?;
     set_state("renderer", &gpu.renderer);
     set_state("backend", gpu.backend);
-    let grid = Grid::new(&atlas.positions, atlas.bounds, GRID_ITEMS_PER_CELL);
-    let camera = Camera::fit(
-        atlas.bounds,
-        [canvas.width() as f64, canvas.height() as f64],
-    );
-    let sheets = SheetStore::from_manifest(&atlas.manifest);
     if let Some(t) = by_id("atlas-title") {
         t.set_text_content(Some(&atlas.manifest.title));
     }
@@ -1448,48 +1360,28 @@ async fn load(base: String) -> Result<(), String> {
     if let Some(c) = by_id("atlas-count") {
         c.set_text_content(Some(&format!("{} items", atlas.n)));
     }
-    let base_zoom = camera.zoom;
+    let theme = stored_theme();
+    let viewer = Viewer::new(
+        atlas,
+        [canvas.width() as f64, canvas.height() as f64],
+        manifest_sha,
+        THEMES[theme].1,
+    );
     let app = App {
+        viewer,
         canvas: canvas.clone(),
         gpu,
-        atlas,
-        sheets,
-        picker: None,
-        grid,
-        camera,
         pixels: Vec::new(),
-        hover: None,
-        open: None,
-        drag: None,
-        pointers: HashMap::new(),
-        pinch: None,
         frame_pending: false,
         dirty: false,
-        tray_items: Vec::new(),
-        glide: None,
         fetching: HashSet::new(),
         fetching_neighbours: HashSet::new(),
-        frames: 0,
-        last: Default::default(),
         frame_ms: [0.0; 3],
-        layer: Default::default(),
-        base_zoom,
         first_full: false,
-        mode: select::Mode::Move,
-        selection: Default::default(),
-        sketch: None,
-        key_sketch: None,
-        tones: None,
-        tones_generation: 0,
-        id_index: None,
-        manifest_sha,
-        filters: Default::default(),
         timeline: None,
-        picture_colours: None,
-        walk: Vec::new(),
-        open_prev: None,
     };
     APP.with(|a| *a.borrow_mut() = Some(Rc::new(RefCell::new(app))));
+    apply_theme(theme);
     install_events(&canvas);
     select::install();
     filters::install();
@@ -1519,7 +1411,7 @@ async fn load_catalogue(base: String) -> Result<(), String> {
     after_next_frame().await;
     {
         let mut a = app.borrow_mut();
-        a.picker = Some(Picker::new(&a.atlas.positions));
+        a.make_picker();
     }
     let got = fetched_many(pending, &later).await?;
     app.borrow_mut()
@@ -1632,9 +1524,8 @@ pub fn view_state() -> String {
 pub fn fit_view() {
     let Some(app) = app() else { return };
     let mut a = app.borrow_mut();
-    let (w, h) = a.size();
     a.glide = None;
-    a.camera = Camera::fit(a.atlas.bounds, [w as f64, h as f64]);
+    a.camera = a.fitted();
     a.render();
 }
 

@@ -1,52 +1,27 @@
-//! The page's side of selection: lasso and box drawn with the pointer, clicks that add or remove
-//! one item, undo and redo, the selected count, the corpus tray and its exports (downloads).
+//! The page's side of selection: lasso and rectangle outlines over the map, the mode buttons,
+//! the keyboard lasso's crosshair, notes, the corpus tray and its exports (downloads). What is
+//! selected, and how, is decided by the core's viewer.
 
 use super::*;
-use vitrine_corpus::corpus::{corpus_mask, AtlasRef, CorpusFile, Lookup, Made, Op, Shape, Step};
+use vitrine_corpus::corpus::{AtlasRef, CorpusFile, Made, Op, Shape, Step};
 use vitrine_corpus::corpus::{CORPUS_FORMAT, CORPUS_VERSION};
 use vitrine_corpus::export::{build_record, csv, iiif_manifest, IiifOptions};
-
-/// What a drag on the map does.
-#[derive(Clone, Copy, PartialEq, Eq)]
-pub enum Mode {
-    Move,
-    Lasso,
-    Box,
-}
-
-/// A lasso or box being drawn: screen points (canvas pixels) and what it will do.
-pub struct Sketch {
-    pub op: Op,
-    pub boxed: bool,
-    pub points: Vec<[f64; 2]>,
-}
-
-/// Screen points closer than this to the last kept one are dropped from a lasso.
-const LASSO_STEP_PX: f64 = 3.0;
-
-impl Mode {
-    fn name(self) -> &'static str {
-        match self {
-            Mode::Move => "move",
-            Mode::Lasso => "lasso",
-            Mode::Box => "box",
-        }
-    }
-}
+use vitrine_view::sketch::Sketch;
 
 /// Switches the drag mode (the same mode again goes back to moving the map).
 pub fn set_mode(m: Mode) {
     let Some(app) = app() else { return };
     let m = {
         let mut a = app.borrow_mut();
-        a.mode = if a.mode == m { Mode::Move } else { m };
-        // A keyboard sketch belongs to the mode it was begun in.
-        a.key_sketch = None;
+        let m = a.set_mode(m);
         show_key_sketch(&a);
-        a.mode
+        m
     };
     set_state("mode", m.name());
-    for (id, mode) in [("mode-lasso", Mode::Lasso), ("mode-box", Mode::Box)] {
+    for (id, mode) in [
+        ("mode-lasso", Mode::Lasso),
+        ("mode-rectangle", Mode::Rectangle),
+    ] {
         if let Some(b) = by_id(id) {
             let _ = b.set_attribute("aria-pressed", if m == mode { "true" } else { "false" });
         }
@@ -58,135 +33,50 @@ pub fn set_mode(m: Mode) {
     }
 }
 
-/// What a drag starting now does with these modifier keys: a sketch, or None (move the map).
-pub fn sketch_for(mode: Mode, shift: bool, alt: bool) -> Option<Sketch> {
-    let op = if shift {
-        Op::Add
-    } else if alt {
-        Op::Subtract
-    } else {
-        Op::Replace
-    };
-    match mode {
-        Mode::Move if !(shift || alt) => None,
-        Mode::Box => Some(Sketch {
-            op,
-            boxed: true,
-            points: Vec::new(),
-        }),
-        _ => Some(Sketch {
-            op,
-            boxed: false,
-            points: Vec::new(),
-        }),
-    }
-}
-
-impl Sketch {
-    pub fn extend(&mut self, p: [f64; 2]) {
-        let far = self
-            .points
-            .last()
-            .is_none_or(|q| (p[0] - q[0]).hypot(p[1] - q[1]) >= LASSO_STEP_PX);
-        if self.boxed && self.points.len() >= 2 {
-            self.points[1] = p;
-        } else if far {
-            self.points.push(p);
-        }
-    }
-
-    /// Whether the pointer barely moved (a click, not a drawing).
-    pub fn is_click(&self) -> bool {
-        let (mut lo, mut hi) = ([f64::INFINITY; 2], [f64::NEG_INFINITY; 2]);
-        for p in &self.points {
-            for k in 0..2 {
-                lo[k] = lo[k].min(p[k]);
-                hi[k] = hi[k].max(p[k]);
-            }
-        }
-        self.points.len() < 2 || (hi[0] - lo[0]).max(hi[1] - lo[1]) < 5.0
-    }
-}
-
-/// A lasso or box drawn from the keyboard: Enter drops a vertex (a corner) at the centre of the
-/// view, which the arrow keys and zoom keys move; Space closes a lasso. Vertices are kept in map
-/// coordinates, so the view may move between them.
-pub struct KeySketch {
-    pub op: Op,
-    pub boxed: bool,
-    pub points: Vec<[f64; 2]>,
-}
-
-/// Enter in lasso or box mode: a vertex at the view's centre; a box's second corner applies it.
-/// The first vertex fixes what the lasso does: Shift adds, Alt takes away.
-pub fn key_vertex(shift: bool, alt: bool) {
+/// Enter in a selection mode: a point (a corner) at the view's centre; a rectangle's second
+/// corner applies it.
+pub fn key_point(add: bool, subtract: bool) {
     let Some(app) = app() else { return };
-    let (boxed, n) = {
-        let mut a = app.borrow_mut();
-        if a.mode == Mode::Move {
-            return;
+    let done = app.borrow_mut().key_point(add, subtract);
+    match done {
+        Some(step) => {
+            show_key_sketch(&app.borrow());
+            apply(step);
         }
-        let boxed = a.mode == Mode::Box;
-        let centre = camera_target(&a).centre;
-        let op = sketch_for(a.mode, shift, alt).map_or(Op::Replace, |s| s.op);
-        let ks = a.key_sketch.get_or_insert_with(|| KeySketch {
-            op,
-            boxed,
-            points: Vec::new(),
-        });
-        ks.points.push(centre);
-        (boxed, ks.points.len())
-    };
-    if boxed && n >= 2 {
-        key_close();
-    } else {
-        show_key_sketch(&app.borrow());
-        // The hint sits by the crosshair (a note in the bar would make the bar, and the map, change size).
-        let hint = if boxed {
-            "corner 1 — move the view, Enter for the other corner".to_string()
-        } else {
-            format!("point {n} — move the view, Enter for the next; Space closes, Escape drops")
-        };
-        if let Some(h) = by_id("crosshair-hint") {
-            h.set_text_content(Some(&hint));
+        None => {
+            let hint = app.borrow().key_sketch.as_ref().map(|k| k.hint());
+            show_key_sketch(&app.borrow());
+            // The hint sits by the crosshair (a note in the bar would make the bar, and the map, change size).
+            if let (Some(h), Some(hint)) = (by_id("crosshair-hint"), hint) {
+                h.set_text_content(Some(&hint));
+            }
+            request_frame();
         }
-        request_frame();
     }
 }
 
-/// Space in lasso mode: closes the keyboard lasso and applies it; false when none is being drawn.
-/// A lasso of fewer than three points, or a box with one corner, stays as it is, with a note.
+/// Space in a selection mode: closes the keyboard lasso and applies it; false when none is
+/// being drawn. One that is not complete stays as it is, with a note by the crosshair.
 pub fn key_close() -> bool {
     let Some(app) = app() else { return false };
-    let short = match app.borrow().key_sketch.as_ref() {
-        None => return false,
-        Some(ks) if ks.boxed => (ks.points.len() < 2)
-            .then_some("A box needs its other corner: move the view and press Enter."),
-        Some(ks) => (ks.points.len() < 3).then_some(
-            "A lasso needs three points at least: move the view and press Enter for each.",
-        ),
-    };
-    if let Some(why) = short {
-        if let Some(h) = by_id("crosshair-hint") {
-            h.set_text_content(Some(why));
+    let closed = app.borrow_mut().key_close();
+    match closed {
+        Ok(None) => false,
+        Err(why) => {
+            if let Some(h) = by_id("crosshair-hint") {
+                h.set_text_content(Some(why));
+            }
+            true
         }
-        return true;
+        Ok(Some(step)) => {
+            show_key_sketch(&app.borrow());
+            apply(step);
+            true
+        }
     }
-    let Some(ks) = app.borrow_mut().key_sketch.take() else {
-        return false;
-    };
-    show_key_sketch(&app.borrow());
-    let shape = if ks.boxed {
-        let (a, b) = (ks.points[0], ks.points[1]);
-        Shape::Rect([a[0], a[1], b[0], b[1]])
-    } else {
-        Shape::Lasso(vitrine_corpus::polygon::Polygon(ks.points))
-    };
-    apply(Step { op: ks.op, shape });
-    true
 }
 
-/// Escape: drops the keyboard lasso or box being drawn; false when there is none.
+/// Escape: drops the keyboard lasso or rectangle being drawn; false when there is none.
 pub fn key_cancel() -> bool {
     let Some(app) = app() else { return false };
     let had = app.borrow_mut().key_sketch.take().is_some();
@@ -197,7 +87,7 @@ pub fn key_cancel() -> bool {
     had
 }
 
-/// The keyboard sketch over the map as the view now is: its vertices joined to the centre of the
+/// The keyboard sketch over the map as the view now is: its points joined to the centre of the
 /// view (marked by a crosshair), or nothing.
 pub fn show_key_sketch(a: &App) {
     let cross = by_id("crosshair");
@@ -213,26 +103,14 @@ pub fn show_key_sketch(a: &App) {
     if let Some(c) = cross {
         c.set_hidden(false);
     }
-    let cam = a.camera;
-    let screen = |p: [f64; 2]| cam.to_screen([p[0] as f32, p[1] as f32]);
-    let centre = [cam.size[0] / 2.0, cam.size[1] / 2.0];
-    let mut points: Vec<[f64; 2]> = ks.points.iter().map(|&p| screen(p)).collect();
-    points.push(centre);
-    draw_sketch(Some(&Sketch {
-        op: ks.op,
-        boxed: ks.boxed,
-        points,
-    }));
+    draw_sketch(Some(&ks.on_screen(&a.camera)));
 }
 
 /// The items in view: v makes them the selection, Shift+V adds them.
 pub fn select_view(add: bool) {
     let Some(app) = app() else { return };
-    let r = camera_target(&app.borrow()).visible(0.0);
-    apply(Step {
-        op: if add { Op::Add } else { Op::Replace },
-        shape: Shape::Rect(r),
-    });
+    let step = app.borrow().view_step(add);
+    apply(step);
 }
 
 /// Redraws the sketch overlay (an SVG outline over the map), or hides it.
@@ -240,17 +118,11 @@ pub fn draw_sketch(s: Option<&Sketch>) {
     let Some(svg) = document().get_element_by_id("sketch") else {
         return;
     };
-    let Some(s) = s.filter(|s| s.points.len() >= 2) else {
+    let Some((s, pts)) = s.and_then(|s| Some((s, s.outline()?))) else {
         let _ = svg.set_attribute("hidden", "");
         return;
     };
     let k = css_per_px();
-    let pts: Vec<[f64; 2]> = if s.boxed {
-        let (a, b) = (s.points[0], s.points[1]);
-        vec![a, [b[0], a[1]], b, [a[0], b[1]]]
-    } else {
-        s.points.clone()
-    };
     let text: Vec<String> = pts
         .iter()
         .map(|p| format!("{:.1},{:.1}", p[0] * k, p[1] * k))
@@ -268,126 +140,15 @@ pub fn draw_sketch(s: Option<&Sketch>) {
     let _ = svg.remove_attribute("hidden");
 }
 
-/// The item index of an id (the index is made on first use).
-pub fn index_of(a: &mut App) -> Option<&HashMap<String, usize>> {
-    // Never from the empty id table of a catalogue still loading.
-    if a.id_index.is_none() && a.atlas.catalogue {
-        let m = (0..a.atlas.n)
-            .map(|i| (a.atlas.ids.get(i).to_string(), i))
-            .collect();
-        a.id_index = Some(m);
-    }
-    a.id_index.as_ref()
-}
-
-/// Runs `f` with the selection and a lookup on the selection's map.
-pub fn with_lookup<R>(
-    a: &mut App,
-    needs_ids: bool,
-    f: impl FnOnce(&mut vitrine_view::selection::Selection, &Lookup) -> R,
-) -> R {
-    // The id index (a million strings for a million items) is made only when a step names items.
-    if needs_ids {
-        index_of(a);
-    }
-    let App {
-        atlas,
-        selection,
-        id_index,
-        grid,
-        ..
-    } = a;
-    let selection_map = &selection.map.min(atlas.maps.len() - 1);
-    let find = |id: &str| id_index.as_ref().and_then(|m| m.get(id).copied());
-    let same_map = *selection_map == atlas.current;
-    let near = |r: [f64; 4]| {
-        let mut v = Vec::new();
-        grid.query_any_order(r, &mut v);
-        v
-    };
-    let at = Lookup {
-        positions: &atlas.maps[*selection_map].positions,
-        index_of: &find,
-        // The grid is of the map shown: it can narrow lassos only on that map.
-        near: if same_map { Some(&near) } else { None },
-    };
-    f(selection, &at)
-}
-
 /// Adds a step to the selection (the page's count, tray and picture follow).
 pub fn apply(step: Step) {
     let Some(app) = app() else { return };
     note("");
-    let result = {
-        let mut a = app.borrow_mut();
-        if !a.atlas.catalogue {
-            return note("The catalogue is still loading: select again in a moment.");
-        }
-        let drawn = matches!(step.shape, Shape::Lasso(_) | Shape::Rect(_));
-        if a.selection.steps().is_empty() {
-            begin_here(&mut a);
-        } else if drawn && a.selection.map != a.atlas.current {
-            let name = a.atlas.maps[a.selection.map].name.clone();
-            drop(a);
-            return note(&format!(
-                "This selection was drawn on the {name} map: go back to it to draw more, or clear it (x) to start on this one."
-            ));
-        }
-        let ids = matches!(step.shape, Shape::Ids(_));
-        with_lookup(&mut a, ids, |sel, at| sel.push(step, at))
-    };
+    let result = app.borrow_mut().apply_step(step);
     refresh();
     if let Err(e) = result {
-        note(&e.to_string());
+        note(&e);
     }
-}
-
-/// A selection begun now (there are no steps yet) is on the map shown.
-pub fn begin_here(a: &mut App) {
-    if a.selection.steps().is_empty() {
-        a.selection.map = a.atlas.current;
-    }
-}
-
-/// Ends a sketch at pointer-up: a lasso or box becomes a step; a click adds or removes the item
-/// under the pointer.
-pub fn finish(s: Sketch, p: [f64; 2]) {
-    draw_sketch(None);
-    let Some(app) = app() else { return };
-    if s.is_click() {
-        let i = app.borrow().pick(p);
-        if let Some(i) = i {
-            toggle(i);
-        }
-        return;
-    }
-    let cam = app.borrow().camera;
-    let shape = if s.boxed {
-        let (a, b) = (cam.to_map(s.points[0]), cam.to_map(s.points[1]));
-        Shape::Rect([a[0], a[1], b[0], b[1]])
-    } else {
-        let pts = s.points.iter().map(|&q| cam.to_map(q)).collect();
-        Shape::Lasso(vitrine_corpus::polygon::Polygon(pts))
-    };
-    apply(Step { op: s.op, shape });
-}
-
-/// Adds item `i` to the selection, or removes it when it is selected.
-pub fn toggle(i: usize) {
-    let Some(app) = app() else { return };
-    let (id, on) = {
-        let a = app.borrow();
-        let on = a.selection.mask().is_some_and(|m| m.get(i));
-        (a.atlas.id(i).to_string(), on)
-    };
-    if id.is_empty() {
-        return;
-    }
-    let op = if on { Op::Subtract } else { Op::Add };
-    apply(Step {
-        op,
-        shape: Shape::Ids(vec![id]),
-    });
 }
 
 pub fn everything() {
@@ -406,24 +167,10 @@ pub fn clear() {
 
 pub fn undo(redo: bool) {
     let Some(app) = app() else { return };
-    let r = {
-        let mut a = app.borrow_mut();
-        let done = if redo {
-            a.selection.redo()
-        } else {
-            a.selection.undo()
-        };
-        let ids = a.selection.names_items();
-        // Replayed on the map the restored steps were drawn on.
-        if done {
-            with_lookup(&mut a, ids, |sel, at| sel.recompute(at))
-        } else {
-            Ok(())
-        }
-    };
+    let r = app.borrow_mut().undo(redo);
     refresh();
     if let Err(e) = r {
-        note(&e.to_string());
+        note(&e);
     }
 }
 
@@ -435,56 +182,17 @@ pub fn note(text: &str) {
     }
 }
 
-/// The corpus's items: the selection narrowed by the filters, in atlas order.
-fn corpus_items(a: &mut App) -> Vec<usize> {
-    let steps = a.selection.steps().to_vec();
-    let filters = a.filters.list().to_vec();
-    let cols = std::mem::take(&mut a.atlas.fields);
-    let ids = steps.iter().any(|s| matches!(s.shape, Shape::Ids(_)));
-    let items = with_lookup(a, ids, |_, at| corpus_mask(&steps, &filters, &cols, at));
-    a.atlas.fields = cols;
-    match items {
-        Ok(m) => m.items().collect(),
-        Err(e) => {
-            note(&e.to_string());
-            Vec::new()
-        }
-    }
-}
-
 /// After any change of the selection: the dimming, the count, the tray, the undo buttons.
 pub fn refresh() {
     let Some(app) = app() else { return };
-    let (count, corpus, history, any) = {
-        let mut a = app.borrow_mut();
-        let paper = READING_ROOM.paper;
-        let (sel, pass) = (a.selection.mask(), a.filters.passing());
-        let tones =
-            vitrine_view::selection::tones(&a.atlas.colours, paper, sel, pass, a.filters.hide);
-        let corpus_mask = match (sel, pass) {
-            (Some(s), Some(p)) => {
-                let mut m = s.clone();
-                m.and(p);
-                Some(m)
-            }
-            (Some(m), None) | (None, Some(m)) => Some(m.clone()),
-            (None, None) => None,
-        };
-        let corpus = corpus_mask.as_ref().map(|m| m.count());
-        let figures = corpus_mask
-            .as_ref()
-            .map(|m| vitrine_corpus::summary::figures(&a.atlas.fields, m, 3));
-        show_figures(figures.as_ref());
-        let count = sel.map(|m| m.count());
-        a.tray_items = corpus_mask
-            .as_ref()
-            .map(|m| m.items().map(|i| i as u32).collect())
-            .unwrap_or_default();
-        a.tones = tones;
-        a.tones_generation += 1;
-        let history = a.selection.history();
-        (count, corpus, history, corpus.is_some())
-    };
+    let state = app.borrow_mut().corpus_changed();
+    show_figures(state.figures.as_ref());
+    let (count, corpus, history, any) = (
+        state.selected,
+        state.corpus,
+        state.history,
+        state.corpus.is_some(),
+    );
     set_state("corpus", &corpus.map_or(String::new(), |c| c.to_string()));
     set_state("selected", &count.map_or(String::new(), |c| c.to_string()));
     if let Some(c) = by_id("selected-count") {
@@ -510,13 +218,7 @@ pub fn refresh() {
         }
     }
     if let Some(d) = by_id("tray-how") {
-        let a = app.borrow();
-        let map = &a.atlas.maps[a.selection.map.min(a.atlas.maps.len() - 1)].name;
-        d.set_text_content(Some(&vitrine_corpus::corpus::describe(
-            map,
-            a.selection.steps(),
-            a.filters.list(),
-        )));
+        d.set_text_content(Some(&state.description));
     }
     timeline_strip::draw();
     tray::schedule();
@@ -605,12 +307,16 @@ pub fn export(kind: &str) {
         drop(a);
         return note("The catalogue is still loading: export in a moment.");
     }
-    let items = corpus_items(&mut a);
+    let items = match a.corpus_items() {
+        Ok(items) => items,
+        Err(e) => {
+            drop(a);
+            return note(&e);
+        }
+    };
     let m = &a.atlas.manifest;
     let stem = format!("{}-corpus-{}", file_stem(&m.title), items.len());
-    let map = a.atlas.maps[a.selection.map.min(a.atlas.maps.len() - 1)]
-        .name
-        .clone();
+    let map = a.selection_map_name().to_string();
     let description = vitrine_corpus::corpus::describe(&map, a.selection.steps(), a.filters.list());
     let (name, mime, text) = match kind {
         "csv" => (
@@ -680,7 +386,7 @@ pub fn export(kind: &str) {
 pub fn install() {
     for (id, what) in [
         ("mode-lasso", 0u8),
-        ("mode-box", 1),
+        ("mode-rectangle", 1),
         ("undo", 2),
         ("redo", 3),
         ("clear", 4),
@@ -695,12 +401,12 @@ pub fn install() {
                 "click",
                 true,
                 move |_e: web_sys::MouseEvent| match what {
-                    0 => set_mode(Mode::Lasso),
-                    1 => set_mode(Mode::Box),
-                    2 => undo(false),
-                    3 => undo(true),
-                    4 => clear(),
-                    5 => everything(),
+                    0 => dispatch(Action::SetMode(Mode::Lasso)),
+                    1 => dispatch(Action::SetMode(Mode::Rectangle)),
+                    2 => dispatch(Action::Undo),
+                    3 => dispatch(Action::Redo),
+                    4 => dispatch(Action::ClearSelection),
+                    5 => dispatch(Action::SelectAll),
                     6 => export("csv"),
                     7 => export("json"),
                     _ => export("iiif"),
@@ -723,11 +429,17 @@ pub fn select_lasso(points: Vec<f64>, op: &str) -> usize {
     };
     let s = Sketch {
         op,
-        boxed: false,
+        rectangle: false,
         points: points.chunks_exact(2).map(|p| [p[0], p[1]]).collect(),
     };
-    if let Some(&last) = s.points.last() {
-        finish(s, last);
+    if s.points.len() >= 3 {
+        let step = app().map(|a| Step {
+            op: s.op,
+            shape: s.shape(&a.borrow().camera),
+        });
+        if let Some(step) = step {
+            apply(step);
+        }
     }
     app()
         .and_then(|a| a.borrow().selection.mask().map(|m| m.count()))

@@ -1,6 +1,6 @@
 //! The timeline strip along the bottom: the date histogram of the whole collection, of what the
 //! filters leave and of the corpus, each item's weight spread over its dating range. Brushing it
-//! sets the date chip (overlapping years); a click without a drag removes it.
+//! sets the date filter (overlapping years); a click without a drag removes it.
 
 use super::*;
 use vitrine_corpus::columns::Column;
@@ -32,6 +32,7 @@ fn canvas() -> Option<HtmlCanvasElement> {
 /// Makes the strip for the first date field, once the catalogue is loaded.
 pub fn install(a: &mut App) {
     let Some((k, c)) = a
+        .viewer
         .atlas
         .fields
         .iter()
@@ -44,7 +45,7 @@ pub fn install(a: &mut App) {
         return;
     };
     let mut span: Option<(i32, i32)> = None;
-    for i in 0..a.atlas.n {
+    for i in 0..a.viewer.atlas.n {
         if start[i] != i32::MIN {
             span = Some(span.map_or((start[i], end[i]), |(x, y)| {
                 (x.min(start[i]), y.max(end[i]))
@@ -53,7 +54,7 @@ pub fn install(a: &mut App) {
     }
     let Some((lo, hi)) = span else { return };
     let mut whole = Histogram::covering(lo, hi, bin_years(lo, hi, MAX_BINS));
-    whole.add(start, end, 0..a.atlas.n);
+    whole.add(start, end, 0..a.viewer.atlas.n);
     a.timeline = Some(Strip {
         field: k,
         name: c.field.name.clone(),
@@ -173,12 +174,14 @@ fn listen_brush(cv: &HtmlCanvasElement) {
 fn update_histograms(a: &mut App) {
     let (fg, sg) = (a.filters.generation, a.selection.generation);
     let App {
-        timeline,
+        timeline, viewer, ..
+    } = a;
+    let Viewer {
         atlas,
         filters,
         selection,
         ..
-    } = a;
+    } = viewer;
     let Some(s) = timeline.as_mut() else { return };
     let Column::Date { start, end } = &atlas.fields[s.field].column else {
         return;
@@ -277,7 +280,7 @@ pub fn draw() {
         let _ = ctx.fill_text(&y.to_string(), x + 2.0 * ratio, h - 2.0 * ratio);
         y += step;
     }
-    // The brush, or the date chip's range.
+    // The brush, or the date filter's range.
     let range = s
         .brush
         .map(|(x0, x1)| (x0.min(x1), x0.max(x1)))

@@ -154,8 +154,8 @@ fn remove(i: usize) {
             return;
         }
         // The corpus may have been the filters' alone: the selection begins here.
-        select::begin_here(&mut a);
-        select::with_lookup(&mut a, true, |sel, at| sel.remove_ids(vec![id], at))
+        a.begin_here();
+        a.with_lookup(true, |sel, at| sel.remove_ids(vec![id], at))
     };
     if let Err(e) = r {
         select::note(&e.to_string());
@@ -174,7 +174,7 @@ fn show(i: usize) {
         let s = a.camera.to_screen(p);
         let [w, h] = a.camera.size;
         (s[0] < 0.0 || s[1] < 0.0 || s[0] > w || s[1] > h).then(|| {
-            let mut c = camera_target(&a);
+            let mut c = a.camera_target();
             c.centre = [p[0] as f64, p[1] as f64];
             c
         })
