@@ -94,6 +94,10 @@ setup_browser() {
 
 run_tests() {
   setup
+  echo "[test] formatting and lints (cargo fmt --check, cargo clippy -D warnings, native and wasm32)"
+  cargo fmt --all --check
+  cargo clippy --locked --workspace --all-targets --release -- -D warnings
+  cargo clippy --locked -p vitrine-web --target wasm32-unknown-unknown -- -D warnings
   echo "[test] cargo test (workspace)"
   cargo test --workspace --locked --release 2>&1
   echo "[test] golden images of the renderer through wgpu on Mesa's software Vulkan and GL"

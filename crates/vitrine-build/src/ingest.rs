@@ -16,6 +16,9 @@ use crate::report::Laps;
 
 pub const IMAGE_EXTENSIONS: &[&str] = &["jpg", "jpeg", "png", "tif", "tiff", "webp", "gif", "bmp"];
 
+/// A date field's name and each item's dating (None: undated).
+pub type Datings = (String, Vec<Option<YearRange>>);
+
 /// The user's files but the vectors, read, matched and checked.
 pub struct Inputs {
     pub catalogue: Option<Catalogue>,
@@ -80,10 +83,7 @@ pub fn read(
 impl Inputs {
     /// The catalogue date field that orders the timeline map: `--date-field`, else the first
     /// column read as dates; with each item's dating. None when there is no catalogue or no date field.
-    pub fn datings(
-        &self,
-        date_field: Option<&str>,
-    ) -> Result<Option<(String, Vec<Option<YearRange>>)>, InputError> {
+    pub fn datings(&self, date_field: Option<&str>) -> Result<Option<Datings>, InputError> {
         let (Some(cat), Some(rows)) = (&self.catalogue, &self.items.catalogue_rows) else {
             return Ok(None);
         };

@@ -979,7 +979,7 @@ fn pca_pre_reduction_keeps_distances_and_is_recorded() {
             .map(|j| 0.5 + ((i * 31 + j * 17 + i * j * 7) % 23) as f32 / 7.0)
             .collect();
         for c in 0..8 {
-            data.push((0..4).map(|j| z[j] * basis[j][c]).sum());
+            data.push(z.iter().zip(&basis).map(|(zj, b)| zj * b[c]).sum());
         }
     }
     write_npy_f32(&d.join("vectors.npy"), 80, 8, &data).unwrap();

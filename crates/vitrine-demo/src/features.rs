@@ -21,7 +21,7 @@ pub fn describe(img: &RgbImage) -> Vec<f32> {
         lum[i] = 0.2126 * p[0] as f32 + 0.7152 * p[1] as f32 + 0.0722 * p[2] as f32;
     }
     let mut grads = vec![0f64; GRID * GRID * ORIENTATIONS];
-    let mut layout = vec![0f64; LAYOUT * LAYOUT];
+    let mut layout = [0f64; LAYOUT * LAYOUT];
     let mut layout_n = vec![0f64; LAYOUT * LAYOUT];
     let mut edge_total = 0f64;
     for y in 0..h {

@@ -228,7 +228,7 @@ pub fn generate(
             let enc = image::codecs::jpeg::JpegEncoder::new_with_quality(file, 90);
             img.write_with_encoder(enc)?;
             let c = done.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
-            if c % 32 == 0 {
+            if c.is_multiple_of(32) {
                 progress(c);
             }
             Ok((rec, feats))

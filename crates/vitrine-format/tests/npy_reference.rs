@@ -78,7 +78,7 @@ fn numpy_reads_what_we_write() {
 fn truncated_and_foreign_files_are_refused_with_the_reason() {
     let dir = tempfile::tempdir().unwrap();
     let p = dir.path().join("full.npy");
-    write_npy_f32(&p, 10, 4, &vec![1.0; 40]).unwrap();
+    write_npy_f32(&p, 10, 4, &[1.0; 40]).unwrap();
     let bytes = std::fs::read(&p).unwrap();
     let cut = &bytes[..bytes.len() - 20];
     let e = parse_npy(cut).unwrap_err().to_string();

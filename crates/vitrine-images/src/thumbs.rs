@@ -86,6 +86,11 @@ pub fn thumbnail(
     Ok((fit(&d.rgb, long_side), [d.width, d.height]))
 }
 
+/// A thumbnail and its image's size as shown (width, height), or why there is none.
+type Made = Result<(RgbImage, [u32; 2]), ImageFailure>;
+/// A file's SHA-256 (hex) and its size in bytes; empty when it could not be read.
+type Digest = (String, u64);
+
 /// The largest level's thumbnail of one image file and the image's size, taken from the cache
 /// when the file is unchanged, else made (and stored in the cache); with the file's digest.
 fn largest_thumbnail(
@@ -93,7 +98,7 @@ fn largest_thumbnail(
     plan: &SheetPlan,
     cache: Option<&crate::cache::ThumbCache>,
     counts: &CacheCounts,
-) -> (Result<(RgbImage, [u32; 2]), ImageFailure>, (String, u64)) {
+) -> (Made, Digest) {
     use std::sync::atomic::Ordering::Relaxed;
     let largest = *plan.cells.last().expect("at least one level");
     let key = cache.and_then(|c| c.key(path));
@@ -201,7 +206,7 @@ pub fn make_sheets(
                     Ok(p) => largest_thumbnail(p, plan, cache, &counts),
                 };
                 let c = done.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
-                if c % 16 == 0 {
+                if c.is_multiple_of(16) {
                     progress(c);
                 }
                 match result {

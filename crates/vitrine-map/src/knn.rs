@@ -126,7 +126,7 @@ pub fn exact_knn(
                 dists[slot] = d as f32;
             }
             let c = done.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
-            if c % 256 == 0 {
+            if c.is_multiple_of(256) {
                 progress(c);
             }
             (ids, dists)

@@ -109,11 +109,14 @@ pub fn fit_with_progress(m: &Matrix, dims: usize, seed: u64, progress: &dyn Fn(u
     let cq = covariance_times(m, &rows, &mean, &q);
     progress(FIT_STEPS, FIT_STEPS);
     let mut small = vec![vec![0f64; l]; l];
+    // Indices read as the matrix algebra writes them (small = Qᵀ C Q, then symmetrised).
+    #[allow(clippy::needless_range_loop)]
     for a in 0..l {
         for b in 0..l {
             small[a][b] = dot(&q[a], &cq[b]);
         }
     }
+    #[allow(clippy::needless_range_loop)]
     for a in 0..l {
         for b in 0..a {
             let s = 0.5 * (small[a][b] + small[b][a]);

@@ -30,6 +30,9 @@ const MAX_PRODUCTS: usize = 2000;
 const BLOCK: usize = 4;
 const CHUNK: usize = 4096;
 
+/// A part's two spectral coordinates, its residual and the products it took.
+type PartLayout = ([Vec<f64>; 2], f64, usize);
+
 /// How the start was made, for the manifest's provenance.
 #[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct StartReport {
@@ -355,7 +358,7 @@ pub fn spectral_start(
     // The PCA start spans about [-10, 10]; each part gets a share of that area by its size.
     let one = parts.len() == 1;
     // Parts are laid out side by side (most are small); each part's own sums run over fixed chunks.
-    let laid: Vec<Option<([Vec<f64>; 2], f64, usize)>> = parts
+    let laid: Vec<Option<PartLayout>> = parts
         .par_iter()
         .enumerate()
         .map(|(c, items)| {

@@ -42,7 +42,7 @@ pub fn timeline_map(
     let height = WIDTH * 2.0 / 3.0;
     let y_of = |v: f32| -> f32 {
         if hi > lo {
-            ((v - lo) / (hi - lo) - 0.5) as f32 * height as f32
+            ((v - lo) / (hi - lo) - 0.5) * height as f32
         } else {
             0.0
         }

@@ -742,6 +742,8 @@ fn split_by(v: &mut [f64], bounds: Vec<usize>) -> Vec<&mut [f64]> {
     out
 }
 
+// The D coordinates of two points are walked together by index, as the method's update is written.
+#[allow(clippy::needless_range_loop)]
 fn layout_sequential<const D: usize>(
     graph: &FuzzyGraph,
     start: Vec<[f32; D]>,

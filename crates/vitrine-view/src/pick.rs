@@ -83,7 +83,7 @@ mod tests {
         };
         let pts: Vec<[f32; 2]> = (0..5000).map(|_| [next(), next()]).collect();
         let mut with_dupes = pts.clone();
-        with_dupes.extend(std::iter::repeat([50.0, 50.0]).take(200));
+        with_dupes.extend(std::iter::repeat_n([50.0, 50.0], 200));
         let p = Picker::new(&with_dupes);
         for _ in 0..200 {
             let q = [next() as f64, next() as f64];

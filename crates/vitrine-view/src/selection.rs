@@ -229,16 +229,16 @@ mod tests {
                 op,
                 shape: Shape::Rect(r),
             };
-            s.push(rect(Op::Replace, [-0.5, -0.5, 2.5, 2.5]), &at)
+            s.push(rect(Op::Replace, [-0.5, -0.5, 2.5, 2.5]), at)
                 .unwrap(); // 9
-            s.push(rect(Op::Add, [6.5, 6.5, 9.5, 9.5]), &at).unwrap(); // + 9
+            s.push(rect(Op::Add, [6.5, 6.5, 9.5, 9.5]), at).unwrap(); // + 9
             let lasso = Polygon::parse("-1,-1 0.5,-1 0.5,0.5 -1,0.5").unwrap(); // item 0
             s.push(
                 Step {
                     op: Op::Subtract,
                     shape: Shape::Lasso(lasso),
                 },
-                &at,
+                at,
             )
             .unwrap();
             assert_eq!(s.mask().unwrap().count(), 17);
@@ -246,7 +246,7 @@ mod tests {
             assert!(s.mask().is_none());
             let undo = |s: &mut Selection| {
                 let done = s.undo();
-                s.recompute(&at).unwrap();
+                s.recompute(at).unwrap();
                 done
             };
             assert!(undo(&mut s));
@@ -254,22 +254,21 @@ mod tests {
             assert!(undo(&mut s));
             assert_eq!(s.mask().unwrap().count(), 18);
             assert!(s.redo());
-            s.recompute(&at).unwrap();
+            s.recompute(at).unwrap();
             assert_eq!(s.mask().unwrap().count(), 17);
             // A new step forgets what could be redone.
-            s.push(rect(Op::Add, [-0.5, -0.5, 0.5, 0.5]), &at).unwrap();
+            s.push(rect(Op::Add, [-0.5, -0.5, 0.5, 0.5]), at).unwrap();
             assert_eq!(s.history(), (true, false));
             assert_eq!(s.mask().unwrap().count(), 18);
             while undo(&mut s) {}
             assert!(s.mask().is_none() && s.steps().is_empty());
             // The history keeps each state's map: steps drawn on map 0, cleared, then drawn on map 1;
             // undoing back past the clear returns to map 0's steps and map 0.
-            s.push(rect(Op::Replace, [-0.5, -0.5, 2.5, 2.5]), &at)
+            s.push(rect(Op::Replace, [-0.5, -0.5, 2.5, 2.5]), at)
                 .unwrap();
             s.clear();
             s.map = 1;
-            s.push(rect(Op::Replace, [6.5, 6.5, 9.5, 9.5]), &at)
-                .unwrap();
+            s.push(rect(Op::Replace, [6.5, 6.5, 9.5, 9.5]), at).unwrap();
             assert!(s.undo() && s.map == 1 && s.steps().is_empty());
             assert!(s.undo() && s.map == 0 && s.steps().len() == 1);
         });
@@ -281,13 +280,13 @@ mod tests {
             // Nothing selected by hand (the corpus is what the filters leave): removing two items
             // selects everything but them, in one step of the history.
             let mut s = Selection::default();
-            s.remove_ids(vec!["3".into(), "40".into()], &at).unwrap();
+            s.remove_ids(vec!["3".into(), "40".into()], at).unwrap();
             let m = s.mask().unwrap();
             assert_eq!(m.count(), 98);
             assert!(!m.get(3) && !m.get(40) && m.get(4));
             assert_eq!(s.steps().len(), 2);
             assert!(s.undo());
-            s.recompute(&at).unwrap();
+            s.recompute(at).unwrap();
             assert!(s.mask().is_none() && !s.history().0);
             // With a selection: only the items go.
             s.push(
@@ -295,14 +294,14 @@ mod tests {
                     op: Op::Replace,
                     shape: Shape::Rect([-0.5, -0.5, 2.5, 2.5]),
                 },
-                &at,
+                at,
             )
             .unwrap();
-            s.remove_ids(vec!["11".into()], &at).unwrap();
+            s.remove_ids(vec!["11".into()], at).unwrap();
             assert_eq!(s.mask().unwrap().count(), 8);
             assert_eq!(s.steps().len(), 2);
             // An id the atlas does not have changes nothing.
-            assert!(s.remove_ids(vec!["nope".into()], &at).is_err());
+            assert!(s.remove_ids(vec!["nope".into()], at).is_err());
             assert_eq!(s.mask().unwrap().count(), 8);
             assert_eq!(s.steps().len(), 2);
         });

@@ -373,7 +373,7 @@ fn kept_marks_give_the_pixels_of_a_full_draw_while_drawing_only_what_came_into_v
             })
             .collect(),
         weight: (0..atlas.n)
-            .map(|i| if (i + k) % 3 == 0 { 0 } else { 256 })
+            .map(|i| if (i + k).is_multiple_of(3) { 0 } else { 256 })
             .collect(),
     };
     assert!(
@@ -588,7 +588,7 @@ fn a_selection_dims_the_rest_and_hidden_items_leave_paper() {
     let mix = |c: u8, p: u8, wt: u32| ((c as u32 * wt + p as u32 * (256 - wt) + 128) >> 8) as u8;
     for zoom in [4.0, 100.0] {
         // Zoomed out (marks) and in (thumbnails), one item of each group in the middle.
-        for g in 0..3 {
+        for (g, own) in COLOURS.iter().copied().enumerate() {
             let i = (0..atlas.n).find(|&i| group(i) == g).unwrap();
             let p = atlas.positions[i];
             let cam = Camera {
@@ -609,7 +609,6 @@ fn a_selection_dims_the_rest_and_hidden_items_leave_paper() {
             let mut buf = vec![0u8; w * h * 4];
             draw(&scene, &mut buf, w, h);
             let c = pixel(&buf, w, w as f64 / 2.0, h as f64 / 2.0);
-            let own = COLOURS[g];
             let want = match g {
                 0 => own,
                 1 => [0, 1, 2].map(|k| mix(own[k], paper[k], UNSELECTED_WEIGHT as u32)),

@@ -22,7 +22,7 @@ fn main() {
     let mut buf = vec![0u8; w * h * 4];
     let fit = Camera::fit(atlas.bounds, [w as f64, h as f64]);
     for (name, factor) in [("fit", 1.0), ("x8", 8.0), ("x64", 64.0)] {
-        let mut cam = fit.clone();
+        let mut cam = fit;
         cam.zoom *= factor;
         let p = atlas.positions[0];
         if factor > 1.0 {
