@@ -22,7 +22,7 @@ HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
 SOURCE_VERSION = 1
 TECHNIQUES = ["etching", "engraving", "woodcut", "drawing", "mezzotint", "lithograph", "photograph"]
-PLACES = ["Varnholt", "Osterlee", "Brisca", "Montaubel", "Kessendorf", "Lurano", "Tremmel", "Saint-Oriel"]
+PLACES = ["Varnholt", "Osterlee", "Brisca", "Montaubel", "Quellendaar", "Lurano", "Tremmel", "Saint-Oriel"]
 
 
 def log(msg):

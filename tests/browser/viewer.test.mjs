@@ -654,6 +654,117 @@ test("where the browser offers WebGPU the viewer draws with it, the same pixels 
   }
 });
 
+test("by keyboard alone: named controls, the record nearest the centre, focus into panels and back, Escape, the grey surround, wall labels, the map glide", async () => {
+  const url = await serve(ATLAS);
+  const { page, errors } = await newPage(url);
+  await page.waitForFunction(() => document.body.dataset.state === "ready", null, { timeout: 60000 });
+  // Every button has a name a screen reader speaks (WCAG 2.2, 4.1.2): its text or aria-label,
+  // never a bare symbol.
+  const unnamed = await page.evaluate(() => [...document.querySelectorAll("button")]
+    .filter((b) => !b.closest("[hidden]"))
+    .map((b) => ({ id: b.id, name: (b.getAttribute("aria-label") || b.textContent).trim() }))
+    .filter((b) => b.name.length < 2));
+  assert.deepEqual(unnamed, []);
+  for (const [id, name] of [["zoom-in", "Zoom in"], ["zoom-out", "Zoom out"], ["help-button", "Keys"]]) {
+    assert.equal(await page.locator(`#${id}`).getAttribute("aria-label"), name);
+  }
+  // Control borders reach 3:1 against the bar (WCAG 2.2, 1.4.11).
+  const contrast = await page.evaluate(() => {
+    const lum = (c) => {
+      const [r, g, b] = c.match(/\d+/g).slice(0, 3).map(Number).map((v) => {
+        v /= 255; return v <= 0.03928 ? v / 12.92 : ((v + 0.055) / 1.055) ** 2.4;
+      });
+      return 0.2126 * r + 0.7152 * g + 0.0722 * b;
+    };
+    const b = getComputedStyle(document.getElementById("fit"));
+    const bar = getComputedStyle(document.querySelector(".bar"));
+    const [x, y] = [lum(b.borderTopColor), lum(bar.backgroundColor)];
+    return (Math.max(x, y) + 0.05) / (Math.min(x, y) + 0.05);
+  });
+  assert.ok(contrast >= 3, `control border contrast ${contrast.toFixed(2)}`);
+
+  // Tab reaches the map; Enter opens the record nearest the centre, with the focus in the card.
+  await page.locator("#map").focus();
+  await page.keyboard.press("Enter");
+  await page.waitForFunction(() => document.body.dataset.card !== "");
+  assert.ok(await page.evaluate(() => document.getElementById("card").contains(document.activeElement)),
+    "the focus moved into the record card");
+  // Tab walks the card's controls (its neighbours are buttons); Escape closes it, focus back on the map.
+  await page.keyboard.press("Tab");
+  assert.ok(await page.evaluate(() => document.getElementById("card").contains(document.activeElement)));
+  await page.keyboard.press("Escape");
+  await page.waitForFunction(() => document.body.dataset.card === "");
+  assert.equal(await page.evaluate(() => document.activeElement.id), "map");
+  // ? opens the list of keys (from the viewer's one key map), with the focus in it; Escape closes it.
+  await page.keyboard.press("?");
+  await page.locator("#help").waitFor({ state: "visible" });
+  const help = await page.locator("#help-keys").innerText();
+  assert.match(help, /lasso or rectangle mode/);
+  assert.ok(await page.evaluate(() => document.getElementById("help") === document.activeElement));
+  await page.keyboard.press("Escape");
+  await page.locator("#help").waitFor({ state: "hidden" });
+  assert.equal(await page.evaluate(() => document.activeElement.id), "map");
+  // i and the filter panel close with Escape too.
+  await page.keyboard.press("i");
+  await page.locator("#about").waitFor({ state: "visible" });
+  await page.keyboard.press("c");
+  await page.keyboard.press("Escape");
+  assert.ok(await page.locator("#about").isHidden());
+
+  // Wall labels: small capitals with a leader line each, none over another.
+  await page.waitForFunction(() => Number(document.body.dataset.wallLabels) > 0);
+  const labels = await page.evaluate(() => ({
+    rects: [...document.querySelectorAll("#labels span")].map((s) => s.getBoundingClientRect().toJSON()),
+    lines: document.querySelectorAll("#labels line").length,
+    caps: getComputedStyle(document.querySelector("#labels span")).fontVariantCaps,
+  }));
+  assert.equal(labels.caps, "small-caps");
+  assert.equal(labels.lines, labels.rects.length);
+  for (let i = 0; i < labels.rects.length; i++) {
+    for (let j = i + 1; j < labels.rects.length; j++) {
+      const [a, b] = [labels.rects[i], labels.rects[j]];
+      assert.ok(!(a.left < b.right && b.left < a.right && a.top < b.bottom && b.top < a.bottom), "labels overlap");
+    }
+  }
+  await page.screenshot({ path: path.join(ARTIFACTS, "14-wall-labels.png") });
+
+  // The neutral grey surround: g switches, the map's paper turns grey, and a reload keeps it.
+  await page.keyboard.press("g");
+  await page.waitForFunction(() => document.body.dataset.theme === "grey");
+  await settle(page);
+  const grey = PNG.sync.read(await canvasShot(page, "15-grey-surround.png"));
+  // A pixel of bare surround, inside the map's edge (the focused map has an outline).
+  const at = (10 * grey.width + 10) * 4;
+  assert.deepEqual([...grey.data.slice(at, at + 3)], [0x7c, 0x7c, 0x7c]);
+  await page.reload();
+  await page.waitForFunction(() => document.body.dataset.state === "ready", null, { timeout: 60000 });
+  assert.equal(await page.evaluate(() => document.body.dataset.theme), "grey");
+  await page.keyboard.press("g");
+  await page.waitForFunction(() => document.body.dataset.theme === "paper");
+
+  // m changes maps with a glide: an item moves on screen over several frames, not in one jump.
+  await page.locator("#map").focus();
+  const id = await page.evaluate(() => window.vitrineView.crowded_item());
+  const from = await page.evaluate((i) => window.vitrineView.screen_position_of(i), id);
+  await page.keyboard.press("m");
+  const path1 = [];
+  for (let k = 0; k < 40 && (path1.length === 0 || JSON.parse(await page.evaluate(() => window.vitrineView.view_state())).gliding); k++) {
+    path1.push(await page.evaluate((i) => window.vitrineView.screen_position_of(i), id));
+    await page.waitForTimeout(30);
+  }
+  await page.waitForFunction(() => !JSON.parse(window.vitrineView.view_state()).gliding);
+  const to = await page.evaluate((i) => window.vitrineView.screen_position_of(i), id);
+  assert.equal(await page.evaluate(() => document.body.dataset.map), "lattice");
+  const far = Math.hypot(to[0] - from[0], to[1] - from[1]);
+  const between = path1.filter((p) => {
+    const a = Math.hypot(p[0] - from[0], p[1] - from[1]);
+    const b = Math.hypot(p[0] - to[0], p[1] - to[1]);
+    return a > 0.05 * far && b > 0.05 * far;
+  });
+  assert.ok(far < 5 || between.length >= 1, `no frame between the two places (${far.toFixed(0)} px apart)`);
+  assert.deepEqual(errors, []);
+});
+
 test("a folder without an atlas and a page opened from a file say what to do", async () => {
   const empty = fs.mkdtempSync(path.join(os.tmpdir(), "vitrine-empty-"));
   fs.cpSync(path.join(ATLAS, "viewer"), path.join(empty, "viewer"), { recursive: true });

@@ -22,7 +22,7 @@ fn fixture(dir: &Path) {
         }
     }
     write_npy_f32(&dir.join("vectors.npy"), 48, 6, &data).unwrap();
-    let places = ["Łódź-upon-Vey", "Ærøvik", "São Brisca", "Kessendorf"];
+    let places = ["Ćwirnak-upon-Vey", "Ørnesvåk", "São Brisca", "Quellendaar"];
     let techniques = ["etching", "engraving", "woodcut"];
     let mut csv = String::from("object,title,technique,place,dating,height_cm,record\n");
     for i in 0..48usize {

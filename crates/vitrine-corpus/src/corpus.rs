@@ -263,7 +263,7 @@ mod tests {
             },
             Step {
                 op: Op::Subtract,
-                shape: Shape::Ids(vec!["VA-1".into()]),
+                shape: Shape::Ids(vec!["rec-1".into()]),
             },
         ];
         let filters = vec![
@@ -280,7 +280,7 @@ mod tests {
         ];
         assert_eq!(
             describe("similarity", &steps, &filters),
-            "selected a lasso of 4 vertices on the similarity map; removed item VA-1, \
+            "selected a lasso of 4 vertices on the similarity map; removed item rec-1, \
              filtered by technique: etching, woodcut; dating: 1500–1560 (overlapping)"
         );
         assert_eq!(describe("similarity", &[], &[]), "all items");

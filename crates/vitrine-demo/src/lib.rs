@@ -8,6 +8,7 @@ pub mod features;
 use std::path::Path;
 
 use rayon::prelude::*;
+use vitrine_corpus::export::csv_row;
 use vitrine_map::rng::Rng;
 
 pub const WORKSHOPS: [&str; 14] = [
@@ -16,9 +17,9 @@ pub const WORKSHOPS: [&str; 14] = [
     "Atelier of the Twin Keys",
     "Hollow Oak Bindery",
     "Saltmarsh Engravers",
-    "Bellwether House",
+    "House of the Copper Finch",
     "The Quiet Mill",
-    "Seven Bridges Workshop",
+    "Tallow Stair Workshop",
     "Marrowgate Studio",
     "Thistlecombe Press",
     "House of the Blue Door",
@@ -30,12 +31,12 @@ pub const PLACES: [&str; 10] = [
     "Veldmark",
     "Calvessa",
     "Brunholt",
-    "Ostravel",
+    "Orvennac",
     "Lindqvara",
     "Pellucine",
     "Sarnwick",
     "Tormaline",
-    "Esk Harrow",
+    "Dunmirelle",
     "Quillmere",
 ];
 pub const TECHNIQUES: [&str; 9] = [
@@ -90,7 +91,7 @@ pub const HEADER: [&str; 12] = [
 
 /// The catalogue record of item `i`: its family's workshops, places and period shape every field.
 pub fn record(i: usize, family: usize, rng: &mut Rng, w: u32, h: u32) -> Record {
-    let id = format!("VA-{:06}", i + 1);
+    let id = format!("rec-{:06}", i + 1);
     let pick = |rng: &mut Rng, n: usize| rng.below(n as u64) as usize;
     // Each family has two house workshops and a period; a few sheets come from elsewhere.
     let workshop = if rng.uniform() < 0.85 {
@@ -183,7 +184,7 @@ pub fn record(i: usize, family: usize, rng: &mut Rng, w: u32, h: u32) -> Record 
         format!("{:.1}", h as f64 * scale),
         format!("{:.1}", w as f64 * scale),
         format!(
-            "VA Portfolio {}/{}",
+            "Drawer {}, sheet {}",
             1 + family * 4 + pick(rng, 4),
             1 + pick(rng, 200)
         ),
@@ -192,14 +193,6 @@ pub fn record(i: usize, family: usize, rng: &mut Rng, w: u32, h: u32) -> Record 
     ];
     let _ = subject;
     Record { id, family, fields }
-}
-
-fn csv_field(s: &str) -> String {
-    if s.contains([',', '"', '\n', '\r']) {
-        format!("\"{}\"", s.replace('"', "\"\""))
-    } else {
-        s.to_string()
-    }
 }
 
 pub struct Generated {
@@ -234,21 +227,14 @@ pub fn generate(
             Ok((rec, feats))
         })
         .collect();
-    let mut csv = HEADER.join(",");
-    csv.push('\n');
+    let mut csv = String::new();
+    csv_row(&mut csv, HEADER.iter().copied());
     let mut ids = String::new();
     let mut data = Vec::with_capacity(count * features::DIMENSIONS);
     let mut families = Vec::with_capacity(count);
     for item in items {
         let (rec, feats) = item?;
-        csv.push_str(
-            &rec.fields
-                .iter()
-                .map(|f| csv_field(f))
-                .collect::<Vec<_>>()
-                .join(","),
-        );
-        csv.push('\n');
+        csv_row(&mut csv, rec.fields.iter().map(String::as_str));
         ids.push_str(&rec.id);
         ids.push('\n');
         data.extend(feats);

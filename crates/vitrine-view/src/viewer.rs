@@ -96,6 +96,20 @@ pub struct Viewer {
     /// What the last frame drew.
     pub last: FrameStats,
     pub theme: Theme,
+    /// Items gliding from their places on one map to the next, if a map change is under way.
+    map_glide: Option<MapGlide>,
+    /// Changes whenever the items' places change (another map, a step of a map glide): the kept
+    /// marks are drawn again.
+    places_generation: u64,
+}
+
+/// Every item on its way from its place on the map left to its place on the map shown: screen
+/// positions at the start and the end (the view of each map), eased as camera glides are.
+struct MapGlide {
+    from: Vec<[f32; 2]>,
+    to: Vec<[f32; 2]>,
+    start: f64,
+    duration: f64,
 }
 
 /// The corpus as the page shows it after a change of the selection or the filters.
@@ -147,6 +161,8 @@ impl Viewer {
             frames: 0,
             last: Default::default(),
             theme,
+            map_glide: None,
+            places_generation: 0,
         }
     }
 
@@ -175,7 +191,7 @@ impl Viewer {
         let mut layer = std::mem::take(&mut self.layer);
         // The kept marks depend on the map shown and on how the selection dims them.
         let key = raster::LayerKey {
-            places: self.atlas.current as u64,
+            places: self.places_generation,
             looks: self.tones_generation,
         };
         let stats = raster::draw_with_layer(&self.scene(), &mut layer, key, pixels, w, h);
@@ -256,11 +272,86 @@ impl Viewer {
         self.glide.is_some()
     }
 
+    /// Shows map `i`, fitted, every item gliding from its place on the map shown now to its place
+    /// on map `i` over `ms` milliseconds from `now` (0: at once), so that the eye can follow a
+    /// group; false when there is no such map.
+    pub fn set_map_gliding(&mut self, i: usize, now: f64, ms: f64) -> bool {
+        if i >= self.atlas.maps.len() || i == self.atlas.current {
+            return i < self.atlas.maps.len();
+        }
+        let cam = self.camera;
+        let from: Vec<[f32; 2]> = self
+            .atlas
+            .positions
+            .iter()
+            .map(|&p| {
+                let s = cam.to_screen(p);
+                [s[0] as f32, s[1] as f32]
+            })
+            .collect();
+        self.set_map(i);
+        if ms <= 0.0 {
+            return true;
+        }
+        let cam = self.camera;
+        let to = self
+            .atlas
+            .positions
+            .iter()
+            .map(|&p| {
+                let s = cam.to_screen(p);
+                [s[0] as f32, s[1] as f32]
+            })
+            .collect();
+        self.map_glide = Some(MapGlide {
+            from,
+            to,
+            start: now,
+            duration: ms,
+        });
+        self.step_map_glide(now);
+        true
+    }
+
+    /// Moves the items along a map change under way; whether it is still under way.
+    pub fn step_map_glide(&mut self, now: f64) -> bool {
+        let Some(g) = &self.map_glide else {
+            return false;
+        };
+        let t = ((now - g.start) / g.duration).clamp(0.0, 1.0);
+        self.places_generation += 1;
+        if t >= 1.0 {
+            self.map_glide = None;
+            self.atlas.positions = self.atlas.maps[self.atlas.current].positions.clone();
+            return false;
+        }
+        let e = (1.0 - (1.0 - t).powi(3)) as f32;
+        let cam = self.camera;
+        for ((p, a), b) in self.atlas.positions.iter_mut().zip(&g.from).zip(&g.to) {
+            let s = [
+                (a[0] + (b[0] - a[0]) * e) as f64,
+                (a[1] + (b[1] - a[1]) * e) as f64,
+            ];
+            let m = cam.to_map(s);
+            *p = [m[0] as f32, m[1] as f32];
+        }
+        true
+    }
+
+    /// Whether items are gliding to another map's places.
+    pub fn map_gliding(&self) -> bool {
+        self.map_glide.is_some()
+    }
+
     /// Shows map `i`, fitted; false when there is no such map.
     pub fn set_map(&mut self, i: usize) -> bool {
         if i >= self.atlas.maps.len() {
             return false;
         }
+        if self.map_glide.take().is_some() {
+            self.atlas.positions = self.atlas.maps[self.atlas.current].positions.clone();
+        }
+        self.places_generation += 1;
         self.atlas.select_map(i);
         self.picker = Some(Picker::new(&self.atlas.positions));
         self.grid = Grid::new(

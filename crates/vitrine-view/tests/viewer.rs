@@ -329,3 +329,33 @@ fn frames_go_to_the_presenter_and_a_theme_change_redraws_against_its_paper() {
     assert_eq!(&pixels[..3], &NEUTRAL_GREY.paper);
     assert_eq!(v.frames, 2);
 }
+
+#[test]
+fn changing_maps_glides_every_item_from_its_old_place_to_its_new_one() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut v = viewer(dir.path());
+    let on_screen = |v: &Viewer, i: usize| v.camera.to_screen(v.atlas.positions[i]);
+    let item = 17;
+    let before = on_screen(&v, item);
+    assert!(v.set_map_gliding(1, 1000.0, 500.0));
+    assert_eq!(v.atlas.current, 1);
+    // At the start every item is where it was on screen; the view is the new map's.
+    let start = on_screen(&v, item);
+    assert!((start[0] - before[0]).abs() < 0.01 && (start[1] - before[1]).abs() < 0.01);
+    let end = v.camera.to_screen(v.atlas.maps[1].positions[item]);
+    // Half way in time it is past half way (eased), on the line between.
+    assert!(v.step_map_glide(1250.0));
+    let mid = on_screen(&v, item);
+    let along = |p: [f64; 2]| {
+        let (dx, dy) = (end[0] - before[0], end[1] - before[1]);
+        ((p[0] - before[0]) * dx + (p[1] - before[1]) * dy) / (dx * dx + dy * dy)
+    };
+    assert!((along(mid) - 0.875).abs() < 0.01, "{}", along(mid));
+    // At the end, exactly the new map's places; no glide at all when asked for none.
+    assert!(!v.step_map_glide(1500.0));
+    assert_eq!(v.atlas.positions, v.atlas.maps[1].positions);
+    assert!(!v.map_gliding());
+    assert!(v.set_map_gliding(0, 2000.0, 0.0));
+    assert_eq!(v.atlas.positions, v.atlas.maps[0].positions);
+    assert!(!v.map_gliding());
+}

@@ -27,6 +27,8 @@ const MAX_FETCHES: usize = 4;
 /// Lengths of the animated camera moves: a wheel step or key press, and a return to the whole map.
 const ZOOM_GLIDE_MS: f64 = 160.0;
 const FIT_GLIDE_MS: f64 = 280.0;
+/// Items gliding from one map's places to another's.
+const MAP_GLIDE_MS: f64 = 500.0;
 
 struct Gpu {
     /// Kept for the page's life: WebGPU stops drawing once the instance is gone.
@@ -505,8 +507,9 @@ fn request_frame() {
             let (wanted, gliding) = {
                 let mut a = app.borrow_mut();
                 a.frame_pending = false;
-                let moved = a.glide.is_some();
-                let gliding = a.step_glide(now());
+                let moved = a.glide.is_some() || a.map_gliding();
+                let t = now();
+                let gliding = a.step_glide(t) | a.step_map_glide(t);
                 // A frame drawn since the request (at once, by a caller) already shows it all.
                 if a.dirty || moved {
                     a.render();
@@ -645,6 +648,10 @@ fn open_card(i: Option<usize>) {
     }
     let a = app.borrow();
     let doc = document();
+    // A card drawn again (its picture or neighbours arrived) keeps the keyboard's focus in it.
+    let had_focus = doc
+        .active_element()
+        .is_some_and(|e| card.contains(Some(e.as_ref())));
     card.set_text_content(None);
     let close = doc.create_element("button").unwrap();
     close.set_class_name("close");
@@ -718,7 +725,20 @@ fn open_card(i: Option<usize>) {
     card.set_hidden(false);
     set_state("card", a.atlas.id(i));
     drop(a);
+    if had_focus {
+        focus_card();
+    }
     request_frame();
+}
+
+/// Gives the keyboard's focus to the open record card (its heading).
+fn focus_card() {
+    if let Some(h) = by_id("card").and_then(|c| c.query_selector("h2").ok().flatten()) {
+        if let Ok(h) = h.dyn_into::<HtmlElement>() {
+            let _ = h.set_attribute("tabindex", "-1");
+            let _ = h.focus();
+        }
+    }
 }
 
 /// Fetches the neighbour chunk that holds item `i`'s list, then shows the card again if it is
@@ -778,12 +798,7 @@ fn open_nearest() {
     match i {
         Some(i) => {
             open_card(Some(i));
-            if let Some(h) = by_id("card").and_then(|c| c.query_selector("h2").ok().flatten()) {
-                if let Ok(h) = h.dyn_into::<HtmlElement>() {
-                    let _ = h.set_attribute("tabindex", "-1");
-                    let _ = h.focus();
-                }
-            }
+            focus_card();
         }
         None => select::note("No item in view: move or zoom out first."),
     }
@@ -918,12 +933,17 @@ fn fit() {
     glide_to(to, FIT_GLIDE_MS);
 }
 
-/// Shows map `i` (fitted to the window).
+/// Shows map `i` (fitted to the window), the items gliding there from their places on the map
+/// shown (none under reduced motion).
 fn set_map(i: usize) {
+    show_map_now(i, glide_ms(MAP_GLIDE_MS));
+}
+
+fn show_map_now(i: usize, ms: f64) {
     let Some(app) = app() else { return };
     {
         let mut a = app.borrow_mut();
-        if !a.set_map(i) {
+        if !a.set_map_gliding(i, now(), ms) {
             return;
         }
         select::show_key_sketch(&a);
@@ -1508,7 +1528,7 @@ pub fn view_state() -> String {
         "sheet_bytes": a.sheets.bytes,
         "sheets_evicted": a.sheets.evicted,
         "fetching": a.fetching.len(),
-        "gliding": a.glide.is_some(),
+        "gliding": a.glide.is_some() || a.map_gliding(),
         "map": a.atlas.maps[a.atlas.current].name,
         "wasm_bytes": wasm_bindgen::memory()
             .dyn_into::<js_sys::WebAssembly::Memory>()
@@ -1595,7 +1615,7 @@ pub fn show_map(name: &str) -> bool {
     let i = app.borrow().atlas.maps.iter().position(|m| m.name == name);
     match i {
         Some(i) => {
-            set_map(i);
+            show_map_now(i, 0.0);
             app.borrow_mut().render();
             true
         }

@@ -80,7 +80,7 @@ fn apply(
             .ok_or_else(|| format!("this atlas has no map called {map:?}"))?
     };
     if app.borrow().atlas.current != i {
-        set_map(i);
+        show_map_now(i, 0.0);
     }
     let result = app.borrow_mut().restore(i, filters, steps, view);
     filters::changed();
