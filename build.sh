@@ -96,7 +96,7 @@ run_tests() {
   setup
   echo "[test] formatting and lints (cargo fmt --check, cargo clippy -D warnings, native and wasm32)"
   cargo fmt --all --check
-  cargo clippy --locked --workspace --all-targets --release -- -D warnings
+  cargo clippy --locked --workspace --all-targets --release --features vitrine-view/gpu -- -D warnings
   cargo clippy --locked -p vitrine-web --target wasm32-unknown-unknown -- -D warnings
   echo "[test] cargo test (workspace)"
   cargo test --workspace --locked --release 2>&1

@@ -107,6 +107,9 @@ def main():
     ap.add_argument("--sizes", default="100000,1000000")
     ap.add_argument("--angle", default="swiftshader,gl-egl",
                     help="Chromium's ANGLE backends to run: swiftshader, gl-egl (llvmpipe)")
+    ap.add_argument("--present", default="canvas,surface",
+                    help="how WebGL2 frames reach the canvas: canvas (straight in, the default) and/or "
+                         "surface (through wgpu's surface, which copies each frame once more)")
     ap.add_argument("--vitrine", default=str(ROOT / "target" / "release" / "vitrine"))
     ap.add_argument("--viewer", default=str(ROOT / "target" / "viewer"))
     a = ap.parse_args()
@@ -118,19 +121,21 @@ def main():
         server, url = serve(a.vitrine, atlas)
         try:
             for angle in a.angle.split(","):
-                log(f"session on {n} items, ANGLE {angle}")
-                try:
-                    r = subprocess.run(["node", str(HERE / "view_session.mjs"), url, angle],
-                                       cwd=ROOT, capture_output=True, text=True, timeout=1800)
-                except subprocess.TimeoutExpired as e:
-                    log(f"  no result within 30 minutes:\n{(e.stderr or b'')[-3000:]}")
-                    continue
-                if r.returncode != 0:
-                    log(f"  failed:\n{r.stderr[-3000:]}")
-                    continue
-                res = json.loads(r.stdout.strip().splitlines()[-1])
-                res.update(items=n, angle=angle)
-                results.append(res)
+                for present in a.present.split(","):
+                    log(f"session on {n} items, ANGLE {angle}, present {present}")
+                    address = url + ("?present=surface" if present == "surface" else "")
+                    try:
+                        r = subprocess.run(["node", str(HERE / "view_session.mjs"), address, angle],
+                                           cwd=ROOT, capture_output=True, text=True, timeout=1800)
+                    except subprocess.TimeoutExpired as e:
+                        log(f"  no result within 30 minutes:\n{(e.stderr or b'')[-3000:]}")
+                        continue
+                    if r.returncode != 0:
+                        log(f"  failed:\n{r.stderr[-3000:]}")
+                        continue
+                    res = json.loads(r.stdout.strip().splitlines()[-1])
+                    res.update(items=n, angle=angle, present=present)
+                    results.append(res)
         finally:
             server.kill()
     floors = {}
@@ -145,7 +150,7 @@ def main():
     (cache / "results.json").write_text(json.dumps({"sessions": results, "floors": floors}, indent=1))
     print()
     for r in results:
-        print(f"{r['items']:,} items, ANGLE {r['angle']} ({r['renderer']}), 1280x800")
+        print(f"{r['items']:,} items, ANGLE {r['angle']} ({r['renderer']}), present {r['present']}, 1280x800")
         print(f"  first full picture {r['first_full_ms']:.0f} ms after navigation (catalogue by "
               f"{r['catalogue_ready_ms']:.0f} ms); "
               f"fetched {r['bytes'] / 1e6:.1f} MB in {r['requests']} requests; "
@@ -161,6 +166,22 @@ def main():
         for line in [head, ["-" * w for w in widths]] + rows:
             print("  " + "  ".join(x.ljust(w) for x, w in zip(line, widths)))
         print()
+    # The two ways of presenting a WebGL2 frame, run on the same atlas in the same browser.
+    for r in results:
+        if r["present"] != "canvas":
+            continue
+        other = next((o for o in results if o["present"] == "surface" and o["items"] == r["items"]
+                      and o["angle"] == r["angle"]), None)
+        if other is None:
+            continue
+        mine = {p["phase"]: p["median"] for p in r["phases"]}
+        theirs = {p["phase"]: p["median"] for p in other["phases"]}
+        common = [k for k in mine if k in theirs]
+        med = lambda v: sorted(v)[len(v) // 2]
+        a_ms, b_ms = med([mine[k] for k in common]), med([theirs[k] for k in common])
+        print(f"{r['items']:,} items, ANGLE {r['angle']}: median of the phase medians {a_ms:.1f} ms straight "
+              f"into the canvas, {b_ms:.1f} ms through wgpu's surface (surface / canvas {b_ms / a_ms:.2f})")
+    print()
     for angle, f in floors.items():
         print(f"Plain WebGL2 in the same browser, ANGLE {angle}, 1280x800, median ms per frame read back: "
               f"read-back only {f['readback_only']:.1f}; upload + draw into the canvas "

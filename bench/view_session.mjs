@@ -64,6 +64,7 @@ try {
     for (const [kind, a, b] of steps) {
       const t0 = performance.now();
       if (kind === "zoom") window.vitrineView.zoom_view(a);
+      else if (kind === "glide") window.vitrineView.glide_map_step(a, b);
       else if (kind === "filter") {
         window.vitrineView.set_filter(a);
         work.push(performance.now() - t0);
@@ -125,6 +126,11 @@ try {
     side = target;
     await phase(`${name}: pan`, pans(120));
   }
+  // A map change at the fitted view: every item glides from the similarity map to the lattice
+  // (half a second, 16 frames of about 33 ms on the glide's own clock), each frame drawn whole.
+  await page.evaluate(() => window.vitrineView.fit_view());
+  await phase("map change (glide)", Array.from({ length: 16 }, (_, k) => ["glide", "lattice", k * 33.3]));
+  await page.evaluate(() => window.vitrineView.show_map("similarity"));
   // Corpus work at the fitted view: filters changed one after another (each recomputes every
   // item's passing and the cross-filtered counts' masks, then redraws), and lassos of 200 points.
   await page.evaluate(() => window.vitrineView.fit_view());

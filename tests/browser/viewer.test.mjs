@@ -604,7 +604,7 @@ test("a copied link reopens the corpus in a fresh page, and a saved corpus file 
   assert.deepEqual(fresh.errors, []);
 });
 
-test("where the browser offers WebGPU the viewer draws with it, the same pixels as with WebGL2", async () => {
+test("where the browser offers WebGPU the viewer draws with it, the same pixels as with WebGL2 (straight into the canvas or through wgpu's surface)", async () => {
   // SwiftShader also gives Chromium a WebGPU adapter when unsafe WebGPU is allowed; its canvas
   // shows what is drawn only when Chromium composites with Vulkan (SwiftShader's too).
   const gpuBrowser = await chromium.launch({
@@ -615,7 +615,12 @@ test("where the browser offers WebGPU the viewer draws with it, the same pixels 
   try {
     const url = await serve(ATLAS);
     const shots = {};
-    for (const [name, address] of [["WebGPU", url], ["WebGL2", `${url}?backend=webgl2`]]) {
+    const cases = [
+      ["WebGPU", url, "surface"],
+      ["WebGL2", `${url}?backend=webgl2`, "canvas"],
+      ["WebGL2 surface", `${url}?backend=webgl2&present=surface`, "surface"],
+    ];
+    for (const [name, address, present] of cases) {
       const page = await gpuBrowser.newPage({ viewport: { width: 1280, height: 800 } });
       const errors = [];
       page.on("pageerror", (e) => errors.push(String(e)));
@@ -624,7 +629,8 @@ test("where the browser offers WebGPU the viewer draws with it, the same pixels 
       assert.equal(await page.evaluate(() => document.body.dataset.state), "ready", errors.join("\n"));
       await settle(page);
       const state = await viewState(page);
-      assert.equal(state.backend, name, state.renderer);
+      assert.equal(state.backend, name.split(" ")[0], state.renderer);
+      assert.equal(state.present, present);
       assert.ok(state.marks > state.items * 0.95, JSON.stringify(state));
       // The canvas alone: the page's overlays (cluster labels, tooltips, panels) are hidden.
       await page.evaluate(() => {
@@ -636,18 +642,22 @@ test("where the browser offers WebGPU the viewer draws with it, the same pixels 
       shots[name] = await page.locator("#map").screenshot();
       await page.evaluate(() => { document.getElementById("about").style.visibility = ""; });
       await page.keyboard.press("i");
-      assert.match(await page.locator("#about").innerText(), new RegExp(`drawn with\\s+.*${name}`));
+      assert.match(await page.locator("#about").innerText(), new RegExp(`drawn with\\s+.*${name.split(" ")[0]}`));
       await page.keyboard.press("i");
-      fs.writeFileSync(path.join(ARTIFACTS, `08-fit-${name}.png`), shots[name]);
+      fs.writeFileSync(path.join(ARTIFACTS, `08-fit-${name.replace(" ", "-")}.png`), shots[name]);
       assert.deepEqual(errors, []);
       await page.close();
     }
-    // The map is drawn on the CPU and shown as one picture: both backends show the same pixels.
-    const [a, b] = [PNG.sync.read(shots.WebGPU), PNG.sync.read(shots.WebGL2)];
-    assert.equal(a.width, b.width);
-    let differ = 0;
-    for (let i = 0; i < a.data.length; i++) if (a.data[i] !== b.data[i]) differ++;
-    assert.equal(differ, 0, `${differ} channel values differ between WebGPU and WebGL2`);
+    // The map is drawn on the CPU and shown as one picture: every way of showing it shows the same
+    // pixels (WebGL2 straight into the canvas, with its rows flipped as they are drawn, too).
+    const a = PNG.sync.read(shots.WebGPU);
+    for (const other of ["WebGL2", "WebGL2 surface"]) {
+      const b = PNG.sync.read(shots[other]);
+      assert.equal(a.width, b.width);
+      let differ = 0;
+      for (let i = 0; i < a.data.length; i++) if (a.data[i] !== b.data[i]) differ++;
+      assert.equal(differ, 0, `${differ} channel values differ between WebGPU and ${other}`);
+    }
     assert.ok(stats(shots.WebGPU).ink > 0.01);
   } finally {
     await gpuBrowser.close();

@@ -102,20 +102,13 @@ impl Presenter {
         target: &wgpu::TextureView,
     ) {
         if !matches!(&self.frame, Some((_, _, fw, fh)) if *fw == w && *fh == h) {
-            let texture = device.create_texture(&wgpu::TextureDescriptor {
-                label: Some("frame"),
-                size: wgpu::Extent3d {
-                    width: w,
-                    height: h,
-                    depth_or_array_layers: 1,
-                },
-                mip_level_count: 1,
-                sample_count: 1,
-                dimension: wgpu::TextureDimension::D2,
-                format: self.texture_format,
-                usage: wgpu::TextureUsages::TEXTURE_BINDING | wgpu::TextureUsages::COPY_DST,
-                view_formats: &[],
-            });
+            let texture = texture_2d(
+                device,
+                "frame",
+                (w, h),
+                self.texture_format,
+                wgpu::TextureUsages::TEXTURE_BINDING | wgpu::TextureUsages::COPY_DST,
+            );
             let view = texture.create_view(&Default::default());
             let bind = device.create_bind_group(&wgpu::BindGroupDescriptor {
                 label: Some("frame"),
@@ -204,20 +197,13 @@ impl Offscreen {
 impl crate::present::Present for Offscreen {
     fn present(&mut self, pixels: &[u8], w: u32, h: u32) {
         if !matches!(&self.target, Some((_, tw, th)) if *tw == w && *th == h) {
-            let texture = self.device.create_texture(&wgpu::TextureDescriptor {
-                label: Some("target"),
-                size: wgpu::Extent3d {
-                    width: w,
-                    height: h,
-                    depth_or_array_layers: 1,
-                },
-                mip_level_count: 1,
-                sample_count: 1,
-                dimension: wgpu::TextureDimension::D2,
-                format: OFFSCREEN_FORMAT,
-                usage: wgpu::TextureUsages::RENDER_ATTACHMENT | wgpu::TextureUsages::COPY_SRC,
-                view_formats: &[],
-            });
+            let texture = texture_2d(
+                &self.device,
+                "target",
+                (w, h),
+                OFFSCREEN_FORMAT,
+                wgpu::TextureUsages::RENDER_ATTACHMENT | wgpu::TextureUsages::COPY_SRC,
+            );
             self.target = Some((texture, w, h));
         }
         let (target, _, _) = self.target.as_ref().expect("the target texture");
@@ -277,4 +263,28 @@ impl crate::present::Present for Offscreen {
     fn name(&self) -> &str {
         &self.name
     }
+}
+
+/// A plain 2-D texture of `size` pixels, one level, one sample.
+fn texture_2d(
+    device: &wgpu::Device,
+    label: &str,
+    size: (u32, u32),
+    format: wgpu::TextureFormat,
+    usage: wgpu::TextureUsages,
+) -> wgpu::Texture {
+    device.create_texture(&wgpu::TextureDescriptor {
+        label: Some(label),
+        size: wgpu::Extent3d {
+            width: size.0,
+            height: size.1,
+            depth_or_array_layers: 1,
+        },
+        mip_level_count: 1,
+        sample_count: 1,
+        dimension: wgpu::TextureDimension::D2,
+        format,
+        usage,
+        view_formats: &[],
+    })
 }

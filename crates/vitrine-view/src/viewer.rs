@@ -279,30 +279,12 @@ impl Viewer {
         if i >= self.atlas.maps.len() || i == self.atlas.current {
             return i < self.atlas.maps.len();
         }
-        let cam = self.camera;
-        let from: Vec<[f32; 2]> = self
-            .atlas
-            .positions
-            .iter()
-            .map(|&p| {
-                let s = cam.to_screen(p);
-                [s[0] as f32, s[1] as f32]
-            })
-            .collect();
+        let from = self.on_screen();
         self.set_map(i);
         if ms <= 0.0 {
             return true;
         }
-        let cam = self.camera;
-        let to = self
-            .atlas
-            .positions
-            .iter()
-            .map(|&p| {
-                let s = cam.to_screen(p);
-                [s[0] as f32, s[1] as f32]
-            })
-            .collect();
+        let to = self.on_screen();
         self.map_glide = Some(MapGlide {
             from,
             to,
@@ -311,6 +293,19 @@ impl Viewer {
         });
         self.step_map_glide(now);
         true
+    }
+
+    /// Every item's place on screen in the view shown.
+    fn on_screen(&self) -> Vec<[f32; 2]> {
+        let cam = self.camera;
+        self.atlas
+            .positions
+            .iter()
+            .map(|&p| {
+                let s = cam.to_screen(p);
+                [s[0] as f32, s[1] as f32]
+            })
+            .collect()
     }
 
     /// Moves the items along a map change under way; whether it is still under way.

@@ -1,9 +1,11 @@
 //! The frame raster on a real atlas written by `vitrine build`: marks when zoomed out, the right
 //! thumbnails when zoomed in, fallbacks while sheets load, and the hover outline.
 
+mod common;
+
 use std::path::Path;
 
-use vitrine_build::pipeline::{build, BuildOptions, Silent};
+use vitrine_build::pipeline::BuildOptions;
 use vitrine_format::Manifest;
 use vitrine_test_support::write_npy_f32;
 use vitrine_view::atlas::AtlasData;
@@ -30,13 +32,7 @@ fn fixture(dir: &Path) -> AtlasData {
     o.sheet_size = 256;
     o.cells = vec![32, 128];
     o.epochs = Some(50);
-    build(&o, &Silent).unwrap();
-    let on_disk = vitrine_build::read::Atlas::open(&dir.join("atlas")).unwrap();
-    let m = on_disk.manifest.clone();
-    let files = on_disk
-        .load_files(AtlasData::files(&m).iter().map(|(f, _)| f.as_str()))
-        .unwrap();
-    AtlasData::from_parts(m, &files).unwrap()
+    common::build_and_open(&o).0
 }
 
 fn load_sheets(atlas: &AtlasData, dir: &Path, levels: &[usize]) -> SheetStore {

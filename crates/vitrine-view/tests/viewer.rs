@@ -2,13 +2,14 @@
 //! selection (pointer, keyboard, undo), the record card's walk, links, wall labels and frames
 //! handed to a presenter — on a real atlas written by `vitrine build`.
 
+mod common;
+
 use std::path::Path;
 
-use vitrine_build::pipeline::{build, BuildOptions, Silent};
+use vitrine_build::pipeline::BuildOptions;
 use vitrine_corpus::corpus::{Op, Shape, Step};
 use vitrine_corpus::polygon::Polygon;
 use vitrine_test_support::write_npy_f32;
-use vitrine_view::atlas::AtlasData;
 use vitrine_view::input::{key_action, Action, KeyPress};
 use vitrine_view::labels::{leader, wall_labels, LabelMetrics};
 use vitrine_view::present::{NullPresent, Present};
@@ -39,13 +40,7 @@ fn viewer(dir: &Path) -> Viewer {
     let mut o = BuildOptions::new(dir.join("v.npy"), dir.join("atlas"));
     o.catalogue = Some(dir.join("c.csv"));
     o.epochs = Some(80);
-    build(&o, &Silent).unwrap();
-    let on_disk = vitrine_build::read::Atlas::open(&dir.join("atlas")).unwrap();
-    let m = on_disk.manifest.clone();
-    let files = on_disk
-        .load_files(AtlasData::files(&m).iter().map(|(f, _)| f.as_str()))
-        .unwrap();
-    let mut atlas = AtlasData::from_parts(m, &files).unwrap();
+    let (mut atlas, on_disk) = common::build_and_open(&o);
     for c in 0..atlas.manifest.neighbours.chunks.len() {
         let r = &atlas.manifest.neighbours.chunks[c].ids;
         let bytes = std::fs::read(dir.join("atlas").join(&r.file)).unwrap();

@@ -39,6 +39,8 @@ struct Gpu {
     queue: wgpu::Queue,
     config: wgpu::SurfaceConfiguration,
     presenter: Presenter,
+    /// On WebGL2, the frame drawn straight into the canvas (None: through wgpu's surface).
+    direct: Option<gl_present::DirectGl>,
     renderer: String,
     /// "WebGPU" or "WebGL2".
     backend: &'static str,
@@ -81,6 +83,7 @@ impl std::ops::DerefMut for App {
 }
 
 mod filters;
+mod gl_present;
 mod select;
 mod share;
 mod timeline_strip;
@@ -231,31 +234,73 @@ async fn init_gpu(canvas: &HtmlCanvasElement) -> Result<Gpu, String> {
     let has_webgpu = web_sys::window()
         .map(|w| js_sys::Reflect::has(&w.navigator(), &"gpu".into()).unwrap_or(false))
         .unwrap_or(false);
-    if has_webgpu && !asked.contains("backend=webgl2") {
-        // The adapter is asked for before the canvas is touched: a canvas that has handed out a
-        // WebGPU context can never give a WebGL2 one, which would end the fallback.
-        let instance = instance(wgpu::Backends::BROWSER_WEBGPU);
-        match instance.request_adapter(&adapter_options(None)).await {
-            Ok(adapter) => {
-                let surface = instance
-                    .create_surface(wgpu::SurfaceTarget::Canvas(canvas.clone()))
-                    .map_err(|e| format!("WebGPU gave no canvas context: {e}"))?;
-                return init_device(instance, surface, adapter, canvas, "WebGPU").await;
+    // The backends in the order they are tried; the first that gives a device draws.
+    let mut tried = Vec::new();
+    for backend in BACKENDS {
+        let skip = match backend {
+            Backend::WebGpu => !has_webgpu || asked.contains("backend=webgl2"),
+            Backend::WebGl2 => false,
+        };
+        if skip {
+            continue;
+        }
+        match init_backend(backend, canvas).await {
+            Ok(gpu) => return Ok(gpu),
+            Err(e) => {
+                web_sys::console::info_1(&format!("{}: {e}", backend.name()).into());
+                tried.push(format!("{}: {e}", backend.name()));
             }
-            Err(e) => web_sys::console::info_1(
-                &format!("WebGPU offers no adapter here ({e}); drawing with WebGL2").into(),
-            ),
         }
     }
-    let instance = instance(wgpu::Backends::GL);
-    let surface = instance
-        .create_surface(wgpu::SurfaceTarget::Canvas(canvas.clone()))
-        .map_err(|e| format!("this browser gives no WebGL2 context: {e}"))?;
-    let adapter = instance
-        .request_adapter(&adapter_options(Some(&surface)))
-        .await
-        .map_err(|e| format!("no graphics adapter: {e}"))?;
-    init_device(instance, surface, adapter, canvas, "WebGL2").await
+    Err(format!("no way to draw here ({})", tried.join("; ")))
+}
+
+/// The ways of drawing into the canvas, best first: WebGPU where the browser offers an adapter,
+/// else WebGL2, which every current browser has (on the processor when there is no GPU).
+#[derive(Clone, Copy)]
+enum Backend {
+    WebGpu,
+    WebGl2,
+}
+
+const BACKENDS: [Backend; 2] = [Backend::WebGpu, Backend::WebGl2];
+
+impl Backend {
+    fn name(self) -> &'static str {
+        match self {
+            Backend::WebGpu => "WebGPU",
+            Backend::WebGl2 => "WebGL2",
+        }
+    }
+}
+
+async fn init_backend(backend: Backend, canvas: &HtmlCanvasElement) -> Result<Gpu, String> {
+    match backend {
+        Backend::WebGpu => {
+            // The adapter is asked for before the canvas is touched: a canvas that has handed out
+            // a WebGPU context can never give a WebGL2 one, which would end the fall-through.
+            let instance = instance(wgpu::Backends::BROWSER_WEBGPU);
+            let adapter = instance
+                .request_adapter(&adapter_options(None))
+                .await
+                .map_err(|e| format!("no adapter ({e})"))?;
+            let surface = instance
+                .create_surface(wgpu::SurfaceTarget::Canvas(canvas.clone()))
+                .map_err(|e| format!("no canvas context: {e}"))?;
+            init_device(instance, surface, adapter, canvas, backend.name()).await
+        }
+        Backend::WebGl2 => {
+            let instance = instance(wgpu::Backends::GL);
+            let surface = instance
+                .create_surface(wgpu::SurfaceTarget::Canvas(canvas.clone()))
+                .map_err(|e| format!("this browser gives no WebGL2 context: {e}"))?;
+            let adapter = instance
+                .request_adapter(&adapter_options(Some(&surface)))
+                .await
+                .map_err(|e| format!("no graphics adapter: {e}"))?;
+            init_device(instance, surface, adapter, canvas, backend.name()).await
+        }
+    }
 }
 
 fn instance(backends: wgpu::Backends) -> wgpu::Instance {
@@ -312,6 +357,14 @@ async fn init_device(
     };
     surface.configure(&device, &config);
     let presenter = Presenter::new(&device, format);
+    // On WebGL2 the frame goes straight into the canvas, unless `?present=surface` asks for
+    // wgpu's surface (to compare the two).
+    let surface_asked = web_sys::window()
+        .and_then(|w| w.location().search().ok())
+        .is_some_and(|q| q.contains("present=surface"));
+    let direct = (backend == "WebGL2" && !surface_asked)
+        .then(|| gl_present::DirectGl::new(&device))
+        .flatten();
     let renderer = if info.name.is_empty() {
         backend.to_string()
     } else {
@@ -325,6 +378,7 @@ async fn init_device(
         queue,
         config,
         presenter,
+        direct,
         renderer,
         backend,
     })
@@ -347,6 +401,10 @@ impl Present for Gpu {
 
     fn present(&mut self, pixels: &[u8], w: u32, h: u32) {
         self.resize(w, h);
+        if let Some(d) = self.direct.as_mut() {
+            d.present(&self.device, pixels, w, h);
+            return;
+        }
         let frame = match self.surface.get_current_texture() {
             wgpu::CurrentSurfaceTexture::Success(t)
             | wgpu::CurrentSurfaceTexture::Suboptimal(t) => t,
@@ -1514,6 +1572,8 @@ pub fn view_state() -> String {
     serde_json::json!({
         "renderer": a.gpu.renderer,
         "backend": a.gpu.backend,
+        // How the frame reaches the canvas: straight into a WebGL2 canvas, or through wgpu's surface.
+        "present": if a.gpu.direct.is_some() { "canvas" } else { "surface" },
         "items": a.atlas.n,
         "zoom": a.camera.zoom / a.base_zoom,
         "side_px": a.last.side_px,
@@ -1606,6 +1666,25 @@ pub fn focus_item(id: &str, factor: f64) -> bool {
         fetch_sheets(wanted);
     }
     found
+}
+
+/// For benchmarks: a map change frame by frame on a clock of the caller's. `t` 0 starts the glide
+/// of every item to its place on the map `name` (half a second long); a later `t` (ms) moves the
+/// items to where they are then and draws at once. Returns whether the glide is still under way.
+#[wasm_bindgen]
+pub fn glide_map_step(name: &str, t: f64) -> bool {
+    let Some(app) = app() else { return false };
+    let mut a = app.borrow_mut();
+    if t == 0.0 {
+        let Some(i) = a.atlas.maps.iter().position(|m| m.name == name) else {
+            return false;
+        };
+        a.set_map_gliding(i, 0.0, MAP_GLIDE_MS);
+    } else {
+        a.step_map_glide(t);
+    }
+    a.render();
+    a.map_gliding()
 }
 
 /// For tests and scripts: shows the map with this name and draws at once; false when there is none.
