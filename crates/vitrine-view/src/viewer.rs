@@ -284,6 +284,9 @@ impl Viewer {
         if ms <= 0.0 {
             return true;
         }
+        // Hover and clicks wait for the items to come to rest: the index for them is made then
+        // (for a million items it takes longer than a frame).
+        self.picker = None;
         let to = self.on_screen();
         self.map_glide = Some(MapGlide {
             from,
@@ -318,6 +321,7 @@ impl Viewer {
         if t >= 1.0 {
             self.map_glide = None;
             self.atlas.positions = self.atlas.maps[self.atlas.current].positions.clone();
+            self.make_picker();
             return false;
         }
         let e = (1.0 - (1.0 - t).powi(3)) as f32;

@@ -354,3 +354,16 @@ fn changing_maps_glides_every_item_from_its_old_place_to_its_new_one() {
     assert_eq!(v.atlas.positions, v.atlas.maps[0].positions);
     assert!(!v.map_gliding());
 }
+
+#[test]
+fn hover_and_clicks_wait_for_a_map_change_to_come_to_rest() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut v = viewer(dir.path());
+    let p = v.camera.to_screen(v.atlas.positions[3]);
+    assert!(v.pick(p).is_some());
+    v.set_map_gliding(1, 0.0, 500.0);
+    assert_eq!(v.pick([W / 2.0, H / 2.0]), None);
+    v.step_map_glide(600.0);
+    let q = v.camera.to_screen(v.atlas.positions[3]);
+    assert_eq!(v.pick(q), Some(3));
+}
