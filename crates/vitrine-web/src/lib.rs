@@ -1172,48 +1172,38 @@ fn pointer_outcome(outcome: Pointer) {
     }
 }
 
-fn install_events(canvas: &HtmlCanvasElement) {
+/// Listens to one kind of pointer event on the map: the viewer core decides what it comes to.
+fn listen_pointer(
+    canvas: &HtmlCanvasElement,
+    name: &str,
+    f: impl Fn(&mut Viewer, &web_sys::PointerEvent, [f64; 2]) -> Pointer + 'static,
+) {
     let c = canvas.clone();
-    listen(
-        canvas,
-        "pointerdown",
-        false,
-        move |e: web_sys::PointerEvent| {
-            let p = pointer_pos(&c, e.client_x() as f64, e.client_y() as f64);
+    listen(canvas, name, false, move |e: web_sys::PointerEvent| {
+        let p = pointer_pos(&c, e.client_x() as f64, e.client_y() as f64);
+        if name_is_down(&e) {
             let _ = c.set_pointer_capture(e.pointer_id());
-            let Some(app) = app() else { return };
-            let outcome =
-                app.borrow_mut()
-                    .pointer_down(e.pointer_id(), p, e.shift_key(), e.alt_key());
-            pointer_outcome(outcome);
-        },
-    );
-    let c = canvas.clone();
-    listen(
-        canvas,
-        "pointermove",
-        false,
-        move |e: web_sys::PointerEvent| {
-            let p = pointer_pos(&c, e.client_x() as f64, e.client_y() as f64);
-            let Some(app) = app() else { return };
-            let outcome = app.borrow_mut().pointer_move(e.pointer_id(), p);
-            pointer_outcome(outcome);
-        },
-    );
-    let c = canvas.clone();
-    listen(
-        canvas,
-        "pointerup",
-        false,
-        move |e: web_sys::PointerEvent| {
-            let p = pointer_pos(&c, e.client_x() as f64, e.client_y() as f64);
-            let Some(app) = app() else { return };
-            let outcome =
-                app.borrow_mut()
-                    .pointer_up(e.pointer_id(), p, e.ctrl_key() || e.meta_key());
-            pointer_outcome(outcome);
-        },
-    );
+        }
+        let Some(app) = app() else { return };
+        let outcome = f(&mut app.borrow_mut().viewer, &e, p);
+        pointer_outcome(outcome);
+    });
+}
+
+fn name_is_down(e: &web_sys::PointerEvent) -> bool {
+    e.type_() == "pointerdown"
+}
+
+fn install_events(canvas: &HtmlCanvasElement) {
+    listen_pointer(canvas, "pointerdown", |v, e, p| {
+        v.pointer_down(e.pointer_id(), p, e.shift_key(), e.alt_key())
+    });
+    listen_pointer(canvas, "pointermove", |v, e, p| {
+        v.pointer_move(e.pointer_id(), p)
+    });
+    listen_pointer(canvas, "pointerup", |v, e, p| {
+        v.pointer_up(e.pointer_id(), p, e.ctrl_key() || e.meta_key())
+    });
     listen(
         canvas,
         "pointercancel",
