@@ -54,6 +54,15 @@ pub fn read(
         }
         None => None,
     };
+    // A misspelt --date-field is said now, not after hours of computing.
+    if let (Some(c), Some(name)) = (&cat, &opts.date_field) {
+        if c.column(name).is_none() {
+            return Err(InputError::Usage(format!(
+                "--date-field {name:?}: the catalogue has no such column"
+            ))
+            .into());
+        }
+    }
     let items = match_items(&vectors, opts, cat.as_ref())?;
     laps.lap("read inputs");
     check_finite(&vectors, &items.ids, &opts.vectors)?;

@@ -72,9 +72,18 @@ pub const PAN_STEP: f64 = 80.0;
 /// The zoom factor of one key press or button click.
 pub const ZOOM_STEP: f64 = 1.4;
 
-/// The action of a key (None: the key is not the viewer's, and the page keeps its own meaning).
-/// `selecting` is whether a lasso or rectangle mode is on.
-pub fn key_action(k: &KeyPress, selecting: bool) -> Option<Action> {
+/// What the viewer is doing when a key comes: a lasso or rectangle mode is on (`selecting`), a
+/// keyboard lasso or rectangle is under way (`sketching`).
+#[derive(Debug, Clone, Copy, Default)]
+pub struct Doing {
+    pub selecting: bool,
+    pub sketching: bool,
+}
+
+/// The action of a key (None: the key is not the viewer's, and the page keeps its own meaning:
+/// Space scrolls, Enter presses a focused button).
+pub fn key_action(k: &KeyPress, doing: Doing) -> Option<Action> {
+    let selecting = doing.selecting;
     if k.ctrl {
         return match k.key.to_lowercase().as_str() {
             "z" if k.shift => Some(Action::Redo),
@@ -90,7 +99,7 @@ pub fn key_action(k: &KeyPress, selecting: bool) -> Option<Action> {
                 subtract: k.alt,
             })
         }
-        " " if !k.on_control && selecting => return Some(Action::KeyClose),
+        " " if !k.on_control && doing.sketching => return Some(Action::KeyClose),
         _ => {}
     }
     if k.alt {
@@ -161,6 +170,19 @@ pub const KEYS: &[(&str, &str)] = &[
 mod tests {
     use super::*;
 
+    const IDLE: Doing = Doing {
+        selecting: false,
+        sketching: false,
+    };
+    const SELECTING: Doing = Doing {
+        selecting: true,
+        sketching: false,
+    };
+    const SKETCHING: Doing = Doing {
+        selecting: true,
+        sketching: true,
+    };
+
     fn press(key: &str) -> KeyPress<'_> {
         KeyPress {
             key,
@@ -174,28 +196,28 @@ mod tests {
     #[test]
     fn keys_give_their_actions_and_modifiers_change_them() {
         assert_eq!(
-            key_action(&press("r"), false),
+            key_action(&press("r"), IDLE),
             Some(Action::SetMode(Mode::Rectangle))
         );
         assert_eq!(
-            key_action(&press("l"), false),
+            key_action(&press("l"), IDLE),
             Some(Action::SetMode(Mode::Lasso))
         );
-        assert_eq!(key_action(&press("b"), false), None);
+        assert_eq!(key_action(&press("b"), IDLE), None);
         assert_eq!(
-            key_action(&press("V"), false),
+            key_action(&press("V"), IDLE),
             Some(Action::SelectView { add: true })
         );
         let ctrl_z = KeyPress {
             ctrl: true,
             ..press("Z")
         };
-        assert_eq!(key_action(&ctrl_z, false), Some(Action::Undo));
+        assert_eq!(key_action(&ctrl_z, IDLE), Some(Action::Undo));
         let ctrl_shift_z = KeyPress {
             shift: true,
             ..ctrl_z
         };
-        assert_eq!(key_action(&ctrl_shift_z, false), Some(Action::Redo));
+        assert_eq!(key_action(&ctrl_shift_z, IDLE), Some(Action::Redo));
         // Ctrl with another key is the browser's (copy, paste, find).
         assert_eq!(
             key_action(
@@ -203,7 +225,7 @@ mod tests {
                     ctrl: true,
                     ..press("c")
                 },
-                false
+                IDLE
             ),
             None
         );
@@ -214,7 +236,7 @@ mod tests {
                     alt: true,
                     ..press("m")
                 },
-                false
+                IDLE
             ),
             None
         );
@@ -223,14 +245,11 @@ mod tests {
     #[test]
     fn enter_and_space_depend_on_the_mode_and_the_focus() {
         // Moving the map: Enter opens the record nearest the centre; Space is the page's.
-        assert_eq!(
-            key_action(&press("Enter"), false),
-            Some(Action::OpenNearest)
-        );
-        assert_eq!(key_action(&press(" "), false), None);
+        assert_eq!(key_action(&press("Enter"), IDLE), Some(Action::OpenNearest));
+        assert_eq!(key_action(&press(" "), IDLE), None);
         // Selecting: Enter drops a point (Shift adds, Alt takes away), Space closes.
         assert_eq!(
-            key_action(&press("Enter"), true),
+            key_action(&press("Enter"), SELECTING),
             Some(Action::KeyPoint {
                 add: false,
                 subtract: false
@@ -241,20 +260,22 @@ mod tests {
             ..press("Enter")
         };
         assert_eq!(
-            key_action(&alt_enter, true),
+            key_action(&alt_enter, SELECTING),
             Some(Action::KeyPoint {
                 add: false,
                 subtract: true
             })
         );
-        assert_eq!(key_action(&press(" "), true), Some(Action::KeyClose));
+        // Space closes a keyboard lasso under way; else it is the page's (it scrolls).
+        assert_eq!(key_action(&press(" "), SELECTING), None);
+        assert_eq!(key_action(&press(" "), SKETCHING), Some(Action::KeyClose));
         // On a button or link, Enter and Space are the control's own.
         let on_button = KeyPress {
             on_control: true,
             ..press("Enter")
         };
-        assert_eq!(key_action(&on_button, true), None);
-        assert_eq!(key_action(&on_button, false), None);
+        assert_eq!(key_action(&on_button, SELECTING), None);
+        assert_eq!(key_action(&on_button, IDLE), None);
     }
 
     #[test]
@@ -283,7 +304,7 @@ mod tests {
         ];
         for k in singles {
             assert!(
-                key_action(&press(k), false).is_some() || key_action(&press(k), true).is_some(),
+                key_action(&press(k), IDLE).is_some() || key_action(&press(k), SELECTING).is_some(),
                 "{k} has no action"
             );
             assert!(

@@ -9,8 +9,6 @@ use crate::viewer::Viewer;
 pub struct WallLabel {
     /// The short name shown (the cluster's first two terms).
     pub text: String,
-    /// The whole name and the cluster's size, for a tooltip.
-    pub title: String,
     /// The group's centre, where the leader line starts.
     pub anchor: [f64; 2],
     /// The label's box [x0, y0, x1, y1]; the leader line ends on its nearest edge.
@@ -89,7 +87,6 @@ pub fn wall_labels(v: &Viewer, m: LabelMetrics, max: usize, min_size: u64) -> Ve
         if let Some((rect, covers)) = best {
             placed.push(WallLabel {
                 text,
-                title: format!("{} ({} items)", info.label, info.size),
                 anchor,
                 rect,
                 covers,

@@ -103,11 +103,11 @@ pub struct Viewer {
     places_generation: u64,
 }
 
-/// Every item on its way from its place on the map left to its place on the map shown: screen
-/// positions at the start and the end (the view of each map), eased as camera glides are.
+/// Every item on its way from its place on the map left to its place on the map shown, in the
+/// new map's coordinates: it starts where it stood on screen (seen through the new map's fitted
+/// view) and ends at its place, eased as camera glides are. The view may move meanwhile.
 struct MapGlide {
     from: Vec<[f32; 2]>,
-    to: Vec<[f32; 2]>,
     start: f64,
     duration: f64,
 }
@@ -279,18 +279,23 @@ impl Viewer {
         if i >= self.atlas.maps.len() || i == self.atlas.current {
             return i < self.atlas.maps.len();
         }
-        let from = self.on_screen();
-        self.set_map(i);
+        let screen = self.on_screen();
+        // Hover and clicks wait for the items to come to rest: the index for them is made then
+        // (for a million items it takes longer than a frame).
+        self.switch_map(i, ms <= 0.0);
         if ms <= 0.0 {
             return true;
         }
-        // Hover and clicks wait for the items to come to rest: the index for them is made then
-        // (for a million items it takes longer than a frame).
-        self.picker = None;
-        let to = self.on_screen();
+        let cam = self.camera;
+        let from = screen
+            .iter()
+            .map(|s| {
+                let m = cam.to_map([s[0] as f64, s[1] as f64]);
+                [m[0] as f32, m[1] as f32]
+            })
+            .collect();
         self.map_glide = Some(MapGlide {
             from,
-            to,
             start: now,
             duration: ms,
         });
@@ -325,14 +330,18 @@ impl Viewer {
             return false;
         }
         let e = (1.0 - (1.0 - t).powi(3)) as f32;
-        let cam = self.camera;
-        for ((p, a), b) in self.atlas.positions.iter_mut().zip(&g.from).zip(&g.to) {
-            let s = [
-                (a[0] + (b[0] - a[0]) * e) as f64,
-                (a[1] + (b[1] - a[1]) * e) as f64,
-            ];
-            let m = cam.to_map(s);
-            *p = [m[0] as f32, m[1] as f32];
+        let AtlasData {
+            positions,
+            maps,
+            current,
+            ..
+        } = &mut self.atlas;
+        for ((p, a), b) in positions
+            .iter_mut()
+            .zip(&g.from)
+            .zip(&maps[*current].positions)
+        {
+            *p = [a[0] + (b[0] - a[0]) * e, a[1] + (b[1] - a[1]) * e];
         }
         true
     }
@@ -347,12 +356,18 @@ impl Viewer {
         if i >= self.atlas.maps.len() {
             return false;
         }
+        self.switch_map(i, true);
+        true
+    }
+
+    /// Map `i` shown and fitted; its hover index made now when `index` (else by the caller).
+    fn switch_map(&mut self, i: usize, index: bool) {
         if self.map_glide.take().is_some() {
             self.atlas.positions = self.atlas.maps[self.atlas.current].positions.clone();
         }
         self.places_generation += 1;
         self.atlas.select_map(i);
-        self.picker = Some(Picker::new(&self.atlas.positions));
+        self.picker = index.then(|| Picker::new(&self.atlas.positions));
         self.grid = Grid::new(
             &self.atlas.positions,
             self.atlas.bounds,
@@ -364,7 +379,6 @@ impl Viewer {
         self.hover = None;
         // A keyboard sketch's points belong to the map they were dropped on.
         self.key_sketch = None;
-        true
     }
 
     /// The map after the one shown (the first after the last).
@@ -401,8 +415,11 @@ impl Viewer {
                 .and_then(|nb| nb.into_iter().find(|j| !walked.contains(j) && *j != i))
         } else {
             let back = self.walk.pop();
-            // Going back must not record the card left as a step forward.
-            self.open_prev = None;
+            // Going back must not record the card left as a step forward (with nowhere to go
+            // back to, the card stays the one shown).
+            if back.is_some() {
+                self.open_prev = None;
+            }
             back
         }
     }

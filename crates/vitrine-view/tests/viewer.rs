@@ -10,7 +10,7 @@ use vitrine_build::pipeline::BuildOptions;
 use vitrine_corpus::corpus::{Op, Shape, Step};
 use vitrine_corpus::polygon::Polygon;
 use vitrine_test_support::write_npy_f32;
-use vitrine_view::input::{key_action, Action, KeyPress};
+use vitrine_view::input::{key_action, Action, Doing, KeyPress};
 use vitrine_view::labels::{leader, wall_labels, LabelMetrics};
 use vitrine_view::present::{NullPresent, Present};
 use vitrine_view::raster::{NEUTRAL_GREY, READING_ROOM};
@@ -159,7 +159,10 @@ fn keys_drive_a_keyboard_rectangle_and_enter_opens_the_record_nearest_the_centre
         on_control: false,
     };
     // Moving the map, Enter opens the item nearest the centre of the view.
-    assert_eq!(key_action(&key("Enter"), false), Some(Action::OpenNearest));
+    assert_eq!(
+        key_action(&key("Enter"), Doing::default()),
+        Some(Action::OpenNearest)
+    );
     let centre = v.camera.centre;
     let nearest = (0..v.atlas.n)
         .min_by(|&a, &b| {
@@ -172,7 +175,7 @@ fn keys_drive_a_keyboard_rectangle_and_enter_opens_the_record_nearest_the_centre
         .unwrap();
     assert_eq!(v.nearest_to_centre(), Some(nearest));
     // r, then Enter at two places: the rectangle between them selects.
-    let Some(Action::SetMode(m)) = key_action(&key("r"), false) else {
+    let Some(Action::SetMode(m)) = key_action(&key("r"), Doing::default()) else {
         panic!("r is the rectangle mode")
     };
     v.set_mode(m);
@@ -366,4 +369,33 @@ fn hover_and_clicks_wait_for_a_map_change_to_come_to_rest() {
     v.step_map_glide(600.0);
     let q = v.camera.to_screen(v.atlas.positions[3]);
     assert_eq!(v.pick(q), Some(3));
+}
+
+#[test]
+fn going_back_with_nowhere_to_go_keeps_the_card_and_the_way_back() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut v = viewer(dir.path());
+    v.open_card(Some(5));
+    assert_eq!(v.card_step(false), None);
+    let next = v.card_step(true).unwrap();
+    v.open_card(Some(next));
+    assert_eq!(v.card_step(false), Some(5));
+}
+
+#[test]
+fn a_map_change_follows_the_view_when_it_moves_during_the_glide() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut v = viewer(dir.path());
+    v.set_map_gliding(1, 0.0, 500.0);
+    // The view moves half way through: the items go on towards their places on the map, which
+    // moved with the view, and end exactly there.
+    v.step_map_glide(250.0);
+    v.camera.pan(40.0, -25.0);
+    v.step_map_glide(400.0);
+    let target = v.camera.to_screen(v.atlas.maps[1].positions[9]);
+    assert!(v.step_map_glide(499.0));
+    let near = v.camera.to_screen(v.atlas.positions[9]);
+    assert!((near[0] - target[0]).abs() < 2.0 && (near[1] - target[1]).abs() < 2.0);
+    assert!(!v.step_map_glide(500.0));
+    assert_eq!(v.camera.to_screen(v.atlas.positions[9]), target);
 }

@@ -42,8 +42,10 @@ pub struct DirectGl {
 /// The WebGL2 context of a wgpu device on the GL backend (None on WebGPU).
 fn gl_of<R>(device: &wgpu::Device, f: impl FnOnce(&glow::Context) -> R) -> Option<R> {
     // SAFETY: the context is only used on this thread, between wgpu's own calls, and nothing
-    // of wgpu's is destroyed through it; the state it changes (program, texture, vertex array,
-    // framebuffer binding, viewport) is set afresh by wgpu-hal before each of its own passes.
+    // of wgpu's is destroyed through it. The viewer draws nothing else through wgpu on a device
+    // it presents this way; even so, the vertex array wgpu-hal binds once for good is bound
+    // again after each draw here, and the rest of the state it uses (program, textures,
+    // framebuffer, viewport) wgpu-hal sets before each of its own passes.
     let hal = unsafe { device.as_hal::<wgpu::hal::api::Gles>() }?;
     Some(f(hal.context().lock()))
 }
@@ -144,9 +146,10 @@ impl DirectGl {
             if let Some(at) = gl.get_uniform_location(program, "frame") {
                 gl.uniform_1_i32(Some(&at), 0);
             }
+            let theirs = gl.get_parameter_vertex_array(glow::VERTEX_ARRAY_BINDING);
             gl.bind_vertex_array(Some(vao));
             gl.draw_arrays(glow::TRIANGLES, 0, 3);
-            gl.bind_vertex_array(None);
+            gl.bind_vertex_array(theirs);
             gl.bind_texture(glow::TEXTURE_2D, None);
             gl.use_program(None);
         });

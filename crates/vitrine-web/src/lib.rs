@@ -540,7 +540,6 @@ impl App {
             }
             let t: HtmlElement = doc.create_element("span").unwrap().dyn_into().unwrap();
             t.set_text_content(Some(&l.text));
-            t.set_title(&l.title);
             let style = t.style();
             let _ = style.set_property("left", &format!("{:.1}px", l.rect[0] * css));
             let _ = style.set_property("top", &format!("{:.1}px", l.rect[1] * css));
@@ -1250,8 +1249,14 @@ fn install_events(canvas: &HtmlCanvasElement) {
                 alt: e.alt_key(),
                 on_control: matches!(tag.as_str(), "BUTTON" | "A" | "SUMMARY"),
             };
-            let selecting = app().is_some_and(|a| a.borrow().mode != Mode::Move);
-            if let Some(action) = vitrine_view::input::key_action(&press, selecting) {
+            let doing = app().map_or(Default::default(), |a| {
+                let a = a.borrow();
+                vitrine_view::input::Doing {
+                    selecting: a.mode != Mode::Move,
+                    sketching: a.key_sketch.is_some(),
+                }
+            });
+            if let Some(action) = vitrine_view::input::key_action(&press, doing) {
                 e.prevent_default();
                 dispatch(action);
             }
