@@ -56,12 +56,7 @@ pub fn read(
     };
     // A misspelt --date-field is said now, not after hours of computing.
     if let (Some(c), Some(name)) = (&cat, &opts.date_field) {
-        if c.column(name).is_none() {
-            return Err(InputError::Usage(format!(
-                "--date-field {name:?}: the catalogue has no such column"
-            ))
-            .into());
-        }
+        date_column(c, name)?;
     }
     let items = match_items(&vectors, opts, cat.as_ref())?;
     laps.lap("read inputs");
@@ -89,6 +84,15 @@ pub fn read(
     ))
 }
 
+/// The catalogue column `--date-field` names.
+fn date_column(cat: &Catalogue, name: &str) -> Result<usize, InputError> {
+    cat.column(name).ok_or_else(|| {
+        InputError::Usage(format!(
+            "--date-field {name:?}: the catalogue has no such column"
+        ))
+    })
+}
+
 impl Inputs {
     /// The catalogue date field that orders the timeline map: `--date-field`, else the first
     /// column read as dates; with each item's dating. None when there is no catalogue or no date field.
@@ -97,11 +101,7 @@ impl Inputs {
             return Ok(None);
         };
         let chosen = match date_field {
-            Some(name) => Some(cat.column(name).ok_or_else(|| {
-                InputError::Usage(format!(
-                    "--date-field {name:?}: the catalogue has no such column"
-                ))
-            })?),
+            Some(name) => Some(date_column(cat, name)?),
             None => (0..cat.header.len())
                 .filter(|&c| c != cat.id_column)
                 .find(|&c| {

@@ -708,14 +708,8 @@ impl Viewer {
     /// After any change of the selection or the filters: how items are dimmed, the tray's items,
     /// and what the page shows of the corpus.
     pub fn corpus_changed(&mut self) -> CorpusState {
+        self.retone();
         let (sel, pass) = (self.selection.mask(), self.filters.passing());
-        let tones = crate::selection::tones(
-            &self.atlas.colours,
-            self.theme.paper,
-            sel,
-            pass,
-            self.filters.hide,
-        );
         let corpus_mask: Option<Mask> = match (sel, pass) {
             (Some(s), Some(p)) => {
                 let mut m = s.clone();
@@ -742,14 +736,25 @@ impl Viewer {
             .as_ref()
             .map(|m| m.items().map(|i| i as u32).collect())
             .unwrap_or_default();
-        self.tones = tones;
-        self.tones_generation += 1;
         state
     }
 
     /// The theme changed: the dimming is made again against its paper, and every kept mark drawn again.
     pub fn set_theme(&mut self, theme: Theme) {
         self.theme = theme;
-        self.corpus_changed();
+        self.retone();
+    }
+
+    /// How every item is dimmed for the selection and the filters (towards the theme's paper);
+    /// the kept marks are drawn again.
+    fn retone(&mut self) {
+        self.tones = crate::selection::tones(
+            &self.atlas.colours,
+            self.theme.paper,
+            self.selection.mask(),
+            self.filters.passing(),
+            self.filters.hide,
+        );
+        self.tones_generation += 1;
     }
 }

@@ -34,6 +34,8 @@ void main() {
 
 pub struct DirectGl {
     program: glow::Program,
+    /// Where the program reads its texture unit.
+    frame: Option<glow::UniformLocation>,
     vao: glow::VertexArray,
     texture: glow::Texture,
     size: (u32, u32),
@@ -78,6 +80,7 @@ impl DirectGl {
             let vao = gl.create_vertex_array().ok()?;
             let texture = gl.create_texture().ok()?;
             Some(DirectGl {
+                frame: gl.get_uniform_location(program, "frame"),
                 program,
                 vao,
                 texture,
@@ -90,7 +93,8 @@ impl DirectGl {
     /// Uploads `pixels` (RGBA, `w` x `h`, top row first) and draws them into the canvas.
     pub fn present(&mut self, device: &wgpu::Device, pixels: &[u8], w: u32, h: u32) {
         let size = &mut self.size;
-        let (program, vao, texture) = (self.program, self.vao, self.texture);
+        let (program, vao, texture, frame) =
+            (self.program, self.vao, self.texture, self.frame.as_ref());
         gl_of(device, |gl| unsafe {
             gl.bind_framebuffer(glow::FRAMEBUFFER, None);
             gl.viewport(0, 0, w as i32, h as i32);
@@ -143,9 +147,7 @@ impl DirectGl {
                 );
             }
             gl.use_program(Some(program));
-            if let Some(at) = gl.get_uniform_location(program, "frame") {
-                gl.uniform_1_i32(Some(&at), 0);
-            }
+            gl.uniform_1_i32(frame, 0);
             let theirs = gl.get_parameter_vertex_array(glow::VERTEX_ARRAY_BINDING);
             gl.bind_vertex_array(Some(vao));
             gl.draw_arrays(glow::TRIANGLES, 0, 3);

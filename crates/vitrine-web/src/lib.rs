@@ -1142,10 +1142,10 @@ fn toggle_theme() {
 fn pointer_outcome(outcome: Pointer) {
     match outcome {
         Pointer::Nothing => {}
-        Pointer::Sketch => {
-            let a = app();
-            select::draw_sketch(a.as_ref().and_then(|a| a.borrow().sketch.clone()).as_ref());
-        }
+        Pointer::Sketch => match app() {
+            Some(a) => select::draw_sketch(a.borrow().sketch.as_ref()),
+            None => select::draw_sketch(None),
+        },
         Pointer::Moved => request_frame(),
         Pointer::Hover(p) => {
             let i = app().and_then(|a| a.borrow().pick(p));

@@ -216,7 +216,24 @@ fn update_histograms(a: &mut App) {
     }
 }
 
-/// Draws the strip: whole collection, filtered, corpus; the brush; year ticks.
+/// The colours of the page's theme (CSS custom properties on the body, see style.css): each
+/// asked for by name, with a fallback.
+fn theme_colours() -> impl Fn(&str, &str) -> String {
+    let style = document()
+        .body()
+        .and_then(|b| web_sys::window()?.get_computed_style(&b).ok().flatten());
+    move |name, fallback| {
+        style
+            .as_ref()
+            .and_then(|st| st.get_property_value(name).ok())
+            .map(|v| v.trim().to_string())
+            .filter(|v| !v.is_empty())
+            .unwrap_or_else(|| fallback.to_string())
+    }
+}
+
+/// Draws the strip: whole collection, filtered, corpus; the brush; year ticks — in the colours of
+/// the theme shown.
 pub fn draw() {
     let Some(app) = app() else { return };
     let Some(cv) = canvas() else { return };
@@ -259,15 +276,17 @@ pub fn draw() {
             }
         }
     };
-    bars(&s.whole, "#d9d0bf");
+    let theme_colour = theme_colours();
+    let accent = theme_colour("--accent", "#116466");
+    bars(&s.whole, &theme_colour("--strip-whole", "#d9d0bf"));
     if let Some(f) = filtered {
-        bars(f, "#8c8577");
+        bars(f, &theme_colour("--strip-filtered", "#8c8577"));
     }
     if let Some(c) = corpus {
-        bars(c, "#116466");
+        bars(c, &accent);
     }
     // Year ticks: about one per 90 CSS pixels, on round years.
-    ctx.set_fill_style_str("#5f5a55");
+    ctx.set_fill_style_str(&theme_colour("--ink-soft", "#5f5a55"));
     ctx.set_font(&format!("{}px sans-serif", (11.0 * ratio).round()));
     let years = years(s);
     let wide = ((w / ratio) / 90.0).max(2.0) as usize;
@@ -296,9 +315,9 @@ pub fn draw() {
             })
         });
     if let Some((x0, x1)) = range {
-        ctx.set_fill_style_str("rgba(17, 100, 102, 0.12)");
+        ctx.set_fill_style_str(&theme_colour("--strip-brush", "rgba(17, 100, 102, 0.12)"));
         ctx.fill_rect(x0, 0.0, (x1 - x0).max(1.0), h - axis);
-        ctx.set_fill_style_str("#116466");
+        ctx.set_fill_style_str(&accent);
         ctx.fill_rect(x0, 0.0, ratio, h - axis);
         ctx.fill_rect(x1 - ratio, 0.0, ratio, h - axis);
     }
