@@ -7,8 +7,8 @@ use vitrine_map::matrix::Matrix;
 
 use crate::error::InputError;
 
-/// Reads a `.npy` of float16, float32 or float64 vectors into the f32 matrix the map engine uses,
-/// converting as the data stream in (never a second copy beside it).
+/// Reads a `.npy` of float, integer or bool vectors into the f32 matrix the map engine uses,
+/// converting as the data stream in (never a second copy beside it, whatever the element type).
 pub fn read_vectors(path: &Path) -> Result<Matrix, InputError> {
     let io = |e| InputError::io(path, e);
     let file = std::fs::File::open(path).map_err(io)?;

@@ -36,7 +36,7 @@ pub enum OptimiserArg {
 /// Build an atlas folder from feature vectors, a catalogue and images.
 #[derive(Args)]
 pub struct BuildArgs {
-    /// Feature vectors: a NumPy .npy file, items x dimensions (float16, float32 or float64).
+    /// Feature vectors: a NumPy .npy file, items x dimensions (float, integer or bool).
     #[arg(long)]
     vectors: PathBuf,
     /// A text file with one id per line, one line per vector row. Without it, vectors match

@@ -1,5 +1,9 @@
-//! NumPy `.npy` files holding a 2-D float array (format versions 1.0, 2.0 and 3.0): read from any
-//! byte source, written as little-endian float32.
+//! NumPy `.npy` files holding a 2-D numeric array (format versions 1.0, 2.0 and 3.0): read from any
+//! byte source and converted to float32, written as little-endian float32.
+//!
+//! Element types read: float16/32/64, the signed and unsigned integers of 8, 16, 32 and 64 bits
+//! (quantised embeddings are often int8 or uint8) and bool (0 or 1). Integers above 2^24 in
+//! magnitude round to the nearest float32, as NumPy's own `astype(np.float32)` does.
 //!
 //! The layout follows the `.npy` format specification (NEP 1): a 6-byte magic string, a
 //! major and minor version byte, a little-endian header length (u16 in 1.0, u32 in 2.0 and
@@ -31,6 +35,59 @@ enum Scalar {
     F16,
     F32,
     F64,
+    I8,
+    U8,
+    I16,
+    U16,
+    I32,
+    U32,
+    I64,
+    U64,
+    Bool,
+}
+
+impl Scalar {
+    fn size(self) -> usize {
+        match self {
+            Scalar::I8 | Scalar::U8 | Scalar::Bool => 1,
+            Scalar::F16 | Scalar::I16 | Scalar::U16 => 2,
+            Scalar::F32 | Scalar::I32 | Scalar::U32 => 4,
+            Scalar::F64 | Scalar::I64 | Scalar::U64 => 8,
+        }
+    }
+}
+
+/// The element type and byte order of a `descr` such as `<f4`, `|u1` or `>i8` (None when foreign).
+/// One-byte types carry `|` (no byte order); `=` is the writer's native order, little-endian on
+/// every machine NumPy ships for today.
+fn parse_descr(descr: &str) -> Option<(bool, Scalar)> {
+    let mut chars = descr.chars();
+    let order = chars.next()?;
+    let little = match order {
+        '<' | '=' | '|' => true,
+        '>' => false,
+        _ => return None,
+    };
+    let scalar = match chars.as_str() {
+        "f2" => Scalar::F16,
+        "f4" => Scalar::F32,
+        "f8" => Scalar::F64,
+        "i1" => Scalar::I8,
+        "u1" => Scalar::U8,
+        "b1" => Scalar::Bool,
+        "i2" => Scalar::I16,
+        "u2" => Scalar::U16,
+        "i4" => Scalar::I32,
+        "u4" => Scalar::U32,
+        "i8" => Scalar::I64,
+        "u8" => Scalar::U64,
+        _ => return None,
+    };
+    // `|` only for one-byte types, whose order does not matter.
+    if order == '|' && scalar.size() != 1 {
+        return None;
+    }
+    Some((little, scalar))
 }
 
 /// What the header says.
@@ -143,19 +200,12 @@ pub fn parse_header(bytes: &[u8]) -> Result<Header, NpyError> {
     let descr =
         dict_value(header, "descr").ok_or_else(|| bad("the header has no 'descr'".into()))?;
     let descr = descr.trim().trim_matches(|c| c == '\'' || c == '"');
-    let (little, scalar) = match descr {
-        "<f2" | "=f2" => (true, Scalar::F16),
-        ">f2" => (false, Scalar::F16),
-        "<f4" | "=f4" => (true, Scalar::F32),
-        ">f4" => (false, Scalar::F32),
-        "<f8" | "=f8" => (true, Scalar::F64),
-        ">f8" => (false, Scalar::F64),
-        other => {
-            return Err(bad(format!(
-                "element type {other} is not supported: vectors must be float16, float32 or float64"
-            )))
-        }
-    };
+    let (little, scalar) = parse_descr(descr).ok_or_else(|| {
+        bad(format!(
+            "element type {descr} is not supported: vectors must be float (16, 32 or 64 bits), \
+             integer (8 to 64 bits, signed or unsigned) or bool"
+        ))
+    })?;
     let fortran = match dict_value(header, "fortran_order").map(str::trim) {
         Some("True") => true,
         Some("False") => false,
@@ -199,11 +249,7 @@ pub fn parse_header(bytes: &[u8]) -> Result<Header, NpyError> {
 fn decode(h: &Header, src: &mut dyn Read, available: usize) -> Result<NpyArray, NpyError> {
     let bad = |reason: String| NpyError::Format(reason);
     let (rows, cols, scalar, little, fortran) = (h.rows, h.cols, h.scalar, h.little, h.fortran);
-    let size = match scalar {
-        Scalar::F16 => 2,
-        Scalar::F32 => 4,
-        Scalar::F64 => 8,
-    };
+    let size = scalar.size();
     let count = rows
         .checked_mul(cols)
         .filter(|n| n.checked_mul(size).is_some())
@@ -224,14 +270,26 @@ fn decode(h: &Header, src: &mut dyn Read, available: usize) -> Result<NpyArray, 
             }
         )));
     }
+    // Each value's bytes, in the file's order, to f32 (`as` rounds to nearest, as NumPy does).
     let read = |b: &[u8]| -> f32 {
-        match (scalar, little) {
-            (Scalar::F16, true) => half::f16::from_le_bytes([b[0], b[1]]).to_f32(),
-            (Scalar::F16, false) => half::f16::from_be_bytes([b[0], b[1]]).to_f32(),
-            (Scalar::F32, true) => f32::from_le_bytes(b.try_into().unwrap()),
-            (Scalar::F32, false) => f32::from_be_bytes(b.try_into().unwrap()),
-            (Scalar::F64, true) => f64::from_le_bytes(b.try_into().unwrap()) as f32,
-            (Scalar::F64, false) => f64::from_be_bytes(b.try_into().unwrap()) as f32,
+        let mut w = [0u8; 8];
+        w[..size].copy_from_slice(b);
+        if !little {
+            w[..size].reverse();
+        }
+        match scalar {
+            Scalar::F16 => half::f16::from_le_bytes([w[0], w[1]]).to_f32(),
+            Scalar::F32 => f32::from_le_bytes([w[0], w[1], w[2], w[3]]),
+            Scalar::F64 => f64::from_le_bytes(w) as f32,
+            Scalar::I8 => w[0] as i8 as f32,
+            Scalar::U8 => w[0] as f32,
+            Scalar::Bool => (w[0] != 0) as u8 as f32,
+            Scalar::I16 => i16::from_le_bytes([w[0], w[1]]) as f32,
+            Scalar::U16 => u16::from_le_bytes([w[0], w[1]]) as f32,
+            Scalar::I32 => i32::from_le_bytes([w[0], w[1], w[2], w[3]]) as f32,
+            Scalar::U32 => u32::from_le_bytes([w[0], w[1], w[2], w[3]]) as f32,
+            Scalar::I64 => i64::from_le_bytes(w) as f32,
+            Scalar::U64 => u64::from_le_bytes(w) as f32,
         }
     };
     let mut out = vec![0f32; count];

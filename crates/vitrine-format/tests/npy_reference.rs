@@ -60,6 +60,52 @@ print("\n".join(names))
 }
 
 #[test]
+fn every_integer_dtype_and_bool_that_numpy_writes_reads_back_as_numpys_float32() {
+    // Source of truth: NumPy's own `astype(np.float32)` of the same array (NEP 1 for the files).
+    let dir = tempfile::tempdir().unwrap();
+    let listing = run_python(
+        r#"
+import sys, numpy as np
+out = sys.argv[1]
+rng = np.random.default_rng(11)
+names = []
+for dt in ['|i1', '|u1', '<i2', '>i2', '<u2', '<i4', '>i4', '<u4', '<i8', '>i8', '<u8', '|b1']:
+    kind = np.dtype(dt)
+    if kind.kind == 'b':
+        arr = rng.integers(0, 2, size=(9, 6)).astype(dt)
+    else:
+        info = np.iinfo(kind)
+        arr = rng.integers(info.min, info.max, size=(9, 6), dtype=kind.newbyteorder('=')).astype(dt)
+        arr[0, :2] = [info.min, info.max]  # the extremes round as NumPy rounds them
+    for order in ['C', 'F']:
+        name = f"{out}/m_{dt.replace('<','le').replace('>','be').replace('|','')}_{order}.npy"
+        np.save(name, np.asarray(arr, order=order))
+        arr.astype('<f4').tofile(name + ".f32")
+        names.append(name)
+print("\n".join(names))
+"#,
+        &[dir.path()],
+    );
+    let mut count = 0;
+    for name in listing.lines() {
+        let m = read_npy(Path::new(name)).unwrap_or_else(|e| panic!("{name}: {e}"));
+        let raw = std::fs::read(format!("{name}.f32")).unwrap();
+        let expected: Vec<f32> = raw
+            .chunks(4)
+            .map(|b| f32::from_le_bytes(b.try_into().unwrap()))
+            .collect();
+        assert_eq!((m.rows, m.cols), (9, 6), "{name}");
+        assert_eq!(
+            m.data.iter().map(|v| v.to_bits()).collect::<Vec<_>>(),
+            expected.iter().map(|v| v.to_bits()).collect::<Vec<_>>(),
+            "{name}"
+        );
+        count += 1;
+    }
+    assert_eq!(count, 24);
+}
+
+#[test]
 fn numpy_reads_what_we_write() {
     let dir = tempfile::tempdir().unwrap();
     let p = dir.path().join("ours.npy");
@@ -90,14 +136,18 @@ fn truncated_and_foreign_files_are_refused_with_the_reason() {
     assert!(e.contains("truncated") && e.contains("row 8"), "{e}");
     let e = parse_npy(b"id,title\n1,a\n").unwrap_err().to_string();
     assert!(e.contains("not a NumPy .npy file"), "{e}");
-    let mut ints = bytes.clone();
-    let pos = ints.windows(3).position(|w| w == b"<f4").unwrap();
-    ints[pos..pos + 3].copy_from_slice(b"<i8");
-    let e = parse_npy(&ints).unwrap_err().to_string();
-    assert!(
-        e.contains("<i8") && e.contains("float16, float32 or float64"),
-        "{e}"
-    );
+    // Complex numbers, or a one-byte order mark on a wide type, are refused by name.
+    for foreign in [&b"<c8"[..], b"|f4"] {
+        let mut other = bytes.clone();
+        let pos = other.windows(3).position(|w| w == b"<f4").unwrap();
+        other[pos..pos + 3].copy_from_slice(foreign);
+        let e = parse_npy(&other).unwrap_err().to_string();
+        let name = std::str::from_utf8(foreign).unwrap();
+        assert!(
+            e.contains(name) && e.contains("integer (8 to 64 bits"),
+            "{e}"
+        );
+    }
     // Random garbage never panics.
     let mut state = 1u64;
     for len in 0..200 {
