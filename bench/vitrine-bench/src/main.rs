@@ -73,8 +73,15 @@ fn main() -> anyhow::Result<()> {
             eprintln!("start: {report:?}");
             let start_s = t2.elapsed().as_secs_f64() - fuzzy_s;
             let parallel = args.get(6).map(String::as_str) != Some("sequential");
+            // The layout's seed, for measuring how much a figure varies from seed to seed.
+            let seed = std::env::var("VITRINE_SEED")
+                .ok()
+                .map(|s| s.parse())
+                .transpose()?
+                .unwrap_or(42);
             let params = vitrine_map::umap::UmapParams {
                 parallel,
+                seed,
                 ..Default::default()
             };
             let pos = vitrine_map::umap::layout(&fuzzy, start, &params, &|_, _| {});
