@@ -396,11 +396,10 @@ pub const BLOCKS: usize = 1024;
 /// from each end) and negative samples drawn by its own seeded generator, reading every other vertex
 /// where it stood at the start of the epoch. No two blocks write the same memory and nothing depends on
 /// the order in which blocks run, so any number of threads gives the same map. Within a vertex, the
-/// pull along a sampled edge and the pushes of that sample's negative samples are computed from the
-/// same position and applied as one step, so that the processor overlaps them (about twice as fast
-/// as applying each in turn; trustworthiness unchanged on the 100,000-item benchmark collection).
-/// Measured on the demo collection it keeps neighbourhoods slightly less well than the sequential
-/// optimiser (trustworthiness@10 about 0.005 lower).
+/// updates are computed four at a time in a pipeline (each pull together with the previous sample's
+/// negative samples, each sample's negative samples after its pull), about twice as fast as one at
+/// a time. On the hard benchmark mixtures its trustworthiness@10 is within 0.001 of the sequential
+/// optimiser's (docs/performance.md).
 pub fn layout<const D: usize>(
     graph: &FuzzyGraph,
     start: Vec<[f32; D]>,
@@ -541,21 +540,26 @@ fn layout_in_order<const D: usize>(
                         due[count] = slot;
                         count += (next[slot - base] <= e_f) as usize;
                     }
+                    // Updates are computed four at a time (one vectorised power serves four) in
+                    // a pipeline: the pull along each sampled edge is computed together with the
+                    // pushes of the previous sample's negative samples and applied at once, so
+                    // that a sample's negative samples are always taken from where its pull
+                    // moved the vertex (early on the pull may carry it past its neighbour; pushes
+                    // taken from before the pull kept hard collections' neighbourhoods less well).
+                    let mut lanes = Lanes::<D>::default();
+                    let mut push = [0f32; D];
                     for &slot in &due[..count] {
                         let s = slot - base;
                         let tail = tails[slot] as usize;
-                        let t = prev[tail];
-                        // The pull along the edge and the pushes of its negative samples are all
-                        // taken from the same place and applied together: independent of each
-                        // other, they run side by side in the processor.
                         next[s] += eps[slot];
                         let every_neg = eps[slot] / neg;
                         let negs = ((e_f - next_neg[s]) / every_neg).max(0.0) as usize;
-                        // Lane 0 of the first group of four is the pull along the edge, the other
-                        // lanes the negative samples: one vectorised power serves four updates.
-                        let mut push = [0f32; D];
-                        let mut lanes = Lanes::<D>::default();
-                        lanes.add(t, true);
+                        if lanes.len == 4 {
+                            lanes.apply(p, a, b, &mut push);
+                        }
+                        lanes.add(prev[tail], true);
+                        lanes.apply(p, a, b, &mut push);
+                        step(p, &mut push, alpha);
                         for _ in 0..negs {
                             let o = rng.below(n as u64) as usize;
                             if o == v {
@@ -563,14 +567,15 @@ fn layout_in_order<const D: usize>(
                             }
                             if lanes.len == 4 {
                                 lanes.apply(p, a, b, &mut push);
+                                step(p, &mut push, alpha);
                             }
                             lanes.add(prev[o], false);
                         }
-                        lanes.apply(p, a, b, &mut push);
-                        for c in 0..D {
-                            p[c] += push[c] * alpha;
-                        }
                         next_neg[s] += negs as f64 * every_neg;
+                    }
+                    if lanes.len > 0 {
+                        lanes.apply(p, a, b, &mut push);
+                        step(p, &mut push, alpha);
                     }
                     mine[local] = cur;
                 }
@@ -581,6 +586,15 @@ fn layout_in_order<const D: usize>(
     }
     progress(epochs, epochs);
     finite(pos)
+}
+
+/// Moves `p` by the summed pushes times the learning rate, and clears them.
+#[inline]
+fn step<const D: usize>(p: &mut [f32; D], push: &mut [f32; D], alpha: f32) {
+    for (x, g) in p.iter_mut().zip(push.iter_mut()) {
+        *x += *g * alpha;
+        *g = 0.0;
+    }
 }
 
 /// Up to four pending updates of one vertex (the pull along an edge and negative samples), whose

@@ -122,6 +122,74 @@ print(f"{t:.6f} {acc:.6f}")
 }
 
 #[test]
+fn parallel_layout_keeps_neighbourhoods_as_the_sequential_one_on_a_hard_mixture() {
+    // The bench's hard mixture (bench/bench_map.py: Zipf-like sizes, low-rank clusters whose
+    // siblings share directions and overlap, noise on the sphere), small: 12,000 x 64, 4 % noise.
+    // sklearn.manifold.trustworthiness (cosine, k = 10, on a fixed 4,000-item sample) is the
+    // outside measure; the parallel optimiser may lose at most 0.003 against the sequential one.
+    let dir = tempfile::tempdir().unwrap();
+    let bench = Path::new(env!("CARGO_MANIFEST_DIR")).join("../../bench");
+    run_python(
+        r#"
+import sys, numpy as np
+sys.path.insert(0, sys.argv[2])
+import bench_map
+x, labels = bench_map.make_hard(12000, 64, noise=0.04, overlap=0.8, seed=71)
+np.save(f"{sys.argv[1]}/hard.npy", x)
+"#,
+        &[dir.path(), &bench],
+    );
+    let x = read_npy(&dir.path().join("hard.npy"));
+    let g = vitrine_map::nndescent::nn_descent(
+        &x,
+        Metric::Cosine,
+        &vitrine_map::nndescent::NnDescentParams::new(K, 42),
+        &|_, _, _| {},
+    );
+    let fuzzy = umap::fuzzy_graph(&g);
+    let pca = umap::pca_start(
+        &vitrine_map::knn::prepare(&x, Metric::Cosine),
+        &mut Rng::new(42),
+    );
+    let (start, _) = vitrine_map::spectral::spectral_start(&fuzzy, &pca, 42);
+    let mut files = vec![];
+    for parallel in [false, true] {
+        let params = umap::UmapParams {
+            parallel,
+            ..Default::default()
+        };
+        let pos = umap::layout(&fuzzy, start.clone(), &params, &|_, _| {});
+        let flat: Vec<f32> = pos.iter().flatten().copied().collect();
+        let emb = dir.path().join(format!("map-{parallel}.npy"));
+        write_npy_f32(&emb, pos.len(), 2, &flat).unwrap();
+        files.push(emb);
+    }
+    let out = run_python(
+        r#"
+import sys, numpy as np
+from sklearn.manifold import trustworthiness
+X = np.load(sys.argv[1])
+sample = np.sort(np.random.default_rng(2).choice(len(X), 4000, replace=False))
+for f in sys.argv[2:]:
+    print(trustworthiness(X[sample], np.load(f)[sample].astype(np.float64), n_neighbors=10, metric="cosine"))
+"#,
+        &[&dir.path().join("hard.npy"), &files[0], &files[1]],
+    );
+    let t: Vec<f64> = out.split_whitespace().map(|s| s.parse().unwrap()).collect();
+    eprintln!(
+        "hard mixture: trustworthiness@10 sequential {:.4}, parallel {:.4}",
+        t[0], t[1]
+    );
+    assert!(t[0] > 0.9, "sequential trustworthiness@10 = {}", t[0]);
+    assert!(
+        t[1] >= t[0] - 0.003,
+        "parallel {:.4} against sequential {:.4}",
+        t[1],
+        t[0]
+    );
+}
+
+#[test]
 fn same_seed_same_map_other_seed_other_map() {
     let mut rng = Rng::new(3);
     let (n, d) = (300, 8);
@@ -304,6 +372,7 @@ fn the_map_does_not_depend_on_the_number_of_threads() {
                 let p = umap::UmapParams {
                     seed: 5,
                     epochs: Some(80),
+                    parallel: true,
                     ..Default::default()
                 };
                 umap::layout(&f, umap::pca_start(&x, &mut Rng::new(5)), &p, &|_, _| {})
