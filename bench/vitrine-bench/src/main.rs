@@ -34,13 +34,16 @@ fn main() -> anyhow::Result<()> {
     let read_s = t0.elapsed().as_secs_f64();
     let t1 = Instant::now();
     let mut params = vitrine_map::nndescent::NnDescentParams::new(k, 42);
-    // Tuning knobs for experiments: VITRINE_NND="trees,leaf,rounds,sample_rate".
+    // Tuning knobs for experiments: VITRINE_NND="trees,leaf,rounds,sample_rate[,min_recall]".
     if let Ok(v) = std::env::var("VITRINE_NND") {
         let f: Vec<f64> = v.split(',').map(|x| x.parse().unwrap()).collect();
         params.trees = f[0] as usize;
         params.leaf_size = f[1] as usize;
         params.max_rounds = f[2] as usize;
         params.sample_rate = f[3];
+        if let Some(&r) = f.get(4) {
+            params.min_recall = r;
+        }
     }
     let g = vitrine_map::nndescent::nn_descent(&x, metric, &params, &|_, _, _| {});
     let knn_s = t1.elapsed().as_secs_f64();
@@ -69,8 +72,9 @@ fn main() -> anyhow::Result<()> {
                 &vitrine_map::knn::prepare(&x, metric),
                 &mut vitrine_map::rng::Rng::new(42),
             );
+            let pca_s = t2.elapsed().as_secs_f64() - fuzzy_s;
             let (start, report) = vitrine_map::spectral::spectral_start(&fuzzy, &pca, 42);
-            eprintln!("start: {report:?}");
+            eprintln!("start: {report:?}; PCA start {pca_s:.3} s");
             let start_s = t2.elapsed().as_secs_f64() - fuzzy_s;
             let parallel = args.get(6).map(String::as_str) != Some("sequential");
             // The layout's seed, for measuring how much a figure varies from seed to seed.

@@ -22,6 +22,11 @@ pub struct NnDescentParams {
     pub delta: f64,
     /// Share of each item's neighbours sampled as join candidates per round.
     pub sample_rate: f64,
+    /// After the rounds settle, the recall measured on 128 sampled items against exact search
+    /// (about ±0.01); below this the lists are widened (see [`nn_descent`]).
+    pub min_recall: f64,
+    /// Widenings at most.
+    pub max_widenings: usize,
     pub seed: u64,
 }
 
@@ -34,6 +39,8 @@ impl NnDescentParams {
             max_rounds: 12,
             delta: 0.005,
             sample_rate: 0.6,
+            min_recall: 0.96,
+            max_widenings: 1,
             seed,
         }
     }
@@ -56,6 +63,24 @@ impl Lists {
             dist: vec![f32::INFINITY; n * k],
             fresh: vec![false; n * k],
         }
+    }
+}
+
+impl Lists {
+    /// The same lists with `extra` more slots each (empty), every entry fresh again so that it
+    /// takes part in the next joins with the wider lists.
+    fn widened(&self, extra: usize) -> Lists {
+        let (k, k2) = (self.k, self.k + extra);
+        let n = self.ids.len() / k;
+        let mut out = Lists::new(n, k2);
+        for i in 0..n {
+            out.ids[i * k2..i * k2 + k].copy_from_slice(&self.ids[i * k..(i + 1) * k]);
+            out.dist[i * k2..i * k2 + k].copy_from_slice(&self.dist[i * k..(i + 1) * k]);
+        }
+        for (f, &j) in out.fresh.iter_mut().zip(&out.ids) {
+            *f = j != u32::MAX;
+        }
+        out
     }
 }
 
@@ -505,9 +530,95 @@ pub fn nn_descent(
     if trace {
         eprintln!("{:.2}s leaves joined", clock.elapsed().as_secs_f64());
     }
+    descend(&mut lists, &data, dist, p, 0, progress, trace, &clock);
+
+    // On collections of high intrinsic dimension the rounds can settle well short of the true
+    // neighbours (the join compares neighbours of neighbours, and there they are poor guides).
+    // Measured on a few sampled items against exact search: when recall falls short, the lists
+    // grow by half of k and the rounds go on with the wider lists, whose extra entries give the
+    // join more paths; the result keeps each item's k nearest. Collections that reach the recall
+    // pay only for the measurement.
+    if p.min_recall > 0.0 && n > 4 * k {
+        // Spread over the collection by a seeded draw (the working order puts neighbours together).
+        let mut rng = Rng::new(p.seed ^ 0x5a3c_91e7);
+        let mut sample: Vec<usize> = (0..RECALL_SAMPLE.min(n))
+            .map(|_| rng.below(n as u64) as usize)
+            .collect();
+        sample.sort_unstable();
+        sample.dedup();
+        let truth = exact_in(&data, dist, k, &sample);
+        for widening in 0..p.max_widenings {
+            let r = list_recall(&lists, k, &truth, &sample);
+            if trace {
+                eprintln!(
+                    "{:.2}s recall@{k} on {} items: {r:.4} (lists of {})",
+                    clock.elapsed().as_secs_f64(),
+                    sample.len(),
+                    lists.k
+                );
+            }
+            if r >= p.min_recall {
+                break;
+            }
+            lists = lists.widened(k.div_ceil(2));
+            descend(
+                &mut lists,
+                &data,
+                dist,
+                p,
+                100 * (widening + 1),
+                progress,
+                trace,
+                &clock,
+            );
+        }
+    }
+    let kl = lists.k;
+
+    // Back to the caller's item order, each list sorted by (distance, id) in that order.
+    let mut ids = vec![u32::MAX; n * k];
+    let mut distances = vec![f32::INFINITY; n * k];
+    ids.par_chunks_mut(k)
+        .zip(distances.par_chunks_mut(k))
+        .enumerate()
+        .for_each(|(old, (ids, dists))| {
+            // Lists are sorted nearest first: the first k of a widened list are its k nearest.
+            let s = place[old] as usize * kl;
+            let mut row: Vec<(f32, u32)> = lists.dist[s..s + k]
+                .iter()
+                .zip(&lists.ids[s..s + k])
+                .filter(|&(_, &j)| j != u32::MAX)
+                .map(|(&d, &j)| (d, order[j as usize]))
+                .collect();
+            row.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
+            for (slot, (d, j)) in row.into_iter().enumerate() {
+                ids[slot] = j;
+                dists[slot] = match metric {
+                    // Unit vectors: |a − b|² = 2 − 2 cos.
+                    Metric::Cosine => (d / 2.0).max(0.0),
+                    Metric::Euclidean => d.max(0.0).sqrt(),
+                };
+            }
+        });
+    KnnGraph { k, ids, distances }
+}
+
+/// Rounds of NN-descent (candidates, local join, updates) until few lists change.
+#[allow(clippy::too_many_arguments)]
+fn descend(
+    lists: &mut Lists,
+    data: &Matrix,
+    dist: PairDist,
+    p: &NnDescentParams,
+    first_round: usize,
+    progress: &(dyn Fn(&str, u64, u64) + Sync),
+    trace: bool,
+    clock: &std::time::Instant,
+) {
+    let (k, n) = (lists.k, lists.ids.len() / lists.k);
     let cap = 2 * ((p.sample_rate * k as f64).ceil() as usize).max(1);
-    for round in 0..p.max_rounds {
-        let (new_c, old_c) = candidates(&mut lists, cap, p.seed, round);
+    for round in first_round..first_round + p.max_rounds {
+        let (new_c, old_c) = candidates(lists, cap, p.seed, round);
         if trace {
             eprintln!("  candidates at {:.2}s", clock.elapsed().as_secs_f64());
         }
@@ -541,7 +652,7 @@ pub fn nn_descent(
         drop((new_c, old_c));
         let n_updates: usize = blocks.iter().map(Sink::len).sum();
         let joined = clock.elapsed().as_secs_f64();
-        let changed = apply(&mut lists, &blocks);
+        let changed = apply(lists, &blocks);
         if trace {
             eprintln!("  join done at {joined:.2}s with {n_updates} updates");
             eprintln!(
@@ -549,37 +660,29 @@ pub fn nn_descent(
                 clock.elapsed().as_secs_f64()
             );
         }
-        progress("neighbour rounds", round as u64 + 1, p.max_rounds as u64);
+        progress(
+            "neighbour rounds",
+            (round - first_round) as u64 + 1,
+            p.max_rounds as u64,
+        );
         if (changed as f64) < p.delta * (n * k) as f64 {
             break;
         }
     }
+}
 
-    // Back to the caller's item order, each list sorted by (distance, id) in that order.
-    let mut ids = vec![u32::MAX; n * k];
-    let mut distances = vec![f32::INFINITY; n * k];
-    ids.par_chunks_mut(k)
-        .zip(distances.par_chunks_mut(k))
-        .enumerate()
-        .for_each(|(old, (ids, dists))| {
-            let s = place[old] as usize * k;
-            let mut row: Vec<(f32, u32)> = lists.dist[s..s + k]
-                .iter()
-                .zip(&lists.ids[s..s + k])
-                .filter(|&(_, &j)| j != u32::MAX)
-                .map(|(&d, &j)| (d, order[j as usize]))
-                .collect();
-            row.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
-            for (slot, (d, j)) in row.into_iter().enumerate() {
-                ids[slot] = j;
-                dists[slot] = match metric {
-                    // Unit vectors: |a − b|² = 2 − 2 cos.
-                    Metric::Cosine => (d / 2.0).max(0.0),
-                    Metric::Euclidean => d.max(0.0).sqrt(),
-                };
-            }
-        });
-    KnnGraph { k, ids, distances }
+/// Items whose recall is measured after the rounds.
+const RECALL_SAMPLE: usize = 128;
+
+/// Share of the sampled items' exact k neighbours among the first k of their lists.
+fn list_recall(lists: &Lists, k: usize, truth: &[Vec<u32>], sample: &[usize]) -> f64 {
+    let kl = lists.k;
+    let mut hit = 0;
+    for (t, &i) in truth.iter().zip(sample) {
+        let got = &lists.ids[i * kl..i * kl + k];
+        hit += t.iter().filter(|j| got.contains(j)).count();
+    }
+    hit as f64 / (k * sample.len()).max(1) as f64
 }
 
 /// Share of the exact neighbours that the approximate graph found, on the sampled query items.
@@ -601,23 +704,27 @@ pub fn recall(approx: &KnnGraph, exact_ids: &[Vec<u32>], sample: &[usize]) -> f6
 /// Queries go in blocks that share one pass over the rows, so each row is read from memory once
 /// per block rather than once per query.
 pub fn exact_for(m: &Matrix, metric: Metric, k: usize, sample: &[usize]) -> Vec<Vec<u32>> {
+    exact_in(&prepare(m, metric), PairDist { unit: false }, k, sample)
+}
+
+/// [`exact_for`] on rows already prepared, ranked by the working distance `dist`.
+fn exact_in(data: &Matrix, dist: PairDist, k: usize, sample: &[usize]) -> Vec<Vec<u32>> {
     const QUERIES_PER_PASS: usize = 32;
     if k == 0 {
         return vec![Vec::new(); sample.len()];
     }
-    let data = prepare(m, metric);
     sample
         .par_chunks(QUERIES_PER_PASS)
         .flat_map_iter(|queries| {
             // The k best so far per query, sorted by (distance, id): memory stays O(k).
             let mut best: Vec<Vec<(f32, u32)>> = vec![Vec::with_capacity(k + 1); queries.len()];
-            for j in 0..m.rows {
+            for j in 0..data.rows {
                 let rj = data.row(j);
                 for (b, &i) in best.iter_mut().zip(queries) {
                     if i == j {
                         continue;
                     }
-                    let d = sq_dist(data.row(i), rj);
+                    let d = dist.of(data.row(i), rj);
                     if b.len() == k && d >= b[k - 1].0 {
                         continue;
                     }
@@ -653,6 +760,49 @@ mod tests {
             for (q, &i) in sample.iter().enumerate() {
                 assert_eq!(got[q], full.ids[i * 10..i * 10 + 10], "{metric:?} item {i}");
             }
+        }
+    }
+
+    #[test]
+    fn short_recall_widens_the_lists_and_the_result_keeps_k_nearest() {
+        // Isotropic Gaussian points in 32 dimensions: every direction counts, the hardest case
+        // for neighbours-of-neighbours search.
+        let mut rng = Rng::new(3);
+        let (n, d, k) = (6000, 32, 10);
+        let normal = |rng: &mut Rng| {
+            let (u, v) = (rng.uniform().max(1e-12), rng.uniform());
+            ((-2.0 * u.ln()).sqrt() * (2.0 * std::f64::consts::PI * v).cos()) as f32
+        };
+        let m = Matrix {
+            rows: n,
+            cols: d,
+            data: (0..n * d).map(|_| normal(&mut rng)).collect(),
+        };
+        let exact = crate::knn::exact_knn(&m, k, Metric::Euclidean, &|_| {});
+        let sample: Vec<usize> = (0..n).step_by(7).collect();
+        let truth: Vec<Vec<u32>> = sample
+            .iter()
+            .map(|&i| exact.ids[i * k..(i + 1) * k].to_vec())
+            .collect();
+        let mut p = NnDescentParams::new(k, 1);
+        p.min_recall = 0.0;
+        let plain = nn_descent(&m, Metric::Euclidean, &p, &|_, _, _| {});
+        p.min_recall = 0.999;
+        let wide = nn_descent(&m, Metric::Euclidean, &p, &|_, _, _| {});
+        let (r0, r1) = (
+            recall(&plain, &truth, &sample),
+            recall(&wide, &truth, &sample),
+        );
+        eprintln!("recall@{k}: plain rounds {r0:.4}, widened {r1:.4}");
+        assert!(r0 < 0.97, "the plain rounds already reach {r0}");
+        assert!(r1 > r0 + 0.02, "widened {r1}, plain {r0}");
+        // k entries per item, nearest first, never the item itself.
+        assert_eq!(wide.ids.len(), n * k);
+        for i in 0..n {
+            let row: Vec<(usize, f32)> = wide.neighbours(i).collect();
+            assert_eq!(row.len(), k);
+            assert!(row.iter().all(|&(j, _)| j != i));
+            assert!(row.windows(2).all(|w| w[0].1 <= w[1].1));
         }
     }
 
