@@ -122,16 +122,27 @@ pub fn neighbour_graph(
         let bar = progress.bar("neighbours", n as u64);
         knn::exact_knn(vectors, k, metric, &|c| bar.set(c, n as u64))
     } else {
-        let bar = progress.bar("neighbours", 1);
-        let params = vitrine_map::nndescent::NnDescentParams::new(k, opts.seed);
-        let g = vitrine_map::nndescent::nn_descent(vectors, metric, &params, &|stage, i, of| {
-            bar.rename(stage);
-            bar.set(i, of);
-        });
-        drop(bar);
-        // Recall against exact search on a sample, recorded with the map's quality figures.
+        // Exact neighbours of a sample, first: NN-descent checks its recall on them (and widens its
+        // lists if it falls short), and the final recall is recorded with the map's quality figures.
         let sample = vitrine_map::quality::sample(n, 500);
         let truth = vitrine_map::nndescent::exact_for(vectors, metric, k, &sample);
+        let bar = progress.bar("neighbours", 1);
+        let params = vitrine_map::nndescent::NnDescentParams::new(k, opts.seed);
+        let known = vitrine_map::nndescent::Known {
+            sample: &sample,
+            truth: &truth,
+        };
+        let g = vitrine_map::nndescent::nn_descent_with(
+            vectors,
+            metric,
+            &params,
+            Some(known),
+            &|stage, i, of| {
+                bar.rename(stage);
+                bar.set(i, of);
+            },
+        );
+        drop(bar);
         let r = vitrine_map::nndescent::recall(&g, &truth, &sample);
         progress.note(&format!(
             "neighbour graph: NN-descent, recall@{k} {r:.3} on {} sampled items",

@@ -114,6 +114,9 @@ type Update = (u32, u32, f32);
 /// Items per block of the parallel loops that produce updates.
 const BLOCK: usize = 256;
 
+/// Blocks per batch of a round's local join (32,768 items).
+const JOIN_BATCH_BLOCKS: usize = 128;
+
 /// Items per range when the items are split into one contiguous range per thread.
 fn part_size(n: usize) -> usize {
     n.div_ceil(rayon::current_num_threads().max(1)).max(1)
@@ -459,6 +462,25 @@ pub fn nn_descent(
     p: &NnDescentParams,
     progress: &(dyn Fn(&str, u64, u64) + Sync),
 ) -> KnnGraph {
+    nn_descent_with(m, metric, p, None, progress)
+}
+
+/// Exact neighbours that the caller already has for some items (its own item order, k each, as
+/// [`exact_for`] gives them): the recall check after the rounds uses them instead of drawing and
+/// solving a sample of its own.
+pub struct Known<'a> {
+    pub sample: &'a [usize],
+    pub truth: &'a [Vec<u32>],
+}
+
+/// [`nn_descent`], with the recall check on items whose exact neighbours are known.
+pub fn nn_descent_with(
+    m: &Matrix,
+    metric: Metric,
+    p: &NnDescentParams,
+    known: Option<Known>,
+    progress: &(dyn Fn(&str, u64, u64) + Sync),
+) -> KnnGraph {
     let n = m.rows;
     let k = p.k.min(n.saturating_sub(1)).max(1);
     let data = prepare(m, metric);
@@ -539,14 +561,29 @@ pub fn nn_descent(
     // join more paths; the result keeps each item's k nearest. Collections that reach the recall
     // pay only for the measurement.
     if p.min_recall > 0.0 && n > 4 * k {
-        // Spread over the collection by a seeded draw (the working order puts neighbours together).
-        let mut rng = Rng::new(p.seed ^ 0x5a3c_91e7);
-        let mut sample: Vec<usize> = (0..RECALL_SAMPLE.min(n))
-            .map(|_| rng.below(n as u64) as usize)
-            .collect();
-        sample.sort_unstable();
-        sample.dedup();
-        let truth = exact_in(&data, dist, k, &sample);
+        let (sample, truth): (Vec<usize>, Vec<Vec<u32>>) = match known {
+            // Into the working order.
+            Some(known) => (
+                known.sample.iter().map(|&i| place[i] as usize).collect(),
+                known
+                    .truth
+                    .iter()
+                    .map(|t| t.iter().take(k).map(|&j| place[j as usize]).collect())
+                    .collect(),
+            ),
+            None => {
+                // Spread over the collection by a seeded draw (the working order puts neighbours
+                // together).
+                let mut rng = Rng::new(p.seed ^ 0x5a3c_91e7);
+                let mut sample: Vec<usize> = (0..RECALL_SAMPLE.min(n))
+                    .map(|_| rng.below(n as u64) as usize)
+                    .collect();
+                sample.sort_unstable();
+                sample.dedup();
+                let truth = exact_in(&data, dist, k, &sample);
+                (sample, truth)
+            }
+        };
         for widening in 0..p.max_widenings {
             let r = list_recall(&lists, k, &truth, &sample);
             if trace {
@@ -622,37 +659,45 @@ fn descend(
         if trace {
             eprintln!("  candidates at {:.2}s", clock.elapsed().as_secs_f64());
         }
-        // Local join: new x new and new x old pairs, kept only if they would enter a list.
-        let worst: Vec<f32> = (0..n).map(|i| lists.dist[i * k + k - 1]).collect();
-        let blocks: Vec<Sink> = (0..n.div_ceil(BLOCK))
-            .into_par_iter()
-            .map(|b| {
-                let mut u = Sink::new(n);
-                for i in b * BLOCK..((b + 1) * BLOCK).min(n) {
-                    let (nw, od) = (new_c.of(i), old_c.of(i));
-                    for (x, &a) in nw.iter().enumerate() {
-                        let ra = data.row(a as usize);
-                        for &b in nw[x + 1..].iter().chain(od.iter()) {
-                            if a == b {
-                                continue;
-                            }
-                            let d = dist.of(ra, data.row(b as usize));
-                            if d <= worst[a as usize] {
-                                u.push(a, b, d);
-                            }
-                            if d <= worst[b as usize] {
-                                u.push(b, a, d);
+        // Local join: new x new and new x old pairs, kept only if they would enter a list. The
+        // items go in batches of a fixed size, each batch's updates applied before the next, so
+        // that the updates held at once stay bounded (the first rounds after a widening offer
+        // hundreds of millions) and later batches join against lists already improved. Batches
+        // are fixed, so the graph does not depend on the number of threads.
+        let (mut changed, mut n_updates) = (0, 0);
+        let blocks_total = n.div_ceil(BLOCK);
+        for batch in (0..blocks_total).step_by(JOIN_BATCH_BLOCKS) {
+            let worst: Vec<f32> = (0..n).map(|i| lists.dist[i * k + k - 1]).collect();
+            let blocks: Vec<Sink> = (batch..(batch + JOIN_BATCH_BLOCKS).min(blocks_total))
+                .into_par_iter()
+                .map(|b| {
+                    let mut u = Sink::new(n);
+                    for i in b * BLOCK..((b + 1) * BLOCK).min(n) {
+                        let (nw, od) = (new_c.of(i), old_c.of(i));
+                        for (x, &a) in nw.iter().enumerate() {
+                            let ra = data.row(a as usize);
+                            for &b in nw[x + 1..].iter().chain(od.iter()) {
+                                if a == b {
+                                    continue;
+                                }
+                                let d = dist.of(ra, data.row(b as usize));
+                                if d <= worst[a as usize] {
+                                    u.push(a, b, d);
+                                }
+                                if d <= worst[b as usize] {
+                                    u.push(b, a, d);
+                                }
                             }
                         }
                     }
-                }
-                u
-            })
-            .collect();
+                    u
+                })
+                .collect();
+            n_updates += blocks.iter().map(Sink::len).sum::<usize>();
+            changed += apply(lists, &blocks);
+        }
         drop((new_c, old_c));
-        let n_updates: usize = blocks.iter().map(Sink::len).sum();
         let joined = clock.elapsed().as_secs_f64();
-        let changed = apply(lists, &blocks);
         if trace {
             eprintln!("  join done at {joined:.2}s with {n_updates} updates");
             eprintln!(
@@ -674,15 +719,16 @@ fn descend(
 /// Items whose recall is measured after the rounds.
 const RECALL_SAMPLE: usize = 128;
 
-/// Share of the sampled items' exact k neighbours among the first k of their lists.
+/// Share of the sampled items' exact neighbours among the first k of their lists.
 fn list_recall(lists: &Lists, k: usize, truth: &[Vec<u32>], sample: &[usize]) -> f64 {
     let kl = lists.k;
-    let mut hit = 0;
+    let (mut hit, mut total) = (0, 0);
     for (t, &i) in truth.iter().zip(sample) {
         let got = &lists.ids[i * kl..i * kl + k];
         hit += t.iter().filter(|j| got.contains(j)).count();
+        total += t.len();
     }
-    hit as f64 / (k * sample.len()).max(1) as f64
+    hit as f64 / total.max(1) as f64
 }
 
 /// Share of the exact neighbours that the approximate graph found, on the sampled query items.
