@@ -18,8 +18,11 @@ use crate::umap::FuzzyGraph;
 
 /// Parts smaller than this keep their PCA positions.
 pub const MIN_PART: usize = 10;
-/// Residual ||N v − θ v|| (for unit v) below which an eigenvector counts as found.
-pub const TOLERANCE: f64 = 1e-4;
+/// Residual ||N v − θ v|| (for unit v) below which an eigenvector counts as found, for the map's
+/// start. The start is only where the optimisation begins: on the bench collections (100,000 items)
+/// 1e-3 takes about 28 products with N where 1e-4 took 145 (0.7 s against 2.5 s here), and the maps'
+/// trustworthiness moved by less than 0.001 either way (docs/performance.md).
+pub const TOLERANCE: f64 = 1e-3;
 /// Degree of the Chebyshev filter between two Rayleigh–Ritz steps.
 const DEGREE: usize = 8;
 /// Multiply-adds the eigenvectors of one part may cost (about two seconds here), and the most
@@ -254,7 +257,12 @@ fn filter(p: &Part, x: Vec<Vec<f64>>, cut: f64) -> Vec<Vec<f64>> {
 
 /// The two leading non-trivial eigenvectors of one part, from the given two starting columns.
 /// Returns them (unit length), their largest residual and the products with N used.
-fn eigenvectors(p: &Part, start: [Vec<f64>; 2], seed: u64) -> ([Vec<f64>; 2], f64, usize) {
+fn eigenvectors(
+    p: &Part,
+    start: [Vec<f64>; 2],
+    seed: u64,
+    tolerance: f64,
+) -> ([Vec<f64>; 2], f64, usize) {
     let m = p.inv_sqrt_deg.len();
     // The trivial eigenvector (eigenvalue 1): D^1/2 · 1, normalised.
     let mut trivial: Vec<f64> = p
@@ -312,7 +320,7 @@ fn eigenvectors(p: &Part, start: [Vec<f64>; 2], seed: u64) -> ([Vec<f64>; 2], f6
             })
             .fold(0f64, f64::max);
         x = rx;
-        if residual < TOLERANCE || products + DEGREE + 1 > budget {
+        if residual < tolerance || products + DEGREE + 1 > budget {
             break;
         }
         // Damp everything at or below the block's smallest Ritz value.
@@ -331,6 +339,16 @@ pub fn spectral_start(
     graph: &FuzzyGraph,
     pca: &[[f32; 2]],
     seed: u64,
+) -> (Vec<[f32; 2]>, StartReport) {
+    spectral_start_to(graph, pca, seed, TOLERANCE)
+}
+
+/// [`spectral_start`] with the eigenvectors found to the given residual.
+pub fn spectral_start_to(
+    graph: &FuzzyGraph,
+    pca: &[[f32; 2]],
+    seed: u64,
+    tolerance: f64,
 ) -> (Vec<[f32; 2]>, StartReport) {
     let n = pca.len();
     let parts = parts(n, graph);
@@ -371,6 +389,7 @@ pub fn spectral_start(
                 &part,
                 start,
                 seed ^ (c as u64).wrapping_mul(0x5851_F42D),
+                tolerance,
             ))
         })
         .collect();
@@ -458,9 +477,10 @@ mod tests {
         let pca: Vec<[f32; 2]> = (0..n)
             .map(|_| [rng.uniform() as f32, rng.uniform() as f32])
             .collect();
-        let (pos, report) = spectral_start(&ring(n), &pca, 9);
+        // Solved to a tight residual, the solver must find the true eigenvectors.
+        let (pos, report) = spectral_start_to(&ring(n), &pca, 9, 1e-5);
         assert_eq!(report.method, "spectral");
-        assert!(report.max_residual < TOLERANCE, "{report:?}");
+        assert!(report.max_residual < 1e-5, "{report:?}");
         let r: Vec<f64> = pos
             .iter()
             .map(|p| ((p[0] as f64).powi(2) + (p[1] as f64).powi(2)).sqrt())

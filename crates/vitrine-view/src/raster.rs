@@ -263,13 +263,17 @@ fn mark_side(side: f64) -> f64 {
 }
 
 /// A rectangle edge as a pixel index, clamped at 0: the nearest pixel boundary, as `round` then
-/// the clamp gives (but for values one bit below a half, where x + 0.5 rounds up). Truncation
-/// equals `floor` here, as negatives clamp to 0 anyway, and it is one instruction where `floor`
-/// and `round` may be calls.
+/// the clamp gives, after the edge is first put on a grid of 1/1024 pixel. The grid makes the edge
+/// of a mark moved by a whole-pixel pan (computed in floating point, so off by a rounding error)
+/// land on the same pixel as the edge it was before, plus the pan: a map whose fit puts an edge
+/// exactly on a half pixel would otherwise round one way in a kept layer and the other in a full
+/// draw. Integer arithmetic (truncation equals `floor` here, as negatives clamp to 0 anyway), one
+/// instruction each where `floor` and `round` may be calls.
 #[inline]
 fn px(x: f64) -> usize {
     // `as` truncates towards zero and saturates: negatives and NaN give 0.
-    (x + 0.5) as usize
+    let grid = (x.min(1e12) * 1024.0 + 0.5) as u64;
+    ((grid + 512) / 1024) as usize
 }
 
 fn fill_rect(buf: &mut [u8], w: usize, h: usize, r: [f64; 4], c: [u8; 3]) {
@@ -1066,6 +1070,22 @@ mod tests {
         xs.extend([-0.5, 0.5, 1.5, 2.5, 1e-12, -1e-12, 1279.5]);
         for x in xs {
             assert_eq!(px(x), x.round().max(0.0) as usize, "{x}");
+            // A rounding error away from the edge lands on the same pixel.
+            for e in [1e-9, -1e-9, 3e-13, -3e-13] {
+                assert_eq!(px(x + e), px(x), "{x} {e}");
+            }
+        }
+        // A whole-pixel pan in floating point: (p - (c - d / z)) * z against (p - c) * z + d.
+        let (z, c) = (7.3f64, 0.123_456_789f64);
+        for i in 0..2000 {
+            let p = c + (i as f64 - 1000.0) * 0.5 / z; // edges on half pixels, off by rounding
+            for d in [1.0, 9.0, -20.0, 37.0] {
+                let before = px((p - c) * z + 80.0) as i64 + d as i64;
+                let after = px((p - (c - d / z)) * z + 80.0) as i64;
+                if before >= 0 && after >= 0 && (p - c) * z + 80.0 > 0.5 {
+                    assert_eq!(after, before, "p {p} pan {d}");
+                }
+            }
         }
     }
 
