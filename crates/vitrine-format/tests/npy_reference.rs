@@ -11,6 +11,15 @@ fn read_npy(path: &Path) -> Result<NpyArray, npy::NpyError> {
     npy::read(&mut std::io::BufReader::new(f), len)
 }
 
+/// Little-endian f32 values as NumPy's `tofile` writes them: the expected values of a test.
+fn raw_f32(path: &Path) -> Vec<f32> {
+    std::fs::read(path)
+        .unwrap()
+        .chunks(4)
+        .map(|b| f32::from_le_bytes(b.try_into().unwrap()))
+        .collect()
+}
+
 fn parse_npy(bytes: &[u8]) -> Result<NpyArray, npy::NpyError> {
     npy::parse(bytes)
 }
@@ -41,11 +50,7 @@ print("\n".join(names))
 "#,
         &[dir.path()],
     );
-    let raw = std::fs::read(dir.path().join("expected.raw")).unwrap();
-    let expected: Vec<f32> = raw
-        .chunks(4)
-        .map(|b| f32::from_le_bytes(b.try_into().unwrap()))
-        .collect();
+    let expected = raw_f32(&dir.path().join("expected.raw"));
     let mut count = 0;
     for name in listing.lines() {
         let m = read_npy(Path::new(name)).unwrap_or_else(|e| panic!("{name}: {e}"));
@@ -89,11 +94,7 @@ print("\n".join(names))
     let mut count = 0;
     for name in listing.lines() {
         let m = read_npy(Path::new(name)).unwrap_or_else(|e| panic!("{name}: {e}"));
-        let raw = std::fs::read(format!("{name}.f32")).unwrap();
-        let expected: Vec<f32> = raw
-            .chunks(4)
-            .map(|b| f32::from_le_bytes(b.try_into().unwrap()))
-            .collect();
+        let expected = raw_f32(Path::new(&format!("{name}.f32")));
         assert_eq!((m.rows, m.cols), (9, 6), "{name}");
         assert_eq!(
             m.data.iter().map(|v| v.to_bits()).collect::<Vec<_>>(),

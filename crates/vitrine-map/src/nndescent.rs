@@ -64,9 +64,7 @@ impl Lists {
             fresh: vec![false; n * k],
         }
     }
-}
 
-impl Lists {
     /// The same lists with `extra` more slots each (empty), every entry fresh again so that it
     /// takes part in the next joins with the wider lists.
     fn widened(&self, extra: usize) -> Lists {
@@ -722,9 +720,14 @@ const RECALL_SAMPLE: usize = 128;
 /// Share of the sampled items' exact neighbours among the first k of their lists.
 fn list_recall(lists: &Lists, k: usize, truth: &[Vec<u32>], sample: &[usize]) -> f64 {
     let kl = lists.k;
+    found_share(truth, sample, |i| &lists.ids[i * kl..i * kl + k])
+}
+
+/// Share of the exact neighbours (`truth`, one list per sampled item) found in each item's `row`.
+fn found_share<'a>(truth: &[Vec<u32>], sample: &[usize], row: impl Fn(usize) -> &'a [u32]) -> f64 {
     let (mut hit, mut total) = (0, 0);
     for (t, &i) in truth.iter().zip(sample) {
-        let got = &lists.ids[i * kl..i * kl + k];
+        let got = row(i);
         hit += t.iter().filter(|j| got.contains(j)).count();
         total += t.len();
     }
@@ -733,17 +736,8 @@ fn list_recall(lists: &Lists, k: usize, truth: &[Vec<u32>], sample: &[usize]) ->
 
 /// Share of the exact neighbours that the approximate graph found, on the sampled query items.
 pub fn recall(approx: &KnnGraph, exact_ids: &[Vec<u32>], sample: &[usize]) -> f64 {
-    let mut hit = 0usize;
-    let mut total = 0usize;
-    for (q, &i) in sample.iter().enumerate() {
-        let got: std::collections::HashSet<u32> = approx.ids[i * approx.k..(i + 1) * approx.k]
-            .iter()
-            .copied()
-            .collect();
-        hit += exact_ids[q].iter().filter(|j| got.contains(j)).count();
-        total += exact_ids[q].len();
-    }
-    hit as f64 / total.max(1) as f64
+    let k = approx.k;
+    found_share(exact_ids, sample, |i| &approx.ids[i * k..(i + 1) * k])
 }
 
 /// Exact neighbours of the sampled items only (for measuring recall on large collections).
