@@ -34,7 +34,7 @@ fn main() -> anyhow::Result<()> {
     let read_s = t0.elapsed().as_secs_f64();
     let t1 = Instant::now();
     let mut params = vitrine_map::nndescent::NnDescentParams::new(k, 42);
-    // Tuning knobs for experiments: VITRINE_NND="trees,leaf,rounds,sample_rate[,min_recall]".
+    // Tuning knobs for experiments: VITRINE_NND="trees,leaf,rounds,sample_rate[,min_recall[,delta]]".
     if let Ok(v) = std::env::var("VITRINE_NND") {
         let f: Vec<f64> = v.split(',').map(|x| x.parse().unwrap()).collect();
         params.trees = f[0] as usize;
@@ -43,6 +43,9 @@ fn main() -> anyhow::Result<()> {
         params.sample_rate = f[3];
         if let Some(&r) = f.get(4) {
             params.min_recall = r;
+        }
+        if let Some(&d) = f.get(5) {
+            params.delta = d;
         }
     }
     let g = vitrine_map::nndescent::nn_descent(&x, metric, &params, &|_, _, _| {});

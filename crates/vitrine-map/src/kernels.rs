@@ -101,6 +101,86 @@ unsafe fn sum_avx2(
     }
 }
 
+/// [`sum_avx2`] of row `a` against `M` rows at once: the same sums lane for lane (so the same bits
+/// as `M` calls), but each chunk of `a` is loaded once for all `M` rows. With `M` = 3 the 12 running
+/// sums and the chunk of `a` fit in the 16 AVX2 registers.
+#[cfg(target_arch = "x86_64")]
+#[inline(always)]
+// The chunk index `r` runs outside the row index `m`, so that one load of `a` serves all rows.
+#[allow(clippy::needless_range_loop)]
+unsafe fn sum_avx2_many<const M: usize>(
+    a: &[f32],
+    bs: [&[f32]; M],
+    wide: impl Fn(
+        std::arch::x86_64::__m256,
+        std::arch::x86_64::__m256,
+        std::arch::x86_64::__m256,
+    ) -> std::arch::x86_64::__m256,
+    step: impl Fn(f32, f32, f32) -> f32,
+) -> [f32; M] {
+    use std::arch::x86_64::*;
+    let n = bs.iter().fold(a.len(), |n, b| n.min(b.len()));
+    let chunks = n / LANES;
+    let mut out = [0f32; M];
+    // SAFETY: the caller has checked for AVX2; every load reads 8 floats inside the first
+    // `chunks * LANES` of each slice.
+    unsafe {
+        let pa = a.as_ptr();
+        let pb = bs.map(|b| b.as_ptr());
+        let mut acc = [[_mm256_setzero_ps(); 4]; M];
+        for c in 0..chunks {
+            for r in 0..4 {
+                let o = c * LANES + 8 * r;
+                let va = _mm256_loadu_ps(pa.add(o));
+                for m in 0..M {
+                    acc[m][r] = wide(va, _mm256_loadu_ps(pb[m].add(o)), acc[m][r]);
+                }
+            }
+        }
+        for m in 0..M {
+            let v = _mm256_add_ps(
+                _mm256_add_ps(acc[m][0], acc[m][1]),
+                _mm256_add_ps(acc[m][2], acc[m][3]),
+            );
+            let t = _mm_add_ps(_mm256_castps256_ps128(v), _mm256_extractf128_ps(v, 1));
+            let u = _mm_add_ps(t, _mm_movehl_ps(t, t));
+            let sum = _mm_cvtss_f32(_mm_add_ss(u, _mm_shuffle_ps(u, u, 1)));
+            let mut tail = 0f32;
+            for (&x, &y) in a[chunks * LANES..n].iter().zip(&bs[m][chunks * LANES..n]) {
+                tail = step(x, y, tail);
+            }
+            out[m] = sum + tail;
+        }
+    }
+    out
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+fn sq_dist_avx2_many<const M: usize>(a: &[f32], bs: [&[f32]; M]) -> [f32; M] {
+    use std::arch::x86_64::*;
+    // SAFETY: this function only runs where AVX2 and FMA are present.
+    unsafe {
+        sum_avx2_many(
+            a,
+            bs,
+            |x, y, acc| {
+                let t = _mm256_sub_ps(x, y);
+                _mm256_fmadd_ps(t, t, acc)
+            },
+            sq_step,
+        )
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+fn dot_avx2_many<const M: usize>(a: &[f32], bs: [&[f32]; M]) -> [f32; M] {
+    use std::arch::x86_64::*;
+    // SAFETY: this function only runs where AVX2 and FMA are present.
+    unsafe { sum_avx2_many(a, bs, |x, y, acc| _mm256_fmadd_ps(x, y, acc), dot_step) }
+}
+
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2,fma")]
 fn sq_dist_avx2(a: &[f32], b: &[f32]) -> f32 {
@@ -156,6 +236,29 @@ pub fn dot(a: &[f32], b: &[f32]) -> f32 {
     dot_any(a, b)
 }
 
+/// Squared Euclidean distances from `a` to each of `bs`: the bits of [`sq_dist`] for each pair,
+/// faster than one call per pair.
+#[inline]
+pub fn sq_dist_many<const M: usize>(a: &[f32], bs: [&[f32]; M]) -> [f32; M] {
+    #[cfg(target_arch = "x86_64")]
+    if wide() {
+        // SAFETY: the CPU has just been checked for AVX2 and FMA.
+        return unsafe { sq_dist_avx2_many(a, bs) };
+    }
+    bs.map(|b| sq_dist_any(a, b))
+}
+
+/// Dot products of `a` with each of `bs`: the bits of [`dot`] for each pair.
+#[inline]
+pub fn dot_many<const M: usize>(a: &[f32], bs: [&[f32]; M]) -> [f32; M] {
+    #[cfg(target_arch = "x86_64")]
+    if wide() {
+        // SAFETY: the CPU has just been checked for AVX2 and FMA.
+        return unsafe { dot_avx2_many(a, bs) };
+    }
+    bs.map(|b| dot_any(a, b))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -202,6 +305,16 @@ mod tests {
                 assert_eq!(w.to_bits(), dot_any(&a, &b).to_bits());
             }
             assert_eq!(dot(&a, &b).to_bits(), dot_any(&a, &b).to_bits());
+            // Several pairs at once: each the bits of its own pair.
+            let (c, _) = rows(len + 1000);
+            let c = &c[..len];
+            let d: Vec<f32> = b.iter().map(|x| x * 0.5 - 0.1).collect();
+            let many = dot_many(&a, [&b, c, &d]);
+            let sq = sq_dist_many(&a, [&b, c, &d]);
+            for (m, r) in [&b[..], c, &d[..]].into_iter().enumerate() {
+                assert_eq!(many[m].to_bits(), dot_any(&a, r).to_bits());
+                assert_eq!(sq[m].to_bits(), sq_dist_any(&a, r).to_bits());
+            }
             // Symmetric to the bit: the graph never depends on which end of a pair came first.
             assert_eq!(sq_dist(&a, &b).to_bits(), sq_dist(&b, &a).to_bits());
         }

@@ -7,7 +7,7 @@
 
 use rayon::prelude::*;
 
-use crate::kernels::{dot, sq_dist};
+use crate::kernels::{dot, dot_many, sq_dist, sq_dist_many};
 use crate::knn::{prepare, KnnGraph, Metric};
 use crate::matrix::Matrix;
 use crate::rng::Rng;
@@ -353,14 +353,31 @@ fn rp_leaves(data: &Matrix, items: Vec<u32>, leaf_size: usize, seed: u64) -> Vec
     let mid: Vec<f32> = ra.iter().zip(rb).map(|(x, y)| (x + y) / 2.0).collect();
     let offset = dot(&normal, &mid);
     let (mut left, mut right) = (Vec::new(), Vec::new());
-    for &i in &items {
-        let s = dot(data.row(i as usize), &normal) - offset;
-        if s < 0.0 || (s == 0.0 && rng.next_u64() & 1 == 0) {
-            left.push(i);
-        } else {
-            right.push(i);
+    // Three rows at a time share the reads of the normal.
+    let mut sides = |group: &[u32], ds: &[f32]| {
+        for (&i, &d) in group.iter().zip(ds) {
+            let s = d - offset;
+            if s < 0.0 || (s == 0.0 && rng.next_u64() & 1 == 0) {
+                left.push(i);
+            } else {
+                right.push(i);
+            }
         }
+    };
+    let mut three = items.chunks_exact(3);
+    for group in three.by_ref() {
+        let ds = dot_many(
+            &normal,
+            [group[0], group[1], group[2]].map(|i| data.row(i as usize)),
+        );
+        sides(group, &ds);
     }
+    let rest = three.remainder();
+    let ds: Vec<f32> = rest
+        .iter()
+        .map(|&i| dot(data.row(i as usize), &normal))
+        .collect();
+    sides(rest, &ds);
     // Degenerate split (identical items): halve instead.
     if left.is_empty() || right.is_empty() {
         let mut all = items;
@@ -399,6 +416,16 @@ impl PairDist {
             (2.0 - 2.0 * dot(a, b)).max(0.0)
         } else {
             sq_dist(a, b)
+        }
+    }
+
+    /// [`PairDist::of`] from `a` to each of `bs`, the same bits, `a` read once.
+    #[inline(always)]
+    fn of_many<const M: usize>(self, a: &[f32], bs: [&[f32]; M]) -> [f32; M] {
+        if self.unit {
+            dot_many(a, bs).map(|d| (2.0 - 2.0 * d).max(0.0))
+        } else {
+            sq_dist_many(a, bs)
         }
     }
 }
@@ -663,6 +690,7 @@ fn descend(
         // hundreds of millions) and later batches join against lists already improved. Batches
         // are fixed, so the graph does not depend on the number of threads.
         let (mut changed, mut n_updates) = (0, 0);
+        let mut apply_s = 0.0;
         let blocks_total = n.div_ceil(BLOCK);
         for batch in (0..blocks_total).step_by(JOIN_BATCH_BLOCKS) {
             let worst: Vec<f32> = (0..n).map(|i| lists.dist[i * k + k - 1]).collect();
@@ -670,21 +698,35 @@ fn descend(
                 .into_par_iter()
                 .map(|b| {
                     let mut u = Sink::new(n);
+                    let mut others: Vec<u32> = Vec::with_capacity(2 * cap);
                     for i in b * BLOCK..((b + 1) * BLOCK).min(n) {
+                        // Pairs (c[x], c[y]) of the candidates c = new ++ old, x < y, x among the
+                        // new: each row c[y] is read once and met with the new rows before it,
+                        // which stay in the nearest cache (at most `cap` rows).
                         let (nw, od) = (new_c.of(i), old_c.of(i));
-                        for (x, &a) in nw.iter().enumerate() {
-                            let ra = data.row(a as usize);
-                            for &b in nw[x + 1..].iter().chain(od.iter()) {
-                                if a == b {
-                                    continue;
-                                }
-                                let d = dist.of(ra, data.row(b as usize));
+                        for (y, &b) in nw.iter().chain(od).enumerate().skip(1) {
+                            let rb = data.row(b as usize);
+                            others.clear();
+                            others.extend(nw[..y.min(nw.len())].iter().filter(|&&a| a != b));
+                            let mut offer = |a: u32, d: f32| {
                                 if d <= worst[a as usize] {
                                     u.push(a, b, d);
                                 }
                                 if d <= worst[b as usize] {
                                     u.push(b, a, d);
                                 }
+                            };
+                            // Three rows at a time share the reads of row b.
+                            let mut three = others.chunks_exact(3);
+                            for t in three.by_ref() {
+                                let ds = dist
+                                    .of_many(rb, [t[0], t[1], t[2]].map(|a| data.row(a as usize)));
+                                for (&a, d) in t.iter().zip(ds) {
+                                    offer(a, d);
+                                }
+                            }
+                            for &a in three.remainder() {
+                                offer(a, dist.of(rb, data.row(a as usize)));
                             }
                         }
                     }
@@ -692,12 +734,16 @@ fn descend(
                 })
                 .collect();
             n_updates += blocks.iter().map(Sink::len).sum::<usize>();
+            let ta = std::time::Instant::now();
             changed += apply(lists, &blocks);
+            apply_s += ta.elapsed().as_secs_f64();
         }
         drop((new_c, old_c));
         let joined = clock.elapsed().as_secs_f64();
         if trace {
-            eprintln!("  join done at {joined:.2}s with {n_updates} updates");
+            eprintln!(
+                "  join done at {joined:.2}s with {n_updates} updates, applied in {apply_s:.3}s"
+            );
             eprintln!(
                 "{:.2}s round {round}: {changed} changes",
                 clock.elapsed().as_secs_f64()
@@ -758,13 +804,22 @@ fn exact_in(data: &Matrix, dist: PairDist, k: usize, sample: &[usize]) -> Vec<Ve
         .flat_map_iter(|queries| {
             // The k best so far per query, sorted by (distance, id): memory stays O(k).
             let mut best: Vec<Vec<(f32, u32)>> = vec![Vec::with_capacity(k + 1); queries.len()];
+            let mut ds = vec![0f32; queries.len()];
             for j in 0..data.rows {
                 let rj = data.row(j);
-                for (b, &i) in best.iter_mut().zip(queries) {
+                // Three queries at a time share the reads of row j.
+                let mut three = queries.chunks_exact(3);
+                for (t, q) in three.by_ref().zip(ds.chunks_exact_mut(3)) {
+                    q.copy_from_slice(&dist.of_many(rj, [t[0], t[1], t[2]].map(|i| data.row(i))));
+                }
+                let done = queries.len() - three.remainder().len();
+                for (&i, d) in three.remainder().iter().zip(&mut ds[done..]) {
+                    *d = dist.of(data.row(i), rj);
+                }
+                for ((b, &i), &d) in best.iter_mut().zip(queries).zip(&ds) {
                     if i == j {
                         continue;
                     }
-                    let d = dist.of(data.row(i), rj);
                     if b.len() == k && d >= b[k - 1].0 {
                         continue;
                     }
