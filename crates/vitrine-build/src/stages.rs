@@ -106,6 +106,11 @@ pub struct NeighbourGraph {
     pub exact: bool,
     /// NN-descent's recall against exact search, and the number of items it was measured on.
     pub recall: Option<(f64, usize)>,
+    /// NN-descent's settings and what it did (none for an exact graph).
+    pub search: Option<(
+        vitrine_map::nndescent::NnDescentParams,
+        vitrine_map::nndescent::DescentReport,
+    )>,
 }
 
 pub fn neighbour_graph(
@@ -117,7 +122,7 @@ pub fn neighbour_graph(
     let n = vectors.rows;
     let k = opts.k.min(n.saturating_sub(1)).max(1);
     let exact = opts.exact_neighbours(n);
-    let mut recall = None;
+    let (mut recall, mut search) = (None, None);
     let mut graph = if exact {
         let bar = progress.bar("neighbours", n as u64);
         knn::exact_knn(vectors, k, metric, &|c| bar.set(c, n as u64))
@@ -132,7 +137,7 @@ pub fn neighbour_graph(
             sample: &sample,
             truth: &truth,
         };
-        let g = vitrine_map::nndescent::nn_descent_with(
+        let (g, report) = vitrine_map::nndescent::nn_descent_with(
             vectors,
             metric,
             &params,
@@ -149,6 +154,7 @@ pub fn neighbour_graph(
             sample.len()
         ));
         recall = Some((r, sample.len()));
+        search = Some((params, report));
         g
     };
     if reduced.reduction.pca.is_some() && opts.metric == Metric::Cosine {
@@ -159,6 +165,7 @@ pub fn neighbour_graph(
         graph,
         exact,
         recall,
+        search,
     }
 }
 

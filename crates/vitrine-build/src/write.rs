@@ -553,6 +553,15 @@ fn parameters(
         "neighbour_search".into(),
         json!(if c.graph.exact { "exact" } else { "nn-descent" }),
     );
+    if let Some((params, report)) = &c.graph.search {
+        p.insert("nn_descent_trees".into(), json!(params.trees));
+        p.insert("nn_descent_leaf_size".into(), json!(params.leaf_size));
+        p.insert("nn_descent_sample_rate".into(), json!(params.sample_rate));
+        p.insert("nn_descent_min_recall".into(), json!(params.min_recall));
+        p.insert("nn_descent_rounds".into(), json!(report.rounds));
+        p.insert("nn_descent_widenings".into(), json!(report.widenings));
+        p.insert("nn_descent_list_length".into(), json!(report.list_length));
+    }
     p.insert("layout".into(), json!("umap"));
     p.insert("min_dist".into(), json!(opts.min_dist));
     p.insert("spread".into(), json!(1.0));
@@ -622,6 +631,9 @@ fn quality_figures(c: &Computed, clusters: usize) -> serde_json::Map<String, ser
     if let Some((r, items)) = c.graph.recall {
         q.insert("neighbour_recall".into(), json!(r));
         q.insert("neighbour_recall_sample_items".into(), json!(items));
+    }
+    if let Some(r) = c.graph.search.as_ref().and_then(|(_, r)| r.first_recall) {
+        q.insert("neighbour_recall_before_widening".into(), json!(r));
     }
     q
 }

@@ -350,6 +350,10 @@ pub fn about(m: &Manifest) -> Vec<(String, Vec<(String, String)>)> {
         ("similarity_continuity_at_10", "continuity at k = 10"),
         ("quality_sample_items", "measured on (items)"),
         ("neighbour_recall", "neighbour recall"),
+        (
+            "neighbour_recall_before_widening",
+            "neighbour recall before the lists were widened",
+        ),
         ("clusters", "clusters (Louvain)"),
         (
             "lattice_trustworthiness_at_10",
