@@ -7,7 +7,7 @@
 
 use rayon::prelude::*;
 
-use crate::kernels::{dot, dot_many, sq_dist, sq_dist_many};
+use crate::kernels::{dot, dot_block, dot_many, sq_dist, sq_dist_block, sq_dist_many};
 use crate::knn::{prepare, KnnGraph, Metric};
 use crate::matrix::Matrix;
 use crate::rng::Rng;
@@ -140,6 +140,10 @@ impl Sink {
     }
     fn len(&self) -> usize {
         self.parts.iter().map(Vec::len).sum()
+    }
+    /// Empty again, keeping the memory for the next block.
+    fn clear(&mut self) {
+        self.parts.iter_mut().for_each(Vec::clear);
     }
 }
 
@@ -419,6 +423,20 @@ impl PairDist {
         }
     }
 
+    /// [`PairDist::of`] for every row of `a` with every row of `b`, the same bits.
+    #[inline(always)]
+    fn of_block<const A: usize, const B: usize>(
+        self,
+        a: [&[f32]; A],
+        b: [&[f32]; B],
+    ) -> [[f32; B]; A] {
+        if self.unit {
+            dot_block(a, b).map(|r| r.map(|d| (2.0 - 2.0 * d).max(0.0)))
+        } else {
+            sq_dist_block(a, b)
+        }
+    }
+
     /// [`PairDist::of`] from `a` to each of `bs`, the same bits, `a` read once.
     #[inline(always)]
     fn of_many<const M: usize>(self, a: &[f32], bs: [&[f32]; M]) -> [f32; M] {
@@ -426,6 +444,57 @@ impl PairDist {
             dot_many(a, bs).map(|d| (2.0 - 2.0 * d).max(0.0))
         } else {
             sq_dist_many(a, bs)
+        }
+    }
+}
+
+/// The local join's pairs of one item's candidates `c` (its new candidates first, `new` of them):
+/// every (x, y) with x among the new and x < y, given with their distance to `f(x, y, d)`. Rows go
+/// three by three against three (see [`crate::kernels::dot_block`]); a pair of one item given twice
+/// is given too, and left to `f`.
+fn join_pairs(
+    data: &Matrix,
+    dist: PairDist,
+    c: &[u32],
+    new: usize,
+    mut f: impl FnMut(usize, usize, f32),
+) {
+    let row = |i: usize| data.row(c[i] as usize);
+    let l = c.len();
+    let full = new / 3 * 3;
+    for x0 in (0..full).step_by(3) {
+        let xs = [row(x0), row(x0 + 1), row(x0 + 2)];
+        // From the block on the diagonal (where only x < y counts) to the end.
+        let mut y0 = x0;
+        while y0 + 3 <= l {
+            let ds = dist.of_block(xs, [row(y0), row(y0 + 1), row(y0 + 2)]);
+            for (dx, r) in ds.iter().enumerate() {
+                for (dy, &d) in r.iter().enumerate() {
+                    if x0 + dx < y0 + dy {
+                        f(x0 + dx, y0 + dy, d);
+                    }
+                }
+            }
+            y0 += 3;
+        }
+        for y in y0..l {
+            for x in x0..(x0 + 3).min(y) {
+                f(x, y, dist.of(row(x), row(y)));
+            }
+        }
+    }
+    // The last one or two new rows, each against the rows after it, three at a time.
+    for x in full..new {
+        let mut y = x + 1;
+        while y + 3 <= l {
+            let ds = dist.of_many(row(x), [row(y), row(y + 1), row(y + 2)]);
+            for (dy, d) in ds.into_iter().enumerate() {
+                f(x, y + dy, d);
+            }
+            y += 3;
+        }
+        for y in y..l {
+            f(x, y, dist.of(row(x), row(y)));
         }
     }
 }
@@ -716,50 +785,39 @@ fn descend(
         let (mut changed, mut n_updates) = (0, 0);
         let mut apply_s = 0.0;
         let blocks_total = n.div_ceil(BLOCK);
+        // One set of update buffers for all batches: after the first they need no new memory.
+        let mut sinks: Vec<Sink> = (0..JOIN_BATCH_BLOCKS.min(blocks_total))
+            .map(|_| Sink::new(n))
+            .collect();
         for batch in (0..blocks_total).step_by(JOIN_BATCH_BLOCKS) {
             let worst: Vec<f32> = (0..n).map(|i| lists.dist[i * k + k - 1]).collect();
-            let blocks: Vec<Sink> = (batch..(batch + JOIN_BATCH_BLOCKS).min(blocks_total))
-                .into_par_iter()
-                .map(|b| {
-                    let mut u = Sink::new(n);
-                    let mut others: Vec<u32> = Vec::with_capacity(2 * cap);
-                    for i in b * BLOCK..((b + 1) * BLOCK).min(n) {
-                        // Pairs (c[x], c[y]) of the candidates c = new ++ old, x < y, x among the
-                        // new: each row c[y] is read once and met with the new rows before it,
-                        // which stay in the nearest cache (at most `cap` rows).
-                        let (nw, od) = (new_c.of(i), old_c.of(i));
-                        for (y, &b) in nw.iter().chain(od).enumerate().skip(1) {
-                            let rb = data.row(b as usize);
-                            others.clear();
-                            others.extend(nw[..y.min(nw.len())].iter().filter(|&&a| a != b));
-                            let mut offer = |a: u32, d: f32| {
-                                if d <= worst[a as usize] {
-                                    u.push(a, b, d);
-                                }
-                                if d <= worst[b as usize] {
-                                    u.push(b, a, d);
-                                }
-                            };
-                            // Three rows at a time share the reads of row b.
-                            let mut three = others.chunks_exact(3);
-                            for t in three.by_ref() {
-                                let ds = dist
-                                    .of_many(rb, [t[0], t[1], t[2]].map(|a| data.row(a as usize)));
-                                for (&a, d) in t.iter().zip(ds) {
-                                    offer(a, d);
-                                }
-                            }
-                            for &a in three.remainder() {
-                                offer(a, dist.of(rb, data.row(a as usize)));
-                            }
+            let blocks = &mut sinks[..JOIN_BATCH_BLOCKS.min(blocks_total - batch)];
+            blocks.par_iter_mut().enumerate().for_each(|(bb, u)| {
+                let b = batch + bb;
+                u.clear();
+                let mut all: Vec<u32> = Vec::with_capacity(2 * cap);
+                for i in b * BLOCK..((b + 1) * BLOCK).min(n) {
+                    let (nw, od) = (new_c.of(i), old_c.of(i));
+                    all.clear();
+                    all.extend_from_slice(nw);
+                    all.extend_from_slice(od);
+                    join_pairs(data, dist, &all, nw.len(), |x, y, d| {
+                        let (a, b) = (all[x], all[y]);
+                        if a == b {
+                            return;
                         }
-                    }
-                    u
-                })
-                .collect();
+                        if d <= worst[a as usize] {
+                            u.push(a, b, d);
+                        }
+                        if d <= worst[b as usize] {
+                            u.push(b, a, d);
+                        }
+                    });
+                }
+            });
             n_updates += blocks.iter().map(Sink::len).sum::<usize>();
             let ta = std::time::Instant::now();
-            changed += apply(lists, &blocks);
+            changed += apply(lists, blocks);
             apply_s += ta.elapsed().as_secs_f64();
         }
         drop((new_c, old_c));
@@ -829,28 +887,43 @@ fn exact_in(data: &Matrix, dist: PairDist, k: usize, sample: &[usize]) -> Vec<Ve
         .flat_map_iter(|queries| {
             // The k best so far per query, sorted by (distance, id): memory stays O(k).
             let mut best: Vec<Vec<(f32, u32)>> = vec![Vec::with_capacity(k + 1); queries.len()];
-            let mut ds = vec![0f32; queries.len()];
-            for j in 0..data.rows {
-                let rj = data.row(j);
-                // Three queries at a time share the reads of row j.
-                let mut three = queries.chunks_exact(3);
-                for (t, q) in three.by_ref().zip(ds.chunks_exact_mut(3)) {
-                    q.copy_from_slice(&dist.of_many(rj, [t[0], t[1], t[2]].map(|i| data.row(i))));
-                }
-                let done = queries.len() - three.remainder().len();
-                for (&i, d) in three.remainder().iter().zip(&mut ds[done..]) {
-                    *d = dist.of(data.row(i), rj);
-                }
-                for ((b, &i), &d) in best.iter_mut().zip(queries).zip(&ds) {
-                    if i == j {
-                        continue;
+            // Distances of each query to the three rows of the current step.
+            let mut ds = vec![[0f32; 3]; queries.len()];
+            let q_row = |i: usize| data.row(i);
+            for j0 in (0..data.rows).step_by(3) {
+                let step = 3.min(data.rows - j0);
+                if step == 3 {
+                    // Three queries against three rows at a time (see `dot_block`).
+                    let rows = [data.row(j0), data.row(j0 + 1), data.row(j0 + 2)];
+                    let mut three = queries.chunks_exact(3);
+                    for (t, q) in three.by_ref().zip(ds.chunks_exact_mut(3)) {
+                        q.copy_from_slice(&dist.of_block([t[0], t[1], t[2]].map(q_row), rows));
                     }
-                    if b.len() == k && d >= b[k - 1].0 {
-                        continue;
+                    let done = queries.len() - three.remainder().len();
+                    for (&i, d) in three.remainder().iter().zip(&mut ds[done..]) {
+                        *d = dist.of_many(q_row(i), rows);
                     }
-                    let at = b.partition_point(|&(bd, bj)| (bd, bj) < (d, j as u32));
-                    b.insert(at, (d, j as u32));
-                    b.truncate(k);
+                } else {
+                    for (&i, d) in queries.iter().zip(&mut ds) {
+                        for (jj, dj) in d.iter_mut().enumerate().take(step) {
+                            *dj = dist.of(q_row(i), data.row(j0 + jj));
+                        }
+                    }
+                }
+                for jj in 0..step {
+                    let j = j0 + jj;
+                    for ((b, &i), d) in best.iter_mut().zip(queries).zip(&ds) {
+                        let d = d[jj];
+                        if i == j {
+                            continue;
+                        }
+                        if b.len() == k && d >= b[k - 1].0 {
+                            continue;
+                        }
+                        let at = b.partition_point(|&(bd, bj)| (bd, bj) < (d, j as u32));
+                        b.insert(at, (d, j as u32));
+                        b.truncate(k);
+                    }
                 }
             }
             best.into_iter()
@@ -865,16 +938,18 @@ mod tests {
 
     #[test]
     fn sampled_exact_neighbours_equal_the_full_exact_graph() {
-        // More queries than one pass takes, and the query itself inside every pass.
+        // More queries than one pass takes, and the query itself inside every pass; rows and
+        // queries not multiples of three, rows longer than the kernels' 32 lanes and not a
+        // multiple of them.
         let mut rng = Rng::new(9);
         let m = Matrix {
-            rows: 300,
-            cols: 8,
-            data: (0..300 * 8).map(|_| rng.uniform() as f32 - 0.3).collect(),
+            rows: 301,
+            cols: 40,
+            data: (0..301 * 40).map(|_| rng.uniform() as f32 - 0.3).collect(),
         };
         for metric in [Metric::Cosine, Metric::Euclidean] {
             let full = crate::knn::exact_knn(&m, 10, metric, &|_| {});
-            let sample: Vec<usize> = (0..300).step_by(3).collect();
+            let sample: Vec<usize> = (0..301).step_by(3).collect();
             let got = exact_for(&m, metric, 10, &sample);
             assert_eq!(got.len(), sample.len());
             for (q, &i) in sample.iter().enumerate() {
@@ -943,6 +1018,38 @@ mod tests {
             assert_eq!(row.len(), k);
             assert!(row.iter().all(|&(j, _)| j != i));
             assert!(row.windows(2).all(|w| w[0].1 <= w[1].1));
+        }
+    }
+
+    #[test]
+    fn the_join_gives_each_pair_once_with_its_distance() {
+        // Every (x, y) with x among the new candidates and x < y, once, whatever the counts (the
+        // blocks of three leave remainders on both sides), with the one-pair distance's bits.
+        let mut rng = Rng::new(5);
+        let m = Matrix {
+            rows: 20,
+            cols: 40,
+            data: (0..20 * 40).map(|_| rng.uniform() as f32 - 0.5).collect(),
+        };
+        for unit in [false, true] {
+            let dist = PairDist { unit };
+            for l in 0..14usize {
+                let c: Vec<u32> = (0..l as u32).map(|i| (i * 7 + 3) % 20).collect();
+                for new in 0..=l {
+                    let mut got = Vec::new();
+                    join_pairs(&m, dist, &c, new, |x, y, d| got.push((x, y, d)));
+                    got.sort_by_key(|&(x, y, _)| (x, y));
+                    let want: Vec<(usize, usize)> = (0..new)
+                        .flat_map(|x| (x + 1..l).map(move |y| (x, y)))
+                        .collect();
+                    let pairs: Vec<(usize, usize)> = got.iter().map(|&(x, y, _)| (x, y)).collect();
+                    assert_eq!(pairs, want, "l {l}, new {new}");
+                    for &(x, y, d) in &got {
+                        let one = dist.of(m.row(c[x] as usize), m.row(c[y] as usize));
+                        assert_eq!(d.to_bits(), one.to_bits(), "l {l}, new {new}, ({x}, {y})");
+                    }
+                }
+            }
         }
     }
 
