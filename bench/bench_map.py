@@ -151,6 +151,10 @@ DATASETS = {
     "hard100k-clean": dict(kind="hard", n=100_000, d=256, noise=0.0, overlap=0.7, seed=29),
     "hard100k-noisy": dict(kind="hard", n=100_000, d=256, noise=0.05, overlap=0.7, seed=31),
     "hard100k-close": dict(kind="hard", n=100_000, d=256, noise=0.02, overlap=0.85, seed=37),
+    # A check on a collection the defaults never run (so nothing is tuned to it): more and larger
+    # families, more directions per cluster, wider rows.
+    "hard150k-wide": dict(kind="hard", n=150_000, d=384, clusters=60, family_size=5, shared=10,
+                          own=6, noise=0.03, overlap=0.8, seed=1207),
 }
 DEFAULT_DATASETS = ["mix100k", "hard100k", "hard100k-clean", "hard100k-noisy", "hard100k-close",
                     "digits"]
@@ -175,8 +179,9 @@ def ensure_dataset(name, data_dir):
     if spec["kind"] == "mixture":
         x, labels = make_mixture(spec["n"], spec["d"], seed=spec["seed"])
     elif spec["kind"] == "hard":
+        shape = {key: spec[key] for key in ("clusters", "family_size", "shared", "own") if key in spec}
         x, labels = make_hard(spec["n"], spec["d"], noise=spec["noise"], overlap=spec["overlap"],
-                              seed=spec["seed"])
+                              seed=spec["seed"], **shape)
     else:
         x, labels = make_digits()
     np.save(path, x)
