@@ -76,7 +76,13 @@ fn main() -> anyhow::Result<()> {
                 &mut vitrine_map::rng::Rng::new(42),
             );
             let pca_s = t2.elapsed().as_secs_f64() - fuzzy_s;
-            let (start, report) = vitrine_map::spectral::spectral_start(&fuzzy, &pca, 42);
+            // Knobs for experiments: VITRINE_START_TOL (the spectral start's residual),
+            // VITRINE_EPOCHS (the layout's epochs).
+            let knob = |name: &str| std::env::var(name).ok().map(|v| v.parse::<f64>());
+            let (start, report) = match knob("VITRINE_START_TOL").transpose()? {
+                Some(tol) => vitrine_map::spectral::spectral_start_to(&fuzzy, &pca, 42, tol),
+                None => vitrine_map::spectral::spectral_start(&fuzzy, &pca, 42),
+            };
             eprintln!("start: {report:?}; PCA start {pca_s:.3} s");
             let start_s = t2.elapsed().as_secs_f64() - fuzzy_s;
             let parallel = args.get(6).map(String::as_str) != Some("sequential");
@@ -89,6 +95,7 @@ fn main() -> anyhow::Result<()> {
             let params = vitrine_map::umap::UmapParams {
                 parallel,
                 seed,
+                epochs: knob("VITRINE_EPOCHS").transpose()?.map(|e| e as usize),
                 ..Default::default()
             };
             let pos = vitrine_map::umap::layout(&fuzzy, start, &params, &|_, _| {});
