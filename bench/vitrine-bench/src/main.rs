@@ -77,7 +77,7 @@ fn main() -> anyhow::Result<()> {
             );
             let pca_s = t2.elapsed().as_secs_f64() - fuzzy_s;
             // Knobs for experiments: VITRINE_START_TOL (the spectral start's residual),
-            // VITRINE_EPOCHS (the layout's epochs).
+            // VITRINE_EPOCHS (the layout's epochs), VITRINE_LR (its initial learning rate).
             let knob = |name: &str| std::env::var(name).ok().map(|v| v.parse::<f64>());
             let (start, report) = match knob("VITRINE_START_TOL").transpose()? {
                 Some(tol) => vitrine_map::spectral::spectral_start_to(&fuzzy, &pca, 42, tol),
@@ -96,6 +96,7 @@ fn main() -> anyhow::Result<()> {
                 parallel,
                 seed,
                 epochs: knob("VITRINE_EPOCHS").transpose()?.map(|e| e as usize),
+                learning_rate: knob("VITRINE_LR").transpose()?.unwrap_or(1.0) as f32,
                 ..Default::default()
             };
             let pos = vitrine_map::umap::layout(&fuzzy, start, &params, &|_, _| {});
