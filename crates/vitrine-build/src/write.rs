@@ -632,8 +632,11 @@ fn quality_figures(c: &Computed, clusters: usize) -> serde_json::Map<String, ser
         q.insert("neighbour_recall".into(), json!(r));
         q.insert("neighbour_recall_sample_items".into(), json!(items));
     }
-    if let Some(r) = c.graph.search.as_ref().and_then(|(_, r)| r.first_recall) {
-        q.insert("neighbour_recall_before_widening".into(), json!(r));
+    // Only when the lists were widened: otherwise it is the recall above.
+    if let Some((_, report)) = c.graph.search.as_ref().filter(|(_, r)| r.widenings > 0) {
+        if let Some(r) = report.first_recall {
+            q.insert("neighbour_recall_before_widening".into(), json!(r));
+        }
     }
     q
 }

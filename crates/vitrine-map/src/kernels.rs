@@ -119,6 +119,7 @@ unsafe fn sum_avx2_many<const M: usize>(
     step: impl Fn(f32, f32, f32) -> f32,
 ) -> [f32; M] {
     use std::arch::x86_64::*;
+    debug_assert!(bs.iter().all(|b| b.len() == a.len()));
     let n = bs.iter().fold(a.len(), |n, b| n.min(b.len()));
     let chunks = n / LANES;
     let mut out = [0f32; M];
@@ -174,6 +175,7 @@ unsafe fn sum_avx2_block<const A: usize, const B: usize>(
     step: impl Fn(f32, f32, f32) -> f32,
 ) -> [[f32; B]; A] {
     use std::arch::x86_64::*;
+    debug_assert!(a.iter().chain(&b).all(|r| r.len() == a[0].len()));
     let n = a.iter().chain(&b).map(|r| r.len()).min().unwrap_or(0);
     let chunks = n / LANES;
     let mut out = [[0f32; B]; A];
@@ -428,21 +430,40 @@ mod tests {
             let (c, _) = rows(len + 1000);
             let c = &c[..len];
             let d: Vec<f32> = b.iter().map(|x| x * 0.5 - 0.1).collect();
-            let many = dot_many(&a, [&b, c, &d]);
-            let sq = sq_dist_many(&a, [&b, c, &d]);
-            for (m, r) in [&b[..], c, &d[..]].into_iter().enumerate() {
-                assert_eq!(many[m].to_bits(), dot_any(&a, r).to_bits());
-                assert_eq!(sq[m].to_bits(), sq_dist_any(&a, r).to_bits());
-            }
-            // Blocks of rows against blocks of rows: each pair's bits.
             let e: Vec<f32> = a.iter().map(|x| 0.25 - x * 0.75).collect();
             let (xs, ys) = ([&a[..], &e[..], c], [&b[..], &d[..], &e[..]]);
-            let (dots, sqs) = (dot_block(xs, ys), sq_dist_block(xs, ys));
-            for (x, rx) in xs.iter().enumerate() {
-                for (y, ry) in ys.iter().enumerate() {
-                    assert_eq!(dots[x][y].to_bits(), dot_any(rx, ry).to_bits(), "{len}");
-                    assert_eq!(sqs[x][y].to_bits(), sq_dist_any(rx, ry).to_bits(), "{len}");
+            let check = |many: [f32; 3], sq: [f32; 3], dots: [[f32; 3]; 3], sqs: [[f32; 3]; 3]| {
+                for (m, r) in ys.iter().enumerate() {
+                    assert_eq!(many[m].to_bits(), dot_any(&a, r).to_bits(), "{len}");
+                    assert_eq!(sq[m].to_bits(), sq_dist_any(&a, r).to_bits(), "{len}");
                 }
+                // Blocks of rows against blocks of rows: each pair's bits.
+                for (x, rx) in xs.iter().enumerate() {
+                    for (y, ry) in ys.iter().enumerate() {
+                        assert_eq!(dots[x][y].to_bits(), dot_any(rx, ry).to_bits(), "{len}");
+                        assert_eq!(sqs[x][y].to_bits(), sq_dist_any(rx, ry).to_bits(), "{len}");
+                    }
+                }
+            };
+            // Several pairs at once, through the public entry points and through the wide path
+            // itself where the processor has it.
+            check(
+                dot_many(&a, ys),
+                sq_dist_many(&a, ys),
+                dot_block(xs, ys),
+                sq_dist_block(xs, ys),
+            );
+            #[cfg(target_arch = "x86_64")]
+            if wide() {
+                // SAFETY: checked just above.
+                unsafe {
+                    check(
+                        dot_avx2_many(&a, ys),
+                        sq_dist_avx2_many(&a, ys),
+                        dot_avx2_block(xs, ys),
+                        sq_dist_avx2_block(xs, ys),
+                    )
+                };
             }
             // Symmetric to the bit: the graph never depends on which end of a pair came first.
             assert_eq!(sq_dist(&a, &b).to_bits(), sq_dist(&b, &a).to_bits());
