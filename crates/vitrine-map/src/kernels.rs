@@ -55,55 +55,54 @@ fn dot_any(a: &[f32], b: &[f32]) -> f32 {
     sum_any(a, b, dot_step)
 }
 
-/// [`sum_any`] with the 32 sums in four 8-lane AVX2 registers, lane for lane the same sums;
-/// `wide` is `step` on eight lanes at once.
-#[cfg(target_arch = "x86_64")]
-#[inline(always)]
-unsafe fn sum_avx2(
-    a: &[f32],
-    b: &[f32],
-    wide: impl Fn(
-        std::arch::x86_64::__m256,
-        std::arch::x86_64::__m256,
-        std::arch::x86_64::__m256,
-    ) -> std::arch::x86_64::__m256,
-    step: impl Fn(f32, f32, f32) -> f32,
-) -> f32 {
-    use std::arch::x86_64::*;
-    let n = a.len().min(b.len());
-    let chunks = n / LANES;
-    // SAFETY: the caller has checked for AVX2; every load reads 8 floats inside the first
-    // `chunks * LANES` of both slices.
-    unsafe {
-        let (pa, pb) = (a.as_ptr(), b.as_ptr());
-        let mut acc = [_mm256_setzero_ps(); 4];
-        for c in 0..chunks {
-            for (r, acc_r) in acc.iter_mut().enumerate() {
-                let o = c * LANES + 8 * r;
-                *acc_r = wide(
-                    _mm256_loadu_ps(pa.add(o)),
-                    _mm256_loadu_ps(pb.add(o)),
-                    *acc_r,
-                );
-            }
+/// The running sum a kernel keeps.
+#[derive(Clone, Copy)]
+enum Sum {
+    Dot,
+    Sq,
+}
+
+impl Sum {
+    /// One pair on the portable path.
+    fn any(self, a: &[f32], b: &[f32]) -> f32 {
+        match self {
+            Sum::Dot => dot_any(a, b),
+            Sum::Sq => sq_dist_any(a, b),
         }
-        // The reduction of `reduce`, in registers: lane l of v is s[l], then
-        // t = (s0 + s4, s1 + s5, s2 + s6, s3 + s7) and the sum (t0 + t2) + (t1 + t3).
-        let v = _mm256_add_ps(_mm256_add_ps(acc[0], acc[1]), _mm256_add_ps(acc[2], acc[3]));
-        let t = _mm_add_ps(_mm256_castps256_ps128(v), _mm256_extractf128_ps(v, 1));
-        let u = _mm_add_ps(t, _mm_movehl_ps(t, t));
-        let sum = _mm_cvtss_f32(_mm_add_ss(u, _mm_shuffle_ps(u, u, 1)));
-        let mut tail = 0f32;
-        for (&x, &y) in a[chunks * LANES..n].iter().zip(&b[chunks * LANES..n]) {
-            tail = step(x, y, tail);
-        }
-        sum + tail
     }
 }
 
-/// [`sum_avx2`] of row `a` against `M` rows at once: the same sums lane for lane (so the same bits
-/// as `M` calls), but each chunk of `a` is loaded once for all `M` rows. With `M` = 3 the 12 running
-/// sums and the chunk of `a` fit in the 16 AVX2 registers.
+/// The end of one pair's sum on the wide path: the four 8-lane registers of running sums added up
+/// as [`reduce`] adds the 32 lanes (lane l of v is s[l], then t = (s0 + s4, s1 + s5, s2 + s6,
+/// s3 + s7) and the sum (t0 + t2) + (t1 + t3)), then the elements past the last full 32, `at` on.
+#[cfg(target_arch = "x86_64")]
+#[inline(always)]
+unsafe fn finish(
+    acc: [std::arch::x86_64::__m256; 4],
+    a: &[f32],
+    b: &[f32],
+    at: usize,
+    step: impl Fn(f32, f32, f32) -> f32,
+) -> f32 {
+    use std::arch::x86_64::*;
+    // SAFETY: the caller has checked for AVX2; no memory is read but through the slices.
+    let sum = unsafe {
+        let v = _mm256_add_ps(_mm256_add_ps(acc[0], acc[1]), _mm256_add_ps(acc[2], acc[3]));
+        let t = _mm_add_ps(_mm256_castps256_ps128(v), _mm256_extractf128_ps(v, 1));
+        let u = _mm_add_ps(t, _mm_movehl_ps(t, t));
+        _mm_cvtss_f32(_mm_add_ss(u, _mm_shuffle_ps(u, u, 1)))
+    };
+    let mut tail = 0f32;
+    for (&x, &y) in a[at..].iter().zip(&b[at..]) {
+        tail = step(x, y, tail);
+    }
+    sum + tail
+}
+
+/// [`sum_any`] of row `a` against `M` rows at once, with each pair's 32 sums in four 8-lane AVX2
+/// registers: lane for lane the same sums (so the same bits as the portable path), and each chunk
+/// of `a` loaded once for all `M` rows. With `M` = 3 the 12 running sums and the chunk of `a` fit
+/// in the 16 AVX2 registers; `M` = 1 is the one-pair kernel. `wide` is `step` on eight lanes.
 #[cfg(target_arch = "x86_64")]
 #[inline(always)]
 // The chunk index `r` runs outside the row index `m`, so that one load of `a` serves all rows.
@@ -122,7 +121,6 @@ unsafe fn sum_avx2_many<const M: usize>(
     debug_assert!(bs.iter().all(|b| b.len() == a.len()));
     let n = bs.iter().fold(a.len(), |n, b| n.min(b.len()));
     let chunks = n / LANES;
-    let mut out = [0f32; M];
     // SAFETY: the caller has checked for AVX2; every load reads 8 floats inside the first
     // `chunks * LANES` of each slice.
     unsafe {
@@ -138,27 +136,17 @@ unsafe fn sum_avx2_many<const M: usize>(
                 }
             }
         }
+        let mut out = [0f32; M];
         for m in 0..M {
-            let v = _mm256_add_ps(
-                _mm256_add_ps(acc[m][0], acc[m][1]),
-                _mm256_add_ps(acc[m][2], acc[m][3]),
-            );
-            let t = _mm_add_ps(_mm256_castps256_ps128(v), _mm256_extractf128_ps(v, 1));
-            let u = _mm_add_ps(t, _mm_movehl_ps(t, t));
-            let sum = _mm_cvtss_f32(_mm_add_ss(u, _mm_shuffle_ps(u, u, 1)));
-            let mut tail = 0f32;
-            for (&x, &y) in a[chunks * LANES..n].iter().zip(&bs[m][chunks * LANES..n]) {
-                tail = step(x, y, tail);
-            }
-            out[m] = sum + tail;
+            out[m] = finish(acc[m], &a[..n], &bs[m][..n], chunks * LANES, &step);
         }
+        out
     }
-    out
 }
 
-/// [`sum_avx2`] of every row of `a` against every row of `b`: the same sums lane for lane (so the
-/// same bits as one call per pair), faster because a block of rows is read once for all its pairs.
-/// The 32 lanes go in four passes of eight (lane group r of a pair only ever meets elements
+/// [`sum_avx2_many`] of every row of `a` against every row of `b`: the same sums lane for lane (so
+/// the same bits as one pair at a time), faster because a block of rows is read once for all its
+/// pairs. The 32 lanes go in four passes of eight (lane group r of a pair only ever meets elements
 /// `32 c + 8 r ..`), so a pass needs one register per pair: with 3 x 3 rows, nine running sums and
 /// six loads serve nine multiply-adds, where one pair at a time loads two for each.
 #[cfg(target_arch = "x86_64")]
@@ -178,7 +166,6 @@ unsafe fn sum_avx2_block<const A: usize, const B: usize>(
     debug_assert!(a.iter().chain(&b).all(|r| r.len() == a[0].len()));
     let n = a.iter().chain(&b).map(|r| r.len()).min().unwrap_or(0);
     let chunks = n / LANES;
-    let mut out = [[0f32; B]; A];
     // SAFETY: the caller has checked for AVX2; every load reads 8 floats inside the first
     // `chunks * LANES` of each slice.
     unsafe {
@@ -203,103 +190,60 @@ unsafe fn sum_avx2_block<const A: usize, const B: usize>(
                 }
             }
         }
+        let mut out = [[0f32; B]; A];
         for x in 0..A {
             for y in 0..B {
-                let g = &groups[x][y];
-                let v = _mm256_add_ps(_mm256_add_ps(g[0], g[1]), _mm256_add_ps(g[2], g[3]));
-                let t = _mm_add_ps(_mm256_castps256_ps128(v), _mm256_extractf128_ps(v, 1));
-                let u = _mm_add_ps(t, _mm_movehl_ps(t, t));
-                let sum = _mm_cvtss_f32(_mm_add_ss(u, _mm_shuffle_ps(u, u, 1)));
-                let mut tail = 0f32;
-                for (&p, &q) in a[x][chunks * LANES..n].iter().zip(&b[y][chunks * LANES..n]) {
-                    tail = step(p, q, tail);
-                }
-                out[x][y] = sum + tail;
+                out[x][y] = finish(groups[x][y], &a[x][..n], &b[y][..n], chunks * LANES, &step);
             }
         }
+        out
     }
-    out
 }
 
+/// [`sum_avx2_many`] for one kind of sum, where AVX2 and FMA are present.
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2,fma")]
-fn sq_dist_avx2_block<const A: usize, const B: usize>(
+fn many_avx2<const M: usize>(sum: Sum, a: &[f32], bs: [&[f32]; M]) -> [f32; M] {
+    use std::arch::x86_64::*;
+    // SAFETY: this function only runs where AVX2 and FMA are present.
+    unsafe {
+        match sum {
+            Sum::Dot => sum_avx2_many(a, bs, |x, y, acc| _mm256_fmadd_ps(x, y, acc), dot_step),
+            Sum::Sq => sum_avx2_many(a, bs, |x, y, acc| sq_wide(x, y, acc), sq_step),
+        }
+    }
+}
+
+/// [`sum_avx2_block`] for one kind of sum, where AVX2 and FMA are present.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+fn block_avx2<const A: usize, const B: usize>(
+    sum: Sum,
     a: [&[f32]; A],
     b: [&[f32]; B],
 ) -> [[f32; B]; A] {
     use std::arch::x86_64::*;
     // SAFETY: this function only runs where AVX2 and FMA are present.
     unsafe {
-        sum_avx2_block(
-            a,
-            b,
-            |x, y, acc| {
-                let t = _mm256_sub_ps(x, y);
-                _mm256_fmadd_ps(t, t, acc)
-            },
-            sq_step,
-        )
+        match sum {
+            Sum::Dot => sum_avx2_block(a, b, |x, y, acc| _mm256_fmadd_ps(x, y, acc), dot_step),
+            Sum::Sq => sum_avx2_block(a, b, |x, y, acc| sq_wide(x, y, acc), sq_step),
+        }
     }
 }
 
+/// [`sq_step`] on eight lanes.
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2,fma")]
-fn dot_avx2_block<const A: usize, const B: usize>(a: [&[f32]; A], b: [&[f32]; B]) -> [[f32; B]; A] {
+#[inline]
+fn sq_wide(
+    x: std::arch::x86_64::__m256,
+    y: std::arch::x86_64::__m256,
+    acc: std::arch::x86_64::__m256,
+) -> std::arch::x86_64::__m256 {
     use std::arch::x86_64::*;
-    // SAFETY: this function only runs where AVX2 and FMA are present.
-    unsafe { sum_avx2_block(a, b, |x, y, acc| _mm256_fmadd_ps(x, y, acc), dot_step) }
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2,fma")]
-fn sq_dist_avx2_many<const M: usize>(a: &[f32], bs: [&[f32]; M]) -> [f32; M] {
-    use std::arch::x86_64::*;
-    // SAFETY: this function only runs where AVX2 and FMA are present.
-    unsafe {
-        sum_avx2_many(
-            a,
-            bs,
-            |x, y, acc| {
-                let t = _mm256_sub_ps(x, y);
-                _mm256_fmadd_ps(t, t, acc)
-            },
-            sq_step,
-        )
-    }
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2,fma")]
-fn dot_avx2_many<const M: usize>(a: &[f32], bs: [&[f32]; M]) -> [f32; M] {
-    use std::arch::x86_64::*;
-    // SAFETY: this function only runs where AVX2 and FMA are present.
-    unsafe { sum_avx2_many(a, bs, |x, y, acc| _mm256_fmadd_ps(x, y, acc), dot_step) }
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2,fma")]
-fn sq_dist_avx2(a: &[f32], b: &[f32]) -> f32 {
-    use std::arch::x86_64::*;
-    // SAFETY: this function only runs where AVX2 and FMA are present.
-    unsafe {
-        sum_avx2(
-            a,
-            b,
-            |x, y, acc| {
-                let t = _mm256_sub_ps(x, y);
-                _mm256_fmadd_ps(t, t, acc)
-            },
-            sq_step,
-        )
-    }
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2,fma")]
-fn dot_avx2(a: &[f32], b: &[f32]) -> f32 {
-    use std::arch::x86_64::*;
-    // SAFETY: this function only runs where AVX2 and FMA are present.
-    unsafe { sum_avx2(a, b, |x, y, acc| _mm256_fmadd_ps(x, y, acc), dot_step) }
+    let t = _mm256_sub_ps(x, y);
+    _mm256_fmadd_ps(t, t, acc)
 }
 
 /// Whether the wide path can run here.
@@ -309,49 +253,55 @@ fn wide() -> bool {
     std::arch::is_x86_feature_detected!("avx2") && std::arch::is_x86_feature_detected!("fma")
 }
 
-/// Squared Euclidean distance.
+/// `sum` from `a` to each of `bs`, on the wide path where the processor has it.
 #[inline]
-pub fn sq_dist(a: &[f32], b: &[f32]) -> f32 {
+fn many<const M: usize>(sum: Sum, a: &[f32], bs: [&[f32]; M]) -> [f32; M] {
     #[cfg(target_arch = "x86_64")]
     if wide() {
         // SAFETY: the CPU has just been checked for AVX2 and FMA.
-        return unsafe { sq_dist_avx2(a, b) };
+        return unsafe { many_avx2(sum, a, bs) };
     }
-    sq_dist_any(a, b)
+    bs.map(|b| sum.any(a, b))
+}
+
+/// `sum` for every row of `a` with every row of `b`, on the wide path where the processor has it.
+#[inline]
+fn block<const A: usize, const B: usize>(
+    sum: Sum,
+    a: [&[f32]; A],
+    b: [&[f32]; B],
+) -> [[f32; B]; A] {
+    #[cfg(target_arch = "x86_64")]
+    if wide() {
+        // SAFETY: the CPU has just been checked for AVX2 and FMA.
+        return unsafe { block_avx2(sum, a, b) };
+    }
+    a.map(|x| b.map(|y| sum.any(x, y)))
+}
+
+/// Squared Euclidean distance.
+#[inline]
+pub fn sq_dist(a: &[f32], b: &[f32]) -> f32 {
+    many(Sum::Sq, a, [b])[0]
 }
 
 /// Dot product.
 #[inline]
 pub fn dot(a: &[f32], b: &[f32]) -> f32 {
-    #[cfg(target_arch = "x86_64")]
-    if wide() {
-        // SAFETY: the CPU has just been checked for AVX2 and FMA.
-        return unsafe { dot_avx2(a, b) };
-    }
-    dot_any(a, b)
+    many(Sum::Dot, a, [b])[0]
 }
 
 /// Squared Euclidean distances from `a` to each of `bs`: the bits of [`sq_dist`] for each pair,
 /// faster than one call per pair.
 #[inline]
 pub fn sq_dist_many<const M: usize>(a: &[f32], bs: [&[f32]; M]) -> [f32; M] {
-    #[cfg(target_arch = "x86_64")]
-    if wide() {
-        // SAFETY: the CPU has just been checked for AVX2 and FMA.
-        return unsafe { sq_dist_avx2_many(a, bs) };
-    }
-    bs.map(|b| sq_dist_any(a, b))
+    many(Sum::Sq, a, bs)
 }
 
 /// Dot products of `a` with each of `bs`: the bits of [`dot`] for each pair.
 #[inline]
 pub fn dot_many<const M: usize>(a: &[f32], bs: [&[f32]; M]) -> [f32; M] {
-    #[cfg(target_arch = "x86_64")]
-    if wide() {
-        // SAFETY: the CPU has just been checked for AVX2 and FMA.
-        return unsafe { dot_avx2_many(a, bs) };
-    }
-    bs.map(|b| dot_any(a, b))
+    many(Sum::Dot, a, bs)
 }
 
 /// Squared Euclidean distances of every row of `a` to every row of `b`: the bits of [`sq_dist`]
@@ -361,23 +311,13 @@ pub fn sq_dist_block<const A: usize, const B: usize>(
     a: [&[f32]; A],
     b: [&[f32]; B],
 ) -> [[f32; B]; A] {
-    #[cfg(target_arch = "x86_64")]
-    if wide() {
-        // SAFETY: the CPU has just been checked for AVX2 and FMA.
-        return unsafe { sq_dist_avx2_block(a, b) };
-    }
-    a.map(|x| b.map(|y| sq_dist_any(x, y)))
+    block(Sum::Sq, a, b)
 }
 
 /// Dot products of every row of `a` with every row of `b`: the bits of [`dot`] for each pair.
 #[inline]
 pub fn dot_block<const A: usize, const B: usize>(a: [&[f32]; A], b: [&[f32]; B]) -> [[f32; B]; A] {
-    #[cfg(target_arch = "x86_64")]
-    if wide() {
-        // SAFETY: the CPU has just been checked for AVX2 and FMA.
-        return unsafe { dot_avx2_block(a, b) };
-    }
-    a.map(|x| b.map(|y| dot_any(x, y)))
+    block(Sum::Dot, a, b)
 }
 
 #[cfg(test)]
@@ -420,9 +360,9 @@ mod tests {
             #[cfg(target_arch = "x86_64")]
             if wide() {
                 // SAFETY: checked just above.
-                let w = unsafe { sq_dist_avx2(&a, &b) };
+                let w = unsafe { many_avx2(Sum::Sq, &a, [&b]) }[0];
                 assert_eq!(w.to_bits(), sq_dist_any(&a, &b).to_bits());
-                let w = unsafe { dot_avx2(&a, &b) };
+                let w = unsafe { many_avx2(Sum::Dot, &a, [&b]) }[0];
                 assert_eq!(w.to_bits(), dot_any(&a, &b).to_bits());
             }
             assert_eq!(dot(&a, &b).to_bits(), dot_any(&a, &b).to_bits());
@@ -458,10 +398,10 @@ mod tests {
                 // SAFETY: checked just above.
                 unsafe {
                     check(
-                        dot_avx2_many(&a, ys),
-                        sq_dist_avx2_many(&a, ys),
-                        dot_avx2_block(xs, ys),
-                        sq_dist_avx2_block(xs, ys),
+                        many_avx2(Sum::Dot, &a, ys),
+                        many_avx2(Sum::Sq, &a, ys),
+                        block_avx2(Sum::Dot, xs, ys),
+                        block_avx2(Sum::Sq, xs, ys),
                     )
                 };
             }
