@@ -633,10 +633,9 @@ fn quality_figures(c: &Computed, clusters: usize) -> serde_json::Map<String, ser
         q.insert("neighbour_recall_sample_items".into(), json!(items));
     }
     // Only when the lists were widened: otherwise it is the recall above.
-    if let Some((_, report)) = c.graph.search.as_ref().filter(|(_, r)| r.widenings > 0) {
-        if let Some(r) = report.first_recall {
-            q.insert("neighbour_recall_before_widening".into(), json!(r));
-        }
+    let widened = c.graph.search.as_ref().filter(|(_, r)| r.widenings > 0);
+    if let Some(r) = widened.and_then(|(_, r)| r.first_recall) {
+        q.insert("neighbour_recall_before_widening".into(), json!(r));
     }
     q
 }
