@@ -212,41 +212,12 @@ pub fn pca_start(m: &Matrix, rng: &mut Rng) -> Vec<[f32; 2]> {
     }
     // Covariance, d x d, from at most 20,000 evenly spread rows (plenty for the two leading directions),
     // summed in parallel over fixed chunks so that the result does not depend on the thread count.
-    use rayon::prelude::*;
     let rows: Vec<usize> = if n <= 20_000 {
         (0..n).collect()
     } else {
         (0..20_000).map(|i| i * n / 20_000).collect()
     };
-    let partial: Vec<Vec<f64>> = rows
-        .par_chunks(512)
-        .map(|chunk| {
-            let mut cov = vec![0f64; d * d];
-            let mut centred = vec![0f64; d];
-            for &i in chunk {
-                for (c, (&x, &mu)) in centred.iter_mut().zip(m.row(i).iter().zip(&mean)) {
-                    *c = x as f64 - mu;
-                }
-                for a in 0..d {
-                    let ca = centred[a];
-                    if ca == 0.0 {
-                        continue;
-                    }
-                    let row = &mut cov[a * d..(a + 1) * d];
-                    for (r, &cb) in row.iter_mut().zip(&centred) {
-                        *r += ca * cb;
-                    }
-                }
-            }
-            cov
-        })
-        .collect();
-    let mut cov = vec![0f64; d * d];
-    for p in &partial {
-        for (c, x) in cov.iter_mut().zip(p) {
-            *c += x;
-        }
-    }
+    let cov = covariance(m, &rows, &mean);
     let mut comps: Vec<Vec<f64>> = Vec::new();
     for _ in 0..2 {
         let mut v: Vec<f64> = (0..d).map(|_| rng.uniform() - 0.5).collect();
@@ -301,6 +272,66 @@ pub fn pca_start(m: &Matrix, rng: &mut Rng) -> Vec<[f32; 2]> {
     pos.into_iter()
         .map(|p| [p[0] as f32, p[1] as f32])
         .collect()
+}
+
+/// The d x d matrix of summed products of the centred `rows` of `m`, summed over fixed chunks of 512
+/// rows so that the result does not depend on the thread count.
+fn covariance(m: &Matrix, rows: &[usize], mean: &[f64]) -> Vec<f64> {
+    use rayon::prelude::*;
+    let d = m.cols;
+    // Only the upper triangle is summed (the matrix is symmetric), four rows at a time so that each
+    // entry is loaded and stored once per four rows (a covariance of 384 dimensions does not fit in a
+    // core's cache); every entry still adds its rows' products one by one in row order.
+    let partial: Vec<Vec<f64>> = rows
+        .par_chunks(512)
+        .map(|chunk| {
+            let mut cov = vec![0f64; d * d];
+            let centre = |i: usize| -> Vec<f64> {
+                m.row(i)
+                    .iter()
+                    .zip(mean)
+                    .map(|(&x, &mu)| x as f64 - mu)
+                    .collect()
+            };
+            let mut fours = chunk.chunks_exact(4);
+            for four in &mut fours {
+                let [c0, c1, c2, c3] = [0, 1, 2, 3].map(|r| centre(four[r]));
+                for a in 0..d {
+                    let (x0, x1, x2, x3) = (c0[a], c1[a], c2[a], c3[a]);
+                    let row = &mut cov[a * d + a..(a + 1) * d];
+                    let rest = c0[a..]
+                        .iter()
+                        .zip(&c1[a..])
+                        .zip(c2[a..].iter().zip(&c3[a..]));
+                    for (r, ((y0, y1), (y2, y3))) in row.iter_mut().zip(rest) {
+                        *r = (((*r + x0 * y0) + x1 * y1) + x2 * y2) + x3 * y3;
+                    }
+                }
+            }
+            for &i in fours.remainder() {
+                let c = centre(i);
+                for a in 0..d {
+                    let row = &mut cov[a * d + a..(a + 1) * d];
+                    for (r, &cb) in row.iter_mut().zip(&c[a..]) {
+                        *r += c[a] * cb;
+                    }
+                }
+            }
+            cov
+        })
+        .collect();
+    let mut cov = vec![0f64; d * d];
+    for p in &partial {
+        for (c, x) in cov.iter_mut().zip(p) {
+            *c += x;
+        }
+    }
+    for a in 0..d {
+        for b in 0..a {
+            cov[a * d + b] = cov[b * d + a];
+        }
+    }
+    cov
 }
 
 /// log2 of a positive, finite x to about 5e-6: exponent bits, the mantissa reduced to [0.75, 1.5),
@@ -844,6 +875,57 @@ fn layout_sequential<const D: usize>(
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn covariance_by_fours_over_the_upper_triangle_equals_the_plain_sum_bit_for_bit() {
+        // 1,001 rows: a chunk of 512 (whole fours) and one of 489 (a remainder of one row).
+        let (n, d) = (1001, 37);
+        let mut rng = Rng::new(3);
+        let data: Vec<f32> = (0..n * d)
+            .map(|k| {
+                if k % 11 == 0 {
+                    0.0
+                } else {
+                    rng.uniform() as f32 - 0.3
+                }
+            })
+            .collect();
+        let m = Matrix {
+            rows: n,
+            cols: d,
+            data,
+        };
+        let rows: Vec<usize> = (0..n).collect();
+        let mean: Vec<f64> = (0..d)
+            .map(|c| (0..n).map(|i| m.row(i)[c] as f64).sum::<f64>() / n as f64)
+            .collect();
+        // The plain sum: each row's full outer product added in row order, chunk by chunk.
+        let mut plain = vec![0f64; d * d];
+        for chunk in rows.chunks(512) {
+            let mut part = vec![0f64; d * d];
+            for &i in chunk {
+                let c: Vec<f64> = m
+                    .row(i)
+                    .iter()
+                    .zip(&mean)
+                    .map(|(&x, mu)| x as f64 - mu)
+                    .collect();
+                for a in 0..d {
+                    for b in 0..d {
+                        part[a * d + b] += c[a] * c[b];
+                    }
+                }
+            }
+            for (p, x) in plain.iter_mut().zip(part) {
+                *p += x;
+            }
+        }
+        let fast = covariance(&m, &rows, &mean);
+        assert_eq!(
+            fast.iter().map(|x| x.to_bits()).collect::<Vec<_>>(),
+            plain.iter().map(|x| x.to_bits()).collect::<Vec<_>>()
+        );
+    }
 
     #[test]
     fn fast_pow_is_close_to_powf_over_the_layouts_range() {
