@@ -878,13 +878,13 @@ mod tests {
 
     #[test]
     fn covariance_by_fours_over_the_upper_triangle_equals_the_plain_sum_bit_for_bit() {
-        // 1,001 rows: a chunk of 512 (whole fours) and one of 489 (a remainder of one row).
+        // The last column is constant, so its centred values are exactly zero.
         let (n, d) = (1001, 37);
         let mut rng = Rng::new(3);
         let data: Vec<f32> = (0..n * d)
             .map(|k| {
-                if k % 11 == 0 {
-                    0.0
+                if k % d == d - 1 {
+                    0.5
                 } else {
                     rng.uniform() as f32 - 0.3
                 }
@@ -895,36 +895,44 @@ mod tests {
             cols: d,
             data,
         };
-        let rows: Vec<usize> = (0..n).collect();
-        let mean: Vec<f64> = (0..d)
-            .map(|c| (0..n).map(|i| m.row(i)[c] as f64).sum::<f64>() / n as f64)
-            .collect();
-        // The plain sum: each row's full outer product added in row order, chunk by chunk.
-        let mut plain = vec![0f64; d * d];
-        for chunk in rows.chunks(512) {
-            let mut part = vec![0f64; d * d];
-            for &i in chunk {
-                let c: Vec<f64> = m
-                    .row(i)
-                    .iter()
-                    .zip(&mean)
-                    .map(|(&x, mu)| x as f64 - mu)
-                    .collect();
-                for a in 0..d {
-                    for b in 0..d {
-                        part[a * d + b] += c[a] * c[b];
+        // Every row (a chunk of 512 in whole fours, then 489: a remainder of one row), and every
+        // third row (334: a remainder of two).
+        for rows in [(0..n).collect::<Vec<usize>>(), (0..n).step_by(3).collect()] {
+            let mean: Vec<f64> = (0..d)
+                .map(|c| rows.iter().map(|&i| m.row(i)[c] as f64).sum::<f64>() / rows.len() as f64)
+                .collect();
+            // The plain sum, as the start summed it before: each row's outer product added in
+            // row order, chunk by chunk, skipping the matrix rows where the row's value is zero.
+            let mut plain = vec![0f64; d * d];
+            for chunk in rows.chunks(512) {
+                let mut part = vec![0f64; d * d];
+                for &i in chunk {
+                    let c: Vec<f64> = m
+                        .row(i)
+                        .iter()
+                        .zip(&mean)
+                        .map(|(&x, mu)| x as f64 - mu)
+                        .collect();
+                    for a in 0..d {
+                        if c[a] == 0.0 {
+                            continue;
+                        }
+                        for b in 0..d {
+                            part[a * d + b] += c[a] * c[b];
+                        }
                     }
                 }
+                for (p, x) in plain.iter_mut().zip(part) {
+                    *p += x;
+                }
             }
-            for (p, x) in plain.iter_mut().zip(part) {
-                *p += x;
-            }
+            assert!(mean[d - 1] == 0.5 && plain[d * d - 1] == 0.0);
+            let fast = covariance(&m, &rows, &mean);
+            assert_eq!(
+                fast.iter().map(|x| x.to_bits()).collect::<Vec<_>>(),
+                plain.iter().map(|x| x.to_bits()).collect::<Vec<_>>()
+            );
         }
-        let fast = covariance(&m, &rows, &mean);
-        assert_eq!(
-            fast.iter().map(|x| x.to_bits()).collect::<Vec<_>>(),
-            plain.iter().map(|x| x.to_bits()).collect::<Vec<_>>()
-        );
     }
 
     #[test]
