@@ -905,18 +905,8 @@ fn degenerate_collections_build_with_finite_maps() {
         } else {
             "auto"
         };
-        let o = common::vitrine()
-            .args([
-                "build",
-                "--quiet",
-                "--epochs",
-                "30",
-                "--metric",
-                metric,
-                "--neighbours",
-                search,
-                "--vectors",
-            ])
+        let o = common::quick_build()
+            .args(["--metric", metric, "--neighbours", search, "--vectors"])
             .arg(&v)
             .args(if name.ends_with("-pca") {
                 &["--pca", "2"][..]
@@ -985,9 +975,9 @@ fn pca_pre_reduction_keeps_distances_and_is_recorded() {
     write_npy_f32(&d.join("vectors.npy"), 80, 8, &data).unwrap();
     for metric in ["cosine", "euclidean"] {
         let run = |name: &str, extra: &[&str]| {
-            let o = common::vitrine()
+            let o = common::quick_build()
                 .current_dir(d)
-                .args(["build", "--quiet", "--epochs", "30", "--metric", metric])
+                .args(["--metric", metric])
                 .args(["--vectors", "vectors.npy", "--out", name])
                 .args(extra)
                 .output()
@@ -1339,24 +1329,17 @@ fn a_rebuild_reuses_the_thumbnails_of_unchanged_images_and_remakes_the_rest() {
     }
     write(30);
     let build = |out: &str, cache: Option<&str>| {
-        let mut c = common::vitrine();
-        c.current_dir(d)
-            .args([
-                "build",
-                "--quiet",
-                "--epochs",
-                "30",
-                "--vectors",
-                "vectors.npy",
-            ])
-            .args([
-                "--catalogue",
-                "records.csv",
-                "--images",
-                "images",
-                "--out",
-                out,
-            ]);
+        let mut c = common::quick_build();
+        c.current_dir(d).args([
+            "--vectors",
+            "vectors.npy",
+            "--catalogue",
+            "records.csv",
+            "--images",
+            "images",
+            "--out",
+            out,
+        ]);
         match cache {
             Some(dir) => c.args(["--thumb-cache", dir]),
             None => c.arg("--no-thumb-cache"),
@@ -1466,15 +1449,8 @@ fn approximate_graph_records_how_the_search_ran() {
         let v = d.join(format!("{name}.npy"));
         write_npy_f32(&v, n, dims, &data).unwrap();
         let out = d.join(name);
-        let o = common::vitrine()
-            .args([
-                "build",
-                "--quiet",
-                "--epochs",
-                "30",
-                "--metric",
-                "euclidean",
-            ])
+        let o = common::quick_build()
+            .args(["--metric", "euclidean"])
             .args(["--neighbours", "approximate", "--vectors"])
             .arg(&v)
             .arg("--out")

@@ -16,3 +16,10 @@ pub fn vitrine() -> Command {
     );
     c
 }
+
+/// `vitrine build --quiet --epochs 30`: a quick build, to which a test adds its inputs and options.
+pub fn quick_build() -> Command {
+    let mut c = vitrine();
+    c.args(["build", "--quiet", "--epochs", "30"]);
+    c
+}
