@@ -391,6 +391,12 @@ test("a lasso selects, Shift and Alt lassos add and take away, and the corpus ex
   assert.ok(out.startsWith(`${taken} items`), out);
   assert.ok(fs.readFileSync(csvFile).equals(fs.readFileSync(path.join(dir, "native.csv"))),
     "the viewer's CSV equals the native one");
+  // The exact CSV (for scripts) is the native --csv-exact, byte for byte.
+  const exactFile = await save("#export-csv-exact", "exact.csv");
+  execFileSync(BIN, ["corpus", ATLAS, "--from", json, "--csv", path.join(dir, "native-exact.csv"),
+    "--csv-exact"]);
+  assert.ok(fs.readFileSync(exactFile).equals(fs.readFileSync(path.join(dir, "native-exact.csv"))),
+    "the viewer's exact CSV equals the native one");
   const rows = readCsv(fs.readFileSync(csvFile, "utf8"));
   assert.equal(rows.length, taken);
   assert.deepEqual(rows.map((r) => r.id), corpus.ids);

@@ -11,7 +11,7 @@ use vitrine_corpus::corpus::{
     corpus_mask, describe, AtlasRef, CorpusFile, Lookup, Made, Op, Shape, Step, CORPUS_FORMAT,
     CORPUS_VERSION,
 };
-use vitrine_corpus::export::{build_record, csv, iiif_manifest, IiifOptions};
+use vitrine_corpus::export::{build_record, csv, iiif_manifest, CsvStyle, IiifOptions};
 use vitrine_corpus::filter::{DateRule, Filter};
 use vitrine_corpus::polygon::Polygon;
 use vitrine_format::ArrayRef;
@@ -68,6 +68,11 @@ pub struct CorpusArgs {
     /// Write the corpus's catalogue rows here (CSV, the id column first).
     #[arg(long)]
     pub csv: Option<PathBuf>,
+    /// Write --csv's cells exactly as catalogued, for scripts. Without it, a cell a spreadsheet
+    /// would run as a formula (it begins with = + - @, a tab or a CR) gets a leading apostrophe;
+    /// plain numbers in number and date fields stay as they are.
+    #[arg(long = "csv-exact", requires = "csv")]
+    pub csv_exact: bool,
     /// Write the corpus file here (JSON: ids, steps, filters, atlas hash, build parameters, time).
     #[arg(long)]
     pub json: Option<PathBuf>,
@@ -445,7 +450,12 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
     };
     let mut written = Vec::new();
     if let Some(p) = &a.csv {
-        std::fs::write(p, csv(m, &ids, &cols, &items))
+        let style = if a.csv_exact {
+            CsvStyle::Exact
+        } else {
+            CsvStyle::Spreadsheet
+        };
+        std::fs::write(p, csv(m, &ids, &cols, &items, style))
             .with_context(|| format!("writing {}", p.display()))?;
         written.push(p.clone());
     }

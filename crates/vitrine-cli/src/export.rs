@@ -5,7 +5,7 @@ use std::path::{Path, PathBuf};
 use anyhow::{Context, Result};
 use clap::Args;
 use vitrine_build::read::Atlas;
-use vitrine_corpus::export::csv_row;
+use vitrine_corpus::export::{cell, csv_row, CsvStyle};
 
 /// Write data out of an atlas.
 #[derive(Args)]
@@ -15,6 +15,10 @@ pub struct ExportArgs {
     /// CSV with each item's id and its x, y on every map, one row per item in atlas order.
     #[arg(long)]
     positions: PathBuf,
+    /// Write the ids exactly as catalogued, for scripts. Without it, an id a spreadsheet would run
+    /// as a formula (it begins with = + - @, a tab or a CR) gets a leading apostrophe.
+    #[arg(long = "csv-exact")]
+    csv_exact: bool,
     /// Replace the file if it exists.
     #[arg(long)]
     force: bool,
@@ -23,7 +27,12 @@ pub struct ExportArgs {
 pub fn run(a: ExportArgs) -> Result<()> {
     let atlas = Atlas::open(&a.atlas)?;
     crate::corpus::check_output(&a.positions, "--positions", &a.atlas, a.force)?;
-    export_positions(&atlas, &a.positions)?;
+    let style = if a.csv_exact {
+        CsvStyle::Exact
+    } else {
+        CsvStyle::Spreadsheet
+    };
+    export_positions(&atlas, &a.positions, style)?;
     eprintln!(
         "wrote {} ({} items)",
         a.positions.display(),
@@ -32,8 +41,8 @@ pub fn run(a: ExportArgs) -> Result<()> {
     Ok(())
 }
 
-/// Writes id and x, y per map, one row per item in atlas order.
-pub fn export_positions(atlas: &Atlas, out: &Path) -> Result<()> {
+/// Writes id and x, y per map, one row per item in atlas order, the ids written for `style`.
+pub fn export_positions(atlas: &Atlas, out: &Path, style: CsvStyle) -> Result<()> {
     let m = &atlas.manifest;
     let files = atlas.load(
         [&m.ids, &m.ids_text]
@@ -61,9 +70,10 @@ pub fn export_positions(atlas: &Atlas, out: &Path) -> Result<()> {
             .iter()
             .flat_map(|p| [p[i][0].to_string(), p[i][1].to_string()])
             .collect();
+        let id = cell(ids.get(i), false, style);
         csv_row(
             &mut s,
-            std::iter::once(ids.get(i)).chain(xy.iter().map(String::as_str)),
+            std::iter::once(id.as_ref()).chain(xy.iter().map(String::as_str)),
         );
     }
     std::fs::write(out, s).with_context(|| format!("writing {}", out.display()))

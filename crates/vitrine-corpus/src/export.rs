@@ -5,7 +5,6 @@ use vitrine_format::{FieldKind, Manifest, TextTable};
 
 use crate::columns::{Column, FieldColumn};
 
-/// A CSV field (RFC 4180): quoted when it holds a comma, a quote, a line break or outer spaces.
 /// One CSV field (RFC 4180): quoted when it holds a comma, a quote, a line break or outer spaces.
 /// The one quoting rule of every CSV the product writes.
 pub fn csv_field(s: &str) -> String {
@@ -27,6 +26,66 @@ pub fn csv_row<'a>(out: &mut String, fields: impl Iterator<Item = &'a str>) {
     out.push_str("\r\n");
 }
 
+/// How the cells of an exported CSV are written.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum CsvStyle {
+    /// To be opened in a spreadsheet (the default). A cell that a spreadsheet would take for a
+    /// formula — one that begins with `=`, `+`, `-`, `@`, a tab or a carriage return — gets a
+    /// leading apostrophe, so that the spreadsheet shows it as the text it is and runs nothing
+    /// (the rule of OWASP's "CSV Injection" page). A plain number in a number or date column
+    /// (`-2.5`, `-500`) stays as it is: a spreadsheet reads it as that number.
+    Spreadsheet,
+    /// Every value exactly as catalogued, for scripts and other programs.
+    Exact,
+}
+
+/// Whether a spreadsheet would read a cell that begins like `s` as a formula.
+pub fn looks_like_formula(s: &str) -> bool {
+    s.starts_with(['=', '+', '-', '@', '\t', '\r'])
+}
+
+/// A number written plainly: a sign, digits with at most one decimal point, an exponent
+/// (`-2.5`, `+3`, `1e-4`); not `-2+3`, `inf` or `1,5`.
+fn plain_number(s: &str) -> bool {
+    let b = s.as_bytes();
+    let mut i = usize::from(matches!(b.first(), Some(b'-' | b'+')));
+    let digits = |i: &mut usize| {
+        let from = *i;
+        while *i < b.len() && b[*i].is_ascii_digit() {
+            *i += 1;
+        }
+        *i - from
+    };
+    let mut n = digits(&mut i);
+    if b.get(i) == Some(&b'.') {
+        i += 1;
+        n += digits(&mut i);
+    }
+    if n == 0 {
+        return false;
+    }
+    if matches!(b.get(i), Some(b'e' | b'E')) {
+        i += 1;
+        if matches!(b.get(i), Some(b'-' | b'+')) {
+            i += 1;
+        }
+        if digits(&mut i) == 0 {
+            return false;
+        }
+    }
+    i == b.len()
+}
+
+/// `s` as a cell of a CSV in `style` (before quoting); `numeric` says its column holds numbers
+/// or years.
+pub fn cell(s: &str, numeric: bool, style: CsvStyle) -> std::borrow::Cow<'_, str> {
+    if style == CsvStyle::Spreadsheet && looks_like_formula(s) && !(numeric && plain_number(s)) {
+        format!("'{s}").into()
+    } else {
+        s.into()
+    }
+}
+
 /// The name of the catalogue's id column, as the build recorded it ("id" when it did not).
 pub fn id_column(m: &Manifest) -> String {
     m.provenance
@@ -38,20 +97,39 @@ pub fn id_column(m: &Manifest) -> String {
 }
 
 /// The catalogue rows of `items` (atlas order): the id column, then every field as the catalogue
-/// wrote it, one row per item, CRLF line ends (RFC 4180).
-pub fn csv(m: &Manifest, ids: &TextTable, cols: &[FieldColumn], items: &[usize]) -> String {
+/// wrote it, one row per item, CRLF line ends (RFC 4180), the cells written for `style`.
+pub fn csv(
+    m: &Manifest,
+    ids: &TextTable,
+    cols: &[FieldColumn],
+    items: &[usize],
+    style: CsvStyle,
+) -> String {
     let mut out = String::new();
     let id = id_column(m);
+    let head = std::iter::once(id.as_str()).chain(cols.iter().map(|c| c.field.name.as_str()));
     csv_row(
         &mut out,
-        std::iter::once(id.as_str()).chain(cols.iter().map(|c| c.field.name.as_str())),
+        head.map(|h| cell(h, false, style))
+            .collect::<Vec<_>>()
+            .iter()
+            .map(|c| c.as_ref()),
     );
+    let numeric: Vec<bool> = cols
+        .iter()
+        .map(|c| matches!(c.field.kind, FieldKind::Number | FieldKind::Date))
+        .collect();
     for &i in items {
         let texts: Vec<String> = cols.iter().map(|c| c.text(i)).collect();
-        csv_row(
-            &mut out,
-            std::iter::once(ids.get(i)).chain(texts.iter().map(String::as_str)),
-        );
+        let cells = std::iter::once(cell(ids.get(i), false, style))
+            .chain(
+                texts
+                    .iter()
+                    .zip(&numeric)
+                    .map(|(t, &num)| cell(t, num, style)),
+            )
+            .collect::<Vec<_>>();
+        csv_row(&mut out, cells.iter().map(|c| c.as_ref()));
     }
     out
 }
@@ -229,6 +307,46 @@ mod tests {
         assert_eq!(csv_field("say \"hi\""), "\"say \"\"hi\"\"\"");
         assert_eq!(csv_field("two\nlines"), "\"two\nlines\"");
         assert_eq!(csv_field("Ćwirnak"), "Ćwirnak");
+    }
+
+    /// The rule of OWASP's "CSV Injection" page (prefix an apostrophe to a cell that begins with
+    /// =, +, -, @, tab or carriage return), applied to the attack strings it and the issue name.
+    #[test]
+    fn cells_a_spreadsheet_would_run_get_an_apostrophe() {
+        let sheet = |s: &str, num: bool| cell(s, num, CsvStyle::Spreadsheet).into_owned();
+        for bad in [
+            "=HYPERLINK(\"http://evil.example\",\"x\")",
+            "@SUM(1+1)*cmd|' /C calc'!A0",
+            "+cmd|' /C calc'!A0",
+            "-2+3",
+            "\t=1+1",
+            "\r=1+1",
+            "=1",
+        ] {
+            assert_eq!(sheet(bad, false), format!("'{bad}"), "text column: {bad:?}");
+            assert_eq!(
+                sheet(bad, true),
+                format!("'{bad}"),
+                "number column: {bad:?}"
+            );
+        }
+        // Plain numbers in number and date columns stay numbers; in text columns they do not.
+        for num in ["-2.5", "-500", "+3", "-1e-4", "-.5", "-3."] {
+            assert_eq!(sheet(num, true), num);
+            assert_eq!(sheet(num, false), format!("'{num}"));
+        }
+        for not_plain in ["-inf", "-NaN", "-2,5", "-1e", "-", "-.", "-1-2", "-1 "] {
+            assert_eq!(
+                sheet(not_plain, true),
+                format!("'{not_plain}"),
+                "{not_plain:?}"
+            );
+        }
+        // Harmless beginnings and the exact style are untouched.
+        for ok in ["a=b", " =1", "'=1", "Ćwirnak", "", "1-2"] {
+            assert_eq!(sheet(ok, false), ok);
+        }
+        assert_eq!(cell("=1+1", false, CsvStyle::Exact), "=1+1");
     }
 
     #[test]

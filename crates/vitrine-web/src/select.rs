@@ -5,7 +5,7 @@
 use super::*;
 use vitrine_corpus::corpus::{AtlasRef, CorpusFile, Made, Op, Shape, Step};
 use vitrine_corpus::corpus::{CORPUS_FORMAT, CORPUS_VERSION};
-use vitrine_corpus::export::{build_record, csv, iiif_manifest, IiifOptions};
+use vitrine_corpus::export::{build_record, csv, iiif_manifest, CsvStyle, IiifOptions};
 use vitrine_view::sketch::Sketch;
 
 /// Switches the drag mode (the same mode again goes back to moving the map).
@@ -299,7 +299,8 @@ fn file_stem(title: &str) -> String {
     }
 }
 
-/// Writes the corpus as `kind` ("csv", "json" for the corpus file, "iiif") and downloads it.
+/// Writes the corpus as `kind` ("csv" for spreadsheets, "csv-exact" for scripts, "json" for the
+/// corpus file, "iiif") and downloads it.
 pub fn export(kind: &str) {
     let Some(app) = app() else { return };
     let mut a = app.borrow_mut();
@@ -319,11 +320,18 @@ pub fn export(kind: &str) {
     let map = a.selection_map_name().to_string();
     let description = vitrine_corpus::corpus::describe(&map, a.selection.steps(), a.filters.list());
     let (name, mime, text) = match kind {
-        "csv" => (
-            format!("{stem}.csv"),
-            "text/csv;charset=utf-8",
-            csv(m, &a.atlas.ids, &a.atlas.fields, &items),
-        ),
+        "csv" | "csv-exact" => {
+            let style = if kind == "csv" {
+                CsvStyle::Spreadsheet
+            } else {
+                CsvStyle::Exact
+            };
+            (
+                format!("{stem}.csv"),
+                "text/csv;charset=utf-8",
+                csv(m, &a.atlas.ids, &a.atlas.fields, &items, style),
+            )
+        }
         "iiif" => {
             let href = web_sys::window()
                 .and_then(|w| w.location().href().ok())
@@ -394,6 +402,7 @@ pub fn install() {
         ("export-csv", 6),
         ("export-json", 7),
         ("export-iiif", 8),
+        ("export-csv-exact", 9),
     ] {
         if let Some(b) = by_id(id) {
             listen(
@@ -409,7 +418,8 @@ pub fn install() {
                     5 => dispatch(Action::SelectAll),
                     6 => export("csv"),
                     7 => export("json"),
-                    _ => export("iiif"),
+                    8 => export("iiif"),
+                    _ => export("csv-exact"),
                 },
             );
         }
