@@ -450,6 +450,13 @@ fn pictures(
             t.reused,
             cache_dir.display()
         ));
+        if t.cache_damaged > 0 {
+            report.notes.push(format!(
+                "{} thumbnail(s) in the cache {} were damaged (cut short or changed on disk): made again from the images",
+                t.cache_damaged,
+                cache_dir.display()
+            ));
+        }
         if t.cache_errors > 0 {
             report.notes.push(format!(
                 "{} thumbnail(s) could not be stored in the cache {}; the next build makes them again",

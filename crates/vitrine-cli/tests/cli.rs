@@ -1422,6 +1422,24 @@ fn a_rebuild_reuses_the_thumbnails_of_unchanged_images_and_remakes_the_rest() {
     );
     let p30 = at("p30");
     assert!(p30[2] > 230 && p30[0] < 30, "new p30: {p30:?}");
+    // Entries cut short (a full disk, a copy broken off) are not published with grey bottoms:
+    // every one is found damaged, made again from its image, and the report says so.
+    let mut entries = Vec::new();
+    for sub in std::fs::read_dir(d.join("cache")).unwrap() {
+        for e in std::fs::read_dir(sub.unwrap().path()).unwrap() {
+            entries.push(e.unwrap().path());
+        }
+    }
+    assert!(entries.len() >= 31, "{} cache entries", entries.len());
+    for e in &entries {
+        let bytes = std::fs::read(e).unwrap();
+        std::fs::write(e, &bytes[..bytes.len() * 2 / 3]).unwrap();
+    }
+    assert_eq!(build("cut", Some("cache")), (31, 0));
+    let report = std::fs::read_to_string(d.join("cut").join("build-report.json")).unwrap();
+    assert!(report.contains("31 thumbnail(s) in the cache"), "{report}");
+    assert!(report.contains("were damaged"), "{report}");
+    assert_eq!(build("mended", Some("cache")), (0, 31));
 }
 
 #[test]

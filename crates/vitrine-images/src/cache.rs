@@ -4,21 +4,25 @@
 //!
 //! One entry per image, named by a SHA-256 of what the thumbnail depends on (the file's absolute
 //! path, size and modification time, the largest cell, the pixel limit and this format's version):
-//! a header (bincode) with the original's size as shown and the file's size and SHA-256 (for the
-//! provenance), then the largest level's pixels as a JPEG at quality 95 without chroma subsampling. Lossless PNG would make the sheets of
+//! a header (bincode) with the original's size as shown, the file's size and SHA-256 (for the
+//! provenance) and the stored JPEG's length and SHA-256, then the largest level's pixels as that
+//! JPEG, at quality 95 without chroma subsampling. Lossless PNG would make the sheets of
 //! a rebuild byte-identical, but at the 512 px level it costs ~250 KB per image (a quarter of a
 //! terabyte per million images); this JPEG is ~4x smaller and a rebuilt sheet differs from a fresh
 //! one by a fraction of a grey level on average (tested).
-//! Entries are written to a temporary name and renamed, so a crash never leaves half an entry;
-//! an entry that cannot be read is treated as absent.
+//! Entries are written to a temporary name and renamed, so a crash never leaves half an entry.
+//! An entry is used only when its JPEG has the length and SHA-256 its header records: a JPEG
+//! decoder reads a file cut short without complaint (the missing rows come out flat grey), so an
+//! entry damaged on disk or cut short by a full disk would otherwise be published as it is. A
+//! damaged entry is reported as such and made again.
 
 use std::path::{Path, PathBuf};
 
 use image::RgbImage;
 
-const MAGIC: &[u8; 4] = b"VTC3";
+const MAGIC: &[u8; 4] = b"VTC4";
 /// Bumped whenever decoding or fitting changes what a thumbnail looks like (or the entry's layout).
-const VERSION: u32 = 3;
+const VERSION: u32 = 4;
 
 /// What an entry says of its image, before the thumbnail's JPEG bytes: written with bincode
 /// (standard configuration), which gives its length back on reading.
@@ -27,6 +31,9 @@ struct Header {
     size: [u32; 2],
     file_bytes: u64,
     sha256: [u8; 32],
+    /// Length and SHA-256 of the JPEG that follows the header.
+    thumb_bytes: u64,
+    thumb_sha256: [u8; 32],
 }
 /// JPEG quality of the stored thumbnail.
 const QUALITY: u8 = 95;
@@ -39,6 +46,16 @@ pub struct Entry {
     pub digest: (String, u64),
     /// The largest level's thumbnail.
     pub thumb: RgbImage,
+}
+
+/// What the cache holds for a key.
+pub enum Lookup {
+    Hit(Entry),
+    /// No entry (or one written by another version of the format).
+    Missing,
+    /// An entry whose bytes are not what it was written with (cut short, changed on disk, or not
+    /// an entry at all).
+    Damaged,
 }
 
 /// The cache folder and what every key shares.
@@ -79,21 +96,32 @@ impl ThumbCache {
         Some(self.dir.join(&hex[..2]).join(&hex))
     }
 
-    pub fn get(&self, key: &Path) -> Option<Entry> {
-        let bytes = std::fs::read(key).ok()?;
+    /// The entry at `key`, checked against the length and checksum it was written with.
+    pub fn get(&self, key: &Path) -> Lookup {
+        let Ok(bytes) = std::fs::read(key) else {
+            return Lookup::Missing;
+        };
+        // Entries of other versions have other keys; a file here without this magic is damaged.
         if bytes.len() < 4 || &bytes[..4] != MAGIC {
-            return None;
+            return Lookup::Damaged;
         }
-        let (h, used): (Header, usize) =
-            bincode::serde::decode_from_slice(&bytes[4..], bincode::config::standard()).ok()?;
-        let jpeg = bytes.get(4 + used..)?;
-        let thumb = image::load_from_memory_with_format(jpeg, image::ImageFormat::Jpeg)
-            .ok()?
-            .into_rgb8();
-        Some(Entry {
+        let Ok((h, used)) = bincode::serde::decode_from_slice::<Header, _>(
+            &bytes[4..],
+            bincode::config::standard(),
+        ) else {
+            return Lookup::Damaged;
+        };
+        let jpeg = &bytes[4 + used..];
+        if jpeg.len() as u64 != h.thumb_bytes || sha256_of(jpeg) != h.thumb_sha256 {
+            return Lookup::Damaged;
+        }
+        let Ok(thumb) = image::load_from_memory_with_format(jpeg, image::ImageFormat::Jpeg) else {
+            return Lookup::Damaged;
+        };
+        Lookup::Hit(Entry {
             size: h.size,
             digest: (vitrine_format::hex(&h.sha256), h.file_bytes),
-            thumb,
+            thumb: thumb.into_rgb8(),
         })
     }
 
@@ -114,17 +142,8 @@ impl ThumbCache {
                 .and_then(|h| u8::from_str_radix(h, 16).ok())
                 .ok_or_else(|| std::io::Error::other("not a SHA-256 digest"))?;
         }
-        let header = Header {
-            size,
-            file_bytes: digest.1,
-            sha256,
-        };
-        let mut out = Vec::with_capacity(64 + thumb.len() / 2);
-        out.extend_from_slice(MAGIC);
-        let head = bincode::serde::encode_to_vec(&header, bincode::config::standard())
-            .map_err(|e| std::io::Error::other(e.to_string()))?;
-        out.extend_from_slice(&head);
-        let mut enc = jpeg_encoder::Encoder::new(&mut out, QUALITY);
+        let mut jpeg = Vec::with_capacity(thumb.len() / 2);
+        let mut enc = jpeg_encoder::Encoder::new(&mut jpeg, QUALITY);
         enc.set_sampling_factor(jpeg_encoder::SamplingFactor::R_4_4_4);
         enc.encode(
             thumb.as_raw(),
@@ -133,6 +152,19 @@ impl ThumbCache {
             jpeg_encoder::ColorType::Rgb,
         )
         .map_err(|e| std::io::Error::other(e.to_string()))?;
+        let header = Header {
+            size,
+            file_bytes: digest.1,
+            sha256,
+            thumb_bytes: jpeg.len() as u64,
+            thumb_sha256: sha256_of(&jpeg),
+        };
+        let mut out = Vec::with_capacity(128 + jpeg.len());
+        out.extend_from_slice(MAGIC);
+        let head = bincode::serde::encode_to_vec(&header, bincode::config::standard())
+            .map_err(|e| std::io::Error::other(e.to_string()))?;
+        out.extend_from_slice(&head);
+        out.extend_from_slice(&jpeg);
         let parent = key.parent().expect("entries live in a subfolder");
         std::fs::create_dir_all(parent)?;
         let tmp = parent.join(format!(
@@ -143,6 +175,12 @@ impl ThumbCache {
         std::fs::write(&tmp, &out)?;
         std::fs::rename(&tmp, key)
     }
+}
+
+/// SHA-256 of `bytes`.
+fn sha256_of(bytes: &[u8]) -> [u8; 32] {
+    use sha2::Digest;
+    sha2::Sha256::digest(bytes).into()
 }
 
 /// The default cache folder: `$VITRINE_CACHE/thumbs`, else `$XDG_CACHE_HOME/vitrine/thumbs`, else
@@ -168,7 +206,7 @@ mod tests {
         let img = dir.path().join("a.png");
         std::fs::write(&img, b"first").unwrap();
         let key = cache.key(&img).unwrap();
-        assert!(cache.get(&key).is_none());
+        assert!(matches!(cache.get(&key), Lookup::Missing));
         let thumb = RgbImage::from_fn(5, 3, |x, y| image::Rgb([x as u8 * 40, y as u8 * 70, 9]));
         let e = Entry {
             size: [500, 300],
@@ -176,7 +214,9 @@ mod tests {
             thumb: thumb.clone(),
         };
         cache.put(&key, e.size, &e.digest, &e.thumb).unwrap();
-        let back = cache.get(&key).unwrap();
+        let Lookup::Hit(back) = cache.get(&key) else {
+            panic!("the entry just stored")
+        };
         assert_eq!(back.size, [500, 300]);
         assert_eq!(back.digest, e.digest);
         // Stored as a quality-95 JPEG: the same size, every channel within a few levels.
@@ -195,8 +235,49 @@ mod tests {
         assert_ne!(cache.key(&img).unwrap(), key);
         let other = ThumbCache::new(dir.path().join("cache"), 512, 1000);
         assert_ne!(other.key(&img).unwrap(), cache.key(&img).unwrap());
-        // A damaged entry reads as absent.
-        std::fs::write(&key, b"VTC3 short").unwrap();
-        assert!(cache.get(&key).is_none());
+        // A damaged entry is told apart from a missing one.
+        std::fs::write(&key, b"VTC4 short").unwrap();
+        assert!(matches!(cache.get(&key), Lookup::Damaged));
+    }
+
+    /// An entry cut short or changed in one byte is damaged, not a thumbnail with a grey bottom
+    /// (the JPEG decoder alone accepts the cut file: checked here, so the test shows why the
+    /// length and checksum are there).
+    #[test]
+    fn an_entry_cut_short_or_changed_is_damaged() {
+        let dir = tempfile::tempdir().unwrap();
+        let cache = ThumbCache::new(dir.path().join("cache"), 64, 1000);
+        let img = dir.path().join("a.png");
+        std::fs::write(&img, b"pixels").unwrap();
+        let key = cache.key(&img).unwrap();
+        let thumb = RgbImage::from_fn(64, 48, |x, y| {
+            image::Rgb([(x * 4) as u8, (y * 5) as u8, ((x * y) % 251) as u8])
+        });
+        let digest = (format!("{:064x}", 7), 6);
+        cache.put(&key, [640, 480], &digest, &thumb).unwrap();
+        let whole = std::fs::read(&key).unwrap();
+        assert!(matches!(cache.get(&key), Lookup::Hit(_)));
+        let (_, head): (Header, usize) =
+            bincode::serde::decode_from_slice(&whole[4..], bincode::config::standard()).unwrap();
+        let jpeg_at = 4 + head;
+        assert_eq!(
+            &whole[jpeg_at..jpeg_at + 2],
+            [0xFF, 0xD8],
+            "a JPEG starts there"
+        );
+        let cut = &whole[..jpeg_at + (whole.len() - jpeg_at) * 2 / 3];
+        assert!(
+            image::load_from_memory_with_format(&cut[jpeg_at..], image::ImageFormat::Jpeg).is_ok(),
+            "the decoder accepts the cut JPEG"
+        );
+        std::fs::write(&key, cut).unwrap();
+        assert!(matches!(cache.get(&key), Lookup::Damaged));
+        let mut changed = whole.clone();
+        let mid = jpeg_at + (whole.len() - jpeg_at) / 2;
+        changed[mid] ^= 0x10;
+        std::fs::write(&key, &changed).unwrap();
+        assert!(matches!(cache.get(&key), Lookup::Damaged));
+        std::fs::write(&key, &whole).unwrap();
+        assert!(matches!(cache.get(&key), Lookup::Hit(_)));
     }
 }

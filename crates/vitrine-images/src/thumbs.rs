@@ -46,6 +46,8 @@ pub struct Thumbnailed {
     pub reused: usize,
     /// Cache entries that could not be written.
     pub cache_errors: usize,
+    /// Cache entries found damaged (cut short or changed on disk): made again and replaced.
+    pub cache_damaged: usize,
     /// Per level: sheet file names relative to the atlas.
     pub files: Vec<Vec<String>>,
     pub problems: Vec<ImageProblem>,
@@ -102,9 +104,17 @@ fn largest_thumbnail(
     use std::sync::atomic::Ordering::Relaxed;
     let largest = *plan.cells.last().expect("at least one level");
     let key = cache.and_then(|c| c.key(path));
-    if let Some(e) = cache.zip(key.as_ref()).and_then(|(c, k)| c.get(k)) {
-        counts.reused.fetch_add(1, Relaxed);
-        return (Ok((e.thumb, e.size)), e.digest);
+    if let (Some(c), Some(k)) = (cache, &key) {
+        match c.get(k) {
+            crate::cache::Lookup::Hit(e) => {
+                counts.reused.fetch_add(1, Relaxed);
+                return (Ok((e.thumb, e.size)), e.digest);
+            }
+            crate::cache::Lookup::Damaged => {
+                counts.damaged.fetch_add(1, Relaxed);
+            }
+            crate::cache::Lookup::Missing => {}
+        }
     }
     let bytes = match crate::decode::read_image_file(path) {
         Ok(b) => b,
@@ -120,11 +130,13 @@ fn largest_thumbnail(
     (made, digest)
 }
 
-/// Thumbnails taken from the cache, and cache entries that could not be written.
+/// Thumbnails taken from the cache, cache entries that could not be written, and damaged
+/// entries found (and made again).
 #[derive(Default)]
 struct CacheCounts {
     reused: std::sync::atomic::AtomicUsize,
     errors: std::sync::atomic::AtomicUsize,
+    damaged: std::sync::atomic::AtomicUsize,
 }
 
 /// Encodes RGB pixels as a baseline JPEG (4:2:0) at `quality`.
@@ -287,6 +299,7 @@ pub fn make_sheets(
     Ok(Thumbnailed {
         reused: counts.reused.into_inner(),
         cache_errors: counts.errors.into_inner(),
+        cache_damaged: counts.damaged.into_inner(),
         colours,
         extents,
         sizes,
