@@ -372,7 +372,14 @@ pub fn field_data(
                         field: name.into(),
                         id: id.to_string(),
                         value: v.to_string(),
-                        reason: "not a date this build can read; kept as written, undated".into(),
+                        reason: if crate::dates::beyond_years(t) {
+                            format!(
+                                "a year beyond ±{}; kept as written, undated",
+                                crate::dates::MAX_YEAR
+                            )
+                        } else {
+                            "not a date this build can read; kept as written, undated".into()
+                        },
                     });
                 }
                 ranges.push(r);

@@ -9,13 +9,35 @@
 //! - `before 1600` → 1580–1600 and `after 1600` → 1600–1620 (a twenty-year window, stated here).
 //! - `2023-04-05` (an ISO calendar date) → 2023; `17th c.` and `17th cent.` read as `17th century`.
 //! - A trailing `?` is ignored. Anything else is not a date: the build keeps the text and reports it.
+//! - Years lie within ±9,999 ([`MAX_YEAR`]); a dating beyond (`3000000000s`, `99999`) is not a date
+//!   either, and [`beyond_years`] tells the report why.
 
 pub use vitrine_format::YearRange;
 
-const CIRCA_SPAN: i32 = 5;
-const OPEN_SPAN: i32 = 20;
+const CIRCA_SPAN: i64 = 5;
+const OPEN_SPAN: i64 = 20;
 
+/// The largest year (and, negated, the smallest) a dating may give.
+pub const MAX_YEAR: i32 = 9_999;
+
+/// The year range of a catalogue dating, or None when it is not one (see the module's rule).
 pub fn parse_date(text: &str) -> Option<YearRange> {
+    let (start, end) = parse_any(text)?;
+    let within = |y: i64| y.abs() <= MAX_YEAR as i64;
+    (within(start) && within(end)).then_some(YearRange {
+        start: start as i32,
+        end: end as i32,
+    })
+}
+
+/// Whether `text` is a dating in form whose years lie beyond ±[`MAX_YEAR`].
+pub fn beyond_years(text: &str) -> bool {
+    parse_any(text).is_some() && parse_date(text).is_none()
+}
+
+/// The rule without the bound on years, as (start, end); None as well when a year does not fit
+/// an i64.
+fn parse_any(text: &str) -> Option<(i64, i64)> {
     let t = text.trim().trim_end_matches('?').trim().to_lowercase();
     if t.is_empty() {
         return None;
@@ -25,25 +47,16 @@ pub fn parse_date(text: &str) -> Option<YearRange> {
     ] {
         if let Some(rest) = t.strip_prefix(prefix) {
             let y = year(rest.trim())?;
-            return Some(YearRange {
-                start: y - CIRCA_SPAN,
-                end: y + CIRCA_SPAN,
-            });
+            return Some((y - CIRCA_SPAN, y + CIRCA_SPAN));
         }
     }
     if let Some(rest) = t.strip_prefix("before ") {
         let y = year(rest.trim())?;
-        return Some(YearRange {
-            start: y - OPEN_SPAN,
-            end: y,
-        });
+        return Some((y - OPEN_SPAN, y));
     }
     if let Some(rest) = t.strip_prefix("after ") {
         let y = year(rest.trim())?;
-        return Some(YearRange {
-            start: y,
-            end: y + OPEN_SPAN,
-        });
+        return Some((y, y + OPEN_SPAN));
     }
     // ISO calendar dates (2023-04-05) keep their year.
     let parts: Vec<&str> = t.split('-').collect();
@@ -54,20 +67,18 @@ pub fn parse_date(text: &str) -> Option<YearRange> {
             parts[2].parse::<u32>(),
         ) {
             if (1..=12).contains(&m) && (1..=31).contains(&d) {
-                return Some(YearRange { start: y, end: y });
+                return Some((y as i64, y as i64));
             }
         }
     }
     if let Some(r) = century(&t) {
-        return Some(r);
+        return Some((r.start as i64, r.end as i64));
     }
     if let Some(d) = t.strip_suffix("0s") {
-        let decade: i32 = d.parse().ok()?;
+        let decade: i64 = d.parse().ok()?;
         if d.len() >= 3 {
-            return Some(YearRange {
-                start: decade * 10,
-                end: decade * 10 + 9,
-            });
+            let start = decade.checked_mul(10)?;
+            return Some((start, start.checked_add(9)?));
         }
         return None;
     }
@@ -81,7 +92,7 @@ pub fn parse_date(text: &str) -> Option<YearRange> {
             let mut end = year(b)?;
             // "1550-75": the end shares the start's leading digits.
             if b.len() < a.len() && b.chars().all(|c| c.is_ascii_digit()) && start >= 0 {
-                let scale = 10i32.pow(b.len() as u32);
+                let scale = 10i64.pow(b.len() as u32);
                 end += start - start % scale;
                 if end < start {
                     end += scale;
@@ -90,18 +101,19 @@ pub fn parse_date(text: &str) -> Option<YearRange> {
             if end < start {
                 return None;
             }
-            return Some(YearRange { start, end });
+            return Some((start, end));
         }
     }
     let y = year(&t)?;
-    Some(YearRange { start: y, end: y })
+    Some((y, y))
 }
 
-fn year(s: &str) -> Option<i32> {
+/// One year as written (at most five characters, or a BC year below 10,000).
+fn year(s: &str) -> Option<i64> {
     let s = s.trim();
     for suffix in [" bce", " bc", "bce", "bc"] {
         if let Some(n) = s.strip_suffix(suffix) {
-            let y: i32 = n.trim().parse().ok()?;
+            let y: i64 = n.trim().parse().ok()?;
             return (y > 0 && y < 10000).then_some(-y);
         }
     }
@@ -213,5 +225,32 @@ mod tests {
         assert_eq!(parse_date("undated"), None);
         assert_eq!(parse_date("12.5"), None);
         assert_eq!(parse_date(""), None);
+    }
+
+    #[test]
+    fn years_beyond_the_bound_are_not_dates_and_say_so() {
+        assert_eq!(parse_date("9999"), r(9999, 9999));
+        assert_eq!(parse_date("-9999"), r(-9999, -9999));
+        assert_eq!(parse_date("9990s"), r(9990, 9999));
+        for far in [
+            "3000000000s",
+            "99999",
+            "10000",
+            "-10000",
+            "c. 9999",
+            "after 9990",
+        ] {
+            assert_eq!(parse_date(far), None, "{far}");
+        }
+        for far in ["3000000000s", "99999", "10000", "c. 9999", "after 9990"] {
+            assert!(beyond_years(far), "{far}");
+        }
+        // Not datings at all, and years past what an i32 holds: no overflow, no dating.
+        assert!(!beyond_years("undated"));
+        assert!(!beyond_years("1602"));
+        assert_eq!(parse_date("9999 BC"), r(-9999, -9999));
+        assert_eq!(parse_date("300000000000000000000s"), None);
+        assert!(!beyond_years("300000000000000000000s"));
+        assert_eq!(parse_date("2147483640s"), None);
     }
 }

@@ -348,11 +348,17 @@ fn find_images(
         .collect())
 }
 
-/// Every file below `dir`, sorted (folders that cannot be read are passed over).
+/// Every file below `dir`, sorted (folders that cannot be read are passed over). Links to folders
+/// are followed, each folder once: a folder reached again (a link to a parent, two links to one
+/// folder) is passed over, so links in a loop end the walk instead of sending it on forever.
 pub fn walk(dir: &Path) -> Vec<PathBuf> {
     let mut out = Vec::new();
+    let mut seen = std::collections::HashSet::new();
     let mut stack = vec![dir.to_path_buf()];
     while let Some(d) = stack.pop() {
+        if !seen.insert(folder_identity(&d)) {
+            continue;
+        }
         let Ok(rd) = std::fs::read_dir(&d) else {
             continue;
         };
@@ -368,4 +374,24 @@ pub fn walk(dir: &Path) -> Vec<PathBuf> {
     }
     out.sort();
     out
+}
+
+/// What makes a folder the same folder however it is reached: its device and inode on Unix,
+/// its canonical path elsewhere.
+#[cfg(unix)]
+fn folder_identity(d: &Path) -> (u64, u64, PathBuf) {
+    use std::os::unix::fs::MetadataExt;
+    match std::fs::metadata(d) {
+        Ok(m) => (m.dev(), m.ino(), PathBuf::new()),
+        Err(_) => (0, 0, d.to_path_buf()),
+    }
+}
+
+#[cfg(not(unix))]
+fn folder_identity(d: &Path) -> (u64, u64, PathBuf) {
+    (
+        0,
+        0,
+        std::fs::canonicalize(d).unwrap_or_else(|_| d.to_path_buf()),
+    )
 }

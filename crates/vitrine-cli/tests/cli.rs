@@ -1442,6 +1442,74 @@ fn a_rebuild_reuses_the_thumbnails_of_unchanged_images_and_remakes_the_rest() {
     assert_eq!(build("mended", Some("cache")), (0, 31));
 }
 
+/// Links in a loop inside `--images` (two links to the folder itself, one to its parent's view of
+/// it) used to send the walk on forever; each folder is now walked once. The build is given a
+/// deadline so that the old behaviour fails the test instead of hanging it.
+#[cfg(unix)]
+#[test]
+fn links_in_a_loop_in_the_images_folder_are_walked_once() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let img = d.join("images");
+    std::fs::create_dir_all(img.join("sub")).unwrap();
+    let n = 6;
+    for i in 0..n {
+        let at = if i % 2 == 0 {
+            img.join(format!("p{i}.png"))
+        } else {
+            img.join(format!("sub/p{i}.png"))
+        };
+        image::RgbImage::from_pixel(20, 10 + i as u32, image::Rgb([40 * i as u8, 90, 200]))
+            .save(at)
+            .unwrap();
+    }
+    std::os::unix::fs::symlink(".", img.join("a")).unwrap();
+    std::os::unix::fs::symlink(".", img.join("b")).unwrap();
+    std::os::unix::fs::symlink("../../images", img.join("sub/up")).unwrap();
+    let data: Vec<f32> = (0..n * 3).map(|i| ((i * 5) % 7) as f32).collect();
+    write_npy_f32(&d.join("vectors.npy"), n, 3, &data).unwrap();
+    let ids: String = (0..n).map(|i| format!("p{i}\n")).collect();
+    std::fs::write(d.join("records.csv"), format!("id\n{ids}")).unwrap();
+    let mut child = common::quick_build()
+        .current_dir(d)
+        .args([
+            "--vectors",
+            "vectors.npy",
+            "--catalogue",
+            "records.csv",
+            "--images",
+            "images",
+        ])
+        .args(["--out", "atlas", "--no-thumb-cache"])
+        .stdout(std::process::Stdio::null())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    let deadline = std::time::Instant::now() + std::time::Duration::from_secs(60);
+    let status = loop {
+        if let Some(s) = child.try_wait().unwrap() {
+            break s;
+        }
+        if std::time::Instant::now() > deadline {
+            child.kill().unwrap();
+            panic!("the build was still walking the images folder after 60 s");
+        }
+        std::thread::sleep(std::time::Duration::from_millis(50));
+    };
+    let mut err = String::new();
+    child
+        .stderr
+        .take()
+        .unwrap()
+        .read_to_string(&mut err)
+        .unwrap();
+    assert!(status.success(), "{err}");
+    let r: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(d.join("atlas/build-report.json")).unwrap())
+            .unwrap();
+    assert_eq!(r["thumbnails_made"], n as u64, "{r}");
+}
+
 #[test]
 fn approximate_graph_records_how_the_search_ran() {
     // Points of an isotropic Gaussian in 32 dimensions (Box-Muller on a fixed pseudo-random
