@@ -17,8 +17,7 @@ pub use vitrine_format::YearRange;
 const CIRCA_SPAN: i64 = 5;
 const OPEN_SPAN: i64 = 20;
 
-/// The largest year (and, negated, the smallest) a dating may give.
-pub const MAX_YEAR: i32 = 9_999;
+pub use vitrine_format::MAX_YEAR;
 
 /// The year range of a catalogue dating, or None when it is not one (see the module's rule).
 pub fn parse_date(text: &str) -> Option<YearRange> {

@@ -1510,6 +1510,55 @@ fn links_in_a_loop_in_the_images_folder_are_walked_once() {
     assert_eq!(r["thumbnails_made"], n as u64, "{r}");
 }
 
+/// A crafted atlas whose sheet level has 65,536 x 65,536 cells (the product wraps to 0 in u32,
+/// which a reader would divide by) is refused when opened, naming the level.
+#[test]
+fn a_sheet_level_larger_than_a_jpeg_can_be_is_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    std::fs::create_dir_all(d.join("images")).unwrap();
+    for i in 0..4 {
+        image::RgbImage::from_pixel(16, 12, image::Rgb([60 * i as u8, 90, 200]))
+            .save(d.join(format!("images/p{i}.png")))
+            .unwrap();
+    }
+    let data: Vec<f32> = (0..12).map(|i| ((i * 5) % 7) as f32).collect();
+    write_npy_f32(&d.join("vectors.npy"), 4, 3, &data).unwrap();
+    std::fs::write(d.join("records.csv"), "id\np0\np1\np2\np3\n").unwrap();
+    let o = common::quick_build()
+        .current_dir(d)
+        .args([
+            "--vectors",
+            "vectors.npy",
+            "--catalogue",
+            "records.csv",
+            "--images",
+            "images",
+        ])
+        .args(["--out", "atlas", "--no-thumb-cache"])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", stderr(&o));
+    let inspect = || {
+        common::vitrine()
+            .arg("inspect")
+            .arg(d.join("atlas"))
+            .output()
+            .unwrap()
+    };
+    assert!(inspect().status.success(), "{}", stderr(&inspect()));
+    let path = d.join("atlas/atlas.json");
+    let mut m: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&path).unwrap()).unwrap();
+    let level = &mut m["sheets"]["levels"][0];
+    level["columns"] = 65_536.into();
+    level["rows"] = 65_536.into();
+    std::fs::write(&path, m.to_string()).unwrap();
+    let o = inspect();
+    assert!(!o.status.success());
+    assert!(stderr(&o).contains("is not a sheet"), "{}", stderr(&o));
+}
+
 #[test]
 fn approximate_graph_records_how_the_search_ran() {
     // Points of an isotropic Gaussian in 32 dimensions (Box-Muller on a fixed pseudo-random

@@ -1,6 +1,8 @@
 //! The catalogue columns of an atlas, decoded: what filters read and exports write.
 
-use vitrine_format::{ArrayRef, AtlasError, AtlasFiles, Field, FieldKind, Manifest, TextTable};
+use vitrine_format::{
+    ArrayRef, AtlasError, AtlasFiles, Field, FieldKind, Manifest, TextTable, MAX_YEAR,
+};
 
 pub enum Column {
     Category(Vec<u32>),
@@ -81,6 +83,21 @@ impl FieldColumn {
     }
 }
 
+/// Datings no build writes — a year beyond ±[`MAX_YEAR`], an end before its start, one end
+/// missing — are taken as undated, so that a damaged or crafted atlas cannot make a reader size
+/// anything by its span of years.
+fn undate_the_impossible(start: &mut [i32], end: &mut [i32]) {
+    let year = |y: i32| (-MAX_YEAR..=MAX_YEAR).contains(&y);
+    for (s, e) in start.iter_mut().zip(end.iter_mut()) {
+        if *s == i32::MIN && *e == i32::MIN {
+            continue;
+        }
+        if !year(*s) || !year(*e) || *e < *s {
+            (*s, *e) = (i32::MIN, i32::MIN);
+        }
+    }
+}
+
 /// Decodes every catalogue field of `m` from its array files.
 pub fn decode_fields(m: &Manifest, files: &AtlasFiles) -> Result<Vec<FieldColumn>, AtlasError> {
     let text = |a: &ArrayRef, b: &ArrayRef| files.text(a, b, m.item_count);
@@ -94,10 +111,10 @@ pub fn decode_fields(m: &Manifest, files: &AtlasFiles) -> Result<Vec<FieldColumn
             FieldKind::Number => Column::Number(files.array(&f.column)?),
             FieldKind::Date => {
                 let end = f.column2.as_ref().ok_or_else(|| missing(f, "end-year"))?;
-                Column::Date {
-                    start: files.array(&f.column)?,
-                    end: files.array(end)?,
-                }
+                let (mut start, mut end): (Vec<i32>, Vec<i32>) =
+                    (files.array(&f.column)?, files.array(end)?);
+                undate_the_impossible(&mut start, &mut end);
+                Column::Date { start, end }
             }
             FieldKind::Text | FieldKind::Link => {
                 let bytes = f.column2.as_ref().ok_or_else(|| missing(f, "byte"))?;
@@ -116,4 +133,19 @@ pub fn decode_fields(m: &Manifest, files: &AtlasFiles) -> Result<Vec<FieldColumn
         });
     }
     Ok(fields)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn datings_no_build_writes_are_read_as_undated() {
+        let m = i32::MIN;
+        let mut start = vec![1500, -9999, 10_000, -2_000_000_000, 1600, m, 1500, m];
+        let mut end = vec![1599, 9999, 10_000, 1500, 1599 - 200, m, m, 1500];
+        undate_the_impossible(&mut start, &mut end);
+        assert_eq!(start, [1500, -9999, m, m, m, m, m, m]);
+        assert_eq!(end, [1599, 9999, m, m, m, m, m, m]);
+    }
 }

@@ -29,14 +29,16 @@ pub fn bin_years(lo: i32, hi: i32, max_bins: usize) -> i32 {
 }
 
 impl Histogram {
-    /// Empty bins covering `lo..=hi` in steps of `bin` years, starting at a multiple of `bin`.
+    /// Empty bins covering `lo..=hi` in steps of `bin` years, starting at a multiple of `bin`
+    /// (clamped to what an i32 holds).
     pub fn covering(lo: i32, hi: i32, bin: i32) -> Histogram {
-        let bin = bin.max(1);
-        let from = lo.div_euclid(bin) * bin;
-        let bins = ((hi - from).div_euclid(bin) + 1).max(1) as usize;
+        let bin = bin.max(1) as i64;
+        let from = (lo as i64).div_euclid(bin) * bin;
+        let from = from.max(i32::MIN as i64);
+        let bins = ((hi as i64 - from).div_euclid(bin) + 1).max(1) as usize;
         Histogram {
-            from,
-            bin,
+            from: from as i32,
+            bin: bin as i32,
             counts: vec![0.0; bins],
         }
     }
@@ -44,15 +46,15 @@ impl Histogram {
     /// Adds the items (by index) with their ranges `start[i]..=end[i]`; undated items
     /// (`i32::MIN`) are left out. Years outside the bins are clamped into the first or last.
     ///
-    /// Each item costs the same whatever its range: its weight per year goes into a difference
-    /// array over the years the bins cover (+w at its first year, -w after its last), whose
-    /// running sum is then the weight of every year.
+    /// Each item costs the same whatever its range, and the memory is that of the bins whatever
+    /// the span of years: an item's weight per year goes straight into the (at most two) bins its
+    /// range covers in part, and into a difference array over the bins it covers whole (+w·bin at
+    /// the first, −w·bin after the last), whose running sum is then added.
     pub fn add(&mut self, start: &[i32], end: &[i32], items: impl Iterator<Item = usize>) {
         let nb = self.counts.len();
         let (from, bin) = (self.from as i64, self.bin as i64);
-        let years_covered = nb * self.bin as usize;
-        let last = from + years_covered as i64 - 1;
-        let mut diff = vec![0.0f64; years_covered + 1];
+        let last = from + nb as i64 * bin - 1;
+        let mut whole = vec![0.0f64; nb + 1];
         let (mut under, mut over) = (0.0f64, 0.0f64);
         for i in items {
             let (s, e) = (start[i] as i64, end[i] as i64);
@@ -67,15 +69,25 @@ impl Histogram {
                 over += (e - s.max(last + 1) + 1) as f64 * w;
             }
             let (lo, hi) = (s.max(from), e.min(last));
-            if lo <= hi {
-                diff[(lo - from) as usize] += w;
-                diff[(hi - from + 1) as usize] -= w;
+            if lo > hi {
+                continue;
+            }
+            let (bl, bh) = ((lo - from) / bin, (hi - from) / bin);
+            if bl == bh {
+                self.counts[bl as usize] += (hi - lo + 1) as f64 * w;
+                continue;
+            }
+            self.counts[bl as usize] += (from + (bl + 1) * bin - lo) as f64 * w;
+            self.counts[bh as usize] += (hi - (from + bh * bin) + 1) as f64 * w;
+            if bh > bl + 1 {
+                whole[bl as usize + 1] += w * bin as f64;
+                whole[bh as usize] -= w * bin as f64;
             }
         }
-        let mut per_year = 0.0;
-        for (y, d) in diff[..years_covered].iter().enumerate() {
-            per_year += d;
-            self.counts[y / bin as usize] += per_year;
+        let mut per_bin = 0.0;
+        for (c, d) in self.counts.iter_mut().zip(&whole) {
+            per_bin += d;
+            *c += per_bin;
         }
         self.counts[0] += under;
         self.counts[nb - 1] += over;
@@ -87,8 +99,9 @@ impl Histogram {
 
     /// The years bin `b` covers.
     pub fn years(&self, b: usize) -> (i32, i32) {
-        let a = self.from + b as i32 * self.bin;
-        (a, a + self.bin - 1)
+        let a = self.from as i64 + b as i64 * self.bin as i64;
+        let clamp = |y: i64| y.clamp(i32::MIN as i64, i32::MAX as i64) as i32;
+        (clamp(a), clamp(a + self.bin as i64 - 1))
     }
 }
 
@@ -156,6 +169,25 @@ mod tests {
                 );
             }
         }
+    }
+
+    #[test]
+    fn the_widest_span_of_years_costs_only_its_bins() {
+        // Years from one end of an i32 to the other (a crafted atlas): the bins stay as few as
+        // asked, nothing overflows, and the bars still sum to the dated items.
+        let (lo, hi) = (i32::MIN + 1, i32::MAX);
+        let bin = bin_years(lo, hi, 300);
+        let mut h = Histogram::covering(lo, hi, bin);
+        assert!(h.counts.len() <= 302, "{} bins", h.counts.len());
+        let start = [lo, -5, 1500, hi - 10, i32::MIN];
+        let end = [lo + 3, 7, 1599, hi, i32::MIN];
+        h.add(&start, &end, 0..5);
+        assert!((h.total() - 4.0).abs() < 1e-9, "{}", h.total());
+        let (a, b) = h.years(h.counts.len() - 1);
+        assert!(
+            a <= hi && b == hi,
+            "the last bin {a}..{b} holds the last year"
+        );
     }
 
     #[test]

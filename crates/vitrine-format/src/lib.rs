@@ -121,6 +121,10 @@ pub struct YearRange {
     pub end: i32,
 }
 
+/// The largest year a dating may give (and, negated, the smallest): the build reads nothing beyond,
+/// and a reader takes a dating beyond as undated.
+pub const MAX_YEAR: i32 = 9_999;
+
 /// A thumbnail extent as the `extents` array packs it (width | height << 16), unpacked.
 pub fn unpack_extent(e: u32) -> (u16, u16) {
     ((e & 0xFFFF) as u16, (e >> 16) as u16)
@@ -621,6 +625,15 @@ impl Manifest {
                 want(sizes, 2 * n, DType::U32)?;
             }
             for l in &s.levels {
+                // A sheet is one JPEG, at most 65,535 pixels a side, so a level's cell count
+                // (and every product of its sizes a reader forms in u32) stays far below 2^32.
+                let side = |k: u32| k as u64 * l.cell as u64;
+                if l.cell == 0 || side(l.columns) > 65_535 || side(l.rows) > 65_535 {
+                    return Err(AtlasError::Inconsistent(format!(
+                        "sheet level {}: {} x {} cells of {} pixels is not a sheet (at most 65,535 pixels a side)",
+                        l.cell, l.columns, l.rows, l.cell
+                    )));
+                }
                 let per = (l.columns as u64) * (l.rows as u64);
                 if per == 0 || (l.files.len() as u64) < n.div_ceil(per) {
                     return Err(AtlasError::Inconsistent(format!(
