@@ -176,8 +176,36 @@ fn is_image_link(s: &str) -> bool {
     is_web_link(s) && IMAGE_ENDINGS.iter().any(|e| u.ends_with(e))
 }
 
+/// A language map with no language, holding `s` as plain text for an IIIF client.
 fn lang_none(s: &str) -> Value {
-    json!({ "none": [s] })
+    json!({ "none": [iiif_text(s)] })
+}
+
+/// Plain text as an IIIF Presentation 3 property value. The specification ("HTML Markup in
+/// Property Values", section 4.4 — rule stated from memory) has clients take a value whose first
+/// character is `<` and last is `>` as HTML; a catalogue value shaped so (`<script>…</script>`,
+/// `<img src=x onerror=…>`, or innocent text such as `<untitled>`) would then be read as markup.
+/// Such a value is written as HTML that shows the text: escaped and wrapped in a `<span>`, one of
+/// the elements the specification lets clients keep. Other text stays as it is.
+pub fn iiif_text(s: &str) -> String {
+    let t = s.trim();
+    if !(t.starts_with('<') && t.ends_with('>')) {
+        return s.to_string();
+    }
+    let mut out = String::with_capacity(s.len() + 32);
+    out.push_str("<span>");
+    for c in s.chars() {
+        match c {
+            '&' => out.push_str("&amp;"),
+            '<' => out.push_str("&lt;"),
+            '>' => out.push_str("&gt;"),
+            '"' => out.push_str("&quot;"),
+            '\'' => out.push_str("&#39;"),
+            c => out.push(c),
+        }
+    }
+    out.push_str("</span>");
+    out
 }
 
 /// What an IIIF export needs besides the corpus.
@@ -347,6 +375,29 @@ mod tests {
             assert_eq!(sheet(ok, false), ok);
         }
         assert_eq!(cell("=1+1", false, CsvStyle::Exact), "=1+1");
+    }
+
+    #[test]
+    fn text_an_iiif_client_would_take_for_html_is_written_as_escaped_html() {
+        assert_eq!(iiif_text("Harbour at dusk"), "Harbour at dusk");
+        assert_eq!(iiif_text("a <b> in the middle"), "a <b> in the middle");
+        assert_eq!(
+            iiif_text("<img src=x onerror=alert(1)>"),
+            "<span>&lt;img src=x onerror=alert(1)&gt;</span>"
+        );
+        assert_eq!(
+            iiif_text(" <script>alert('x')</script> "),
+            "<span> &lt;script&gt;alert(&#39;x&#39;)&lt;/script&gt; </span>"
+        );
+        assert_eq!(
+            iiif_text("<untitled & \"lost\">"),
+            "<span>&lt;untitled &amp; &quot;lost&quot;&gt;</span>"
+        );
+        // Every value of a Manifest goes through it.
+        assert_eq!(
+            lang_none("<b>x</b>"),
+            json!({ "none": ["<span>&lt;b&gt;x&lt;/b&gt;</span>"] })
+        );
     }
 
     #[test]
