@@ -46,7 +46,7 @@ build_viewer() {
   wasm-bindgen --target web --no-typescript --out-dir target/viewer/viewer \
     target/wasm32-unknown-unknown/wasm-release/vitrine_web.wasm
   cp web/index.html target/viewer/
-  cp web/loader.js web/style.css target/viewer/viewer/
+  cp web/loader.js web/file-notice.js web/style.css target/viewer/viewer/
 }
 
 setup_wasm_bindgen() {

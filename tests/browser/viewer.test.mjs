@@ -103,6 +103,9 @@ async function newPage(url) {
   page.on("pageerror", (e) => errors.push(String(e)));
   page.on("console", (m) => { if (m.type() === "error") errors.push(m.text()); });
   await page.addInitScript(() => performance.setResourceTimingBufferSize(100000));
+  // Anything the page's Content-Security-Policy refuses is an error of the test.
+  await page.addInitScript(() => document.addEventListener("securitypolicyviolation",
+    (e) => console.error(`CSP refused ${e.blockedURI || "inline"} (${e.violatedDirective})`)));
   await page.goto(url);
   return { page, errors };
 }
@@ -793,6 +796,41 @@ test("by keyboard alone: named controls, the record nearest the centre, focus in
   });
   assert.ok(far < 5 || between.length >= 1, `no frame between the two places (${far.toFixed(0)} px apart)`);
   assert.deepEqual(errors, []);
+});
+
+test("the page's Content-Security-Policy allows no inline script, no eval and no other origin, and the viewer runs under it", async () => {
+  const url = await serve(ATLAS);
+  const { page, errors } = await newPage(url);
+  await page.waitForFunction(() => document.body.dataset.state === "ready", null, { timeout: 60000 });
+  await settle(page);
+  const csp = await page.evaluate(() =>
+    document.querySelector('meta[http-equiv="Content-Security-Policy"]').content);
+  for (const want of ["default-src 'self'", "script-src 'self' 'wasm-unsafe-eval'", "style-src 'self'",
+    "connect-src 'self'", "object-src 'none'", "base-uri 'none'"]) {
+    assert.ok(csp.includes(want), `${want} in ${csp}`);
+  }
+  assert.ok(!/unsafe-inline|'unsafe-eval'/.test(csp), csp);
+  // The viewer loaded, drew, opened the legend (its colour swatches are styled from code) and
+  // fetched its sheets without a single refusal.
+  await page.selectOption("#colour-choice", { label: "subject" });
+  await page.waitForFunction(() => document.body.dataset.colour === "subject");
+  assert.equal(await page.evaluate(() =>
+    getComputedStyle(document.querySelector("#legend .swatch")).backgroundColor), "rgb(230, 159, 0)");
+  assert.deepEqual(errors, []);
+  // The policy is in force: an injected inline script does not run. (Eval cannot be tried from
+  // here: the test's own evaluation is exempt from the page's policy; the policy's text above
+  // allows none.)
+  const ran = await page.evaluate(() => {
+    const s = document.createElement("script");
+    s.textContent = "window.injected = 1";
+    document.head.append(s);
+    return window.injected === 1;
+  });
+  assert.equal(ran, false, "an inline script ran");
+  await page.waitForTimeout(200);
+  assert.ok(errors.some((e) => e.startsWith("CSP refused inline") || e.includes("Content Security Policy")),
+    errors.join("\n"));
+  await page.close();
 });
 
 test("a folder without an atlas and a page opened from a file say what to do", async () => {

@@ -686,7 +686,9 @@ fn show_legend(legend: Option<(String, vitrine_view::colour::Legend)>) {
         r.set_class_name("swatch-row");
         let sw = doc.create_element("span").unwrap();
         sw.set_class_name("swatch");
-        let _ = sw.set_attribute("style", &format!("background:{}", hex(colour)));
+        if let Some(sw) = sw.dyn_ref::<web_sys::HtmlElement>() {
+            let _ = sw.style().set_property("background", &hex(colour));
+        }
         let t = doc.create_element("span").unwrap();
         t.set_text_content(Some(text));
         let _ = r.append_child(&sw);
@@ -706,10 +708,10 @@ fn show_legend(legend: Option<(String, vitrine_view::colour::Legend)>) {
             let bar = doc.create_element("div").unwrap();
             bar.set_class_name("ramp");
             let stops: Vec<String> = stops.iter().map(|&c| hex(c)).collect();
-            let _ = bar.set_attribute(
-                "style",
-                &format!("background:linear-gradient(to right,{})", stops.join(",")),
-            );
+            if let Some(bar) = bar.dyn_ref::<web_sys::HtmlElement>() {
+                let gradient = format!("linear-gradient(to right,{})", stops.join(","));
+                let _ = bar.style().set_property("background", &gradient);
+            }
             let _ = box_.append_child(&bar);
             let ends = doc.create_element("div").unwrap();
             ends.set_class_name("ramp-ends");

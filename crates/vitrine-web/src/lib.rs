@@ -159,19 +159,22 @@ async fn fetch_many(
 /// after another would leave later bodies unread, and a host that writes responses in turn would
 /// then wait on the page while the page waits on it.
 fn start_fetches(base: &str, files: &[(String, u64)]) -> Result<js_sys::Promise, String> {
-    let read_all = js_sys::Function::new_with_args(
-        "urls",
-        "return Promise.all(urls.map(u => fetch(u).then(r => r.ok ? r.arrayBuffer() \
-         : Promise.reject(new Error(u + ': HTTP ' + r.status)))))",
-    );
-    let urls = js_sys::Array::new();
+    let window = web_sys::window().ok_or("no window")?;
+    let all = js_sys::Array::new();
     for (f, _) in files {
-        urls.push(&JsValue::from_str(&format!("{base}{f}")));
+        let url = format!("{base}{f}");
+        // The request starts here; its body is read by its own task as soon as it answers.
+        let request = window.fetch_with_str(&url);
+        all.push(&wasm_bindgen_futures::future_to_promise(async move {
+            let resp: web_sys::Response = JsFuture::from(request).await?.dyn_into()?;
+            if !resp.ok() {
+                let e = js_sys::Error::new(&format!("{url}: HTTP {}", resp.status()));
+                return Err(e.into());
+            }
+            JsFuture::from(resp.array_buffer()?).await
+        }));
     }
-    let all = read_all
-        .call1(&JsValue::NULL, &urls)
-        .map_err(|e| format!("{base}: {e:?}"))?;
-    Ok(js_sys::Promise::from(all))
+    Ok(js_sys::Promise::all(&all))
 }
 
 async fn fetched_many(
