@@ -32,9 +32,12 @@ enum Command {
 }
 
 fn main() -> ExitCode {
-    vitrine_cli::keep_freed_memory();
     let done = match Cli::parse().command {
-        Command::Build(a) => build::run(a),
+        Command::Build(a) => {
+            vitrine_cli::keep_freed_memory();
+            build::run(a)
+        }
+        // The server gives back what its connections freed (it runs for days).
         Command::Serve(a) => serve::run(a),
         Command::Inspect(a) => inspect::run(a),
         Command::Export(a) => export::run(a),
