@@ -35,6 +35,10 @@ pub fn read_csv(path: &Path, id_column: &str) -> Result<Catalogue, InputError> {
     parse_csv(&raw, path, id_column)
 }
 
+/// The most columns a catalogue may have, and the longest column name (in characters).
+pub const MAX_COLUMNS: usize = 1_000;
+pub const MAX_COLUMN_NAME: usize = 200;
+
 pub fn parse_csv(raw: &[u8], path: &Path, id_column: &str) -> Result<Catalogue, InputError> {
     let file = path.display().to_string();
     let bad = |reason: String| InputError::Catalogue {
@@ -59,6 +63,27 @@ pub fn parse_csv(raw: &[u8], path: &Path, id_column: &str) -> Result<Catalogue, 
         .collect::<Result<_, _>>()?;
     if header.is_empty() || header.iter().all(|h| h.is_empty()) {
         return Err(bad("the file has no header row".into()));
+    }
+    // Each column becomes a field with its own files and a filter in the viewer: a header of tens
+    // of thousands of columns is a damaged or wrong file, not a catalogue.
+    if header.len() > MAX_COLUMNS {
+        return Err(bad(format!(
+            "the header row has {} columns; a catalogue may have at most {MAX_COLUMNS} (is this the \
+             right file, and is it comma-separated?)",
+            header.len()
+        )));
+    }
+    if let Some((i, h)) = header
+        .iter()
+        .enumerate()
+        .find(|(_, h)| h.chars().count() > MAX_COLUMN_NAME)
+    {
+        return Err(bad(format!(
+            "header column {} has a name of {} characters; at most {MAX_COLUMN_NAME}: {:?}...",
+            i + 1,
+            h.chars().count(),
+            h.chars().take(40).collect::<String>()
+        )));
     }
     let mut seen = HashMap::new();
     for (i, h) in header.iter().enumerate() {
@@ -506,5 +531,32 @@ mod inference_tests {
             .unwrap_err()
             .to_string();
         assert!(e.contains("semicolons"), "{e}");
+    }
+
+    #[test]
+    fn too_many_columns_or_too_long_a_name_is_refused_with_the_count() {
+        let mut wide = String::from("id");
+        for c in 0..MAX_COLUMNS {
+            wide.push_str(&format!(",c{c}"));
+        }
+        wide.push_str("\n1");
+        wide.push_str(&",x".repeat(MAX_COLUMNS));
+        wide.push('\n');
+        let e = parse_csv(wide.as_bytes(), Path::new("wide.csv"), "id")
+            .err()
+            .unwrap()
+            .to_string();
+        assert!(e.contains("wide.csv") && e.contains("1001 columns"), "{e}");
+        let ok = format!("id,{}\n1,x\n", "n".repeat(MAX_COLUMN_NAME));
+        assert!(parse_csv(ok.as_bytes(), Path::new("n.csv"), "id").is_ok());
+        let long = format!("id,{}\n1,x\n", "n".repeat(MAX_COLUMN_NAME + 1));
+        let e = parse_csv(long.as_bytes(), Path::new("n.csv"), "id")
+            .err()
+            .unwrap()
+            .to_string();
+        assert!(
+            e.contains("header column 2") && e.contains("201 characters"),
+            "{e}"
+        );
     }
 }

@@ -36,7 +36,15 @@ fn serve_stays_up_and_answers_under_load_and_hostile_clients() {
             "--images",
             "images",
         ])
-        .args(["--out", "atlas", "--no-thumb-cache", "--levels", "16,64", "--sheet-size", "64"])
+        .args([
+            "--out",
+            "atlas",
+            "--no-thumb-cache",
+            "--levels",
+            "16,64",
+            "--sheet-size",
+            "64",
+        ])
         .output()
         .unwrap();
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
