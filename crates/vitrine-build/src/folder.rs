@@ -1,7 +1,8 @@
-//! The atlas folder on disk: what may be replaced, the temporary sibling a build writes into, the
-//! rename that puts it in place, and the viewer files copied into it.
+//! The atlas folder on disk: what may be replaced, the lock a build holds on it, the temporary sibling
+//! a build writes into (and those interrupted builds left), the swap that puts it in place, and the
+//! viewer files copied into it.
 
-use std::path::{Path, PathBuf};
+use std::path::{Component, Path, PathBuf};
 
 use anyhow::{bail, Context, Result};
 use vitrine_format::{FORMAT_NAME, MANIFEST_FILE};
@@ -22,6 +23,7 @@ pub const ATLAS_ENTRIES: &[&str] = &[
 /// Refuses to replace a folder unless it is empty or an atlas holding only what a build writes, so that
 /// a mistyped --out, or files a user put into an atlas, are never deleted.
 pub fn check_out(out: &Path) -> Result<()> {
+    out_parts(out)?;
     if !out.exists() {
         return Ok(());
     }
@@ -61,29 +63,213 @@ pub fn check_out(out: &Path) -> Result<()> {
     Ok(())
 }
 
-/// A hidden folder beside `out` for a build under way (`what`: building) or an atlas moved aside (old).
-pub fn tmp_sibling(out: &Path, what: &str) -> PathBuf {
-    let name = out
-        .file_name()
-        .map(|s| s.to_string_lossy().to_string())
-        .unwrap_or_else(|| "atlas".into());
-    out.with_file_name(format!(".{name}.{what}-{}", std::process::id()))
+/// The folder `out` sits in and its name; refused when `out` does not end in a name (`.`, `..`,
+/// `/`), which a build could not put a finished atlas in place of.
+pub fn out_parts(out: &Path) -> Result<(PathBuf, String)> {
+    let name = match out.components().next_back() {
+        Some(Component::Normal(n)) => n.to_string_lossy().to_string(),
+        _ => bail!(
+            "--out {}: name the atlas folder itself (for the folder you are in, give ../ and its name)",
+            out.display()
+        ),
+    };
+    let parent = out
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
+    Ok((parent.to_path_buf(), name))
 }
 
-/// Puts the finished folder in place: the old atlas (if any) is moved aside first and removed after.
+/// A hidden folder beside `out` for a build under way (`what`: building) or an atlas moved aside (old).
+pub fn tmp_sibling(out: &Path, what: &str) -> PathBuf {
+    let (parent, name) = out_parts(out).unwrap_or_else(|_| (PathBuf::from("."), "atlas".into()));
+    parent.join(format!(".{name}.{what}-{}", std::process::id()))
+}
+
+/// The lock a build holds on its `--out` from start to end (a hidden `.NAME.lock` beside it): a
+/// second build into the same folder is refused while the first runs. The system releases it
+/// when the process ends however it ends; a build that ends normally also removes the file.
+pub struct OutLock {
+    file: std::fs::File,
+    path: PathBuf,
+}
+
+impl Drop for OutLock {
+    fn drop(&mut self) {
+        // Removed while still locked; a build that opened the file just before and locks it just
+        // after sees, by [`lock_out`]'s check, that it locked a file no longer there, and tries again.
+        let _ = std::fs::remove_file(&self.path);
+        let _ = self.file.unlock();
+    }
+}
+
+/// Takes the lock on `out`, or says that another build holds it.
+pub fn lock_out(out: &Path) -> Result<OutLock> {
+    let (parent, name) = out_parts(out)?;
+    std::fs::create_dir_all(&parent).with_context(|| format!("creating {}", parent.display()))?;
+    let path = parent.join(format!(".{name}.lock"));
+    for _ in 0..5 {
+        let file = std::fs::OpenOptions::new()
+            .create(true)
+            .truncate(false)
+            .write(true)
+            .open(&path)
+            .with_context(|| format!("opening the build lock {}", path.display()))?;
+        match file.try_lock() {
+            Ok(()) => {}
+            Err(std::fs::TryLockError::WouldBlock) => bail!(
+                "--out {}: another build is writing this atlas now ({} is locked); wait for it to end",
+                out.display(),
+                path.display()
+            ),
+            Err(std::fs::TryLockError::Error(e)) => {
+                return Err(e).with_context(|| format!("locking {}", path.display()))
+            }
+        }
+        if still_there(&file, &path) {
+            return Ok(OutLock { file, path });
+        }
+    }
+    bail!(
+        "--out {}: could not take the build lock {}",
+        out.display(),
+        path.display()
+    )
+}
+
+/// Whether the open `file` is still the one at `path` (not removed or replaced meanwhile).
+fn still_there(file: &std::fs::File, path: &Path) -> bool {
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::MetadataExt;
+        match (file.metadata(), std::fs::metadata(path)) {
+            (Ok(a), Ok(b)) => a.dev() == b.dev() && a.ino() == b.ino(),
+            _ => false,
+        }
+    }
+    #[cfg(not(unix))]
+    {
+        let _ = file;
+        path.exists()
+    }
+}
+
+/// Removes the temporary folders that interrupted builds of `out` left beside it (`.NAME.building-PID`,
+/// `.NAME.old-PID`); call it holding the lock on `out`, so that none of them is a live build's.
+/// Returns how many folders and bytes went.
+pub fn remove_stale(out: &Path) -> Result<(usize, u64)> {
+    let (parent, name) = out_parts(out)?;
+    let Ok(entries) = std::fs::read_dir(&parent) else {
+        return Ok((0, 0));
+    };
+    let (mut folders, mut bytes) = (0, 0);
+    for e in entries.filter_map(|e| e.ok()) {
+        let file = e.file_name().to_string_lossy().to_string();
+        let stale = ["building", "old"].iter().any(|what| {
+            file.strip_prefix(&format!(".{name}.{what}-"))
+                .is_some_and(|pid| !pid.is_empty() && pid.bytes().all(|b| b.is_ascii_digit()))
+        });
+        if stale && e.file_type().is_ok_and(|t| t.is_dir()) {
+            bytes += crate::ingest::walk(&e.path())
+                .iter()
+                .filter_map(|f| f.metadata().ok())
+                .map(|m| m.len())
+                .sum::<u64>();
+            std::fs::remove_dir_all(e.path())
+                .with_context(|| format!("removing {}", e.path().display()))?;
+            folders += 1;
+        }
+    }
+    Ok((folders, bytes))
+}
+
+/// Puts the finished folder in place. Every file and folder of it is flushed to disk first. On
+/// Linux the old atlas (if any) and the new one swap places in one step (`renameat2` with
+/// `RENAME_EXCHANGE`), so that `out` is never missing; elsewhere, or where the file system cannot
+/// swap, the old one is moved aside, the new one in, and the old one back if that fails. The old
+/// atlas is removed after.
 pub fn replace_dir(tmp: &Path, out: &Path) -> Result<()> {
-    if out.exists() {
+    sync_tree(tmp).with_context(|| format!("flushing {} to disk", tmp.display()))?;
+    let (parent, _) = out_parts(out)?;
+    let put = |from: &Path| {
+        std::fs::rename(from, out)
+            .with_context(|| format!("putting the new atlas at {}", out.display()))
+    };
+    if !out.exists() {
+        put(tmp)?;
+    } else if exchange(tmp, out).is_ok() {
+        // `tmp` now holds the old atlas.
+        sync_dir(&parent);
+        std::fs::remove_dir_all(tmp)?;
+    } else {
         let old = tmp_sibling(out, "old");
         std::fs::rename(out, &old)
             .with_context(|| format!("moving the old atlas {} aside", out.display()))?;
-        std::fs::rename(tmp, out)
-            .with_context(|| format!("putting the new atlas at {}", out.display()))?;
+        if let Err(e) = put(tmp) {
+            let _ = std::fs::rename(&old, out);
+            return Err(e);
+        }
+        sync_dir(&parent);
         std::fs::remove_dir_all(&old)?;
+    }
+    sync_dir(&parent);
+    Ok(())
+}
+
+/// Swaps two paths in one step.
+#[cfg(target_os = "linux")]
+fn exchange(a: &Path, b: &Path) -> std::io::Result<()> {
+    use std::os::unix::ffi::OsStrExt;
+    let c = |p: &Path| std::ffi::CString::new(p.as_os_str().as_bytes());
+    let (a, b) = (c(a)?, c(b)?);
+    // SAFETY: two NUL-terminated paths that live across the call; renameat2 reads them only.
+    let r = unsafe {
+        libc::syscall(
+            libc::SYS_renameat2,
+            libc::AT_FDCWD,
+            a.as_ptr(),
+            libc::AT_FDCWD,
+            b.as_ptr(),
+            libc::RENAME_EXCHANGE,
+        )
+    };
+    if r == 0 {
+        Ok(())
     } else {
-        std::fs::rename(tmp, out)
-            .with_context(|| format!("putting the new atlas at {}", out.display()))?;
+        Err(std::io::Error::last_os_error())
+    }
+}
+
+#[cfg(not(target_os = "linux"))]
+fn exchange(_: &Path, _: &Path) -> std::io::Result<()> {
+    Err(std::io::ErrorKind::Unsupported.into())
+}
+
+/// Flushes every file under `dir`, and the folders themselves, to disk.
+fn sync_tree(dir: &Path) -> std::io::Result<()> {
+    for f in crate::ingest::walk(dir) {
+        std::fs::File::open(&f)?.sync_all()?;
+    }
+    let mut folders = vec![dir.to_path_buf()];
+    while let Some(d) = folders.pop() {
+        for e in std::fs::read_dir(&d)?.filter_map(|e| e.ok()) {
+            if e.file_type().is_ok_and(|t| t.is_dir()) {
+                folders.push(e.path());
+            }
+        }
+        sync_dir(&d);
     }
     Ok(())
+}
+
+/// Flushes a folder's entries to disk where the system allows it (a folder opens for that on Unix).
+fn sync_dir(dir: &Path) {
+    #[cfg(unix)]
+    if let Ok(f) = std::fs::File::open(dir) {
+        let _ = f.sync_all();
+    }
+    #[cfg(not(unix))]
+    let _ = dir;
 }
 
 /// The viewer files (index.html, the wasm module and its loader) make the atlas self-contained.

@@ -14,6 +14,17 @@ use crate::stages::{self, Computed, QualityRows};
 /// complete and has validated; an earlier atlas there stays until then.
 pub fn build(opts: &BuildOptions, progress: &dyn Progress) -> Result<BuildReport> {
     opts.check()?;
+    // Held to the end: no second build writes this atlas meanwhile, and what interrupted builds of
+    // it left beside it can go.
+    let _lock = crate::folder::lock_out(&opts.out)?;
+    let (stale, stale_bytes) = crate::folder::remove_stale(&opts.out)?;
+    if stale > 0 {
+        progress.note(&format!(
+            "removed {stale} temporary folder(s) that interrupted builds of {} left ({:.1} MB)",
+            opts.out.display(),
+            stale_bytes as f64 / 1e6
+        ));
+    }
     let mut laps = Laps::new();
     let (vectors, inputs) = crate::ingest::read(opts, progress, &mut laps)?;
 

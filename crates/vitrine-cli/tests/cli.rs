@@ -708,6 +708,99 @@ fn serve_keeps_connections_alive_and_answers_them_side_by_side() {
     assert_eq!(read_response(&mut r).0, 405);
 }
 
+/// What interrupted builds left beside an atlas (a SIGKILLed build's `.NAME.building-PID`) goes
+/// at the next build; a build while another holds the atlas's lock is refused; an `--out` that
+/// names no folder (`.`) is refused before any work.
+#[test]
+fn interrupted_and_concurrent_builds_leave_nothing_broken() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    fixture(d, false);
+    for stale in [".atlas.building-4000001", ".atlas.old-4000002"] {
+        std::fs::create_dir_all(d.join(stale).join("arrays")).unwrap();
+        std::fs::write(d.join(stale).join("arrays/x.bin"), vec![7u8; 300_000]).unwrap();
+    }
+    // Not this atlas's, and not a build's: left alone.
+    std::fs::create_dir_all(d.join(".atlas2.building-4000003")).unwrap();
+    std::fs::create_dir_all(d.join(".atlas.building-notes")).unwrap();
+    let mut cmd = common::vitrine();
+    cmd.current_dir(d).args([
+        "build",
+        "--vectors",
+        "vectors.npy",
+        "--catalogue",
+        "records.csv",
+        "--out",
+        "atlas",
+        "--epochs",
+        "10",
+    ]);
+    let o = cmd.output().unwrap();
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert!(
+        stderr(&o).contains("removed 2 temporary folder(s)"),
+        "{}",
+        stderr(&o)
+    );
+    assert!(!d.join(".atlas.building-4000001").exists() && !d.join(".atlas.old-4000002").exists());
+    assert!(
+        d.join(".atlas2.building-4000003").exists() && d.join(".atlas.building-notes").exists()
+    );
+    let hidden: Vec<String> = std::fs::read_dir(d)
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().to_string())
+        .filter(|n| n.starts_with(".atlas."))
+        .collect();
+    assert_eq!(
+        hidden,
+        [".atlas.building-notes"],
+        "the lock went at the end"
+    );
+    // Another build holding the lock: this one is refused and the atlas stays as it was.
+    let manifest = std::fs::read(d.join("atlas/atlas.json")).unwrap();
+    let lock = std::fs::OpenOptions::new()
+        .create(true)
+        .truncate(false)
+        .write(true)
+        .open(d.join(".atlas.lock"))
+        .unwrap();
+    lock.lock().unwrap();
+    let o = build(d, "atlas", &["--epochs", "10"]);
+    assert!(!o.status.success());
+    assert!(
+        stderr(&o).contains("another build is writing this atlas"),
+        "{}",
+        stderr(&o)
+    );
+    assert_eq!(std::fs::read(d.join("atlas/atlas.json")).unwrap(), manifest);
+    lock.unlock().unwrap();
+    let o = build(d, "atlas", &["--epochs", "10"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    // `--out .` (and `..`) name no folder to put an atlas in place of: refused at once.
+    std::fs::create_dir_all(d.join("here")).unwrap();
+    for out in [".", ".."] {
+        let o = common::vitrine()
+            .current_dir(d.join("here"))
+            .args([
+                "build",
+                "--vectors",
+                "../vectors.npy",
+                "--out",
+                out,
+                "--quiet",
+            ])
+            .output()
+            .unwrap();
+        assert!(!o.status.success());
+        assert!(
+            stderr(&o).contains("name the atlas folder itself"),
+            "{}",
+            stderr(&o)
+        );
+    }
+    assert_eq!(std::fs::read_dir(d.join("here")).unwrap().count(), 0);
+}
+
 #[test]
 fn nothing_of_the_users_is_ever_deleted_or_overwritten() {
     let dir = tempfile::tempdir().unwrap();
