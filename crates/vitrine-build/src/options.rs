@@ -59,6 +59,8 @@ pub struct BuildOptions {
     pub jpeg_quality: u8,
     /// Images with more pixels than this get a placeholder (a decompression-bomb guard).
     pub max_pixels: u64,
+    /// Bytes all threads together may hold in decoded full-size images at once.
+    pub decode_memory: u64,
     /// Stop the build when any image cannot be used, instead of drawing a placeholder.
     pub strict: bool,
     /// Where thumbnails of unchanged image files are kept for the next build (None: no cache).
@@ -91,6 +93,7 @@ impl BuildOptions {
             cells: vec![32, 128, 512],
             jpeg_quality: 85,
             max_pixels: vitrine_images::decode::DEFAULT_MAX_PIXELS,
+            decode_memory: vitrine_images::decode::DEFAULT_DECODE_BUDGET,
             strict: false,
             thumb_cache: None,
             viewer: None,
@@ -110,6 +113,9 @@ impl BuildOptions {
         }
         if self.max_pixels == 0 {
             bail!("--max-pixels must be at least 1");
+        }
+        if self.decode_memory < 64 << 20 {
+            bail!("--decode-memory must be at least 64 (MB)");
         }
         crate::folder::check_out(&self.out)?;
         if let Some(v) = &self.viewer {

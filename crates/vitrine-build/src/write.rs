@@ -421,6 +421,7 @@ fn pictures(
     progress: &dyn Progress,
 ) -> Result<(Vec<[u8; 4]>, Sheets, InputFile)> {
     let n = order.len();
+    vitrine_images::decode::set_decode_budget(opts.decode_memory);
     let plan = SheetPlan {
         cells: opts.cells.clone(),
         sheet: opts.sheet_size,
@@ -597,6 +598,7 @@ fn parameters(
     p.insert("cells".into(), json!(opts.cells));
     p.insert("jpeg_quality".into(), json!(opts.jpeg_quality));
     p.insert("max_pixels".into(), json!(opts.max_pixels));
+    p.insert("decode_memory".into(), json!(opts.decode_memory));
     p.insert("strict".into(), json!(opts.strict));
     p.insert(
         "vector_dimensions".into(),

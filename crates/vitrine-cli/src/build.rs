@@ -104,6 +104,11 @@ pub struct BuildArgs {
     /// Refuse images with more pixels than this (they get a placeholder and a report entry).
     #[arg(long, default_value_t = vitrine_images::decode::DEFAULT_MAX_PIXELS)]
     max_pixels: u64,
+    /// Memory in MB that all threads together may hold in decoded full-size images at once; an
+    /// image is decoded when its share is free, and one that needs more than all of it gets a
+    /// placeholder and a report entry.
+    #[arg(long, value_name = "MB", default_value_t = vitrine_images::decode::DEFAULT_DECODE_BUDGET >> 20)]
+    decode_memory: u64,
     /// Stop the build when any image is missing or cannot be read, instead of drawing a
     /// placeholder for it.
     #[arg(long)]
@@ -165,6 +170,7 @@ impl BuildArgs {
             }),
             jpeg_quality: self.jpeg_quality,
             max_pixels: self.max_pixels,
+            decode_memory: self.decode_memory << 20,
             strict: self.strict,
             thumb_cache: if self.no_thumb_cache {
                 None

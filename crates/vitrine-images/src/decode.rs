@@ -36,6 +36,13 @@ pub enum ImageFailure {
     Corrupt(String),
     /// More pixels than the limit allows (a guard against decompression bombs).
     TooLarge { width: u32, height: u32, limit: u64 },
+    /// Decoding it needs more memory than the whole decoding budget (see [`set_decode_budget`]).
+    OverBudget {
+        width: u32,
+        height: u32,
+        bytes: u64,
+        budget: u64,
+    },
 }
 
 impl ImageFailure {
@@ -47,7 +54,7 @@ impl ImageFailure {
             ImageFailure::Unsupported(_) => "unsupported",
             ImageFailure::Truncated(_) => "truncated",
             ImageFailure::Corrupt(_) => "corrupt",
-            ImageFailure::TooLarge { .. } => "too large",
+            ImageFailure::TooLarge { .. } | ImageFailure::OverBudget { .. } => "too large",
         }
     }
 }
@@ -68,8 +75,84 @@ impl fmt::Display for ImageFailure {
                 f,
                 "too large: {width} x {height} pixels is more than the limit of {limit} (--max-pixels)"
             ),
+            ImageFailure::OverBudget {
+                width,
+                height,
+                bytes,
+                budget,
+            } => write!(
+                f,
+                "too large: {width} x {height} pixels needs {} MB to decode, more than the decoding budget of {} MB (--decode-memory)",
+                bytes.div_ceil(1 << 20),
+                budget >> 20
+            ),
         }
     }
+}
+
+/// The memory all threads together may hold in decoded full-size images at once (2 GiB unless
+/// [`set_decode_budget`] says otherwise). An image is decoded only when its share is free, so
+/// that a few huge images decoded side by side by every core cannot exhaust the machine; an
+/// image that needs more than the whole budget is refused ([`ImageFailure::OverBudget`]).
+struct Budget {
+    state: std::sync::Mutex<BudgetState>,
+    freed: std::sync::Condvar,
+}
+
+struct BudgetState {
+    total: u64,
+    used: u64,
+    /// The most held at once since the last [`set_decode_budget`] (for tests and reports).
+    high: u64,
+}
+
+static BUDGET: Budget = Budget {
+    state: std::sync::Mutex::new(BudgetState {
+        total: DEFAULT_DECODE_BUDGET,
+        used: 0,
+        high: 0,
+    }),
+    freed: std::sync::Condvar::new(),
+};
+
+/// The default decoding budget, in bytes.
+pub const DEFAULT_DECODE_BUDGET: u64 = 2 << 30;
+
+/// Sets the decoding budget (bytes, at least 1 MiB).
+pub fn set_decode_budget(bytes: u64) {
+    let mut s = BUDGET.state.lock().unwrap_or_else(|e| e.into_inner());
+    s.total = bytes.max(1 << 20);
+    s.high = 0;
+}
+
+/// The most decoded bytes held at once since the budget was last set.
+pub fn decode_high_water() -> u64 {
+    BUDGET.state.lock().unwrap_or_else(|e| e.into_inner()).high
+}
+
+/// A share of the budget, given back when dropped.
+struct Permit(u64);
+
+impl Drop for Permit {
+    fn drop(&mut self) {
+        let mut s = BUDGET.state.lock().unwrap_or_else(|e| e.into_inner());
+        s.used -= self.0;
+        BUDGET.freed.notify_all();
+    }
+}
+
+/// Waits until `bytes` of the budget are free and takes them; the whole budget when it is larger.
+fn take_budget(bytes: u64) -> Result<Permit, u64> {
+    let mut s = BUDGET.state.lock().unwrap_or_else(|e| e.into_inner());
+    if bytes > s.total {
+        return Err(s.total);
+    }
+    while s.used + bytes > s.total {
+        s = BUDGET.freed.wait(s).unwrap_or_else(|e| e.into_inner());
+    }
+    s.used += bytes;
+    s.high = s.high.max(s.used);
+    Ok(Permit(bytes))
 }
 
 /// An upright 8-bit RGB image and the size of the original, as displayed (after orientation).
@@ -210,11 +293,22 @@ pub fn decode(bytes: &[u8], max_pixels: u64) -> Result<Decoded, ImageFailure> {
     let orientation = decoder
         .orientation()
         .unwrap_or(image::metadata::Orientation::NoTransforms);
-    let mut img = DynamicImage::from_decoder(decoder).map_err(failure)?;
-    img.apply_orientation(orientation);
-    let (width, height) = (img.width(), img.height());
+    // What the decode holds at its peak: the decoder's buffer and the RGB image made from it,
+    // then (the buffer gone) the RGB image and its turned copy.
+    let rgb_bytes = w as u64 * h as u64 * 3;
+    let peak = (decoder.total_bytes() + rgb_bytes).max(2 * rgb_bytes);
+    let _permit = take_budget(peak).map_err(|budget| ImageFailure::OverBudget {
+        width: w,
+        height: h,
+        bytes: peak,
+        budget,
+    })?;
+    let img = DynamicImage::from_decoder(decoder).map_err(failure)?;
+    let mut rgb = DynamicImage::ImageRgb8(to_rgb8(img));
+    rgb.apply_orientation(orientation);
+    let (width, height) = (rgb.width(), rgb.height());
     Ok(Decoded {
-        rgb: to_rgb8(img),
+        rgb: rgb.into_rgb8(),
         width,
         height,
     })
@@ -244,33 +338,42 @@ fn to_rgb8(img: DynamicImage) -> RgbImage {
         DynamicImage::ImageRgb8(_) => return img.into_rgb8(),
         DynamicImage::ImageLuma8(g) => return from(g.as_raw(), 1),
         DynamicImage::ImageLuma16(g) => {
-            let v: Vec<u8> = g.as_raw().iter().map(|&v| to8(v)).collect();
-            return from(&v, 1);
+            let mut out = Vec::with_capacity(w as usize * h as usize * 3);
+            g.as_raw()
+                .iter()
+                .for_each(|&v| out.extend_from_slice(&[to8(v); 3]));
+            return RgbImage::from_raw(w, h, out).expect("w x h pixels");
         }
         DynamicImage::ImageRgb16(c) => {
-            let v: Vec<u8> = c.as_raw().iter().map(|&v| to8(v)).collect();
-            return from(&v, 3);
+            let out: Vec<u8> = c.as_raw().iter().map(|&v| to8(v)).collect();
+            return RgbImage::from_raw(w, h, out).expect("w x h pixels");
         }
         _ => {}
     }
     if !img.color().has_alpha() {
         return img.to_rgb8();
     }
-    let rgba = match &img {
-        DynamicImage::ImageRgba16(c) => {
-            image::RgbaImage::from_raw(w, h, c.as_raw().iter().map(|&v| to8(v)).collect())
-                .expect("w x h pixels")
-        }
-        _ => img.to_rgba8(),
-    };
-    let mut out = RgbImage::new(w, h);
-    for (o, p) in out.pixels_mut().zip(rgba.pixels()) {
+    // Alpha flattened straight into RGB, the 16-bit samples rounded first, with no RGBA copy.
+    let flat = |p: [u8; 4]| {
         let a = p[3] as u32;
-        for c in 0..3 {
-            o[c] = ((p[c] as u32 * a + PAPER[c] as u32 * (255 - a) + 127) / 255) as u8;
-        }
+        [0, 1, 2].map(|c| ((p[c] as u32 * a + PAPER[c] as u32 * (255 - a) + 127) / 255) as u8)
+    };
+    let mut out = Vec::with_capacity(w as usize * h as usize * 3);
+    match &img {
+        DynamicImage::ImageRgba16(c) => c
+            .as_raw()
+            .chunks_exact(4)
+            .for_each(|p| out.extend_from_slice(&flat([p[0], p[1], p[2], p[3]].map(to8)))),
+        DynamicImage::ImageRgba8(c) => c
+            .as_raw()
+            .chunks_exact(4)
+            .for_each(|p| out.extend_from_slice(&flat([p[0], p[1], p[2], p[3]]))),
+        _ => img
+            .to_rgba8()
+            .pixels()
+            .for_each(|p| out.extend_from_slice(&flat(p.0))),
     }
-    out
+    RgbImage::from_raw(w, h, out).expect("w x h pixels")
 }
 
 /// Sorts the decoder's errors into the failure classes.
