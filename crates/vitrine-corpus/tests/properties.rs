@@ -1,0 +1,73 @@
+//! Property tests of the corpus-file and packed-item readers (what arrives by e-mail and in links):
+//! any bytes, and valid files with bytes changed, cut or inserted, give a value or an error, never
+//! a panic; what the writers write reads back the same.
+//! Case counts are bounded for the normal test run.
+
+use proptest::prelude::*;
+use vitrine_corpus::corpus::CorpusFile;
+use vitrine_corpus::packed::{pack, unpack};
+
+const FILE: &str = r#"{"format": "vitrine-corpus", "format_version": 1,
+ "atlas": {"title": "Harbour prints", "manifest_sha256": "0a1b", "item_count": 40},
+ "build": {"seed": 7}, "map": "similarity",
+ "steps": [{"op": "replace", "lasso": [[0, 0], [1, 0], [1, 1]]}, {"op": "add", "rect": [0, 0, 2, 2]},
+           {"op": "subtract", "ids": ["a", "b"]}],
+ "filters": [], "count": 2, "ids": ["a", "c"],
+ "made": {"tool": "vitrine", "tool_version": "0", "time": "2026-01-01T00:00:00Z", "by": "viewer"}}"#;
+
+/// A valid input with one edit: a byte changed, the text cut, or bytes inserted.
+fn edited(valid: &'static [u8]) -> impl Strategy<Value = Vec<u8>> {
+    let n = valid.len();
+    prop_oneof![
+        (0..n, any::<u8>()).prop_map(move |(at, b)| {
+            let mut v = valid.to_vec();
+            v[at] = b;
+            v
+        }),
+        (0..n).prop_map(move |at| valid[..at].to_vec()),
+        (0..n, proptest::collection::vec(any::<u8>(), 1..12)).prop_map(move |(at, ins)| {
+            let mut v = valid.to_vec();
+            v.splice(at..at, ins);
+            v
+        }),
+    ]
+}
+
+proptest! {
+    // A failing case is printed, not saved into the source tree.
+    #![proptest_config(ProptestConfig { cases: 512, failure_persistence: None, ..ProptestConfig::default() })]
+
+    #[test]
+    fn corpus_files_with_any_edit_read_or_fail_cleanly(bytes in edited(FILE.as_bytes())) {
+        let _ = CorpusFile::from_json(&String::from_utf8_lossy(&bytes));
+    }
+
+    #[test]
+    fn any_text_as_a_corpus_file_fails_cleanly(text in ".{0,200}") {
+        let _ = CorpusFile::from_json(&text);
+    }
+
+    #[test]
+    fn packed_items_read_back_as_packed(mut items in proptest::collection::vec(0u32..5_000_000, 0..300)) {
+        let packed = pack(&items);
+        items.sort_unstable();
+        items.dedup();
+        prop_assert_eq!(unpack(&packed, 5_000_000).unwrap(), items);
+    }
+
+    #[test]
+    fn any_text_as_packed_items_is_numbers_below_n_or_an_error(text in "[A-Za-z0-9_=+/-]{0,64}", n in 0usize..1000) {
+        if let Ok(items) = unpack(&text, n) {
+            prop_assert!(items.iter().all(|&i| (i as usize) < n));
+            prop_assert!(items.windows(2).all(|w| w[0] < w[1]));
+        }
+    }
+}
+
+#[test]
+fn the_seed_file_is_valid() {
+    // Otherwise the edits above would test only the rejection of a broken seed.
+    let c = CorpusFile::from_json(FILE).unwrap();
+    assert_eq!(c.steps.len(), 3);
+    assert_eq!(CorpusFile::from_json(&c.to_json()).unwrap(), c);
+}
