@@ -4,6 +4,7 @@
 use std::path::PathBuf;
 use std::process::Command;
 
+#[allow(unused_imports)]
 pub use vitrine_test_support::run_python;
 
 /// The `vitrine` binary, with its default thumbnail cache inside the build's temporary folder
