@@ -138,11 +138,45 @@ case "${1:-}" in
     cargo build --locked --release -p vitrine-cli -p vitrine-bench
     shift
     "$CACHE/venv/bin/python" bench/bench_view.py --vitrine "$PWD/target/release/vitrine" --viewer "$PWD/target/viewer" "$@" ;;
+  fuzz)
+    # cargo-fuzz on the nightly toolchain: each reader of what comes from outside for SECONDS
+    # (default 60) from seeds made here; corpora and crashers stay in target/ (a crasher is a
+    # file in target/fuzz-artifacts/TARGET/: make it a regression test).
+    secs="${2:-60}"
+    setup
+    rustup toolchain list | grep -q '^nightly' || rustup toolchain install nightly --profile minimal
+    command -v cargo-fuzz >/dev/null || cargo install cargo-fuzz --version 0.13.2
+    seeds=target/fuzz-corpus
+    mkdir -p "$seeds"/{npy,catalogue,dates,corpus_file,link,manifest}
+    "$CACHE/venv/bin/python" - "$seeds/npy" <<'PY'
+import sys, numpy as np
+for i, dt in enumerate(["<f4", ">f8", "<f2", "i1", "u1", "<i8", "?"]):
+    np.save(f"{sys.argv[1]}/seed{i}.npy", (np.arange(12).reshape(3, 4) % 3).astype(dt))
+np.save(f"{sys.argv[1]}/fortran.npy", np.asfortranarray(np.ones((2, 5), "<f4")))
+PY
+    printf 'id,title,dating,height\nA1,"Harbour, dusk",c. 1540,12.5\nA2,"The ""old"" quay",1550-75,\n' > "$seeds/catalogue/seed.csv"
+    for d in "c. 1540" "1550-75" "16th century" "450 BC" "1540s" "before 1600" "2023-04-05" "mid 17th cent."; do
+      printf '%s' "$d" > "$seeds/dates/$(printf '%s' "$d" | tr -c 'a-z0-9' _)"
+    done
+    printf '%s' '{"format": "vitrine-corpus", "format_version": 1, "atlas": {"title": "t", "manifest_sha256": "00", "item_count": 3}, "build": {}, "map": "similarity", "steps": [{"op": "add", "rect": [0, 0, 1, 1]}], "filters": [], "count": 0, "ids": [], "made": {"tool": "vitrine", "tool_version": "0", "time": "2026-01-01T00:00:00Z", "by": "viewer"}}' > "$seeds/corpus_file/seed.json"
+    printf '%s' '{"v":1,"map":"similarity","view":[0.1,0.2,1.5],"build":"0011223344556677","steps":[{"op":"add","items":"AQI"}],"filters":[]}' > "$seeds/link/seed.json"
+    [ -f demo-atlas/out/atlas.json ] && cp demo-atlas/out/atlas.json "$seeds/manifest/demo.json"
+    for t in npy catalogue dates corpus_file link manifest; do
+      echo "[fuzz] $t for ${secs} s"
+      mkdir -p "target/fuzz-artifacts/$t"
+      cargo +nightly fuzz run --fuzz-dir fuzz --target-dir target/fuzz -s none "$t" "$seeds/$t" -- \
+        -max_total_time="$secs" -artifact_prefix="target/fuzz-artifacts/$t/" -print_final_stats=1 2>&1 |
+        grep -E "^(stat::number_of_executed_units|stat::peak_rss_mb|Done|==|SUMMARY)|panicked|crash-" || true
+    done
+    if ls target/fuzz-artifacts/*/crash-* >/dev/null 2>&1; then
+      echo "[fuzz] crashers found:"; ls target/fuzz-artifacts/*/crash-*; exit 1
+    fi
+    echo "[fuzz] no crasher" ;;
   atlas) build_viewer; echo "viewer files in target/viewer (vitrine build copies them into each atlas)" ;;
   demo)
     setup_rust
     build_demo
     echo "[demo] serving demo-atlas/out"
     exec ./target/release/vitrine serve demo-atlas/out --port "${PORT:-8080}" ;;
-  *) echo "usage: ./build.sh setup|demo|test|atlas|bench-map [--million]|bench-images [--collection N]|bench-view [--sizes 100000,1000000]" >&2; exit 2 ;;
+  *) echo "usage: ./build.sh setup|demo|test|atlas|fuzz [SECONDS]|bench-map [--million]|bench-images [--collection N]|bench-view [--sizes 100000,1000000]" >&2; exit 2 ;;
 esac

@@ -48,6 +48,18 @@ proptest! {
     }
 
     #[test]
+    fn corpus_files_write_back_to_the_same_numbers(
+        x in any::<f64>().prop_filter("finite", |v| v.is_finite()),
+        y in -1e300f64..1e300,
+        digits in "[1-9][0-9]{20,90}",
+    ) {
+        // Any coordinates, and a number written with more digits than a float holds.
+        let text = FILE.replace("[0, 0, 2, 2]", &format!("[{x}, {y}, 1, {digits}]"));
+        let c = CorpusFile::from_json(&text).unwrap();
+        prop_assert_eq!(CorpusFile::from_json(&c.to_json()).unwrap(), c);
+    }
+
+    #[test]
     fn packed_items_read_back_as_packed(mut items in proptest::collection::vec(0u32..5_000_000, 0..300)) {
         let packed = pack(&items);
         items.sort_unstable();
@@ -62,6 +74,16 @@ proptest! {
             prop_assert!(items.windows(2).all(|w| w[0] < w[1]));
         }
     }
+}
+
+/// Found by the corpus_file fuzz target: a coordinate of 91 digits was read as a float one step
+/// off the nearest, so the file did not write back to itself (JSON numbers are now read exactly).
+#[test]
+fn a_long_number_in_a_corpus_file_writes_back_to_itself() {
+    let long = format!("3{}0", "3".repeat(89));
+    let text = FILE.replace("[0, 0, 2, 2]", &format!("[0, 0, 1, {long}]"));
+    let c = CorpusFile::from_json(&text).unwrap();
+    assert_eq!(CorpusFile::from_json(&c.to_json()).unwrap(), c);
 }
 
 #[test]
