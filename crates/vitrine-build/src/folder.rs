@@ -156,8 +156,13 @@ fn still_there(file: &std::fs::File, path: &Path) -> bool {
 
 /// Removes the temporary folders that interrupted builds of `out` left beside it (`.NAME.building-PID`,
 /// `.NAME.old-PID`); call it holding the lock on `out`, so that none of them is a live build's.
+/// When `out` itself is missing and an old atlas was left moved aside (a build killed between
+/// moving the old atlas aside and putting the new one in place), that atlas is put back first.
 /// Returns how many folders and bytes went.
 pub fn remove_stale(out: &Path) -> Result<(usize, u64)> {
+    if !out.exists() {
+        restore_moved_aside(out)?;
+    }
     let (parent, name) = out_parts(out)?;
     let Ok(entries) = std::fs::read_dir(&parent) else {
         return Ok((0, 0));
@@ -183,6 +188,37 @@ pub fn remove_stale(out: &Path) -> Result<(usize, u64)> {
     Ok((folders, bytes))
 }
 
+/// Puts back an atlas left at `.NAME.old-PID` when nothing is at `out` (the newest if several).
+fn restore_moved_aside(out: &Path) -> Result<()> {
+    let (parent, name) = out_parts(out)?;
+    let Ok(entries) = std::fs::read_dir(&parent) else {
+        return Ok(());
+    };
+    let prefix = format!(".{name}.old-");
+    let newest = entries
+        .filter_map(|e| e.ok())
+        .filter(|e| {
+            let f = e.file_name().to_string_lossy().to_string();
+            f.strip_prefix(&prefix)
+                .is_some_and(|pid| !pid.is_empty() && pid.bytes().all(|b| b.is_ascii_digit()))
+                && e.path().join(MANIFEST_FILE).is_file()
+        })
+        .max_by_key(|e| e.metadata().and_then(|m| m.modified()).ok());
+    if let Some(e) = newest {
+        std::fs::rename(e.path(), out).with_context(|| {
+            format!(
+                "putting back the atlas an interrupted build left at {}",
+                e.path().display()
+            )
+        })?;
+        eprintln!(
+            "note: put back the atlas an interrupted build had moved aside to {}",
+            e.path().display()
+        );
+    }
+    Ok(())
+}
+
 /// Puts the finished folder in place. Every file and folder of it is flushed to disk first. On
 /// Linux the old atlas (if any) and the new one swap places in one step (`renameat2` with
 /// `RENAME_EXCHANGE`), so that `out` is never missing; elsewhere, or where the file system cannot
@@ -198,19 +234,26 @@ pub fn replace_dir(tmp: &Path, out: &Path) -> Result<()> {
     if !out.exists() {
         put(tmp)?;
     } else if exchange(tmp, out).is_ok() {
-        // `tmp` now holds the old atlas.
+        // `tmp` now holds the old atlas; should removing it fail, the next build removes it.
         sync_dir(&parent);
-        std::fs::remove_dir_all(tmp)?;
+        let _ = std::fs::remove_dir_all(tmp);
     } else {
         let old = tmp_sibling(out, "old");
         std::fs::rename(out, &old)
             .with_context(|| format!("moving the old atlas {} aside", out.display()))?;
         if let Err(e) = put(tmp) {
-            let _ = std::fs::rename(&old, out);
+            if std::fs::rename(&old, out).is_err() {
+                return Err(e).with_context(|| {
+                    format!(
+                        "the old atlas is at {} (the next build puts it back)",
+                        old.display()
+                    )
+                });
+            }
             return Err(e);
         }
         sync_dir(&parent);
-        std::fs::remove_dir_all(&old)?;
+        let _ = std::fs::remove_dir_all(&old);
     }
     sync_dir(&parent);
     Ok(())
@@ -248,7 +291,12 @@ fn exchange(_: &Path, _: &Path) -> std::io::Result<()> {
 /// Flushes every file under `dir`, and the folders themselves, to disk.
 fn sync_tree(dir: &Path) -> std::io::Result<()> {
     for f in crate::ingest::walk(dir) {
-        std::fs::File::open(&f)?.sync_all()?;
+        // (Windows flushes only files opened for writing.)
+        std::fs::OpenOptions::new()
+            .read(true)
+            .write(cfg!(windows))
+            .open(&f)?
+            .sync_all()?;
     }
     let mut folders = vec![dir.to_path_buf()];
     while let Some(d) = folders.pop() {

@@ -63,7 +63,8 @@ pub fn export_positions(atlas: &Atlas, out: &Path, style: CsvStyle) -> Result<()
                 .flat_map(|l| [format!("{}_x", l.name), format!("{}_y", l.name)]),
         )
         .collect();
-    csv_row(&mut s, head.iter().map(String::as_str));
+    let head: Vec<_> = head.iter().map(|h| cell(h, false, style)).collect();
+    csv_row(&mut s, head.iter().map(|h| h.as_ref()));
     for i in 0..m.item_count as usize {
         // Shortest text that reads back to the same f32.
         let xy: Vec<String> = maps

@@ -185,8 +185,15 @@ pub fn serve_with(
             .name("vitrine-serve".into())
             .stack_size(256 * 1024)
             .spawn(move || {
+                // The slot is given back however the connection ends (a panic included).
+                struct Slot(Shared, u64);
+                impl Drop for Slot {
+                    fn drop(&mut self) {
+                        lock(&self.0).conns.remove(&self.1);
+                    }
+                }
+                let _slot = Slot(mine.clone(), id);
                 let _ = connection(stream, &root, &limits, &mine, id);
-                lock(&mine).conns.remove(&id);
             });
         // No thread to be had (memory or a process limit): the client hears so, the server goes on.
         if started.is_err() {
@@ -258,6 +265,23 @@ struct Asked {
     if_modified_since: Option<String>,
 }
 
+/// Sends a refusal and closes the connection gracefully: the rest of what the client sent is
+/// read (for a moment) before closing, so that the refusal is not lost to a reset.
+fn refuse(out: &mut TcpStream, status: u16, body: &[u8]) -> std::io::Result<()> {
+    respond(out, status, body, false, true)?;
+    let _ = out.shutdown(std::net::Shutdown::Write);
+    let _ = out.set_read_timeout(Some(Duration::from_millis(500)));
+    let mut sink = [0u8; 16 * 1024];
+    let mut left = 1 << 20;
+    while left > 0 {
+        match out.read(&mut sink) {
+            Ok(0) | Err(_) => break,
+            Ok(n) => left -= n.min(left),
+        }
+    }
+    Ok(())
+}
+
 /// Answers the requests of one connection in turn until the client closes it or asks to, or a
 /// limit ends it.
 fn connection(
@@ -293,7 +317,7 @@ fn connection(
         let request = match read_line(&mut reader)? {
             Line::Text(t) if t.is_empty() => continue,
             Line::Text(t) => t,
-            Line::TooLong => return respond(&mut out, 414, b"request line too long", false, true),
+            Line::TooLong => return refuse(&mut out, 414, b"request line too long"),
             Line::End => return Ok(()),
         };
         let mut parts = request.split(' ');
@@ -309,16 +333,14 @@ fn connection(
         for n in 0.. {
             let header = match read_line(&mut reader)? {
                 Line::Text(t) => t,
-                Line::TooLong => {
-                    return respond(&mut out, 431, b"header line too long", false, true)
-                }
+                Line::TooLong => return refuse(&mut out, 431, b"header line too long"),
                 Line::End => return Ok(()),
             };
             if header.is_empty() {
                 break;
             }
             if n == MAX_HEADERS {
-                return respond(&mut out, 431, b"too many headers", false, true);
+                return refuse(&mut out, 431, b"too many headers");
             }
             if let Some((name, value)) = header.split_once(':') {
                 let value = value.trim().to_string();
@@ -327,7 +349,14 @@ fn connection(
                     asked.close = value.eq_ignore_ascii_case("close")
                         || (asked.close && !value.eq_ignore_ascii_case("keep-alive"));
                 } else if is("content-length") {
-                    asked.body = value.parse().unwrap_or(0);
+                    // A length that cannot be read would leave the body to be read as the next
+                    // request: refused, as is a body sent in chunks (no request here has one).
+                    match value.parse() {
+                        Ok(len) => asked.body = len,
+                        Err(_) => return refuse(&mut out, 400, b"bad Content-Length"),
+                    }
+                } else if is("transfer-encoding") {
+                    return refuse(&mut out, 400, b"request bodies are not accepted");
                 } else if is("range") {
                     asked.range = Some(value);
                 } else if is("if-range") {
@@ -430,9 +459,37 @@ fn send_file(
     };
     if !head {
         file.seek(std::io::SeekFrom::Start(from))?;
-        std::io::copy(&mut file.take(count), out)?;
+        send_body(&mut file.take(count), out, count)?;
     }
     out.flush()
+}
+
+/// How long a client may take to read a response before it must keep up [`MIN_RATE`].
+const GRACE: Duration = Duration::from_secs(30);
+/// The slowest average a client may read at after [`GRACE`], in bytes a second.
+const MIN_RATE: u64 = 16 * 1024;
+
+/// Sends `count` bytes of a file. A client that reads slower than [`MIN_RATE`] on average after
+/// [`GRACE`] is cut (each write is also bounded by the write timeout), so that a trickle of reads
+/// cannot hold a connection forever; a file that ends early (changed meanwhile) ends the
+/// connection rather than leave the client waiting for bytes that will not come.
+fn send_body(file: &mut impl Read, out: &mut TcpStream, count: u64) -> std::io::Result<()> {
+    let start = Instant::now();
+    let mut buf = vec![0u8; 64 * 1024];
+    let mut sent = 0u64;
+    while sent < count {
+        let n = file.read(&mut buf)?;
+        if n == 0 {
+            return Err(std::io::ErrorKind::UnexpectedEof.into());
+        }
+        out.write_all(&buf[..n])?;
+        sent += n as u64;
+        let late = start.elapsed().saturating_sub(GRACE);
+        if sent < count && sent < late.as_secs() * MIN_RATE {
+            return Err(std::io::ErrorKind::TimedOut.into());
+        }
+    }
+    Ok(())
 }
 
 /// One byte range of a file of `len` bytes from a `Range` header (RFC 9110 section 14.1.2):
@@ -508,6 +565,7 @@ fn respond(
     close: bool,
 ) -> std::io::Result<()> {
     let reason = match status {
+        400 => "Bad Request",
         404 => "Not Found",
         405 => "Method Not Allowed",
         414 => "URI Too Long",

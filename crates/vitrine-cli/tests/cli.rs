@@ -776,6 +776,15 @@ fn interrupted_and_concurrent_builds_leave_nothing_broken() {
     lock.unlock().unwrap();
     let o = build(d, "atlas", &["--epochs", "10"]);
     assert!(o.status.success(), "{}", stderr(&o));
+    // A build killed after moving the old atlas aside and before putting the new one in place:
+    // the next build puts the old one back first, so even a failing build leaves it there.
+    let manifest = std::fs::read(d.join("atlas/atlas.json")).unwrap();
+    std::fs::rename(d.join("atlas"), d.join(".atlas.old-4000009")).unwrap();
+    let o = build(d, "atlas", &["--id-column", "nowhere"]);
+    assert!(!o.status.success());
+    assert!(stderr(&o).contains("put back the atlas"), "{}", stderr(&o));
+    assert_eq!(std::fs::read(d.join("atlas/atlas.json")).unwrap(), manifest);
+    assert!(!d.join(".atlas.old-4000009").exists());
     // `--out .` (and `..`) name no folder to put an atlas in place of: refused at once.
     std::fs::create_dir_all(d.join("here")).unwrap();
     for out in [".", ".."] {

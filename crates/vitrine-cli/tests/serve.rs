@@ -96,6 +96,8 @@ fn serve_stays_up_and_answers_under_load_and_hostile_clients() {
     assert_eq!(r["long_line"], 414);
     assert_eq!(r["long_header"], 431);
     assert_eq!(r["many_headers"], 431);
+    assert_eq!(r["chunked_body"], 400);
+    assert_eq!(r["bad_length"], 400);
     // Load: every fetch answered, none slower than a second, the memory and threads bounded.
     assert_eq!(r["idle_opened"], 2000);
     assert_eq!(r["fetches"], 400);

@@ -63,9 +63,12 @@ out["stale_if_range"] = [st, body == whole]
 st, _, body = get(path, {"Range": "bytes=0-9"}, method="HEAD")
 out["head_range"] = [st, len(body)]
 
-# Oversized heads: a 20 KiB request line, a 20 KiB header line, 150 headers.
+# Oversized heads (a 20 KiB request line, a 20 KiB header line, 150 headers) and bodies that could
+# be read as a next request (chunked, an unreadable length).
 out["long_line"] = status_of(b"GET /" + b"a" * 20_000 + b" HTTP/1.1\r\nHost: x\r\n\r\n")
 out["long_header"] = status_of(b"GET / HTTP/1.1\r\nX-A: " + b"b" * 20_000 + b"\r\n\r\n")
+out["chunked_body"] = status_of(b"POST / HTTP/1.1\r\nTransfer-Encoding: chunked\r\n\r\n5\r\nGET /\r\n0\r\n\r\n")
+out["bad_length"] = status_of(b"GET / HTTP/1.1\r\nContent-Length: 12x\r\n\r\n")
 out["many_headers"] = status_of(b"GET / HTTP/1.1\r\n" + b"".join(b"X-%d: 1\r\n" % i for i in range(150)) + b"\r\n")
 
 # A client that sends its request one byte every 2 s, beside everything below.

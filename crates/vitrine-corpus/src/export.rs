@@ -176,14 +176,21 @@ fn is_image_link(s: &str) -> bool {
     is_web_link(s) && IMAGE_ENDINGS.iter().any(|e| u.ends_with(e))
 }
 
-/// A language map with no language, holding `s` as plain text for an IIIF client.
+/// A language map with no language holding `s`, for a label (plain text by the specification).
 fn lang_none(s: &str) -> Value {
+    json!({ "none": [s] })
+}
+
+/// A language map with no language holding `s` as plain text, for a property an IIIF client may
+/// read as HTML (`summary`, metadata values): see [`iiif_text`].
+fn lang_text(s: &str) -> Value {
     json!({ "none": [iiif_text(s)] })
 }
 
-/// Plain text as an IIIF Presentation 3 property value. The specification ("HTML Markup in
-/// Property Values", section 4.4 — rule stated from memory) has clients take a value whose first
-/// character is `<` and last is `>` as HTML; a catalogue value shaped so (`<script>…</script>`,
+/// Plain text as an IIIF Presentation 3 property value that may hold HTML. The specification
+/// ("HTML Markup in Property Values", section 4.4 — rule stated from memory) lets `summary`,
+/// metadata values and the required statement's value hold HTML, and has clients take such a
+/// value whose first character is `<` and last is `>` as HTML (labels are always plain text); a catalogue value shaped so (`<script>…</script>`,
 /// `<img src=x onerror=…>`, or innocent text such as `<untitled>`) would then be read as markup.
 /// Such a value is written as HTML that shows the text: escaped and wrapped in a `<span>`, one of
 /// the elements the specification lets clients keep. Other text stays as it is.
@@ -259,7 +266,7 @@ pub fn iiif_manifest(
                     (1000, 1000)
                 };
             }
-            let mut metadata = vec![json!({ "label": lang_none(&id_column(m)), "value": lang_none(id) })];
+            let mut metadata = vec![json!({ "label": lang_none(&id_column(m)), "value": lang_text(id) })];
             let mut image = None;
             let mut homepage = None;
             for c in cols {
@@ -267,7 +274,7 @@ pub fn iiif_manifest(
                 if v.is_empty() {
                     continue;
                 }
-                metadata.push(json!({ "label": lang_none(&c.field.name), "value": lang_none(&v) }));
+                metadata.push(json!({ "label": lang_none(&c.field.name), "value": lang_text(&v) }));
                 if c.field.kind == FieldKind::Link {
                     if is_image_link(&v) && image.is_none() {
                         image = Some(v);
@@ -315,10 +322,10 @@ pub fn iiif_manifest(
         "id": format!("{}manifest.json", o.base),
         "type": "Manifest",
         "label": lang_none(&format!("{} — corpus of {} items", m.title, items.len())),
-        "summary": lang_none(o.summary),
+        "summary": lang_text(o.summary),
         "metadata": [
-            { "label": lang_none("atlas"), "value": lang_none(&m.title) },
-            { "label": lang_none("items"), "value": lang_none(&items.len().to_string()) },
+            { "label": lang_none("atlas"), "value": lang_text(&m.title) },
+            { "label": lang_none("items"), "value": lang_text(&items.len().to_string()) },
         ],
         "items": canvases,
     })
@@ -393,11 +400,12 @@ mod tests {
             iiif_text("<untitled & \"lost\">"),
             "<span>&lt;untitled &amp; &quot;lost&quot;&gt;</span>"
         );
-        // Every value of a Manifest goes through it.
+        // Values that may hold HTML go through it; labels, plain text by the specification, do not.
         assert_eq!(
-            lang_none("<b>x</b>"),
+            lang_text("<b>x</b>"),
             json!({ "none": ["<span>&lt;b&gt;x&lt;/b&gt;</span>"] })
         );
+        assert_eq!(lang_none("<untitled>"), json!({ "none": ["<untitled>"] }));
     }
 
     #[test]

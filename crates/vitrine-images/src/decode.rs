@@ -131,6 +131,7 @@ pub fn decode_high_water() -> u64 {
 }
 
 /// A share of the budget, given back when dropped.
+#[derive(Debug)]
 struct Permit(u64);
 
 impl Drop for Permit {
@@ -149,6 +150,10 @@ fn take_budget(bytes: u64) -> Result<Permit, u64> {
     }
     while s.used + bytes > s.total {
         s = BUDGET.freed.wait(s).unwrap_or_else(|e| e.into_inner());
+        // The budget may have been made smaller meanwhile.
+        if bytes > s.total {
+            return Err(s.total);
+        }
     }
     s.used += bytes;
     s.high = s.high.max(s.used);
@@ -161,6 +166,9 @@ pub struct Decoded {
     pub rgb: RgbImage,
     pub width: u32,
     pub height: u32,
+    /// The share of the decoding budget the full-size image holds: given back when it is dropped
+    /// (after the thumbnail is made from it), not when decoding ends.
+    _budget: Option<Permit>,
 }
 
 /// Reads one image file's bytes; `Missing` when it does not exist, `Unreadable` otherwise.
@@ -254,6 +262,7 @@ fn reduced_jpeg(
         rgb: to_rgb8(img),
         width,
         height,
+        _budget: None,
     }))
 }
 
@@ -293,11 +302,17 @@ pub fn decode(bytes: &[u8], max_pixels: u64) -> Result<Decoded, ImageFailure> {
     let orientation = decoder
         .orientation()
         .unwrap_or(image::metadata::Orientation::NoTransforms);
-    // What the decode holds at its peak: the decoder's buffer and the RGB image made from it,
-    // then (the buffer gone) the RGB image and its turned copy.
-    let rgb_bytes = w as u64 * h as u64 * 3;
-    let peak = (decoder.total_bytes() + rgb_bytes).max(2 * rgb_bytes);
-    let _permit = take_budget(peak).map_err(|budget| ImageFailure::OverBudget {
+    // What the decode holds at its peak: the decoder's buffer and the RGB image made from it
+    // (through an RGBA copy for the layouts converted by the `image` crate), then (the buffer
+    // gone) the RGB image and its turned copy.
+    let pixels = w as u64 * h as u64;
+    let via_rgba = matches!(
+        decoder.color_type(),
+        image::ColorType::La8 | image::ColorType::La16 | image::ColorType::Rgba32F
+    );
+    let peak = (decoder.total_bytes() + 3 * pixels + if via_rgba { 4 * pixels } else { 0 })
+        .max(6 * pixels);
+    let permit = take_budget(peak).map_err(|budget| ImageFailure::OverBudget {
         width: w,
         height: h,
         bytes: peak,
@@ -311,6 +326,7 @@ pub fn decode(bytes: &[u8], max_pixels: u64) -> Result<Decoded, ImageFailure> {
         rgb: rgb.into_rgb8(),
         width,
         height,
+        _budget: Some(permit),
     })
 }
 
@@ -353,7 +369,8 @@ fn to_rgb8(img: DynamicImage) -> RgbImage {
     if !img.color().has_alpha() {
         return img.to_rgb8();
     }
-    // Alpha flattened straight into RGB, the 16-bit samples rounded first, with no RGBA copy.
+    // Alpha flattened straight into RGB, the 16-bit samples rounded first, with no RGBA copy for
+    // RGBA (the rarer layouts go through the `image` crate's RGBA conversion).
     let flat = |p: [u8; 4]| {
         let a = p[3] as u32;
         [0, 1, 2].map(|c| ((p[c] as u32 * a + PAPER[c] as u32 * (255 - a) + 127) / 255) as u8)

@@ -46,4 +46,24 @@ fn decoded_images_stay_within_the_budget_and_one_too_big_for_it_is_refused() {
     });
     let high = decode_high_water();
     assert!(high >= peak && high <= 2 * peak, "held at once: {high}");
+
+    // The share is held as long as the full-size image is (the thumbnail is made from it after
+    // decoding): with room for one, a second decode waits until the first image is dropped.
+    set_decode_budget(12 << 20);
+    let first = decode(&png, u64::MAX).unwrap();
+    let done = std::sync::atomic::AtomicBool::new(false);
+    std::thread::scope(|s| {
+        let second = s.spawn(|| {
+            let d = decode(&png, u64::MAX).unwrap();
+            done.store(true, std::sync::atomic::Ordering::SeqCst);
+            d.rgb.dimensions()
+        });
+        std::thread::sleep(std::time::Duration::from_millis(500));
+        assert!(
+            !done.load(std::sync::atomic::Ordering::SeqCst),
+            "decoded beside a held image"
+        );
+        drop(first);
+        assert_eq!(second.join().unwrap(), (1000, 1000));
+    });
 }
