@@ -29,10 +29,11 @@ setup() {
   echo "[setup] Python venv for the outside-reference tests ($CACHE/venv)"
   # numpy and scikit-learn are the outside references of the tests; umap-learn gives the method's a, b fit;
   # Pillow writes and decodes the reference images, scikit-image ships sample photographs; shapely
-  # decides point-in-lasso for the corpus tests; krippendorff computes the agreement between coders.
-  if [ ! -x "$CACHE/venv/bin/python" ] || ! "$CACHE/venv/bin/python" -c "import numpy, sklearn, umap, PIL, skimage, shapely, krippendorff" 2>/dev/null; then
+  # decides point-in-lasso for the corpus tests; krippendorff computes the agreement between coders,
+  # statsmodels the Wilson intervals (scipy, which scikit-learn brings, the chi-square test).
+  if [ ! -x "$CACHE/venv/bin/python" ] || ! "$CACHE/venv/bin/python" -c "import numpy, sklearn, umap, PIL, skimage, shapely, krippendorff, statsmodels, scipy" 2>/dev/null; then
     [ -x "$CACHE/venv/bin/python" ] || python3 -m venv "$CACHE/venv"
-    "$CACHE/venv/bin/pip" install --progress-bar on numpy scikit-learn umap-learn pillow scikit-image shapely krippendorff
+    "$CACHE/venv/bin/pip" install --progress-bar on numpy scikit-learn umap-learn pillow scikit-image shapely krippendorff statsmodels scipy
   fi
 }
 

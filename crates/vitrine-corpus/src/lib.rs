@@ -16,6 +16,7 @@ pub mod filter;
 pub mod mask;
 pub mod packed;
 pub mod polygon;
+pub mod stats;
 pub mod summary;
 pub mod timeline;
 
