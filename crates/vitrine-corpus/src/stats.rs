@@ -9,7 +9,7 @@ pub const Z95: f64 = 1.959_963_984_540_054;
 /// The Wilson score interval of a share `k / n` (`z`: the normal quantile, [`Z95`] for 95 %), or
 /// None when `n` is not positive.
 pub fn wilson(k: f64, n: f64, z: f64) -> Option<(f64, f64)> {
-    if !(n > 0.0) || !(0.0..=n).contains(&k) {
+    if n.is_nan() || n <= 0.0 || !(0.0..=n).contains(&k) {
         return None;
     }
     let p = k / n;
@@ -44,7 +44,7 @@ pub fn chi_square(table: &[Vec<f64>], correction: bool) -> Option<ChiSquare> {
         .map(|j| table.iter().map(|r| r[j]).sum())
         .collect();
     let total: f64 = row_sums.iter().sum();
-    if row_sums.iter().chain(&col_sums).any(|&s| !(s > 0.0)) {
+    if row_sums.iter().chain(&col_sums).any(|&s| s.is_nan() || s <= 0.0) {
         return None;
     }
     let dof = (rows - 1) * (cols - 1);
