@@ -44,7 +44,11 @@ pub fn chi_square(table: &[Vec<f64>], correction: bool) -> Option<ChiSquare> {
         .map(|j| table.iter().map(|r| r[j]).sum())
         .collect();
     let total: f64 = row_sums.iter().sum();
-    if row_sums.iter().chain(&col_sums).any(|&s| s.is_nan() || s <= 0.0) {
+    if row_sums
+        .iter()
+        .chain(&col_sums)
+        .any(|&s| s.is_nan() || s <= 0.0)
+    {
         return None;
     }
     let dof = (rows - 1) * (cols - 1);
