@@ -98,11 +98,10 @@ pub struct CorpusReport {
     pub notes: Vec<String>,
 }
 
-/// UTC time of `secs` since 1970 as RFC 3339 ("2026-12-03T19:40:00Z").
-pub fn rfc3339_utc(secs: u64) -> String {
-    let days = (secs / 86_400) as i64;
-    let rem = secs % 86_400;
-    // Civil date from days since 1970-01-01 (the proleptic Gregorian calendar).
+/// The civil date (year, month 1-12, day 1-31) of `days` since 1970-01-01, in the proleptic
+/// Gregorian calendar (the days-from-civil algorithm, inverted). Shared by the corpus file's time
+/// and the server's HTTP dates.
+pub fn civil_date(days: i64) -> (i64, i64, i64) {
     let z = days + 719_468;
     let era = z.div_euclid(146_097);
     let doe = z - era * 146_097;
@@ -111,7 +110,13 @@ pub fn rfc3339_utc(secs: u64) -> String {
     let mp = (5 * doy + 2) / 153;
     let d = doy - (153 * mp + 2) / 5 + 1;
     let m = if mp < 10 { mp + 3 } else { mp - 9 };
-    let y = yoe + era * 400 + i64::from(m <= 2);
+    (yoe + era * 400 + i64::from(m <= 2), m, d)
+}
+
+/// UTC time of `secs` since 1970 as RFC 3339 ("2026-12-03T19:40:00Z").
+pub fn rfc3339_utc(secs: u64) -> String {
+    let rem = secs % 86_400;
+    let (y, m, d) = civil_date((secs / 86_400) as i64);
     format!(
         "{y:04}-{m:02}-{d:02}T{:02}:{:02}:{:02}Z",
         rem / 3600,
