@@ -1568,21 +1568,8 @@ fn links_in_a_loop_in_the_images_folder_are_walked_once() {
     std::os::unix::fs::symlink(".", img.join("a")).unwrap();
     std::os::unix::fs::symlink(".", img.join("b")).unwrap();
     std::os::unix::fs::symlink("../../images", img.join("sub/up")).unwrap();
-    let data: Vec<f32> = (0..n * 3).map(|i| ((i * 5) % 7) as f32).collect();
-    write_npy_f32(&d.join("vectors.npy"), n, 3, &data).unwrap();
-    let ids: String = (0..n).map(|i| format!("p{i}\n")).collect();
-    std::fs::write(d.join("records.csv"), format!("id\n{ids}")).unwrap();
-    let mut child = common::quick_build()
-        .current_dir(d)
-        .args([
-            "--vectors",
-            "vectors.npy",
-            "--catalogue",
-            "records.csv",
-            "--images",
-            "images",
-        ])
-        .args(["--out", "atlas", "--no-thumb-cache"])
+    common::write_small_inputs(d, &(0..n).map(|i| format!("p{i}")).collect::<Vec<_>>());
+    let mut child = common::image_build(d)
         .stdout(std::process::Stdio::null())
         .stderr(std::process::Stdio::piped())
         .spawn()
@@ -1624,22 +1611,8 @@ fn a_sheet_level_larger_than_a_jpeg_can_be_is_refused() {
             .save(d.join(format!("images/p{i}.png")))
             .unwrap();
     }
-    let data: Vec<f32> = (0..12).map(|i| ((i * 5) % 7) as f32).collect();
-    write_npy_f32(&d.join("vectors.npy"), 4, 3, &data).unwrap();
-    std::fs::write(d.join("records.csv"), "id\np0\np1\np2\np3\n").unwrap();
-    let o = common::quick_build()
-        .current_dir(d)
-        .args([
-            "--vectors",
-            "vectors.npy",
-            "--catalogue",
-            "records.csv",
-            "--images",
-            "images",
-        ])
-        .args(["--out", "atlas", "--no-thumb-cache"])
-        .output()
-        .unwrap();
+    common::write_small_inputs(d, &(0..4).map(|i| format!("p{i}")).collect::<Vec<_>>());
+    let o = common::image_build(d).output().unwrap();
     assert!(o.status.success(), "{}", stderr(&o));
     let inspect = || {
         common::vitrine()

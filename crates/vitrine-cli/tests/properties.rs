@@ -22,8 +22,8 @@ fn seed() -> &'static str {
                 .save(d.join(format!("images/p{i}.png")))
                 .unwrap();
         }
-        let data: Vec<f32> = (0..36).map(|i| ((i * 5) % 7) as f32).collect();
-        vitrine_test_support::write_npy_f32(&d.join("vectors.npy"), 12, 3, &data).unwrap();
+        common::write_small_inputs(d, &(0..12).map(|i| format!("p{i}")).collect::<Vec<_>>());
+        // A catalogue with fields of every kind the reader decodes.
         let mut csv = String::from("id,title,dating,height,kind\n");
         for i in 0..12 {
             csv.push_str(&format!(
@@ -34,19 +34,7 @@ fn seed() -> &'static str {
             ));
         }
         std::fs::write(d.join("records.csv"), csv).unwrap();
-        let o = common::quick_build()
-            .current_dir(d)
-            .args([
-                "--vectors",
-                "vectors.npy",
-                "--catalogue",
-                "records.csv",
-                "--images",
-                "images",
-            ])
-            .args(["--out", "atlas", "--no-thumb-cache"])
-            .output()
-            .unwrap();
+        let o = common::image_build(d).output().unwrap();
         assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
         std::fs::read_to_string(d.join("atlas/atlas.json")).unwrap()
     })

@@ -21,30 +21,10 @@ fn serve_stays_up_and_answers_under_load_and_hostile_clients() {
         .save(d.join(format!("images/p{i:02}.png")))
         .unwrap();
     }
-    let data: Vec<f32> = (0..n * 3).map(|i| ((i * 5) % 7) as f32).collect();
-    vitrine_test_support::write_npy_f32(&d.join("vectors.npy"), n as usize, 3, &data).unwrap();
-    let ids: String = (0..n).map(|i| format!("p{i:02}\n")).collect();
-    std::fs::write(d.join("records.csv"), format!("id\n{ids}")).unwrap();
+    common::write_small_inputs(d, &(0..n).map(|i| format!("p{i:02}")).collect::<Vec<_>>());
     // Small sheets, so that the atlas has several sheet files to fetch.
-    let o = common::quick_build()
-        .current_dir(d)
-        .args([
-            "--vectors",
-            "vectors.npy",
-            "--catalogue",
-            "records.csv",
-            "--images",
-            "images",
-        ])
-        .args([
-            "--out",
-            "atlas",
-            "--no-thumb-cache",
-            "--levels",
-            "16,64",
-            "--sheet-size",
-            "64",
-        ])
+    let o = common::image_build(d)
+        .args(["--levels", "16,64", "--sheet-size", "64"])
         .output()
         .unwrap();
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));

@@ -1,7 +1,7 @@
 //! The real `vitrine` binary for the integration tests.
 #![allow(dead_code)]
 
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 use std::process::Command;
 
 #[allow(unused_imports)]
@@ -22,5 +22,32 @@ pub fn vitrine() -> Command {
 pub fn quick_build() -> Command {
     let mut c = vitrine();
     c.args(["build", "--quiet", "--epochs", "30"]);
+    c
+}
+
+/// Writes the inputs of a small build with pictures: `vectors.npy` (one row of three small values
+/// per id) and `records.csv` with just an `id` column.
+pub fn write_small_inputs(dir: &Path, ids: &[String]) {
+    let data: Vec<f32> = (0..ids.len() * 3).map(|i| ((i * 5) % 7) as f32).collect();
+    vitrine_test_support::write_npy_f32(&dir.join("vectors.npy"), ids.len(), 3, &data).unwrap();
+    let csv: String = ids.iter().map(|i| format!("{i}\n")).collect();
+    std::fs::write(dir.join("records.csv"), format!("id\n{csv}")).unwrap();
+}
+
+/// [`quick_build`] in `dir` from `vectors.npy`, `records.csv` and `images/` into `atlas`, without a
+/// thumbnail cache; a test adds its own options.
+pub fn image_build(dir: &Path) -> Command {
+    let mut c = quick_build();
+    c.current_dir(dir).args([
+        "--vectors",
+        "vectors.npy",
+        "--catalogue",
+        "records.csv",
+        "--images",
+        "images",
+        "--out",
+        "atlas",
+        "--no-thumb-cache",
+    ]);
     c
 }
