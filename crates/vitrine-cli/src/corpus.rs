@@ -6,17 +6,20 @@ use std::path::{Path, PathBuf};
 
 use anyhow::{bail, Context, Result};
 use clap::Args;
+use vitrine_corpus::coding::{code_columns, Coded};
 use vitrine_corpus::columns::{decode_fields, Column};
 use vitrine_corpus::corpus::{
     corpus_mask, describe, AtlasRef, CorpusFile, Lookup, Made, Op, Shape, Step, CORPUS_FORMAT,
     CORPUS_VERSION,
 };
-use vitrine_corpus::export::{build_record, csv, iiif_manifest, CsvStyle, IiifOptions};
+use vitrine_corpus::export::{build_record, csv, id_column, iiif_manifest, CsvStyle, IiifOptions};
 use vitrine_corpus::filter::{DateRule, Filter};
 use vitrine_corpus::polygon::Polygon;
 use vitrine_format::ArrayRef;
 
 use vitrine_build::read::Atlas;
+
+use crate::coding;
 
 /// Rebuild a corpus without a browser: from a corpus file (saved in the viewer) and/or a
 /// selection given here, write its catalogue rows (CSV), its corpus file (JSON: the ids and
@@ -82,6 +85,39 @@ pub struct CorpusArgs {
     /// Where the IIIF Manifest will be published (its ids are made under this address).
     #[arg(long = "base-url")]
     pub base_url: Option<String>,
+    /// The codebook to code against: a JSON file `{"variables": [...]}` (docs/corpus-file.md)
+    /// or another corpus file (its codebook). Replaces the --from file's; codes that do not fit
+    /// it are refused, named one by one (see --recode).
+    #[arg(long)]
+    pub codebook: Option<PathBuf>,
+    /// Read codes from a CSV: the id column and a column per codebook variable (a --csv export
+    /// filled in a spreadsheet will do); empty cells are not codes. Needs --coder.
+    #[arg(long, requires = "coder")]
+    pub codes: Option<PathBuf>,
+    /// Read settled values from a CSV of the same form: each is kept beside the coders' own
+    /// codes and becomes the item's value. Needs --coder (who settled them).
+    #[arg(long, requires = "coder")]
+    pub settle: Option<PathBuf>,
+    /// Whose codes --codes reads, or who settled --settle's values.
+    #[arg(long)]
+    pub coder: Option<String>,
+    /// Rename a value in the codes, VARIABLE:OLD=NEW (after it was renamed in the codebook).
+    /// Repeatable.
+    #[arg(long = "recode")]
+    pub recodes: Vec<String>,
+    /// Merge another coder's corpus file: its codes join these (its codebook must match).
+    /// Repeatable.
+    #[arg(long = "merge")]
+    pub merges: Vec<PathBuf>,
+    /// Write the agreement between coders, per variable, over the corpus's items (CSV).
+    #[arg(long)]
+    pub agreement: Option<PathBuf>,
+    /// Write every item the coders disagree on, each coder's value and the settled one (CSV).
+    #[arg(long)]
+    pub disagreements: Option<PathBuf>,
+    /// Write every code, one row each: id, variable, value, coder, time, settled (CSV).
+    #[arg(long = "codes-table")]
+    pub codes_table: Option<PathBuf>,
     /// Replace output files that exist.
     #[arg(long)]
     pub force: bool,
@@ -320,7 +356,14 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
     if m.maps.is_empty() {
         bail!("{}: the atlas has no map", atlas_dir.display());
     }
-    for (p, flag) in [(&a.csv, "--csv"), (&a.json, "--json"), (&a.iiif, "--iiif")] {
+    for (p, flag) in [
+        (&a.csv, "--csv"),
+        (&a.json, "--json"),
+        (&a.iiif, "--iiif"),
+        (&a.agreement, "--agreement"),
+        (&a.disagreements, "--disagreements"),
+        (&a.codes_table, "--codes-table"),
+    ] {
         if let Some(p) = p {
             check_output(p, flag, atlas_dir, a.force)?;
         }
@@ -336,6 +379,17 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
         }
         None => None,
     };
+    let mut book = from
+        .as_ref()
+        .map(|c| c.codebook.clone())
+        .unwrap_or_default();
+    let mut codes = from.as_ref().map(|c| c.codes.clone()).unwrap_or_default();
+    if let Some(p) = &a.codebook {
+        book = coding::read_codebook(p)?;
+    }
+    coding::merge_files(&mut book, &mut codes, &a.merges, &manifest_sha, &mut notes)?;
+    notes.extend(coding::apply_recodes(&book, &mut codes, &a.recodes)?);
+    coding::require_fit(&book, &codes)?;
     let mut steps = from.as_ref().map(|c| c.steps.clone()).unwrap_or_default();
     let mut filters = from.as_ref().map(|c| c.filters.clone()).unwrap_or_default();
     let extra_steps = steps_from_args(a, !steps.is_empty())?;
@@ -432,6 +486,41 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
             .unwrap_or(0);
         rfc3339_utc(secs)
     });
+
+    // Codes: imported from spreadsheets, then checked and read over the corpus's items.
+    let id_col = id_column(m);
+    let in_atlas = |id: &str| index.contains_key(id);
+    for (p, settled) in [(&a.codes, false), (&a.settle, true)] {
+        if let Some(p) = p {
+            if book.is_empty() {
+                bail!(
+                    "{}: there is no codebook to read codes against (give --codebook FILE)",
+                    p.display()
+                );
+            }
+            let coder = a.coder.as_deref().unwrap_or_default().trim();
+            if coder.is_empty() {
+                bail!("--coder: give the coder's name");
+            }
+            let new = coding::import_codes(
+                p, &book, &id_col, &in_atlas, coder, &time, settled, &mut notes,
+            )?;
+            coding::put_codes(&mut codes, new, p, &mut notes);
+        }
+    }
+    let in_corpus = |id: &str| index.get(id).is_some_and(|&i| mask.get(i));
+    coding::note_outside(&codes, &in_atlas, &in_corpus, &mut notes);
+    let coded = Coded::new(&codes);
+    let corpus_ids: Vec<&str> = items.iter().map(|&i| ids.get(i)).collect();
+    for (p, flag) in [
+        (&a.agreement, "--agreement"),
+        (&a.disagreements, "--disagreements"),
+        (&a.codes_table, "--codes-table"),
+    ] {
+        if p.is_some() && book.is_empty() {
+            bail!("{flag}: the corpus has no codebook (give --codebook FILE, or --from a coded corpus file)");
+        }
+    }
     let file = CorpusFile {
         format: CORPUS_FORMAT.into(),
         format_version: CORPUS_VERSION,
@@ -452,6 +541,8 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
             time,
             by: "vitrine corpus".into(),
         },
+        codebook: book.clone(),
+        codes: codes.clone(),
     };
     let mut written = Vec::new();
     if let Some(p) = &a.csv {
@@ -460,9 +551,37 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
         } else {
             CsvStyle::Spreadsheet
         };
-        std::fs::write(p, csv(m, &ids, &cols, &items, style))
+        let taken: Vec<&str> = cols.iter().map(|c| c.field.name.as_str()).collect();
+        let cc = code_columns(&book, &coded, &taken);
+        std::fs::write(p, csv(m, &ids, &cols, &items, style, Some((&cc, &coded))))
             .with_context(|| format!("writing {}", p.display()))?;
         written.push(p.clone());
+    }
+    let order: HashMap<&str, usize> = corpus_ids
+        .iter()
+        .enumerate()
+        .map(|(k, i)| (*i, k))
+        .collect();
+    type Table<'t> = Box<dyn Fn() -> String + 't>;
+    let tables: [(&Option<PathBuf>, Table); 3] = [
+        (
+            &a.agreement,
+            Box::new(|| coding::agreement_csv(&book, &coded, &corpus_ids)),
+        ),
+        (
+            &a.disagreements,
+            Box::new(|| coding::disagreements_csv(&book, &coded, &corpus_ids, &id_col)),
+        ),
+        (
+            &a.codes_table,
+            Box::new(|| coding::codes_csv(&codes, &order, &id_col)),
+        ),
+    ];
+    for (p, text) in tables {
+        if let Some(p) = p {
+            std::fs::write(p, text()).with_context(|| format!("writing {}", p.display()))?;
+            written.push(p.clone());
+        }
     }
     if let Some(p) = &a.json {
         std::fs::write(p, file.to_json()).with_context(|| format!("writing {}", p.display()))?;

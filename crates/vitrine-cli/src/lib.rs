@@ -4,6 +4,7 @@
 //! parses the flags and dispatches.
 
 pub mod build;
+pub mod coding;
 pub mod corpus;
 pub mod export;
 pub mod http;

@@ -24,24 +24,24 @@ struct Cli {
 
 #[derive(Subcommand)]
 enum Command {
-    Build(build::BuildArgs),
+    Build(Box<build::BuildArgs>),
     Serve(serve::ServeArgs),
     Inspect(inspect::InspectArgs),
     Export(export::ExportArgs),
-    Corpus(corpus::CorpusArgs),
+    Corpus(Box<corpus::CorpusArgs>),
 }
 
 fn main() -> ExitCode {
     let done = match Cli::parse().command {
         Command::Build(a) => {
             vitrine_cli::keep_freed_memory();
-            build::run(a)
+            build::run(*a)
         }
         // The server gives back what its connections freed (it runs for days).
         Command::Serve(a) => serve::run(a),
         Command::Inspect(a) => inspect::run(a),
         Command::Export(a) => export::run(a),
-        Command::Corpus(a) => corpus::run(a),
+        Command::Corpus(a) => corpus::run(*a),
     };
     match done {
         Ok(()) => ExitCode::SUCCESS,

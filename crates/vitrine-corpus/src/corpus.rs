@@ -2,6 +2,7 @@
 
 use serde::{Deserialize, Serialize};
 
+use crate::coding::{check_form, Code, Codebook};
 use crate::columns::FieldColumn;
 use crate::filter::{apply, Filter};
 use crate::mask::Mask;
@@ -116,7 +117,8 @@ pub fn corpus_mask(
 }
 
 pub const CORPUS_FORMAT: &str = "vitrine-corpus";
-pub const CORPUS_VERSION: u32 = 1;
+/// The version written; readers also take version 1 (before codebooks and codes).
+pub const CORPUS_VERSION: u32 = 2;
 
 /// The atlas a corpus was drawn from.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -156,6 +158,12 @@ pub struct CorpusFile {
     /// The corpus's items by id, in atlas order.
     pub ids: Vec<String>,
     pub made: Made,
+    /// The variables the corpus is coded against (version 2; empty when nobody coded).
+    #[serde(default, skip_serializing_if = "Codebook::is_empty")]
+    pub codebook: Codebook,
+    /// Every coder's codes, settled values beside them (version 2).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub codes: Vec<Code>,
 }
 
 impl CorpusFile {
@@ -169,9 +177,9 @@ impl CorpusFile {
             )));
         }
         let version = v.get("format_version").and_then(|f| f.as_u64());
-        if version != Some(CORPUS_VERSION as u64) {
+        if !matches!(version, Some(1) | Some(2)) {
             return Err(CorpusError::Invalid(format!(
-                "corpus format version {version:?} is not supported (this reader knows {CORPUS_VERSION})"
+                "corpus format version {version:?} is not supported (this reader knows 1 and {CORPUS_VERSION})"
             )));
         }
         // Read whole; when that fails, read the steps and filters one by one to name the one at
@@ -192,6 +200,17 @@ impl CorpusFile {
                     named("filters", "filter", &|i| {
                         Filter::deserialize(i).err().map(|e| e.to_string())
                     })
+                })
+                .or_else(|| {
+                    named("codes", "code", &|i| {
+                        Code::deserialize(i).err().map(|e| e.to_string())
+                    })
+                })
+                .or_else(|| {
+                    let cb = v.get("codebook")?;
+                    Codebook::deserialize(cb)
+                        .err()
+                        .map(|e| format!("codebook: {e}"))
                 });
                 return Err(match culprit {
                     Some(why) => CorpusError::Invalid(why),
@@ -206,6 +225,8 @@ impl CorpusFile {
                 })?;
             }
         }
+        c.codebook.check()?;
+        check_form(&c.codes)?;
         if c.ids.len() != c.count {
             return Err(CorpusError::Invalid(format!(
                 "the corpus file says {} items but lists {} ids",

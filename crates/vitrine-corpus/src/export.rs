@@ -3,6 +3,7 @@
 use serde_json::{json, Value};
 use vitrine_format::{FieldKind, Manifest, TextTable};
 
+use crate::coding::{CodeColumn, Coded};
 use crate::columns::{Column, FieldColumn};
 
 /// One CSV field (RFC 4180): quoted when it holds a comma, a quote, a line break or outer spaces.
@@ -96,18 +97,26 @@ pub fn id_column(m: &Manifest) -> String {
         .to_string()
 }
 
+/// The codes a CSV export carries: the columns and the codes they are read from.
+pub type CodeCells<'a> = (&'a [CodeColumn], &'a Coded<'a>);
+
 /// The catalogue rows of `items` (atlas order): the id column, then every field as the catalogue
-/// wrote it, one row per item, CRLF line ends (RFC 4180), the cells written for `style`.
+/// wrote it, then the code columns when `codes` are given, one row per item, CRLF line ends
+/// (RFC 4180), the cells written for `style`.
 pub fn csv(
     m: &Manifest,
     ids: &TextTable,
     cols: &[FieldColumn],
     items: &[usize],
     style: CsvStyle,
+    codes: Option<CodeCells>,
 ) -> String {
     let mut out = String::new();
     let id = id_column(m);
-    let head = std::iter::once(id.as_str()).chain(cols.iter().map(|c| c.field.name.as_str()));
+    let code_cols: &[CodeColumn] = codes.map_or(&[], |c| c.0);
+    let head = std::iter::once(id.as_str())
+        .chain(cols.iter().map(|c| c.field.name.as_str()))
+        .chain(code_cols.iter().map(|c| c.header.as_str()));
     csv_row(
         &mut out,
         head.map(|h| cell(h, false, style))
@@ -118,10 +127,15 @@ pub fn csv(
     let numeric: Vec<bool> = cols
         .iter()
         .map(|c| matches!(c.field.kind, FieldKind::Number | FieldKind::Date))
+        .chain(code_cols.iter().map(|c| c.numeric))
         .collect();
     for &i in items {
-        let texts: Vec<String> = cols.iter().map(|c| c.text(i)).collect();
-        let cells = std::iter::once(cell(ids.get(i), false, style))
+        let item = ids.get(i);
+        let mut texts: Vec<String> = cols.iter().map(|c| c.text(i)).collect();
+        if let Some((cc, coded)) = codes {
+            texts.extend(cc.iter().map(|c| c.cell(coded, item)));
+        }
+        let cells = std::iter::once(cell(item, false, style))
             .chain(
                 texts
                     .iter()

@@ -9,6 +9,7 @@
 //! Invariant: no dependency that cannot compile for wasm32; nothing here touches the DOM or files.
 
 pub mod agreement;
+pub mod coding;
 pub mod columns;
 pub mod corpus;
 pub mod export;

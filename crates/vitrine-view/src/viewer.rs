@@ -86,6 +86,10 @@ pub struct Viewer {
     /// SHA-256 of the atlas.json text: names the atlas in corpus files and links.
     pub manifest_sha: String,
     pub filters: Filters,
+    /// The codebook the corpus is coded against, and every coder's codes (kept from an opened
+    /// corpus file and written back with it: nothing a coder entered is lost).
+    pub codebook: vitrine_corpus::coding::Codebook,
+    pub codes: Vec<vitrine_corpus::coding::Code>,
     /// The corpus's items in atlas order, as the tray's grid shows them.
     pub tray_items: Vec<u32>,
     /// The marks' own colours (their pictures' averages) while they are coloured by a field.
@@ -155,6 +159,8 @@ impl Viewer {
             id_index: None,
             manifest_sha,
             filters: Default::default(),
+            codebook: Default::default(),
+            codes: Vec::new(),
             tray_items: Vec::new(),
             picture_colours: None,
             layer: Default::default(),

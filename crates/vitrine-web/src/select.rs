@@ -3,6 +3,7 @@
 //! selected, and how, is decided by the core's viewer.
 
 use super::*;
+use vitrine_corpus::coding::{code_columns, Coded};
 use vitrine_corpus::corpus::{AtlasRef, CorpusFile, Made, Op, Shape, Step};
 use vitrine_corpus::corpus::{CORPUS_FORMAT, CORPUS_VERSION};
 use vitrine_corpus::export::{build_record, csv, iiif_manifest, CsvStyle, IiifOptions};
@@ -326,11 +327,24 @@ pub fn export(kind: &str) {
             } else {
                 CsvStyle::Exact
             };
-            (
-                format!("{stem}.csv"),
-                "text/csv;charset=utf-8",
-                csv(m, &a.atlas.ids, &a.atlas.fields, &items, style),
-            )
+            (format!("{stem}.csv"), "text/csv;charset=utf-8", {
+                let coded = Coded::new(&a.codes);
+                let taken: Vec<&str> = a
+                    .atlas
+                    .fields
+                    .iter()
+                    .map(|f| f.field.name.as_str())
+                    .collect();
+                let cc = code_columns(&a.codebook, &coded, &taken);
+                csv(
+                    m,
+                    &a.atlas.ids,
+                    &a.atlas.fields,
+                    &items,
+                    style,
+                    Some((&cc, &coded)),
+                )
+            })
         }
         "iiif" => {
             let href = web_sys::window()
@@ -378,6 +392,8 @@ pub fn export(kind: &str) {
                     time: js_sys::Date::new_0().to_iso_string().into(),
                     by: "viewer".into(),
                 },
+                codebook: a.codebook.clone(),
+                codes: a.codes.clone(),
             };
             (
                 format!("{stem}.corpus.json"),

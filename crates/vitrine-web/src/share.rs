@@ -132,6 +132,11 @@ pub fn open_file(text: String) {
     if let Err(e) = apply(&file.map, file.filters.clone(), file.steps.clone(), None) {
         return select::note(&format!("The corpus file could not be opened: {e}."));
     }
+    {
+        let mut a = app.borrow_mut();
+        a.codebook = file.codebook.clone();
+        a.codes = file.codes.clone();
+    }
     let corpus = document()
         .body()
         .and_then(|b| b.dataset().get("corpus"))
