@@ -11,7 +11,7 @@ use vitrine_corpus::coding::{
     recode, set_codes, Code, CodeValue, Codebook, Coded,
 };
 use vitrine_corpus::corpus::CorpusFile;
-use vitrine_corpus::export::{cell, csv_row, CsvStyle};
+use vitrine_corpus::export::{cell, csv_row, number, CsvStyle};
 
 /// A codebook from a file: `{"variables": [...]}`, or a corpus file's codebook.
 pub fn read_codebook(p: &Path) -> Result<Codebook> {
@@ -304,7 +304,7 @@ pub fn note_outside(
 }
 
 fn num(x: Option<f64>) -> String {
-    x.map(|v| format!("{v}")).unwrap_or_default()
+    x.map(number).unwrap_or_default()
 }
 
 /// The agreement table as CSV: one row per variable (per value of a several-choice variable).

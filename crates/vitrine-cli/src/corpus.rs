@@ -19,7 +19,7 @@ use vitrine_format::ArrayRef;
 
 use vitrine_build::read::Atlas;
 
-use crate::coding;
+use crate::{coding, measure};
 
 /// Rebuild a corpus without a browser: from a corpus file (saved in the viewer) and/or a
 /// selection given here, write its catalogue rows (CSV), its corpus file (JSON: the ids and
@@ -118,6 +118,45 @@ pub struct CorpusArgs {
     /// Write every code, one row each: id, variable, value, coder, time, settled (CSV).
     #[arg(long = "codes-table")]
     pub codes_table: Option<PathBuf>,
+    /// Write a time profile (CSV): weighted counts and shares per period with 95 % intervals,
+    /// of the corpus within the collection (with --compare, of both corpora), of a codebook
+    /// variable's values, or of a category field's values (--profile-of).
+    #[arg(long)]
+    pub profile: Option<PathBuf>,
+    /// Write the time profile as an SVG chart.
+    #[arg(long = "profile-svg")]
+    pub profile_svg: Option<PathBuf>,
+    /// What the profile counts: corpus (the default), a codebook variable, or a category field
+    /// (write variable:NAME or field:NAME where a name is both).
+    #[arg(long = "profile-of")]
+    pub profile_of: Option<String>,
+    /// Periods of this many years (default 25).
+    #[arg(long)]
+    pub bin: Option<i32>,
+    /// Take a category field's values as the periods (in the time order of their items' dates)
+    /// instead of periods of years.
+    #[arg(long)]
+    pub periods: Option<String>,
+    /// Profile only the years FROM..TO (the periods start at FROM).
+    #[arg(long, allow_hyphen_values = true)]
+    pub years: Option<String>,
+    /// The date field of the profile, when the catalogue has several.
+    #[arg(long = "date-field")]
+    pub date_field: Option<String>,
+    /// A field's profile keeps its N commonest values and joins the rest (default 12).
+    #[arg(long)]
+    pub top: Option<usize>,
+    /// Another corpus file (its ids) to compare this corpus with: --comparison writes the table,
+    /// --profile overlays the two corpora.
+    #[arg(long)]
+    pub compare: Option<PathBuf>,
+    /// Write the comparison (CSV): sizes and overlap, and per category field each value's count
+    /// and share in both, their ratio, the adjusted residual and the chi-square test.
+    #[arg(long)]
+    pub comparison: Option<PathBuf>,
+    /// The category fields to compare, comma-separated (default: every category field).
+    #[arg(long = "compare-fields", value_delimiter = ',')]
+    pub compare_fields: Vec<String>,
     /// Replace output files that exist.
     #[arg(long)]
     pub force: bool,
@@ -363,6 +402,9 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
         (&a.agreement, "--agreement"),
         (&a.disagreements, "--disagreements"),
         (&a.codes_table, "--codes-table"),
+        (&a.profile, "--profile"),
+        (&a.profile_svg, "--profile-svg"),
+        (&a.comparison, "--comparison"),
     ] {
         if let Some(p) = p {
             check_output(p, flag, atlas_dir, a.force)?;
@@ -544,7 +586,19 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
         codebook: book.clone(),
         codes: codes.clone(),
     };
-    let mut written = Vec::new();
+    let mut written = measure::measure(
+        a,
+        &measure::Made {
+            m,
+            ids: &ids,
+            cols: &cols,
+            items: &items,
+            index: &index,
+            book: &book,
+            coded: &coded,
+        },
+        &mut notes,
+    )?;
     if let Some(p) = &a.csv {
         let style = if a.csv_exact {
             CsvStyle::Exact

@@ -9,6 +9,7 @@ pub mod corpus;
 pub mod export;
 pub mod http;
 pub mod inspect;
+pub mod measure;
 pub mod progress;
 pub mod serve;
 

@@ -87,6 +87,18 @@ pub fn cell(s: &str, numeric: bool, style: CsvStyle) -> std::borrow::Cow<'_, str
     }
 }
 
+/// A number for a CSV of figures: the shortest text that reads back to the same f64, with an
+/// exponent below 1e-5 and from 1e16 on (`1.03e-70`, not seventy zeros), as R, pandas and
+/// spreadsheets read it.
+pub fn number(x: f64) -> String {
+    let a = x.abs();
+    if a != 0.0 && !(1e-5..1e16).contains(&a) {
+        format!("{x:e}")
+    } else {
+        format!("{x}")
+    }
+}
+
 /// The name of the catalogue's id column, as the build recorded it ("id" when it did not).
 pub fn id_column(m: &Manifest) -> String {
     m.provenance
@@ -348,6 +360,25 @@ pub fn iiif_manifest(
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn figures_read_back_exactly_and_tiny_ones_take_an_exponent() {
+        for x in [
+            0.0,
+            1.0,
+            -2.5,
+            0.1 + 0.2,
+            1.0321489252946542e-70,
+            6.02e23,
+            1e-5,
+            9.9e-6,
+        ] {
+            assert_eq!(number(x).parse::<f64>().unwrap(), x, "{}", number(x));
+        }
+        assert_eq!(number(1.5e-70), "1.5e-70");
+        assert_eq!(number(0.25), "0.25");
+        assert_eq!(number(12.0), "12");
+    }
 
     #[test]
     fn csv_fields_are_quoted_only_when_they_must_be() {

@@ -11,12 +11,14 @@
 pub mod agreement;
 pub mod coding;
 pub mod columns;
+pub mod compare;
 pub mod corpus;
 pub mod export;
 pub mod filter;
 pub mod mask;
 pub mod packed;
 pub mod polygon;
+pub mod profile;
 pub mod stats;
 pub mod summary;
 pub mod timeline;

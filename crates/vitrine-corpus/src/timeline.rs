@@ -51,6 +51,22 @@ impl Histogram {
     /// range covers in part, and into a difference array over the bins it covers whole (+w·bin at
     /// the first, −w·bin after the last), whose running sum is then added.
     pub fn add(&mut self, start: &[i32], end: &[i32], items: impl Iterator<Item = usize>) {
+        self.add_items(start, end, items, true)
+    }
+
+    /// As [`Histogram::add`], but the years outside the bins are left out (an item counts with
+    /// the part of its weight that falls inside them).
+    pub fn add_inside(&mut self, start: &[i32], end: &[i32], items: impl Iterator<Item = usize>) {
+        self.add_items(start, end, items, false)
+    }
+
+    fn add_items(
+        &mut self,
+        start: &[i32],
+        end: &[i32],
+        items: impl Iterator<Item = usize>,
+        clamp: bool,
+    ) {
         let nb = self.counts.len();
         let (from, bin) = (self.from as i64, self.bin as i64);
         let last = from + nb as i64 * bin - 1;
@@ -89,8 +105,10 @@ impl Histogram {
             per_bin += d;
             *c += per_bin;
         }
-        self.counts[0] += under;
-        self.counts[nb - 1] += over;
+        if clamp {
+            self.counts[0] += under;
+            self.counts[nb - 1] += over;
+        }
     }
 
     pub fn total(&self) -> f64 {
