@@ -798,6 +798,98 @@ test("by keyboard alone: named controls, the record nearest the centre, focus in
   assert.deepEqual(errors, []);
 });
 
+test("coding: a codebook made in the page, ten items coded from the keyboard, kept over a reload, exported and read natively, a second coder's file added", async () => {
+  const url = await serve(ATLAS);
+  const { page, errors } = await newPage(url);
+  await page.waitForFunction(() => document.body.dataset.coding === "restored", null, { timeout: 60000 });
+  const woodcuts = JSON.stringify({ kind: "category", field: "technique", values: ["woodcut"] });
+  await page.evaluate((f) => window.vitrineView.set_filter(f), woodcuts);
+  await page.locator("#tray").waitFor({ state: "visible" });
+  // The codebook: a one-choice variable with three values, and a yes/no variable.
+  await page.click("#codebook-button");
+  // Typed and committed as a person does: Enter fires the field's change.
+  // The editor draws itself anew after the event (a timer of 0 ms): a page-side timer queued after
+  // it lets it finish before the next field is found.
+  const change = async (loc, value) => {
+    await loc.fill(value);
+    await loc.press("Enter");
+    await page.evaluate(() => new Promise((r) => setTimeout(r, 20)));
+  };
+  await change(page.locator("#new-variable"), "framing");
+  await page.selectOption("#new-variable-kind", "one");
+  await page.click("#add-variable");
+  await change(page.locator("#codebook .value-name").first(), "full length");
+  await change(page.locator("#codebook .new-value").first(), "half length");
+  await change(page.locator("#codebook .new-value").first(), "head only");
+  await change(page.locator("#new-variable"), "signed");
+  await page.selectOption("#new-variable-kind", "yes-no");
+  await page.click("#add-variable");
+  assert.deepEqual(await page.locator("#codebook .codebook-values .key").allInnerTexts(), ["1", "2", "3"]);
+  assert.equal(await page.locator("#select-note").isVisible(), false, await page.locator("#select-note").innerText());
+  await page.screenshot({ path: path.join(ARTIFACTS, "20-codebook.png") });
+  await page.keyboard.press("Escape");
+  // The coding view, from the keyboard: k opens it, the first key asks for the coder's name.
+  await page.locator("#map").focus();
+  await page.keyboard.press("k");
+  await page.locator("#coding").waitFor({ state: "visible" });
+  assert.equal(await page.evaluate(() => document.activeElement.id), "coder", "no coder yet: the name is asked first");
+  await page.locator("#coder").fill("ana");
+  await page.locator("#coder").press("Enter");
+  await page.waitForFunction(() => document.activeElement.id === "coding");
+  const typed = [];
+  for (let k = 0; k < 10; k++) {
+    const item = await page.evaluate(() => document.body.dataset.codingItem);
+    const framing = 1 + (k % 3), signed = k % 4 === 0 ? 2 : 1;
+    await page.keyboard.press(String(framing));
+    await page.keyboard.press(String(signed));
+    typed.push({ item, framing: ["full length", "half length", "head only"][framing - 1], signed: signed === 1 });
+    if (k === 0) await page.screenshot({ path: path.join(ARTIFACTS, "21-coding-view.png") });
+    await page.keyboard.press("Enter");
+  }
+  // Ctrl+Z takes back the last code, and the view goes back to its item; the code is set again.
+  await page.keyboard.press("Control+z");
+  assert.equal(await page.evaluate(() => document.body.dataset.codingItem), typed[9].item);
+  await page.keyboard.press("1");
+  assert.match(await page.locator("#coding .coding-progress").innerText(), /framing\s+10 \/ \d+\s+signed\s+10 \/ \d+/);
+  await page.waitForFunction(() => document.body.dataset.codes === "20");
+  // Kept in the browser: a reload brings every code back.
+  await page.reload();
+  await page.waitForFunction(() => document.body.dataset.coding === "restored", null, { timeout: 60000 });
+  assert.equal(await page.evaluate(() => document.body.dataset.codes), "20");
+  await page.evaluate((f) => window.vitrineView.set_filter(f), woodcuts);
+  await page.locator("#tray").waitFor({ state: "visible" });
+  assert.match(await page.locator("#coding-status").innerText(), /2 variables, 20 codes; kept in this browser/);
+  // The corpus file carries the codebook and every code with its coder and time.
+  const dir = fs.mkdtempSync(path.join(os.tmpdir(), "vitrine-coding-"));
+  const [d] = await Promise.all([page.waitForEvent("download"), page.click("#export-json")]);
+  const file = path.join(dir, "ana.corpus.json");
+  await d.saveAs(file);
+  const saved = JSON.parse(fs.readFileSync(file, "utf8"));
+  assert.equal(saved.format_version, 2);
+  assert.deepEqual(saved.codebook.variables.map((v) => [v.name, v.kind]), [["framing", "one"], ["signed", "yes-no"]]);
+  for (const t of typed) {
+    const of = (v) => saved.codes.find((c) => c.item === t.item && c.variable === v);
+    assert.equal(of("framing").value, t.framing, t.item);
+    assert.equal(of("signed").value, t.signed, t.item);
+    assert.equal(of("framing").coder, "ana");
+    assert.match(of("framing").time, /^\d{4}-\d\d-\d\dT\d\d:\d\d:\d\d\.\d{3}Z$/);
+  }
+  // Natively: the long code table has the same twenty codes.
+  execFileSync(BIN, ["corpus", ATLAS, "--from", file, "--codes-table", path.join(dir, "codes.csv")]);
+  const table = readCsv(fs.readFileSync(path.join(dir, "codes.csv"), "utf8"));
+  assert.equal(table.length, 20);
+  assert.ok(table.every((r) => r.coder === "ana" && typed.some((t) => t.item === r.id)));
+  // A second coder, from a spreadsheet through the command line; her file is added in the page.
+  const sheet = "id,framing,signed\n" + typed.map((t, k) => `${t.item},${k < 7 ? t.framing : "head only"},${t.signed ? "yes" : "no"}`).join("\n") + "\n";
+  fs.writeFileSync(path.join(dir, "ben.csv"), sheet);
+  execFileSync(BIN, ["corpus", ATLAS, "--from", file, "--codes", path.join(dir, "ben.csv"), "--coder", "ben",
+    "--json", path.join(dir, "ben.corpus.json")]);
+  await page.setInputFiles("#merge-codes", path.join(dir, "ben.corpus.json"));
+  await page.waitForFunction(() => document.body.dataset.codes === "40");
+  assert.match(await page.locator("#select-note").innerText(), /Added 20 codes \(20 already here\)/);
+  assert.deepEqual(errors, []);
+});
+
 test("the page's Content-Security-Policy allows no inline script, no eval and no other origin, and the viewer runs under it", async () => {
   const url = await serve(ATLAS);
   const { page, errors } = await newPage(url);

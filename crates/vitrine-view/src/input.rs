@@ -52,6 +52,8 @@ pub enum Action {
     ToggleAbout,
     /// Paper (reading-room) or neutral grey surround.
     ToggleTheme,
+    /// The coding view over the corpus's items.
+    OpenCoding,
 }
 
 /// One key press as the page saw it.
@@ -141,6 +143,7 @@ pub fn key_action(k: &KeyPress, doing: Doing) -> Option<Action> {
         "?" => Action::ToggleHelp,
         "i" => Action::ToggleAbout,
         "g" => Action::ToggleTheme,
+        "k" => Action::OpenCoding,
         _ => return None,
     })
 }
@@ -162,6 +165,7 @@ pub const KEYS: &[(&str, &str)] = &[
     ("/", "search every text and category field"),
     ("c", "filters by field: values with their counts, number and date ranges"),
     ("g", "paper or neutral grey surround"),
+    ("k", "the coding view: code the corpus's items against the codebook, from the keyboard"),
     ("i, ?", "about this atlas; this list"),
     ("Escape", "drop what is under way, then close every panel"),
 ];

@@ -17,6 +17,7 @@
 
 pub mod atlas;
 pub mod camera;
+pub mod coding;
 pub mod colour;
 pub mod filters;
 pub mod grid;

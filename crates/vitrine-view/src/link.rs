@@ -25,19 +25,23 @@ pub fn round(v: f64) -> f64 {
 }
 
 fn rounded(steps: &[Step]) -> Vec<Step> {
-    steps
-        .iter()
-        .map(|s| Step {
-            op: s.op,
-            shape: match &s.shape {
-                Shape::Lasso(p) => Shape::Lasso(Polygon(
-                    p.0.iter().map(|q| [round(q[0]), round(q[1])]).collect(),
-                )),
-                Shape::Rect(r) => Shape::Rect(r.map(round)),
-                other => other.clone(),
-            },
-        })
-        .collect()
+    steps.iter().cloned().map(rounded_step).collect()
+}
+
+/// A step with its map coordinates as a link keeps them. The viewer applies drawn steps so
+/// rounded, so that the page, its link and its corpus file all select the very same items (an
+/// item a millionth of the map from a lasso's edge would otherwise fall on either side).
+pub fn rounded_step(s: Step) -> Step {
+    Step {
+        op: s.op,
+        shape: match s.shape {
+            Shape::Lasso(p) => Shape::Lasso(Polygon(
+                p.0.iter().map(|q| [round(q[0]), round(q[1])]).collect(),
+            )),
+            Shape::Rect(r) => Shape::Rect(r.map(round)),
+            other => other,
+        },
+    }
 }
 
 /// A selection step as a link carries it: items picked by hand go by their numbers in this

@@ -86,10 +86,10 @@ pub struct Viewer {
     /// SHA-256 of the atlas.json text: names the atlas in corpus files and links.
     pub manifest_sha: String,
     pub filters: Filters,
-    /// The codebook the corpus is coded against, and every coder's codes (kept from an opened
-    /// corpus file and written back with it: nothing a coder entered is lost).
-    pub codebook: vitrine_corpus::coding::Codebook,
-    pub codes: Vec<vitrine_corpus::coding::Code>,
+    /// The codebook the corpus is coded against, every coder's codes (from an opened corpus
+    /// file, the browser's store and the coding view; written back with the corpus file: nothing
+    /// a coder entered is lost), and the coding view's walk.
+    pub coding: crate::coding::Coding,
     /// The corpus's items in atlas order, as the tray's grid shows them.
     pub tray_items: Vec<u32>,
     /// The marks' own colours (their pictures' averages) while they are coloured by a field.
@@ -159,8 +159,7 @@ impl Viewer {
             id_index: None,
             manifest_sha,
             filters: Default::default(),
-            codebook: Default::default(),
-            codes: Vec::new(),
+            coding: Default::default(),
             tray_items: Vec::new(),
             picture_colours: None,
             layer: Default::default(),
@@ -610,6 +609,7 @@ impl Viewer {
             ));
         }
         let ids = matches!(step.shape, Shape::Ids(_));
+        let step = crate::link::rounded_step(step);
         self.with_lookup(ids, |sel, at| sel.push(step, at))
             .map_err(|e| e.to_string())
     }

@@ -82,6 +82,7 @@ impl std::ops::DerefMut for App {
     }
 }
 
+mod coding;
 mod filters;
 mod gl_present;
 mod select;
@@ -668,6 +669,7 @@ fn fetch_sheets(wanted: Vec<(usize, usize)>) {
             if card.is_some() {
                 open_card(card);
             }
+            coding::sheet_arrived(level, index);
             request_frame();
         });
     }
@@ -1055,6 +1057,7 @@ fn dispatch(action: Action) {
         Action::ToggleHelp => toggle_panel("help"),
         Action::ToggleAbout => toggle_panel("about"),
         Action::ToggleTheme => toggle_theme(),
+        Action::OpenCoding => coding::open(),
     }
 }
 
@@ -1062,6 +1065,9 @@ fn dispatch(action: Action) {
 /// open panel (record card, help, about, filter panel).
 fn escape() {
     if select::key_cancel() {
+        return;
+    }
+    if coding::escape() {
         return;
     }
     let selecting = app().is_some_and(|a| a.borrow().mode != Mode::Move);
@@ -1242,6 +1248,10 @@ fn install_events(canvas: &HtmlCanvasElement) {
             let tag = target.as_ref().map(|t| t.tag_name()).unwrap_or_default();
             // Keys typed into the search box or a filter's fields are text, not commands.
             if matches!(tag.as_str(), "INPUT" | "TEXTAREA" | "SELECT") {
+                return;
+            }
+            // The coding view, when open, takes every key it knows.
+            if coding::key(&e) {
                 return;
             }
             let key = e.key();
@@ -1463,6 +1473,7 @@ async fn load(base: String) -> Result<(), String> {
     filters::install();
     share::install();
     tray::install();
+    coding::install();
     if let Some(l) = by_id("loading") {
         l.set_hidden(true);
     }
@@ -1498,6 +1509,7 @@ async fn load_catalogue(base: String) -> Result<(), String> {
     timeline_strip::draw();
     filters::install_colour_menu();
     share::restore_from_address();
+    coding::restore().await;
     if let Some(c) = by_id("atlas-count") {
         c.set_text_content(Some(&format!("{count} items")));
     }

@@ -328,14 +328,14 @@ pub fn export(kind: &str) {
                 CsvStyle::Exact
             };
             (format!("{stem}.csv"), "text/csv;charset=utf-8", {
-                let coded = Coded::new(&a.codes);
+                let coded = Coded::new(&a.coding.codes);
                 let taken: Vec<&str> = a
                     .atlas
                     .fields
                     .iter()
                     .map(|f| f.field.name.as_str())
                     .collect();
-                let cc = code_columns(&a.codebook, &coded, &taken);
+                let cc = code_columns(&a.coding.book, &coded, &taken);
                 csv(
                     m,
                     &a.atlas.ids,
@@ -392,8 +392,8 @@ pub fn export(kind: &str) {
                     time: js_sys::Date::new_0().to_iso_string().into(),
                     by: "viewer".into(),
                 },
-                codebook: a.codebook.clone(),
-                codes: a.codes.clone(),
+                codebook: a.coding.book.clone(),
+                codes: a.coding.codes.clone(),
             };
             (
                 format!("{stem}.corpus.json"),

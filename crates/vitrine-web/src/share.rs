@@ -132,27 +132,25 @@ pub fn open_file(text: String) {
     if let Err(e) = apply(&file.map, file.filters.clone(), file.steps.clone(), None) {
         return select::note(&format!("The corpus file could not be opened: {e}."));
     }
-    {
-        let mut a = app.borrow_mut();
-        a.codebook = file.codebook.clone();
-        a.codes = file.codes.clone();
-    }
+    // Its codes join those kept here (nothing a coder entered is replaced).
+    let codes_note = super::coding::take_codes(&file);
     let corpus = document()
         .body()
         .and_then(|b| b.dataset().get("corpus"))
         .and_then(|c| c.parse::<usize>().ok());
     set_state("restored", "file");
-    match (same_atlas, corpus) {
-        (false, _) => select::note(&format!(
+    let said = match (same_atlas, corpus) {
+        (false, _) => format!(
             "Opened a corpus made on another atlas or build ({:?}): its steps and filters were replayed here.",
             file.atlas.title
-        )),
-        (true, Some(c)) if c != file.count => select::note(&format!(
+        ),
+        (true, Some(c)) if c != file.count => format!(
             "The corpus file lists {} items, its steps give {c} here.",
             file.count
-        )),
-        _ => select::note(&format!("Opened the corpus of {} items.", file.count)),
-    }
+        ),
+        _ => format!("Opened the corpus of {} items.", file.count),
+    };
+    select::note(format!("{said} {codes_note}").trim_end());
 }
 
 /// The tray's "Copy link" and "Open corpus file" buttons.

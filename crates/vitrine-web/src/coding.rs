@@ -1,0 +1,1404 @@
+//! The page's side of coding: the coding view (a keyboard-first walk through the corpus), the
+//! codebook editor, the browser's store of both (IndexedDB, written as each code is set, so a
+//! closed tab or a reload loses nothing), and adding another coder's corpus file.
+//!
+//! What a key does is decided by the core (`vitrine_view::coding`); this module draws and stores.
+
+use super::*;
+use vitrine_corpus::coding::{
+    merge_codebooks, merge_codes, CodeValue, Codebook, Kind, ValueDef, Variable,
+};
+use vitrine_view::coding::{value_keys, Effect, Order};
+use wasm_bindgen::JsValue;
+
+const DB_NAME: &str = "vitrine";
+const DB_STORE: &str = "coding";
+
+thread_local! {
+    /// The store's state: a write under way, another asked for meanwhile, the last generation
+    /// written, and whether the browser lets the page store at all.
+    static SAVING: RefCell<Saving> = RefCell::new(Saving::default());
+}
+
+#[derive(Default)]
+struct Saving {
+    busy: bool,
+    again: bool,
+    written: u64,
+    failed: Option<String>,
+}
+
+fn now_utc() -> String {
+    js_sys::Date::new_0().to_iso_string().into()
+}
+
+/// The key this atlas's coding is kept under: the page's address without the file name, so
+/// that a rebuilt atlas at the same place finds its codes again.
+fn store_key() -> String {
+    let loc = web_sys::window().unwrap().location();
+    let path = loc.pathname().unwrap_or_default();
+    let dir = &path[..path.rfind('/').map_or(0, |k| k + 1)];
+    format!("{}{dir}", loc.origin().unwrap_or_default())
+}
+
+/// A promise settled by an IndexedDB request.
+fn request(req: &web_sys::IdbRequest) -> js_sys::Promise {
+    let req = req.clone();
+    js_sys::Promise::new(&mut |resolve, reject| {
+        let r2 = req.clone();
+        let ok = Closure::once_into_js(move |_e: web_sys::Event| {
+            let _ = resolve.call1(&JsValue::NULL, &r2.result().unwrap_or(JsValue::UNDEFINED));
+        });
+        let r3 = req.clone();
+        let bad = Closure::once_into_js(move |_e: web_sys::Event| {
+            let why = r3
+                .error()
+                .ok()
+                .flatten()
+                .map(|e| e.message())
+                .unwrap_or_else(|| "the request failed".into());
+            let _ = reject.call1(&JsValue::NULL, &JsValue::from_str(&why));
+        });
+        req.set_onsuccess(Some(ok.unchecked_ref()));
+        req.set_onerror(Some(bad.unchecked_ref()));
+    })
+}
+
+async fn open_db() -> Result<web_sys::IdbDatabase, String> {
+    let factory = web_sys::window()
+        .and_then(|w| w.indexed_db().ok().flatten())
+        .ok_or("this browser gives the page no IndexedDB (a private window?)")?;
+    let open = factory
+        .open_with_u32(DB_NAME, 1)
+        .map_err(|_| "IndexedDB refused to open".to_string())?;
+    let o2 = open.clone();
+    let upgrade = Closure::once_into_js(move |_e: web_sys::Event| {
+        if let Ok(db) = o2
+            .result()
+            .and_then(|r| r.dyn_into::<web_sys::IdbDatabase>())
+        {
+            if !db.object_store_names().contains(DB_STORE) {
+                let _ = db.create_object_store(DB_STORE);
+            }
+        }
+    });
+    open.set_onupgradeneeded(Some(upgrade.unchecked_ref()));
+    let db = JsFuture::from(request(&open))
+        .await
+        .map_err(|e| e.as_string().unwrap_or_else(|| "IndexedDB failed".into()))?;
+    db.dyn_into()
+        .map_err(|_| "IndexedDB gave no database".to_string())
+}
+
+async fn store_op(write: Option<String>) -> Result<Option<String>, String> {
+    let db = open_db().await?;
+    let mode = if write.is_some() {
+        web_sys::IdbTransactionMode::Readwrite
+    } else {
+        web_sys::IdbTransactionMode::Readonly
+    };
+    let tx = db
+        .transaction_with_str_and_mode(DB_STORE, mode)
+        .map_err(|_| "IndexedDB: no transaction".to_string())?;
+    let store = tx
+        .object_store(DB_STORE)
+        .map_err(|_| "IndexedDB: no store".to_string())?;
+    let key = JsValue::from_str(&store_key());
+    let req = match &write {
+        Some(text) => store.put_with_key(&JsValue::from_str(text), &key),
+        None => store.get(&key),
+    }
+    .map_err(|_| "IndexedDB: the request was refused".to_string())?;
+    let got = JsFuture::from(request(&req))
+        .await
+        .map_err(|e| e.as_string().unwrap_or_else(|| "IndexedDB failed".into()))?;
+    db.close();
+    Ok(got.as_string())
+}
+
+/// What the browser keeps of an atlas's coding.
+#[derive(serde::Serialize, serde::Deserialize)]
+struct Kept {
+    format: String,
+    atlas_sha256: String,
+    coder: String,
+    codebook: Codebook,
+    codes: Vec<vitrine_corpus::coding::Code>,
+}
+
+/// Stores the codebook and codes now (and again once more if they change while it writes).
+pub fn save() {
+    let busy = SAVING.with(|s| {
+        let mut s = s.borrow_mut();
+        if s.busy {
+            s.again = true;
+        }
+        let was = s.busy;
+        s.busy = true;
+        was
+    });
+    if busy {
+        return;
+    }
+    wasm_bindgen_futures::spawn_local(async {
+        loop {
+            let snapshot = app().map(|a| {
+                let a = a.borrow();
+                let kept = Kept {
+                    format: "vitrine-coding".into(),
+                    atlas_sha256: a.manifest_sha.clone(),
+                    coder: a.coding.coder.clone(),
+                    codebook: a.coding.book.clone(),
+                    codes: a.coding.codes.clone(),
+                };
+                (
+                    a.coding.generation,
+                    serde_json::to_string(&kept).unwrap_or_default(),
+                )
+            });
+            let Some((generation, text)) = snapshot else {
+                break;
+            };
+            let result = store_op(Some(text)).await;
+            let again = SAVING.with(|s| {
+                let mut s = s.borrow_mut();
+                match result {
+                    Ok(_) => {
+                        s.written = generation;
+                        s.failed = None;
+                    }
+                    Err(e) => s.failed = Some(e),
+                }
+                let again = s.again;
+                s.again = false;
+                if !again {
+                    s.busy = false;
+                }
+                again
+            });
+            status();
+            if !again {
+                break;
+            }
+        }
+    });
+}
+
+/// After the catalogue: takes back what the browser kept for this atlas.
+pub async fn restore() {
+    let kept = match store_op(None).await {
+        Ok(Some(text)) => serde_json::from_str::<Kept>(&text).ok(),
+        Ok(None) => None,
+        Err(e) => {
+            SAVING.with(|s| s.borrow_mut().failed = Some(e));
+            None
+        }
+    };
+    if let (Some(k), Some(app)) = (kept, app()) {
+        let mut a = app.borrow_mut();
+        let other_build = k.atlas_sha256 != a.manifest_sha;
+        a.coding.coder = k.coder;
+        a.coding.load(k.codebook, k.codes);
+        SAVING.with(|s| s.borrow_mut().written = a.coding.generation);
+        drop(a);
+        if other_build {
+            select::note(
+                "Coding kept in this browser for an earlier build of this atlas was taken back.",
+            );
+        }
+    }
+    set_state("coding", "restored");
+    status();
+}
+
+/// The tray's line on coding: codes and how they are kept.
+pub fn status() {
+    let Some(app) = app() else { return };
+    let a = app.borrow();
+    let (written, failed) = SAVING.with(|s| {
+        let s = s.borrow();
+        (s.written, s.failed.clone())
+    });
+    let text = if a.coding.book.is_empty() && a.coding.codes.is_empty() {
+        "No codebook yet.".to_string()
+    } else {
+        let kept = match (&failed, written == a.coding.generation) {
+            (Some(e), _) => format!("not kept in this browser ({e}): save the corpus file"),
+            (None, true) => "kept in this browser".to_string(),
+            (None, false) => "saving…".to_string(),
+        };
+        format!(
+            "{} variables, {} codes; {kept}.",
+            a.coding.book.variables.len(),
+            a.coding.codes.len()
+        )
+    };
+    if let Some(s) = by_id("coding-status") {
+        s.set_text_content(Some(&text));
+    }
+    set_state(
+        "codes",
+        &if written == a.coding.generation && failed.is_none() {
+            a.coding.codes.len().to_string()
+        } else {
+            String::new()
+        },
+    );
+}
+
+/// After the codes or codebook changed: store them, redraw what shows them.
+fn changed() {
+    save();
+    status();
+}
+
+fn el(tag: &str, class: &str, text: &str) -> web_sys::Element {
+    let e = document().create_element(tag).unwrap();
+    if !class.is_empty() {
+        e.set_class_name(class);
+    }
+    if !text.is_empty() {
+        e.set_text_content(Some(text));
+    }
+    e
+}
+
+fn button(text: &str, title: &str, on: impl FnMut() + 'static) -> web_sys::Element {
+    let b = el("button", "", text);
+    if !title.is_empty() {
+        let _ = b.set_attribute("title", title);
+    }
+    let cb = Closure::<dyn FnMut()>::new(on);
+    let _ = b.add_event_listener_with_callback("click", cb.as_ref().unchecked_ref());
+    cb.forget();
+    b
+}
+
+fn is_open() -> bool {
+    by_id("coding").is_some_and(|c| !c.hidden())
+}
+
+/// Opens the coding view over the corpus (every item when nothing is chosen).
+pub fn open() {
+    let Some(app) = app() else { return };
+    {
+        let a = app.borrow();
+        if !a.atlas.catalogue {
+            return select::note("The catalogue is still loading: code in a moment.");
+        }
+        if a.coding.book.is_empty() {
+            drop(a);
+            select::note("Define the codebook first (the tray's Codebook…).");
+            return open_codebook();
+        }
+    }
+    {
+        let mut a = app.borrow_mut();
+        let items: Vec<u32> = if a.tray_items.is_empty() {
+            (0..a.atlas.n as u32).collect()
+        } else {
+            a.tray_items.clone()
+        };
+        let how = a
+            .coding
+            .walk
+            .as_ref()
+            .map_or(Order::UncodedFirst, |w| w.how);
+        start_walk(&mut a, &items, how);
+    }
+    if let Some(c) = by_id("coding") {
+        c.set_hidden(false);
+    }
+    set_state("codingView", "open");
+    render();
+    focus_view();
+}
+
+/// Gives the keyboard to the coding view (out of a field), or to the coder's name while none
+/// is given.
+fn focus_view() {
+    let nameless = app().is_some_and(|a| a.borrow().coding.coder.trim().is_empty());
+    if nameless {
+        return focus_field("coder");
+    }
+    if let Some(v) = by_id("coding") {
+        let _ = v.set_attribute("tabindex", "-1");
+        let _ = v.focus();
+    }
+}
+
+fn start_walk(a: &mut App, items: &[u32], how: Order) {
+    let years = a.atlas.fields.iter().find_map(|f| match &f.column {
+        vitrine_corpus::columns::Column::Date { start, .. } => Some(start.clone()),
+        _ => None,
+    });
+    let v = &mut a.viewer;
+    let ids = &v.atlas.ids;
+    let id_of = |i: usize| ids.get(i).to_string();
+    v.coding.start(items, how, &id_of, years.as_deref());
+}
+
+fn close() {
+    if let Some(c) = by_id("coding") {
+        c.set_hidden(true);
+    }
+    set_state("codingView", "");
+    focus_map();
+}
+
+/// A key while the coding view is open (not typed into one of its fields).
+pub fn key(e: &web_sys::KeyboardEvent) -> bool {
+    if !is_open() {
+        return false;
+    }
+    let Some(app) = app() else { return false };
+    let effect = {
+        let mut a = app.borrow_mut();
+        if a.coding.coder.trim().is_empty() && e.key().len() == 1 && !e.ctrl_key() {
+            drop(a);
+            e.prevent_default();
+            focus_field("coder");
+            return true;
+        }
+        let v = &mut a.viewer;
+        let ids = &v.atlas.ids;
+        let id_of = |i: usize| ids.get(i).to_string();
+        let ctrl = e.ctrl_key() || e.meta_key();
+        if e.key() == "Tab" && e.shift_key() {
+            v.coding.key("ArrowUp", false, "", &id_of)
+        } else {
+            v.coding.key(&e.key(), ctrl, &now_utc(), &id_of)
+        }
+    };
+    match effect {
+        Effect::None => return false,
+        Effect::Close => close(),
+        Effect::Coded => {
+            changed();
+            render();
+        }
+        Effect::Moved => render(),
+        Effect::Type(start) => {
+            render();
+            if let Some(f) = document()
+                .query_selector("#coding .current input, #coding .current textarea")
+                .ok()
+                .flatten()
+                .and_then(|f| f.dyn_into::<HtmlElement>().ok())
+            {
+                let _ = f.focus();
+                if let Some(i) = f.dyn_ref::<web_sys::HtmlInputElement>() {
+                    if !start.is_empty() {
+                        i.set_value(&start);
+                    }
+                }
+            }
+        }
+    }
+    e.prevent_default();
+    true
+}
+
+fn focus_field(id: &str) {
+    if let Some(f) = by_id(id) {
+        let _ = f.focus();
+    }
+}
+
+/// Sets the current item's value of variable `v` from a field (a number or a note).
+fn set_from_field(v: usize, text: String) {
+    let Some(app) = app() else { return };
+    let outcome = {
+        let mut a = app.borrow_mut();
+        let Some(item) = a.coding.current() else {
+            return;
+        };
+        let Some(var) = a.coding.book.variables.get(v).cloned() else {
+            return;
+        };
+        let id = a.atlas.id(item).to_string();
+        match CodeValue::parse(&var, &text) {
+            Ok(value) => Ok(a.viewer.coding.set(item, &id, &var.name, value, &now_utc())),
+            Err(why) => Err(why),
+        }
+    };
+    match outcome {
+        Ok(true) => {
+            changed();
+            render_soon(false);
+        }
+        Ok(false) => {}
+        Err(why) => select::note(&format!("Not coded: {why}.")),
+    }
+}
+
+/// Draws the coding view once the event under way is over (a field's own change handler must
+/// not take the field out of the page while it runs), then gives it the keyboard if `focus`.
+fn render_soon(focus: bool) {
+    let cb = Closure::once_into_js(move || {
+        render();
+        if focus {
+            focus_view();
+        }
+    });
+    if let Some(w) = web_sys::window() {
+        let _ = w.set_timeout_with_callback_and_timeout_and_arguments_0(cb.unchecked_ref(), 0);
+    }
+}
+
+/// Draws the coding view for the item the walk stands on.
+pub fn render() {
+    let Some(app) = app() else { return };
+    let Some(view) = by_id("coding") else { return };
+    // The largest thumbnail level's sheet of the item, fetched if it is not here yet.
+    let want = {
+        let a = app.borrow();
+        a.coding.current().and_then(|i| {
+            let l = a.sheets.levels.len();
+            (l > 0 && a.atlas.extents[i].0 > 0)
+                .then(|| (l - 1, a.sheets.sheet_of(l - 1, i)))
+                .filter(|&(l, s)| a.sheets.levels[l].loaded[s].is_none())
+        })
+    };
+    if let Some(w) = want {
+        fetch_sheets(vec![w]);
+    }
+    // A field being typed in keeps its text, caret and focus through the redraw (a picture
+    // arriving redraws the view while a coder types).
+    let doc = document();
+    let typing = doc
+        .active_element()
+        .filter(|e| view.contains(Some(e.as_ref())))
+        .and_then(|e| {
+            let key = e
+                .get_attribute("id")
+                .map(|id| format!("#{id}"))
+                .or_else(|| {
+                    e.get_attribute("data-field")
+                        .map(|f| format!("[data-field=\"{}\"]", f.replace('"', "\\\"")))
+                })?;
+            let f: HtmlElement = e.dyn_into().ok()?;
+            Some((key, field_value(&f), field_caret(&f)))
+        });
+    // Emptied before the state is borrowed: taking out a field with text not yet committed
+    // fires its change event here and then, and its handler borrows the state.
+    view.set_text_content(None);
+    render_view(&app, &view);
+    if let Some((key, value, caret)) = typing {
+        if let Some(f) = view
+            .query_selector(&key)
+            .ok()
+            .flatten()
+            .and_then(|e| e.dyn_into::<HtmlElement>().ok())
+        {
+            set_field(&f, &value, caret);
+            let _ = f.focus();
+        }
+    }
+}
+
+/// The item's largest thumbnail in the picture pane, or a line saying it is on its way.
+fn fill_picture(a: &App, item: usize, pane: &web_sys::Element) {
+    pane.set_text_content(None);
+    match card_picture(a, item) {
+        Some(pic) => {
+            let _ = pane.append_child(&pic);
+        }
+        None => {
+            let _ = pane.append_child(&el("p", "pending", "loading the picture…"));
+        }
+    }
+}
+
+fn field_caret(f: &HtmlElement) -> Option<u32> {
+    if let Some(i) = f.dyn_ref::<web_sys::HtmlInputElement>() {
+        i.selection_start().ok().flatten()
+    } else {
+        f.dyn_ref::<web_sys::HtmlTextAreaElement>()
+            .and_then(|t| t.selection_start().ok().flatten())
+    }
+}
+
+fn set_field(f: &HtmlElement, value: &str, caret: Option<u32>) {
+    if let Some(i) = f.dyn_ref::<web_sys::HtmlInputElement>() {
+        if i.type_() == "text" {
+            i.set_value(value);
+            if let Some(c) = caret {
+                let _ = i.set_selection_range(c, c);
+            }
+        }
+    } else if let Some(t) = f.dyn_ref::<web_sys::HtmlTextAreaElement>() {
+        t.set_value(value);
+        if let Some(c) = caret {
+            let _ = t.set_selection_range(c, c);
+        }
+    }
+}
+
+fn render_view(app: &Rc<RefCell<App>>, view: &HtmlElement) {
+    let a = app.borrow();
+    let doc = document();
+    let Some(w) = a.coding.walk.as_ref() else {
+        return;
+    };
+    let head = el("header", "coding-head", "");
+    let _ = head.append_child(&el("h2", "", "Coding"));
+    let count = el(
+        "span",
+        "count",
+        &format!(
+            "item {} of {} · {} finished",
+            (w.pos + 1).min(w.order.len()),
+            w.order.len(),
+            a.coding.finished_count()
+        ),
+    );
+    let _ = head.append_child(&count);
+    let coder_label = el("label", "", "Coder ");
+    let coder: web_sys::HtmlInputElement = doc.create_element("input").unwrap().dyn_into().unwrap();
+    coder.set_id("coder");
+    coder.set_value(&a.coding.coder);
+    coder.set_placeholder("your name");
+    let _ = coder.set_attribute("title", "Your name: every code keeps it, with the time");
+    let c2 = coder.clone();
+    listen(&coder, "change", true, move |_e: web_sys::Event| {
+        if let Some(app) = self::app() {
+            app.borrow_mut().viewer.coding.coder = c2.value().trim().to_string();
+            app.borrow_mut().viewer.coding.touched();
+        }
+        changed();
+        render_soon(true);
+    });
+    // Enter in the name field gives the keyboard back to the coding.
+    let c3 = coder.clone();
+    listen(
+        &coder,
+        "keydown",
+        false,
+        move |e: web_sys::KeyboardEvent| {
+            if e.key() == "Enter" || e.key() == "Escape" {
+                e.prevent_default();
+                e.stop_propagation();
+                let _ = c3.blur();
+            }
+        },
+    );
+    let _ = coder_label.append_child(&coder);
+    let _ = head.append_child(&coder_label);
+    let order_label = el("label", "", "Order ");
+    let order: web_sys::HtmlSelectElement =
+        doc.create_element("select").unwrap().dyn_into().unwrap();
+    order.set_id("coding-order");
+    for (v, t) in [
+        ("uncoded", "uncoded first"),
+        ("map", "map"),
+        ("date", "date"),
+        ("random", "random"),
+    ] {
+        let o = web_sys::HtmlOptionElement::new_with_text_and_value(t, v).unwrap();
+        let _ = order.append_child(&o);
+    }
+    order.set_value(match w.how {
+        Order::UncodedFirst => "uncoded",
+        Order::Map => "map",
+        Order::Date => "date",
+        Order::Random(_) => "random",
+    });
+    let o2 = order.clone();
+    listen(&order, "change", true, move |_e: web_sys::Event| {
+        let Some(app) = self::app() else { return };
+        {
+            let mut a = app.borrow_mut();
+            let items = a.coding.walk.as_ref().map(|w| {
+                let mut v = w.order.clone();
+                v.sort_unstable();
+                v
+            });
+            let how = match o2.value().as_str() {
+                "map" => Order::Map,
+                "date" => Order::Date,
+                // A seed from the clock, said in the view, so that the order can be told.
+                "random" => Order::Random((js_sys::Date::now() as u64) % 100_000),
+                _ => Order::UncodedFirst,
+            };
+            if let Some(items) = items {
+                start_walk(&mut a, &items, how);
+            }
+        }
+        render();
+    });
+    let _ = order_label.append_child(&order);
+    let _ = head.append_child(&order_label);
+    if let Order::Random(seed) = w.how {
+        let _ = head.append_child(&el("span", "count", &format!("seed {seed}")));
+    }
+    let _ = head.append_child(&button("Close", "Close the coding view (Escape)", close));
+    let _ = view.append_child(&head);
+
+    let Some(item) = a.coding.current() else {
+        let _ = view.append_child(&el("p", "pending", "The corpus is empty."));
+        return;
+    };
+    let id = a.atlas.id(item).to_string();
+    let pane = el("div", "coding-picture", "");
+    fill_picture(&a, item, &pane);
+    let _ = view.append_child(&pane);
+    let side = el("div", "coding-side", "");
+    let _ = side.append_child(&el("h3", "coding-title", &a.atlas.label(item)));
+    let dl = el("dl", "coding-record", "");
+    for line in a.atlas.record(item).into_iter().take(8) {
+        let _ = dl.append_child(&el("dt", "", &line.name));
+        let _ = dl.append_child(&el(
+            "dd",
+            "",
+            if line.value.is_empty() {
+                "—"
+            } else {
+                &line.value
+            },
+        ));
+    }
+    let _ = side.append_child(&dl);
+    let vars = el("ol", "coding-variables", "");
+    for (k, var) in a.coding.book.variables.iter().enumerate() {
+        let current = k == w.variable;
+        let li = el(
+            "li",
+            if current {
+                "variable current"
+            } else {
+                "variable"
+            },
+            "",
+        );
+        let _ = li.set_attribute("data-variable", &var.name);
+        let code = a.coding.code(&id, &var.name).map(|c| c.value.clone());
+        let name = el("div", "variable-name", &var.name);
+        let _ = name.set_attribute("title", &var.description);
+        let k2 = k;
+        let cb = Closure::<dyn FnMut()>::new(move || {
+            if let Some(app) = self::app() {
+                if let Some(w) = app.borrow_mut().viewer.coding.walk.as_mut() {
+                    w.variable = k2;
+                }
+            }
+            render();
+        });
+        let _ = name.add_event_listener_with_callback("click", cb.as_ref().unchecked_ref());
+        cb.forget();
+        let _ = li.append_child(&name);
+        match var.kind {
+            Kind::One | Kind::Several | Kind::YesNo => {
+                let choices: Vec<(String, Option<u8>, String, bool)> = if var.kind == Kind::YesNo {
+                    vec![
+                        (
+                            "yes".into(),
+                            Some(1),
+                            String::new(),
+                            code == Some(CodeValue::YesNo(true)),
+                        ),
+                        (
+                            "no".into(),
+                            Some(2),
+                            String::new(),
+                            code == Some(CodeValue::YesNo(false)),
+                        ),
+                    ]
+                } else {
+                    let keys = value_keys(var);
+                    var.values
+                        .iter()
+                        .zip(keys)
+                        .map(|(d, key)| {
+                            let on = match &code {
+                                Some(CodeValue::Text(t)) => t == &d.value,
+                                Some(CodeValue::Several(vs)) => vs.contains(&d.value),
+                                _ => false,
+                            };
+                            (d.value.clone(), key, d.description.clone(), on)
+                        })
+                        .collect()
+                };
+                let row = el("div", "values", "");
+                for (value, key, description, on) in choices {
+                    let text = match key {
+                        Some(k) => format!("{k} {value}"),
+                        None => value.clone(),
+                    };
+                    let (vname, kind) = (var.name.clone(), var.kind);
+                    let v2 = value.clone();
+                    let b = button(&text, &description, move || {
+                        choose(&vname, kind, &v2);
+                    });
+                    b.set_class_name(if on { "value on" } else { "value" });
+                    let _ = b.set_attribute("aria-pressed", if on { "true" } else { "false" });
+                    let _ = row.append_child(&b);
+                }
+                if var.kind == Kind::Several
+                    && matches!(&code, Some(CodeValue::Several(v)) if v.is_empty())
+                {
+                    let _ = row.append_child(&el("span", "count", "none of these"));
+                }
+                let _ = li.append_child(&row);
+            }
+            Kind::Number | Kind::Note => {
+                let field: HtmlElement = if var.kind == Kind::Note {
+                    let t: web_sys::HtmlTextAreaElement =
+                        doc.create_element("textarea").unwrap().dyn_into().unwrap();
+                    t.set_value(&code.as_ref().map(CodeValue::cell).unwrap_or_default());
+                    t.set_rows(2);
+                    t.into()
+                } else {
+                    let i: web_sys::HtmlInputElement =
+                        doc.create_element("input").unwrap().dyn_into().unwrap();
+                    i.set_type("text");
+                    let _ = i.set_attribute("inputmode", "decimal");
+                    i.set_value(&code.as_ref().map(CodeValue::cell).unwrap_or_default());
+                    i.into()
+                };
+                let _ = field.set_attribute("aria-label", &var.name);
+                let _ = field.set_attribute("data-field", &var.name);
+                let f2 = field.clone();
+                let note = var.kind == Kind::Note;
+                listen(
+                    &field,
+                    "keydown",
+                    false,
+                    move |e: web_sys::KeyboardEvent| {
+                        let done = match e.key().as_str() {
+                            "Enter" => !(note && e.shift_key()),
+                            "Escape" | "Tab" => true,
+                            _ => false,
+                        };
+                        if done {
+                            e.prevent_default();
+                            e.stop_propagation();
+                            let text = field_value(&f2);
+                            set_from_field(k, text);
+                            if let Some(v) = by_id("coding") {
+                                let _ = v.set_attribute("tabindex", "-1");
+                                let _ = v.focus();
+                            }
+                        }
+                    },
+                );
+                let f3 = field.clone();
+                listen(&field, "change", false, move |_e: web_sys::Event| {
+                    set_from_field(k, field_value(&f3));
+                });
+                let _ = li.append_child(&field);
+            }
+        }
+        if let Some(c) = a.coding.code(&id, &var.name) {
+            let _ = li.append_child(&el("div", "coded-by", &format!("{} · {}", c.coder, c.time)));
+        }
+        let _ = vars.append_child(&li);
+    }
+    let _ = side.append_child(&vars);
+    let progress = el("dl", "coding-progress", "");
+    for (name, n, total) in a.coding.progress() {
+        let _ = progress.append_child(&el("dt", "", &name));
+        let _ = progress.append_child(&el("dd", "", &format!("{n} / {total}")));
+    }
+    let _ = side.append_child(&progress);
+    let _ = view.append_child(&side);
+    let _ = view.append_child(&el(
+        "footer",
+        "coding-keys",
+        "1–9 set a value · ↑ ↓ (Tab) variable · → or Enter next item, ← previous · 0 or Backspace clear · \
+         e type a number or note · Ctrl+Z undo · Escape close",
+    ));
+    set_state("codingItem", &id);
+}
+
+fn field_value(f: &HtmlElement) -> String {
+    if let Some(i) = f.dyn_ref::<web_sys::HtmlInputElement>() {
+        i.value()
+    } else if let Some(t) = f.dyn_ref::<web_sys::HtmlTextAreaElement>() {
+        t.value()
+    } else {
+        String::new()
+    }
+}
+
+/// A click on a value button: the same as its key.
+fn choose(variable: &str, kind: Kind, value: &str) {
+    let Some(app) = app() else { return };
+    let changed_now = {
+        let mut a = app.borrow_mut();
+        if a.coding.coder.trim().is_empty() {
+            drop(a);
+            focus_field("coder");
+            return select::note("Give your name as coder first.");
+        }
+        let Some(item) = a.coding.current() else {
+            return;
+        };
+        let id = a.atlas.id(item).to_string();
+        let Some(var) = a.coding.book.variable(variable).cloned() else {
+            return;
+        };
+        let now = a.coding.code(&id, variable).map(|c| c.value.clone());
+        let value = match kind {
+            Kind::YesNo => CodeValue::YesNo(value == "yes"),
+            Kind::Several => {
+                let mut vs: Vec<String> = match now {
+                    Some(CodeValue::Several(v)) => v,
+                    _ => vec![],
+                };
+                if let Some(k) = vs.iter().position(|t| t == value) {
+                    vs.remove(k);
+                } else {
+                    vs.push(value.to_string());
+                }
+                vs.sort_by_key(|t| var.value_index(t));
+                CodeValue::Several(vs)
+            }
+            _ => CodeValue::Text(value.to_string()),
+        };
+        a.viewer
+            .coding
+            .set(item, &id, variable, Some(value), &now_utc())
+    };
+    if changed_now {
+        changed();
+    }
+    render();
+}
+
+fn is_codebook_open() -> bool {
+    by_id("codebook").is_some_and(|c| !c.hidden())
+}
+
+/// Shows the codebook editor (closing the coding view: its counts are made anew when it opens).
+pub fn open_codebook() {
+    if is_open() {
+        close();
+    }
+    if let Some(c) = by_id("codebook") {
+        c.set_hidden(false);
+    }
+    draw_codebook();
+    if let Some(c) = by_id("codebook") {
+        let _ = c.set_attribute("tabindex", "-1");
+        let _ = c.focus();
+    }
+}
+
+fn close_codebook() {
+    if let Some(c) = by_id("codebook") {
+        c.set_hidden(true);
+    }
+    focus_map();
+}
+
+fn confirm(text: &str) -> bool {
+    web_sys::window()
+        .and_then(|w| w.confirm_with_message(text).ok())
+        .unwrap_or(false)
+}
+
+fn input(value: &str, label: &str, class: &str) -> web_sys::HtmlInputElement {
+    let i: web_sys::HtmlInputElement = document()
+        .create_element("input")
+        .unwrap()
+        .dyn_into()
+        .unwrap();
+    i.set_value(value);
+    let _ = i.set_attribute("aria-label", label);
+    i.set_placeholder(label);
+    if !class.is_empty() {
+        i.set_class_name(class);
+    }
+    i
+}
+
+/// Applies an edit to the codebook after checking it; says why when it is refused.
+fn edit_book(f: impl FnOnce(&mut Codebook)) {
+    let Some(app) = app() else { return };
+    let result = {
+        let mut a = app.borrow_mut();
+        let mut book = a.coding.book.clone();
+        f(&mut book);
+        match book.check() {
+            Ok(()) => {
+                a.viewer.coding.book = book;
+                a.viewer.coding.touched();
+                Ok(())
+            }
+            Err(e) => Err(e.to_string()),
+        }
+    };
+    if let Err(e) = result {
+        select::note(&format!("Not changed: {e}."));
+    } else {
+        changed();
+    }
+    render_codebook();
+}
+
+/// Draws the codebook editor once the event under way is over (its fields' change handlers must
+/// not take their field out of the page while they run).
+fn render_codebook() {
+    render_codebook_then(|| {});
+}
+
+fn render_codebook_then(then: impl FnOnce() + 'static) {
+    let cb = Closure::once_into_js(move || {
+        draw_codebook();
+        then();
+    });
+    if let Some(w) = web_sys::window() {
+        let _ = w.set_timeout_with_callback_and_timeout_and_arguments_0(cb.unchecked_ref(), 0);
+    }
+}
+
+/// Draws the codebook editor now.
+fn draw_codebook() {
+    let Some(app) = app() else { return };
+    let Some(panel) = by_id("codebook") else {
+        return;
+    };
+    // Emptied before the state is borrowed: a field taken out with text not yet committed fires
+    // its change event here and then, and its handler edits the codebook.
+    panel.set_text_content(None);
+    let a = app.borrow();
+    let doc = document();
+    let head = el("header", "coding-head", "");
+    let _ = head.append_child(&el("h2", "", "Codebook"));
+    let _ = head.append_child(&button(
+        "Close",
+        "Close the codebook (Escape)",
+        close_codebook,
+    ));
+    let _ = panel.append_child(&head);
+    let _ = panel.append_child(&el(
+        "p",
+        "how",
+        "The variables every item of the corpus is coded for. Choice values get keys 1–9 in the coding view.",
+    ));
+    for (k, var) in a.coding.book.variables.iter().enumerate() {
+        let block = el("fieldset", "codebook-variable", "");
+        let _ = block.set_attribute("data-variable", &var.name);
+        let row = el("div", "row", "");
+        let name = input(&var.name, "variable name", "variable-name");
+        let old = var.name.clone();
+        let n2 = name.clone();
+        listen(&name, "change", true, move |_e: web_sys::Event| {
+            rename_variable(&old, n2.value().trim());
+        });
+        let _ = row.append_child(&name);
+        let _ = row.append_child(&el("span", "count", var.kind.label()));
+        let desc = input(&var.description, "what it records", "variable-description");
+        let d2 = desc.clone();
+        listen(&desc, "change", true, move |_e: web_sys::Event| {
+            let text = d2.value();
+            edit_book(|b| b.variables[k].description = text);
+        });
+        let _ = row.append_child(&desc);
+        let vname = var.name.clone();
+        let _ = row.append_child(&button("Remove", "Remove this variable", move || {
+            remove_variable(&vname)
+        }));
+        let _ = block.append_child(&row);
+        if matches!(var.kind, Kind::One | Kind::Several) {
+            let list = el("ol", "codebook-values", "");
+            let keys = value_keys(var);
+            for (j, d) in var.values.iter().enumerate() {
+                let li = el("li", "", "");
+                let _ = li.append_child(&el(
+                    "span",
+                    "key",
+                    &keys[j].map(|x| x.to_string()).unwrap_or_default(),
+                ));
+                let v = input(&d.value, "value", "value-name");
+                let (vn, old) = (var.name.clone(), d.value.clone());
+                let v2 = v.clone();
+                listen(&v, "change", true, move |_e: web_sys::Event| {
+                    rename_value(&vn, &old, v2.value().trim());
+                });
+                let _ = li.append_child(&v);
+                let dd = input(&d.description, "description", "value-description");
+                let dd2 = dd.clone();
+                listen(&dd, "change", true, move |_e: web_sys::Event| {
+                    let text = dd2.value();
+                    edit_book(|b| b.variables[k].values[j].description = text);
+                });
+                let _ = li.append_child(&dd);
+                let (vn, value) = (var.name.clone(), d.value.clone());
+                let _ = li.append_child(&button("×", "Remove this value", move || {
+                    remove_value(&vn, &value)
+                }));
+                let _ = list.append_child(&li);
+            }
+            let _ = block.append_child(&list);
+            let add = input("", "new value", "new-value");
+            let add2 = add.clone();
+            listen(&add, "change", true, move |_e: web_sys::Event| {
+                let value = add2.value().trim().to_string();
+                if value.is_empty() {
+                    return;
+                }
+                edit_book(|b| {
+                    b.variables[k].values.push(ValueDef {
+                        value,
+                        key: None,
+                        description: String::new(),
+                    })
+                });
+                render_codebook_then(move || focus_new_value(k));
+            });
+            let _ = block.append_child(&add);
+        }
+        let _ = panel.append_child(&block);
+    }
+    // A new variable: its name and kind.
+    let row = el("div", "row codebook-add", "");
+    let name = input("", "new variable", "new-variable");
+    name.set_id("new-variable");
+    let kind: web_sys::HtmlSelectElement =
+        doc.create_element("select").unwrap().dyn_into().unwrap();
+    kind.set_id("new-variable-kind");
+    let _ = kind.set_attribute("aria-label", "its kind");
+    for (v, t) in [
+        ("one", "one choice"),
+        ("several", "several choices"),
+        ("yes-no", "yes/no"),
+        ("number", "number"),
+        ("note", "note"),
+    ] {
+        let _ =
+            kind.append_child(&web_sys::HtmlOptionElement::new_with_text_and_value(t, v).unwrap());
+    }
+    let (n2, k2) = (name.clone(), kind.clone());
+    let add = button("Add variable", "Add a variable of this kind", move || {
+        let name = n2.value().trim().to_string();
+        if name.is_empty() {
+            return select::note("Name the variable first.");
+        }
+        let kind: Kind =
+            serde_json::from_value(serde_json::Value::String(k2.value())).unwrap_or(Kind::One);
+        // A choice variable is made with a first value to rename, as it needs one.
+        let values = if matches!(kind, Kind::One | Kind::Several) {
+            vec![ValueDef {
+                value: "value 1".into(),
+                key: None,
+                description: String::new(),
+            }]
+        } else {
+            vec![]
+        };
+        edit_book(|b| {
+            b.variables.push(Variable {
+                name,
+                kind,
+                description: String::new(),
+                values,
+            })
+        });
+    });
+    add.set_id("add-variable");
+    let _ = row.append_child(&name);
+    let _ = row.append_child(&kind);
+    let _ = row.append_child(&add);
+    let _ = panel.append_child(&row);
+    drop(a);
+}
+
+fn focus_new_value(k: usize) {
+    if let Some(f) = document()
+        .query_selector_all("#codebook .new-value")
+        .ok()
+        .and_then(|l| l.get(k as u32))
+        .and_then(|n| n.dyn_into::<HtmlElement>().ok())
+    {
+        let _ = f.focus();
+    }
+}
+
+fn rename_variable(old: &str, new: &str) {
+    let Some(app) = app() else { return };
+    if new.is_empty() || new == old {
+        return render_codebook();
+    }
+    if app.borrow().coding.book.variable(new).is_some() {
+        select::note(&format!(
+            "Not renamed: there is a variable {new:?} already."
+        ));
+        return render_codebook();
+    }
+    let n = app.borrow().coding.uses_variable(old);
+    if n > 0
+        && !confirm(&format!(
+            "Rename {old:?} to {new:?} in the codebook and in its {n} codes?"
+        ))
+    {
+        return render_codebook();
+    }
+    app.borrow_mut().viewer.coding.rename_variable(old, new);
+    changed();
+    render_codebook();
+}
+
+fn rename_value(variable: &str, old: &str, new: &str) {
+    let Some(app) = app() else { return };
+    if new.is_empty() || new == old {
+        return render_codebook();
+    }
+    let (n, taken) = {
+        let a = app.borrow();
+        (
+            a.coding.uses(variable, old),
+            a.coding
+                .book
+                .variable(variable)
+                .is_some_and(|v| v.value_index(new).is_some()),
+        )
+    };
+    if taken {
+        // Joining two values: the codes of the old one take the other.
+        if !confirm(&format!(
+            "{variable:?} has a value {new:?} already. Join {old:?} into it ({n} codes take {new:?})?"
+        )) {
+            return render_codebook();
+        }
+        let mut a = app.borrow_mut();
+        vitrine_corpus::coding::recode(&mut a.viewer.coding.codes, variable, old, new);
+        let codes = std::mem::take(&mut a.viewer.coding.codes);
+        let mut book = a.coding.book.clone();
+        if let Some(v) = book.variables.iter_mut().find(|v| v.name == variable) {
+            v.values.retain(|d| d.value != old);
+        }
+        a.viewer.coding.load(book, codes);
+    } else {
+        if n > 0
+            && !confirm(&format!(
+                "Rename {old:?} to {new:?} in the codebook and in its {n} codes?"
+            ))
+        {
+            return render_codebook();
+        }
+        let check = {
+            let mut b = app.borrow().coding.book.clone();
+            if let Some(v) = b.variables.iter_mut().find(|v| v.name == variable) {
+                for d in v.values.iter_mut().filter(|d| d.value == old) {
+                    d.value = new.to_string();
+                }
+            }
+            b.check()
+        };
+        if let Err(e) = check {
+            select::note(&format!("Not renamed: {e}."));
+            return render_codebook();
+        }
+        app.borrow_mut()
+            .viewer
+            .coding
+            .rename_value(variable, old, new);
+    }
+    changed();
+    render_codebook();
+}
+
+fn remove_value(variable: &str, value: &str) {
+    let Some(app) = app() else { return };
+    let (n, last) = {
+        let a = app.borrow();
+        (
+            a.coding.uses(variable, value),
+            a.coding
+                .book
+                .variable(variable)
+                .is_some_and(|v| v.values.len() == 1),
+        )
+    };
+    if last {
+        return select::note("A choice variable needs a value: remove the variable instead.");
+    }
+    if n > 0
+        && !confirm(&format!(
+            "{n} codes use {value:?}. Remove the value and those codes? (To keep them, rename the value, or type another value's name into it to join the two.)"
+        ))
+    {
+        return;
+    }
+    {
+        let mut a = app.borrow_mut();
+        a.viewer.coding.drop_codes(variable, Some(value));
+        if let Some(v) = a
+            .viewer
+            .coding
+            .book
+            .variables
+            .iter_mut()
+            .find(|v| v.name == variable)
+        {
+            v.values.retain(|d| d.value != value);
+        }
+        a.viewer.coding.touched();
+    }
+    changed();
+    render_codebook();
+}
+
+fn remove_variable(variable: &str) {
+    let Some(app) = app() else { return };
+    let n = app.borrow().coding.uses_variable(variable);
+    let ask = if n > 0 {
+        format!("Remove {variable:?} and its {n} codes?")
+    } else {
+        format!("Remove {variable:?}?")
+    };
+    if !confirm(&ask) {
+        return;
+    }
+    {
+        let mut a = app.borrow_mut();
+        a.viewer.coding.drop_codes(variable, None);
+        a.viewer
+            .coding
+            .book
+            .variables
+            .retain(|v| v.name != variable);
+        a.viewer.coding.touched();
+    }
+    changed();
+    render_codebook();
+}
+
+/// Adds a corpus file's codebook and codes to what is here; says what it did, or why nothing
+/// was added (the codebooks differ in a variable both have).
+pub fn take_codes(file: &vitrine_corpus::corpus::CorpusFile) -> String {
+    let Some(app) = app() else {
+        return String::new();
+    };
+    let note = {
+        let mut a = app.borrow_mut();
+        if file.codebook.is_empty() && file.codes.is_empty() {
+            return String::new();
+        }
+        match merge_codebooks(&a.coding.book, &file.codebook) {
+            Err(why) => {
+                format!("Its codes were not added: its codebook does not match this one ({why}).")
+            }
+            Ok(book) => {
+                let mut codes = a.coding.codes.clone();
+                let r = merge_codes(&mut codes, &file.codes);
+                a.viewer.coding.load(book, codes);
+                let mut s = format!("Added {} codes ({} already here)", r.added, r.same);
+                if r.replaced_by_later + r.kept_later > 0 {
+                    s.push_str(&format!(
+                        "; {} coded twice by one coder: the later kept",
+                        r.replaced_by_later + r.kept_later
+                    ));
+                }
+                s.push('.');
+                s
+            }
+        }
+    };
+    changed();
+    note
+}
+
+/// The tray's "Add a coder's file": a corpus file's codebook and codes join these (its steps and
+/// filters are not applied).
+pub fn merge_file(text: &str) {
+    match vitrine_corpus::corpus::CorpusFile::from_json(text) {
+        Ok(f) => {
+            let note = take_codes(&f);
+            select::note(if note.is_empty() {
+                "The file has no codes."
+            } else {
+                &note
+            });
+        }
+        Err(e) => select::note(&format!("Not added: {e}.")),
+    }
+}
+
+/// Escape with the coding view or the codebook open closes it; true when it did.
+pub fn escape() -> bool {
+    if is_open() {
+        close();
+        return true;
+    }
+    if is_codebook_open() {
+        close_codebook();
+        return true;
+    }
+    false
+}
+
+/// The tray's coding buttons and the store.
+pub fn install() {
+    if let Some(b) = by_id("codebook-button") {
+        listen(&b, "click", true, move |_e: web_sys::MouseEvent| {
+            open_codebook()
+        });
+    }
+    if let Some(b) = by_id("code-button") {
+        listen(&b, "click", true, move |_e: web_sys::MouseEvent| open());
+    }
+    if let Some(input) = document()
+        .get_element_by_id("merge-codes")
+        .and_then(|e| e.dyn_into::<web_sys::HtmlInputElement>().ok())
+    {
+        let i2 = input.clone();
+        listen(&input, "change", true, move |_e: web_sys::Event| {
+            let Some(file) = i2.files().and_then(|f| f.get(0)) else {
+                return;
+            };
+            let i3 = i2.clone();
+            wasm_bindgen_futures::spawn_local(async move {
+                if let Ok(t) = JsFuture::from(file.text()).await {
+                    merge_file(&t.as_string().unwrap_or_default());
+                }
+                i3.set_value("");
+            });
+        });
+        if let Some(b) = by_id("merge-codes-button") {
+            listen(&b, "click", true, move |_e: web_sys::MouseEvent| {
+                input.click()
+            });
+        }
+    }
+    // Store once more when the page is left (a write under way then still completes).
+    if let Some(w) = web_sys::window() {
+        listen(&w, "pagehide", true, move |_e: web_sys::Event| {
+            let behind = app().is_some_and(|a| {
+                a.borrow().coding.generation != SAVING.with(|s| s.borrow().written)
+            });
+            if behind {
+                save();
+            }
+        });
+    }
+    status();
+}
+
+/// A thumbnail sheet arrived: the coding view waiting for it draws its picture.
+pub fn sheet_arrived(level: usize, index: usize) {
+    let waiting = app().is_some_and(|a| {
+        let a = a.borrow();
+        let largest = a.sheets.levels.len().saturating_sub(1);
+        level == largest
+            && a.coding
+                .current()
+                .is_some_and(|i| a.sheets.sheet_of(largest, i) == index)
+    });
+    // Only the picture is drawn again: a field being typed in stays as it is.
+    if let (true, Some(app), Some(pane)) = (
+        waiting && is_open(),
+        app(),
+        document()
+            .query_selector("#coding .coding-picture")
+            .ok()
+            .flatten(),
+    ) {
+        let a = app.borrow();
+        if let Some(i) = a.coding.current() {
+            fill_picture(&a, i, &pane);
+        }
+    }
+}
