@@ -176,10 +176,13 @@ pub fn import_codes(
         if k == id_at {
             continue;
         }
+        // "framing (code)" is the variable of an export whose catalogue has a field "framing":
+        // then the plain "framing" column is the catalogue's, not codes.
+        let coded_apart = names.contains(&format!("{h} (code)").as_str());
         let plain = h.strip_suffix(" (code)").unwrap_or(h);
         match book.variable(plain) {
-            Some(v) => read.push((k, v)),
-            None => passed.push(h.to_string()),
+            Some(v) if !coded_apart => read.push((k, v)),
+            _ => passed.push(h.to_string()),
         }
     }
     if read.is_empty() {

@@ -132,6 +132,30 @@ pub fn measure(a: &CorpusArgs, x: &Made, notes: &mut Vec<String>) -> Result<Vec<
     if a.comparison.is_some() && other.is_none() {
         bail!("--comparison: give the corpus file to compare with (--compare FILE)");
     }
+    // The fields to compare, checked before anything is written.
+    let fields: Vec<&FieldColumn> = if a.compare_fields.is_empty() {
+        x.cols
+            .iter()
+            .filter(|c| c.field.kind == FieldKind::Category)
+            .collect()
+    } else {
+        a.compare_fields
+            .iter()
+            .map(|f| {
+                let c = x
+                    .cols
+                    .iter()
+                    .find(|c| &c.field.name == f)
+                    .with_context(|| {
+                        format!("--compare-fields: the catalogue has no field {f:?}")
+                    })?;
+                if c.field.kind != FieldKind::Category {
+                    bail!("--compare-fields: {f:?} is not a category field");
+                }
+                Ok(c)
+            })
+            .collect::<Result<_>>()?
+    };
 
     if a.profile.is_some() || a.profile_svg.is_some() {
         let dates = date_column(a, x)?;
@@ -165,7 +189,8 @@ pub fn measure(a: &CorpusArgs, x: &Made, notes: &mut Vec<String>) -> Result<Vec<
                  variable:{name} or field:{name}"
             ),
             (_, Some(v), None) => (
-                groups_of_variable(v, x.coded, x.ids, x.items)?,
+                groups_of_variable(v, x.coded, x.ids, x.items)?
+                    .keep_largest(a.top.unwrap_or(12), "(other values)"),
                 format!("{name}: share of the coded items"),
             ),
             (_, None, Some(f)) => (
@@ -296,21 +321,6 @@ pub fn measure(a: &CorpusArgs, x: &Made, notes: &mut Vec<String>) -> Result<Vec<
     }
 
     if let (Some(path), Some((on, oi))) = (&a.comparison, &other) {
-        let fields: Vec<&FieldColumn> = if a.compare_fields.is_empty() {
-            x.cols
-                .iter()
-                .filter(|c| c.field.kind == FieldKind::Category)
-                .collect()
-        } else {
-            a.compare_fields
-                .iter()
-                .map(|f| {
-                    x.cols.iter().find(|c| &c.field.name == f).with_context(|| {
-                        format!("--compare-fields: the catalogue has no field {f:?}")
-                    })
-                })
-                .collect::<Result<_>>()?
-        };
         let o = overlap(x.items, oi);
         if o.both > 0 {
             notes.push(format!(

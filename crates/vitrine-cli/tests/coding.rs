@@ -377,6 +377,33 @@ fn codes_that_do_not_fit_are_named_and_nothing_is_dropped() {
     );
     assert!(notes.contains("passed over: title"), "{notes}");
 
+    // An export whose catalogue has a field named as a variable: its "framing" column is the
+    // catalogue's and is passed over; "framing (code)" holds the codes. A defused cell reads back.
+    std::fs::write(
+        d.join("export.csv"),
+        "id,framing,framing (code),motifs\nit-03,some catalogue text,half length,'-\n",
+    )
+    .unwrap();
+    let notes = ok(&run(
+        d,
+        &[
+            "--from",
+            "ana.json",
+            "--codes",
+            "export.csv",
+            "--coder",
+            "cy",
+            "--codes-table",
+            "t.csv",
+        ],
+    ));
+    assert!(notes.contains("passed over: framing"), "{notes}");
+    let t = std::fs::read_to_string(d.join("t.csv")).unwrap();
+    assert!(
+        t.contains("it-03,framing,half length,cy,") && t.contains("it-03,motifs,'-,cy,"),
+        "{t}"
+    );
+
     // The codebook changes: "head only" renamed "head". The codes are not dropped: refused and
     // named until they are recoded.
     let renamed = BOOK.replace("\"head only\"", "\"head\"");

@@ -343,6 +343,26 @@ fn profiles_and_comparisons_equal_computations_written_apart_and_the_reference_p
     assert!(e.contains("\"colour\"") && e.contains("technique"), "{e}");
     let e = fails(d, &["--profile", "x.csv", "--periods", "dating"]);
     assert!(e.contains("category field"), "{e}");
+    let e = fails(
+        d,
+        &[
+            "--from",
+            "wood.json",
+            "--compare",
+            "etch.json",
+            "--comparison",
+            "z.csv",
+            "--compare-fields",
+            "nosuch",
+            "--profile",
+            "z.csv.profile",
+        ],
+    );
+    assert!(e.contains("no field \"nosuch\""), "{e}");
+    assert!(
+        !d.join("z.csv.profile").exists(),
+        "nothing is written when an input is wrong"
+    );
     let e = fails(d, &["--comparison", "x.csv"]);
     assert!(e.contains("--compare FILE"), "{e}");
     let notes = run(

@@ -183,10 +183,28 @@ impl CodeValue {
         }
     }
 
+    /// Whether two values say the same: several choices as sets (in whatever order they were
+    /// listed), numbers by value, the rest as they are.
+    pub fn same(&self, other: &CodeValue) -> bool {
+        match (self, other) {
+            (CodeValue::Several(a), CodeValue::Several(b)) => {
+                let (x, y): (BTreeSet<&String>, BTreeSet<&String>) =
+                    (a.iter().collect(), b.iter().collect());
+                x == y
+            }
+            (a, b) => a == b,
+        }
+    }
+
     /// Reads a CSV cell for a variable (the inverse of [`CodeValue::cell`]); None for an empty
     /// cell (not coded). Several choices are written in the codebook's order; "-" is a
     /// several-choice item coded with none of the values.
     pub fn parse(var: &Variable, cell: &str) -> Result<Option<CodeValue>, String> {
+        // A cell the spreadsheet-safe CSV defused ("'=…", "'-") reads back as it was written.
+        let cell = match cell.strip_prefix('\'') {
+            Some(rest) if crate::export::looks_like_formula(rest) => rest,
+            _ => cell,
+        };
         let t = cell.trim();
         if t.is_empty() {
             return Ok(None);
@@ -510,7 +528,7 @@ pub fn merge_codes(codes: &mut Vec<Code>, other: &[Code]) -> MergeReport {
                 codes.push(c.clone());
                 r.added += 1;
             }
-            Some(&i) if codes[i].value == c.value => r.same += 1,
+            Some(&i) if codes[i].value.same(&c.value) => r.same += 1,
             Some(&i) => {
                 if time_order(&c.time) > time_order(&codes[i].time) {
                     codes[i] = c.clone();
@@ -618,7 +636,7 @@ impl<'a> Coded<'a> {
             [] => Outcome::Uncoded,
             [(_, c)] => Outcome::One(c.value.clone()),
             [(_, first), rest @ ..] => {
-                if rest.iter().all(|(_, c)| c.value == first.value) {
+                if rest.iter().all(|(_, c)| c.value.same(&first.value)) {
                     Outcome::Agreed(first.value.clone())
                 } else {
                     Outcome::Disagreed
@@ -760,7 +778,7 @@ pub fn disagreements(book: &Codebook, coded: &Coded, items: &[&str]) -> Vec<Disa
     for var in &book.variables {
         for item in items {
             let codes = coded.codes_of(&var.name, item);
-            if codes.len() < 2 || codes.iter().all(|(_, c)| c.value == codes[0].1.value) {
+            if codes.len() < 2 || codes.iter().all(|(_, c)| c.value.same(&codes[0].1.value)) {
                 continue;
             }
             let mut values = vec![None; coded.coders.len()];
@@ -1014,6 +1032,35 @@ mod tests {
         assert!(CodeValue::parse(v("signed"), "perhaps").is_err());
         assert!(CodeValue::parse(v("figures"), "two").is_err());
         assert!(CodeValue::parse(v("motifs"), "tree; sky").is_err());
+    }
+
+    #[test]
+    fn several_choices_agree_in_any_order_and_defused_cells_read_back() {
+        let a = CodeValue::Several(vec!["tree".into(), "river".into()]);
+        let b = CodeValue::Several(vec!["river".into(), "tree".into()]);
+        assert!(a.same(&b) && a != b);
+        let time = "2026-12-01T10:00:00Z";
+        let codes = vec![
+            code("r1", "motifs", a, "ana", time),
+            code("r1", "motifs", b, "ben", time),
+        ];
+        let coded = Coded::new(&codes);
+        assert!(matches!(coded.outcome("motifs", "r1"), Outcome::Agreed(_)));
+        assert!(disagreements(&book(), &coded, &["r1"]).is_empty());
+        let bk = book();
+        assert_eq!(
+            CodeValue::parse(bk.variable("motifs").unwrap(), "'-").unwrap(),
+            Some(CodeValue::Several(vec![]))
+        );
+        assert_eq!(
+            CodeValue::parse(bk.variable("remarks").unwrap(), "'=faded").unwrap(),
+            Some(t("=faded"))
+        );
+        // An apostrophe before plain text is the text's own.
+        assert_eq!(
+            CodeValue::parse(bk.variable("remarks").unwrap(), "'tis faded").unwrap(),
+            Some(t("'tis faded"))
+        );
     }
 
     #[test]

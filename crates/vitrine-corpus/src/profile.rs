@@ -19,6 +19,10 @@ use crate::timeline::Histogram;
 use crate::CorpusError;
 use vitrine_format::TextTable;
 
+/// The most periods a profile has (a guard against a typing slip such as `--bin 1` over
+/// millennia).
+pub const MAX_PERIODS: usize = 100_000;
+
 /// The periods of a profile.
 pub enum Bins<'a> {
     /// Bins of `width` years: over `range` (from its first year; the last bin ends at or after
@@ -202,11 +206,19 @@ pub fn profile(
                         "the years {a}..{b} run backwards"
                     )))
                 }
-                Some((a, b)) => Histogram {
-                    from: *a,
-                    bin: *width,
-                    counts: vec![0.0; ((*b as i64 - *a as i64) / *width as i64 + 1) as usize],
-                },
+                Some((a, b)) => {
+                    let bins = (*b as i64 - *a as i64) / *width as i64 + 1;
+                    if bins > MAX_PERIODS as i64 {
+                        return Err(CorpusError::Invalid(format!(
+                            "{bins} periods of {width} years: choose wider periods or fewer years"
+                        )));
+                    }
+                    Histogram {
+                        from: *a,
+                        bin: *width,
+                        counts: vec![0.0; bins as usize],
+                    }
+                }
                 None => {
                     let (mut lo, mut hi) = (i32::MAX, i32::MIN);
                     for &i in groups.base.iter().filter(dated) {
@@ -219,7 +231,7 @@ pub fn profile(
                     Histogram::covering(lo, hi, *width)
                 }
             };
-            if h.counts.len() > 100_000 {
+            if h.counts.len() > MAX_PERIODS {
                 return Err(CorpusError::Invalid(format!(
                     "{} periods of {width} years: choose wider periods or fewer years",
                     h.counts.len()
@@ -548,7 +560,9 @@ fn pct(x: f64) -> String {
 /// its figures as a tooltip (`<title>`). Colours: the Okabe-Ito palette, grey for an "other" group.
 pub fn svg(p: &Profile, title: &str, note: &str) -> String {
     use std::fmt::Write;
-    let (w, h) = (760.0f64, 420.0f64);
+    // Taller when the legend needs it (34 px a group).
+    let w = 760.0f64;
+    let h = (420.0f64).max(44.0 + 10.0 + p.groups.len() as f64 * 34.0 + 40.0);
     let (left, right, top, bottom) = (58.0, 200.0, 44.0, 74.0);
     let (pw, ph) = (w - left - right, h - top - bottom);
     let nb = p.bins.len().max(1);
@@ -622,6 +636,12 @@ pub fn svg(p: &Profile, title: &str, note: &str) -> String {
         } else {
             vitrine_format::palette::OKABE_ITO[g % vitrine_format::palette::OKABE_ITO.len()]
         };
+        // Past the palette's eight colours, the lines are told apart by their dashes too.
+        let dash = match g / vitrine_format::palette::OKABE_ITO.len() {
+            0 => String::new(),
+            1 => r#" stroke-dasharray="6 3""#.to_string(),
+            _ => r#" stroke-dasharray="2 3""#.to_string(),
+        };
         let colour = format!("#{:02x}{:02x}{:02x}", c[0], c[1], c[2]);
         // Runs of periods with a share: a band and a line each.
         let mut runs: Vec<Vec<usize>> = Vec::new();
@@ -654,7 +674,7 @@ pub fn svg(p: &Profile, title: &str, note: &str) -> String {
                 .collect();
             let _ = writeln!(
                 s,
-                r##"<polyline points="{}" fill="none" stroke="{colour}" stroke-width="2"/>"##,
+                r##"<polyline points="{}" fill="none" stroke="{colour}" stroke-width="2"{dash}/>"##,
                 line.join(" ")
             );
         }
@@ -685,14 +705,21 @@ pub fn svg(p: &Profile, title: &str, note: &str) -> String {
             .unwrap_or_default();
         let _ = writeln!(
             s,
-            r##"<rect x="{lx:.1}" y="{:.1}" width="14" height="4" fill="{colour}"/><text x="{:.1}" y="{:.1}">{}</text><text x="{:.1}" y="{:.1}" fill="#6b645c">{:.0} dated items{}</text>"##,
-            ly - 4.0,
+            r##"<line x1="{lx:.1}" x2="{:.1}" y1="{:.1}" y2="{:.1}" stroke="{colour}" stroke-width="3"{dash}/><text x="{:.1}" y="{:.1}">{}</text><text x="{:.1}" y="{:.1}" fill="#6b645c">{:.0} {}{}</text>"##,
+            lx + 16.0,
+            ly - 2.0,
+            ly - 2.0,
             lx + 20.0,
             ly + 1.0,
             esc(&row.name),
             lx + 20.0,
             ly + 15.0,
             items,
+            if p.bins.iter().any(|b| b.years.is_some()) {
+                "dated items"
+            } else {
+                "items in a period"
+            },
             span
         );
     }
@@ -780,6 +807,17 @@ mod tests {
             "{e}"
         );
         assert!(profile(Some((&start, &end)), &groups, &years(1800, 1700)).is_err());
+        // Far too many periods is refused before anything is allocated for them.
+        let e = profile(
+            Some((&start, &end)),
+            &groups,
+            &Bins::Years {
+                width: 1,
+                range: Some((-2_000_000_000, 2_000_000_000)),
+            },
+        )
+        .unwrap_err();
+        assert!(e.to_string().contains("choose wider periods"), "{e}");
     }
 
     #[test]
