@@ -49,6 +49,8 @@ pub struct Walk {
 #[derive(Debug, Clone, PartialEq)]
 struct Change {
     index: usize,
+    /// Whose code it was (undo puts back that coder's code, whoever codes now).
+    coder: String,
     item: String,
     variable: String,
     before: Option<Code>,
@@ -71,19 +73,36 @@ pub enum Effect {
     Close,
 }
 
+/// Which code: item id, variable, coder, settled or not.
+pub type CodeKey = (String, String, String, bool);
+
+/// What changed since the page last stored the codes.
+#[derive(Debug, Clone, PartialEq, Default)]
+pub enum Dirty {
+    /// Nothing.
+    #[default]
+    Clean,
+    /// These codes (each now set, or gone).
+    Codes(Vec<CodeKey>),
+    /// Too much to say code by code (a file added, values renamed): store everything.
+    All,
+}
+
 /// The codebook, the codes, the coder and the walk.
 #[derive(Debug, Default)]
 pub struct Coding {
     pub book: Codebook,
     pub codes: Vec<Code>,
-    /// Where each (item, variable, coder, settled) code is in `codes`.
-    index: HashMap<(String, String, String, bool), usize>,
-    /// Whose codes the view sets.
+    /// Each item's codes (indices into `codes`): a lookup allocates nothing and scans a few.
+    by_item: HashMap<String, Vec<usize>>,
+    /// Whose codes the view sets (change it with [`Coding::set_coder`]).
     pub coder: String,
     pub walk: Option<Walk>,
     undo: Vec<Change>,
-    /// Changes with every change of the codebook or codes (the page stores them when it moves).
+    /// Changes with every change of the codebook or codes.
     pub generation: u64,
+    /// What the page has not stored yet.
+    pub dirty: Dirty,
 }
 
 /// The number key of each value of a choice variable: its own key, else the lowest key 1-9 no
@@ -117,38 +136,54 @@ impl Coding {
         self.codes = codes;
         self.reindex();
         self.undo.clear();
+        self.changed_all();
+    }
+
+    /// After a change of many codes or of the codebook: everything is stored again, undo
+    /// starts afresh, and the walk's counts are to be made anew ([`Coding::recount`]).
+    fn changed_all(&mut self) {
         self.generation += 1;
+        self.dirty = Dirty::All;
     }
 
     fn reindex(&mut self) {
-        self.index = self
-            .codes
-            .iter()
-            .enumerate()
-            .map(|(i, c)| {
-                (
-                    (
-                        c.item.clone(),
-                        c.variable.clone(),
-                        c.coder.clone(),
-                        c.settled,
-                    ),
-                    i,
-                )
-            })
-            .collect();
+        self.by_item.clear();
+        for (i, c) in self.codes.iter().enumerate() {
+            self.by_item.entry(c.item.clone()).or_default().push(i);
+        }
+    }
+
+    fn find(&self, item: &str, variable: &str, coder: &str, settled: bool) -> Option<usize> {
+        self.by_item.get(item)?.iter().copied().find(|&i| {
+            let c = &self.codes[i];
+            c.variable == variable && c.coder == coder && c.settled == settled
+        })
+    }
+
+    /// The code under `key`, if any.
+    pub fn get(&self, key: &CodeKey) -> Option<&Code> {
+        self.find(&key.0, &key.1, &key.2, key.3)
+            .map(|i| &self.codes[i])
     }
 
     /// This coder's code of `item` for `variable`.
     pub fn code(&self, item: &str, variable: &str) -> Option<&Code> {
-        self.index
-            .get(&(
-                item.to_string(),
-                variable.to_string(),
-                self.coder.clone(),
-                false,
-            ))
-            .map(|&i| &self.codes[i])
+        self.find(item, variable, &self.coder, false)
+            .map(|i| &self.codes[i])
+    }
+
+    /// Another coder codes from now: undo starts afresh (it holds the other coder's steps) and
+    /// the walk counts this coder's codes.
+    pub fn set_coder(&mut self, name: &str, ids: &dyn Fn(usize) -> String) {
+        if self.coder != name {
+            self.coder = name.to_string();
+            self.undo.clear();
+            self.recount(ids);
+            self.generation += 1;
+            if self.dirty == Dirty::Clean {
+                self.dirty = Dirty::Codes(vec![]);
+            }
+        }
     }
 
     /// Sets (or with None clears) this coder's code of item `index` (id `item`) for `variable`,
@@ -161,22 +196,23 @@ impl Coding {
         value: Option<CodeValue>,
         time: &str,
     ) -> bool {
-        let key = (
+        let key: CodeKey = (
             item.to_string(),
             variable.to_string(),
             self.coder.clone(),
             false,
         );
-        let before = self.index.get(&key).map(|&i| self.codes[i].clone());
+        let before = self.get(&key).cloned();
         if before.as_ref().map(|c| &c.value) == value.as_ref() {
             return false;
         }
         let (pos, var_index) = self.walk.as_ref().map_or((0, 0), |w| (w.pos, w.variable));
         self.undo.push(Change {
             index,
+            coder: self.coder.clone(),
             item: item.into(),
             variable: variable.into(),
-            before: before.clone(),
+            before,
             pos,
             var_index,
         });
@@ -192,57 +228,76 @@ impl Coding {
         true
     }
 
-    /// [`Coding::put`], keeping the walk's counts.
-    fn put_counted(
-        &mut self,
-        index: usize,
-        key: (String, String, String, bool),
-        code: Option<Code>,
-    ) {
-        let in_walk = self
-            .walk
-            .as_ref()
-            .is_some_and(|w| w.member.get(index).copied().unwrap_or(false));
+    /// [`Coding::put`], keeping the walk's counts (of this coder's codes).
+    fn put_counted(&mut self, index: usize, key: CodeKey, code: Option<Code>) {
+        let mine = key.2 == self.coder && !key.3;
+        let in_walk = mine
+            && self
+                .walk
+                .as_ref()
+                .is_some_and(|w| w.member.get(index).copied().unwrap_or(false));
         let var = self.book.variables.iter().position(|v| v.name == key.1);
-        let (was, was_finished) = (
-            self.index.contains_key(&key),
-            in_walk && self.finished(&key.0),
-        );
+        let was = self.get(&key).is_some();
+        let was_finished = in_walk && self.finished(&key.0);
         let id = key.0.clone();
         let now = code.is_some();
         self.put(key, code);
         if in_walk {
             let finished = self.finished(&id);
             let w = self.walk.as_mut().unwrap();
-            if let Some(v) = var {
+            if let Some(c) = var.and_then(|v| w.coded.get_mut(v)) {
                 match (was, now) {
-                    (false, true) => w.coded[v] += 1,
-                    (true, false) => w.coded[v] -= 1,
+                    (false, true) => *c += 1,
+                    (true, false) => *c = c.saturating_sub(1),
                     _ => {}
                 }
             }
             match (was_finished, finished) {
                 (false, true) => w.finished += 1,
-                (true, false) => w.finished -= 1,
+                (true, false) => w.finished = w.finished.saturating_sub(1),
                 _ => {}
             }
         }
     }
 
-    fn put(&mut self, key: (String, String, String, bool), code: Option<Code>) {
-        match (self.index.get(&key).copied(), code) {
+    /// Sets or removes the code under `key`: one code's work, whatever the number of codes.
+    fn put(&mut self, key: CodeKey, code: Option<Code>) {
+        match (self.find(&key.0, &key.1, &key.2, key.3), code) {
             (Some(i), Some(c)) => self.codes[i] = c,
             (None, Some(c)) => {
-                self.index.insert(key, self.codes.len());
+                self.by_item
+                    .entry(c.item.clone())
+                    .or_default()
+                    .push(self.codes.len());
                 self.codes.push(c);
             }
             (Some(i), None) => {
-                self.codes.remove(i);
-                self.reindex();
+                let last = self.codes.len() - 1;
+                let gone = self.codes.swap_remove(i);
+                if let Some(list) = self.by_item.get_mut(&gone.item) {
+                    list.retain(|&j| j != i);
+                    if list.is_empty() {
+                        self.by_item.remove(&gone.item);
+                    }
+                }
+                // The last code moved into place i.
+                if i != last {
+                    let moved = self.codes[i].item.clone();
+                    if let Some(list) = self.by_item.get_mut(&moved) {
+                        for j in list.iter_mut().filter(|j| **j == last) {
+                            *j = i;
+                        }
+                    }
+                }
             }
-            (None, None) => {}
+            (None, None) => return,
         }
         self.generation += 1;
+        match &mut self.dirty {
+            Dirty::All => {}
+            Dirty::Codes(keys) => keys.push(key),
+            Dirty::Clean => self.dirty = Dirty::Codes(vec![key]),
+        }
     }
 
     /// Undoes the last change; the walk goes back to where it was made. False when there is none.
@@ -250,7 +305,7 @@ impl Coding {
         let Some(ch) = self.undo.pop() else {
             return false;
         };
-        let key = (ch.item, ch.variable, self.coder.clone(), false);
+        let key = (ch.item, ch.variable, ch.coder, false);
         self.put_counted(ch.index, key, ch.before);
         if let Some(w) = &mut self.walk {
             w.pos = ch.pos.min(w.order.len().saturating_sub(1));
@@ -280,7 +335,7 @@ impl Coding {
         match how {
             Order::Map => {}
             Order::UncodedFirst => {
-                order.sort_by_key(|&i| self.finished(&ids(i as usize)));
+                order.sort_by_cached_key(|&i| self.finished(&ids(i as usize)));
             }
             Order::Date => {
                 if let Some(s) = start_years {
@@ -314,6 +369,16 @@ impl Coding {
         self.recount(ids);
     }
 
+    /// Whether the walk is over exactly `items` (atlas order).
+    pub fn walks(&self, items: &[u32]) -> bool {
+        self.walk.as_ref().is_some_and(|w| {
+            w.order.len() == items.len()
+                && items
+                    .iter()
+                    .all(|&i| w.member.get(i as usize) == Some(&true))
+        })
+    }
+
     /// Counts the walk's coded and finished items anew (after a change of many codes).
     pub fn recount(&mut self, ids: &dyn Fn(usize) -> String) {
         let Some(w) = &self.walk else { return };
@@ -334,6 +399,7 @@ impl Coding {
         let w = self.walk.as_mut().unwrap();
         w.coded = coded;
         w.finished = finished;
+        w.variable = w.variable.min(self.book.variables.len().saturating_sub(1));
     }
 
     /// The item the walk stands on.
@@ -417,6 +483,9 @@ impl Coding {
         };
         let id = ids(item);
         let now = self.code(&id, &var.name).map(|c| c.value.clone());
+        if var.kind == Kind::Number && key == "0" {
+            return Effect::Type("0".into());
+        }
         if matches!(key, "Backspace" | "Delete" | "0") {
             return if self.set(item, &id, &var.name, None, time) {
                 Effect::Coded
@@ -523,7 +592,7 @@ impl Coding {
         let n = vitrine_corpus::coding::recode(&mut self.codes, variable, old, new);
         self.reindex();
         self.undo.clear();
-        self.generation += 1;
+        self.changed_all();
         n
     }
 
@@ -539,7 +608,7 @@ impl Coding {
         }
         self.reindex();
         self.undo.clear();
-        self.generation += 1;
+        self.changed_all();
         n
     }
 
@@ -558,21 +627,27 @@ impl Coding {
                 (Some(v), CodeValue::Several(vs)) => {
                     let n = vs.len();
                     vs.retain(|t| t != v);
-                    changed += usize::from(vs.len() != n);
-                    true
+                    // A code whose only value went is no longer "none of these": it goes (and
+                    // the item is to be coded again).
+                    let emptied = n > 0 && vs.is_empty();
+                    changed += usize::from(!emptied && vs.len() != n);
+                    !emptied
                 }
                 _ => true,
             }
         });
         self.reindex();
         self.undo.clear();
-        self.generation += 1;
+        self.changed_all();
         before - self.codes.len() + changed
     }
 
     /// Marks the codebook changed (after an edit that touches no code).
     pub fn touched(&mut self) {
         self.generation += 1;
+        if self.dirty == Dirty::Clean {
+            self.dirty = Dirty::Codes(vec![]);
+        }
     }
 }
 
@@ -711,6 +786,95 @@ mod tests {
         assert_eq!(c.finished_count(), 0);
         c.undo();
         assert_eq!(c.finished_count(), 1);
+    }
+
+    #[test]
+    fn undo_keeps_to_its_coder_and_removals_keep_the_index_whole() {
+        let mut c = coding();
+        // What loading gave is stored (everything); from here each code is told.
+        assert_eq!(std::mem::take(&mut c.dirty), Dirty::All);
+        c.start(&[0, 1, 2], Order::Map, &ids, None);
+        for (i, v) in ["full length", "half length", "head only"]
+            .iter()
+            .enumerate()
+        {
+            c.set(
+                i,
+                &ids(i),
+                "framing",
+                Some(CodeValue::Text(v.to_string())),
+                T,
+            );
+        }
+        assert_eq!(c.progress()[0].1, 3);
+        // Another coder takes over: undo starts afresh, the counts are hers.
+        c.set_coder("ben", &ids);
+        assert!(!c.undo());
+        assert_eq!(c.progress()[0].1, 0);
+        c.set(
+            1,
+            "r1",
+            "framing",
+            Some(CodeValue::Text("full length".into())),
+            T,
+        );
+        c.set_coder("ana", &ids);
+        // Clearing ana's first code moves the last code into its place: every lookup still finds
+        // its own code.
+        c.set(0, "r0", "framing", None, T);
+        assert!(c.code("r0", "framing").is_none());
+        assert_eq!(
+            c.code("r1", "framing").unwrap().value,
+            CodeValue::Text("half length".into())
+        );
+        assert_eq!(
+            c.code("r2", "framing").unwrap().value,
+            CodeValue::Text("head only".into())
+        );
+        assert_eq!(
+            c.get(&("r1".into(), "framing".into(), "ben".into(), false))
+                .unwrap()
+                .value,
+            CodeValue::Text("full length".into())
+        );
+        assert_eq!(c.progress()[0].1, 2);
+        // The store hears of each code changed, and of everything after a rename.
+        let Dirty::Codes(keys) = std::mem::take(&mut c.dirty) else {
+            panic!("{:?}", c.dirty)
+        };
+        assert_eq!(
+            keys.last().unwrap(),
+            &(
+                "r0".to_string(),
+                "framing".to_string(),
+                "ana".to_string(),
+                false
+            )
+        );
+        c.rename_value("framing", "head only", "head");
+        assert_eq!(c.dirty, Dirty::All);
+        // A digit 0 on a number variable is typed, not a clearing.
+        c.walk.as_mut().unwrap().variable = 3;
+        assert_eq!(c.key("0", false, T, &ids), Effect::Type("0".into()));
+    }
+
+    #[test]
+    fn a_several_choice_code_whose_only_value_goes_is_dropped() {
+        let mut c = coding();
+        c.set(
+            0,
+            "r0",
+            "motifs",
+            Some(CodeValue::Several(vec!["river".into()])),
+            T,
+        );
+        c.set(1, "r1", "motifs", Some(CodeValue::Several(vec![])), T);
+        assert_eq!(c.drop_codes("motifs", Some("river")), 1);
+        assert!(c.code("r0", "motifs").is_none());
+        assert_eq!(
+            c.code("r1", "motifs").unwrap().value,
+            CodeValue::Several(vec![])
+        );
     }
 
     #[test]

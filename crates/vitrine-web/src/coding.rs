@@ -8,16 +8,15 @@ use super::*;
 use vitrine_corpus::coding::{
     merge_codebooks, merge_codes, CodeValue, Codebook, Kind, ValueDef, Variable,
 };
-use vitrine_view::coding::{value_keys, Effect, Order};
-use wasm_bindgen::JsValue;
-
-const DB_NAME: &str = "vitrine";
-const DB_STORE: &str = "coding";
+use vitrine_view::coding::{value_keys, CodeKey, Dirty, Effect, Order};
 
 thread_local! {
     /// The store's state: a write under way, another asked for meanwhile, the last generation
     /// written, and whether the browser lets the page store at all.
     static SAVING: RefCell<Saving> = RefCell::new(Saving::default());
+    /// The codes the store holds (so that a full rewrite removes exactly those that went, and
+    /// never a record it could not read).
+    static STORED: RefCell<std::collections::HashSet<CodeKey>> = RefCell::new(Default::default());
 }
 
 #[derive(Default)]
@@ -26,107 +25,68 @@ struct Saving {
     again: bool,
     written: u64,
     failed: Option<String>,
+    /// The store has been read (until then coding waits, so that nothing is read over it).
+    restored: bool,
 }
 
 fn now_utc() -> String {
     js_sys::Date::new_0().to_iso_string().into()
 }
 
-/// The key this atlas's coding is kept under: the page's address without the file name, so
-/// that a rebuilt atlas at the same place finds its codes again.
-fn store_key() -> String {
-    let loc = web_sys::window().unwrap().location();
-    let path = loc.pathname().unwrap_or_default();
-    let dir = &path[..path.rfind('/').map_or(0, |k| k + 1)];
-    format!("{}{dir}", loc.origin().unwrap_or_default())
+fn key_of(c: &vitrine_corpus::coding::Code) -> CodeKey {
+    (
+        c.item.clone(),
+        c.variable.clone(),
+        c.coder.clone(),
+        c.settled,
+    )
 }
 
-/// A promise settled by an IndexedDB request.
-fn request(req: &web_sys::IdbRequest) -> js_sys::Promise {
-    let req = req.clone();
-    js_sys::Promise::new(&mut |resolve, reject| {
-        let r2 = req.clone();
-        let ok = Closure::once_into_js(move |_e: web_sys::Event| {
-            let _ = resolve.call1(&JsValue::NULL, &r2.result().unwrap_or(JsValue::UNDEFINED));
-        });
-        let r3 = req.clone();
-        let bad = Closure::once_into_js(move |_e: web_sys::Event| {
-            let why = r3
-                .error()
-                .ok()
-                .flatten()
-                .map(|e| e.message())
-                .unwrap_or_else(|| "the request failed".into());
-            let _ = reject.call1(&JsValue::NULL, &JsValue::from_str(&why));
-        });
-        req.set_onsuccess(Some(ok.unchecked_ref()));
-        req.set_onerror(Some(bad.unchecked_ref()));
-    })
+/// What a save writes: the codebook record, the codes set, the codes gone.
+struct Plan {
+    generation: u64,
+    book: store::Book,
+    puts: Vec<vitrine_corpus::coding::Code>,
+    deletes: Vec<CodeKey>,
 }
 
-async fn open_db() -> Result<web_sys::IdbDatabase, String> {
-    let factory = web_sys::window()
-        .and_then(|w| w.indexed_db().ok().flatten())
-        .ok_or("this browser gives the page no IndexedDB (a private window?)")?;
-    let open = factory
-        .open_with_u32(DB_NAME, 1)
-        .map_err(|_| "IndexedDB refused to open".to_string())?;
-    let o2 = open.clone();
-    let upgrade = Closure::once_into_js(move |_e: web_sys::Event| {
-        if let Ok(db) = o2
-            .result()
-            .and_then(|r| r.dyn_into::<web_sys::IdbDatabase>())
-        {
-            if !db.object_store_names().contains(DB_STORE) {
-                let _ = db.create_object_store(DB_STORE);
+fn plan(a: &mut App) -> Plan {
+    let dirty = std::mem::take(&mut a.viewer.coding.dirty);
+    let c = &a.viewer.coding;
+    let book = store::Book {
+        format: "vitrine-coding".into(),
+        atlas_sha256: a.viewer.manifest_sha.clone(),
+        coder: c.coder.clone(),
+        codebook: c.book.clone(),
+    };
+    let (mut puts, mut deletes) = (Vec::new(), Vec::new());
+    match dirty {
+        Dirty::Clean => {}
+        Dirty::Codes(mut keys) => {
+            keys.sort();
+            keys.dedup();
+            for k in keys {
+                match c.get(&k) {
+                    Some(code) => puts.push(code.clone()),
+                    None => deletes.push(k),
+                }
             }
         }
-    });
-    open.set_onupgradeneeded(Some(upgrade.unchecked_ref()));
-    let db = JsFuture::from(request(&open))
-        .await
-        .map_err(|e| e.as_string().unwrap_or_else(|| "IndexedDB failed".into()))?;
-    db.dyn_into()
-        .map_err(|_| "IndexedDB gave no database".to_string())
-}
-
-async fn store_op(write: Option<String>) -> Result<Option<String>, String> {
-    let db = open_db().await?;
-    let mode = if write.is_some() {
-        web_sys::IdbTransactionMode::Readwrite
-    } else {
-        web_sys::IdbTransactionMode::Readonly
-    };
-    let tx = db
-        .transaction_with_str_and_mode(DB_STORE, mode)
-        .map_err(|_| "IndexedDB: no transaction".to_string())?;
-    let store = tx
-        .object_store(DB_STORE)
-        .map_err(|_| "IndexedDB: no store".to_string())?;
-    let key = JsValue::from_str(&store_key());
-    let req = match &write {
-        Some(text) => store.put_with_key(&JsValue::from_str(text), &key),
-        None => store.get(&key),
+        Dirty::All => {
+            puts = c.codes.clone();
+            let now: std::collections::HashSet<CodeKey> = c.codes.iter().map(key_of).collect();
+            deletes = STORED.with(|s| s.borrow().difference(&now).cloned().collect());
+        }
     }
-    .map_err(|_| "IndexedDB: the request was refused".to_string())?;
-    let got = JsFuture::from(request(&req))
-        .await
-        .map_err(|e| e.as_string().unwrap_or_else(|| "IndexedDB failed".into()))?;
-    db.close();
-    Ok(got.as_string())
+    Plan {
+        generation: c.generation,
+        book,
+        puts,
+        deletes,
+    }
 }
 
-/// What the browser keeps of an atlas's coding.
-#[derive(serde::Serialize, serde::Deserialize)]
-struct Kept {
-    format: String,
-    atlas_sha256: String,
-    coder: String,
-    codebook: Codebook,
-    codes: Vec<vitrine_corpus::coding::Code>,
-}
-
-/// Stores the codebook and codes now (and again once more if they change while it writes).
+/// Stores what changed (and again once more if more changes while it writes).
 pub fn save() {
     let busy = SAVING.with(|s| {
         let mut s = s.borrow_mut();
@@ -141,30 +101,30 @@ pub fn save() {
         return;
     }
     wasm_bindgen_futures::spawn_local(async {
-        loop {
-            let snapshot = app().map(|a| {
-                let a = a.borrow();
-                let kept = Kept {
-                    format: "vitrine-coding".into(),
-                    atlas_sha256: a.manifest_sha.clone(),
-                    coder: a.coding.coder.clone(),
-                    codebook: a.coding.book.clone(),
-                    codes: a.coding.codes.clone(),
-                };
-                (
-                    a.coding.generation,
-                    serde_json::to_string(&kept).unwrap_or_default(),
-                )
-            });
-            let Some((generation, text)) = snapshot else {
-                break;
-            };
-            let result = store_op(Some(text)).await;
+        while let Some(p) = app().map(|a| plan(&mut a.borrow_mut())) {
+            let result = store::write(&store::atlas_key(), &p.book, &p.puts, &p.deletes).await;
+            match &result {
+                Ok(()) => STORED.with(|s| {
+                    let mut s = s.borrow_mut();
+                    for c in &p.puts {
+                        s.insert(key_of(c));
+                    }
+                    for k in &p.deletes {
+                        s.remove(k);
+                    }
+                }),
+                // Written again in full next time.
+                Err(_) => {
+                    if let Some(a) = app() {
+                        a.borrow_mut().viewer.coding.dirty = Dirty::All;
+                    }
+                }
+            }
             let again = SAVING.with(|s| {
                 let mut s = s.borrow_mut();
                 match result {
-                    Ok(_) => {
-                        s.written = generation;
+                    Ok(()) => {
+                        s.written = p.generation;
                         s.failed = None;
                     }
                     Err(e) => s.failed = Some(e),
@@ -184,31 +144,71 @@ pub fn save() {
     });
 }
 
-/// After the catalogue: takes back what the browser kept for this atlas.
+/// After the catalogue: takes back what the browser kept for this atlas (joined with anything
+/// opened meanwhile: nothing is replaced).
 pub async fn restore() {
-    let kept = match store_op(None).await {
-        Ok(Some(text)) => serde_json::from_str::<Kept>(&text).ok(),
-        Ok(None) => None,
-        Err(e) => {
-            SAVING.with(|s| s.borrow_mut().failed = Some(e));
-            None
+    let mut notes = Vec::new();
+    match store::read(&store::atlas_key()).await {
+        Ok(kept) => {
+            STORED.with(|s| *s.borrow_mut() = kept.codes.iter().map(key_of).collect());
+            if kept.unreadable > 0 {
+                notes.push(format!(
+                    "{} records kept in this browser could not be read; they are left in its store.",
+                    kept.unreadable
+                ));
+            }
+            if let Some(app) = app() {
+                let mut a = app.borrow_mut();
+                let (coder, book, other_build) = match kept.book {
+                    Some(b) => (b.coder, b.codebook, b.atlas_sha256 != a.manifest_sha),
+                    None => (String::new(), Codebook::default(), false),
+                };
+                let empty = a.coding.book.is_empty() && a.coding.codes.is_empty();
+                if empty {
+                    a.viewer.coding.coder = coder;
+                    a.viewer.coding.load(book, kept.codes);
+                    // What was read is what is stored.
+                    a.viewer.coding.dirty = Dirty::Clean;
+                    let g = a.coding.generation;
+                    SAVING.with(|s| s.borrow_mut().written = g);
+                } else {
+                    match merge_codebooks(&a.coding.book, &book) {
+                        Ok(merged) => {
+                            let mut codes = a.coding.codes.clone();
+                            merge_codes(&mut codes, &kept.codes);
+                            a.viewer.coding.load(merged, codes);
+                        }
+                        Err(why) => notes.push(format!(
+                            "The codes kept in this browser were not joined to those opened ({why}); they stay in its store."
+                        )),
+                    }
+                }
+                if other_build {
+                    notes.push(
+                        "Coding kept in this browser for an earlier build of this atlas was taken back."
+                            .into(),
+                    );
+                }
+            }
         }
-    };
-    if let (Some(k), Some(app)) = (kept, app()) {
-        let mut a = app.borrow_mut();
-        let other_build = k.atlas_sha256 != a.manifest_sha;
-        a.coding.coder = k.coder;
-        a.coding.load(k.codebook, k.codes);
-        SAVING.with(|s| s.borrow_mut().written = a.coding.generation);
-        drop(a);
-        if other_build {
-            select::note(
-                "Coding kept in this browser for an earlier build of this atlas was taken back.",
-            );
-        }
+        Err(e) => SAVING.with(|s| s.borrow_mut().failed = Some(e)),
+    }
+    SAVING.with(|s| s.borrow_mut().restored = true);
+    if !notes.is_empty() {
+        select::note(&notes.join(" "));
     }
     set_state("coding", "restored");
+    save();
     status();
+}
+
+/// Whether the store has been read; says to wait when not.
+fn ready() -> bool {
+    let r = SAVING.with(|s| s.borrow().restored);
+    if !r {
+        select::note("The codes kept in this browser are being read: a moment.");
+    }
+    r
 }
 
 /// The tray's line on coding: codes and how they are kept.
@@ -281,6 +281,9 @@ fn is_open() -> bool {
 /// Opens the coding view over the corpus (every item when nothing is chosen).
 pub fn open() {
     let Some(app) = app() else { return };
+    if !ready() {
+        return;
+    }
     {
         let a = app.borrow();
         if !a.atlas.catalogue {
@@ -299,12 +302,20 @@ pub fn open() {
         } else {
             a.tray_items.clone()
         };
-        let how = a
-            .coding
-            .walk
-            .as_ref()
-            .map_or(Order::UncodedFirst, |w| w.how);
-        start_walk(&mut a, &items, how);
+        // The same corpus again: the walk goes on where it was (its counts made anew, as the
+        // codebook may have changed meanwhile).
+        if a.coding.walks(&items) {
+            let v = &mut a.viewer;
+            let ids = &v.atlas.ids;
+            v.coding.recount(&|i: usize| ids.get(i).to_string());
+        } else {
+            let how = a
+                .coding
+                .walk
+                .as_ref()
+                .map_or(Order::UncodedFirst, |w| w.how);
+            start_walk(&mut a, &items, how);
+        }
     }
     if let Some(c) = by_id("coding") {
         c.set_hidden(false);
@@ -351,6 +362,14 @@ pub fn key(e: &web_sys::KeyboardEvent) -> bool {
     if !is_open() {
         return false;
     }
+    // Enter and Space on a focused button are the button's own.
+    let on_button = e
+        .target()
+        .and_then(|t| t.dyn_into::<HtmlElement>().ok())
+        .is_some_and(|t| t.tag_name() == "BUTTON");
+    if on_button && matches!(e.key().as_str(), "Enter" | " ") {
+        return true;
+    }
     let Some(app) = app() else { return false };
     let effect = {
         let mut a = app.borrow_mut();
@@ -371,7 +390,9 @@ pub fn key(e: &web_sys::KeyboardEvent) -> bool {
         }
     };
     match effect {
-        Effect::None => return false,
+        // Not the coding view's key: it goes nowhere else either (the map and the selection
+        // behind the view must not change unseen); the browser's own shortcuts still work.
+        Effect::None => return true,
         Effect::Close => close(),
         Effect::Coded => {
             changed();
@@ -563,8 +584,11 @@ fn render_view(app: &Rc<RefCell<App>>, view: &HtmlElement) {
     let c2 = coder.clone();
     listen(&coder, "change", true, move |_e: web_sys::Event| {
         if let Some(app) = self::app() {
-            app.borrow_mut().viewer.coding.coder = c2.value().trim().to_string();
-            app.borrow_mut().viewer.coding.touched();
+            let mut a = app.borrow_mut();
+            let v = &mut a.viewer;
+            let ids = &v.atlas.ids;
+            v.coding
+                .set_coder(c2.value().trim(), &|i: usize| ids.get(i).to_string());
         }
         changed();
         render_soon(true);
@@ -872,6 +896,9 @@ fn is_codebook_open() -> bool {
 
 /// Shows the codebook editor (closing the coding view: its counts are made anew when it opens).
 pub fn open_codebook() {
+    if !ready() {
+        return;
+    }
     if is_open() {
         close();
     }
@@ -1304,6 +1331,9 @@ pub fn take_codes(file: &vitrine_corpus::corpus::CorpusFile) -> String {
 /// The tray's "Add a coder's file": a corpus file's codebook and codes join these (its steps and
 /// filters are not applied).
 pub fn merge_file(text: &str) {
+    if !ready() {
+        return;
+    }
     match vitrine_corpus::corpus::CorpusFile::from_json(text) {
         Ok(f) => {
             let note = take_codes(&f);
@@ -1366,6 +1396,14 @@ pub fn install() {
     // Store once more when the page is left (a write under way then still completes).
     if let Some(w) = web_sys::window() {
         listen(&w, "pagehide", true, move |_e: web_sys::Event| {
+            // A number or note being typed is kept: leaving its field commits it.
+            if let Some(f) = document()
+                .active_element()
+                .filter(|e| by_id("coding").is_some_and(|v| v.contains(Some(e.as_ref()))))
+                .and_then(|e| e.dyn_into::<HtmlElement>().ok())
+            {
+                let _ = f.blur();
+            }
             let behind = app().is_some_and(|a| {
                 a.borrow().coding.generation != SAVING.with(|s| s.borrow().written)
             });

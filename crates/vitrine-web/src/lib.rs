@@ -87,6 +87,7 @@ mod filters;
 mod gl_present;
 mod select;
 mod share;
+mod store;
 mod timeline_strip;
 mod tray;
 
