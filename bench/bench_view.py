@@ -165,6 +165,16 @@ def main():
         widths = [max(len(x) for x in col) for col in zip(head, *rows)]
         for line in [head, ["-" * w for w in widths]] + rows:
             print("  " + "  ".join(x.ljust(w) for x, w in zip(line, widths)))
+        m = r.get("measure")
+        if m:
+            # Targets of the measuring work at a million items (software WebGL, this machine).
+            for name, (med, worst), target in [
+                ("coding view: next item, key to next frame (median, p95)", m["coding_next"], 50),
+                ("time profile of a category field over every item (median, max)", m["profile"], 100),
+                ("two corpora compared: overlap, every category field, profile (median, max)", m["compare"], 200),
+            ]:
+                print(f"  {name}: {med:.1f} / {worst:.1f} ms (target {target} ms: "
+                      f"{'met' if worst <= target else 'NOT met'})")
         print()
     # The two ways of presenting a WebGL2 frame, run on the same atlas in the same browser.
     for r in results:

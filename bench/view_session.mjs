@@ -161,6 +161,41 @@ try {
   const search = (query) => ["filter", JSON.stringify({ kind: "text", fields: [], query }), 0];
   await phase("filter: search", [search("varn"), search("osterlee 12"), search("etching"),
     search("r00042"), search("brisca 7"), search("scan-0038")]);
+  // Measuring a corpus over the whole collection (the filters dropped, so every item is in it):
+  // the coding view's next item (a value set, then Enter: timed from the key to the next frame of
+  // the page), a time profile of a category field, and two corpora compared.
+  await page.evaluate(() => window.vitrineView.clear_corpus());
+  console.error("[bench-view]   measuring: coding view, time profile, comparison");
+  const book = JSON.stringify({ variables: [
+    { name: "framing", kind: "one", values: [{ value: "full length" }, { value: "half length" }, { value: "head only" }] },
+    { name: "signed", kind: "yes-no" }] });
+  const opened = await page.evaluate((b) => window.vitrineView.bench_coding(b, "bench"), book);
+  if (!opened) throw new Error("the coding view did not open");
+  const measuring = await page.evaluate(async () => {
+    const key = (k) => window.dispatchEvent(new KeyboardEvent("keydown", { key: k }));
+    const frame = () => new Promise((r) => requestAnimationFrame(() => r()));
+    const next = [];
+    for (let k = 0; k < 30; k++) {
+      key(String(1 + (k % 3)));
+      await frame();
+      const t0 = performance.now();
+      key("Enter");
+      await frame();
+      next.push(performance.now() - t0);
+    }
+    key("Escape");
+    const profile = [];
+    for (let k = 0; k < 5; k++) profile.push(window.vitrineView.bench_profile("field:technique", "25"));
+    const compare = [];
+    for (let k = 0; k < 5; k++) compare.push(window.vitrineView.bench_compare("technique", "etching", "woodcut"));
+    const items = Number(document.body.dataset.codes || 0);
+    return { next, profile, compare, codes: items };
+  });
+  const measure = {
+    coding_next: [quantile(measuring.next, 0.5), quantile(measuring.next, 0.95)],
+    profile: [quantile(measuring.profile, 0.5), Math.max(...measuring.profile)],
+    compare: [quantile(measuring.compare, 0.5), Math.max(...measuring.compare)],
+  };
   const end = await state();
   const cdp = await browser.newCDPSession(page);
   const heap = await cdp.send("Runtime.getHeapUsage");
@@ -169,7 +204,7 @@ try {
     return { bytes: e.reduce((s, r) => s + (r.encodedBodySize || 0), 0), requests: e.length };
   });
   console.log(JSON.stringify({
-    renderer: end.renderer, first_full_ms: firstFull, catalogue_ready_ms: readyMs, phases, js_heap: heap.usedSize, wasm: end.wasm_bytes,
+    renderer: end.renderer, first_full_ms: firstFull, catalogue_ready_ms: readyMs, phases, measure, js_heap: heap.usedSize, wasm: end.wasm_bytes,
     bytes: fetched.bytes, requests: fetched.requests, sheets_loaded: end.sheets_loaded, errors,
   }));
 } finally {

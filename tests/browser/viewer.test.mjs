@@ -887,6 +887,40 @@ test("coding: a codebook made in the page, ten items coded from the keyboard, ke
   await page.setInputFiles("#merge-codes", path.join(dir, "ben.corpus.json"));
   await page.waitForFunction(() => document.body.dataset.codes === "40");
   assert.match(await page.locator("#select-note").innerText(), /Added 20 codes \(20 already here\)/);
+
+  // Measuring in the page gives the numbers `vitrine corpus` gives from the same corpus file,
+  // byte for byte: the agreement table and the time profile of a coded variable.
+  const [d2] = await Promise.all([page.waitForEvent("download"), page.click("#export-json")]);
+  const both = path.join(dir, "both.corpus.json");
+  await d2.saveAs(both);
+  execFileSync(BIN, ["corpus", ATLAS, "--from", both, "--agreement", path.join(dir, "agreement.csv"),
+    "--profile", path.join(dir, "profile.csv"), "--profile-of", "framing", "--bin", "25"]);
+  await page.click("#agreement-button");
+  await page.waitForFunction(() => Number(document.body.dataset.agreement) === 2);
+  const kappa = await page.locator('#measure tr[data-variable="framing"] td').nth(4).innerText();
+  const native = readCsv(fs.readFileSync(path.join(dir, "agreement.csv"), "utf8"));
+  assert.equal(kappa, Number(native.find((r) => r.variable === "framing").cohen_kappa).toFixed(3));
+  const [d3] = await Promise.all([page.waitForEvent("download"), page.click("#agreement-csv")]);
+  await d3.saveAs(path.join(dir, "agreement-page.csv"));
+  assert.ok(fs.readFileSync(path.join(dir, "agreement-page.csv")).equals(fs.readFileSync(path.join(dir, "agreement.csv"))),
+    "the page's agreement table is the native one");
+  await page.click("#measure-profile");
+  await page.selectOption("#profile-of", "variable:framing");
+  await page.selectOption("#profile-per", "25");
+  await page.waitForFunction(() => document.querySelector("#profile-of")?.value === "variable:framing" && document.body.dataset.profile === "3");
+  await page.screenshot({ path: path.join(ARTIFACTS, "22-time-profile.png") });
+  const [d4] = await Promise.all([page.waitForEvent("download"), page.click("#profile-csv")]);
+  await d4.saveAs(path.join(dir, "profile-page.csv"));
+  assert.ok(fs.readFileSync(path.join(dir, "profile-page.csv")).equals(fs.readFileSync(path.join(dir, "profile.csv"))),
+    "the page's profile table is the native one");
+  // Two corpora compared: the woodcuts kept, then the etchings.
+  await page.click("#measure-compare");
+  await page.fill("#keep-name", "woodcuts");
+  await page.click("#keep-corpus");
+  await page.evaluate(() => window.vitrineView.set_filter(JSON.stringify({ kind: "category", field: "technique", values: ["etching"] })));
+  await page.waitForFunction(() => Number(document.body.dataset.comparison) > 0);
+  assert.match(await page.locator("#measure").innerText(), /woodcuts: \d+ items; now: \d+ items; 0 in both/);
+  await page.screenshot({ path: path.join(ARTIFACTS, "23-comparison.png") });
   assert.deepEqual(errors, []);
 });
 

@@ -620,15 +620,17 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
     let tables: [(&Option<PathBuf>, Table); 3] = [
         (
             &a.agreement,
-            Box::new(|| coding::agreement_csv(&book, &coded, &corpus_ids)),
+            Box::new(|| vitrine_corpus::coding::agreement_csv(&book, &coded, &corpus_ids)),
         ),
         (
             &a.disagreements,
-            Box::new(|| coding::disagreements_csv(&book, &coded, &corpus_ids, &id_col)),
+            Box::new(|| {
+                vitrine_corpus::coding::disagreements_csv(&book, &coded, &corpus_ids, &id_col)
+            }),
         ),
         (
             &a.codes_table,
-            Box::new(|| coding::codes_csv(&codes, &order, &id_col)),
+            Box::new(|| vitrine_corpus::coding::codes_csv(&codes, &order, &id_col)),
         ),
     ];
     for (p, text) in tables {

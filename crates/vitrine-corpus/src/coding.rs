@@ -11,6 +11,7 @@ use std::collections::{BTreeMap, BTreeSet, HashMap};
 use serde::{Deserialize, Serialize};
 
 use crate::agreement::{cohen_kappa, krippendorff_alpha, percent_agreement, Metric};
+use crate::export::{cell, csv_row, number, CsvStyle};
 use crate::CorpusError;
 
 /// What a variable records.
@@ -915,6 +916,109 @@ pub fn progress(book: &Codebook, coded: &Coded, items: &[&str]) -> BTreeMap<Stri
             (v.name.clone(), n)
         })
         .collect()
+}
+
+fn num(x: Option<f64>) -> String {
+    x.map(number).unwrap_or_default()
+}
+
+/// The agreement table as CSV: one row per variable (per value of a several-choice variable).
+pub fn agreement_csv(book: &Codebook, coded: &Coded, items: &[&str]) -> String {
+    let mut out = String::new();
+    csv_row(
+        &mut out,
+        [
+            "variable",
+            "value",
+            "kind",
+            "coders",
+            "items_compared",
+            "percent_agreement",
+            "cohen_kappa",
+            "alpha_nominal",
+            "alpha_interval",
+        ]
+        .into_iter(),
+    );
+    for r in agreement_table(book, coded, items) {
+        let cells = [
+            cell(&r.variable, false, CsvStyle::Spreadsheet).into_owned(),
+            cell(&r.value, false, CsvStyle::Spreadsheet).into_owned(),
+            r.kind.label().to_string(),
+            r.coders.to_string(),
+            r.items_compared.to_string(),
+            num(r.percent_agreement),
+            num(r.cohen_kappa),
+            num(r.alpha_nominal),
+            num(r.alpha_interval),
+        ];
+        csv_row(&mut out, cells.iter().map(String::as_str));
+    }
+    out
+}
+
+/// Every disagreement as CSV: id, variable, each coder's value, the settled value.
+pub fn disagreements_csv(book: &Codebook, coded: &Coded, items: &[&str], id_col: &str) -> String {
+    let mut out = String::new();
+    let mut head: Vec<String> = vec![id_col.to_string(), "variable".into()];
+    head.extend(coded.coders.iter().map(|c| c.to_string()));
+    head.push("settled".into());
+    let head: Vec<String> = head
+        .iter()
+        .map(|h| cell(h, false, CsvStyle::Spreadsheet).into_owned())
+        .collect();
+    csv_row(&mut out, head.iter().map(String::as_str));
+    for d in disagreements(book, coded, items) {
+        let mut cells = vec![d.item.clone(), d.variable.clone()];
+        cells.extend(
+            d.values
+                .iter()
+                .map(|v| v.as_ref().map(CodeValue::cell).unwrap_or_default()),
+        );
+        cells.push(d.settled.as_ref().map(CodeValue::cell).unwrap_or_default());
+        let cells: Vec<String> = cells
+            .iter()
+            .map(|c| cell(c, false, CsvStyle::Spreadsheet).into_owned())
+            .collect();
+        csv_row(&mut out, cells.iter().map(String::as_str));
+    }
+    out
+}
+
+/// Every code as one row (long form, for R and pandas): id, variable, value, coder, time, settled.
+pub fn codes_csv(codes: &[Code], order: &HashMap<&str, usize>, id_col: &str) -> String {
+    let mut out = String::new();
+    csv_row(
+        &mut out,
+        [id_col, "variable", "value", "coder", "time", "settled"]
+            .map(|h| cell(h, false, CsvStyle::Spreadsheet).into_owned())
+            .iter()
+            .map(String::as_str),
+    );
+    let mut sorted: Vec<&Code> = codes.iter().collect();
+    sorted.sort_by(|a, b| {
+        let pos = |c: &Code| order.get(c.item.as_str()).copied().unwrap_or(usize::MAX);
+        (pos(a), &a.item, &a.variable, a.settled, &a.coder).cmp(&(
+            pos(b),
+            &b.item,
+            &b.variable,
+            b.settled,
+            &b.coder,
+        ))
+    });
+    for c in sorted {
+        let numeric = matches!(c.value, CodeValue::Number(_));
+        let cells = [
+            cell(&c.item, false, CsvStyle::Spreadsheet).into_owned(),
+            cell(&c.variable, false, CsvStyle::Spreadsheet).into_owned(),
+            cell(&c.value.cell(), numeric, CsvStyle::Spreadsheet).into_owned(),
+            cell(&c.coder, false, CsvStyle::Spreadsheet).into_owned(),
+            c.time.clone(),
+            if c.settled { "yes" } else { "no" }.to_string(),
+        ];
+        csv_row(&mut out, cells.iter().map(String::as_str));
+    }
+    out
 }
 
 #[cfg(test)]

@@ -40,7 +40,7 @@ pub enum Bins<'a> {
 }
 
 /// The groups to profile: their names, their items (by index; an item may be in several) and the
-/// base their shares are taken of.
+/// base their shares are taken of (every group's items are base items).
 #[derive(Debug, Clone, PartialEq, Default)]
 pub struct Groups {
     pub names: Vec<String>,
@@ -144,43 +144,63 @@ impl Profile {
     }
 }
 
-/// The 10th and 90th percentile years of the items' weight spread over their ranges.
-fn span80(
-    start: &[i32],
-    end: &[i32],
-    items: &[usize],
-    range: Option<(i32, i32)>,
-) -> Option<(i32, i32)> {
-    let dated = items.iter().copied().filter(|&i| start[i] != i32::MIN);
-    let (mut lo, mut hi) = (i32::MAX, i32::MIN);
-    for i in dated {
-        lo = lo.min(start[i]);
-        hi = hi.max(end[i]);
+/// Per-year weights of `items` over the years `y0..=y1`: each item's weight spread evenly over the
+/// years of its dating, the part outside those years left out (a difference array: one step per
+/// item whatever its range); and how many items are undated or lie wholly outside.
+fn per_year(start: &[i32], end: &[i32], items: &[usize], y0: i32, y1: i32) -> (Vec<f64>, usize) {
+    let n = (y1 as i64 - y0 as i64 + 1).max(0) as usize;
+    let mut diff = vec![0.0f64; n + 1];
+    let mut outside = 0;
+    for &i in items {
+        let (s, e) = (start[i], end[i]);
+        if s == i32::MIN || e < s || e < y0 || s > y1 {
+            outside += 1;
+            continue;
+        }
+        let w = 1.0 / (e as i64 - s as i64 + 1) as f64;
+        let (a, b) = (s.max(y0), e.min(y1));
+        diff[(a - y0) as usize] += w;
+        diff[(b - y0) as usize + 1] -= w;
     }
-    if let Some((a, b)) = range {
-        (lo, hi) = (lo.max(a), hi.min(b));
+    let mut run = 0.0;
+    diff.truncate(n);
+    for d in diff.iter_mut() {
+        run += *d;
+        *d = run;
     }
-    if lo > hi {
-        return None;
-    }
-    let mut h = Histogram::covering(lo, hi, 1);
-    h.add_inside(start, end, items.iter().copied());
-    let total = h.total();
+    (diff, outside)
+}
+
+/// The 10th and 90th percentile years of per-year weights from year `y0`.
+fn span80(weights: &[f64], y0: i32) -> Option<(i32, i32)> {
+    let total: f64 = weights.iter().sum();
     if total <= 0.0 {
         return None;
     }
     let at = |p: f64| {
         let want = p * total * (1.0 - 1e-12);
         let mut cum = 0.0;
-        for (b, c) in h.counts.iter().enumerate() {
+        for (k, c) in weights.iter().enumerate() {
             cum += c;
             if cum >= want && *c > 0.0 {
-                return h.years(b).0;
+                return y0 + k as i32;
             }
         }
-        h.years(h.counts.len() - 1).0
+        y0 + weights.len() as i32 - 1
     };
     Some((at(0.1), at(0.9)))
+}
+
+/// Per-year weights summed into bins of `width` years from `first` (`nb` bins).
+fn into_bins(weights: &[f64], y0: i32, first: i32, width: i32, nb: usize) -> Vec<f64> {
+    let mut out = vec![0.0; nb];
+    for (k, w) in weights.iter().enumerate() {
+        let b = ((y0 as i64 + k as i64 - first as i64) / width as i64) as usize;
+        if let Some(o) = out.get_mut(b) {
+            *o += w;
+        }
+    }
+    out
 }
 
 /// The profile of `groups` over `bins`; `dates` are the start and end years of every item
@@ -237,31 +257,40 @@ pub fn profile(
                     h.counts.len()
                 )));
             }
-            let template = h.clone();
             let last = h.years(h.counts.len() - 1).1;
             let first = h.from;
-            let inside = |i: &usize| start[*i] != i32::MIN && end[*i] >= first && start[*i] <= last;
-            h.add_inside(start, end, groups.base.iter().copied());
-            if h.total() <= 0.0 {
+            let nb = h.counts.len();
+            // The years the base's datings reach within the periods: every per-year array spans
+            // them (at most the ±9,999 years an atlas holds).
+            let (mut y0, mut y1) = (i32::MAX, i32::MIN);
+            for &i in groups.base.iter().filter(dated) {
+                y0 = y0.min(start[i]);
+                y1 = y1.max(end[i]);
+            }
+            let (y0, y1) = (y0.max(first), y1.min(last));
+            if y0 > y1 {
                 return Err(CorpusError::Invalid(format!(
-                    "no dated item falls in the years {}..{last}",
-                    h.from
+                    "no dated item falls in the years {first}..{last}"
                 )));
             }
-            let base_outside = groups.base.iter().filter(|i| !inside(i)).count();
-            let range = Some((h.from, last));
+            let (base_years, base_outside) = per_year(start, end, &groups.base, y0, y1);
+            h.counts = into_bins(&base_years, y0, first, *width, nb);
+            if h.total() <= 0.0 {
+                return Err(CorpusError::Invalid(format!(
+                    "no dated item falls in the years {first}..{last}"
+                )));
+            }
             let rows = groups
                 .names
                 .iter()
                 .zip(&groups.members)
                 .map(|(name, items)| {
-                    let mut g = template.clone();
-                    g.add_inside(start, end, items.iter().copied());
+                    let (years, outside) = per_year(start, end, items, y0, y1);
                     Row {
                         name: name.clone(),
-                        counts: g.counts,
-                        outside: items.iter().filter(|i| !inside(i)).count(),
-                        span80: span80(start, end, items, range),
+                        counts: into_bins(&years, y0, first, *width, nb),
+                        outside,
+                        span80: span80(&years, y0),
                     }
                 })
                 .collect();
@@ -308,7 +337,14 @@ pub fn profile(
                         name: name.clone(),
                         counts,
                         outside,
-                        span80: dates.and_then(|(s, e)| span80(s, e, items, None)),
+                        span80: dates.and_then(|(s, e)| {
+                            let (mut y0, mut y1) = (i32::MAX, i32::MIN);
+                            for &i in items.iter().filter(|&&i| s[i] != i32::MIN) {
+                                y0 = y0.min(s[i]);
+                                y1 = y1.max(e[i]);
+                            }
+                            (y0 <= y1).then(|| span80(&per_year(s, e, items, y0, y1).0, y0))?
+                        }),
                     }
                 })
                 .collect();
@@ -562,8 +598,8 @@ pub fn svg(p: &Profile, title: &str, note: &str) -> String {
     use std::fmt::Write;
     // Taller when the legend needs it (34 px a group).
     let w = 760.0f64;
-    let h = (420.0f64).max(44.0 + 10.0 + p.groups.len() as f64 * 34.0 + 40.0);
-    let (left, right, top, bottom) = (58.0, 200.0, 44.0, 74.0);
+    let h = (420.0f64).max(44.0 + 10.0 + p.groups.len() as f64 * 46.0 + 40.0);
+    let (left, right, top, bottom) = (58.0, 210.0, 44.0, 74.0);
     let (pw, ph) = (w - left - right, h - top - bottom);
     let nb = p.bins.len().max(1);
     let x = |b: usize| left + pw * (b as f64 + 0.5) / nb as f64;
@@ -696,16 +732,16 @@ pub fn svg(p: &Profile, title: &str, note: &str) -> String {
                 p.base[b]
             );
         }
-        let ly = top + 10.0 + g as f64 * 34.0;
+        let ly = top + 10.0 + g as f64 * 46.0;
         let lx = left + pw + 18.0;
         let items: f64 = row.counts.iter().sum();
         let span = row
             .span80
-            .map(|(a, z)| format!(", 80 % in {a}–{z}"))
+            .map(|(a, z)| format!("80 % in {a}–{z}"))
             .unwrap_or_default();
         let _ = writeln!(
             s,
-            r##"<line x1="{lx:.1}" x2="{:.1}" y1="{:.1}" y2="{:.1}" stroke="{colour}" stroke-width="3"{dash}/><text x="{:.1}" y="{:.1}">{}</text><text x="{:.1}" y="{:.1}" fill="#6b645c">{:.0} {}{}</text>"##,
+            r##"<line x1="{lx:.1}" x2="{:.1}" y1="{:.1}" y2="{:.1}" stroke="{colour}" stroke-width="3"{dash}/><text x="{:.1}" y="{:.1}">{}</text><text x="{:.1}" y="{:.1}" fill="#6b645c">{:.0} {}</text><text x="{:.1}" y="{:.1}" fill="#6b645c">{}</text>"##,
             lx + 16.0,
             ly - 2.0,
             ly - 2.0,
@@ -720,6 +756,8 @@ pub fn svg(p: &Profile, title: &str, note: &str) -> String {
             } else {
                 "items in a period"
             },
+            lx + 20.0,
+            ly + 28.0,
             span
         );
     }

@@ -274,7 +274,7 @@ fn button(text: &str, title: &str, on: impl FnMut() + 'static) -> web_sys::Eleme
     b
 }
 
-fn is_open() -> bool {
+pub fn is_open() -> bool {
     by_id("coding").is_some_and(|c| !c.hidden())
 }
 
@@ -353,6 +353,8 @@ fn close() {
     if let Some(c) = by_id("coding") {
         c.set_hidden(true);
     }
+    // The map under it is drawn again (frames wait while the view is open).
+    request_frame();
     set_state("codingView", "");
     focus_map();
 }
@@ -1439,4 +1441,23 @@ pub fn sheet_arrived(level: usize, index: usize) {
             fill_picture(&a, i, &pane);
         }
     }
+}
+
+/// For the bench: takes the codebook `json` (`{"variables": [...]}`) and the coder's name, and
+/// opens the coding view over the corpus (every item when nothing is chosen).
+#[wasm_bindgen]
+pub fn bench_coding(json: &str, coder: &str) -> bool {
+    let Ok(book) = serde_json::from_str::<Codebook>(json) else {
+        return false;
+    };
+    let Some(app) = app() else { return false };
+    {
+        let mut a = app.borrow_mut();
+        let codes = a.coding.codes.clone();
+        a.viewer.coding.load(book, codes);
+        a.viewer.coding.coder = coder.to_string();
+    }
+    changed();
+    open();
+    is_open()
 }

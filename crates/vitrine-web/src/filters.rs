@@ -759,3 +759,13 @@ pub fn install_colour_menu() {
         colour_by(s2.value().parse::<usize>().ok());
     });
 }
+
+/// For tests and scripts: drops every filter and the selection, so that the corpus is every item.
+#[wasm_bindgen]
+pub fn clear_corpus() {
+    let n = app().map_or(0, |a| a.borrow().filters.list().len());
+    for _ in 0..n {
+        remove(0);
+    }
+    select::clear();
+}

@@ -85,6 +85,7 @@ impl std::ops::DerefMut for App {
 mod coding;
 mod filters;
 mod gl_present;
+mod measure;
 mod select;
 mod share;
 mod store;
@@ -565,6 +566,13 @@ fn request_frame() {
         a.frame_pending = true;
     }
     let cb = Closure::once_into_js(move || {
+        // The coding view covers the map: it is drawn once the view closes (its sheets wait too).
+        if coding::is_open() {
+            if let Some(app) = self::app() {
+                app.borrow_mut().frame_pending = false;
+            }
+            return;
+        }
         if let Some(app) = self::app() {
             let (wanted, gliding) = {
                 let mut a = app.borrow_mut();
@@ -1071,6 +1079,9 @@ fn escape() {
     if coding::escape() {
         return;
     }
+    if measure::close() {
+        return;
+    }
     let selecting = app().is_some_and(|a| a.borrow().mode != Mode::Move);
     if selecting {
         return select::set_mode(Mode::Move);
@@ -1475,6 +1486,7 @@ async fn load(base: String) -> Result<(), String> {
     share::install();
     tray::install();
     coding::install();
+    measure::install();
     if let Some(l) = by_id("loading") {
         l.set_hidden(true);
     }

@@ -186,6 +186,7 @@ pub fn note(text: &str) {
 /// After any change of the selection: the dimming, the count, the tray, the undo buttons.
 pub fn refresh() {
     let Some(app) = app() else { return };
+    super::measure::corpus_changed();
     let state = app.borrow_mut().corpus_changed();
     show_figures(state.figures.as_ref());
     let (count, corpus, history, any) = (
@@ -257,7 +258,7 @@ fn show_figures(f: Option<&vitrine_corpus::summary::Figures>) {
 }
 
 /// Offers `text` as a file download.
-fn download(name: &str, mime: &str, text: &str) {
+pub fn download(name: &str, mime: &str, text: &str) {
     let parts = js_sys::Array::of1(&JsValue::from_str(text));
     let opts = web_sys::BlobPropertyBag::new();
     opts.set_type(mime);
