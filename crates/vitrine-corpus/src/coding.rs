@@ -306,10 +306,32 @@ pub struct Code {
     pub settled: bool,
 }
 
+/// Which code: item id, variable, coder, settled or not.
+pub type CodeKey = (String, String, String, bool);
+
 impl Code {
     fn key(&self) -> (&str, &str, &str, bool) {
         (&self.item, &self.variable, &self.coder, self.settled)
     }
+
+    /// The code's key, owned (to index and store codes by).
+    pub fn owned_key(&self) -> CodeKey {
+        (
+            self.item.clone(),
+            self.variable.clone(),
+            self.coder.clone(),
+            self.settled,
+        )
+    }
+}
+
+/// Where each code is in `codes`, by its key.
+fn index_by_key(codes: &[Code]) -> HashMap<CodeKey, usize> {
+    codes
+        .iter()
+        .enumerate()
+        .map(|(i, c)| (c.owned_key(), i))
+        .collect()
 }
 
 /// An RFC 3339 time as (date and time to the second, fraction as digits padded to nine), so that
@@ -501,28 +523,9 @@ pub struct MergeReport {
 /// same coder coded the same item and variable in both, the later one stays.
 pub fn merge_codes(codes: &mut Vec<Code>, other: &[Code]) -> MergeReport {
     let mut r = MergeReport::default();
-    let mut at: HashMap<(String, String, String, bool), usize> = codes
-        .iter()
-        .enumerate()
-        .map(|(i, c)| {
-            (
-                (
-                    c.item.clone(),
-                    c.variable.clone(),
-                    c.coder.clone(),
-                    c.settled,
-                ),
-                i,
-            )
-        })
-        .collect();
+    let mut at = index_by_key(codes);
     for c in other {
-        let key = (
-            c.item.clone(),
-            c.variable.clone(),
-            c.coder.clone(),
-            c.settled,
-        );
+        let key = c.owned_key();
         match at.get(&key) {
             None => {
                 at.insert(key, codes.len());
@@ -867,29 +870,10 @@ pub fn code_columns(book: &Codebook, coded: &Coded, taken: &[&str]) -> Vec<CodeC
 /// Puts `new` codes in place: each replaces a code of the same item, variable, coder and kind
 /// (settled or not), or is added. Returns how many replaced one.
 pub fn set_codes(codes: &mut Vec<Code>, new: Vec<Code>) -> usize {
-    let mut at: HashMap<(String, String, String, bool), usize> = codes
-        .iter()
-        .enumerate()
-        .map(|(i, c)| {
-            (
-                (
-                    c.item.clone(),
-                    c.variable.clone(),
-                    c.coder.clone(),
-                    c.settled,
-                ),
-                i,
-            )
-        })
-        .collect();
+    let mut at = index_by_key(codes);
     let mut replaced = 0;
     for c in new {
-        let key = (
-            c.item.clone(),
-            c.variable.clone(),
-            c.coder.clone(),
-            c.settled,
-        );
+        let key = c.owned_key();
         match at.get(&key) {
             Some(&i) => {
                 codes[i] = c;

@@ -73,8 +73,7 @@ pub enum Effect {
     Close,
 }
 
-/// Which code: item id, variable, coder, settled or not.
-pub type CodeKey = (String, String, String, bool);
+pub use vitrine_corpus::coding::CodeKey;
 
 /// What changed since the page last stored the codes.
 #[derive(Debug, Clone, PartialEq, Default)]

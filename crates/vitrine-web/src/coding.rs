@@ -33,15 +33,6 @@ fn now_utc() -> String {
     js_sys::Date::new_0().to_iso_string().into()
 }
 
-fn key_of(c: &vitrine_corpus::coding::Code) -> CodeKey {
-    (
-        c.item.clone(),
-        c.variable.clone(),
-        c.coder.clone(),
-        c.settled,
-    )
-}
-
 /// What a save writes: the codebook record, the codes set, the codes gone.
 struct Plan {
     generation: u64,
@@ -74,7 +65,8 @@ fn plan(a: &mut App) -> Plan {
         }
         Dirty::All => {
             puts = c.codes.clone();
-            let now: std::collections::HashSet<CodeKey> = c.codes.iter().map(key_of).collect();
+            let now: std::collections::HashSet<CodeKey> =
+                c.codes.iter().map(|c| c.owned_key()).collect();
             deletes = STORED.with(|s| s.borrow().difference(&now).cloned().collect());
         }
     }
@@ -107,7 +99,7 @@ pub fn save() {
                 Ok(()) => STORED.with(|s| {
                     let mut s = s.borrow_mut();
                     for c in &p.puts {
-                        s.insert(key_of(c));
+                        s.insert(c.owned_key());
                     }
                     for k in &p.deletes {
                         s.remove(k);
@@ -150,7 +142,7 @@ pub async fn restore() {
     let mut notes = Vec::new();
     match store::read(&store::atlas_key()).await {
         Ok(kept) => {
-            STORED.with(|s| *s.borrow_mut() = kept.codes.iter().map(key_of).collect());
+            STORED.with(|s| *s.borrow_mut() = kept.codes.iter().map(|c| c.owned_key()).collect());
             if kept.unreadable > 0 {
                 notes.push(format!(
                     "{} records kept in this browser could not be read; they are left in its store.",
@@ -252,7 +244,8 @@ fn changed() {
     status();
 }
 
-fn el(tag: &str, class: &str, text: &str) -> web_sys::Element {
+/// An element with a class and a text (the panels' one way to make them).
+pub fn el(tag: &str, class: &str, text: &str) -> web_sys::Element {
     let e = document().create_element(tag).unwrap();
     if !class.is_empty() {
         e.set_class_name(class);
@@ -263,7 +256,8 @@ fn el(tag: &str, class: &str, text: &str) -> web_sys::Element {
     e
 }
 
-fn button(text: &str, title: &str, on: impl FnMut() + 'static) -> web_sys::Element {
+/// A button with a tooltip that runs `on` when clicked.
+pub fn button(text: &str, title: &str, on: impl FnMut() + 'static) -> web_sys::Element {
     let b = el("button", "", text);
     if !title.is_empty() {
         let _ = b.set_attribute("title", title);

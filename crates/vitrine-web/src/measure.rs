@@ -3,6 +3,7 @@
 //! agreement between coders, and the comparison of two kept corpora — each downloadable as the
 //! CSV `vitrine corpus` writes from the same corpus file, by the same library code.
 
+use super::coding::{button, el};
 use super::*;
 use vitrine_corpus::coding::{agreement_table, disagreements, Kind};
 use vitrine_corpus::columns::Column;
@@ -24,28 +25,6 @@ thread_local! {
     /// The value of each of the panel's menus (kept while the panel is drawn anew).
     static CHOICES: RefCell<std::collections::HashMap<String, String>> = RefCell::new(Default::default());
     static TAB: RefCell<&'static str> = const { RefCell::new("profile") };
-}
-
-fn el(tag: &str, class: &str, text: &str) -> web_sys::Element {
-    let e = document().create_element(tag).unwrap();
-    if !class.is_empty() {
-        e.set_class_name(class);
-    }
-    if !text.is_empty() {
-        e.set_text_content(Some(text));
-    }
-    e
-}
-
-fn button(text: &str, title: &str, on: impl FnMut() + 'static) -> web_sys::Element {
-    let b = el("button", "", text);
-    if !title.is_empty() {
-        let _ = b.set_attribute("title", title);
-    }
-    let cb = Closure::<dyn FnMut()>::new(on);
-    let _ = b.add_event_listener_with_callback("click", cb.as_ref().unchecked_ref());
-    cb.forget();
-    b
 }
 
 fn select_el(id: &str, label: &str, options: &[(String, String)], value: &str) -> web_sys::Element {
