@@ -913,8 +913,41 @@ test("coding: a codebook made in the page, ten items coded from the keyboard, ke
   await d4.saveAs(path.join(dir, "profile-page.csv"));
   assert.ok(fs.readFileSync(path.join(dir, "profile-page.csv")).equals(fs.readFileSync(path.join(dir, "profile.csv"))),
     "the page's profile table is the native one");
+  // Settling: ana and ben differ on the framing of the eighth and tenth items. The settling walk
+  // visits those two only; a number key sets the value that holds, kept beside both coders' own,
+  // and `vitrine corpus` lists it as settled.
+  await page.click("#measure-agreement");
+  await page.click("#settle-button");
+  await page.locator("#coding").waitFor({ state: "visible" });
+  assert.match(await page.locator("#coding .coding-head").innerText(), /Settling disagreements[\s\S]*item 1 of 2 · 0 settled/);
+  assert.deepEqual(await page.locator("#coding .variable.disputed").evaluateAll((l) => l.map((e) => e.dataset.variable)), ["framing"]);
+  await page.locator("#coder").fill("cy");
+  await page.locator("#coder").press("Enter");
+  await page.waitForFunction(() => document.activeElement.id === "coding");
+  const settledAs = {};
+  for (const k of [0, 1]) {
+    const item = await page.evaluate(() => document.body.dataset.codingItem);
+    assert.ok([typed[7].item, typed[9].item].includes(item), item);
+    assert.match(await page.locator("#coding .variable.disputed .coders-values").innerText(), /^ana: .+ · ben: head only$/);
+    await page.keyboard.press(k === 0 ? "3" : "1");
+    settledAs[item] = k === 0 ? "head only" : "full length";
+    if (k === 0) await page.screenshot({ path: path.join(ARTIFACTS, "24-settling.png") });
+    await page.keyboard.press("Enter");
+  }
+  assert.match(await page.locator("#coding .coding-head").innerText(), /2 settled/);
+  await page.waitForFunction(() => document.body.dataset.codes === "42");
+  await page.keyboard.press("Escape");
+  await page.keyboard.press("Escape");
+  await page.locator("#measure").waitFor({ state: "hidden" });
+  const [d5] = await Promise.all([page.waitForEvent("download"), page.click("#export-json")]);
+  const settledFile = path.join(dir, "settled.corpus.json");
+  await d5.saveAs(settledFile);
+  execFileSync(BIN, ["corpus", ATLAS, "--from", settledFile, "--disagreements", path.join(dir, "disagreements.csv")]);
+  const disputes = readCsv(fs.readFileSync(path.join(dir, "disagreements.csv"), "utf8"));
+  assert.equal(disputes.length, 2);
+  for (const r of disputes) assert.equal(r.settled, settledAs[r.id], JSON.stringify(r));
   // Two corpora compared: the woodcuts kept, then the etchings.
-  await page.click("#measure-compare");
+  await page.click("#compare-button");
   await page.fill("#keep-name", "woodcuts");
   await page.click("#keep-corpus");
   await page.evaluate(() => window.vitrineView.set_filter(JSON.stringify({ kind: "category", field: "technique", values: ["etching"] })));

@@ -4,7 +4,9 @@
 
 use std::collections::HashMap;
 
-use vitrine_corpus::coding::{Code, CodeValue, Codebook, Coded, Kind, Variable};
+use vitrine_corpus::coding::{
+    disagreements, time_order, Code, CodeValue, Codebook, Coded, Kind, Variable,
+};
 
 /// The order the coding view walks the corpus in.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -17,6 +19,9 @@ pub enum Order {
     Date,
     /// Shuffled with this seed (the same seed, the same order).
     Random(u64),
+    /// Only the items on which coders disagree, the unsettled first (in map order): the walk
+    /// that settles them. A value set in it is the settled value, kept beside the coders' own.
+    Disagreements,
 }
 
 impl Order {
@@ -26,6 +31,7 @@ impl Order {
             Order::Map => "map".into(),
             Order::Date => "date".into(),
             Order::Random(s) => format!("random (seed {s})"),
+            Order::Disagreements => "disagreements".into(),
         }
     }
 }
@@ -37,10 +43,19 @@ pub struct Walk {
     pub pos: usize,
     pub variable: usize,
     pub how: Order,
-    /// Whether an item (by index) is in the walk.
+    /// The corpus the walk was started over (atlas order): a walk over its disagreements holds
+    /// fewer items, and another order starts from all of them again.
+    pub source: Vec<u32>,
+    /// Whether an item (by index) is in the corpus.
     member: Vec<bool>,
-    /// Items of the walk this coder coded, per variable; items with every variable coded. Kept
-    /// up to date code by code, so that a step costs the same for a corpus of any size.
+    /// When settling: each item's variables (indices) on which its coders disagree.
+    disputed: HashMap<String, Vec<usize>>,
+    /// Per variable, how many items of the walk count: every item, or when settling those
+    /// disputed on it.
+    totals: Vec<usize>,
+    /// Items of the walk this coder coded (settled, when settling), per variable; items with every
+    /// variable done. Kept up to date code by code, so that a step costs the same for a corpus of
+    /// any size.
     coded: Vec<usize>,
     finished: usize,
 }
@@ -51,6 +66,7 @@ struct Change {
     index: usize,
     /// Whose code it was (undo puts back that coder's code, whoever codes now).
     coder: String,
+    settled: bool,
     item: String,
     variable: String,
     before: Option<Code>,
@@ -165,10 +181,67 @@ impl Coding {
             .map(|i| &self.codes[i])
     }
 
-    /// This coder's code of `item` for `variable`.
+    /// The code the view shows and sets: this coder's code of `item` for `variable`, or when
+    /// settling, its settled value (the latest, whoever settled it).
     pub fn code(&self, item: &str, variable: &str) -> Option<&Code> {
+        if self.settling() {
+            return self.settled_code(item, variable);
+        }
         self.find(item, variable, &self.coder, false)
             .map(|i| &self.codes[i])
+    }
+
+    /// The latest settled code of `item` for `variable`, whoever settled it.
+    pub fn settled_code(&self, item: &str, variable: &str) -> Option<&Code> {
+        self.by_item
+            .get(item)?
+            .iter()
+            .map(|&i| &self.codes[i])
+            .filter(|c| c.settled && c.variable == variable)
+            .max_by(|a, b| time_order(&a.time).cmp(&time_order(&b.time)))
+    }
+
+    /// Every coder's own code of `item` for `variable` (settled values aside), by coder's name.
+    pub fn coders_codes(&self, item: &str, variable: &str) -> Vec<&Code> {
+        let mut v: Vec<&Code> = self.by_item.get(item).map_or(vec![], |l| {
+            l.iter()
+                .map(|&i| &self.codes[i])
+                .filter(|c| !c.settled && c.variable == variable)
+                .collect()
+        });
+        v.sort_by(|a, b| a.coder.cmp(&b.coder));
+        v
+    }
+
+    /// Whether the walk settles disagreements (its codes are settled values).
+    pub fn settling(&self) -> bool {
+        self.walk
+            .as_ref()
+            .is_some_and(|w| w.how == Order::Disagreements)
+    }
+
+    /// Whether the coders disagree on variable `v` (index) of `item` (known while settling).
+    pub fn disputed(&self, item: &str, v: usize) -> bool {
+        self.walk
+            .as_ref()
+            .is_some_and(|w| w.disputed.get(item).is_some_and(|d| d.contains(&v)))
+    }
+
+    /// The variables the view steps through on the item it stands on: all of them, or when
+    /// settling, those its coders disagree on.
+    pub fn variables_here(&self, ids: &dyn Fn(usize) -> String) -> Vec<usize> {
+        let all = || (0..self.book.variables.len()).collect();
+        let Some(w) = &self.walk else { return all() };
+        if w.how != Order::Disagreements {
+            return all();
+        }
+        let Some(item) = self.current() else {
+            return all();
+        };
+        match w.disputed.get(&ids(item)) {
+            Some(d) if !d.is_empty() => d.clone(),
+            _ => all(),
+        }
     }
 
     /// Another coder codes from now: undo starts afresh (it holds the other coder's steps) and
@@ -195,11 +268,12 @@ impl Coding {
         value: Option<CodeValue>,
         time: &str,
     ) -> bool {
+        let settled = self.settling();
         let key: CodeKey = (
             item.to_string(),
             variable.to_string(),
             self.coder.clone(),
-            false,
+            settled,
         );
         let before = self.get(&key).cloned();
         if before.as_ref().map(|c| &c.value) == value.as_ref() {
@@ -209,6 +283,7 @@ impl Coding {
         self.undo.push(Change {
             index,
             coder: self.coder.clone(),
+            settled,
             item: item.into(),
             variable: variable.into(),
             before,
@@ -221,27 +296,25 @@ impl Coding {
             value: v,
             coder: self.coder.clone(),
             time: time.into(),
-            settled: false,
+            settled,
         });
         self.put_counted(index, key, code);
         true
     }
 
-    /// [`Coding::put`], keeping the walk's counts (of this coder's codes).
+    /// [`Coding::put`], keeping the walk's counts (of this coder's codes, or of settled values
+    /// when settling).
     fn put_counted(&mut self, index: usize, key: CodeKey, code: Option<Code>) {
-        let mine = key.2 == self.coder && !key.3;
-        let in_walk = mine
-            && self
-                .walk
-                .as_ref()
-                .is_some_and(|w| w.member.get(index).copied().unwrap_or(false));
         let var = self.book.variables.iter().position(|v| v.name == key.1);
-        let was = self.get(&key).is_some();
-        let was_finished = in_walk && self.finished(&key.0);
-        let id = key.0.clone();
-        let now = code.is_some();
+        let counts = key.3 == self.settling()
+            && (key.3 || key.2 == self.coder)
+            && var.is_some_and(|v| self.counts(index, &key.0, v));
+        let (id, name) = (key.0.clone(), key.1.clone());
+        let was = counts && self.code(&id, &name).is_some();
+        let was_finished = counts && self.finished(&id);
         self.put(key, code);
-        if in_walk {
+        if counts {
+            let now = self.code(&id, &name).is_some();
             let finished = self.finished(&id);
             let w = self.walk.as_mut().unwrap();
             if let Some(c) = var.and_then(|v| w.coded.get_mut(v)) {
@@ -256,6 +329,17 @@ impl Coding {
                 (true, false) => w.finished = w.finished.saturating_sub(1),
                 _ => {}
             }
+        }
+    }
+
+    /// Whether variable `v` of item `index` (id `id`) counts in the walk's progress.
+    fn counts(&self, index: usize, id: &str, v: usize) -> bool {
+        match &self.walk {
+            None => false,
+            Some(w) if w.how == Order::Disagreements => {
+                w.disputed.get(id).is_some_and(|d| d.contains(&v))
+            }
+            Some(w) => w.member.get(index).copied().unwrap_or(false),
         }
     }
 
@@ -304,7 +388,7 @@ impl Coding {
         let Some(ch) = self.undo.pop() else {
             return false;
         };
-        let key = (ch.item, ch.variable, ch.coder, false);
+        let key = (ch.item, ch.variable, ch.coder, ch.settled);
         self.put_counted(ch.index, key, ch.before);
         if let Some(w) = &mut self.walk {
             w.pos = ch.pos.min(w.order.len().saturating_sub(1));
@@ -313,8 +397,15 @@ impl Coding {
         true
     }
 
-    /// Whether this coder has coded every variable (notes aside) of `item`.
+    /// Whether this coder has coded every variable (notes aside) of `item`; when settling,
+    /// whether every variable its coders disagree on is settled.
     pub fn finished(&self, item: &str) -> bool {
+        if let Some(w) = self.walk.as_ref().filter(|w| w.how == Order::Disagreements) {
+            return w.disputed.get(item).is_some_and(|d| {
+                d.iter()
+                    .all(|&v| self.code(item, &self.book.variables[v].name).is_some())
+            });
+        }
         self.book
             .variables
             .iter()
@@ -330,10 +421,33 @@ impl Coding {
         ids: &dyn Fn(usize) -> String,
         start_years: Option<&[i32]>,
     ) {
+        let mut member = vec![false; items.iter().map(|&i| i as usize + 1).max().unwrap_or(0)];
+        for &i in items {
+            member[i as usize] = true;
+        }
+        self.walk = Some(Walk {
+            order: items.to_vec(),
+            pos: 0,
+            variable: 0,
+            how,
+            source: items.to_vec(),
+            member,
+            disputed: HashMap::new(),
+            totals: vec![],
+            coded: vec![],
+            finished: 0,
+        });
+        // Counted first: the orders that put unfinished items first read the counts.
+        self.recount(ids);
         let mut order = items.to_vec();
         match how {
             Order::Map => {}
             Order::UncodedFirst => {
+                order.sort_by_cached_key(|&i| self.finished(&ids(i as usize)));
+            }
+            Order::Disagreements => {
+                let w = self.walk.as_ref().unwrap();
+                order.retain(|&i| w.disputed.contains_key(&ids(i as usize)));
                 order.sort_by_cached_key(|&i| self.finished(&ids(i as usize)));
             }
             Order::Date => {
@@ -352,53 +466,69 @@ impl Coding {
                 }
             }
         }
-        let mut member = vec![false; items.iter().map(|&i| i as usize + 1).max().unwrap_or(0)];
-        for &i in items {
-            member[i as usize] = true;
-        }
-        self.walk = Some(Walk {
-            order,
-            pos: 0,
-            variable: 0,
-            how,
-            member,
-            coded: vec![],
-            finished: 0,
-        });
-        self.recount(ids);
+        self.walk.as_mut().unwrap().order = order;
+        self.walk.as_mut().unwrap().variable =
+            self.variables_here(ids).first().copied().unwrap_or(0);
     }
 
-    /// Whether the walk is over exactly `items` (atlas order).
-    pub fn walks(&self, items: &[u32]) -> bool {
+    /// Whether the walk is over exactly `items` (atlas order) in `how`'s kind (coding or
+    /// settling).
+    pub fn walks(&self, items: &[u32], settle: bool) -> bool {
         self.walk.as_ref().is_some_and(|w| {
-            w.order.len() == items.len()
-                && items
-                    .iter()
-                    .all(|&i| w.member.get(i as usize) == Some(&true))
+            (w.how == Order::Disagreements) == settle && w.source.as_slice() == items
         })
     }
 
-    /// Counts the walk's coded and finished items anew (after a change of many codes).
+    /// Counts the walk's coded (settled) and finished items anew, after a change of many codes;
+    /// when settling, finds anew what the coders disagree on.
     pub fn recount(&mut self, ids: &dyn Fn(usize) -> String) {
         let Some(w) = &self.walk else { return };
-        let mut coded = vec![0; self.book.variables.len()];
-        let mut finished = 0;
-        for &i in &w.order {
-            let id = ids(i as usize);
-            let mut all = true;
-            for (k, v) in self.book.variables.iter().enumerate() {
-                if self.code(&id, &v.name).is_some() {
-                    coded[k] += 1;
-                } else if v.kind != Kind::Note {
-                    all = false;
+        let nv = self.book.variables.len();
+        let source: Vec<String> = w.source.iter().map(|&i| ids(i as usize)).collect();
+        let (disputed, totals) = if w.how == Order::Disagreements {
+            let coded = Coded::new(&self.codes);
+            let refs: Vec<&str> = source.iter().map(String::as_str).collect();
+            let mut disputed: HashMap<String, Vec<usize>> = HashMap::new();
+            let mut totals = vec![0; nv];
+            for d in disagreements(&self.book, &coded, &refs) {
+                if let Some(v) = self
+                    .book
+                    .variables
+                    .iter()
+                    .position(|v| v.name == d.variable)
+                {
+                    disputed.entry(d.item).or_default().push(v);
+                    totals[v] += 1;
                 }
             }
-            finished += usize::from(all);
+            for d in disputed.values_mut() {
+                d.sort_unstable();
+            }
+            (disputed, totals)
+        } else {
+            (HashMap::new(), vec![source.len(); nv])
+        };
+        self.walk.as_mut().unwrap().disputed = disputed;
+        let w = self.walk.as_ref().unwrap();
+        let mut coded = vec![0; nv];
+        let mut finished = 0;
+        for (&i, id) in w.source.iter().zip(&source) {
+            let mut any = false;
+            for (k, v) in self.book.variables.iter().enumerate() {
+                if self.counts(i as usize, id, k) {
+                    any = true;
+                    if self.code(id, &v.name).is_some() {
+                        coded[k] += 1;
+                    }
+                }
+            }
+            finished += usize::from(any && self.finished(id));
         }
         let w = self.walk.as_mut().unwrap();
         w.coded = coded;
+        w.totals = totals;
         w.finished = finished;
-        w.variable = w.variable.min(self.book.variables.len().saturating_sub(1));
+        w.variable = w.variable.min(nv.saturating_sub(1));
     }
 
     /// The item the walk stands on.
@@ -413,8 +543,8 @@ impl Coding {
         self.book
             .variables
             .iter()
-            .zip(&w.coded)
-            .map(|(v, &n)| (v.name.clone(), n, w.order.len()))
+            .zip(w.coded.iter().zip(&w.totals))
+            .map(|(v, (&n, &total))| (v.name.clone(), n, total))
             .collect()
     }
 
@@ -423,7 +553,7 @@ impl Coding {
         self.walk.as_ref().map_or(0, |w| w.finished)
     }
 
-    fn step(&mut self, by: isize) -> Effect {
+    fn step(&mut self, by: isize, ids: &dyn Fn(usize) -> String) -> Effect {
         let Some(w) = &mut self.walk else {
             return Effect::None;
         };
@@ -432,7 +562,8 @@ impl Coding {
             return Effect::None;
         }
         w.pos = to;
-        w.variable = 0;
+        let first = self.variables_here(ids).first().copied().unwrap_or(0);
+        self.walk.as_mut().unwrap().variable = first;
         Effect::Moved
     }
 
@@ -455,23 +586,25 @@ impl Coding {
         }
         let nv = self.book.variables.len();
         let vi = w.variable.min(nv.saturating_sub(1));
+        let (pos, len) = (w.pos as isize, w.order.len() as isize);
+        // The variables stepped through: all, or when settling those disputed here.
+        let here = self.variables_here(ids);
+        let at = here.iter().position(|&v| v == vi);
         match key {
-            "ArrowRight" | "Enter" | "j" | "PageDown" => return self.step(1),
-            "ArrowLeft" | "k" | "PageUp" => return self.step(-1),
-            "Home" => return self.step(-(w.pos as isize)),
-            "End" => return self.step(w.order.len() as isize),
+            "ArrowRight" | "Enter" | "j" | "PageDown" => return self.step(1, ids),
+            "ArrowLeft" | "k" | "PageUp" => return self.step(-1, ids),
+            "Home" => return self.step(-pos, ids),
+            "End" => return self.step(len, ids),
             "Escape" => return Effect::Close,
-            "ArrowDown" | "Tab" => {
-                let w = self.walk.as_mut().unwrap();
-                if nv > 0 {
-                    w.variable = (vi + 1) % nv;
-                }
-                return Effect::Moved;
-            }
-            "ArrowUp" => {
-                let w = self.walk.as_mut().unwrap();
-                if nv > 0 {
-                    w.variable = (vi + nv - 1) % nv;
+            "ArrowDown" | "Tab" | "ArrowUp" => {
+                if !here.is_empty() {
+                    let n = here.len();
+                    let next = match (at, key) {
+                        (Some(a), "ArrowUp") => (a + n - 1) % n,
+                        (Some(a), _) => (a + 1) % n,
+                        (None, _) => 0,
+                    };
+                    self.walk.as_mut().unwrap().variable = here[next];
                 }
                 return Effect::Moved;
             }
@@ -548,8 +681,8 @@ impl Coding {
         };
         let advance = matches!(var.kind, Kind::One | Kind::YesNo);
         let changed = self.set(item, &id, &var.name, Some(value), time);
-        if advance && vi + 1 < nv {
-            self.walk.as_mut().unwrap().variable = vi + 1;
+        if let Some(&next) = here.iter().find(|&&v| v > vi).filter(|_| advance) {
+            self.walk.as_mut().unwrap().variable = next;
         }
         if changed {
             Effect::Coded
@@ -918,5 +1051,90 @@ mod tests {
         assert!(c.code("r0", "pose").is_some());
         assert_eq!(c.drop_codes("pose", None), 2);
         assert_eq!(c.codes.len(), 1);
+    }
+
+    #[test]
+    fn the_settling_walk_visits_disagreements_only_and_sets_settled_values() {
+        let mut c = coding();
+        let t = |s: &str| Some(CodeValue::Text(s.into()));
+        // ana and ben code four items; they disagree on r1's framing, on r2's framing and
+        // signed; r0 they code alike; r3 only ana coded.
+        for (coder, codes) in [
+            (
+                "ana",
+                [
+                    ("r0", "full length"),
+                    ("r1", "half length"),
+                    ("r2", "head only"),
+                ],
+            ),
+            (
+                "ben",
+                [
+                    ("r0", "full length"),
+                    ("r1", "head only"),
+                    ("r2", "half length"),
+                ],
+            ),
+        ] {
+            c.coder = coder.into();
+            for (i, (item, v)) in codes.iter().enumerate() {
+                c.set(i, item, "framing", t(v), T);
+            }
+            c.set(2, "r2", "signed", Some(CodeValue::YesNo(coder == "ana")), T);
+        }
+        c.coder = "ana".into();
+        c.set(3, "r3", "framing", t("head only"), T);
+        c.coder = "cy".into();
+        c.start(&[0, 1, 2, 3], Order::Disagreements, &ids, None);
+        assert!(c.settling());
+        assert_eq!(c.walk.as_ref().unwrap().order, vec![1, 2]);
+        assert_eq!(c.progress()[0], ("framing".to_string(), 0, 2));
+        assert_eq!(c.progress()[2], ("signed".to_string(), 0, 1));
+        assert_eq!(
+            c.coders_codes("r1", "framing")
+                .iter()
+                .map(|c| c.coder.as_str())
+                .collect::<Vec<_>>(),
+            ["ana", "ben"]
+        );
+        // 9 settles r1's framing as head only: a settled code beside the coders' own.
+        assert_eq!(c.key("9", false, T, &ids), Effect::Coded);
+        let s = c.settled_code("r1", "framing").unwrap();
+        assert!(s.settled && s.coder == "cy" && s.value == CodeValue::Text("head only".into()));
+        assert_eq!(c.codes.iter().filter(|c| c.item == "r1").count(), 3);
+        assert_eq!(c.finished_count(), 1);
+        // On r2 the view steps through the two disputed variables only.
+        c.key("Enter", false, T, &ids);
+        assert_eq!(c.current(), Some(2));
+        assert_eq!(c.walk.as_ref().unwrap().variable, 0);
+        c.key("1", false, T, &ids);
+        assert_eq!(c.walk.as_ref().unwrap().variable, 2, "on to signed");
+        c.key("ArrowDown", false, T, &ids);
+        assert_eq!(c.walk.as_ref().unwrap().variable, 0, "back to framing");
+        c.key("ArrowUp", false, T, &ids);
+        c.key("y", false, T, &ids);
+        assert_eq!(c.finished_count(), 2);
+        assert_eq!(c.progress()[0].1, 2);
+        // The tables read the settled values.
+        let coded = c.coded();
+        assert_eq!(
+            coded.outcome("framing", "r2"),
+            vitrine_corpus::coding::Outcome::Settled(CodeValue::Text("full length".into()))
+        );
+        // Undo takes the settled value back, not a coder's code.
+        c.key("z", true, T, &ids);
+        assert!(c.settled_code("r2", "signed").is_none());
+        assert_eq!(c.finished_count(), 1);
+        // A new walk puts the unsettled first; the coding walk over the same corpus is another.
+        c.start(&[0, 1, 2, 3], Order::Disagreements, &ids, None);
+        assert_eq!(c.walk.as_ref().unwrap().order, vec![2, 1]);
+        assert!(c.walks(&[0, 1, 2, 3], true) && !c.walks(&[0, 1, 2, 3], false));
+        c.start(&[0, 1, 2, 3], Order::Map, &ids, None);
+        assert!(!c.settling());
+        assert!(
+            c.code("r1", "framing").is_none(),
+            "cy coded nothing herself"
+        );
     }
 }

@@ -272,8 +272,9 @@ pub fn is_open() -> bool {
     by_id("coding").is_some_and(|c| !c.hidden())
 }
 
-/// Opens the coding view over the corpus (every item when nothing is chosen).
-pub fn open() {
+/// Opens the coding view over the corpus (every item when nothing is chosen); with `settle`, on
+/// its disagreements, to settle them.
+pub fn open_walk(settle: bool) {
     let Some(app) = app() else { return };
     if !ready() {
         return;
@@ -298,16 +299,16 @@ pub fn open() {
         };
         // The same corpus again: the walk goes on where it was (its counts made anew, as the
         // codebook may have changed meanwhile).
-        if a.coding.walks(&items) {
+        if a.coding.walks(&items, settle) {
             let v = &mut a.viewer;
             let ids = &v.atlas.ids;
             v.coding.recount(&|i: usize| ids.get(i).to_string());
         } else {
-            let how = a
-                .coding
-                .walk
-                .as_ref()
-                .map_or(Order::UncodedFirst, |w| w.how);
+            let how = match a.coding.walk.as_ref().map(|w| w.how) {
+                _ if settle => Order::Disagreements,
+                Some(Order::Disagreements) | None => Order::UncodedFirst,
+                Some(how) => how,
+            };
             start_walk(&mut a, &items, how);
         }
     }
@@ -558,16 +559,26 @@ fn render_view(app: &Rc<RefCell<App>>, view: &HtmlElement) {
     let Some(w) = a.coding.walk.as_ref() else {
         return;
     };
+    let settling = a.coding.settling();
     let head = el("header", "coding-head", "");
-    let _ = head.append_child(&el("h2", "", "Coding"));
+    let _ = head.append_child(&el(
+        "h2",
+        "",
+        if settling {
+            "Settling disagreements"
+        } else {
+            "Coding"
+        },
+    ));
     let count = el(
         "span",
         "count",
         &format!(
-            "item {} of {} · {} finished",
+            "item {} of {} · {} {}",
             (w.pos + 1).min(w.order.len()),
             w.order.len(),
-            a.coding.finished_count()
+            a.coding.finished_count(),
+            if settling { "settled" } else { "finished" }
         ),
     );
     let _ = head.append_child(&count);
@@ -614,6 +625,7 @@ fn render_view(app: &Rc<RefCell<App>>, view: &HtmlElement) {
         ("map", "map"),
         ("date", "date"),
         ("random", "random"),
+        ("disagreements", "disagreements (settle)"),
     ] {
         let o = web_sys::HtmlOptionElement::new_with_text_and_value(t, v).unwrap();
         let _ = order.append_child(&o);
@@ -623,18 +635,16 @@ fn render_view(app: &Rc<RefCell<App>>, view: &HtmlElement) {
         Order::Map => "map",
         Order::Date => "date",
         Order::Random(_) => "random",
+        Order::Disagreements => "disagreements",
     });
     let o2 = order.clone();
     listen(&order, "change", true, move |_e: web_sys::Event| {
         let Some(app) = self::app() else { return };
         {
             let mut a = app.borrow_mut();
-            let items = a.coding.walk.as_ref().map(|w| {
-                let mut v = w.order.clone();
-                v.sort_unstable();
-                v
-            });
+            let items = a.coding.walk.as_ref().map(|w| w.source.clone());
             let how = match o2.value().as_str() {
+                "disagreements" => Order::Disagreements,
                 "map" => Order::Map,
                 "date" => Order::Date,
                 // A seed from the clock, said in the view, so that the order can be told.
@@ -656,7 +666,12 @@ fn render_view(app: &Rc<RefCell<App>>, view: &HtmlElement) {
     let _ = view.append_child(&head);
 
     let Some(item) = a.coding.current() else {
-        let _ = view.append_child(&el("p", "pending", "The corpus is empty."));
+        let empty = if settling {
+            "The coders agree on every item of the corpus: nothing to settle."
+        } else {
+            "The corpus is empty."
+        };
+        let _ = view.append_child(&el("p", "pending", empty));
         return;
     };
     let id = a.atlas.id(item).to_string();
@@ -679,15 +694,25 @@ fn render_view(app: &Rc<RefCell<App>>, view: &HtmlElement) {
         ));
     }
     let _ = side.append_child(&dl);
-    let vars = el("ol", "coding-variables", "");
+    let vars = el(
+        "ol",
+        if settling {
+            "coding-variables settling"
+        } else {
+            "coding-variables"
+        },
+        "",
+    );
     for (k, var) in a.coding.book.variables.iter().enumerate() {
         let current = k == w.variable;
+        let disputed = settling && a.coding.disputed(&id, k);
         let li = el(
             "li",
-            if current {
-                "variable current"
-            } else {
-                "variable"
+            match (current, disputed) {
+                (true, true) => "variable current disputed",
+                (true, false) => "variable current",
+                (false, true) => "variable disputed",
+                (false, false) => "variable",
             },
             "",
         );
@@ -707,6 +732,27 @@ fn render_view(app: &Rc<RefCell<App>>, view: &HtmlElement) {
         let _ = name.add_event_listener_with_callback("click", cb.as_ref().unchecked_ref());
         cb.forget();
         let _ = li.append_child(&name);
+        if settling {
+            // What each coder gave, above the value that settles it.
+            let theirs: Vec<String> = a
+                .coding
+                .coders_codes(&id, &var.name)
+                .iter()
+                .map(|c| {
+                    let v = c.value.cell();
+                    format!("{}: {}", c.coder, if v.is_empty() { "none" } else { &v })
+                })
+                .collect();
+            let _ = li.append_child(&el(
+                "div",
+                "coders-values",
+                &if theirs.is_empty() {
+                    "not coded".to_string()
+                } else {
+                    theirs.join(" · ")
+                },
+            ));
+        }
         match var.kind {
             Kind::One | Kind::Several | Kind::YesNo => {
                 let choices: Vec<(String, Option<u8>, String, bool)> = if var.kind == Kind::YesNo {
@@ -810,7 +856,12 @@ fn render_view(app: &Rc<RefCell<App>>, view: &HtmlElement) {
             }
         }
         if let Some(c) = a.coding.code(&id, &var.name) {
-            let _ = li.append_child(&el("div", "coded-by", &format!("{} · {}", c.coder, c.time)));
+            let by = if c.settled { "settled by " } else { "" };
+            let _ = li.append_child(&el(
+                "div",
+                "coded-by",
+                &format!("{by}{} · {}", c.coder, c.time),
+            ));
         }
         let _ = vars.append_child(&li);
     }
@@ -818,15 +869,25 @@ fn render_view(app: &Rc<RefCell<App>>, view: &HtmlElement) {
     let progress = el("dl", "coding-progress", "");
     for (name, n, total) in a.coding.progress() {
         let _ = progress.append_child(&el("dt", "", &name));
-        let _ = progress.append_child(&el("dd", "", &format!("{n} / {total}")));
+        let line = if settling && total == 0 {
+            "no disagreement".to_string()
+        } else {
+            format!("{n} / {total}")
+        };
+        let _ = progress.append_child(&el("dd", "", &line));
     }
     let _ = side.append_child(&progress);
     let _ = view.append_child(&side);
     let _ = view.append_child(&el(
         "footer",
         "coding-keys",
-        "1–9 set a value · ↑ ↓ (Tab) variable · → or Enter next item, ← previous · 0 or Backspace clear · \
-         e type a number or note · Ctrl+Z undo · Escape close",
+        if settling {
+            "1–9 settle the value · ↑ ↓ (Tab) disputed variable · → or Enter next item, ← previous · \
+             0 or Backspace clear the settled value · Ctrl+Z undo · Escape close"
+        } else {
+            "1–9 set a value · ↑ ↓ (Tab) variable · → or Enter next item, ← previous · 0 or Backspace clear · \
+             e type a number or note · Ctrl+Z undo · Escape close"
+        },
     ));
     set_state("codingItem", &id);
 }
@@ -1364,7 +1425,9 @@ pub fn install() {
         });
     }
     if let Some(b) = by_id("code-button") {
-        listen(&b, "click", true, move |_e: web_sys::MouseEvent| open());
+        listen(&b, "click", true, move |_e: web_sys::MouseEvent| {
+            open_walk(false)
+        });
     }
     if let Some(input) = document()
         .get_element_by_id("merge-codes")
@@ -1452,6 +1515,6 @@ pub fn bench_coding(json: &str, coder: &str) -> bool {
         a.viewer.coding.coder = coder.to_string();
     }
     changed();
-    open();
+    open_walk(false);
     is_open()
 }

@@ -1066,7 +1066,7 @@ fn dispatch(action: Action) {
         Action::ToggleHelp => toggle_panel("help"),
         Action::ToggleAbout => toggle_panel("about"),
         Action::ToggleTheme => toggle_theme(),
-        Action::OpenCoding => coding::open(),
+        Action::OpenCoding => coding::open_walk(false),
     }
 }
 

@@ -453,6 +453,15 @@ fn render_agreement(app: &Rc<RefCell<App>>, body: &web_sys::Element) {
     });
     b.set_id("agreement-csv");
     let _ = row.append_child(&b);
+    if !d.is_empty() {
+        let s = button(
+            "Settle…",
+            "Walk the disagreements one by one and set the value that holds (kept beside the coders' own)",
+            || crate::coding::open_walk(true),
+        );
+        s.set_id("settle-button");
+        let _ = row.append_child(&s);
+    }
     let _ = body.append_child(&row);
     set_state("agreement", &rows.len().to_string());
 }
