@@ -946,6 +946,35 @@ test("coding: a codebook made in the page, ten items coded from the keyboard, ke
   const disputes = readCsv(fs.readFileSync(path.join(dir, "disagreements.csv"), "utf8"));
   assert.equal(disputes.length, 2);
   for (const r of disputes) assert.equal(r.settled, settledAs[r.id], JSON.stringify(r));
+  // From the tray grid's record card: cy codes an item she has not seen in the walk (her own
+  // code, not a settled value, though the settling walk was the last).
+  const tile = page.locator("#tray-space .tile").first();
+  const tileItem = await tile.getAttribute("data-item");
+  await tile.locator(".pic").click();
+  await page.waitForFunction(() => !!document.querySelector("#card .card-codes"));
+  const cardId = await page.evaluate(() => document.body.dataset.card);
+  assert.match(await page.locator("#card .card-codes h3").innerText(), /codes of cy/i);
+  await page.locator('#card .card-codes .variable[data-variable="framing"] button.value').nth(1).click();
+  await page.waitForFunction(() => document.body.dataset.codes === "43");
+  await page.waitForFunction(() => document.querySelector('#card .card-codes .variable[data-variable="framing"] button.value[aria-pressed="true"]')?.textContent.endsWith("half length"));
+  await page.screenshot({ path: path.join(ARTIFACTS, "25-card-codes.png") });
+  // Every item of the corpus at once: signed = yes on the woodcuts, taken back in one step.
+  const corpusSize = Number(await page.locator("#tray-count").innerText());
+  await page.click("#code-all-button");
+  await page.locator('#bulk .codebook-variable[data-variable="signed"] button', { hasText: /^yes$/ }).click();
+  await page.waitForFunction((n) => document.body.dataset.bulk === String(n), corpusSize);
+  assert.equal(await page.evaluate(() => document.body.dataset.codes), String(43 + corpusSize));
+  assert.match(await page.locator('#bulk .codebook-variable[data-variable="signed"]').innerText(), new RegExp(`${corpusSize} of ${corpusSize} coded by you`));
+  await page.screenshot({ path: path.join(ARTIFACTS, "26-code-all.png") });
+  await page.click("#bulk-undo");
+  await page.waitForFunction(() => document.body.dataset.codes === "43");
+  await page.keyboard.press("Escape");
+  await page.locator("#bulk").waitFor({ state: "hidden" });
+  const [d6] = await Promise.all([page.waitForEvent("download"), page.click("#export-json")]);
+  await d6.saveAs(path.join(dir, "card.corpus.json"));
+  const cardCode = JSON.parse(fs.readFileSync(path.join(dir, "card.corpus.json"), "utf8")).codes
+    .filter((c) => c.coder === "cy" && !c.settled);
+  assert.deepEqual(cardCode.map((c) => [c.item, c.variable, c.value]), [[cardId, "framing", "half length"]], tileItem);
   // Two corpora compared: the woodcuts kept, then the etchings.
   await page.click("#compare-button");
   await page.fill("#keep-name", "woodcuts");

@@ -113,7 +113,8 @@ pub struct Coding {
     /// Whose codes the view sets (change it with [`Coding::set_coder`]).
     pub coder: String,
     pub walk: Option<Walk>,
-    undo: Vec<Change>,
+    /// Steps to undo, each one or more changes (codes set on many items at once are one step).
+    undo: Vec<Vec<Change>>,
     /// Changes with every change of the codebook or codes.
     pub generation: u64,
     /// What the page has not stored yet.
@@ -258,8 +259,9 @@ impl Coding {
         }
     }
 
-    /// Sets (or with None clears) this coder's code of item `index` (id `item`) for `variable`,
-    /// at `time`; kept for undo. Returns whether anything changed.
+    /// Sets (or with None clears) the code the view sets — this coder's, or when settling the
+    /// settled value — of item `index` (id `item`) for `variable`, at `time`; kept for undo.
+    /// Returns whether anything changed.
     pub fn set(
         &mut self,
         index: usize,
@@ -269,6 +271,62 @@ impl Coding {
         time: &str,
     ) -> bool {
         let settled = self.settling();
+        let ch = self.change(index, item, variable, value, time, settled);
+        ch.map(|c| self.undo.push(vec![c])).is_some()
+    }
+
+    /// This coder's own code (never a settled value, whatever the walk) of item `index`, as the
+    /// record card sets it. Returns whether anything changed.
+    pub fn set_own(
+        &mut self,
+        index: usize,
+        item: &str,
+        variable: &str,
+        value: Option<CodeValue>,
+        time: &str,
+    ) -> bool {
+        let ch = self.change(index, item, variable, value, time, false);
+        ch.map(|c| self.undo.push(vec![c])).is_some()
+    }
+
+    /// This coder's own code of `item` for `variable`, whatever the walk.
+    pub fn own_code(&self, item: &str, variable: &str) -> Option<&Code> {
+        self.find(item, variable, &self.coder, false)
+            .map(|i| &self.codes[i])
+    }
+
+    /// Codes many items at once (this coder's own codes): each item's code becomes what `to` makes
+    /// of its present value (None clears it). One step for undo. Returns how many changed.
+    pub fn set_many(
+        &mut self,
+        items: &[(usize, String)],
+        variable: &str,
+        to: &dyn Fn(Option<&CodeValue>) -> Option<CodeValue>,
+        time: &str,
+    ) -> usize {
+        let mut group = Vec::new();
+        for (index, id) in items {
+            let value = to(self.own_code(id, variable).map(|c| &c.value));
+            if let Some(c) = self.change(*index, id, variable, value, time, false) {
+                group.push(c);
+            }
+        }
+        let n = group.len();
+        if n > 0 {
+            self.undo.push(group);
+        }
+        n
+    }
+
+    fn change(
+        &mut self,
+        index: usize,
+        item: &str,
+        variable: &str,
+        value: Option<CodeValue>,
+        time: &str,
+        settled: bool,
+    ) -> Option<Change> {
         let key: CodeKey = (
             item.to_string(),
             variable.to_string(),
@@ -277,10 +335,10 @@ impl Coding {
         );
         let before = self.get(&key).cloned();
         if before.as_ref().map(|c| &c.value) == value.as_ref() {
-            return false;
+            return None;
         }
         let (pos, var_index) = self.walk.as_ref().map_or((0, 0), |w| (w.pos, w.variable));
-        self.undo.push(Change {
+        let ch = Change {
             index,
             coder: self.coder.clone(),
             settled,
@@ -289,7 +347,7 @@ impl Coding {
             before,
             pos,
             var_index,
-        });
+        };
         let code = value.map(|v| Code {
             item: item.into(),
             variable: variable.into(),
@@ -299,7 +357,7 @@ impl Coding {
             settled,
         });
         self.put_counted(index, key, code);
-        true
+        Some(ch)
     }
 
     /// [`Coding::put`], keeping the walk's counts (of this coder's codes, or of settled values
@@ -383,18 +441,27 @@ impl Coding {
         }
     }
 
-    /// Undoes the last change; the walk goes back to where it was made. False when there is none.
+    /// Undoes the last step; the walk goes back to where it was made. False when there is none.
     pub fn undo(&mut self) -> bool {
-        let Some(ch) = self.undo.pop() else {
+        let Some(group) = self.undo.pop() else {
             return false;
         };
-        let key = (ch.item, ch.variable, ch.coder, ch.settled);
-        self.put_counted(ch.index, key, ch.before);
-        if let Some(w) = &mut self.walk {
-            w.pos = ch.pos.min(w.order.len().saturating_sub(1));
-            w.variable = ch.var_index;
+        let mut at = None;
+        for ch in group.into_iter().rev() {
+            at = Some((ch.pos, ch.var_index));
+            let key = (ch.item, ch.variable, ch.coder, ch.settled);
+            self.put_counted(ch.index, key, ch.before);
+        }
+        if let (Some(w), Some((pos, var))) = (&mut self.walk, at) {
+            w.pos = pos.min(w.order.len().saturating_sub(1));
+            w.variable = var;
         }
         true
+    }
+
+    /// Whether there is a step to undo.
+    pub fn can_undo(&self) -> bool {
+        !self.undo.is_empty()
     }
 
     /// Whether this coder has coded every variable (notes aside) of `item`; when settling,
@@ -1136,5 +1203,63 @@ mod tests {
             c.code("r1", "framing").is_none(),
             "cy coded nothing herself"
         );
+    }
+
+    #[test]
+    fn many_items_coded_at_once_are_one_step_and_never_settled_values() {
+        let mut c = coding();
+        let items: Vec<(usize, String)> = (0..5).map(|i| (i, ids(i))).collect();
+        c.set(1, "r1", "signed", Some(CodeValue::YesNo(false)), T);
+        c.start(&[0, 1, 2, 3, 4], Order::Disagreements, &ids, None);
+        // Even with a settling walk standing, codes set on many items are the coder's own.
+        let yes = |_: Option<&CodeValue>| Some(CodeValue::YesNo(true));
+        assert_eq!(c.set_many(&items, "signed", &yes, T), 5);
+        assert!(c.codes.iter().all(|c| !c.settled && c.coder == "ana"));
+        assert_eq!(
+            c.set_many(&items, "signed", &yes, T),
+            0,
+            "nothing left to change"
+        );
+        // Several choices: a value added to each item's own set.
+        c.set_own(
+            2,
+            "r2",
+            "motifs",
+            Some(CodeValue::Several(vec!["river".into()])),
+            T,
+        );
+        let add_tree = |now: Option<&CodeValue>| {
+            let mut v = match now {
+                Some(CodeValue::Several(v)) => v.clone(),
+                _ => vec![],
+            };
+            if !v.iter().any(|t| t == "tree") {
+                v.insert(0, "tree".into());
+            }
+            Some(CodeValue::Several(v))
+        };
+        assert_eq!(c.set_many(&items[1..3], "motifs", &add_tree, T), 2);
+        assert_eq!(
+            c.own_code("r2", "motifs").unwrap().value,
+            CodeValue::Several(vec!["tree".into(), "river".into()])
+        );
+        // One undo takes the whole step back, and the next the one before it.
+        assert!(c.undo());
+        assert_eq!(
+            c.own_code("r2", "motifs").unwrap().value,
+            CodeValue::Several(vec!["river".into()])
+        );
+        assert!(c.own_code("r1", "motifs").is_none());
+        assert!(c.undo());
+        assert!(c.undo());
+        assert_eq!(
+            c.own_code("r1", "signed").unwrap().value,
+            CodeValue::YesNo(false),
+            "r1 had its own code before"
+        );
+        assert!(c.own_code("r0", "signed").is_none());
+        assert!(c.undo());
+        assert!(!c.can_undo());
+        assert!(c.codes.is_empty());
     }
 }

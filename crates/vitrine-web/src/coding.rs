@@ -29,7 +29,7 @@ struct Saving {
     restored: bool,
 }
 
-fn now_utc() -> String {
+pub(crate) fn now_utc() -> String {
     js_sys::Date::new_0().to_iso_string().into()
 }
 
@@ -195,7 +195,7 @@ pub async fn restore() {
 }
 
 /// Whether the store has been read; says to wait when not.
-fn ready() -> bool {
+pub(crate) fn ready() -> bool {
     let r = SAVING.with(|s| s.borrow().restored);
     if !r {
         select::note("The codes kept in this browser are being read: a moment.");
@@ -239,9 +239,13 @@ pub fn status() {
 }
 
 /// After the codes or codebook changed: store them, redraw what shows them.
-fn changed() {
+pub(crate) fn changed() {
     save();
     status();
+    // An open record card shows the codes as they are now.
+    if let Some(i) = app().and_then(|a| a.borrow().open) {
+        redraw_soon(Target::Card(i));
+    }
 }
 
 /// An element with a class and a text (the panels' one way to make them).
@@ -423,30 +427,75 @@ fn focus_field(id: &str) {
     }
 }
 
-/// Sets the current item's value of variable `v` from a field (a number or a note).
-fn set_from_field(v: usize, text: String) {
+/// Sets variable `v`'s value of the target's item from a field (a number or a note).
+fn set_from_field(target: Target, v: usize, text: String) {
     let Some(app) = app() else { return };
     let outcome = {
         let mut a = app.borrow_mut();
-        let Some(item) = a.coding.current() else {
+        if a.coding.coder.trim().is_empty() {
+            drop(a);
+            return ask_coder();
+        }
+        let Some(item) = target_item(&a, target) else {
             return;
         };
         let Some(var) = a.coding.book.variables.get(v).cloned() else {
             return;
         };
         let id = a.atlas.id(item).to_string();
+        let c = &mut a.viewer.coding;
         match CodeValue::parse(&var, &text) {
-            Ok(value) => Ok(a.viewer.coding.set(item, &id, &var.name, value, &now_utc())),
+            Ok(value) if target == Target::View => {
+                Ok(c.set(item, &id, &var.name, value, &now_utc()))
+            }
+            Ok(value) => Ok(c.set_own(item, &id, &var.name, value, &now_utc())),
             Err(why) => Err(why),
         }
     };
     match outcome {
         Ok(true) => {
             changed();
-            render_soon(false);
+            if target == Target::View {
+                render_soon(false);
+            }
         }
         Ok(false) => {}
         Err(why) => select::note(&format!("Not coded: {why}.")),
+    }
+}
+
+/// The item a control codes.
+fn target_item(a: &App, target: Target) -> Option<usize> {
+    match target {
+        Target::View => a.coding.current(),
+        Target::Card(i) => Some(i),
+    }
+}
+
+/// No coder's name yet: the coding view asks for it; elsewhere a note says where to give it.
+fn ask_coder() {
+    if is_open() {
+        focus_field("coder");
+    } else {
+        select::note("Give your name as coder first: the coding view (k) asks for it.");
+    }
+}
+
+/// Draws what shows the target's codes again once the event under way is over.
+fn redraw_soon(target: Target) {
+    match target {
+        Target::View => render_soon(false),
+        Target::Card(i) => {
+            let cb = Closure::once_into_js(move || {
+                if app().is_some_and(|a| a.borrow().open == Some(i)) {
+                    crate::open_card(Some(i));
+                }
+            });
+            if let Some(w) = web_sys::window() {
+                let _ =
+                    w.set_timeout_with_callback_and_timeout_and_arguments_0(cb.unchecked_ref(), 0);
+            }
+        }
     }
 }
 
@@ -753,108 +802,7 @@ fn render_view(app: &Rc<RefCell<App>>, view: &HtmlElement) {
                 },
             ));
         }
-        match var.kind {
-            Kind::One | Kind::Several | Kind::YesNo => {
-                let choices: Vec<(String, Option<u8>, String, bool)> = if var.kind == Kind::YesNo {
-                    vec![
-                        (
-                            "yes".into(),
-                            Some(1),
-                            String::new(),
-                            code == Some(CodeValue::YesNo(true)),
-                        ),
-                        (
-                            "no".into(),
-                            Some(2),
-                            String::new(),
-                            code == Some(CodeValue::YesNo(false)),
-                        ),
-                    ]
-                } else {
-                    let keys = value_keys(var);
-                    var.values
-                        .iter()
-                        .zip(keys)
-                        .map(|(d, key)| {
-                            let on = match &code {
-                                Some(CodeValue::Text(t)) => t == &d.value,
-                                Some(CodeValue::Several(vs)) => vs.contains(&d.value),
-                                _ => false,
-                            };
-                            (d.value.clone(), key, d.description.clone(), on)
-                        })
-                        .collect()
-                };
-                let row = el("div", "values", "");
-                for (value, key, description, on) in choices {
-                    let text = match key {
-                        Some(k) => format!("{k} {value}"),
-                        None => value.clone(),
-                    };
-                    let (vname, kind) = (var.name.clone(), var.kind);
-                    let v2 = value.clone();
-                    let b = button(&text, &description, move || {
-                        choose(&vname, kind, &v2);
-                    });
-                    b.set_class_name(if on { "value on" } else { "value" });
-                    let _ = b.set_attribute("aria-pressed", if on { "true" } else { "false" });
-                    let _ = row.append_child(&b);
-                }
-                if var.kind == Kind::Several
-                    && matches!(&code, Some(CodeValue::Several(v)) if v.is_empty())
-                {
-                    let _ = row.append_child(&el("span", "count", "none of these"));
-                }
-                let _ = li.append_child(&row);
-            }
-            Kind::Number | Kind::Note => {
-                let field: HtmlElement = if var.kind == Kind::Note {
-                    let t: web_sys::HtmlTextAreaElement =
-                        doc.create_element("textarea").unwrap().dyn_into().unwrap();
-                    t.set_value(&code.as_ref().map(CodeValue::cell).unwrap_or_default());
-                    t.set_rows(2);
-                    t.into()
-                } else {
-                    let i: web_sys::HtmlInputElement =
-                        doc.create_element("input").unwrap().dyn_into().unwrap();
-                    i.set_type("text");
-                    let _ = i.set_attribute("inputmode", "decimal");
-                    i.set_value(&code.as_ref().map(CodeValue::cell).unwrap_or_default());
-                    i.into()
-                };
-                let _ = field.set_attribute("aria-label", &var.name);
-                let _ = field.set_attribute("data-field", &var.name);
-                let f2 = field.clone();
-                let note = var.kind == Kind::Note;
-                listen(
-                    &field,
-                    "keydown",
-                    false,
-                    move |e: web_sys::KeyboardEvent| {
-                        let done = match e.key().as_str() {
-                            "Enter" => !(note && e.shift_key()),
-                            "Escape" | "Tab" => true,
-                            _ => false,
-                        };
-                        if done {
-                            e.prevent_default();
-                            e.stop_propagation();
-                            let text = field_value(&f2);
-                            set_from_field(k, text);
-                            if let Some(v) = by_id("coding") {
-                                let _ = v.set_attribute("tabindex", "-1");
-                                let _ = v.focus();
-                            }
-                        }
-                    },
-                );
-                let f3 = field.clone();
-                listen(&field, "change", false, move |_e: web_sys::Event| {
-                    set_from_field(k, field_value(&f3));
-                });
-                let _ = li.append_child(&field);
-            }
-        }
+        let _ = li.append_child(&value_controls(k, var, &code, Target::View));
         if let Some(c) = a.coding.code(&id, &var.name) {
             let by = if c.settled { "settled by " } else { "" };
             let _ = li.append_child(&el(
@@ -892,6 +840,134 @@ fn render_view(app: &Rc<RefCell<App>>, view: &HtmlElement) {
     set_state("codingItem", &id);
 }
 
+/// Where a value set by a control goes: the item the coding view stands on (its code, or the
+/// settled value when settling), or the record card's item (this coder's own code).
+#[derive(Clone, Copy, PartialEq)]
+pub enum Target {
+    View,
+    Card(usize),
+}
+
+/// The controls that set variable `k`'s value: a button per value (choices, yes/no) or a field
+/// (number, note), showing `code`.
+fn value_controls(
+    k: usize,
+    var: &Variable,
+    code: &Option<CodeValue>,
+    target: Target,
+) -> web_sys::Element {
+    let doc = document();
+    let out = el("div", "controls", "");
+    let li = &out;
+    match var.kind {
+        Kind::One | Kind::Several | Kind::YesNo => {
+            let choices: Vec<(String, Option<u8>, String, bool)> = if var.kind == Kind::YesNo {
+                vec![
+                    (
+                        "yes".into(),
+                        Some(1),
+                        String::new(),
+                        *code == Some(CodeValue::YesNo(true)),
+                    ),
+                    (
+                        "no".into(),
+                        Some(2),
+                        String::new(),
+                        *code == Some(CodeValue::YesNo(false)),
+                    ),
+                ]
+            } else {
+                let keys = value_keys(var);
+                var.values
+                    .iter()
+                    .zip(keys)
+                    .map(|(d, key)| {
+                        let on = match &code {
+                            Some(CodeValue::Text(t)) => t == &d.value,
+                            Some(CodeValue::Several(vs)) => vs.contains(&d.value),
+                            _ => false,
+                        };
+                        (d.value.clone(), key, d.description.clone(), on)
+                    })
+                    .collect()
+            };
+            let row = el("div", "values", "");
+            for (value, key, description, on) in choices {
+                let text = match key {
+                    Some(k) => format!("{k} {value}"),
+                    None => value.clone(),
+                };
+                let (vname, kind) = (var.name.clone(), var.kind);
+                let v2 = value.clone();
+                let b = button(&text, &description, move || {
+                    choose(target, &vname, kind, &v2);
+                });
+                b.set_class_name(if on { "value on" } else { "value" });
+                let _ = b.set_attribute("aria-pressed", if on { "true" } else { "false" });
+                let _ = row.append_child(&b);
+            }
+            if var.kind == Kind::Several
+                && matches!(&code, Some(CodeValue::Several(v)) if v.is_empty())
+            {
+                let _ = row.append_child(&el("span", "count", "none of these"));
+            }
+            let _ = li.append_child(&row);
+        }
+        Kind::Number | Kind::Note => {
+            let field: HtmlElement = if var.kind == Kind::Note {
+                let t: web_sys::HtmlTextAreaElement =
+                    doc.create_element("textarea").unwrap().dyn_into().unwrap();
+                t.set_value(&code.as_ref().map(CodeValue::cell).unwrap_or_default());
+                t.set_rows(2);
+                t.into()
+            } else {
+                let i: web_sys::HtmlInputElement =
+                    doc.create_element("input").unwrap().dyn_into().unwrap();
+                i.set_type("text");
+                let _ = i.set_attribute("inputmode", "decimal");
+                i.set_value(&code.as_ref().map(CodeValue::cell).unwrap_or_default());
+                i.into()
+            };
+            let _ = field.set_attribute("aria-label", &var.name);
+            let _ = field.set_attribute("data-field", &var.name);
+            let f2 = field.clone();
+            let note = var.kind == Kind::Note;
+            listen(
+                &field,
+                "keydown",
+                false,
+                move |e: web_sys::KeyboardEvent| {
+                    let done = match e.key().as_str() {
+                        "Enter" => !(note && e.shift_key()),
+                        "Escape" | "Tab" => true,
+                        _ => false,
+                    };
+                    if done {
+                        e.prevent_default();
+                        e.stop_propagation();
+                        let text = field_value(&f2);
+                        set_from_field(target, k, text);
+                        if target == Target::View {
+                            if let Some(v) = by_id("coding") {
+                                let _ = v.set_attribute("tabindex", "-1");
+                                let _ = v.focus();
+                            }
+                        } else {
+                            let _ = f2.blur();
+                        }
+                    }
+                },
+            );
+            let f3 = field.clone();
+            listen(&field, "change", false, move |_e: web_sys::Event| {
+                set_from_field(target, k, field_value(&f3));
+            });
+            let _ = li.append_child(&field);
+        }
+    }
+    out
+}
+
 fn field_value(f: &HtmlElement) -> String {
     if let Some(i) = f.dyn_ref::<web_sys::HtmlInputElement>() {
         i.value()
@@ -903,23 +979,26 @@ fn field_value(f: &HtmlElement) -> String {
 }
 
 /// A click on a value button: the same as its key.
-fn choose(variable: &str, kind: Kind, value: &str) {
+fn choose(target: Target, variable: &str, kind: Kind, value: &str) {
     let Some(app) = app() else { return };
     let changed_now = {
         let mut a = app.borrow_mut();
         if a.coding.coder.trim().is_empty() {
             drop(a);
-            focus_field("coder");
-            return select::note("Give your name as coder first.");
+            return ask_coder();
         }
-        let Some(item) = a.coding.current() else {
+        let Some(item) = target_item(&a, target) else {
             return;
         };
         let id = a.atlas.id(item).to_string();
         let Some(var) = a.coding.book.variable(variable).cloned() else {
             return;
         };
-        let now = a.coding.code(&id, variable).map(|c| c.value.clone());
+        let now = match target {
+            Target::View => a.coding.code(&id, variable),
+            Target::Card(_) => a.coding.own_code(&id, variable),
+        }
+        .map(|c| c.value.clone());
         let value = match kind {
             Kind::YesNo => CodeValue::YesNo(value == "yes"),
             Kind::Several => {
@@ -937,14 +1016,61 @@ fn choose(variable: &str, kind: Kind, value: &str) {
             }
             _ => CodeValue::Text(value.to_string()),
         };
-        a.viewer
-            .coding
-            .set(item, &id, variable, Some(value), &now_utc())
+        let c = &mut a.viewer.coding;
+        match target {
+            Target::View => c.set(item, &id, variable, Some(value), &now_utc()),
+            Target::Card(_) => c.set_own(item, &id, variable, Some(value), &now_utc()),
+        }
     };
     if changed_now {
         changed();
     }
-    render();
+    if target == Target::View {
+        render();
+    }
+}
+
+/// The record card's codes of item `i`: this coder's own, set by the same buttons and fields as
+/// the coding view's (None without a codebook).
+pub fn card_codes(a: &App, i: usize) -> Option<web_sys::Element> {
+    if a.coding.book.is_empty() {
+        return None;
+    }
+    let id = a.atlas.id(i);
+    let out = el("section", "card-codes", "");
+    let who = if a.coding.coder.trim().is_empty() {
+        "Codes (give your name in the coding view, k, to code here)".to_string()
+    } else {
+        format!("Codes of {}", a.coding.coder)
+    };
+    let _ = out.append_child(&el("h3", "", &who));
+    for (k, var) in a.coding.book.variables.iter().enumerate() {
+        let row = el("div", "variable", "");
+        let _ = row.set_attribute("data-variable", &var.name);
+        let name = el("div", "variable-name", &var.name);
+        let _ = name.set_attribute("title", &var.description);
+        let _ = row.append_child(&name);
+        let code = a.coding.own_code(id, &var.name).map(|c| c.value.clone());
+        let _ = row.append_child(&value_controls(k, var, &code, Target::Card(i)));
+        // Other coders' codes and a settled value, read only.
+        let others: Vec<String> = a
+            .coding
+            .coders_codes(id, &var.name)
+            .iter()
+            .filter(|c| c.coder != a.coding.coder)
+            .map(|c| format!("{}: {}", c.coder, c.value.cell()))
+            .chain(
+                a.coding
+                    .settled_code(id, &var.name)
+                    .map(|c| format!("settled: {}", c.value.cell())),
+            )
+            .collect();
+        if !others.is_empty() {
+            let _ = row.append_child(&el("div", "coders-values", &others.join(" · ")));
+        }
+        let _ = out.append_child(&row);
+    }
+    Some(out)
 }
 
 fn is_codebook_open() -> bool {
@@ -976,7 +1102,7 @@ fn close_codebook() {
     focus_map();
 }
 
-fn confirm(text: &str) -> bool {
+pub(crate) fn confirm(text: &str) -> bool {
     web_sys::window()
         .and_then(|w| w.confirm_with_message(text).ok())
         .unwrap_or(false)

@@ -82,6 +82,7 @@ impl std::ops::DerefMut for App {
     }
 }
 
+mod bulk;
 mod coding;
 mod filters;
 mod gl_present;
@@ -717,13 +718,15 @@ fn open_card(i: Option<usize>) {
     if let Some(w) = want {
         fetch_sheets(vec![w]);
     }
-    let a = app.borrow();
     let doc = document();
     // A card drawn again (its picture or neighbours arrived) keeps the keyboard's focus in it.
     let had_focus = doc
         .active_element()
         .is_some_and(|e| card.contains(Some(e.as_ref())));
+    // Emptied before the state is borrowed: taking out a code field with text not yet committed
+    // fires its change event, and its handler borrows the state.
     card.set_text_content(None);
+    let a = app.borrow();
     let close = doc.create_element("button").unwrap();
     close.set_class_name("close");
     close
@@ -767,6 +770,9 @@ fn open_card(i: Option<usize>) {
         let _ = dl.append_child(&dd);
     }
     let _ = card.append_child(&dl);
+    if let Some(codes) = coding::card_codes(&a, i) {
+        let _ = card.append_child(&codes);
+    }
     let h = doc.create_element("h3").unwrap();
     h.set_text_content(Some("Nearest neighbours"));
     let _ = card.append_child(&h);
@@ -1079,7 +1085,7 @@ fn escape() {
     if coding::escape() {
         return;
     }
-    if measure::close() {
+    if measure::close() || bulk::close() {
         return;
     }
     let selecting = app().is_some_and(|a| a.borrow().mode != Mode::Move);
@@ -1487,6 +1493,7 @@ async fn load(base: String) -> Result<(), String> {
     tray::install();
     coding::install();
     measure::install();
+    bulk::install();
     if let Some(l) = by_id("loading") {
         l.set_hidden(true);
     }

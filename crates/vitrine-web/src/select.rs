@@ -187,6 +187,7 @@ pub fn note(text: &str) {
 pub fn refresh() {
     let Some(app) = app() else { return };
     super::measure::corpus_changed();
+    super::bulk::corpus_changed();
     let state = app.borrow_mut().corpus_changed();
     show_figures(state.figures.as_ref());
     let (count, corpus, history, any) = (
