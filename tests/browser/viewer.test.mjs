@@ -975,6 +975,20 @@ test("coding: a codebook made in the page, ten items coded from the keyboard, ke
   const cardCode = JSON.parse(fs.readFileSync(path.join(dir, "card.corpus.json"), "utf8")).codes
     .filter((c) => c.coder === "cy" && !c.settled);
   assert.deepEqual(cardCode.map((c) => [c.item, c.variable, c.value]), [[cardId, "framing", "half length"]], tileItem);
+  // Taken back in the card, the code stays gone when the older file that holds it is added, and
+  // after a reload (the clearing is kept in the browser too).
+  await page.locator('#card .card-codes .variable[data-variable="framing"] .clear-code').click();
+  await page.waitForFunction(() => document.body.dataset.codes === "42");
+  await page.setInputFiles("#merge-codes", path.join(dir, "card.corpus.json"));
+  await page.waitForFunction(() => /left out: their coder cleared them later/.test(document.querySelector("#select-note").textContent));
+  await page.waitForFunction(() => document.body.dataset.codes === "42"); // "" while saving
+  await page.reload();
+  await page.waitForFunction(() => document.body.dataset.coding === "restored", null, { timeout: 60000 });
+  await page.setInputFiles("#merge-codes", path.join(dir, "card.corpus.json"));
+  await page.waitForFunction(() => /left out: their coder cleared them later/.test(document.querySelector("#select-note").textContent));
+  await page.waitForFunction(() => document.body.dataset.codes === "42"); // "" while saving
+  await page.evaluate((f) => window.vitrineView.set_filter(f), woodcuts);
+  await page.locator("#tray").waitFor({ state: "visible" });
   // Two corpora compared: the woodcuts kept, then the etchings.
   await page.click("#compare-button");
   await page.fill("#keep-name", "woodcuts");

@@ -7,7 +7,7 @@ use std::path::Path;
 use anyhow::{bail, Context, Result};
 use serde::Deserialize;
 use vitrine_corpus::coding::{
-    check_codes, describe_misfits, merge_codebooks, merge_codes, recode, set_codes, Code,
+    check_codes, describe_misfits, merge_codebooks, merge_coding, recode, set_codes, Cleared, Code,
     CodeValue, Codebook,
 };
 use vitrine_corpus::corpus::CorpusFile;
@@ -92,6 +92,7 @@ pub fn require_fit(book: &Codebook, codes: &[Code]) -> Result<()> {
 pub fn merge_files(
     book: &mut Codebook,
     codes: &mut Vec<Code>,
+    cleared: &mut Vec<Cleared>,
     files: &[std::path::PathBuf],
     manifest_sha: &str,
     notes: &mut Vec<String>,
@@ -114,7 +115,7 @@ pub fn merge_files(
                 other.atlas.title
             ));
         }
-        let r = merge_codes(codes, &other.codes);
+        let r = merge_coding(codes, cleared, &other.codes, &other.cleared);
         let mut line = format!(
             "merged {}: {} codes added, {} already here",
             p.display(),
@@ -125,6 +126,12 @@ pub fn merge_files(
             line.push_str(&format!(
                 "; {} codes where one coder coded an item twice differently: the later kept",
                 r.replaced_by_later + r.kept_later
+            ));
+        }
+        if r.cleared_later > 0 {
+            line.push_str(&format!(
+                "; {} codes left out: their coder cleared them later",
+                r.cleared_later
             ));
         }
         notes.push(line);

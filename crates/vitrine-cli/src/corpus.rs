@@ -426,10 +426,18 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
         .map(|c| c.codebook.clone())
         .unwrap_or_default();
     let mut codes = from.as_ref().map(|c| c.codes.clone()).unwrap_or_default();
+    let mut cleared = from.as_ref().map(|c| c.cleared.clone()).unwrap_or_default();
     if let Some(p) = &a.codebook {
         book = coding::read_codebook(p)?;
     }
-    coding::merge_files(&mut book, &mut codes, &a.merges, &manifest_sha, &mut notes)?;
+    coding::merge_files(
+        &mut book,
+        &mut codes,
+        &mut cleared,
+        &a.merges,
+        &manifest_sha,
+        &mut notes,
+    )?;
     notes.extend(coding::apply_recodes(&book, &mut codes, &a.recodes)?);
     coding::require_fit(&book, &codes)?;
     let mut steps = from.as_ref().map(|c| c.steps.clone()).unwrap_or_default();
@@ -550,6 +558,8 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
             coding::put_codes(&mut codes, new, p, &mut notes);
         }
     }
+    // Codes read now are later than any clearing of their keys.
+    vitrine_corpus::coding::apply_clearings(&mut codes, &mut cleared);
     let in_corpus = |id: &str| index.get(id).is_some_and(|&i| mask.get(i));
     coding::note_outside(&codes, &in_atlas, &in_corpus, &mut notes);
     let coded = Coded::new(&codes);
@@ -585,6 +595,7 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
         },
         codebook: book.clone(),
         codes: codes.clone(),
+        cleared,
     };
     let mut written = measure::measure(
         a,

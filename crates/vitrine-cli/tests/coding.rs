@@ -483,4 +483,57 @@ fn codes_that_do_not_fit_are_named_and_nothing_is_dropped() {
     );
     let w = std::fs::read_to_string(d.join("w.json")).unwrap();
     assert!(w.contains("elsewhere-1"), "the code is kept: {w}");
+
+    // A code its coder cleared later does not come back from her older file, whichever file is
+    // merged into which; a code she set again after clearing it stays.
+    let ana: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(d.join("ana.json")).unwrap()).unwrap();
+    let first = ana["codes"][0].clone();
+    let mut later = ana.clone();
+    let codes = later["codes"].as_array_mut().unwrap();
+    let n = codes.len();
+    codes.remove(0);
+    later["cleared"] = serde_json::json!([{
+        "item": first["item"], "variable": first["variable"], "coder": first["coder"],
+        "time": "2099-01-01T00:00:00Z"}]);
+    std::fs::write(d.join("later.json"), later.to_string()).unwrap();
+    for (from, merge) in [("later.json", "ana.json"), ("ana.json", "later.json")] {
+        let notes = ok(&run(
+            d,
+            &[
+                "--from", from, "--merge", merge, "--json", "c.json", "--force",
+            ],
+        ));
+        assert!(
+            notes.contains("1 codes left out: their coder cleared them later"),
+            "{from} + {merge}: {notes}"
+        );
+        let c: serde_json::Value =
+            serde_json::from_str(&std::fs::read_to_string(d.join("c.json")).unwrap()).unwrap();
+        assert_eq!(c["codes"].as_array().unwrap().len(), n - 1);
+        assert!(!c["codes"].as_array().unwrap().contains(&first));
+        assert_eq!(
+            c["cleared"][0]["item"], first["item"],
+            "the clearing is carried on"
+        );
+    }
+    let mut again = ana.clone();
+    again["codes"][0]["time"] = "2099-06-01T00:00:00Z".into();
+    std::fs::write(d.join("again.json"), again.to_string()).unwrap();
+    ok(&run(
+        d,
+        &[
+            "--from",
+            "later.json",
+            "--merge",
+            "again.json",
+            "--json",
+            "c.json",
+            "--force",
+        ],
+    ));
+    let c: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(d.join("c.json")).unwrap()).unwrap();
+    assert_eq!(c["codes"].as_array().unwrap().len(), n);
+    assert!(c.get("cleared").is_none(), "{c}");
 }

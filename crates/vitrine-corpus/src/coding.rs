@@ -6,7 +6,7 @@
 //! settled code beside the originals, and codes that no longer fit the codebook are reported by
 //! [`check_codes`] for the user to resolve, not removed.
 
-use std::collections::{BTreeMap, BTreeSet, HashMap};
+use std::collections::{BTreeMap, BTreeSet, HashMap, HashSet};
 
 use serde::{Deserialize, Serialize};
 
@@ -325,6 +325,41 @@ impl Code {
     }
 }
 
+/// A code its coder took back (cleared), and when: kept so that merging a file that still holds
+/// the older code does not bring it back.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Cleared {
+    pub item: String,
+    pub variable: String,
+    pub coder: String,
+    /// UTC, RFC 3339.
+    pub time: String,
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub settled: bool,
+}
+
+impl Cleared {
+    pub fn owned_key(&self) -> CodeKey {
+        (
+            self.item.clone(),
+            self.variable.clone(),
+            self.coder.clone(),
+            self.settled,
+        )
+    }
+
+    pub fn of(key: &CodeKey, time: &str) -> Cleared {
+        Cleared {
+            item: key.0.clone(),
+            variable: key.1.clone(),
+            coder: key.2.clone(),
+            time: time.to_string(),
+            settled: key.3,
+        }
+    }
+}
+
 /// Where each code is in `codes`, by its key.
 fn index_by_key(codes: &[Code]) -> HashMap<CodeKey, usize> {
     codes
@@ -517,6 +552,8 @@ pub struct MergeReport {
     /// kept (both are counted here, so that it can be said).
     pub replaced_by_later: usize,
     pub kept_later: usize,
+    /// Codes left out (or taken out) because their coder cleared them later, in either file.
+    pub cleared_later: usize,
 }
 
 /// Merges `other` into `codes`: every code of another coder, item or variable is added; where the
@@ -544,6 +581,83 @@ pub fn merge_codes(codes: &mut Vec<Code>, other: &[Code]) -> MergeReport {
         }
     }
     r
+}
+
+/// Merges another file's codes and clearings into these ([`merge_codes`], then the clearings): a
+/// code stays unless its coder cleared it later (in either file); a clearing stays while no later
+/// code of its key is there.
+pub fn merge_coding(
+    codes: &mut Vec<Code>,
+    cleared: &mut Vec<Cleared>,
+    other: &[Code],
+    other_cleared: &[Cleared],
+) -> MergeReport {
+    let mut r = merge_codes(codes, other);
+    let mut at: HashMap<CodeKey, usize> = cleared
+        .iter()
+        .enumerate()
+        .map(|(i, c)| (c.owned_key(), i))
+        .collect();
+    for c in other_cleared {
+        match at.get(&c.owned_key()) {
+            None => {
+                at.insert(c.owned_key(), cleared.len());
+                cleared.push(c.clone());
+            }
+            Some(&i) if time_order(&c.time) > time_order(&cleared[i].time) => {
+                cleared[i] = c.clone()
+            }
+            Some(_) => {}
+        }
+    }
+    r.cleared_later = apply_clearings(codes, cleared);
+    r
+}
+
+/// Where a code and a clearing of the same key are both there, the later stands: a code cleared
+/// later goes, a clearing followed by a later code goes. Returns how many codes went.
+pub fn apply_clearings(codes: &mut Vec<Code>, cleared: &mut Vec<Cleared>) -> usize {
+    if cleared.is_empty() {
+        return 0;
+    }
+    let at: HashMap<CodeKey, &str> = cleared
+        .iter()
+        .map(|c| (c.owned_key(), c.time.as_str()))
+        .collect();
+    let before = codes.len();
+    codes.retain(|c| {
+        at.get(&c.owned_key())
+            .is_none_or(|t| time_order(&c.time) > time_order(t))
+    });
+    let gone = before - codes.len();
+    let live: HashSet<CodeKey> = codes.iter().map(Code::owned_key).collect();
+    cleared.retain(|c| !live.contains(&c.owned_key()));
+    gone
+}
+
+/// Checks the clearings' form: names given, a time the reader can order, one per key.
+pub fn check_cleared(cleared: &[Cleared]) -> Result<(), CorpusError> {
+    let mut seen = HashSet::new();
+    for (k, c) in cleared.iter().enumerate() {
+        let at = || format!("cleared {} of {} (item {:?})", k + 1, cleared.len(), c.item);
+        if c.item.is_empty() || c.variable.is_empty() || c.coder.trim().is_empty() {
+            return Err(CorpusError::Invalid(format!(
+                "{}: the item, variable and coder must be named",
+                at()
+            )));
+        }
+        if time_order(&c.time).is_none() {
+            return Err(CorpusError::Invalid(format!(
+                "{}: time {:?} is not a UTC time as 2026-12-05T10:30:00Z",
+                at(),
+                c.time
+            )));
+        }
+        if !seen.insert(c.owned_key()) {
+            return Err(CorpusError::Invalid(format!("{}: listed twice", at())));
+        }
+    }
+    Ok(())
 }
 
 /// How an item's value of a variable was reached.
@@ -1219,6 +1333,70 @@ mod tests {
         let r = merge_codes(&mut a, &older);
         assert_eq!(r.kept_later, 1);
         assert_eq!(a[0].value, t("half length"));
+    }
+
+    #[test]
+    fn a_cleared_code_does_not_come_back_from_an_older_file() {
+        let old = code(
+            "r1",
+            "framing",
+            t("half length"),
+            "ana",
+            "2026-12-01T10:00:00Z",
+        );
+        let clear = |time: &str| Cleared {
+            item: "r1".into(),
+            variable: "framing".into(),
+            coder: "ana".into(),
+            time: time.into(),
+            settled: false,
+        };
+        // Here ana cleared it on the 2nd; her file of the 1st still has it.
+        let (mut codes, mut cleared) = (vec![], vec![clear("2026-12-02T10:00:00Z")]);
+        let r = merge_coding(&mut codes, &mut cleared, std::slice::from_ref(&old), &[]);
+        assert_eq!((r.added, r.cleared_later), (1, 1));
+        assert!(codes.is_empty());
+        assert_eq!(cleared.len(), 1);
+        // The other way round: a file that cleared it later takes the code out here.
+        let (mut codes, mut cleared) = (vec![old.clone()], vec![]);
+        let r = merge_coding(
+            &mut codes,
+            &mut cleared,
+            &[],
+            &[clear("2026-12-02T10:00:00Z")],
+        );
+        assert_eq!(r.cleared_later, 1);
+        assert!(codes.is_empty() && cleared.len() == 1);
+        // Coded again after the clearing: the code stays and the clearing goes.
+        let again = code(
+            "r1",
+            "framing",
+            t("head only"),
+            "ana",
+            "2026-12-03T10:00:00Z",
+        );
+        let r = merge_coding(&mut codes, &mut cleared, std::slice::from_ref(&again), &[]);
+        assert_eq!((r.added, r.cleared_later), (1, 0));
+        assert_eq!(codes, vec![again]);
+        assert!(cleared.is_empty());
+        // Another coder's code of the same item is not touched by ana's clearing.
+        let ben = code(
+            "r1",
+            "framing",
+            t("half length"),
+            "ben",
+            "2026-12-01T10:00:00Z",
+        );
+        let mut cleared = vec![clear("2026-12-04T10:00:00Z")];
+        let mut codes = vec![];
+        merge_coding(&mut codes, &mut cleared, std::slice::from_ref(&ben), &[]);
+        assert_eq!(codes, vec![ben]);
+        assert!(
+            check_cleared(&[clear("2026-12-04T10:00:00Z"), clear("2026-12-05T10:00:00Z")])
+                .unwrap_err()
+                .to_string()
+                .contains("cleared 2 of 2 (item \"r1\"): listed twice")
+        );
     }
 
     #[test]

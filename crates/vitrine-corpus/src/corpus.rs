@@ -2,7 +2,7 @@
 
 use serde::{Deserialize, Serialize};
 
-use crate::coding::{check_form, Code, Codebook};
+use crate::coding::{check_cleared, check_form, Cleared, Code, Codebook};
 use crate::columns::FieldColumn;
 use crate::filter::{apply, Filter};
 use crate::mask::Mask;
@@ -164,6 +164,9 @@ pub struct CorpusFile {
     /// Every coder's codes, settled values beside them (version 2).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub codes: Vec<Code>,
+    /// Codes their coders took back, and when (version 2): a merge does not bring them back.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub cleared: Vec<Cleared>,
 }
 
 impl CorpusFile {
@@ -207,6 +210,11 @@ impl CorpusFile {
                     })
                 })
                 .or_else(|| {
+                    named("cleared", "cleared", &|i| {
+                        Cleared::deserialize(i).err().map(|e| e.to_string())
+                    })
+                })
+                .or_else(|| {
                     let cb = v.get("codebook")?;
                     Codebook::deserialize(cb)
                         .err()
@@ -227,6 +235,7 @@ impl CorpusFile {
         }
         c.codebook.check()?;
         check_form(&c.codes)?;
+        check_cleared(&c.cleared)?;
         if c.ids.len() != c.count {
             return Err(CorpusError::Invalid(format!(
                 "the corpus file says {} items but lists {} ids",

@@ -5,7 +5,8 @@
 use std::collections::HashMap;
 
 use vitrine_corpus::coding::{
-    disagreements, time_order, Code, CodeValue, Codebook, Coded, Kind, Variable,
+    disagreements, merge_coding, time_order, Cleared, Code, CodeValue, Codebook, Coded, Kind,
+    MergeReport, Variable,
 };
 
 /// The order the coding view walks the corpus in.
@@ -70,6 +71,8 @@ struct Change {
     item: String,
     variable: String,
     before: Option<Code>,
+    /// When its key was cleared before the change, if it was.
+    before_cleared: Option<String>,
     pos: usize,
     var_index: usize,
 }
@@ -110,6 +113,8 @@ pub struct Coding {
     pub codes: Vec<Code>,
     /// Each item's codes (indices into `codes`): a lookup allocates nothing and scans a few.
     by_item: HashMap<String, Vec<usize>>,
+    /// Codes taken back, and when: a file merged later that still holds one does not bring it back.
+    cleared: HashMap<CodeKey, String>,
     /// Whose codes the view sets (change it with [`Coding::set_coder`]).
     pub coder: String,
     pub walk: Option<Walk>,
@@ -146,10 +151,17 @@ fn splitmix(state: &mut u64) -> u64 {
 }
 
 impl Coding {
-    /// Replaces the codebook and codes (an opened corpus file, or what the browser kept).
-    pub fn load(&mut self, book: Codebook, codes: Vec<Code>) {
+    /// Replaces the codebook, codes and clearings (an opened corpus file, or what the browser
+    /// kept).
+    pub fn load(&mut self, book: Codebook, codes: Vec<Code>, cleared: Vec<Cleared>) {
         self.book = book;
         self.codes = codes;
+        let mut cleared = cleared;
+        vitrine_corpus::coding::apply_clearings(&mut self.codes, &mut cleared);
+        self.cleared = cleared
+            .into_iter()
+            .map(|c| (c.owned_key(), c.time))
+            .collect();
         self.reindex();
         self.undo.clear();
         self.changed_all();
@@ -174,6 +186,32 @@ impl Coding {
             let c = &self.codes[i];
             c.variable == variable && c.coder == coder && c.settled == settled
         })
+    }
+
+    /// Merges another file's codebook-checked codes and clearings into these: see
+    /// [`merge_coding`]. Everything is stored again; undo starts afresh.
+    pub fn merge(&mut self, book: Codebook, codes: &[Code], cleared: &[Cleared]) -> MergeReport {
+        let mut mine = std::mem::take(&mut self.codes);
+        let mut gone = self.clearings();
+        let r = merge_coding(&mut mine, &mut gone, codes, cleared);
+        self.load(book, mine, gone);
+        r
+    }
+
+    /// The codes taken back and when, in key order (for the corpus file).
+    pub fn clearings(&self) -> Vec<Cleared> {
+        let mut v: Vec<Cleared> = self
+            .cleared
+            .iter()
+            .map(|(k, t)| Cleared::of(k, t))
+            .collect();
+        v.sort_by_key(Cleared::owned_key);
+        v
+    }
+
+    /// When the code under `key` was cleared, if it is.
+    pub fn cleared_at(&self, key: &CodeKey) -> Option<&str> {
+        self.cleared.get(key).map(String::as_str)
     }
 
     /// The code under `key`, if any.
@@ -338,6 +376,10 @@ impl Coding {
             return None;
         }
         let (pos, var_index) = self.walk.as_ref().map_or((0, 0), |w| (w.pos, w.variable));
+        let before_cleared = match &value {
+            None => self.cleared.insert(key.clone(), time.to_string()),
+            Some(_) => self.cleared.remove(&key),
+        };
         let ch = Change {
             index,
             coder: self.coder.clone(),
@@ -345,6 +387,7 @@ impl Coding {
             item: item.into(),
             variable: variable.into(),
             before,
+            before_cleared,
             pos,
             var_index,
         };
@@ -450,6 +493,10 @@ impl Coding {
         for ch in group.into_iter().rev() {
             at = Some((ch.pos, ch.var_index));
             let key = (ch.item, ch.variable, ch.coder, ch.settled);
+            match ch.before_cleared {
+                Some(t) => self.cleared.insert(key.clone(), t),
+                None => self.cleared.remove(&key),
+            };
             self.put_counted(ch.index, key, ch.before);
         }
         if let (Some(w), Some((pos, var))) = (&mut self.walk, at) {
@@ -805,6 +852,15 @@ impl Coding {
             c.variable = new.to_string();
             n += 1;
         }
+        self.cleared = std::mem::take(&mut self.cleared)
+            .into_iter()
+            .map(|(mut k, t)| {
+                if k.1 == old {
+                    k.1 = new.to_string();
+                }
+                (k, t)
+            })
+            .collect();
         self.reindex();
         self.undo.clear();
         self.changed_all();
@@ -876,7 +932,7 @@ mod tests {
             coder: "ana".into(),
             ..Default::default()
         };
-        c.load(book(), vec![]);
+        c.load(book(), vec![], vec![]);
         c
     }
 
@@ -1261,5 +1317,44 @@ mod tests {
         assert!(c.undo());
         assert!(!c.can_undo());
         assert!(c.codes.is_empty());
+    }
+
+    #[test]
+    fn a_code_cleared_here_stays_cleared_when_an_older_file_is_merged() {
+        let mut c = coding();
+        let half = Some(CodeValue::Text("half length".into()));
+        c.set(0, "r0", "framing", half.clone(), "2026-12-01T10:00:00Z");
+        c.set(1, "r1", "framing", half.clone(), "2026-12-01T10:00:00Z");
+        // What a file written then holds.
+        let older = c.codes.clone();
+        c.set(0, "r0", "framing", None, "2026-12-02T10:00:00Z");
+        let key = (
+            "r0".to_string(),
+            "framing".to_string(),
+            "ana".to_string(),
+            false,
+        );
+        assert_eq!(c.cleared_at(&key), Some("2026-12-02T10:00:00Z"));
+        let r = c.merge(book(), &older, &[]);
+        assert_eq!(r.cleared_later, 1);
+        assert!(
+            c.code("r0", "framing").is_none(),
+            "the cleared code came back"
+        );
+        assert!(c.code("r1", "framing").is_some());
+        assert_eq!(c.clearings().len(), 1);
+        // Coding it again takes the clearing away; undo brings the clearing back.
+        c.set(0, "r0", "framing", half.clone(), "2026-12-03T10:00:00Z");
+        assert!(c.clearings().is_empty());
+        c.undo();
+        assert_eq!(c.cleared_at(&key), Some("2026-12-02T10:00:00Z"));
+        // Undoing a clearing takes it away with the code back.
+        c.set(1, "r1", "framing", None, "2026-12-03T10:00:00Z");
+        c.undo();
+        assert!(c.code("r1", "framing").is_some());
+        assert_eq!(c.clearings().len(), 1);
+        // A renamed variable keeps its clearings.
+        c.rename_variable("framing", "pose");
+        assert_eq!(c.clearings()[0].variable, "pose");
     }
 }

@@ -6,7 +6,7 @@
 
 use super::*;
 use vitrine_corpus::coding::{
-    merge_codebooks, merge_codes, CodeValue, Codebook, Kind, ValueDef, Variable,
+    merge_codebooks, Cleared, CodeValue, Codebook, Kind, ValueDef, Variable,
 };
 use vitrine_view::coding::{value_keys, CodeKey, Dirty, Effect, Order};
 
@@ -33,11 +33,13 @@ pub(crate) fn now_utc() -> String {
     js_sys::Date::new_0().to_iso_string().into()
 }
 
-/// What a save writes: the codebook record, the codes set, the codes gone.
+/// What a save writes: the codebook record, the codes set, the codes cleared (kept as such), the
+/// records gone.
 struct Plan {
     generation: u64,
     book: store::Book,
     puts: Vec<vitrine_corpus::coding::Code>,
+    clears: Vec<Cleared>,
     deletes: Vec<CodeKey>,
 }
 
@@ -50,23 +52,29 @@ fn plan(a: &mut App) -> Plan {
         coder: c.coder.clone(),
         codebook: c.book.clone(),
     };
-    let (mut puts, mut deletes) = (Vec::new(), Vec::new());
+    let (mut puts, mut clears, mut deletes) = (Vec::new(), Vec::new(), Vec::new());
     match dirty {
         Dirty::Clean => {}
         Dirty::Codes(mut keys) => {
             keys.sort();
             keys.dedup();
             for k in keys {
-                match c.get(&k) {
-                    Some(code) => puts.push(code.clone()),
-                    None => deletes.push(k),
+                match (c.get(&k), c.cleared_at(&k)) {
+                    (Some(code), _) => puts.push(code.clone()),
+                    (None, Some(t)) => clears.push(Cleared::of(&k, t)),
+                    (None, None) => deletes.push(k),
                 }
             }
         }
         Dirty::All => {
             puts = c.codes.clone();
-            let now: std::collections::HashSet<CodeKey> =
-                c.codes.iter().map(|c| c.owned_key()).collect();
+            clears = c.clearings();
+            let now: std::collections::HashSet<CodeKey> = c
+                .codes
+                .iter()
+                .map(|c| c.owned_key())
+                .chain(clears.iter().map(|c| c.owned_key()))
+                .collect();
             deletes = STORED.with(|s| s.borrow().difference(&now).cloned().collect());
         }
     }
@@ -74,6 +82,7 @@ fn plan(a: &mut App) -> Plan {
         generation: c.generation,
         book,
         puts,
+        clears,
         deletes,
     }
 }
@@ -94,11 +103,15 @@ pub fn save() {
     }
     wasm_bindgen_futures::spawn_local(async {
         while let Some(p) = app().map(|a| plan(&mut a.borrow_mut())) {
-            let result = store::write(&store::atlas_key(), &p.book, &p.puts, &p.deletes).await;
+            let result =
+                store::write(&store::atlas_key(), &p.book, &p.puts, &p.clears, &p.deletes).await;
             match &result {
                 Ok(()) => STORED.with(|s| {
                     let mut s = s.borrow_mut();
                     for c in &p.puts {
+                        s.insert(c.owned_key());
+                    }
+                    for c in &p.clears {
                         s.insert(c.owned_key());
                     }
                     for k in &p.deletes {
@@ -142,7 +155,14 @@ pub async fn restore() {
     let mut notes = Vec::new();
     match store::read(&store::atlas_key()).await {
         Ok(kept) => {
-            STORED.with(|s| *s.borrow_mut() = kept.codes.iter().map(|c| c.owned_key()).collect());
+            STORED.with(|s| {
+                *s.borrow_mut() = kept
+                    .codes
+                    .iter()
+                    .map(|c| c.owned_key())
+                    .chain(kept.cleared.iter().map(|c| c.owned_key()))
+                    .collect()
+            });
             if kept.unreadable > 0 {
                 notes.push(format!(
                     "{} records kept in this browser could not be read; they are left in its store.",
@@ -158,7 +178,7 @@ pub async fn restore() {
                 let empty = a.coding.book.is_empty() && a.coding.codes.is_empty();
                 if empty {
                     a.viewer.coding.coder = coder;
-                    a.viewer.coding.load(book, kept.codes);
+                    a.viewer.coding.load(book, kept.codes, kept.cleared);
                     // What was read is what is stored.
                     a.viewer.coding.dirty = Dirty::Clean;
                     let g = a.coding.generation;
@@ -166,9 +186,7 @@ pub async fn restore() {
                 } else {
                     match merge_codebooks(&a.coding.book, &book) {
                         Ok(merged) => {
-                            let mut codes = a.coding.codes.clone();
-                            merge_codes(&mut codes, &kept.codes);
-                            a.viewer.coding.load(merged, codes);
+                            a.viewer.coding.merge(merged, &kept.codes, &kept.cleared);
                         }
                         Err(why) => notes.push(format!(
                             "The codes kept in this browser were not joined to those opened ({why}); they stay in its store."
@@ -1052,6 +1070,22 @@ pub fn card_codes(a: &App, i: usize) -> Option<web_sys::Element> {
         let _ = row.append_child(&name);
         let code = a.coding.own_code(id, &var.name).map(|c| c.value.clone());
         let _ = row.append_child(&value_controls(k, var, &code, Target::Card(i)));
+        if code.is_some() {
+            let (item, vname) = (id.to_string(), var.name.clone());
+            let b = button("Clear", "Take your code of this variable back", move || {
+                let Some(app) = self::app() else { return };
+                let done =
+                    app.borrow_mut()
+                        .viewer
+                        .coding
+                        .set_own(i, &item, &vname, None, &now_utc());
+                if done {
+                    changed();
+                }
+            });
+            b.set_class_name("clear-code");
+            let _ = row.append_child(&b);
+        }
         // Other coders' codes and a settled value, read only.
         let others: Vec<String> = a
             .coding
@@ -1379,7 +1413,8 @@ fn rename_value(variable: &str, old: &str, new: &str) {
         if let Some(v) = book.variables.iter_mut().find(|v| v.name == variable) {
             v.values.retain(|d| d.value != old);
         }
-        a.viewer.coding.load(book, codes);
+        let cleared = a.coding.clearings();
+        a.viewer.coding.load(book, codes, cleared);
     } else {
         if n > 0
             && !confirm(&format!(
@@ -1492,14 +1527,18 @@ pub fn take_codes(file: &vitrine_corpus::corpus::CorpusFile) -> String {
                 format!("Its codes were not added: its codebook does not match this one ({why}).")
             }
             Ok(book) => {
-                let mut codes = a.coding.codes.clone();
-                let r = merge_codes(&mut codes, &file.codes);
-                a.viewer.coding.load(book, codes);
+                let r = a.viewer.coding.merge(book, &file.codes, &file.cleared);
                 let mut s = format!("Added {} codes ({} already here)", r.added, r.same);
                 if r.replaced_by_later + r.kept_later > 0 {
                     s.push_str(&format!(
                         "; {} coded twice by one coder: the later kept",
                         r.replaced_by_later + r.kept_later
+                    ));
+                }
+                if r.cleared_later > 0 {
+                    s.push_str(&format!(
+                        "; {} left out: their coder cleared them later",
+                        r.cleared_later
                     ));
                 }
                 s.push('.');
@@ -1637,7 +1676,8 @@ pub fn bench_coding(json: &str, coder: &str) -> bool {
     {
         let mut a = app.borrow_mut();
         let codes = a.coding.codes.clone();
-        a.viewer.coding.load(book, codes);
+        let cleared = a.coding.clearings();
+        a.viewer.coding.load(book, codes, cleared);
         a.viewer.coding.coder = coder.to_string();
     }
     changed();

@@ -396,6 +396,7 @@ pub fn export(kind: &str) {
                 },
                 codebook: a.coding.book.clone(),
                 codes: a.coding.codes.clone(),
+                cleared: a.coding.clearings(),
             };
             (
                 format!("{stem}.corpus.json"),

@@ -4,7 +4,7 @@
 //! succeeds: a full disk or an abort would otherwise pass unseen).
 
 use super::*;
-use vitrine_corpus::coding::{Code, Codebook};
+use vitrine_corpus::coding::{Cleared, Code, Codebook};
 use vitrine_view::coding::CodeKey;
 use wasm_bindgen::JsValue;
 
@@ -26,6 +26,8 @@ pub struct Book {
 pub struct Kept {
     pub book: Option<Book>,
     pub codes: Vec<Code>,
+    /// Codes taken back, and when.
+    pub cleared: Vec<Cleared>,
     /// Records that could not be read (left in the store, never overwritten).
     pub unreadable: usize,
 }
@@ -184,19 +186,22 @@ pub async fn read(atlas: &str) -> Result<Kept, String> {
         },
         None => None,
     };
-    let mut out = Vec::new();
+    let (mut out, mut cleared) = (Vec::new(), Vec::new());
     for v in js_sys::Array::from(&all).iter() {
-        match v
-            .as_string()
-            .and_then(|t| serde_json::from_str::<Code>(&t).ok())
-        {
-            Some(c) => out.push(c),
-            None => unreadable += 1,
+        // A record is a code, or a code taken back (no value).
+        let text = v.as_string().unwrap_or_default();
+        if let Ok(c) = serde_json::from_str::<Code>(&text) {
+            out.push(c);
+        } else if let Ok(c) = serde_json::from_str::<Cleared>(&text) {
+            cleared.push(c);
+        } else {
+            unreadable += 1;
         }
     }
     Ok(Kept {
         book,
         codes: out,
+        cleared,
         unreadable,
     })
 }
@@ -207,6 +212,7 @@ pub async fn write(
     atlas: &str,
     book: &Book,
     puts: &[Code],
+    clears: &[Cleared],
     deletes: &[CodeKey],
 ) -> Result<(), String> {
     let db = open().await?;
@@ -227,6 +233,12 @@ pub async fn write(
         let text = serde_json::to_string(c).map_err(|e| e.to_string())?;
         codes
             .put_with_key(&text.into(), &code_key(atlas, &key))
+            .map_err(refused)?;
+    }
+    for c in clears {
+        let text = serde_json::to_string(c).map_err(|e| e.to_string())?;
+        codes
+            .put_with_key(&text.into(), &code_key(atlas, &c.owned_key()))
             .map_err(refused)?;
     }
     for k in deletes {
