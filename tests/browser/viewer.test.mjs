@@ -913,6 +913,20 @@ test("coding: a codebook made in the page, ten items coded from the keyboard, ke
   await d4.saveAs(path.join(dir, "profile-page.csv"));
   assert.ok(fs.readFileSync(path.join(dir, "profile-page.csv")).equals(fs.readFileSync(path.join(dir, "profile.csv"))),
     "the page's profile table is the native one");
+  // By the catalogue's own periods (a category field, in the time order of its items): the corpus
+  // in the collection per workshop, as `vitrine corpus --periods workshop` gives it.
+  await page.selectOption("#profile-of", "corpus");
+  await page.selectOption("#profile-per", "field:workshop");
+  await page.waitForFunction(() => document.querySelector("#profile-of")?.value === "corpus"
+    && document.querySelector("#profile-per")?.value === "field:workshop" && document.body.dataset.profile === "1");
+  // (The command line names the corpus's group after its file, the page "corpus".)
+  fs.copyFileSync(both, path.join(dir, "corpus.json"));
+  execFileSync(BIN, ["corpus", ATLAS, "--from", path.join(dir, "corpus.json"), "--profile", path.join(dir, "periods.csv"), "--periods", "workshop"]);
+  const [d4b] = await Promise.all([page.waitForEvent("download"), page.click("#profile-csv")]);
+  await d4b.saveAs(path.join(dir, "periods-page.csv"));
+  const periods = fs.readFileSync(path.join(dir, "periods.csv"));
+  assert.ok(fs.readFileSync(path.join(dir, "periods-page.csv")).equals(periods), "the page's table per catalogue period is the native one");
+  assert.ok(readCsv(periods.toString()).length >= 10, "a row per workshop");
   // Settling: ana and ben differ on the framing of the eighth and tenth items. The settling walk
   // visits those two only; a number key sets the value that holds, kept beside both coders' own,
   // and `vitrine corpus` lists it as settled.
