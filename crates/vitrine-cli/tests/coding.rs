@@ -5,6 +5,8 @@
 
 mod common;
 
+use common::{corpus as run, failure_of as err, notes_of as ok};
+
 use std::path::Path;
 
 use vitrine_map::rng::Rng;
@@ -19,26 +21,6 @@ const BOOK: &str = r#"{"variables": [
   {"name": "remarks", "kind": "note"}]}"#;
 
 const FRAMINGS: [&str; 4] = ["full length", "half length", "head only", "cannot tell"];
-
-fn run(dir: &Path, args: &[&str]) -> std::process::Output {
-    common::vitrine()
-        .current_dir(dir)
-        .arg("corpus")
-        .arg("atlas")
-        .args(args)
-        .output()
-        .unwrap()
-}
-
-fn ok(o: &std::process::Output) -> String {
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-    String::from_utf8_lossy(&o.stderr).to_string()
-}
-
-fn err(o: &std::process::Output) -> String {
-    assert!(!o.status.success(), "should fail");
-    String::from_utf8_lossy(&o.stderr).to_string()
-}
 
 /// One coder's spreadsheet of `items`: random codes, a share of them copied from `like` (the
 /// other coder's cells) so that the coders mostly agree.
@@ -98,19 +80,7 @@ fn two_coders_code_merge_and_settle_and_the_agreement_equals_the_reference_packa
     let d = dir.path();
     let ids: Vec<String> = (0..40).map(|i| format!("it-{i:02}")).collect();
     common::write_small_inputs(d, &ids);
-    let o = common::quick_build()
-        .current_dir(d)
-        .args([
-            "--vectors",
-            "vectors.npy",
-            "--catalogue",
-            "records.csv",
-            "--out",
-            "atlas",
-        ])
-        .output()
-        .unwrap();
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    common::small_build(d);
     std::fs::write(d.join("book.json"), BOOK).unwrap();
 
     // Two coders, overlapping on items 10..30.
@@ -292,19 +262,7 @@ fn codes_that_do_not_fit_are_named_and_nothing_is_dropped() {
     let d = dir.path();
     let ids: Vec<String> = (0..12).map(|i| format!("it-{i:02}")).collect();
     common::write_small_inputs(d, &ids);
-    let o = common::quick_build()
-        .current_dir(d)
-        .args([
-            "--vectors",
-            "vectors.npy",
-            "--catalogue",
-            "records.csv",
-            "--out",
-            "atlas",
-        ])
-        .output()
-        .unwrap();
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    common::small_build(d);
     std::fs::write(d.join("book.json"), BOOK).unwrap();
 
     // A value the codebook lacks: the file, row, column and the values it has are named.

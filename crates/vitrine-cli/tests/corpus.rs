@@ -3,6 +3,8 @@
 
 mod common;
 
+use common::{corpus, stdout_of as ok};
+
 use std::path::Path;
 
 use vitrine_build::read::Atlas;
@@ -70,21 +72,6 @@ fn fixture(dir: &Path) {
         .output()
         .unwrap();
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-}
-
-fn corpus(dir: &Path, args: &[&str]) -> std::process::Output {
-    common::vitrine()
-        .current_dir(dir)
-        .arg("corpus")
-        .arg("atlas")
-        .args(args)
-        .output()
-        .unwrap()
-}
-
-fn ok(o: &std::process::Output) -> String {
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-    String::from_utf8_lossy(&o.stdout).to_string()
 }
 
 fn ids_of(json: &Path) -> Vec<String> {

@@ -6,34 +6,12 @@
 
 mod common;
 
+use common::{corpus_fails as fails, corpus_notes as run};
+
 use std::path::Path;
 
 use vitrine_map::rng::Rng;
 use vitrine_test_support::write_npy_f32;
-
-fn run(dir: &Path, args: &[&str]) -> String {
-    let o = common::vitrine()
-        .current_dir(dir)
-        .arg("corpus")
-        .arg("atlas")
-        .args(args)
-        .output()
-        .unwrap();
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-    String::from_utf8_lossy(&o.stderr).to_string()
-}
-
-fn fails(dir: &Path, args: &[&str]) -> String {
-    let o = common::vitrine()
-        .current_dir(dir)
-        .arg("corpus")
-        .arg("atlas")
-        .args(args)
-        .output()
-        .unwrap();
-    assert!(!o.status.success(), "should fail: {args:?}");
-    String::from_utf8_lossy(&o.stderr).to_string()
-}
 
 /// 400 items dated as single years, short and long ranges, or not at all; a technique that
 /// changes over time, a place, a period named by the catalogue; and a coder's sheet.

@@ -347,21 +347,20 @@ fn render_profile(app: &Rc<RefCell<App>>, body: &web_sys::Element) {
             let csv = profile_csv(&p);
             let stem = file_stem(&a);
             let row = el("div", "row", "");
-            let (c2, s2) = (csv.clone(), stem.clone());
-            let b = button(
+            let _ = row.append_child(&download(
+                "profile-csv",
                 "CSV",
                 "The profile's table: counts, shares and intervals per period",
-                move || {
-                    select::download(&format!("{s2}-profile.csv"), "text/csv;charset=utf-8", &c2)
-                },
-            );
-            b.set_id("profile-csv");
-            let _ = row.append_child(&b);
-            let b = button("SVG", "The chart, for a publication", move || {
-                select::download(&format!("{stem}-profile.svg"), "image/svg+xml", &picture)
-            });
-            b.set_id("profile-svg");
-            let _ = row.append_child(&b);
+                format!("{stem}-profile.csv"),
+                csv,
+            ));
+            let _ = row.append_child(&download(
+                "profile-svg",
+                "SVG",
+                "The chart, for a publication",
+                format!("{stem}-profile.svg"),
+                picture,
+            ));
             let _ = body.append_child(&row);
             set_state("profile", &p.groups.len().to_string());
         }
@@ -444,15 +443,13 @@ fn render_agreement(app: &Rc<RefCell<App>>, body: &web_sys::Element) {
     let csv = vitrine_corpus::coding::agreement_csv(&a.coding.book, &coded, &ids);
     let stem = file_stem(&a);
     let row = el("div", "row", "");
-    let b = button("CSV", "The agreement table", move || {
-        select::download(
-            &format!("{stem}-agreement.csv"),
-            "text/csv;charset=utf-8",
-            &csv,
-        )
-    });
-    b.set_id("agreement-csv");
-    let _ = row.append_child(&b);
+    let _ = row.append_child(&download(
+        "agreement-csv",
+        "CSV",
+        "The agreement table",
+        format!("{stem}-agreement.csv"),
+        csv,
+    ));
     if !d.is_empty() {
         let s = button(
             "Settle…",
@@ -623,17 +620,27 @@ fn render_compare(app: &Rc<RefCell<App>>, body: &web_sys::Element) {
     let csv = comparison_csv((&na, &nb), &o, &fields);
     let stem = file_stem(&a);
     let row = el("div", "row", "");
-    let b = button("CSV", "The comparison table", move || {
-        select::download(
-            &format!("{stem}-comparison.csv"),
-            "text/csv;charset=utf-8",
-            &csv,
-        )
-    });
-    b.set_id("comparison-csv");
-    let _ = row.append_child(&b);
+    let _ = row.append_child(&download(
+        "comparison-csv",
+        "CSV",
+        "The comparison table",
+        format!("{stem}-comparison.csv"),
+        csv,
+    ));
     let _ = body.append_child(&row);
     set_state("comparison", &fields.len().to_string());
+}
+
+/// A button that downloads `content` as `name` (CSV or SVG, by the name's ending).
+fn download(id: &str, text: &str, title: &str, name: String, content: String) -> web_sys::Element {
+    let mime = if name.ends_with(".svg") {
+        "image/svg+xml"
+    } else {
+        "text/csv;charset=utf-8"
+    };
+    let b = button(text, title, move || select::download(&name, mime, &content));
+    b.set_id(id);
+    b
 }
 
 /// The tray's Measure buttons.

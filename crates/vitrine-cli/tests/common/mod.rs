@@ -51,3 +51,61 @@ pub fn image_build(dir: &Path) -> Command {
     ]);
     c
 }
+
+/// `vitrine corpus atlas ARGS` run in `dir`.
+pub fn corpus(dir: &Path, args: &[&str]) -> std::process::Output {
+    vitrine()
+        .current_dir(dir)
+        .arg("corpus")
+        .arg("atlas")
+        .args(args)
+        .output()
+        .unwrap()
+}
+
+/// A run that must succeed: its standard output.
+pub fn stdout_of(o: &std::process::Output) -> String {
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    String::from_utf8_lossy(&o.stdout).to_string()
+}
+
+/// A run that must succeed: its notes (standard error).
+pub fn notes_of(o: &std::process::Output) -> String {
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    String::from_utf8_lossy(&o.stderr).to_string()
+}
+
+/// A run that must fail: its message.
+pub fn failure_of(o: &std::process::Output) -> String {
+    assert!(!o.status.success(), "should fail");
+    String::from_utf8_lossy(&o.stderr).to_string()
+}
+
+/// [`corpus`] that must succeed: its notes.
+pub fn corpus_notes(dir: &Path, args: &[&str]) -> String {
+    notes_of(&corpus(dir, args))
+}
+
+/// [`corpus`] that must fail: its message.
+pub fn corpus_fails(dir: &Path, args: &[&str]) -> String {
+    let o = corpus(dir, args);
+    assert!(!o.status.success(), "should fail: {args:?}");
+    String::from_utf8_lossy(&o.stderr).to_string()
+}
+
+/// [`quick_build`] in `dir` from `vectors.npy` and `records.csv` into `atlas`.
+pub fn small_build(dir: &Path) {
+    let o = quick_build()
+        .current_dir(dir)
+        .args([
+            "--vectors",
+            "vectors.npy",
+            "--catalogue",
+            "records.csv",
+            "--out",
+            "atlas",
+        ])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+}
