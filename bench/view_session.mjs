@@ -175,7 +175,7 @@ try {
     const key = (k) => window.dispatchEvent(new KeyboardEvent("keydown", { key: k }));
     const frame = () => new Promise((r) => requestAnimationFrame(() => r()));
     const next = [];
-    for (let k = 0; k < 30; k++) {
+    for (let k = 0; k < 60; k++) {
       key(String(1 + (k % 3)));
       await frame();
       const t0 = performance.now();
@@ -188,13 +188,22 @@ try {
     for (let k = 0; k < 5; k++) profile.push(window.vitrineView.bench_profile("field:technique", "25"));
     const compare = [];
     for (let k = 0; k < 5; k++) compare.push(window.vitrineView.bench_compare("technique", "etching", "woodcut"));
+    // The hard cases: every item against a seventh of them (skewed sizes, the smaller inside the
+    // larger), and the profile of the corpus and both kept corpora per 10 years (three large groups,
+    // each item's weight spread over up to four periods).
+    const compareHard = [];
+    for (let k = 0; k < 5; k++) compareHard.push(window.vitrineView.bench_compare("technique", "*", "photograph"));
+    const profileHard = [];
+    for (let k = 0; k < 5; k++) profileHard.push(window.vitrineView.bench_profile("corpus", "10"));
     const items = Number(document.body.dataset.codes || 0);
-    return { next, profile, compare, codes: items };
+    return { next, profile, compare, compareHard, profileHard, codes: items };
   });
   const measure = {
     coding_next: [quantile(measuring.next, 0.5), quantile(measuring.next, 0.95)],
     profile: [quantile(measuring.profile, 0.5), Math.max(...measuring.profile)],
     compare: [quantile(measuring.compare, 0.5), Math.max(...measuring.compare)],
+    profile_hard: [quantile(measuring.profileHard, 0.5), Math.max(...measuring.profileHard)],
+    compare_hard: [quantile(measuring.compareHard, 0.5), Math.max(...measuring.compareHard)],
   };
   const end = await state();
   const cdp = await browser.newCDPSession(page);

@@ -565,10 +565,29 @@ pub fn render() {
             let f: HtmlElement = e.dyn_into().ok()?;
             Some((key, field_value(&f), field_caret(&f)))
         });
+    // The heading (coder, order) stays while the walk's order and coder do: made anew with every
+    // item it would be most of a step's work for the browser.
+    let head_key = {
+        let a = app.borrow();
+        a.coding
+            .walk
+            .as_ref()
+            .map(|w| format!("{}\u{1}{}", w.how.name(), a.coding.coder))
+    };
+    let kept = view
+        .first_element_child()
+        .filter(|h| h.get_attribute("data-key") == head_key);
     // Emptied before the state is borrowed: taking out a field with text not yet committed
     // fires its change event here and then, and its handler borrows the state.
-    view.set_text_content(None);
-    render_view(&app, &view);
+    match &kept {
+        Some(h) => {
+            while let Some(next) = h.next_element_sibling() {
+                next.remove();
+            }
+        }
+        None => view.set_text_content(None),
+    }
+    render_view(&app, &view, kept.is_some());
     if let Some((key, value, caret)) = typing {
         if let Some(f) = view
             .query_selector(&key)
@@ -620,14 +639,50 @@ fn set_field(f: &HtmlElement, value: &str, caret: Option<u32>) {
     }
 }
 
-fn render_view(app: &Rc<RefCell<App>>, view: &HtmlElement) {
+/// The walk's count: the item it stands on, of how many, how many finished (settled).
+fn count_line(a: &App) -> String {
+    let Some(w) = a.coding.walk.as_ref() else {
+        return String::new();
+    };
+    format!(
+        "item {} of {} · {} {}",
+        (w.pos + 1).min(w.order.len()),
+        w.order.len(),
+        a.coding.finished_count(),
+        if a.coding.settling() {
+            "settled"
+        } else {
+            "finished"
+        }
+    )
+}
+
+fn render_view(app: &Rc<RefCell<App>>, view: &HtmlElement, head_kept: bool) {
     let a = app.borrow();
+    if a.coding.walk.is_none() {
+        return;
+    }
+    if head_kept {
+        if let Some(c) = by_id("coding-count") {
+            c.set_text_content(Some(&count_line(&a)));
+        }
+    } else {
+        render_head(&a, view);
+    }
+    render_item(&a, view);
+}
+
+fn render_head(a: &App, view: &HtmlElement) {
     let doc = document();
     let Some(w) = a.coding.walk.as_ref() else {
         return;
     };
     let settling = a.coding.settling();
     let head = el("header", "coding-head", "");
+    let _ = head.set_attribute(
+        "data-key",
+        &format!("{}\u{1}{}", w.how.name(), a.coding.coder),
+    );
     let _ = head.append_child(&el(
         "h2",
         "",
@@ -637,17 +692,8 @@ fn render_view(app: &Rc<RefCell<App>>, view: &HtmlElement) {
             "Coding"
         },
     ));
-    let count = el(
-        "span",
-        "count",
-        &format!(
-            "item {} of {} · {} {}",
-            (w.pos + 1).min(w.order.len()),
-            w.order.len(),
-            a.coding.finished_count(),
-            if settling { "settled" } else { "finished" }
-        ),
-    );
+    let count = el("span", "count", &count_line(a));
+    count.set_id("coding-count");
     let _ = head.append_child(&count);
     let coder_label = el("label", "", "Coder ");
     let coder: web_sys::HtmlInputElement = doc.create_element("input").unwrap().dyn_into().unwrap();
@@ -731,6 +777,13 @@ fn render_view(app: &Rc<RefCell<App>>, view: &HtmlElement) {
     }
     let _ = head.append_child(&button("Close", "Close the coding view (Escape)", close));
     let _ = view.append_child(&head);
+}
+
+fn render_item(a: &App, view: &HtmlElement) {
+    let Some(w) = a.coding.walk.as_ref() else {
+        return;
+    };
+    let settling = a.coding.settling();
 
     let Some(item) = a.coding.current() else {
         let empty = if settling {
@@ -743,7 +796,7 @@ fn render_view(app: &Rc<RefCell<App>>, view: &HtmlElement) {
     };
     let id = a.atlas.id(item).to_string();
     let pane = el("div", "coding-picture", "");
-    fill_picture(&a, item, &pane);
+    fill_picture(a, item, &pane);
     let _ = view.append_child(&pane);
     let side = el("div", "coding-side", "");
     let _ = side.append_child(&el("h3", "coding-title", &a.atlas.label(item)));

@@ -678,7 +678,8 @@ pub fn bench_profile(of: &str, per: &str) -> f64 {
 }
 
 /// For the bench: two corpora — the items with `first`, and those with `second`, as values of the
-/// category field `field` — kept and compared in the panel; the milliseconds to the panel drawn.
+/// category field `field` ("*": every item) — kept and compared in the panel; the milliseconds to
+/// the panel drawn.
 #[wasm_bindgen]
 pub fn bench_compare(field: &str, first: &str, second: &str) -> f64 {
     let Some(app) = app() else { return f64::NAN };
@@ -697,11 +698,14 @@ pub fn bench_compare(field: &str, first: &str, second: &str) -> f64 {
                 .position(|x| x == v)
                 .map(|k| k as u32)
         };
-        let (ca, cb) = (code(first), code(second));
-        let pick = |c: Option<u32>| -> Vec<usize> {
+        let pick = |v: &str| -> Vec<usize> {
+            if v == "*" {
+                return (0..a.atlas.n).collect();
+            }
+            let c = code(v);
             (0..a.atlas.n).filter(|&i| Some(codes[i]) == c).collect()
         };
-        (pick(ca), pick(cb))
+        (pick(first), pick(second))
     };
     KEPT.with(|k| {
         let mut k = k.borrow_mut();
