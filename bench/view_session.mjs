@@ -190,7 +190,7 @@ try {
     for (let k = 0; k < 5; k++) compare.push(window.vitrineView.bench_compare("technique", "etching", "woodcut"));
     // The hard cases: every item against a seventh of them (skewed sizes, the smaller inside the
     // larger), and the profile of the corpus and both kept corpora per 10 years (three large groups,
-    // each item's weight spread over up to four periods).
+    // each item's weight spread over up to five periods).
     const compareHard = [];
     for (let k = 0; k < 5; k++) compareHard.push(window.vitrineView.bench_compare("technique", "*", "photograph"));
     const profileHard = [];

@@ -270,8 +270,17 @@ pub fn first_few(names: &[String]) -> String {
 }
 
 /// Adds `new` codes (imported) to `codes`, saying what it did.
-pub fn put_codes(codes: &mut Vec<Code>, new: Vec<Code>, from: &Path, notes: &mut Vec<String>) {
+/// Codes read now are this coder's word: a clearing of the same key (from an earlier file) goes.
+pub fn put_codes(
+    codes: &mut Vec<Code>,
+    cleared: &mut Vec<Cleared>,
+    new: Vec<Code>,
+    from: &Path,
+    notes: &mut Vec<String>,
+) {
     let n = new.len();
+    let keys: std::collections::HashSet<_> = new.iter().map(Code::owned_key).collect();
+    cleared.retain(|c| !keys.contains(&c.owned_key()));
     let replaced = set_codes(codes, new);
     notes.push(format!(
         "{}: {n} codes read ({replaced} of them replaced this coder's earlier codes)",

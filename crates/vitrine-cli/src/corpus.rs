@@ -555,11 +555,9 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
             let new = coding::import_codes(
                 p, &book, &id_col, &in_atlas, coder, &time, settled, &mut notes,
             )?;
-            coding::put_codes(&mut codes, new, p, &mut notes);
+            coding::put_codes(&mut codes, &mut cleared, new, p, &mut notes);
         }
     }
-    // Codes read now are later than any clearing of their keys.
-    vitrine_corpus::coding::apply_clearings(&mut codes, &mut cleared);
     let in_corpus = |id: &str| index.get(id).is_some_and(|&i| mask.get(i));
     coding::note_outside(&codes, &in_atlas, &in_corpus, &mut notes);
     let coded = Coded::new(&codes);

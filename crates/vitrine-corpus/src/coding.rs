@@ -592,6 +592,7 @@ pub fn merge_coding(
     other: &[Code],
     other_cleared: &[Cleared],
 ) -> MergeReport {
+    let here: HashSet<CodeKey> = codes.iter().map(Code::owned_key).collect();
     let mut r = merge_codes(codes, other);
     let mut at: HashMap<CodeKey, usize> = cleared
         .iter()
@@ -610,26 +611,34 @@ pub fn merge_coding(
             Some(_) => {}
         }
     }
-    r.cleared_later = apply_clearings(codes, cleared);
+    let gone = apply_clearings(codes, cleared);
+    r.cleared_later = gone.len();
+    // A code of the other file left out was never added.
+    r.added -= gone.iter().filter(|k| !here.contains(*k)).count();
     r
 }
 
 /// Where a code and a clearing of the same key are both there, the later stands: a code cleared
-/// later goes, a clearing followed by a later code goes. Returns how many codes went.
-pub fn apply_clearings(codes: &mut Vec<Code>, cleared: &mut Vec<Cleared>) -> usize {
+/// later (or at the same time) goes, a clearing followed by a later code goes. Returns the keys
+/// of the codes that went.
+pub fn apply_clearings(codes: &mut Vec<Code>, cleared: &mut Vec<Cleared>) -> Vec<CodeKey> {
     if cleared.is_empty() {
-        return 0;
+        return vec![];
     }
     let at: HashMap<CodeKey, &str> = cleared
         .iter()
         .map(|c| (c.owned_key(), c.time.as_str()))
         .collect();
-    let before = codes.len();
+    let mut gone = Vec::new();
     codes.retain(|c| {
-        at.get(&c.owned_key())
-            .is_none_or(|t| time_order(&c.time) > time_order(t))
+        let stays = at
+            .get(&c.owned_key())
+            .is_none_or(|t| time_order(&c.time) > time_order(t));
+        if !stays {
+            gone.push(c.owned_key());
+        }
+        stays
     });
-    let gone = before - codes.len();
     let live: HashSet<CodeKey> = codes.iter().map(Code::owned_key).collect();
     cleared.retain(|c| !live.contains(&c.owned_key()));
     gone
@@ -720,7 +729,8 @@ impl<'a> Coded<'a> {
                     .or_default()
                     .entry(c.item.as_str())
                     .or_insert(c);
-                if time_order(&c.time) > time_order(&e.time) {
+                // The latest; on equal times the settler's name decides, as the viewer does.
+                if (time_order(&c.time), &c.coder) > (time_order(&e.time), &e.coder) {
                     *e = c;
                 }
             } else {
@@ -1354,7 +1364,7 @@ mod tests {
         // Here ana cleared it on the 2nd; her file of the 1st still has it.
         let (mut codes, mut cleared) = (vec![], vec![clear("2026-12-02T10:00:00Z")]);
         let r = merge_coding(&mut codes, &mut cleared, std::slice::from_ref(&old), &[]);
-        assert_eq!((r.added, r.cleared_later), (1, 1));
+        assert_eq!((r.added, r.cleared_later), (0, 1), "left out, not added");
         assert!(codes.is_empty());
         assert_eq!(cleared.len(), 1);
         // The other way round: a file that cleared it later takes the code out here.

@@ -124,6 +124,8 @@ pub struct Coding {
     pub generation: u64,
     /// What the page has not stored yet.
     pub dirty: Dirty,
+    /// See [`Coding::take_stale`].
+    stale: bool,
 }
 
 /// The number key of each value of a choice variable: its own key, else the lowest key 1-9 no
@@ -140,6 +142,16 @@ pub fn value_keys(var: &Variable) -> Vec<Option<u8>> {
             })
         })
         .collect()
+}
+
+/// `items` in atlas order, each once.
+fn sorted(items: &[u32]) -> Vec<u32> {
+    let mut v = items.to_vec();
+    if !v.is_sorted() {
+        v.sort_unstable();
+    }
+    v.dedup();
+    v
 }
 
 fn splitmix(state: &mut u64) -> u64 {
@@ -237,7 +249,7 @@ impl Coding {
             .iter()
             .map(|&i| &self.codes[i])
             .filter(|c| c.settled && c.variable == variable)
-            .max_by(|a, b| time_order(&a.time).cmp(&time_order(&b.time)))
+            .max_by(|a, b| (time_order(&a.time), &a.coder).cmp(&(time_order(&b.time), &b.coder)))
     }
 
     /// Every coder's own code of `item` for `variable` (settled values aside), by coder's name.
@@ -308,9 +320,53 @@ impl Coding {
         value: Option<CodeValue>,
         time: &str,
     ) -> bool {
-        let settled = self.settling();
-        let ch = self.change(index, item, variable, value, time, settled);
-        ch.map(|c| self.undo.push(vec![c])).is_some()
+        if !self.settling() {
+            let key = self.key_of(item, variable, false);
+            let ch = self.change(index, key, value, time, false);
+            return ch.map(|c| self.undo.push(vec![c])).is_some();
+        }
+        // Settling works on the value shown, whoever settled it: the same value again changes
+        // nothing; another (or this settler's own earlier one) becomes the latest; clearing
+        // clears every settled value of the item's variable, in one step.
+        let shown = self.settled_code(item, variable).map(|c| c.value.clone());
+        if shown == value {
+            return false;
+        }
+        let group: Vec<Change> = match value {
+            Some(v) => {
+                let key = self.key_of(item, variable, true);
+                self.change(index, key, Some(v), time, true)
+                    .into_iter()
+                    .collect()
+            }
+            None => {
+                let keys: Vec<CodeKey> = self.by_item.get(item).map_or(vec![], |l| {
+                    l.iter()
+                        .map(|&i| &self.codes[i])
+                        .filter(|c| c.settled && c.variable == variable)
+                        .map(Code::owned_key)
+                        .collect()
+                });
+                keys.into_iter()
+                    .filter_map(|k| self.change(index, k, None, time, false))
+                    .collect()
+            }
+        };
+        let changed = !group.is_empty();
+        if changed {
+            self.undo.push(group);
+        }
+        changed
+    }
+
+    /// This coder's key for `item` and `variable`, settled or not.
+    fn key_of(&self, item: &str, variable: &str, settled: bool) -> CodeKey {
+        (
+            item.to_string(),
+            variable.to_string(),
+            self.coder.clone(),
+            settled,
+        )
     }
 
     /// This coder's own code (never a settled value, whatever the walk) of item `index`, as the
@@ -323,7 +379,8 @@ impl Coding {
         value: Option<CodeValue>,
         time: &str,
     ) -> bool {
-        let ch = self.change(index, item, variable, value, time, false);
+        let key = self.key_of(item, variable, false);
+        let ch = self.change(index, key, value, time, false);
         ch.map(|c| self.undo.push(vec![c])).is_some()
     }
 
@@ -345,7 +402,8 @@ impl Coding {
         let mut group = Vec::new();
         for (index, id) in items {
             let value = to(self.own_code(id, variable).map(|c| &c.value));
-            if let Some(c) = self.change(*index, id, variable, value, time, false) {
+            let key = self.key_of(id, variable, false);
+            if let Some(c) = self.change(*index, key, value, time, false) {
                 group.push(c);
             }
         }
@@ -356,23 +414,19 @@ impl Coding {
         n
     }
 
+    /// Sets (None: clears) the code under `key` at `time`, returning the change to undo; with
+    /// `renew` a code of the same value is set again (its time becomes `time`).
     fn change(
         &mut self,
         index: usize,
-        item: &str,
-        variable: &str,
+        key: CodeKey,
         value: Option<CodeValue>,
         time: &str,
-        settled: bool,
+        renew: bool,
     ) -> Option<Change> {
-        let key: CodeKey = (
-            item.to_string(),
-            variable.to_string(),
-            self.coder.clone(),
-            settled,
-        );
         let before = self.get(&key).cloned();
-        if before.as_ref().map(|c| &c.value) == value.as_ref() {
+        let same = before.as_ref().map(|c| &c.value) == value.as_ref();
+        if same && !(renew && value.is_some()) {
             return None;
         }
         let (pos, var_index) = self.walk.as_ref().map_or((0, 0), |w| (w.pos, w.variable));
@@ -382,22 +436,22 @@ impl Coding {
         };
         let ch = Change {
             index,
-            coder: self.coder.clone(),
-            settled,
-            item: item.into(),
-            variable: variable.into(),
+            coder: key.2.clone(),
+            settled: key.3,
+            item: key.0.clone(),
+            variable: key.1.clone(),
             before,
             before_cleared,
             pos,
             var_index,
         };
         let code = value.map(|v| Code {
-            item: item.into(),
-            variable: variable.into(),
+            item: key.0.clone(),
+            variable: key.1.clone(),
             value: v,
-            coder: self.coder.clone(),
+            coder: key.2.clone(),
             time: time.into(),
-            settled,
+            settled: key.3,
         });
         self.put_counted(index, key, code);
         Some(ch)
@@ -406,6 +460,9 @@ impl Coding {
     /// [`Coding::put`], keeping the walk's counts (of this coder's codes, or of settled values
     /// when settling).
     fn put_counted(&mut self, index: usize, key: CodeKey, code: Option<Code>) {
+        if !key.3 && self.settling() {
+            self.stale = true;
+        }
         let var = self.book.variables.iter().position(|v| v.name == key.1);
         let counts = key.3 == self.settling()
             && (key.3 || key.2 == self.coder)
@@ -491,7 +548,7 @@ impl Coding {
         };
         let mut at = None;
         for ch in group.into_iter().rev() {
-            at = Some((ch.pos, ch.var_index));
+            at = Some((ch.index, ch.pos, ch.var_index));
             let key = (ch.item, ch.variable, ch.coder, ch.settled);
             match ch.before_cleared {
                 Some(t) => self.cleared.insert(key.clone(), t),
@@ -499,11 +556,26 @@ impl Coding {
             };
             self.put_counted(ch.index, key, ch.before);
         }
-        if let (Some(w), Some((pos, var))) = (&mut self.walk, at) {
-            w.pos = pos.min(w.order.len().saturating_sub(1));
-            w.variable = var;
+        // The walk goes back to the item, when the item is in it (a code set in the record
+        // card, or under another walk, leaves the walk where it is).
+        if let (Some(w), Some((index, pos, var))) = (&mut self.walk, at) {
+            let here = if w.order.get(pos) == Some(&(index as u32)) {
+                Some(pos)
+            } else {
+                w.order.iter().position(|&i| i as usize == index)
+            };
+            if let Some(p) = here {
+                w.pos = p;
+                w.variable = var.min(self.book.variables.len().saturating_sub(1));
+            }
         }
         true
+    }
+
+    /// Whether a coder's own code changed while a settling walk stands (what the coders disagree
+    /// on may have changed: [`Coding::recount`] finds it anew). Reading clears it.
+    pub fn take_stale(&mut self) -> bool {
+        std::mem::take(&mut self.stale)
     }
 
     /// Whether there is a step to undo.
@@ -544,7 +616,7 @@ impl Coding {
             pos: 0,
             variable: 0,
             how,
-            source: items.to_vec(),
+            source: sorted(items),
             member,
             disputed: HashMap::new(),
             totals: vec![],
@@ -588,14 +660,15 @@ impl Coding {
     /// Whether the walk is over exactly `items` (atlas order) in `how`'s kind (coding or
     /// settling).
     pub fn walks(&self, items: &[u32], settle: bool) -> bool {
-        self.walk.as_ref().is_some_and(|w| {
-            (w.how == Order::Disagreements) == settle && w.source.as_slice() == items
-        })
+        self.walk
+            .as_ref()
+            .is_some_and(|w| (w.how == Order::Disagreements) == settle && w.source == sorted(items))
     }
 
     /// Counts the walk's coded (settled) and finished items anew, after a change of many codes;
     /// when settling, finds anew what the coders disagree on.
     pub fn recount(&mut self, ids: &dyn Fn(usize) -> String) {
+        self.stale = false;
         let Some(w) = &self.walk else { return };
         let nv = self.book.variables.len();
         let source: Vec<String> = w.source.iter().map(|&i| ids(i as usize)).collect();
@@ -622,7 +695,36 @@ impl Coding {
         } else {
             (HashMap::new(), vec![source.len(); nv])
         };
-        self.walk.as_mut().unwrap().disputed = disputed;
+        let settling = w.how == Order::Disagreements;
+        let current = self.current();
+        let w = self.walk.as_mut().unwrap();
+        if settling {
+            // The walk keeps its order for the items still disputed, stands on the same item
+            // when it still is, and takes newly disputed items at its end.
+            let mut order: Vec<u32> = w
+                .order
+                .iter()
+                .copied()
+                .filter(|&i| {
+                    let k = w.source.binary_search(&i).ok();
+                    k.is_some_and(|k| disputed.contains_key(&source[k]))
+                })
+                .collect();
+            let had: std::collections::HashSet<u32> = order.iter().copied().collect();
+            order.extend(
+                w.source
+                    .iter()
+                    .zip(&source)
+                    .filter(|(i, id)| !had.contains(i) && disputed.contains_key(*id))
+                    .map(|(&i, _)| i),
+            );
+            w.pos = current
+                .and_then(|c| order.iter().position(|&i| i as usize == c))
+                .unwrap_or(w.pos)
+                .min(order.len().saturating_sub(1));
+            w.order = order;
+        }
+        w.disputed = disputed;
         let w = self.walk.as_ref().unwrap();
         let mut coded = vec![0; nv];
         let mut finished = 0;
@@ -891,6 +993,10 @@ impl Coding {
                 _ => true,
             }
         });
+        if value.is_none() {
+            // The variable goes: its clearings with it.
+            self.cleared.retain(|k, _| k.1 != variable);
+        }
         self.reindex();
         self.undo.clear();
         self.changed_all();
@@ -1356,5 +1462,65 @@ mod tests {
         // A renamed variable keeps its clearings.
         c.rename_variable("framing", "pose");
         assert_eq!(c.clearings()[0].variable, "pose");
+    }
+
+    #[test]
+    fn settling_works_on_the_value_shown_and_the_walk_follows_new_disagreements() {
+        let mut c = coding();
+        let t = |s: &str| Some(CodeValue::Text(s.into()));
+        for (coder, v0, v1) in [
+            ("ana", "full length", "half length"),
+            ("ben", "head only", "half length"),
+        ] {
+            c.coder = coder.into();
+            c.set(0, "r0", "framing", t(v0), T);
+            c.set(1, "r1", "framing", t(v1), T);
+        }
+        c.coder = "cy".into();
+        c.start(&[0, 1, 2], Order::Disagreements, &ids, None);
+        assert_eq!(c.walk.as_ref().unwrap().order, vec![0]);
+        c.set(0, "r0", "framing", t("head only"), "2026-12-05T10:00:00Z");
+        // dee settles it otherwise, later: that is the value shown.
+        c.coder = "dee".into();
+        c.set(0, "r0", "framing", t("full length"), "2026-12-05T11:00:00Z");
+        c.coder = "cy".into();
+        assert_eq!(
+            c.code("r0", "framing").unwrap().value,
+            t("full length").unwrap()
+        );
+        // cy's own earlier value, set again, becomes the latest.
+        assert!(c.set(0, "r0", "framing", t("head only"), "2026-12-05T12:00:00Z"));
+        assert_eq!(
+            c.code("r0", "framing").unwrap().value,
+            t("head only").unwrap()
+        );
+        assert!(!c.set(0, "r0", "framing", t("head only"), "2026-12-05T12:30:00Z"));
+        // Clearing clears every settled value of it, in one step; undo brings both back.
+        assert!(c.set(0, "r0", "framing", None, "2026-12-05T13:00:00Z"));
+        assert!(c.settled_code("r0", "framing").is_none());
+        assert_eq!(c.clearings().len(), 2);
+        c.undo();
+        assert_eq!(c.code("r0", "framing").unwrap().coder, "cy");
+        assert_eq!(c.codes.iter().filter(|c| c.settled).count(), 2);
+        assert!(c.clearings().is_empty());
+        // A third coder disagrees on r2: a recount takes it into the walk, which stays on r0.
+        c.walk.as_mut().unwrap().pos = 0;
+        c.coder = "eve".into();
+        c.set_own(1, "r1", "framing", t("head only"), T);
+        c.set_own(2, "r2", "framing", t("head only"), T);
+        c.coder = "ana".into();
+        c.set_own(2, "r2", "framing", t("full length"), T);
+        assert!(c.take_stale() && !c.take_stale());
+        c.coder = "cy".into();
+        c.recount(&ids);
+        assert_eq!(c.walk.as_ref().unwrap().order, vec![0, 1, 2]);
+        assert_eq!(c.current(), Some(0));
+        assert_eq!(c.progress()[0], ("framing".to_string(), 1, 3));
+        // Undo of a code set outside the walk's items leaves the walk where it stands.
+        c.start(&[0, 1], Order::Map, &ids, None);
+        c.key("Enter", false, T, &ids);
+        c.set_own(2, "r2", "signed", Some(CodeValue::YesNo(true)), T);
+        c.undo();
+        assert_eq!(c.current(), Some(1));
     }
 }

@@ -17,6 +17,59 @@ thread_local! {
     /// The codes the store holds (so that a full rewrite removes exactly those that went, and
     /// never a record it could not read).
     static STORED: RefCell<std::collections::HashSet<CodeKey>> = RefCell::new(Default::default());
+    /// Set while a view holding code fields is drawn anew: a field taken out then fires its
+    /// change event, which is not a code (its text is put back into the new field).
+    static QUIET: std::cell::Cell<bool> = const { std::cell::Cell::new(false) };
+}
+
+/// A field being typed in: how to find it again after a redraw, its text and caret.
+pub(crate) struct Typing {
+    key: String,
+    value: String,
+    caret: Option<u32>,
+}
+
+/// The field being typed in inside `container`, if any.
+pub(crate) fn typing_in(container: &web_sys::Element) -> Option<Typing> {
+    let e = document()
+        .active_element()
+        .filter(|e| container.contains(Some(e.as_ref())))?;
+    let key = e
+        .get_attribute("id")
+        .map(|id| format!("#{id}"))
+        .or_else(|| {
+            e.get_attribute("data-field")
+                .map(|f| format!("[data-field=\"{}\"]", f.replace('"', "\\\"")))
+        })?;
+    let f: HtmlElement = e.dyn_into().ok()?;
+    if !matches!(f.tag_name().as_str(), "INPUT" | "TEXTAREA") {
+        return None;
+    }
+    Some(Typing {
+        key,
+        value: field_value(&f),
+        caret: field_caret(&f),
+    })
+}
+
+/// Empties `container` without the change events of its fields counting as codes.
+pub(crate) fn empty_quietly(container: &web_sys::Element) {
+    QUIET.with(|q| q.set(true));
+    container.set_text_content(None);
+    QUIET.with(|q| q.set(false));
+}
+
+/// Puts the text, caret and focus of a field being typed in back into its redrawn self.
+pub(crate) fn restore_typing(container: &web_sys::Element, t: Typing) {
+    if let Some(f) = container
+        .query_selector(&t.key)
+        .ok()
+        .flatten()
+        .and_then(|e| e.dyn_into::<HtmlElement>().ok())
+    {
+        set_field(&f, &t.value, t.caret);
+        let _ = f.focus();
+    }
 }
 
 #[derive(Default)]
@@ -402,11 +455,17 @@ pub fn key(e: &web_sys::KeyboardEvent) -> bool {
         let ids = &v.atlas.ids;
         let id_of = |i: usize| ids.get(i).to_string();
         let ctrl = e.ctrl_key() || e.meta_key();
-        if e.key() == "Tab" && e.shift_key() {
+        let effect = if e.key() == "Tab" && e.shift_key() {
             v.coding.key("ArrowUp", false, "", &id_of)
         } else {
             v.coding.key(&e.key(), ctrl, &now_utc(), &id_of)
+        };
+        // An undo took back a coder's own code while settling: what they disagree on is found
+        // anew.
+        if v.coding.take_stale() {
+            v.coding.recount(&id_of);
         }
+        effect
     };
     match effect {
         // Not the coding view's key: it goes nowhere else either (the map and the selection
@@ -447,6 +506,9 @@ fn focus_field(id: &str) {
 
 /// Sets variable `v`'s value of the target's item from a field (a number or a note).
 fn set_from_field(target: Target, v: usize, text: String) {
+    if QUIET.with(|q| q.get()) {
+        return;
+    }
     let Some(app) = app() else { return };
     let outcome = {
         let mut a = app.borrow_mut();
@@ -550,21 +612,7 @@ pub fn render() {
     }
     // A field being typed in keeps its text, caret and focus through the redraw (a picture
     // arriving redraws the view while a coder types).
-    let doc = document();
-    let typing = doc
-        .active_element()
-        .filter(|e| view.contains(Some(e.as_ref())))
-        .and_then(|e| {
-            let key = e
-                .get_attribute("id")
-                .map(|id| format!("#{id}"))
-                .or_else(|| {
-                    e.get_attribute("data-field")
-                        .map(|f| format!("[data-field=\"{}\"]", f.replace('"', "\\\"")))
-                })?;
-            let f: HtmlElement = e.dyn_into().ok()?;
-            Some((key, field_value(&f), field_caret(&f)))
-        });
+    let typing = typing_in(&view);
     // The heading (coder, order) stays while the walk's order and coder do: made anew with every
     // item it would be most of a step's work for the browser.
     let head_key = {
@@ -577,8 +625,9 @@ pub fn render() {
     let kept = view
         .first_element_child()
         .filter(|h| h.get_attribute("data-key") == head_key);
-    // Emptied before the state is borrowed: taking out a field with text not yet committed
-    // fires its change event here and then, and its handler borrows the state.
+    // Emptied before the state is borrowed, quietly: taking out a field with text not yet
+    // committed fires its change event here and then.
+    QUIET.with(|q| q.set(true));
     match &kept {
         Some(h) => {
             while let Some(next) = h.next_element_sibling() {
@@ -587,17 +636,10 @@ pub fn render() {
         }
         None => view.set_text_content(None),
     }
+    QUIET.with(|q| q.set(false));
     render_view(&app, &view, kept.is_some());
-    if let Some((key, value, caret)) = typing {
-        if let Some(f) = view
-            .query_selector(&key)
-            .ok()
-            .flatten()
-            .and_then(|e| e.dyn_into::<HtmlElement>().ok())
-        {
-            set_field(&f, &value, caret);
-            let _ = f.focus();
-        }
+    if let Some(t) = typing {
+        restore_typing(&view, t);
     }
 }
 
@@ -1674,9 +1716,12 @@ pub fn install() {
     if let Some(w) = web_sys::window() {
         listen(&w, "pagehide", true, move |_e: web_sys::Event| {
             // A number or note being typed is kept: leaving its field commits it.
+            let holds = |id: &str, e: &web_sys::Element| {
+                by_id(id).is_some_and(|v| v.contains(Some(e.as_ref())))
+            };
             if let Some(f) = document()
                 .active_element()
-                .filter(|e| by_id("coding").is_some_and(|v| v.contains(Some(e.as_ref()))))
+                .filter(|e| holds("coding", e) || holds("card", e))
                 .and_then(|e| e.dyn_into::<HtmlElement>().ok())
             {
                 let _ = f.blur();

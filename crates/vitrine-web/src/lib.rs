@@ -719,13 +719,24 @@ fn open_card(i: Option<usize>) {
         fetch_sheets(vec![w]);
     }
     let doc = document();
-    // A card drawn again (its picture or neighbours arrived) keeps the keyboard's focus in it.
+    // A card drawn again (its picture or neighbours arrived) keeps the keyboard's focus in it,
+    // and a code being typed in it its text.
     let had_focus = doc
         .active_element()
         .is_some_and(|e| card.contains(Some(e.as_ref())));
-    // Emptied before the state is borrowed: taking out a code field with text not yet committed
-    // fires its change event, and its handler borrows the state.
-    card.set_text_content(None);
+    let same = !card.hidden()
+        && document()
+            .body()
+            .and_then(|b| b.dataset().get("card"))
+            .is_some_and(|id| id == app.borrow().atlas.id(i));
+    let typing = same.then(|| coding::typing_in(&card)).flatten();
+    // Emptied before the state is borrowed: taking out a code field fires its change event (not
+    // a code when the same card is drawn again: its text is put back).
+    if typing.is_some() {
+        coding::empty_quietly(&card);
+    } else {
+        card.set_text_content(None);
+    }
     let a = app.borrow();
     let close = doc.create_element("button").unwrap();
     close.set_class_name("close");
@@ -802,7 +813,9 @@ fn open_card(i: Option<usize>) {
     card.set_hidden(false);
     set_state("card", a.atlas.id(i));
     drop(a);
-    if had_focus {
+    if let Some(t) = typing {
+        coding::restore_typing(&card, t);
+    } else if had_focus {
         focus_card();
     }
     request_frame();
