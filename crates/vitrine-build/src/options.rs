@@ -51,6 +51,8 @@ pub struct BuildOptions {
     pub k: usize,
     /// Principal components to keep before the neighbour graph (None: the vectors as given).
     pub pca: Option<usize>,
+    /// Components of the vectors compressed for the browser (0: none kept).
+    pub browser_vectors: usize,
     pub seed: u64,
     pub min_dist: f32,
     pub epochs: Option<usize>,
@@ -86,6 +88,7 @@ impl BuildOptions {
             optimiser: Optimiser::Auto,
             k: 15,
             pca: None,
+            browser_vectors: vitrine_map::compress::DEFAULT_DIMS,
             seed: 42,
             min_dist: 0.1,
             epochs: None,

@@ -35,6 +35,10 @@ pub fn build(opts: &BuildOptions, progress: &dyn Progress) -> Result<BuildReport
     if reduced.reduction.pca.is_some() {
         laps.lap("PCA reduction");
     }
+    let browser_vectors = stages::browser_vectors(&reduced, opts, progress);
+    if browser_vectors.is_some() {
+        laps.lap("vectors for the browser");
+    }
     let graph = stages::neighbour_graph(&reduced, opts, progress);
     laps.lap("neighbour graph");
     let mut map = stages::similarity_map(&reduced, &graph.graph, opts, progress);
@@ -63,6 +67,7 @@ pub fn build(opts: &BuildOptions, progress: &dyn Progress) -> Result<BuildReport
         lattice,
         quality,
         order,
+        browser_vectors,
     };
 
     let tmp = crate::folder::tmp_sibling(&opts.out, "building");

@@ -100,6 +100,30 @@ pub fn reduce(vectors: Matrix, opts: &BuildOptions, progress: &dyn Progress) -> 
     }
 }
 
+/// Every item's vector compressed for the browser (None when the build keeps none).
+pub fn browser_vectors(
+    reduced: &Reduced,
+    opts: &BuildOptions,
+    progress: &dyn Progress,
+) -> Option<vitrine_map::compress::Compressed> {
+    if opts.browser_vectors == 0 || reduced.vectors.rows == 0 {
+        return None;
+    }
+    let c = vitrine_map::compress::compress(
+        &reduced.vectors,
+        opts.metric,
+        reduced.reduction.pca.as_ref(),
+        opts.browser_vectors,
+        opts.seed,
+    );
+    progress.note(&format!(
+        "vectors for the browser: {} components of one byte, {:.1} % of the variance",
+        c.dims,
+        100.0 * c.explained_variance
+    ));
+    Some(c)
+}
+
 /// The neighbour graph and how it was found.
 pub struct NeighbourGraph {
     pub graph: KnnGraph,
@@ -326,4 +350,5 @@ pub struct Computed {
     pub lattice: LatticeMap,
     pub quality: Option<MapQuality>,
     pub order: AtlasOrder,
+    pub browser_vectors: Option<vitrine_map::compress::Compressed>,
 }

@@ -7,9 +7,9 @@ use anyhow::{Context, Result};
 use serde_json::json;
 use vitrine_format::palette::{INK, OKABE_ITO, UNLISTED};
 use vitrine_format::{
-    ArrayRef, ClusterInfo, ClusterTerm, Clusters, Field, InputFile, Manifest, MapLayout,
-    NeighbourChunk, Neighbours, Provenance, SheetLevel, Sheets, TextTable, FORMAT_NAME,
-    FORMAT_VERSION, MANIFEST_FILE, NEIGHBOUR_CHUNK_ITEMS,
+    ArrayRef, BrowserVectors, ClusterInfo, ClusterTerm, Clusters, Field, InputFile, Manifest,
+    MapLayout, NeighbourChunk, Neighbours, Provenance, SheetLevel, Sheets, TextTable, FORMAT_NAME,
+    FORMAT_VERSION, MANIFEST_FILE, NEIGHBOUR_CHUNK_ITEMS, VECTOR_CHUNK_ITEMS,
 };
 use vitrine_images::thumbs::{self, SheetPlan};
 
@@ -100,6 +100,10 @@ pub fn write_atlas(
     };
     let flat: Vec<u8> = colours.iter().flatten().copied().collect::<Vec<u8>>();
     let colours = w.add("colours", &flat);
+    let vectors = c
+        .browser_vectors
+        .as_ref()
+        .map(|v| browser_vectors(&mut w, v, order));
 
     let title = opts.title.clone().unwrap_or_else(|| {
         opts.out
@@ -122,6 +126,7 @@ pub fn write_atlas(
         sheets,
         quality: quality_figures(&c, clusters.list.len()),
         clusters: Some(clusters),
+        vectors,
         provenance: Provenance {
             tool: "vitrine".into(),
             tool_version: env!("CARGO_PKG_VERSION").into(),
@@ -131,6 +136,7 @@ pub fn write_atlas(
         },
     };
     std::fs::create_dir_all(dir.join("arrays").join("neighbours"))?;
+    std::fs::create_dir_all(dir.join("arrays").join("vectors"))?;
     for (name, bytes) in &w.files {
         std::fs::write(dir.join(name), bytes).with_context(|| format!("writing {name}"))?;
     }
@@ -593,6 +599,14 @@ fn parameters(
         }),
     );
     p.insert("pca".into(), json!(opts.pca));
+    p.insert("browser_vectors".into(), json!(opts.browser_vectors));
+    if let Some(v) = &c.browser_vectors {
+        p.insert("browser_vectors_dimensions".into(), json!(v.dims));
+        p.insert(
+            "browser_vectors_explained_variance".into(),
+            json!(v.explained_variance),
+        );
+    }
     p.insert("id_column".into(), json!(opts.id_column));
     p.insert("sheet_size".into(), json!(opts.sheet_size));
     p.insert("cells".into(), json!(opts.cells));
@@ -615,6 +629,36 @@ fn parameters(
         p.insert("pca_method".into(), json!(vitrine_map::pca::method()));
     }
     p
+}
+
+/// The compressed vectors in atlas order, in chunks.
+fn browser_vectors(
+    w: &mut ArrayWriter,
+    v: &vitrine_map::compress::Compressed,
+    order: &[usize],
+) -> BrowserVectors {
+    let d = v.dims;
+    let per = VECTOR_CHUNK_ITEMS as usize;
+    let chunks = order
+        .chunks(per)
+        .enumerate()
+        .map(|(c, part)| {
+            let bytes: Vec<u8> = part
+                .iter()
+                .flat_map(|&i| v.codes[i * d..(i + 1) * d].iter().copied())
+                .collect();
+            w.add(&format!("vectors/q8-{c:04}"), &bytes)
+        })
+        .collect();
+    BrowserVectors {
+        dims: d as u32,
+        offset: v.offset.clone(),
+        scale: v.scale.clone(),
+        chunk_items: VECTOR_CHUNK_ITEMS,
+        chunks,
+        explained_variance: v.explained_variance,
+        method: v.method.clone(),
+    }
 }
 
 /// The manifest's quality figures: cluster count, trustworthiness and continuity of the

@@ -81,6 +81,11 @@ pub struct BuildArgs {
     /// neighbour graph; the explained variance is recorded in the atlas. Off by default.
     #[arg(long, value_name = "DIMS")]
     pca: Option<usize>,
+    /// Keep every item's vector for the viewer, compressed to this many principal components of
+    /// one byte each (the viewer scores items against marked examples and finds the items closest
+    /// to one with them; ~64 bytes an item, fetched only when first used). 0 leaves them out.
+    #[arg(long, value_name = "DIMS", default_value_t = 64)]
+    browser_vectors: usize,
     /// Seed for every random choice: the same seed gives the same atlas.
     #[arg(long, default_value_t = 42)]
     seed: u64,
@@ -158,6 +163,7 @@ impl BuildArgs {
             },
             k: self.k,
             pca: self.pca,
+            browser_vectors: self.browser_vectors,
             seed: self.seed,
             min_dist: self.min_dist,
             epochs: self.epochs,

@@ -471,6 +471,39 @@ pub struct Provenance {
     pub seed: u64,
 }
 
+/// Items the browser's vectors hold per chunk file (the last chunk may hold fewer).
+pub const VECTOR_CHUNK_ITEMS: u32 = 65_536;
+
+/// Every item's vector compressed for the browser: its leading principal components, one byte
+/// each. Component j of an item is `offset[j] + scale[j] * q` for its byte q. Rows in atlas
+/// order, `dims` bytes an item, in chunks of `chunk_items` items (`arrays/vectors/q8-CCCC.bin`).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct BrowserVectors {
+    pub dims: u32,
+    pub offset: Vec<f32>,
+    pub scale: Vec<f32>,
+    pub chunk_items: u32,
+    pub chunks: Vec<ArrayRef>,
+    /// The share of the vectors' variance the components hold, 0–1.
+    pub explained_variance: f64,
+    /// How the components were found and quantised.
+    pub method: String,
+}
+
+impl BrowserVectors {
+    /// Decodes item `at`'s row of chunk bytes `bytes` (the item's index within its chunk).
+    pub fn decode(&self, bytes: &[u8], at: usize, out: &mut [f32]) {
+        let d = self.dims as usize;
+        for ((o, &q), (&off, &sc)) in out
+            .iter_mut()
+            .zip(&bytes[at * d..(at + 1) * d])
+            .zip(self.offset.iter().zip(&self.scale))
+        {
+            *o = off + sc * q as f32;
+        }
+    }
+}
+
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Manifest {
     pub format: String,
@@ -495,6 +528,9 @@ pub struct Manifest {
     /// Quality figures by name (e.g. "trustworthiness_10").
     #[serde(default)]
     pub quality: serde_json::Map<String, serde_json::Value>,
+    /// Every item's vector compressed for the browser, if the build kept them.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub vectors: Option<BrowserVectors>,
     pub provenance: Provenance,
 }
 
@@ -614,6 +650,27 @@ impl Manifest {
                         f.name
                     )));
                 }
+            }
+        }
+        if let Some(v) = &self.vectors {
+            let (d, per) = (v.dims as u64, v.chunk_items as u64);
+            if d == 0 || v.offset.len() as u64 != d || v.scale.len() as u64 != d {
+                return Err(AtlasError::Inconsistent(format!(
+                    "the browser's vectors have {d} dimensions but {} offsets and {} scales",
+                    v.offset.len(),
+                    v.scale.len()
+                )));
+            }
+            if per == 0 || v.chunks.len() as u64 != n.div_ceil(per) {
+                return Err(AtlasError::Inconsistent(format!(
+                    "{n} items in vector chunks of {per} need {} chunks, the manifest lists {}",
+                    n.div_ceil(per.max(1)),
+                    v.chunks.len()
+                )));
+            }
+            for (c, chunk) in v.chunks.iter().enumerate() {
+                let items = per.min(n - c as u64 * per);
+                want(chunk, items * d, DType::U8)?;
             }
         }
         if let Some(c) = &self.clusters {

@@ -13,6 +13,7 @@
 //! of randomness); no I/O — callers hand in vectors and callbacks for progress.
 
 pub mod clusters;
+pub mod compress;
 pub mod hilbert;
 pub mod kernels;
 pub mod knn;
