@@ -157,6 +157,8 @@ pub struct CorpusArgs {
     /// The category fields to compare, comma-separated (default: every category field).
     #[arg(long = "compare-fields", value_delimiter = ',')]
     pub compare_fields: Vec<String>,
+    #[command(flatten)]
+    pub grow: crate::grow::GrowArgs,
     /// Replace output files that exist.
     #[arg(long)]
     pub force: bool,
@@ -405,6 +407,7 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
         (&a.profile, "--profile"),
         (&a.profile_svg, "--profile-svg"),
         (&a.comparison, "--comparison"),
+        (&a.grow.scores, "--scores"),
     ] {
         if let Some(p) = p {
             check_output(p, flag, atlas_dir, a.force)?;
@@ -444,7 +447,7 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
     let mut filters = from.as_ref().map(|c| c.filters.clone()).unwrap_or_default();
     let extra_steps = steps_from_args(a, !steps.is_empty())?;
     let extra_filters = filters_from_args(a, &atlas)?;
-    let changed = !extra_steps.is_empty() || !extra_filters.is_empty();
+    let mut changed = !extra_steps.is_empty() || !extra_filters.is_empty();
     steps.extend(extra_steps);
     filters.extend(extra_filters);
     if let (Some(given), Some(c), Some(p)) = (&a.map, &from, &a.from) {
@@ -514,7 +517,57 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
         index_of: &index_of,
         near: None,
     };
-    let mask = corpus_mask(&steps, &filters, &cols, &at)?;
+    let mut mask = corpus_mask(&steps, &filters, &cols, &at)?;
+    // Growing: a new round of marks, trained with the last round's settings on the atlas's
+    // compressed vectors; its best candidates accepted into the corpus when asked.
+    let mut rounds = from.as_ref().map(|c| c.grow.clone()).unwrap_or_default();
+    if !a.grow.like.is_empty() {
+        rounds.push(vitrine_corpus::grow::Round {
+            like: a.grow.like.clone(),
+            not: a.grow.not.clone(),
+            c: a.grow.c,
+            background: a.grow.background,
+            seed: a.grow.seed,
+            accepted: vec![],
+            rejected: vec![],
+        });
+    } else if !a.grow.not.is_empty() {
+        bail!("--not: give the items \"like these\" with --like too");
+    }
+    let mut grown = None;
+    if a.grow.wanted() {
+        let Some(round) = rounds.last() else {
+            bail!("--scores, --accept-top: there is no round of growing (give --like, or --from a corpus file grown in the viewer)");
+        };
+        let q = crate::grow::read_q8(&atlas)?;
+        let t = crate::grow::train(&q, round, &index_of)?;
+        if let Some(k) = a.grow.accept_top {
+            // Candidates: unmarked items not yet chosen (with nothing chosen, the corpus is not
+            // yet grown: every unmarked item is one).
+            let chosen = !steps.is_empty();
+            let top = vitrine_corpus::grow::candidates(
+                &t.scores,
+                &|i| (chosen && mask.get(i)) || t.mark.get(&i).is_some_and(|m| *m != "background"),
+                k,
+            );
+            let accepted: Vec<String> = top.iter().map(|&i| ids.get(i).to_string()).collect();
+            notes.push(format!(
+                "accepted the {} best candidates of round {} into the corpus",
+                accepted.len(),
+                rounds.len()
+            ));
+            if !accepted.is_empty() {
+                steps.push(Step {
+                    op: Op::Add,
+                    shape: Shape::Ids(accepted.clone()),
+                });
+                changed = true;
+                mask = corpus_mask(&steps, &filters, &cols, &at)?;
+            }
+            rounds.last_mut().unwrap().accepted.extend(accepted);
+        }
+        grown = Some(t);
+    }
     let items: Vec<usize> = mask.items().collect();
     if let (Some(c), false) = (&from, changed) {
         let same_atlas = c.atlas.manifest_sha256 == manifest_sha;
@@ -594,6 +647,7 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
         codebook: book.clone(),
         codes: codes.clone(),
         cleared,
+        grow: rounds,
     };
     let mut written = measure::measure(
         a,
@@ -647,6 +701,11 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
             std::fs::write(p, text()).with_context(|| format!("writing {}", p.display()))?;
             written.push(p.clone());
         }
+    }
+    if let (Some(p), Some(t)) = (&a.grow.scores, &grown) {
+        let text = crate::grow::scores_csv(t, &|i| ids.get(i).to_string());
+        std::fs::write(p, text).with_context(|| format!("writing {}", p.display()))?;
+        written.push(p.clone());
     }
     if let Some(p) = &a.json {
         std::fs::write(p, file.to_json()).with_context(|| format!("writing {}", p.display()))?;

@@ -7,6 +7,7 @@ pub mod build;
 pub mod coding;
 pub mod corpus;
 pub mod export;
+pub mod grow;
 pub mod http;
 pub mod inspect;
 pub mod measure;

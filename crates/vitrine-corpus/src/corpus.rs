@@ -167,6 +167,9 @@ pub struct CorpusFile {
     /// Codes their coders took back, and when (version 2): a merge does not bring them back.
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub cleared: Vec<Cleared>,
+    /// Rounds of growing the corpus from examples (marks, settings, what was accepted), in order.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub grow: Vec<crate::grow::Round>,
 }
 
 impl CorpusFile {

@@ -15,6 +15,7 @@ pub mod compare;
 pub mod corpus;
 pub mod export;
 pub mod filter;
+pub mod grow;
 pub mod mask;
 pub mod packed;
 pub mod polygon;

@@ -397,6 +397,7 @@ pub fn export(kind: &str) {
                 codebook: a.coding.book.clone(),
                 codes: a.coding.codes.clone(),
                 cleared: a.coding.clearings(),
+                grow: vec![],
             };
             (
                 format!("{stem}.corpus.json"),
