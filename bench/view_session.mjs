@@ -198,7 +198,21 @@ try {
     const items = Number(document.body.dataset.codes || 0);
     return { next, profile, compare, compareHard, profileHard, codes: items };
   });
+  // The closest hundred to an item over every item, by the compressed vectors (fetched first; an
+  // atlas built without them is left out of this figure).
+  let closest = null;
+  await page.evaluate(() => window.vitrineView.load_vectors());
+  await page.waitForFunction(() => ["ready", "failed"].includes(document.body.dataset.vectors), null, { timeout: 600000 });
+  if (await page.evaluate(() => document.body.dataset.vectors) === "ready") {
+    closest = await page.evaluate(() => {
+      const n = JSON.parse(window.vitrineView.view_state()).items;
+      const t = [];
+      for (let k = 0; k < 7; k++) t.push(window.vitrineView.bench_closest(Math.floor((k + 0.5) * n / 7), 100));
+      return t;
+    });
+  }
   const measure = {
+    closest: closest && [quantile(closest, 0.5), Math.max(...closest)],
     coding_next: [quantile(measuring.next, 0.5), quantile(measuring.next, 0.95)],
     profile: [quantile(measuring.profile, 0.5), Math.max(...measuring.profile)],
     compare: [quantile(measuring.compare, 0.5), Math.max(...measuring.compare)],

@@ -264,6 +264,28 @@ test("the demo atlas loads on software WebGL, draws marks, then thumbnails, and 
     const c = document.querySelector("#card canvas.picture");
     return c && Math.max(c.width, c.height) > 200;
   });
+  // The closest over the whole collection, by every item's compressed vector: nothing of them is
+  // fetched before they are asked for; then the strip lists the hundred closest, most of the
+  // card's nearest neighbours (found on the full vectors) among its first fifteen.
+  const vectorUrls = () => page.evaluate(() =>
+    performance.getEntriesByType("resource").map((e) => e.name).filter((n) => n.includes("/arrays/vectors/")));
+  assert.deepEqual(await vectorUrls(), [], "no vector is fetched before it is needed");
+  await page.click("#closest-button");
+  await page.waitForFunction(() => document.querySelectorAll("#card .closest-strip .pic").length === 100, null, { timeout: 60000 });
+  assert.equal((await vectorUrls()).length, 1, "6,000 items: one part");
+  const here = await page.evaluate(() => document.body.dataset.card);
+  const closestIds = await page.locator("#card .closest-strip .pic").evaluateAll((bs) => bs.map((b) => b.dataset.id));
+  const nbNow = await page.locator("#card ol.neighbours button").evaluateAll((bs) => bs.map((b) => b.dataset.id));
+  assert.ok(!closestIds.includes(here));
+  const shared = nbNow.filter((id) => closestIds.slice(0, 15).includes(id)).length;
+  assert.ok(shared >= 10, `${shared} of the 15 neighbours among the 15 closest`);
+  await page.locator("#card .closest-strip").scrollIntoViewIfNeeded();
+  await page.screenshot({ path: path.join(ARTIFACTS, "04c-closest.png") });
+  // A tile of the strip opens its record.
+  await page.locator("#card .closest-strip .pic").first().click();
+  await page.waitForFunction((id) => document.body.dataset.card === id, closestIds[0]);
+  await page.keyboard.press("Backspace");
+  await page.waitForFunction((id) => document.body.dataset.card === id, here);
   await page.mouse.move(box.x + x, box.y + y);
   await page.mouse.click(box.x + x, box.y + y);
   await page.waitForFunction((id) => document.body.dataset.card === id, record.id);

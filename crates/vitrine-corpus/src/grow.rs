@@ -282,6 +282,44 @@ pub fn candidates(scores: &[f32], skip: &dyn Fn(usize) -> bool, k: usize) -> Vec
     v
 }
 
+/// The `k` items nearest item `i` by the compressed vectors (squared Euclidean distance of the
+/// decoded rows), nearest first (ties: lower index first), `i` itself left out. A table per
+/// component holds each byte's contribution, so an item costs one look-up and one add a byte.
+pub fn closest(q: &Q8, i: usize, k: usize) -> Vec<(usize, f32)> {
+    let d = q.dims;
+    if d == 0 || i >= q.items() {
+        return vec![];
+    }
+    let row = &q.bytes[i * d..(i + 1) * d];
+    let mut table = vec![0f32; d * 256];
+    for (j, &b) in row.iter().enumerate() {
+        let s = q.scale[j] as f64;
+        for v in 0..256usize {
+            let t = s * (v as f64 - b as f64);
+            table[j * 256 + v] = (t * t) as f32;
+        }
+    }
+    let dist: Vec<f32> = q
+        .bytes
+        .chunks_exact(d)
+        .map(|r| {
+            let mut s = 0f32;
+            for (j, &v) in r.iter().enumerate() {
+                s += table[j * 256 + v as usize];
+            }
+            s
+        })
+        .collect();
+    let mut v: Vec<usize> = (0..dist.len()).filter(|&j| j != i).collect();
+    let by = |a: &usize, b: &usize| dist[*a].total_cmp(&dist[*b]).then(a.cmp(b));
+    if v.len() > k {
+        v.select_nth_unstable_by(k, by);
+        v.truncate(k);
+    }
+    v.sort_by(by);
+    v.into_iter().map(|j| (j, dist[j])).collect()
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -358,5 +396,32 @@ mod tests {
         // One example against the background still gives a model.
         let bg = background(q.items(), &[1].into(), 50, 3);
         assert!(train(&q, &[1], &bg, 1.0).is_ok());
+    }
+
+    #[test]
+    fn the_closest_items_are_those_of_an_exact_search_over_the_decoded_rows() {
+        let q = data();
+        let got = closest(&q, 17, 25);
+        let mut want: Vec<(usize, f64)> = (0..q.items())
+            .filter(|&j| j != 17)
+            .map(|j| {
+                let (a, b) = (q.row(17), q.row(j));
+                (j, a.iter().zip(&b).map(|(x, y)| (x - y) * (x - y)).sum())
+            })
+            .collect();
+        want.sort_by(|a, b| a.1.total_cmp(&b.1).then(a.0.cmp(&b.0)));
+        assert_eq!(got.len(), 25);
+        for ((j, dj), (w, dw)) in got.iter().zip(&want) {
+            assert!(
+                (*dj as f64 - dw).abs() < 1e-5 * (1.0 + dw),
+                "{j} {dj} vs {w} {dw}"
+            );
+        }
+        // The same distances in the same order (the items may differ only among equal distances).
+        let far = want[24].1;
+        assert!(got
+            .iter()
+            .all(|(j, _)| want.iter().any(|(w, d)| w == j && *d <= far + 1e-9)));
+        assert!(closest(&q, 500, 3).is_empty());
     }
 }

@@ -92,6 +92,7 @@ mod share;
 mod store;
 mod timeline_strip;
 mod tray;
+mod vectors;
 
 thread_local! {
     static APP: RefCell<Option<Rc<RefCell<App>>>> = const { RefCell::new(None) };
@@ -810,6 +811,9 @@ fn open_card(i: Option<usize>) {
         }
         let _ = card.append_child(&ol);
     }
+    if let Some(s) = closest_section(&a, i) {
+        let _ = card.append_child(&s);
+    }
     card.set_hidden(false);
     set_state("card", a.atlas.id(i));
     drop(a);
@@ -819,6 +823,79 @@ fn open_card(i: Option<usize>) {
         focus_card();
     }
     request_frame();
+}
+
+/// Items shown in the record card's strip of the closest over the whole collection.
+const CLOSEST: usize = 100;
+
+thread_local! {
+    /// The last card's closest items (a card is drawn again as its picture and lists arrive).
+    static CLOSEST_OF: RefCell<Option<(usize, Vec<usize>)>> = const { RefCell::new(None) };
+}
+
+/// The record card's strip of the items closest to item `i` over the whole collection, by every
+/// item's compressed vector (fetched on first use, with its progress); None when the atlas keeps
+/// no vectors.
+fn closest_section(a: &App, i: usize) -> Option<web_sys::Element> {
+    let total = a.atlas.manifest.vectors.as_ref()?;
+    let mb = total.chunks.iter().map(|c| c.bytes).sum::<u64>() as f64 / 1e6;
+    let sec = coding::el("section", "closest", "");
+    let _ = sec.append_child(&coding::el("h3", "", "Closest in the whole collection"));
+    let redraw = move || {
+        if app().is_some_and(|a| a.borrow().open == Some(i)) {
+            open_card(Some(i));
+        }
+    };
+    match vectors::ready() {
+        None => {
+            if let Some(line) = vectors::status() {
+                let p = coding::el("p", "pending", &line);
+                let _ = sec.append_child(&p);
+            } else {
+                let b = coding::button(
+                    "Find them",
+                    &format!(
+                        "Compares this item with every other by their compressed vectors (fetches {mb:.0} MB once)"
+                    ),
+                    move || vectors::fetch(redraw),
+                );
+                b.set_id("closest-button");
+                let _ = sec.append_child(&b);
+            }
+        }
+        Some(q) => {
+            let list = CLOSEST_OF.with(|c| {
+                let mut c = c.borrow_mut();
+                match &*c {
+                    Some((j, l)) if *j == i => l.clone(),
+                    _ => {
+                        let l: Vec<usize> = vitrine_corpus::grow::closest(&q, i, CLOSEST)
+                            .into_iter()
+                            .map(|(j, _)| j)
+                            .collect();
+                        *c = Some((i, l.clone()));
+                        l
+                    }
+                }
+            });
+            let strip = coding::el("div", "closest-strip", "");
+            let _ = strip.set_attribute("role", "list");
+            let dpr = web_sys::window().map_or(1.0, |w| w.device_pixel_ratio());
+            for j in list {
+                let tile = coding::el("div", "tile", "");
+                let _ = tile.set_attribute("role", "listitem");
+                let pic = tray::picture_button(a, j, dpr);
+                let _ = pic.set_attribute("data-id", a.atlas.id(j));
+                listen(&pic, "click", true, move |_e: web_sys::MouseEvent| {
+                    open_card(Some(j))
+                });
+                let _ = tile.append_child(&pic);
+                let _ = strip.append_child(&tile);
+            }
+            let _ = sec.append_child(&strip);
+        }
+    }
+    Some(sec)
 }
 
 /// Gives the keyboard's focus to the open record card (its heading).

@@ -84,29 +84,7 @@ pub fn render() {
         let style = tile.style();
         let _ = style.set_property("left", &format!("{:.1}px", (k % cols) as f64 * pitch_x));
         let _ = style.set_property("top", &format!("{}px", (k / cols) as f64 * PITCH));
-        let pic: HtmlElement = doc.create_element("button").unwrap().dyn_into().unwrap();
-        pic.set_class_name("pic");
-        pic.set_title(&label);
-        let _ = pic.set_attribute("aria-label", &format!("Open the record of {label}"));
-        let ps = pic.style();
-        let c = a.atlas.colours[i];
-        let _ = ps.set_property(
-            "background-color",
-            &format!("rgb({},{},{})", c[0], c[1], c[2]),
-        );
-        if let Some(sp) = layout::sprite(&a.sheets, i, a.atlas.extents[i], dpr) {
-            let url = sp.url.replace('"', "%22");
-            let _ = ps.set_property("background-image", &format!("url(\"{url}\")"));
-            let _ = ps.set_property("background-size", &format!("{:.2}px auto", sp.sheet_w));
-            let _ = ps.set_property(
-                "background-position",
-                &format!("{:.2}px {:.2}px", -sp.at[0], -sp.at[1]),
-            );
-            let _ = ps.set_property("width", &format!("{:.2}px", sp.size[0]));
-            let _ = ps.set_property("height", &format!("{:.2}px", sp.size[1]));
-            let _ = ps.set_property("left", &format!("{:.2}px", sp.offset[0]));
-            let _ = ps.set_property("top", &format!("{:.2}px", sp.offset[1]));
-        }
+        let pic = picture_button(&a, i, dpr);
         let remove: HtmlElement = doc.create_element("button").unwrap().dyn_into().unwrap();
         remove.set_class_name("remove");
         remove.set_text_content(Some("×"));
@@ -120,6 +98,40 @@ pub fn render() {
     if let Some(item) = focused {
         focus_pic(&item);
     }
+}
+
+/// A button showing item `i`'s picture at tile size (its colour until the sheet is here),
+/// named for opening its record.
+pub fn picture_button(a: &App, i: usize, dpr: f64) -> HtmlElement {
+    let label = a.atlas.label(i);
+    let pic: HtmlElement = document()
+        .create_element("button")
+        .unwrap()
+        .dyn_into()
+        .unwrap();
+    pic.set_class_name("pic");
+    pic.set_title(&label);
+    let _ = pic.set_attribute("aria-label", &format!("Open the record of {label}"));
+    let ps = pic.style();
+    let c = a.atlas.colours[i];
+    let _ = ps.set_property(
+        "background-color",
+        &format!("rgb({},{},{})", c[0], c[1], c[2]),
+    );
+    if let Some(sp) = layout::sprite(&a.sheets, i, a.atlas.extents[i], dpr) {
+        let url = sp.url.replace('"', "%22");
+        let _ = ps.set_property("background-image", &format!("url(\"{url}\")"));
+        let _ = ps.set_property("background-size", &format!("{:.2}px auto", sp.sheet_w));
+        let _ = ps.set_property(
+            "background-position",
+            &format!("{:.2}px {:.2}px", -sp.at[0], -sp.at[1]),
+        );
+        let _ = ps.set_property("width", &format!("{:.2}px", sp.size[0]));
+        let _ = ps.set_property("height", &format!("{:.2}px", sp.size[1]));
+        let _ = ps.set_property("left", &format!("{:.2}px", sp.offset[0]));
+        let _ = ps.set_property("top", &format!("{:.2}px", sp.offset[1]));
+    }
+    pic
 }
 
 /// Gives the keyboard focus to the picture of item `item`'s tile, if it is drawn.
