@@ -113,7 +113,7 @@ pub fn by_field(c: &FieldColumn, n: usize) -> (Vec<[u8; 4]>, Legend) {
     }
 }
 
-fn ramped(vals: &[f64], missing: impl Fn(f64) -> bool) -> (Vec<[u8; 4]>, Legend) {
+pub fn ramped(vals: &[f64], missing: impl Fn(f64) -> bool) -> (Vec<[u8; 4]>, Legend) {
     let mut sorted: Vec<f64> = vals.iter().copied().filter(|&x| !missing(x)).collect();
     sorted.sort_by(f64::total_cmp);
     let at = |q: f64| -> f64 {

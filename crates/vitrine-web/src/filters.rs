@@ -668,6 +668,30 @@ pub fn colour_by(k: Option<usize>) {
     select::refresh();
 }
 
+/// Colours the marks by `values` (one per item; NaN: none) on the ramp, with a legend named
+/// `name`; the colour menu shows `menu` (an option it holds).
+pub fn colour_by_values(values: &[f64], name: &str, menu: &str) {
+    let Some(app) = app() else { return };
+    let legend = {
+        let mut a = app.borrow_mut();
+        if a.picture_colours.is_none() {
+            a.picture_colours = Some(a.atlas.colours.clone());
+        }
+        let (cols, legend) = vitrine_view::colour::ramped(values, |x| x.is_nan());
+        a.atlas.colours = cols;
+        legend
+    };
+    if let Some(sel) = document()
+        .get_element_by_id("colour-choice")
+        .and_then(|e| e.dyn_into::<web_sys::HtmlSelectElement>().ok())
+    {
+        sel.set_value(menu);
+    }
+    set_state("colour", name);
+    show_legend(Some((name.to_string(), legend)));
+    select::refresh();
+}
+
 fn show_legend(legend: Option<(String, vitrine_view::colour::Legend)>) {
     use vitrine_view::colour::{Legend, OTHER};
     let Some(box_) = by_id("legend") else { return };
@@ -756,6 +780,9 @@ pub fn install_colour_menu() {
     drop(a);
     let s2 = sel.clone();
     listen(&sel, "change", true, move |_e: web_sys::Event| {
+        if s2.value() == "grow" {
+            return crate::grow::colour_map();
+        }
         colour_by(s2.value().parse::<usize>().ok());
     });
 }

@@ -14,6 +14,7 @@ use wasm_bindgen::JsCast;
 use wasm_bindgen_futures::JsFuture;
 use web_sys::{Document, HtmlCanvasElement, HtmlElement};
 
+use vitrine_corpus::corpus::{Op, Shape, Step};
 use vitrine_view::atlas::AtlasData;
 use vitrine_view::camera::Camera;
 use vitrine_view::gpu::Presenter;
@@ -86,6 +87,7 @@ mod bulk;
 mod coding;
 mod filters;
 mod gl_present;
+mod grow;
 mod measure;
 mod select;
 mod share;
@@ -782,6 +784,9 @@ fn open_card(i: Option<usize>) {
         let _ = dl.append_child(&dd);
     }
     let _ = card.append_child(&dl);
+    if a.atlas.manifest.vectors.is_some() {
+        let _ = card.append_child(&grow::card_marks(i));
+    }
     if let Some(codes) = coding::card_codes(&a, i) {
         let _ = card.append_child(&codes);
     }
@@ -1175,7 +1180,7 @@ fn escape() {
     if coding::escape() {
         return;
     }
-    if measure::close() || bulk::close() {
+    if measure::close() || bulk::close() || grow::close() {
         return;
     }
     let selecting = app().is_some_and(|a| a.borrow().mode != Mode::Move);
@@ -1363,6 +1368,10 @@ fn install_events(canvas: &HtmlCanvasElement) {
                 return;
             }
             let key = e.key();
+            if !e.ctrl_key() && !e.alt_key() && !e.meta_key() && grow::key(&key) {
+                e.prevent_default();
+                return;
+            }
             let press = KeyPress {
                 key: &key,
                 shift: e.shift_key(),
@@ -1584,6 +1593,7 @@ async fn load(base: String) -> Result<(), String> {
     coding::install();
     measure::install();
     bulk::install();
+    grow::install();
     if let Some(l) = by_id("loading") {
         l.set_hidden(true);
     }
@@ -1763,6 +1773,20 @@ pub fn pan_view(dx: f64, dy: f64) {
 
 /// Centres the view on the item with this id at `factor` times the fitted zoom, and draws at once.
 /// Returns false when there is no such item.
+/// For tests and scripts: opens the record card of the item with this id (false when none has it).
+#[wasm_bindgen]
+pub fn open_record(id: &str) -> bool {
+    let Some(app) = app() else { return false };
+    let found = {
+        let a = app.borrow();
+        (0..a.atlas.n).find(|&i| a.atlas.id(i) == id)
+    };
+    if found.is_some() {
+        open_card(found);
+    }
+    found.is_some()
+}
+
 #[wasm_bindgen]
 pub fn focus_item(id: &str, factor: f64) -> bool {
     let Some(app) = app() else { return false };

@@ -188,6 +188,7 @@ pub fn refresh() {
     let Some(app) = app() else { return };
     super::measure::corpus_changed();
     super::bulk::corpus_changed();
+    super::grow::corpus_changed();
     let state = app.borrow_mut().corpus_changed();
     show_figures(state.figures.as_ref());
     let (count, corpus, history, any) = (
@@ -397,7 +398,7 @@ pub fn export(kind: &str) {
                 codebook: a.coding.book.clone(),
                 codes: a.coding.codes.clone(),
                 cleared: a.coding.clearings(),
-                grow: vec![],
+                grow: super::grow::rounds(),
             };
             (
                 format!("{stem}.corpus.json"),

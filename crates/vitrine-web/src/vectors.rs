@@ -120,6 +120,35 @@ pub fn bench_closest(i: usize, k: usize) -> f64 {
     }
 }
 
+/// For the bench: the closest `k` to one item over `n` made-up items of `dims` bytes (seeded
+/// noise), in milliseconds: the search's cost at a size and width the atlas at hand may not have.
+#[wasm_bindgen]
+pub fn bench_closest_synthetic(n: usize, dims: usize, k: usize) -> f64 {
+    let mut state = 0x1234_5678_9ABC_DEF0u64;
+    let bytes: Vec<u8> = (0..n * dims)
+        .map(|_| {
+            state ^= state << 13;
+            state ^= state >> 7;
+            state ^= state << 17;
+            (state >> 24) as u8
+        })
+        .collect();
+    let q = Q8 {
+        dims,
+        offset: vec![0.0; dims],
+        scale: (0..dims).map(|j| 1.0 / (1.0 + j as f32)).collect(),
+        bytes,
+    };
+    let t0 = js_sys::Date::now();
+    let got = vitrine_corpus::grow::closest(&q, n / 2, k);
+    let ms = js_sys::Date::now() - t0;
+    if got.len() == k {
+        ms
+    } else {
+        f64::NAN
+    }
+}
+
 /// For the bench and the tests: starts fetching the vectors.
 #[wasm_bindgen]
 pub fn load_vectors() {
