@@ -179,6 +179,8 @@ def main():
                  m.get("closest"), 150),
                 ("hard: the 100 closest over 1,000,000 items of 64 bytes (median, max)",
                  m.get("closest_wide"), 150),
+                ("a round of growing: train on 3 + 200, score every item, best 40 (median, max)",
+                 m.get("growing"), 1000),
             ]:
                 if med_worst is None:
                     continue

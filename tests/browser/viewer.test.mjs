@@ -1081,6 +1081,14 @@ test("growing from examples: three marked in record cards, a model trained on th
   const ranked = readCsv(fs.readFileSync(path.join(dir, "scores.csv"), "utf8"))
     .filter((r) => r.mark !== "like" && r.mark !== "not").map((r) => r.id);
   assert.deepEqual(ranked.slice(0, 20).sort(), candidates.slice(0, 20).sort());
+  // The corpus file opened in a fresh page brings the marks back, to go on growing.
+  const fresh = await newPage(url);
+  await fresh.page.waitForFunction(() => document.body.dataset.state === "ready", null, { timeout: 60000 });
+  await fresh.page.setInputFiles("#open-corpus", file);
+  await fresh.page.waitForFunction(() => document.body.dataset.growMarks === "3,0");
+  await fresh.page.waitForFunction(() => document.querySelector("#tray-count")?.textContent === "20");
+  assert.deepEqual(fresh.errors, []);
+  await fresh.page.close();
   assert.deepEqual(errors, []);
 });
 

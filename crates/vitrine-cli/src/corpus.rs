@@ -388,6 +388,28 @@ pub fn run(a: CorpusArgs) -> Result<()> {
     Ok(())
 }
 
+/// A corpus file replayed on its own atlas must give the items it lists.
+fn check_listed(
+    c: &CorpusFile,
+    manifest_sha: &str,
+    mask: &vitrine_corpus::mask::Mask,
+    ids: &vitrine_format::TextTable,
+) -> Result<()> {
+    if c.atlas.manifest_sha256 != manifest_sha {
+        return Ok(());
+    }
+    let listed: Vec<&str> = c.ids.iter().map(|s| s.as_str()).collect();
+    let got: Vec<&str> = mask.items().map(|i| ids.get(i)).collect();
+    if listed != got {
+        bail!(
+            "the corpus file lists {} items, but its steps and filters give {} on the same atlas",
+            listed.len(),
+            got.len()
+        );
+    }
+    Ok(())
+}
+
 /// Makes the corpus `a` describes and writes the files it asks for.
 pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
     let atlas_dir = a.atlas.as_path();
@@ -447,7 +469,7 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
     let mut filters = from.as_ref().map(|c| c.filters.clone()).unwrap_or_default();
     let extra_steps = steps_from_args(a, !steps.is_empty())?;
     let extra_filters = filters_from_args(a, &atlas)?;
-    let mut changed = !extra_steps.is_empty() || !extra_filters.is_empty();
+    let changed = !extra_steps.is_empty() || !extra_filters.is_empty();
     steps.extend(extra_steps);
     filters.extend(extra_filters);
     if let (Some(given), Some(c), Some(p)) = (&a.map, &from, &a.from) {
@@ -518,21 +540,18 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
         near: None,
     };
     let mut mask = corpus_mask(&steps, &filters, &cols, &at)?;
-    // Growing: a new round of marks, trained with the last round's settings on the atlas's
-    // compressed vectors; its best candidates accepted into the corpus when asked.
+    if let (Some(c), false) = (&from, changed) {
+        check_listed(c, &manifest_sha, &mask, &ids)?;
+    }
+    // Growing: a new round (every mark so far, and these), trained on the atlas's compressed
+    // vectors; its best candidates accepted into the corpus when asked.
     let mut rounds = from.as_ref().map(|c| c.grow.clone()).unwrap_or_default();
-    if !a.grow.like.is_empty() {
-        rounds.push(vitrine_corpus::grow::Round {
-            like: a.grow.like.clone(),
-            not: a.grow.not.clone(),
-            c: a.grow.c,
-            background: a.grow.background,
-            seed: a.grow.seed,
-            accepted: vec![],
-            rejected: vec![],
-        });
-    } else if !a.grow.not.is_empty() {
-        bail!("--not: give the items \"like these\" with --like too");
+    if !a.grow.like.is_empty() || !a.grow.not.is_empty() {
+        let next = a.grow.next_round(rounds.last())?;
+        if next.like.is_empty() {
+            bail!("--not: give the items \"like these\" with --like too");
+        }
+        rounds.push(next);
     }
     let mut grown = None;
     if a.grow.wanted() {
@@ -542,12 +561,19 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
         let q = crate::grow::read_q8(&atlas)?;
         let t = crate::grow::train(&q, round, &index_of)?;
         if let Some(k) = a.grow.accept_top {
-            // Candidates: unmarked items not yet chosen (with nothing chosen, the corpus is not
-            // yet grown: every unmarked item is one).
-            let chosen = !steps.is_empty();
+            // Candidates: unmarked items not yet chosen by the steps (filters aside, as in the
+            // viewer; with nothing chosen, every unmarked item is one).
+            let chosen = if steps.is_empty() {
+                None
+            } else {
+                Some(corpus_mask(&steps, &[], &cols, &at)?)
+            };
             let top = vitrine_corpus::grow::candidates(
                 &t.scores,
-                &|i| (chosen && mask.get(i)) || t.mark.get(&i).is_some_and(|m| *m != "background"),
+                &|i| {
+                    chosen.as_ref().is_some_and(|m| m.get(i))
+                        || t.mark.get(&i).is_some_and(|m| *m != "background")
+                },
                 k,
             );
             let accepted: Vec<String> = top.iter().map(|&i| ids.get(i).to_string()).collect();
@@ -561,7 +587,6 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
                     op: Op::Add,
                     shape: Shape::Ids(accepted.clone()),
                 });
-                changed = true;
                 mask = corpus_mask(&steps, &filters, &cols, &at)?;
             }
             rounds.last_mut().unwrap().accepted.extend(accepted);
@@ -569,18 +594,6 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
         grown = Some(t);
     }
     let items: Vec<usize> = mask.items().collect();
-    if let (Some(c), false) = (&from, changed) {
-        let same_atlas = c.atlas.manifest_sha256 == manifest_sha;
-        let listed: Vec<&str> = c.ids.iter().map(|s| s.as_str()).collect();
-        let got: Vec<&str> = items.iter().map(|&i| ids.get(i)).collect();
-        if same_atlas && listed != got {
-            bail!(
-                "the corpus file lists {} items, but its steps and filters give {} on the same atlas",
-                listed.len(),
-                got.len()
-            );
-        }
-    }
     let description = describe(&map_name, &steps, &filters);
     let time = a.time.clone().unwrap_or_else(|| {
         let secs = std::time::SystemTime::now()

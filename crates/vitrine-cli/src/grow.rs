@@ -20,14 +20,16 @@ pub struct GrowArgs {
     #[arg(long, value_delimiter = ',')]
     pub not: Vec<String>,
     /// The model's C: the inverse of its penalty's strength (larger fits the marks more closely).
-    #[arg(long = "grow-c", default_value_t = 1.0)]
-    pub c: f64,
-    /// Unmarked items drawn at random as "not these" besides the marked ones.
-    #[arg(long = "grow-background", default_value_t = 200)]
-    pub background: usize,
-    /// The seed of the background draw.
-    #[arg(long = "grow-seed", default_value_t = 1)]
-    pub seed: u64,
+    /// [default: the last round's, else 1]
+    #[arg(long = "grow-c")]
+    pub c: Option<f64>,
+    /// Unmarked items drawn at random as "not these" besides the marked ones (at most 10,000).
+    /// [default: the last round's, else 200]
+    #[arg(long = "grow-background")]
+    pub background: Option<usize>,
+    /// The seed of the background draw. [default: the last round's, else 1]
+    #[arg(long = "grow-seed")]
+    pub seed: Option<u64>,
     /// Accept the N best candidates of the last round (unmarked items not yet in the corpus)
     /// into the corpus.
     #[arg(long = "accept-top", value_name = "N")]
@@ -41,6 +43,50 @@ pub struct GrowArgs {
 impl GrowArgs {
     pub fn wanted(&self) -> bool {
         !self.like.is_empty() || self.accept_top.is_some() || self.scores.is_some()
+    }
+
+    /// The next round: every mark so far (the last round's, its rejected items as "not these",
+    /// and these), with these settings or the last round's.
+    pub fn next_round(&self, last: Option<&Round>) -> Result<Round> {
+        let c = self.c.or(last.map(|r| r.c)).unwrap_or(1.0);
+        let background = self
+            .background
+            .or(last.map(|r| r.background))
+            .unwrap_or(200);
+        if background > grow::MAX_BACKGROUND {
+            bail!(
+                "--grow-background {background}: at most {} items",
+                grow::MAX_BACKGROUND
+            );
+        }
+        let mut like: Vec<String> = last.map_or(vec![], |r| r.like.clone());
+        let mut not: Vec<String> = last.map_or(vec![], |r| {
+            r.not.iter().chain(&r.rejected).cloned().collect()
+        });
+        for id in &self.like {
+            not.retain(|x| x != id);
+            if !like.contains(id) {
+                like.push(id.clone());
+            }
+        }
+        for id in &self.not {
+            if self.like.contains(id) {
+                bail!("--like and --not both name {id}");
+            }
+            like.retain(|x| x != id);
+            if !not.contains(id) {
+                not.push(id.clone());
+            }
+        }
+        Ok(Round {
+            like,
+            not,
+            c,
+            background,
+            seed: self.seed.or(last.map(|r| r.seed)).unwrap_or(1),
+            accepted: vec![],
+            rejected: vec![],
+        })
     }
 }
 

@@ -164,6 +164,23 @@ print(json.dumps({
     };
     assert_eq!(ids("grown.json"), ids("again.json"));
 
+    // The next round keeps every mark so far and the last round's settings.
+    let first = r["accepted"][0].as_str().unwrap().to_string();
+    corpus_notes(
+        d,
+        &["--from", "grown.json", "--not", &first, "--json", "r2.json"],
+    );
+    let r2: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(d.join("r2.json")).unwrap()).unwrap();
+    let (one, two) = (&r2["grow"][0], &r2["grow"][1]);
+    assert_eq!(two["like"], one["like"]);
+    assert_eq!(two["not"].as_array().unwrap().len(), 61);
+    assert_eq!(two["not"][60], first.as_str());
+    assert_eq!(
+        (two["c"].as_f64(), two["background"].as_u64()),
+        (Some(0.5), Some(0))
+    );
+
     // A few examples against drawn background items (seeded): the same draw on replay.
     corpus_notes(
         d,
@@ -204,4 +221,21 @@ print(json.dumps({
         ],
     );
     assert!(e.contains("not these"), "{e}");
+    let e = corpus_fails(
+        d,
+        &["--like", "d0003", "--not", "d0003", "--scores", "x.csv"],
+    );
+    assert!(e.contains("--like and --not both name d0003"), "{e}");
+    let e = corpus_fails(
+        d,
+        &[
+            "--like",
+            "d0003",
+            "--grow-background",
+            "20000",
+            "--scores",
+            "x.csv",
+        ],
+    );
+    assert!(e.contains("at most 10000"), "{e}");
 }

@@ -51,7 +51,7 @@ pub struct Round {
     /// The inverse of the penalty's strength (larger: a closer fit to the marks).
     pub c: f64,
     /// Unmarked items drawn at random (with `seed`) as "not these" besides the marked ones, so
-    /// that a few examples alone can train a model.
+    /// that a few examples alone can train a model (at most [`MAX_BACKGROUND`]).
     pub background: usize,
     pub seed: u64,
     /// Candidates accepted into the corpus after this round, best first.
@@ -61,6 +61,9 @@ pub struct Round {
     #[serde(default)]
     pub rejected: Vec<String>,
 }
+
+/// The most background items a round may draw (each is a row of the model's equations).
+pub const MAX_BACKGROUND: usize = 10_000;
 
 /// The trained model: `score = w . x + b` (above 0: more likely "like these").
 #[derive(Debug, Clone, PartialEq)]
@@ -74,7 +77,7 @@ pub struct Model {
 /// `count` unmarked items drawn at random with `seed` (none of `marked`), in increasing order.
 pub fn background(items: usize, marked: &HashSet<usize>, count: usize, seed: u64) -> Vec<usize> {
     let free = items.saturating_sub(marked.len());
-    let count = count.min(free);
+    let count = count.min(free).min(MAX_BACKGROUND);
     let mut state = seed ^ 0xA076_1D64_78BD_642F;
     let mut next = || {
         state = state.wrapping_add(0x9E37_79B9_7F4A_7C15);
@@ -163,6 +166,9 @@ pub fn train(q: &Q8, like: &[usize], not: &[usize], c: f64) -> Result<Model, Str
     if !(c.is_finite() && c > 0.0) {
         return Err(format!("C must be a positive number, not {c}"));
     }
+    if like.iter().any(|i| not.contains(i)) {
+        return Err("an item is marked both \"like these\" and \"not these\"".into());
+    }
     let d = q.dims;
     let rows: Vec<(Vec<f64>, f64)> = like
         .iter()
@@ -185,6 +191,7 @@ pub fn train(q: &Q8, like: &[usize], not: &[usize], c: f64) -> Result<Model, Str
     };
     let mut current = loss(&theta);
     let mut steps = 0;
+    let mut converged = false;
     for _ in 0..100 {
         let mut g = vec![0f64; p];
         let mut h = vec![0f64; p * p];
@@ -218,7 +225,8 @@ pub fn train(q: &Q8, like: &[usize], not: &[usize], c: f64) -> Result<Model, Str
         // every probability has saturated.
         h[d * p + d] += 1e-12;
         let gmax = g.iter().fold(0f64, |m, v| m.max(v.abs()));
-        if gmax < 1e-10 * (1.0 + c * rows.len() as f64) {
+        if gmax < 1e-9 * (1.0 + c * rows.len() as f64) {
+            converged = true;
             break;
         }
         let step = solve(h, &g).ok_or("the model's equations could not be solved")?;
@@ -227,14 +235,32 @@ pub fn train(q: &Q8, like: &[usize], not: &[usize], c: f64) -> Result<Model, Str
         loop {
             let next: Vec<f64> = theta.iter().zip(&step).map(|(a, s)| a - t * s).collect();
             let l = loss(&next);
-            if l <= current || t < 1e-8 {
+            if l <= current {
+                // A step too small to change the parameters any more: the optimum, to the
+                // precision of the arithmetic.
+                let moved = step.iter().fold(0f64, |m, v| m.max((t * v).abs()));
+                let size = next.iter().fold(1f64, |m, v| m.max(v.abs()));
+                converged = moved <= 1e-12 * size;
                 theta = next;
                 current = l;
+                break;
+            }
+            if t < 1e-8 {
+                // No step lowers the loss any more: the optimum, to the precision there is.
+                converged = true;
                 break;
             }
             t *= 0.5;
         }
         steps += 1;
+        if converged {
+            break;
+        }
+    }
+    if !converged {
+        return Err(format!(
+            "the model did not settle in {steps} steps (try a smaller C)"
+        ));
     }
     Ok(Model {
         w: theta[..d].to_vec(),
@@ -366,7 +392,7 @@ mod tests {
             }
             g[3] += r;
         }
-        assert!(g.iter().all(|v| v.abs() < 1e-8), "{g:?}");
+        assert!(g.iter().all(|v| v.abs() < 1e-7), "{g:?}");
         // Every unmarked item of the liked group scores above every unmarked one of the other.
         let s = scores(&q, &m);
         let top = candidates(&s, &|i| i < 40, 80);

@@ -654,6 +654,11 @@ impl Manifest {
         }
         if let Some(v) = &self.vectors {
             let (d, per) = (v.dims as u64, v.chunk_items as u64);
+            if v.offset.iter().chain(&v.scale).any(|x| !x.is_finite()) {
+                return Err(AtlasError::Inconsistent(
+                    "the browser's vectors have an offset or scale that is not a number".into(),
+                ));
+            }
             if d == 0 || v.offset.len() as u64 != d || v.scale.len() as u64 != d {
                 return Err(AtlasError::Inconsistent(format!(
                     "the browser's vectors have {d} dimensions but {} offsets and {} scales",
@@ -729,6 +734,9 @@ impl Manifest {
         }
         if let Some(c) = &self.clusters {
             v.push(&c.ids);
+        }
+        if let Some(b) = &self.vectors {
+            v.extend(&b.chunks);
         }
         v
     }

@@ -140,7 +140,7 @@ pub fn compress(
             (out, d, fit.explained(), pca::method())
         }
     };
-    // Ranges from the same evenly spread rows the directions were fitted on.
+    // Ranges from evenly spread rows (about as many as the directions are fitted on).
     let step = (n / pca::FIT_ROWS).max(1);
     let sample: Vec<f32> = (0..n)
         .step_by(step)

@@ -161,6 +161,12 @@ impl AtlasData {
             .chunks
             .iter()
             .flat_map(|c| [c.ids.file.as_str(), c.distances.file.as_str()])
+            // The compressed vectors too: fetched when a feature first needs them.
+            .chain(
+                m.vectors
+                    .iter()
+                    .flat_map(|v| v.chunks.iter().map(|c| c.file.as_str())),
+            )
             .collect();
         let mut seen = std::collections::BTreeMap::new();
         for r in m.arrays() {

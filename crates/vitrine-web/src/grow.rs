@@ -20,8 +20,8 @@ struct Grow {
     background: usize,
     seed: u64,
     rounds: Vec<Round>,
-    /// The last round's scores, and how long training and scoring took (ms).
-    scores: Option<(Rc<Vec<f32>>, f64)>,
+    /// The scores of round `.1` (its index in `rounds`), whose candidates the panel shows.
+    scores: Option<(Rc<Vec<f32>>, usize)>,
     note: String,
 }
 
@@ -47,6 +47,48 @@ thread_local! {
 /// The rounds so far, for the corpus file.
 pub fn rounds() -> Vec<Round> {
     GROW.with(|g| g.borrow().rounds.clone())
+}
+
+/// Takes over a corpus file's rounds: the marks of the last (its rejected items "not these"),
+/// its settings, and the rounds themselves to go on from. Ids this atlas lacks are left out of
+/// the marks (the rounds keep them).
+pub fn take_rounds(rounds: &[Round]) {
+    let Some(last) = rounds.last() else {
+        // A corpus not grown: this session's rounds and marks were of another.
+        GROW.with(|g| *g.borrow_mut() = Grow::default());
+        return counts_changed();
+    };
+    let Some(app) = app() else { return };
+    let (like, not) = {
+        let mut a = app.borrow_mut();
+        let Some(index) = a.viewer.index_of() else {
+            return;
+        };
+        let find = |id: &String| index.get(id.as_str()).copied();
+        let like: BTreeSet<usize> = last.like.iter().filter_map(find).collect();
+        let not: BTreeSet<usize> = last
+            .not
+            .iter()
+            .chain(&last.rejected)
+            .filter_map(find)
+            .collect();
+        (like, not)
+    };
+    GROW.with(|g| {
+        let mut g = g.borrow_mut();
+        g.like = like;
+        g.not = not;
+        g.c = last.c;
+        g.background = last.background;
+        g.seed = last.seed;
+        g.rounds = rounds.to_vec();
+        g.scores = None;
+        g.note = format!(
+            "{} rounds taken from the corpus file: train to see the candidates again.",
+            rounds.len()
+        );
+    });
+    counts_changed();
 }
 
 /// How item `i` is marked: "like", "not" or "".
@@ -85,6 +127,7 @@ pub fn toggle(i: usize, how: &str) {
 fn counts_changed() {
     let (l, n) = GROW.with(|g| (g.borrow().like.len(), g.borrow().not.len()));
     set_state("growMarks", &format!("{l},{n}"));
+    tray::render();
     if let Some(i) = app().and_then(|a| a.borrow().open) {
         open_card(Some(i));
     }
@@ -192,15 +235,21 @@ fn train() {
                     g.background,
                     ms
                 );
-                g.scores = Some((Rc::new(s), ms));
+                let k = g.rounds.len() - 1;
+                g.scores = Some((Rc::new(s), k));
                 Ok(())
             }
         }
     });
-    if let Err(e) = outcome {
-        GROW.with(|g| g.borrow_mut().note = format!("Not trained: {e}."));
+    match outcome {
+        // No scores stand for marks they were not trained on: the grid and the colours go.
+        Err(e) => GROW.with(|g| {
+            let mut g = g.borrow_mut();
+            g.note = format!("Not trained: {e}.");
+            g.scores = None;
+        }),
+        Ok(()) => colour_map(),
     }
-    colour_map();
     render();
 }
 
@@ -269,9 +318,13 @@ fn accept(items: Vec<usize>) {
         shape: Shape::Ids(ids.clone()),
     });
     match r {
+        // Recorded with the round whose candidates they were.
         Ok(()) => GROW.with(|g| {
-            if let Some(last) = g.borrow_mut().rounds.last_mut() {
-                last.accepted.extend(ids);
+            let mut g = g.borrow_mut();
+            if let Some(k) = g.scores.as_ref().map(|s| s.1) {
+                if let Some(r) = g.rounds.get_mut(k) {
+                    r.accepted.extend(ids);
+                }
             }
         }),
         Err(e) => select::note(&e),
@@ -286,8 +339,10 @@ fn reject(i: usize) {
     GROW.with(|g| {
         let mut g = g.borrow_mut();
         g.not.insert(i);
-        if let (Some(last), Some(id)) = (g.rounds.last_mut(), id) {
-            last.rejected.push(id);
+        g.like.remove(&i);
+        let k = g.scores.as_ref().map(|s| s.1);
+        if let (Some(r), Some(id)) = (k.and_then(|k| g.rounds.get_mut(k)), id) {
+            r.rejected.push(id);
         }
     });
     counts_changed();
@@ -368,13 +423,20 @@ fn render() {
     }
     let settings = el("div", "row", "");
     let _ = settings.append_child(&number_field("grow-c", "C ", format!("{c}"), |v| {
-        GROW.with(|g| g.borrow_mut().c = v)
+        if v.is_finite() && v > 0.0 {
+            GROW.with(|g| g.borrow_mut().c = v);
+        }
     }));
     let _ = settings.append_child(&number_field(
         "grow-background",
         "background items ",
         format!("{background}"),
-        |v| GROW.with(|g| g.borrow_mut().background = v.max(0.0) as usize),
+        |v| {
+            if v.is_finite() {
+                let n = v.clamp(0.0, grow::MAX_BACKGROUND as f64) as usize;
+                GROW.with(|g| g.borrow_mut().background = n);
+            }
+        },
     ));
     let b = button(
         "Train",
@@ -446,7 +508,10 @@ fn render() {
 
 /// A key on the record card's item: . marks it "like these", , "not these".
 pub fn key(k: &str) -> bool {
-    let Some(i) = app().and_then(|a| a.borrow().open) else {
+    let Some(i) = app()
+        .filter(|a| a.borrow().atlas.manifest.vectors.is_some())
+        .and_then(|a| a.borrow().open)
+    else {
         return false;
     };
     match k {

@@ -846,9 +846,10 @@ fn closest_section(a: &App, i: usize) -> Option<web_sys::Element> {
     let mb = total.chunks.iter().map(|c| c.bytes).sum::<u64>() as f64 / 1e6;
     let sec = coding::el("section", "closest", "");
     let _ = sec.append_child(&coding::el("h3", "", "Closest in the whole collection"));
-    let redraw = move || {
-        if app().is_some_and(|a| a.borrow().open == Some(i)) {
-            open_card(Some(i));
+    // Whichever card is open when a part arrives shows the progress, then the strip.
+    let redraw = || {
+        if let Some(o) = app().and_then(|a| a.borrow().open) {
+            open_card(Some(o));
         }
     };
     match vectors::ready() {
@@ -856,9 +857,14 @@ fn closest_section(a: &App, i: usize) -> Option<web_sys::Element> {
             if let Some(line) = vectors::status() {
                 let p = coding::el("p", "pending", &line);
                 let _ = sec.append_child(&p);
-            } else {
+            }
+            if vectors::status().is_none() || vectors::failed() {
                 let b = coding::button(
-                    "Find them",
+                    if vectors::failed() {
+                        "Try again"
+                    } else {
+                        "Find them"
+                    },
                     &format!(
                         "Compares this item with every other by their compressed vectors (fetches {mb:.0} MB once)"
                     ),
@@ -1771,8 +1777,6 @@ pub fn pan_view(dx: f64, dy: f64) {
     fetch_sheets(wanted);
 }
 
-/// Centres the view on the item with this id at `factor` times the fitted zoom, and draws at once.
-/// Returns false when there is no such item.
 /// For tests and scripts: opens the record card of the item with this id (false when none has it).
 #[wasm_bindgen]
 pub fn open_record(id: &str) -> bool {
@@ -1787,6 +1791,8 @@ pub fn open_record(id: &str) -> bool {
     found.is_some()
 }
 
+/// Centres the view on the item with this id at `factor` times the fitted zoom, and draws at once.
+/// Returns false when there is no such item.
 #[wasm_bindgen]
 pub fn focus_item(id: &str, factor: f64) -> bool {
     let Some(app) = app() else { return false };

@@ -134,6 +134,8 @@ pub fn open_file(text: String) {
     }
     // Its codes join those kept here (nothing a coder entered is replaced).
     let codes_note = super::coding::take_codes(&file);
+    // Its rounds of growing, and their marks, to go on from.
+    super::grow::take_rounds(&file.grow);
     let corpus = document()
         .body()
         .and_then(|b| b.dataset().get("corpus"))

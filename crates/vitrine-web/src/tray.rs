@@ -79,7 +79,11 @@ pub fn render() {
         let i = a.tray_items[k] as usize;
         let label = a.atlas.label(i);
         let tile: HtmlElement = doc.create_element("div").unwrap().dyn_into().unwrap();
-        tile.set_class_name("tile");
+        tile.set_class_name(match crate::grow::mark_of(i) {
+            "like" => "tile like",
+            "not" => "tile not",
+            _ => "tile",
+        });
         let _ = tile.dataset().set("item", &i.to_string());
         let style = tile.style();
         let _ = style.set_property("left", &format!("{:.1}px", (k % cols) as f64 * pitch_x));
@@ -212,6 +216,17 @@ pub fn install() {
         }
     });
     listen(&grid, "keydown", false, move |e: web_sys::KeyboardEvent| {
+        // . and , mark the tile's item "like these" and "not these" for growing the corpus.
+        if matches!(e.key().as_str(), "." | ",") {
+            if let Some((i, _)) = tile_of(&e) {
+                e.prevent_default();
+                e.stop_propagation();
+                // (Marking draws the grid again.)
+                crate::grow::toggle(i, if e.key() == "." { "like" } else { "not" });
+                focus_pic(&i.to_string());
+            }
+            return;
+        }
         if !matches!(e.key().as_str(), "Delete" | "Backspace") {
             return;
         }

@@ -14,6 +14,16 @@ enum State {
 
 thread_local! {
     static STATE: RefCell<State> = const { RefCell::new(State::Idle) };
+    /// What waits on the vectors: each runs after every part and once they are here.
+    static WAITING: RefCell<Vec<Rc<dyn Fn()>>> = RefCell::new(Vec::new());
+}
+
+/// Runs everything that waits on the vectors.
+fn tell() {
+    let all: Vec<Rc<dyn Fn()>> = WAITING.with(|w| w.borrow().clone());
+    for f in all {
+        f();
+    }
 }
 
 /// The vectors, when they are here.
@@ -50,8 +60,10 @@ pub fn status() -> Option<String> {
 }
 
 /// Starts fetching the vectors unless they are here or on their way; `then` runs (again) after
-/// every part and once they are here, so that what waits on them can show the progress.
+/// every part and once they are here (or failed), so that what waits on them can show the
+/// progress.
 pub fn fetch(then: impl Fn() + 'static) {
+    WAITING.with(|w| w.borrow_mut().push(Rc::new(then)));
     let start = STATE.with(|s| {
         let mut s = s.borrow_mut();
         match &*s {
@@ -69,7 +81,7 @@ pub fn fetch(then: impl Fn() + 'static) {
     let Some(v) = app.borrow().atlas.manifest.vectors.clone() else {
         STATE.with(|s| *s.borrow_mut() = State::Failed("the atlas keeps none".into()));
         set_state("vectors", "failed");
-        return then();
+        return finish();
     };
     let n = app.borrow().atlas.n;
     set_state("vectors", "loading");
@@ -78,7 +90,7 @@ pub fn fetch(then: impl Fn() + 'static) {
         let mut bytes = Vec::with_capacity(n * v.dims as usize);
         for (k, c) in v.chunks.iter().enumerate() {
             STATE.with(|s| *s.borrow_mut() = State::Loading { done: k, parts });
-            then();
+            tell();
             let got = fetch_bytes(&c.file)
                 .await
                 .and_then(|b| c.verify(&b).map(|_| b).map_err(|e| e.to_string()));
@@ -87,7 +99,7 @@ pub fn fetch(then: impl Fn() + 'static) {
                 Err(e) => {
                     STATE.with(|s| *s.borrow_mut() = State::Failed(e));
                     set_state("vectors", "failed");
-                    return then();
+                    return finish();
                 }
             }
         }
@@ -99,8 +111,21 @@ pub fn fetch(then: impl Fn() + 'static) {
         };
         STATE.with(|s| *s.borrow_mut() = State::Ready(Rc::new(q)));
         set_state("vectors", "ready");
-        then();
+        finish();
     });
+}
+
+/// The fetch is over: what waited hears of it once more and waits no longer.
+fn finish() {
+    let all: Vec<Rc<dyn Fn()>> = WAITING.with(|w| std::mem::take(&mut *w.borrow_mut()));
+    for f in all {
+        f();
+    }
+}
+
+/// Whether the last fetch failed (the card offers to try again).
+pub fn failed() -> bool {
+    STATE.with(|s| matches!(&*s.borrow(), State::Failed(_)))
 }
 
 /// For the bench: the closest `k` items to item `i` over every item, in milliseconds (NaN
@@ -143,6 +168,32 @@ pub fn bench_closest_synthetic(n: usize, dims: usize, k: usize) -> f64 {
     let got = vitrine_corpus::grow::closest(&q, n / 2, k);
     let ms = js_sys::Date::now() - t0;
     if got.len() == k {
+        ms
+    } else {
+        f64::NAN
+    }
+}
+
+/// For the bench: a round of growing — `like` items spread over the atlas as examples against
+/// 200 background items, trained, every item scored, the 40 best candidates found — in
+/// milliseconds (NaN while the vectors are not here).
+#[wasm_bindgen]
+pub fn bench_grow(like: usize) -> f64 {
+    let Some(q) = ready() else {
+        return f64::NAN;
+    };
+    let n = q.items();
+    let t0 = js_sys::Date::now();
+    let examples: Vec<usize> = (0..like.max(1)).map(|k| (k * 7919) % n.max(1)).collect();
+    let marked: std::collections::HashSet<usize> = examples.iter().copied().collect();
+    let bg = vitrine_corpus::grow::background(n, &marked, 200, 1);
+    let Ok(m) = vitrine_corpus::grow::train(&q, &examples, &bg, 1.0) else {
+        return f64::NAN;
+    };
+    let s = vitrine_corpus::grow::scores(&q, &m);
+    let top = vitrine_corpus::grow::candidates(&s, &|i| marked.contains(&i), 40);
+    let ms = js_sys::Date::now() - t0;
+    if top.len() == 40.min(n) {
         ms
     } else {
         f64::NAN
