@@ -325,25 +325,42 @@ pub fn closest(q: &Q8, i: usize, k: usize) -> Vec<(usize, f32)> {
             table[j * 256 + v] = (t * t) as f32;
         }
     }
-    let dist: Vec<f32> = q
-        .bytes
-        .chunks_exact(d)
-        .map(|r| {
-            let mut s = 0f32;
-            for (j, &v) in r.iter().enumerate() {
-                s += table[j * 256 + v as usize];
-            }
-            s
-        })
-        .collect();
-    let mut v: Vec<usize> = (0..dist.len()).filter(|&j| j != i).collect();
-    let by = |a: &usize, b: &usize| dist[*a].total_cmp(&dist[*b]).then(a.cmp(b));
-    if v.len() > k {
-        v.select_nth_unstable_by(k, by);
-        v.truncate(k);
+    // The k best so far in a heap, worst on top: no allocation the size of the collection.
+    #[derive(PartialEq)]
+    struct Near(f32, usize);
+    impl Eq for Near {}
+    impl PartialOrd for Near {
+        fn partial_cmp(&self, o: &Self) -> Option<std::cmp::Ordering> {
+            Some(self.cmp(o))
+        }
     }
-    v.sort_by(by);
-    v.into_iter().map(|j| (j, dist[j])).collect()
+    impl Ord for Near {
+        fn cmp(&self, o: &Self) -> std::cmp::Ordering {
+            self.0.total_cmp(&o.0).then(self.1.cmp(&o.1))
+        }
+    }
+    let mut heap = std::collections::BinaryHeap::with_capacity(k + 1);
+    for (j, r) in q.bytes.chunks_exact(d).enumerate() {
+        if j == i {
+            continue;
+        }
+        let mut s = 0f32;
+        for (t, &v) in table.chunks_exact(256).zip(r) {
+            s += t[v as usize];
+        }
+        if heap.len() < k {
+            heap.push(Near(s, j));
+        } else if let Some(top) = heap.peek() {
+            if Near(s, j) < *top {
+                heap.pop();
+                heap.push(Near(s, j));
+            }
+        }
+    }
+    heap.into_sorted_vec()
+        .into_iter()
+        .map(|Near(s, j)| (j, s))
+        .collect()
 }
 
 #[cfg(test)]
