@@ -759,3 +759,40 @@ fn in_atlas_order(order: &[usize], pos: &[[f32; 2]]) -> (Vec<f32>, [f32; 4]) {
     }
     (xy, b)
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn browser_vectors_cross_a_chunk_boundary_in_atlas_order() {
+        // One item more than a chunk holds, 3 bytes an item; atlas order reverses the input.
+        let n = VECTOR_CHUNK_ITEMS as usize + 1;
+        let codes: Vec<u8> = (0..n * 3).map(|k| (k % 251) as u8).collect();
+        let v = vitrine_map::compress::Compressed {
+            dims: 3,
+            offset: vec![0.0; 3],
+            scale: vec![1.0; 3],
+            codes: codes.clone(),
+            explained_variance: 1.0,
+            method: String::new(),
+        };
+        let order: Vec<usize> = (0..n).rev().collect();
+        let mut w = ArrayWriter { files: Vec::new() };
+        let b = browser_vectors(&mut w, &v, &order);
+        assert_eq!(b.chunks.len(), 2);
+        assert_eq!(
+            (b.chunks[0].count, b.chunks[1].count),
+            ((n as u64 - 1) * 3, 3)
+        );
+        assert_eq!(b.chunks[1].file, "arrays/vectors/q8-0001.bin");
+        // The last chunk's one item is the input's first row; the first chunk starts with the last.
+        let bytes = |k: usize| &w.files[k].1;
+        assert_eq!(&bytes(1)[..], &codes[..3]);
+        assert_eq!(&bytes(0)[..3], &codes[(n - 1) * 3..]);
+        for c in &b.chunks {
+            let data = &w.files.iter().find(|f| f.0 == c.file).unwrap().1;
+            c.verify(data).unwrap();
+        }
+    }
+}
