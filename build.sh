@@ -30,10 +30,11 @@ setup() {
   # numpy and scikit-learn are the outside references of the tests; umap-learn gives the method's a, b fit;
   # Pillow writes and decodes the reference images, scikit-image ships sample photographs; shapely
   # decides point-in-lasso for the corpus tests; krippendorff computes the agreement between coders,
-  # statsmodels the Wilson intervals (scipy, which scikit-learn brings, the chi-square test).
-  if [ ! -x "$CACHE/venv/bin/python" ] || ! "$CACHE/venv/bin/python" -c "import numpy, sklearn, umap, PIL, skimage, shapely, krippendorff, statsmodels, scipy" 2>/dev/null; then
+  # statsmodels the Wilson intervals (scipy, which scikit-learn brings, the chi-square test);
+  # imagehash the perceptual hash the copies are confirmed by.
+  if [ ! -x "$CACHE/venv/bin/python" ] || ! "$CACHE/venv/bin/python" -c "import numpy, sklearn, umap, PIL, skimage, shapely, krippendorff, statsmodels, scipy, imagehash" 2>/dev/null; then
     [ -x "$CACHE/venv/bin/python" ] || python3 -m venv "$CACHE/venv"
-    "$CACHE/venv/bin/pip" install --progress-bar on numpy scikit-learn umap-learn pillow scikit-image shapely krippendorff statsmodels scipy
+    "$CACHE/venv/bin/pip" install --progress-bar on numpy scikit-learn umap-learn pillow scikit-image shapely krippendorff statsmodels scipy imagehash
   fi
 }
 

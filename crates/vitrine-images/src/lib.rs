@@ -9,4 +9,5 @@
 
 pub mod cache;
 pub mod decode;
+pub mod phash;
 pub mod thumbs;
