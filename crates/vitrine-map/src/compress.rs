@@ -85,21 +85,19 @@ pub fn compress(
     seed: u64,
 ) -> Compressed {
     let n = vectors.rows;
-    // The projected rows (n x dims) and the fit's explained share, by one of two ways.
-    let (projected, dims, explained, method) = match projected_by.map(|fit| (vectors, fit)) {
-        Some((m, fit)) if m.cols > 0 => {
-            let d = dims.min(m.cols);
+    // How a row is projected (into `out`, `dims` values), by one of two ways, and what the
+    // kept components hold of the variance.
+    enum Way {
+        /// The build's own projection: its first columns.
+        Reuse,
+        Fit(Pca),
+    }
+    let (way, dims, explained, method) = match projected_by {
+        Some(fit) if vectors.cols > 0 => {
+            let d = dims.min(vectors.cols);
             let explained: f64 = fit.explained_variance_ratio.iter().take(d).sum();
-            let mut out = vec![0f32; n * d];
-            out.par_chunks_mut(d * BLOCK)
-                .enumerate()
-                .for_each(|(b, block)| {
-                    for (k, o) in block.chunks_mut(d).enumerate() {
-                        o.copy_from_slice(&m.row(b * BLOCK + k)[..d]);
-                    }
-                });
             (
-                out,
+                Way::Reuse,
                 d,
                 explained,
                 "the build's PCA pre-reduction".to_string(),
@@ -120,42 +118,49 @@ pub fn compress(
                     .collect(),
             };
             let fit = pca::fit(&fit_rows, dims, seed);
-            let d = fit.components.len();
-            let mut out = vec![0f32; n * d];
-            out.par_chunks_mut(d.max(1) * BLOCK)
-                .enumerate()
-                .for_each(|(b, block)| {
-                    let mut centred = vec![0f64; vectors.cols];
-                    for (k, o) in block.chunks_mut(d.max(1)).enumerate() {
-                        let row = prepared_row(vectors.row(b * BLOCK + k), metric);
-                        for (c, (&x, mu)) in centred.iter_mut().zip(row.iter().zip(&fit.mean)) {
-                            *c = x as f64 - mu;
-                        }
-                        for (slot, comp) in o.iter_mut().zip(&fit.components) {
-                            *slot =
-                                centred.iter().zip(comp).map(|(a, b)| a * b).sum::<f64>() as f32;
-                        }
-                    }
-                });
-            (out, d, fit.explained(), pca::method())
+            let (d, e) = (fit.components.len(), fit.explained());
+            (Way::Fit(fit), d, e, pca::method())
         }
     };
-    // Ranges from evenly spread rows (about as many as the directions are fitted on).
+    let project = |i: usize, centred: &mut Vec<f64>, out: &mut [f32]| match &way {
+        Way::Reuse => out.copy_from_slice(&vectors.row(i)[..dims]),
+        Way::Fit(fit) => {
+            let row = prepared_row(vectors.row(i), metric);
+            centred.resize(vectors.cols, 0.0);
+            for (c, (&x, mu)) in centred.iter_mut().zip(row.iter().zip(&fit.mean)) {
+                *c = x as f64 - mu;
+            }
+            for (slot, comp) in out.iter_mut().zip(&fit.components) {
+                *slot = centred.iter().zip(comp).map(|(a, b)| a * b).sum::<f64>() as f32;
+            }
+        }
+    };
+    // Ranges from evenly spread rows (about as many as the directions are fitted on), projected
+    // first; then every row projected and quantised block by block: no projection of the whole
+    // collection is ever held.
     let step = (n / pca::FIT_ROWS).max(1);
-    let sample: Vec<f32> = (0..n)
-        .step_by(step)
-        .flat_map(|i| projected[i * dims..(i + 1) * dims].iter().copied())
-        .collect();
+    let picked: Vec<usize> = (0..n).step_by(step).collect();
+    let mut sample = vec![0f32; picked.len() * dims];
+    sample
+        .par_chunks_mut(dims.max(1))
+        .zip(&picked)
+        .for_each_init(Vec::new, |centred, (out, &i)| project(i, centred, out));
     let (offset, scale) = ranges(&sample, dims);
-    let codes: Vec<u8> = projected
-        .par_chunks(dims.max(1))
-        .flat_map_iter(|row| {
-            row.iter()
-                .zip(offset.iter().zip(&scale))
-                .map(|(&x, (&o, &s))| quantise(x, o, s))
-                .collect::<Vec<_>>()
-        })
-        .collect();
+    let mut codes = vec![0u8; n * dims];
+    codes
+        .par_chunks_mut(dims.max(1) * BLOCK)
+        .enumerate()
+        .for_each(|(b, block)| {
+            let (mut centred, mut row) = (Vec::new(), vec![0f32; dims]);
+            for (k, q) in block.chunks_mut(dims.max(1)).enumerate() {
+                project(b * BLOCK + k, &mut centred, &mut row);
+                for (slot, (&x, (&o, &s))) in
+                    q.iter_mut().zip(row.iter().zip(offset.iter().zip(&scale)))
+                {
+                    *slot = quantise(x, o, s);
+                }
+            }
+        });
     Compressed {
         dims,
         offset,
