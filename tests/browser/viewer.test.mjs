@@ -239,6 +239,11 @@ test("the demo atlas loads on software WebGL, draws marks, then thumbnails, and 
   // The card's neighbour list arrives with its chunk: k = 15 neighbours, one chunk fetched.
   await page.waitForFunction(() => document.querySelectorAll("#card ol.neighbours li").length === 15);
   assert.equal((await chunkUrls()).length, 1);
+  // Its links in the neighbour graph are drawn on the map: a line to each neighbour, from the item.
+  await page.waitForFunction(() => document.body.dataset.links === "15");
+  const lines = await page.locator("#links line").evaluateAll((ls) => ls.map((l) => [l.x1.baseVal.value, l.y1.baseVal.value]));
+  assert.equal(lines.length, 15);
+  assert.ok(lines.every(([lx, ly]) => Math.abs(lx - x) < 1.5 && Math.abs(ly - y) < 1.5), "every link starts at the item");
   const card = await page.locator("#card").innerText();
   for (const [name, value] of Object.entries(record)) {
     if (value) assert.ok(card.includes(value), `record card lacks ${name} = ${value}`);

@@ -460,6 +460,7 @@ impl App {
         }
         self.update_axis();
         self.update_labels();
+        self.update_links();
         if self.key_sketch.is_some() {
             select::show_key_sketch(self);
         }
@@ -472,6 +473,43 @@ impl App {
             },
         );
         self.frame_ms[2] = now() - start;
+    }
+
+    /// The neighbour-graph links of the record card's item (else of the hovered one, when its
+    /// list is here) as lines over the map, from it to each of its neighbours; a neighbour's mark,
+    /// at a line's end, opens its card.
+    fn update_links(&mut self) {
+        // (An SVG element: not an HtmlElement.)
+        let Some(svg) = document().get_element_by_id("links") else {
+            return;
+        };
+        let focus = self.open.or(self.viewer.hover);
+        let links = focus.and_then(|i| self.atlas.neighbours_of(i).map(|nb| (i, nb)));
+        svg.set_text_content(None);
+        let Some((i, nb)) = links else {
+            let _ = svg.set_attribute("hidden", "");
+            set_state("links", "0");
+            return;
+        };
+        let css = css_per_px();
+        let at = |k: usize| {
+            let p = self.camera.to_screen(self.atlas.positions[k]);
+            (p[0] * css, p[1] * css)
+        };
+        let (x0, y0) = at(i);
+        let doc = document();
+        let ns = Some("http://www.w3.org/2000/svg");
+        for &j in &nb {
+            let (x1, y1) = at(j);
+            if let Ok(l) = doc.create_element_ns(ns, "line") {
+                for (k, v) in [("x1", x0), ("y1", y0), ("x2", x1), ("y2", y1)] {
+                    let _ = l.set_attribute(k, &format!("{v:.1}"));
+                }
+                let _ = svg.append_child(&l);
+            }
+        }
+        let _ = svg.remove_attribute("hidden");
+        set_state("links", &nb.len().to_string());
     }
 
     /// Year ticks along the bottom for maps whose x axis is a quantity (the timeline map).
