@@ -1056,6 +1056,18 @@ test("growing from examples: three marked in record cards, a model trained on th
     await page.waitForFunction(() => document.querySelector("#card-like")?.getAttribute("aria-pressed") === "true");
   }
   assert.equal(await page.evaluate(() => document.body.dataset.growMarks), "3,0");
+  // On the map, the key , marks the item under the pointer "not these" (a textile, far from them).
+  await page.keyboard.press("Escape");
+  const other = rows.find((r) => r.subject === "textile").id;
+  await page.evaluate((id) => window.vitrineView.focus_item(id, 8), other);
+  const [ox, oy] = await page.evaluate((id) => window.vitrineView.screen_position_of(id), other);
+  const mapBox = await page.locator("#map").boundingBox();
+  await page.mouse.move(mapBox.x + ox, mapBox.y + oy);
+  await page.waitForFunction((id) => document.body.dataset.hover === id, other);
+  await page.keyboard.press(",");
+  assert.equal(await page.evaluate(() => document.body.dataset.growMarks), "3,1");
+  assert.match(await page.locator("#select-note").innerText(), /not these \(3 like these, 1 not these/);
+  await page.evaluate((id) => window.vitrineView.open_record(id), examples[0]);
   await page.click("#card-grow");
   await page.click("#grow-train");
   await page.waitForFunction(() => document.body.dataset.growRounds === "1", null, { timeout: 60000 });
@@ -1078,6 +1090,7 @@ test("growing from examples: three marked in record cards, a model trained on th
   const saved = JSON.parse(fs.readFileSync(file, "utf8"));
   assert.deepEqual([...saved.grow[0].accepted].sort(), candidates.slice(0, 20).sort());
   assert.deepEqual([...saved.grow[0].like].sort(), [...examples].sort());
+  assert.deepEqual(saved.grow[0].not, [other]);
   assert.deepEqual([...saved.ids].sort(), candidates.slice(0, 20).sort());
   // Natively: the same items, and the round's model ranks the same twenty first.
   execFileSync(BIN, ["corpus", ATLAS, "--from", file, "--json", path.join(dir, "replay.json"), "--scores", path.join(dir, "scores.csv")]);
@@ -1090,7 +1103,7 @@ test("growing from examples: three marked in record cards, a model trained on th
   const fresh = await newPage(url);
   await fresh.page.waitForFunction(() => document.body.dataset.state === "ready", null, { timeout: 60000 });
   await fresh.page.setInputFiles("#open-corpus", file);
-  await fresh.page.waitForFunction(() => document.body.dataset.growMarks === "3,0");
+  await fresh.page.waitForFunction(() => document.body.dataset.growMarks === "3,1");
   await fresh.page.waitForFunction(() => document.querySelector("#tray-count")?.textContent === "20");
   assert.deepEqual(fresh.errors, []);
   await fresh.page.close();

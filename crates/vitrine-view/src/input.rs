@@ -156,7 +156,7 @@ pub const KEYS: &[(&str, &str)] = &[
     ("m", "the next map (similarity, lattice, timeline)"),
     ("click, or Enter", "open the record card of an item (Enter: the one nearest the centre of the view)"),
     ("n, Backspace", "in a record card: walk to the nearest neighbour not yet seen, and back"),
-    (". and ,", "in a record card: mark its item \"like these\" or \"not these\" to grow the corpus"),
+    (". and ,", "mark the record card's item (else the one under the pointer) \"like these\" or \"not these\" to grow the corpus"),
     ("l, r", "lasso or rectangle mode: drag to select (again, or Escape, to move the map)"),
     ("Shift-drag, Alt-drag", "add to the selection, take away from it (in any mode)"),
     ("Enter, Space", "in lasso or rectangle mode, from the keyboard: Enter drops a point (a corner) at the centre of the view; move the view and Enter again; Space closes the lasso (Shift+Enter or Alt+Enter first: add or take away)"),

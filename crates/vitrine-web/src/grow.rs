@@ -506,19 +506,33 @@ fn render() {
     }
 }
 
-/// A key on the record card's item: . marks it "like these", , "not these".
+/// A key on the record card's item (else the item under the pointer on the map): . marks it
+/// "like these", , "not these".
 pub fn key(k: &str) -> bool {
+    if !matches!(k, "." | ",") {
+        return false;
+    }
     let Some(i) = app()
         .filter(|a| a.borrow().atlas.manifest.vectors.is_some())
-        .and_then(|a| a.borrow().open)
+        .and_then(|a| {
+            let a = a.borrow();
+            a.open.or(a.viewer.hover)
+        })
     else {
         return false;
     };
-    match k {
-        "." => toggle(i, "like"),
-        "," => toggle(i, "not"),
-        _ => return false,
-    }
+    toggle(i, if k == "." { "like" } else { "not" });
+    // Said in words (the map shows no mark of it).
+    let label = app().map(|a| a.borrow().atlas.label(i)).unwrap_or_default();
+    let (l, n) = GROW.with(|g| (g.borrow().like.len(), g.borrow().not.len()));
+    let now = match mark_of(i) {
+        "like" => "like these",
+        "not" => "not these",
+        _ => "no longer marked",
+    };
+    select::note(&format!(
+        "{label}: {now} ({l} like these, {n} not these; Grow… in its record card)"
+    ));
     true
 }
 
