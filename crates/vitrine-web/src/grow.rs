@@ -42,6 +42,8 @@ impl Default for Grow {
 
 thread_local! {
     static GROW: RefCell<Grow> = RefCell::new(Grow::default());
+    /// A training waits for the vectors to arrive.
+    static TRAIN_WAITING: std::cell::Cell<bool> = const { std::cell::Cell::new(false) };
 }
 
 /// The rounds so far, for the corpus file.
@@ -194,11 +196,21 @@ pub fn close() -> bool {
 /// Trains a round on the marks (fetching the vectors first if need be) and scores every item.
 fn train() {
     let Some(q) = vectors::ready() else {
+        // One training waits for the vectors, however often Train is pressed meanwhile.
+        if TRAIN_WAITING.with(|w| w.replace(true)) {
+            return;
+        }
         return vectors::fetch(|| {
             if vectors::ready().is_some() {
+                TRAIN_WAITING.with(|w| w.set(false));
                 train();
-            } else if is_open() {
-                render();
+            } else {
+                if vectors::failed() {
+                    TRAIN_WAITING.with(|w| w.set(false));
+                }
+                if is_open() {
+                    render();
+                }
             }
         });
     };

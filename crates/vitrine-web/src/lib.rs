@@ -484,11 +484,26 @@ impl App {
             return;
         };
         let focus = self.open.or(self.viewer.hover);
+        // Drawn again only when what they join or where it is on screen changed.
+        let key = (!self.map_gliding()).then(|| {
+            let c = &self.camera;
+            format!(
+                "{focus:?} {} {:.4} {:.4} {:.6} {:?}",
+                self.atlas.current, c.centre[0], c.centre[1], c.zoom, c.size
+            )
+        });
+        let same = key.is_some() && LINKS_DRAWN.with(|k| *k.borrow() == key);
+        if same {
+            return;
+        }
         let links = focus.and_then(|i| self.atlas.neighbours_of(i).map(|nb| (i, nb)));
         svg.set_text_content(None);
         let Some((i, nb)) = links else {
             let _ = svg.set_attribute("hidden", "");
             set_state("links", "0");
+            if focus.is_none() {
+                LINKS_DRAWN.with(|k| *k.borrow_mut() = key);
+            }
             return;
         };
         let css = css_per_px();
@@ -510,6 +525,8 @@ impl App {
         }
         let _ = svg.remove_attribute("hidden");
         set_state("links", &nb.len().to_string());
+        // Kept only once the list was here (until then each frame looks again).
+        LINKS_DRAWN.with(|k| *k.borrow_mut() = key);
     }
 
     /// Year ticks along the bottom for maps whose x axis is a quantity (the timeline map).
@@ -866,6 +883,11 @@ fn open_card(i: Option<usize>) {
         focus_card();
     }
     request_frame();
+}
+
+thread_local! {
+    /// What the links on the map were last drawn for.
+    static LINKS_DRAWN: RefCell<Option<String>> = const { RefCell::new(None) };
 }
 
 /// Items shown in the record card's strip of the closest over the whole collection.
@@ -1412,7 +1434,8 @@ fn install_events(canvas: &HtmlCanvasElement) {
                 return;
             }
             let key = e.key();
-            if !e.ctrl_key() && !e.alt_key() && !e.meta_key() && grow::key(&key) {
+            // (A key held down repeats: a mark is toggled once.)
+            if !e.ctrl_key() && !e.alt_key() && !e.meta_key() && !e.repeat() && grow::key(&key) {
                 e.prevent_default();
                 return;
             }

@@ -63,6 +63,9 @@ pub fn status() -> Option<String> {
 /// every part and once they are here (or failed), so that what waits on them can show the
 /// progress.
 pub fn fetch(then: impl Fn() + 'static) {
+    if ready().is_some() {
+        return then();
+    }
     WAITING.with(|w| w.borrow_mut().push(Rc::new(then)));
     let start = STATE.with(|s| {
         let mut s = s.borrow_mut();
