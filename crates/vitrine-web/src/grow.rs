@@ -528,7 +528,7 @@ pub fn key(k: &str) -> bool {
         .filter(|a| a.borrow().atlas.manifest.vectors.is_some())
         .and_then(|a| {
             let a = a.borrow();
-            a.open.or(a.viewer.hover)
+            a.open.or_else(|| crate::under_pointer(&a))
         })
     else {
         return false;

@@ -483,7 +483,7 @@ impl App {
         let Some(svg) = document().get_element_by_id("links") else {
             return;
         };
-        let focus = self.open.or(self.viewer.hover);
+        let focus = self.open.or_else(|| under_pointer(self));
         // Drawn again only when what they join or where it is on screen changed.
         let key = (!self.map_gliding()).then(|| {
             let c = &self.camera;
@@ -888,6 +888,14 @@ fn open_card(i: Option<usize>) {
 thread_local! {
     /// What the links on the map were last drawn for.
     static LINKS_DRAWN: RefCell<Option<String>> = const { RefCell::new(None) };
+    /// Where the pointer last rested on the map (canvas pixels), while it is over it.
+    static HOVER_AT: std::cell::Cell<Option<[f64; 2]>> = const { std::cell::Cell::new(None) };
+}
+
+/// The item under the pointer now (the view may have moved under a still pointer since the
+/// hover was last told).
+fn under_pointer(a: &App) -> Option<usize> {
+    HOVER_AT.with(|h| h.get()).and_then(|p| a.pick(p))
 }
 
 /// Items shown in the record card's strip of the closest over the whole collection.
@@ -1336,6 +1344,7 @@ fn pointer_outcome(outcome: Pointer) {
         },
         Pointer::Moved => request_frame(),
         Pointer::Hover(p) => {
+            HOVER_AT.with(|h| h.set(Some(p)));
             let i = app().and_then(|a| a.borrow().pick(p));
             set_hover(i);
         }
@@ -1406,7 +1415,10 @@ fn install_events(canvas: &HtmlCanvasElement) {
         canvas,
         "pointerleave",
         false,
-        move |_e: web_sys::PointerEvent| set_hover(None),
+        move |_e: web_sys::PointerEvent| {
+            HOVER_AT.with(|h| h.set(None));
+            set_hover(None)
+        },
     );
     let c = canvas.clone();
     listen(canvas, "wheel", false, move |e: web_sys::WheelEvent| {
