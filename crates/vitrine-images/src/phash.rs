@@ -1,6 +1,6 @@
 //! A perceptual hash of a picture: 64 bits that change little when the picture is scanned again,
-//! re-compressed, slightly cropped or re-toned, and much between different pictures: one of the checks of two items that look like copies of
-//! one picture.
+//! re-compressed, slightly cropped or re-toned, and much between different pictures: one of the
+//! checks of two items that look like copies of one picture.
 //!
 //! The picture is made grey (BT.601 luma weights in 16-bit fixed point), scaled to 32 x 32 with a
 //! Lanczos filter (three lobes, widened when shrinking), transformed by a two-dimensional DCT-II,
