@@ -241,9 +241,17 @@ test("the demo atlas loads on software WebGL, draws marks, then thumbnails, and 
   assert.equal((await chunkUrls()).length, 1);
   // Its links in the neighbour graph are drawn on the map: a line to each neighbour, from the item.
   await page.waitForFunction(() => document.body.dataset.links === "15");
-  const lines = await page.locator("#links line").evaluateAll((ls) => ls.map((l) => [l.x1.baseVal.value, l.y1.baseVal.value]));
+  const lines = await page.locator("#links line").evaluateAll((ls) =>
+    ls.map((l) => [l.x1.baseVal.value, l.y1.baseVal.value, l.x2.baseVal.value, l.y2.baseVal.value]));
   assert.equal(lines.length, 15);
   assert.ok(lines.every(([lx, ly]) => Math.abs(lx - x) < 1.5 && Math.abs(ly - y) < 1.5), "every link starts at the item");
+  // ... and ends at one of its neighbours, each neighbour once.
+  const nbEnds = await page.locator("#card ol.neighbours button").evaluateAll((bs) =>
+    bs.map((b) => window.vitrineView.screen_position_of(b.dataset.id)));
+  for (const [ex, ey] of nbEnds) {
+    assert.equal(lines.filter(([, , lx, ly]) => Math.abs(lx - ex) < 1.5 && Math.abs(ly - ey) < 1.5).length >= 1, true,
+      `no link ends at ${ex}, ${ey}`);
+  }
   const card = await page.locator("#card").innerText();
   for (const [name, value] of Object.entries(record)) {
     if (value) assert.ok(card.includes(value), `record card lacks ${name} = ${value}`);
