@@ -1100,6 +1100,18 @@ test("growing from examples: three marked in record cards, a model trained on th
   assert.deepEqual([...saved.grow[0].like].sort(), [...examples].sort());
   assert.deepEqual(saved.grow[0].not, [other]);
   assert.deepEqual([...saved.ids].sort(), candidates.slice(0, 20).sort());
+  // With no record card open and the pointer off the map, the map shows the links among the
+  // selection's twenty items (their lists fetched for it).
+  await page.mouse.move(5, 5);
+  for (let k = 0; k < 3 && await page.evaluate(() => document.body.dataset.card); k++) await page.keyboard.press("Escape");
+  await page.waitForFunction(() => document.body.dataset.card === "");
+  // (Polled: the frame after the card closed draws them.)
+  await page.waitForFunction((ids) => {
+    const ends = ids.map((id) => window.vitrineView.screen_position_of(id));
+    const at = (x, y) => ends.some(([ex, ey]) => Math.abs(ex - x) < 1.5 && Math.abs(ey - y) < 1.5);
+    const ls = [...document.querySelectorAll("#links line")];
+    return ls.length > 0 && ls.every((l) => at(l.x1.baseVal.value, l.y1.baseVal.value) && at(l.x2.baseVal.value, l.y2.baseVal.value));
+  }, saved.ids);
   // Natively: the same items, and the round's model ranks the same twenty first.
   execFileSync(BIN, ["corpus", ATLAS, "--from", file, "--json", path.join(dir, "replay.json"), "--scores", path.join(dir, "scores.csv")]);
   assert.deepEqual(JSON.parse(fs.readFileSync(path.join(dir, "replay.json"), "utf8")).ids, saved.ids);

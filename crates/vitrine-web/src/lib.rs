@@ -475,9 +475,10 @@ impl App {
         self.frame_ms[2] = now() - start;
     }
 
-    /// The neighbour-graph links of the record card's item (else of the hovered one, when its
-    /// list is here) as lines over the map, from it to each of its neighbours; a neighbour's mark,
-    /// at a line's end, opens its card.
+    /// The neighbour-graph links as lines over the map: of the record card's item (else of the
+    /// item under the pointer), from it to each of its neighbours; with neither, of a selection of
+    /// at most [`SELECTION_LINKS`] items, every link between two of its items. A neighbour's
+    /// picture, at a line's end, opens its card. Lists not yet here are fetched.
     fn update_links(&mut self) {
         // (An SVG element: not an HtmlElement.)
         let Some(svg) = document().get_element_by_id("links") else {
@@ -488,45 +489,97 @@ impl App {
         let key = (!self.map_gliding()).then(|| {
             let c = &self.camera;
             format!(
-                "{focus:?} {} {:.4} {:.4} {:.6} {:?}",
-                self.atlas.current, c.centre[0], c.centre[1], c.zoom, c.size
+                "{focus:?} {} {} {:.4} {:.4} {:.6} {:?}",
+                self.selection.generation,
+                self.atlas.current,
+                c.centre[0],
+                c.centre[1],
+                c.zoom,
+                c.size
             )
         });
         let same = key.is_some() && LINKS_DRAWN.with(|k| *k.borrow() == key);
         if same {
             return;
         }
-        let links = focus.and_then(|i| self.atlas.neighbours_of(i).map(|nb| (i, nb)));
-        svg.set_text_content(None);
-        let Some((i, nb)) = links else {
-            let _ = svg.set_attribute("hidden", "");
-            set_state("links", "0");
-            if focus.is_none() {
-                LINKS_DRAWN.with(|k| *k.borrow_mut() = key);
-            }
-            return;
-        };
-        let css = css_per_px();
-        let at = |k: usize| {
-            let p = self.camera.to_screen(self.atlas.positions[k]);
-            (p[0] * css, p[1] * css)
-        };
-        let (x0, y0) = at(i);
-        let doc = document();
-        let ns = Some("http://www.w3.org/2000/svg");
-        for &j in &nb {
-            let (x1, y1) = at(j);
-            if let Ok(l) = doc.create_element_ns(ns, "line") {
-                for (k, v) in [("x1", x0), ("y1", y0), ("x2", x1), ("y2", y1)] {
-                    let _ = l.set_attribute(k, &format!("{v:.1}"));
+        // The pairs to join, and whether every list they come from is here.
+        let mut pairs: Vec<(usize, usize)> = Vec::new();
+        let mut complete = true;
+        let mut wanted = Vec::new();
+        match focus {
+            Some(i) => match self.atlas.neighbours_of(i) {
+                Some(nb) => pairs.extend(nb.into_iter().map(|j| (i, j))),
+                None => complete = false,
+            },
+            None => {
+                let items: Vec<usize> = self
+                    .selection
+                    .mask()
+                    .map(|m| m.items().take(SELECTION_LINKS + 1).collect())
+                    .unwrap_or_default();
+                if items.len() <= SELECTION_LINKS {
+                    let chosen: HashSet<usize> = items.iter().copied().collect();
+                    for &i in &items {
+                        match self.atlas.neighbours_of(i) {
+                            Some(nb) => pairs.extend(
+                                nb.into_iter()
+                                    .filter(|j| {
+                                        chosen.contains(j) && (i < *j || !self.links_to(*j, i))
+                                    })
+                                    .map(|j| (i, j)),
+                            ),
+                            None => {
+                                complete = false;
+                                wanted.push(i);
+                            }
+                        }
+                    }
                 }
-                let _ = svg.append_child(&l);
             }
         }
-        let _ = svg.remove_attribute("hidden");
-        set_state("links", &nb.len().to_string());
-        // Kept only once the list was here (until then each frame looks again).
-        LINKS_DRAWN.with(|k| *k.borrow_mut() = key);
+        // Lists of the selection not yet here: fetched once this frame is over, then drawn.
+        if !wanted.is_empty() {
+            wasm_bindgen_futures::spawn_local(async move {
+                for i in wanted {
+                    fetch_neighbours(i);
+                }
+            });
+        }
+        svg.set_text_content(None);
+        if pairs.is_empty() {
+            let _ = svg.set_attribute("hidden", "");
+        } else {
+            let css = css_per_px();
+            let at = |k: usize| {
+                let p = self.camera.to_screen(self.atlas.positions[k]);
+                (p[0] * css, p[1] * css)
+            };
+            let doc = document();
+            let ns = Some("http://www.w3.org/2000/svg");
+            for &(i, j) in &pairs {
+                let ((x0, y0), (x1, y1)) = (at(i), at(j));
+                if let Ok(l) = doc.create_element_ns(ns, "line") {
+                    for (k, v) in [("x1", x0), ("y1", y0), ("x2", x1), ("y2", y1)] {
+                        let _ = l.set_attribute(k, &format!("{v:.1}"));
+                    }
+                    let _ = svg.append_child(&l);
+                }
+            }
+            let _ = svg.remove_attribute("hidden");
+        }
+        set_state("links", &pairs.len().to_string());
+        // Kept only once every list was here (until then each frame looks again).
+        if complete {
+            LINKS_DRAWN.with(|k| *k.borrow_mut() = key);
+        }
+    }
+
+    /// Whether item `j`'s neighbour list (if here) holds `i`: a link found from both ends is
+    /// drawn once.
+    fn links_to(&mut self, j: usize, i: usize) -> bool {
+        self.atlas
+            .neighbours_of(j)
+            .is_some_and(|nb| nb.contains(&i))
     }
 
     /// Year ticks along the bottom for maps whose x axis is a quantity (the timeline map).
@@ -885,6 +938,9 @@ fn open_card(i: Option<usize>) {
     request_frame();
 }
 
+/// The largest selection whose links the map shows.
+const SELECTION_LINKS: usize = 500;
+
 thread_local! {
     /// What the links on the map were last drawn for.
     static LINKS_DRAWN: RefCell<Option<String>> = const { RefCell::new(None) };
@@ -1023,6 +1079,8 @@ fn fetch_neighbours(i: usize) {
         if open.is_some() {
             open_card(open);
         }
+        // The links on the map may wait for this list.
+        request_frame();
     });
 }
 
