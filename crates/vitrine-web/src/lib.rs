@@ -489,8 +489,9 @@ impl App {
         let key = (!self.map_gliding()).then(|| {
             let c = &self.camera;
             format!(
-                "{focus:?} {} {} {:.4} {:.4} {:.6} {:?}",
+                "{focus:?} {} {} {} {:.4} {:.4} {:.6} {:?}",
                 self.selection.generation,
+                self.tones_generation,
                 self.atlas.current,
                 c.centre[0],
                 c.centre[1],
@@ -508,7 +509,10 @@ impl App {
         let mut wanted = Vec::new();
         match focus {
             Some(i) => match self.atlas.neighbours_of(i) {
-                Some(nb) => pairs.extend(nb.into_iter().map(|j| (i, j))),
+                // (Neighbours the filters hide are left out: nothing shows at their end.)
+                Some(nb) => {
+                    pairs.extend(nb.into_iter().filter(|&j| !hidden(self, j)).map(|j| (i, j)))
+                }
                 None => complete = false,
             },
             None => {
@@ -949,9 +953,17 @@ thread_local! {
 }
 
 /// The item under the pointer now (the view may have moved under a still pointer since the
-/// hover was last told).
+/// hover was last told); none when the filters hide it.
 fn under_pointer(a: &App) -> Option<usize> {
-    HOVER_AT.with(|h| h.get()).and_then(|p| a.pick(p))
+    HOVER_AT
+        .with(|h| h.get())
+        .and_then(|p| a.pick(p))
+        .filter(|&i| !hidden(a, i))
+}
+
+/// Whether the filters hide item `i` ("hide the rest" on, the item not passing).
+fn hidden(a: &App, i: usize) -> bool {
+    a.filters.hide && a.filters.passing().is_some_and(|m| !m.get(i))
 }
 
 /// Items shown in the record card's strip of the closest over the whole collection.
