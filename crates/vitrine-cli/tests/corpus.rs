@@ -208,13 +208,17 @@ fn csv_for_spreadsheets_defuses_formulas_and_the_exact_csv_keeps_them() {
         csv.push_str(&format!("{id},\"{title}\",{}\n", -2.5 + i as f32));
     }
     std::fs::write(d.join("records.csv"), &csv).unwrap();
-    let o = common::quick_build()
-        .current_dir(d)
-        .args(["--vectors", "vectors.npy", "--catalogue", "records.csv"])
-        .args(["--id-column", "object", "--out", "atlas"])
-        .output()
-        .unwrap();
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    common::build_atlas(
+        d,
+        &[
+            "--vectors",
+            "vectors.npy",
+            "--catalogue",
+            "records.csv",
+            "--id-column",
+            "object",
+        ],
+    );
     ok(&corpus(d, &["--csv", "sheet.csv"]));
     ok(&corpus(d, &["--csv", "exact.csv", "--csv-exact"]));
     let script = r#"

@@ -24,19 +24,10 @@ with open(f"{sys.argv[1]}/records.csv", "w") as f:
 "#,
         &[d],
     );
-    let o = common::quick_build()
-        .current_dir(d)
-        .args([
-            "--vectors",
-            "digits.npy",
-            "--catalogue",
-            "records.csv",
-            "--out",
-            "atlas",
-        ])
-        .output()
-        .unwrap();
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    common::build_atlas(
+        d,
+        &["--vectors", "digits.npy", "--catalogue", "records.csv"],
+    );
     // Thirty threes "like these", sixty other digits "not these" (the first of each in the file).
     let records = std::fs::read_to_string(d.join("records.csv")).unwrap();
     let rows: Vec<(String, String)> = records

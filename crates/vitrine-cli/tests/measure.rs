@@ -64,19 +64,7 @@ fn fixture(d: &Path) {
           {"name": "motifs", "kind": "several", "values": [{"value": "tree"}, {"value": "river"}]}]}"#,
     )
     .unwrap();
-    let o = common::quick_build()
-        .current_dir(d)
-        .args([
-            "--vectors",
-            "vectors.npy",
-            "--catalogue",
-            "records.csv",
-            "--out",
-            "atlas",
-        ])
-        .output()
-        .unwrap();
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    common::small_build(d);
 }
 
 const REFERENCE: &str = r#"

@@ -17,19 +17,7 @@ np.save(f"{sys.argv[1]}/digits.npy", load_digits().data.astype(np.float32))
 "#,
         &[d],
     );
-    let o = common::quick_build()
-        .current_dir(d)
-        .args([
-            "--vectors",
-            "digits.npy",
-            "--browser-vectors",
-            "16",
-            "--out",
-            "atlas",
-        ])
-        .output()
-        .unwrap();
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    common::build_atlas(d, &["--vectors", "digits.npy", "--browser-vectors", "16"]);
     let out = common::run_python(
         r#"
 import sys, json, numpy as np

@@ -396,25 +396,35 @@ pub fn time_order(t: &str) -> Option<(&str, u32)> {
     Some((whole, nanos))
 }
 
+/// A code's or clearing's item, variable and coder are named and its time can be ordered; `at`
+/// says which entry.
+fn check_named_and_timed(
+    at: &dyn Fn() -> String,
+    [item, variable, coder]: [&String; 3],
+    time: &str,
+) -> Result<(), CorpusError> {
+    if item.is_empty() || variable.is_empty() || coder.trim().is_empty() {
+        return Err(CorpusError::Invalid(format!(
+            "{}: the item, variable and coder must be named",
+            at()
+        )));
+    }
+    if time_order(time).is_none() {
+        return Err(CorpusError::Invalid(format!(
+            "{}: time {time:?} is not a UTC time as 2026-12-05T10:30:00Z",
+            at()
+        )));
+    }
+    Ok(())
+}
+
 /// Checks the codes' own form (a time the reader can order, names not empty, one code per item,
 /// variable, coder and kind). Whether they fit the codebook is [`check_codes`]'s question.
 pub fn check_form(codes: &[Code]) -> Result<(), CorpusError> {
     let mut seen = BTreeSet::new();
     for (k, c) in codes.iter().enumerate() {
         let at = || format!("code {} of {} (item {:?})", k + 1, codes.len(), c.item);
-        if c.item.is_empty() || c.variable.is_empty() || c.coder.trim().is_empty() {
-            return Err(CorpusError::Invalid(format!(
-                "{}: the item, variable and coder must be named",
-                at()
-            )));
-        }
-        if time_order(&c.time).is_none() {
-            return Err(CorpusError::Invalid(format!(
-                "{}: time {:?} is not a UTC time as 2026-12-05T10:30:00Z",
-                at(),
-                c.time
-            )));
-        }
+        check_named_and_timed(&at, [&c.item, &c.variable, &c.coder], &c.time)?;
         if !seen.insert(c.key()) {
             return Err(CorpusError::Invalid(format!(
                 "{}: {} coded variable {:?} of this item twice",
@@ -649,19 +659,7 @@ pub fn check_cleared(cleared: &[Cleared]) -> Result<(), CorpusError> {
     let mut seen = HashSet::new();
     for (k, c) in cleared.iter().enumerate() {
         let at = || format!("cleared {} of {} (item {:?})", k + 1, cleared.len(), c.item);
-        if c.item.is_empty() || c.variable.is_empty() || c.coder.trim().is_empty() {
-            return Err(CorpusError::Invalid(format!(
-                "{}: the item, variable and coder must be named",
-                at()
-            )));
-        }
-        if time_order(&c.time).is_none() {
-            return Err(CorpusError::Invalid(format!(
-                "{}: time {:?} is not a UTC time as 2026-12-05T10:30:00Z",
-                at(),
-                c.time
-            )));
-        }
+        check_named_and_timed(&at, [&c.item, &c.variable, &c.coder], &c.time)?;
         if !seen.insert(c.owned_key()) {
             return Err(CorpusError::Invalid(format!("{}: listed twice", at())));
         }

@@ -321,9 +321,7 @@ impl Coding {
         time: &str,
     ) -> bool {
         if !self.settling() {
-            let key = self.key_of(item, variable, false);
-            let ch = self.change(index, key, value, time, false);
-            return ch.map(|c| self.undo.push(vec![c])).is_some();
+            return self.set_own(index, item, variable, value, time);
         }
         // Settling works on the value shown, whoever settled it: the same value again changes
         // nothing; another (or this settler's own earlier one) becomes the latest; clearing

@@ -93,19 +93,21 @@ pub fn corpus_fails(dir: &Path, args: &[&str]) -> String {
     String::from_utf8_lossy(&o.stderr).to_string()
 }
 
-/// [`quick_build`] in `dir` from `vectors.npy` and `records.csv` into `atlas`.
-pub fn small_build(dir: &Path) {
+/// [`quick_build`] in `dir` with `args` (the inputs and options) into `atlas`, which must succeed.
+pub fn build_atlas(dir: &Path, args: &[&str]) {
     let o = quick_build()
         .current_dir(dir)
-        .args([
-            "--vectors",
-            "vectors.npy",
-            "--catalogue",
-            "records.csv",
-            "--out",
-            "atlas",
-        ])
+        .args(args)
+        .args(["--out", "atlas"])
         .output()
         .unwrap();
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+}
+
+/// [`build_atlas`] from `vectors.npy` and `records.csv`.
+pub fn small_build(dir: &Path) {
+    build_atlas(
+        dir,
+        &["--vectors", "vectors.npy", "--catalogue", "records.csv"],
+    );
 }
