@@ -3,6 +3,7 @@
 //!
 //! - ingest: [`vectors`] (.npy), [`catalogue`] (CSV, field kinds inferred), [`dates`] (catalogue
 //!   datings to year ranges), errors that name the file, row or field ([`error`]);
+//! - [`copies`]: copies of one picture, from graph candidates confirmed by image signatures;
 //! - [`options`] (every setting, checked once), [`ingest`] (inputs read and matched), [`stages`]
 //!   (the computing stages as typed values, calling the map engine `vitrine-map`), [`write`] (the
 //!   atlas written, with `vitrine-images` for the pictures), [`folder`] (the temporary folder and
@@ -14,6 +15,7 @@
 //! atlas is complete and has validated; the same inputs and seed give the same bytes.
 
 pub mod catalogue;
+pub mod copies;
 pub mod dates;
 pub mod error;
 pub mod folder;

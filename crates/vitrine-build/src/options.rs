@@ -69,6 +69,8 @@ pub struct BuildOptions {
     pub thumb_cache: Option<PathBuf>,
     /// Folder with the viewer files to copy into the atlas (None: found beside the program).
     pub viewer: Option<PathBuf>,
+    /// How copies of one picture are found, when there are images (None: not looked for).
+    pub copies: Option<crate::copies::CopyRule>,
 }
 
 impl BuildOptions {
@@ -100,6 +102,7 @@ impl BuildOptions {
             strict: false,
             thumb_cache: None,
             viewer: None,
+            copies: Some(crate::copies::CopyRule::default()),
         }
     }
 
@@ -124,6 +127,17 @@ impl BuildOptions {
         if let Some(v) = &self.viewer {
             if crate::folder::viewer_dir(Some(v)).is_none() {
                 bail!("--viewer {}: not a folder with the viewer's index.html (./build.sh atlas makes one in target/viewer)", v.display());
+            }
+        }
+        if let Some(c) = &self.copies {
+            if !(c.ratio > 0.0 && c.ratio <= 1.0) {
+                bail!("--copy-ratio must be above 0 and at most 1");
+            }
+            if c.max_bits > 32 {
+                bail!("--copy-bits must be at most 32 (of the hash's 64; unrelated pictures differ in 32 on average)");
+            }
+            if !(-1.0..=1.0).contains(&c.min_colour) {
+                bail!("--copy-colour must be between -1 and 1");
             }
         }
         if self.k == 0 {

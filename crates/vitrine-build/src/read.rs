@@ -70,6 +70,20 @@ impl Atlas {
         Ok(v)
     }
 
+    /// The atlas's copy groups, read and checked (None when the build did not look for copies).
+    pub fn copies(&self) -> Result<Option<vitrine_format::CopyGroups>> {
+        let Some(c) = &self.manifest.copies else {
+            return Ok(None);
+        };
+        Ok(Some(vitrine_format::CopyGroups::new(
+            self.manifest.item_count as usize,
+            self.array(&c.members)?,
+            self.array(&c.starts)?,
+            self.array(&c.pairs)?,
+            self.array(&c.pair_bits)?,
+        )?))
+    }
+
     /// The distances matching [`Atlas::neighbour_ids`].
     pub fn neighbour_distances(&self) -> Result<Vec<f32>> {
         let mut v = Vec::new();

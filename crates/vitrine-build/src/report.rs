@@ -21,7 +21,18 @@ pub struct BuildReport {
     pub thumbnails_made: usize,
     pub thumbnails_reused: usize,
     pub value_warnings: Vec<ValueWarning>,
+    /// Copies looked for: candidate pairs checked, pairs confirmed, groups and items in them.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub copies: Option<CopiesFound>,
     pub notes: Vec<String>,
+}
+
+#[derive(Debug, Default, Clone, serde::Serialize)]
+pub struct CopiesFound {
+    pub candidates: usize,
+    pub confirmed: usize,
+    pub groups: usize,
+    pub items: usize,
 }
 
 /// Lap times of the build's stages, and each stage's peak memory.

@@ -65,20 +65,53 @@ pub fn write_atlas(
     if let Some(p) = &opts.catalogue {
         input_files.push(input_file("catalogue", p)?);
     }
+    // Candidate copies (atlas order), so that the thumbnails keep the signatures they need.
+    let candidates: Vec<(u32, u32, f32)> = match (&opts.copies, &inputs.image_paths) {
+        (Some(rule), Some(_)) => crate::copies::candidates(&c.graph.graph, rule.ratio)
+            .into_iter()
+            .map(|(a, b, d)| {
+                let (x, y) = (c.order.rank[a as usize], c.order.rank[b as usize]);
+                (x.min(y), x.max(y), d)
+            })
+            .collect(),
+        _ => Vec::new(),
+    };
+    let mut fields = fields;
+    let mut copies = None;
     let (colours, sheets) = match &inputs.image_paths {
         Some(paths) => {
-            let (colours, sheets, images) = pictures(
+            let mut signed = vec![false; if opts.copies.is_some() { n } else { 0 }];
+            for &(a, b, _) in &candidates {
+                signed[a as usize] = true;
+                signed[b as usize] = true;
+            }
+            let (colours, sheets, images, t) = pictures(
                 &mut w,
                 opts,
                 dir,
                 &inputs,
                 paths,
                 order,
+                &signed,
                 &mut report,
                 progress,
             )?;
             laps.lap("thumbnails");
             input_files.push(images);
+            if let Some(rule) = &opts.copies {
+                copies = Some(write_copies(
+                    &mut w,
+                    dir,
+                    rule,
+                    &candidates,
+                    &t,
+                    &ids_sorted,
+                    &mut fields,
+                    &mut report,
+                    progress,
+                )?);
+                laps.lap("copies");
+            }
             (colours, Some(sheets))
         }
         None => {
@@ -127,6 +160,7 @@ pub fn write_atlas(
         quality: quality_figures(&c, clusters.list.len()),
         clusters: Some(clusters),
         vectors,
+        copies,
         provenance: Provenance {
             tool: "vitrine".into(),
             tool_version: env!("CARGO_PKG_VERSION").into(),
@@ -416,6 +450,14 @@ fn clusters(
 /// Thumbnails and sheets of every level, the average colour of each picture, and the images'
 /// provenance (`image-digests.txt`: one line per image, SHA-256, bytes and path, hashed as a whole).
 #[allow(clippy::too_many_arguments)]
+/// What the thumbnails leave for the copies: each item's signature (where asked for) and its
+/// file's digest, in atlas order.
+struct Signed {
+    signatures: Vec<Option<vitrine_images::copies::Signature>>,
+    digests: Vec<String>,
+}
+
+#[allow(clippy::too_many_arguments)]
 fn pictures(
     w: &mut ArrayWriter,
     opts: &BuildOptions,
@@ -423,9 +465,10 @@ fn pictures(
     inputs: &Inputs,
     paths: &[Result<PathBuf, String>],
     order: &[usize],
+    signed: &[bool],
     report: &mut BuildReport,
     progress: &dyn Progress,
-) -> Result<(Vec<[u8; 4]>, Sheets, InputFile)> {
+) -> Result<(Vec<[u8; 4]>, Sheets, InputFile, Signed)> {
     let n = order.len();
     vitrine_images::decode::set_decode_budget(opts.decode_memory);
     let plan = SheetPlan {
@@ -446,7 +489,9 @@ fn pictures(
         )
     });
     let bar = progress.bar("thumbnails", n as u64);
-    let t = thumbs::make_sheets(&list, &plan, dir, cache.as_ref(), &|c| bar.set(c, n as u64))?;
+    let t = thumbs::make_sheets(&list, signed, &plan, dir, cache.as_ref(), &|c| {
+        bar.set(c, n as u64)
+    })?;
     drop(bar);
     report.thumbnails_reused = t.reused;
     report.thumbnails_made = n - t.reused - t.problems.len();
@@ -549,7 +594,121 @@ fn pictures(
             image_sizes,
         },
         images,
+        Signed {
+            signatures: t.signatures,
+            digests: t.digests.into_iter().map(|(d, _)| d).collect(),
+        },
     ))
+}
+
+/// The name of the field the build adds for items with copies, and its one value.
+pub const COPIES_FIELD: &str = "copies";
+pub const HAS_COPIES: &str = "has copies";
+
+/// Judges the candidate copies, joins them into groups and writes them: the group arrays, every
+/// pair checked (copy-pairs.csv, for a reader to see why), and a field "copies" with the value
+/// "has copies" on every item in a group, so that filters, counts and colour-by reach them.
+#[allow(clippy::too_many_arguments)]
+fn write_copies(
+    w: &mut ArrayWriter,
+    dir: &Path,
+    rule: &crate::copies::CopyRule,
+    candidates: &[(u32, u32, f32)],
+    signed: &Signed,
+    ids: &[&str],
+    fields: &mut Vec<WrittenField>,
+    report: &mut BuildReport,
+    progress: &dyn Progress,
+) -> Result<vitrine_format::Copies> {
+    let n = ids.len();
+    let checked = crate::copies::check(candidates, &signed.signatures, &signed.digests, rule);
+    let groups = crate::copies::groups(n, &checked);
+    let mut csv =
+        String::from("id_a,id_b,vector_distance,hash_bits,colour_correlation,same_file,copy\n");
+    let quote = |s: &str| {
+        if s.contains([',', '"', '\n', '\r']) {
+            format!("\"{}\"", s.replace('"', "\"\""))
+        } else {
+            s.to_string()
+        }
+    };
+    for c in &checked {
+        let opt = |v: Option<String>| v.unwrap_or_default();
+        csv.push_str(&format!(
+            "{},{},{},{},{},{},{}\n",
+            quote(ids[c.a as usize]),
+            quote(ids[c.b as usize]),
+            if c.distance.is_nan() {
+                String::new()
+            } else {
+                format!("{:.6}", c.distance)
+            },
+            opt(c.bits.map(|b| b.to_string())),
+            opt(c.colour.map(|r| format!("{r:.4}"))),
+            c.same_file,
+            c.copy
+        ));
+    }
+    std::fs::write(dir.join("copy-pairs.csv"), csv)?;
+    let confirmed: Vec<&crate::copies::Checked> = checked.iter().filter(|c| c.copy).collect();
+    let mut members = Vec::new();
+    let mut starts = vec![0u32];
+    for g in &groups {
+        members.extend_from_slice(g);
+        starts.push(members.len() as u32);
+    }
+    let pairs: Vec<u32> = confirmed.iter().flat_map(|c| [c.a, c.b]).collect();
+    let bits: Vec<u8> = confirmed
+        .iter()
+        .map(|c| c.bits.unwrap_or(0).min(255) as u8)
+        .collect();
+    let found = crate::report::CopiesFound {
+        candidates: candidates.len(),
+        confirmed: confirmed.len(),
+        groups: groups.len(),
+        items: members.len(),
+    };
+    progress.note(&format!(
+        "copies: {} candidate pairs checked, {} confirmed, {} items in {} groups (copy-pairs.csv)",
+        found.candidates, found.confirmed, found.items, found.groups
+    ));
+    report.copies = Some(found);
+    // The field, named apart from any catalogue field.
+    let mut name = COPIES_FIELD.to_string();
+    while fields.iter().any(|f| f.field.name == name) {
+        name.push_str(" (found)");
+    }
+    let mut codes = vec![u32::MAX; n];
+    for &m in &members {
+        codes[m as usize] = 0;
+    }
+    let column = w.add(&format!("field-{}-copies", fields.len()), &codes);
+    fields.push(WrittenField {
+        field: Field {
+            name: name.clone(),
+            kind: vitrine_format::FieldKind::Category,
+            column,
+            column2: None,
+            values: vec![HAS_COPIES.into()],
+            value_counts: vec![members.len() as u64],
+            written: None,
+        },
+        codes: Some(codes),
+    });
+    Ok(vitrine_format::Copies {
+        method: format!(
+            "candidates: neighbour pairs at most {} x the item's median neighbour distance, or files of the same bytes; confirmed: a 64-bit DCT perceptual hash within {} bits (least over 5 % and 10 % crops) and a colour correlation of at least {}; groups: connected confirmed pairs",
+            rule.ratio, rule.max_bits, rule.min_colour
+        ),
+        max_bits: rule.max_bits,
+        min_colour: rule.min_colour,
+        ratio: rule.ratio,
+        members: w.add("copies-members", &members),
+        starts: w.add("copies-starts", &starts),
+        pairs: w.add("copies-pairs", &pairs),
+        pair_bits: w.add("copies-pair-bits", &bits),
+        field: Some(name),
+    })
 }
 
 /// Every setting that shaped the atlas, for its provenance.
@@ -614,6 +773,11 @@ fn parameters(
     p.insert("max_pixels".into(), json!(opts.max_pixels));
     p.insert("decode_memory".into(), json!(opts.decode_memory));
     p.insert("strict".into(), json!(opts.strict));
+    if let Some(rule) = &opts.copies {
+        p.insert("copy_ratio".into(), json!(rule.ratio));
+        p.insert("copy_max_bits".into(), json!(rule.max_bits));
+        p.insert("copy_min_colour".into(), json!(rule.min_colour));
+    }
     p.insert(
         "vector_dimensions".into(),
         json!(reduction.input_dimensions),

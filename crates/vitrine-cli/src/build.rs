@@ -125,6 +125,20 @@ pub struct BuildArgs {
     /// Make every thumbnail afresh and keep none.
     #[arg(long, conflicts_with = "thumb_cache")]
     no_thumb_cache: bool,
+    /// Do not look for copies of one picture (they are looked for whenever there are images).
+    #[arg(long)]
+    no_copies: bool,
+    /// Copies: two neighbours are a candidate pair when their distance is at most this share of
+    /// the item's median neighbour distance (0-1).
+    #[arg(long, default_value_t = vitrine_build::copies::CopyRule::default().ratio)]
+    copy_ratio: f32,
+    /// Copies: a candidate is a copy when the perceptual hashes differ in at most this many bits
+    /// of 64 (the least over 5 % and 10 % crops) ...
+    #[arg(long, default_value_t = vitrine_build::copies::CopyRule::default().max_bits)]
+    copy_bits: u32,
+    /// ... and the pictures' colours correlate at least this much over the matched region (-1-1).
+    #[arg(long, default_value_t = vitrine_build::copies::CopyRule::default().min_colour)]
+    copy_colour: f32,
     /// Folder with the viewer files to copy into the atlas (default: found beside the program).
     #[arg(long)]
     viewer: Option<PathBuf>,
@@ -184,6 +198,11 @@ impl BuildArgs {
                 self.thumb_cache.or_else(vitrine_images::cache::default_dir)
             },
             viewer: self.viewer,
+            copies: (!self.no_copies).then_some(vitrine_build::copies::CopyRule {
+                ratio: self.copy_ratio,
+                max_bits: self.copy_bits,
+                min_colour: self.copy_colour,
+            }),
         }
     }
 }

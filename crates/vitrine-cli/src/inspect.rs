@@ -80,6 +80,16 @@ pub fn inspect(atlas: &Atlas) -> Result<String> {
         }
         None => s.push_str("sheets    none (items drawn as coloured marks)\n"),
     }
+    if let (Some(c), Some(g)) = (&m.copies, atlas.copies()?) {
+        s.push_str(&format!(
+            "copies    {} items in {} groups, joined by {} confirmed pairs (field \"{}\")\n          {}\n",
+            g.members.len(),
+            g.groups(),
+            g.pairs.len(),
+            c.field.as_deref().unwrap_or(""),
+            c.method
+        ));
+    }
     if !m.quality.is_empty() {
         s.push_str("quality\n");
         for (k, v) in &m.quality {

@@ -531,3 +531,80 @@ fn pal(rng: &mut Rng, table: &[C], set: &[usize], amount: f32) -> C {
     let c = table[set[rng.below(set.len() as u64) as usize]];
     jitter(rng, c, amount)
 }
+
+/// Ages a sheet: soft foxing stains of a browner paper tone, as old paper gathers them — a few
+/// blotches of its own on every sheet, so that two drawings of one design are not the same
+/// picture.
+pub fn age(img: &mut RgbImage, rng: &mut Rng) {
+    let (w, h) = (img.width() as f32, img.height() as f32);
+    let long = w.max(h);
+    let stains: Vec<(f32, f32, f32, f32, C)> = (0..3 + rng.below(5))
+        .map(|_| {
+            let tone = jitter(rng, [150.0, 112.0, 72.0], 25.0);
+            (
+                w * rng.uniform() as f32,
+                h * rng.uniform() as f32,
+                long * (0.06 + 0.2 * rng.uniform() as f32),
+                0.2 + 0.3 * rng.uniform() as f32,
+                tone,
+            )
+        })
+        .collect();
+    for (x, y, p) in img.enumerate_pixels_mut() {
+        let mut c = [p[0] as f32, p[1] as f32, p[2] as f32];
+        for &(cx, cy, r, alpha, tone) in &stains {
+            let d2 = ((x as f32 - cx).powi(2) + (y as f32 - cy).powi(2)) / (r * r);
+            if d2 < 4.0 {
+                let a = alpha * (-d2 * d2).exp();
+                c = mix(c, tone, a);
+            }
+        }
+        *p = Rgb(c.map(|v| v.round().clamp(0.0, 255.0) as u8));
+    }
+}
+
+/// Another scan of a sheet: cropped by up to 8 % (the cut anywhere), its tone and contrast
+/// changed, turned by up to 2 degrees onto a light ground, and scanned at another resolution.
+pub fn rescan(img: &RgbImage, rng: &mut Rng) -> RgbImage {
+    let (w, h) = (img.width() as f32, img.height() as f32);
+    let cut = 0.08 * rng.uniform() as f32;
+    let (x0, y0) = (
+        w * cut * rng.uniform() as f32,
+        h * cut * rng.uniform() as f32,
+    );
+    let (cw, ch) = (w * (1.0 - cut), h * (1.0 - cut));
+    let scale = 0.7 + 0.4 * rng.uniform() as f32;
+    let (ow, oh) = ((cw * scale).round() as u32, (ch * scale).round() as u32);
+    let turn = (rng.uniform() as f32 - 0.5) * 4.0f32.to_radians();
+    let (sin, cos) = turn.sin_cos();
+    let gain = 0.8 + 0.4 * rng.uniform() as f32;
+    let lift = (rng.uniform() as f32 - 0.5) * 30.0;
+    let ground = [236.0, 232.0, 224.0];
+    RgbImage::from_fn(ow, oh, |ox, oy| {
+        // The output pixel's place in the crop, turned about the crop's centre.
+        let (u, v) = (ox as f32 / scale - cw / 2.0, oy as f32 / scale - ch / 2.0);
+        let (sx, sy) = (
+            x0 + cw / 2.0 + u * cos - v * sin,
+            y0 + ch / 2.0 + u * sin + v * cos,
+        );
+        let c = if sx < 0.0 || sy < 0.0 || sx > w - 1.0 || sy > h - 1.0 {
+            ground
+        } else {
+            // Bilinear.
+            let (ix, iy) = (sx.floor() as u32, sy.floor() as u32);
+            let (fx, fy) = (sx - ix as f32, sy - iy as f32);
+            let at = |x: u32, y: u32| {
+                let p = img.get_pixel(x.min(w as u32 - 1), y.min(h as u32 - 1));
+                [p[0] as f32, p[1] as f32, p[2] as f32]
+            };
+            let top = mix(at(ix, iy), at(ix + 1, iy), fx);
+            let bottom = mix(at(ix, iy + 1), at(ix + 1, iy + 1), fx);
+            mix(top, bottom, fy)
+        };
+        Rgb(c.map(|v| {
+            ((v - 128.0) * gain + 128.0 + lift)
+                .round()
+                .clamp(0.0, 255.0) as u8
+        }))
+    })
+}

@@ -197,9 +197,65 @@ pub fn record(i: usize, family: usize, rng: &mut Rng, w: u32, h: u32) -> Record 
 
 pub struct Generated {
     pub families: Vec<usize>,
+    /// Per item: the item whose sheet it is another scan of (None: its own sheet).
+    pub copy_of: Vec<Option<usize>>,
 }
 
-/// Writes `out/images/*.jpg`, `out/records.csv`, `out/features.npy` and `out/feature-ids.txt`.
+/// The share of items that are another scan of an earlier item's sheet.
+pub const COPY_SHARE: f64 = 0.04;
+
+/// Item `i`'s own random stream.
+fn item_rng(seed: u64, i: usize) -> Rng {
+    Rng::new(seed.wrapping_mul(1_000_003).wrapping_add(i as u64))
+}
+
+/// The stream that ages item `i`'s sheet (and makes its scan when it is a copy), apart from the
+/// item's own so that its catalogue record is drawn the same whatever the ageing.
+fn ageing_rng(seed: u64, i: usize) -> Rng {
+    Rng::new(
+        (seed ^ 0x5EED_A9E5)
+            .wrapping_mul(2_000_003)
+            .wrapping_add(i as u64),
+    )
+}
+
+/// The earlier item of the same family whose sheet item `i` is another scan of, if it is one
+/// (always an item that is not itself a copy).
+pub fn copy_source(seed: u64, i: usize, families: usize) -> Option<usize> {
+    let mut r = Rng::new(
+        (seed ^ 0xC0_91E5)
+            .wrapping_mul(3_000_017)
+            .wrapping_add(i as u64),
+    );
+    let earlier = i / families;
+    if earlier == 0 || r.uniform() >= COPY_SHARE {
+        return None;
+    }
+    let j = i - families * (1 + r.below(earlier.min(200) as u64) as usize);
+    Some(copy_source(seed, j, families).unwrap_or(j))
+}
+
+/// Item `i`'s picture: its family's drawing on an aged sheet, or another scan of an earlier
+/// item's sheet; and which item that was.
+fn sheet(seed: u64, i: usize, family: usize, rng: &mut Rng) -> (image::RgbImage, Option<usize>) {
+    let own = draw::picture(family, rng);
+    let families = draw::FAMILIES.len();
+    match copy_source(seed, i, families) {
+        None => {
+            let mut img = own;
+            draw::age(&mut img, &mut ageing_rng(seed, i));
+            (img, None)
+        }
+        Some(j) => {
+            let mut src = draw::picture(family, &mut item_rng(seed, j));
+            draw::age(&mut src, &mut ageing_rng(seed, j));
+            (draw::rescan(&src, &mut ageing_rng(seed, i)), Some(j))
+        }
+    }
+}
+
+/// Writes `out/images/*.jpg`, `out/records.csv`, `out/features.npy`, `out/feature-ids.txt`, and
+/// `out/copies.csv` (which items are other scans of which: what the build should find).
 pub fn generate(
     out: &Path,
     count: usize,
@@ -208,12 +264,13 @@ pub fn generate(
 ) -> anyhow::Result<Generated> {
     std::fs::create_dir_all(out.join("images"))?;
     let done = std::sync::atomic::AtomicU64::new(0);
-    let items: Vec<anyhow::Result<(Record, Vec<f32>)>> = (0..count)
+    #[allow(clippy::type_complexity)]
+    let items: Vec<anyhow::Result<(Record, Vec<f32>, Option<usize>)>> = (0..count)
         .into_par_iter()
         .map(|i| {
-            let mut rng = Rng::new(seed.wrapping_mul(1_000_003).wrapping_add(i as u64));
+            let mut rng = item_rng(seed, i);
             let family = i % draw::FAMILIES.len();
-            let img = draw::picture(family, &mut rng);
+            let (img, copy_of) = sheet(seed, i, family, &mut rng);
             let feats = features::describe(&img);
             let rec = record(i, family, &mut rng, img.width(), img.height());
             let path = out.join("images").join(&rec.fields[10]);
@@ -224,7 +281,7 @@ pub fn generate(
             if c.is_multiple_of(32) {
                 progress(c);
             }
-            Ok((rec, feats))
+            Ok((rec, feats, copy_of))
         })
         .collect();
     let mut csv = String::new();
@@ -232,8 +289,14 @@ pub fn generate(
     let mut ids = String::new();
     let mut data = Vec::with_capacity(count * features::DIMENSIONS);
     let mut families = Vec::with_capacity(count);
+    let mut copy_of = Vec::with_capacity(count);
+    let mut copies = String::from("id,copy_of\n");
     for item in items {
-        let (rec, feats) = item?;
+        let (rec, feats, of) = item?;
+        if let Some(j) = of {
+            copies.push_str(&format!("{},rec-{:06}\n", rec.id, j + 1));
+        }
+        copy_of.push(of);
         csv_row(&mut csv, rec.fields.iter().map(String::as_str));
         ids.push_str(&rec.id);
         ids.push('\n');
@@ -242,11 +305,12 @@ pub fn generate(
     }
     std::fs::write(out.join("records.csv"), csv)?;
     std::fs::write(out.join("feature-ids.txt"), ids)?;
+    std::fs::write(out.join("copies.csv"), copies)?;
     std::fs::write(
         out.join("features.npy"),
         vitrine_format::npy::encode_f32(count, features::DIMENSIONS, &data),
     )?;
-    Ok(Generated { families })
+    Ok(Generated { families, copy_of })
 }
 
 #[cfg(test)]

@@ -504,6 +504,112 @@ impl BrowserVectors {
     }
 }
 
+/// Groups of items whose pictures are copies of one picture (see docs/atlas-format.md): the
+/// groups' members, atlas item indices grouped and ascending within each group, with each group's
+/// start; and the confirmed pairs that joined them, with the pair's hash distance.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Copies {
+    /// How candidate pairs were found and confirmed, in words.
+    pub method: String,
+    /// Hash distance (bits of 64) at most, colour correlation at least, and vector distance at
+    /// most this share of the item's median neighbour distance, for a candidate to be a copy.
+    pub max_bits: u32,
+    pub min_colour: f32,
+    pub ratio: f32,
+    /// u32: the members of every group, group by group.
+    pub members: ArrayRef,
+    /// u32, groups + 1 entries: where each group starts in `members` (the last: their count).
+    pub starts: ArrayRef,
+    /// u32, two per pair: the items of each confirmed pair.
+    pub pairs: ArrayRef,
+    /// u8, one per pair: the pair's hash distance in bits.
+    pub pair_bits: ArrayRef,
+    /// The catalogue-like field the build added ("has copies"), if any.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub field: Option<String>,
+}
+
+/// Copy groups as read from an atlas and checked: every member an item, in one group only, every
+/// group of two or more.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct CopyGroups {
+    pub members: Vec<u32>,
+    pub starts: Vec<u32>,
+    /// Per item: its group, or u32::MAX.
+    pub group_of: Vec<u32>,
+    pub pairs: Vec<[u32; 2]>,
+    pub pair_bits: Vec<u8>,
+}
+
+impl CopyGroups {
+    /// Checks decoded arrays against `n` items.
+    pub fn new(
+        n: usize,
+        members: Vec<u32>,
+        starts: Vec<u32>,
+        pairs: Vec<u32>,
+        pair_bits: Vec<u8>,
+    ) -> Result<CopyGroups, AtlasError> {
+        let bad = |what: String| AtlasError::Inconsistent(format!("copy groups: {what}"));
+        if starts.first() != Some(&0) || *starts.last().unwrap() as usize != members.len() {
+            return Err(bad(format!(
+                "group starts must begin at 0 and end at the {} members",
+                members.len()
+            )));
+        }
+        let mut group_of = vec![u32::MAX; n];
+        for (g, w) in starts.windows(2).enumerate() {
+            if w[1] < w[0] + 2 {
+                return Err(bad(format!("group {g} has fewer than two members")));
+            }
+            for &m in &members[w[0] as usize..w[1] as usize] {
+                let slot = group_of
+                    .get_mut(m as usize)
+                    .ok_or_else(|| bad(format!("member {m} is not one of the {n} items")))?;
+                if *slot != u32::MAX {
+                    return Err(bad(format!("item {m} is in two groups")));
+                }
+                *slot = g as u32;
+            }
+        }
+        if pairs.len() != 2 * pair_bits.len() {
+            return Err(bad("pairs and their distances differ in number".into()));
+        }
+        let pairs: Vec<[u32; 2]> = pairs.chunks_exact(2).map(|p| [p[0], p[1]]).collect();
+        for p in &pairs {
+            let g = |i: u32| group_of.get(i as usize).copied().unwrap_or(u32::MAX);
+            if g(p[0]) == u32::MAX || g(p[0]) != g(p[1]) {
+                return Err(bad(format!(
+                    "pair {} - {} is not within one group",
+                    p[0], p[1]
+                )));
+            }
+        }
+        Ok(CopyGroups {
+            members,
+            starts,
+            group_of,
+            pairs,
+            pair_bits,
+        })
+    }
+
+    pub fn groups(&self) -> usize {
+        self.starts.len().saturating_sub(1)
+    }
+
+    /// The members of item `i`'s group (itself among them), empty when it has no copies.
+    pub fn group(&self, i: usize) -> &[u32] {
+        match self.group_of.get(i) {
+            Some(&g) if g != u32::MAX => {
+                &self.members
+                    [self.starts[g as usize] as usize..self.starts[g as usize + 1] as usize]
+            }
+            _ => &[],
+        }
+    }
+}
+
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Manifest {
     pub format: String,
@@ -531,6 +637,9 @@ pub struct Manifest {
     /// Every item's vector compressed for the browser, if the build kept them.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub vectors: Option<BrowserVectors>,
+    /// Groups of copies of one picture, if the build looked for them.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub copies: Option<Copies>,
     pub provenance: Provenance,
 }
 
@@ -681,6 +790,25 @@ impl Manifest {
         if let Some(c) = &self.clusters {
             want(&c.ids, n, DType::U32)?;
         }
+        if let Some(c) = &self.copies {
+            want(&c.members, c.members.count, DType::U32)?;
+            if c.starts.count == 0 || c.starts.count > c.members.count / 2 + 1 {
+                return Err(AtlasError::Inconsistent(format!(
+                    "{} copy groups cannot hold {} members",
+                    c.starts.count.saturating_sub(1),
+                    c.members.count
+                )));
+            }
+            want(&c.starts, c.starts.count, DType::U32)?;
+            want(&c.pairs, 2 * c.pair_bits.count, DType::U32)?;
+            want(&c.pair_bits, c.pair_bits.count, DType::U8)?;
+            if c.members.count > n {
+                return Err(AtlasError::Inconsistent(format!(
+                    "{} items in copy groups of {n} items",
+                    c.members.count
+                )));
+            }
+        }
         if let Some(s) = &self.sheets {
             want(&s.extents, n, DType::U32)?;
             if let Some(sizes) = &s.image_sizes {
@@ -737,6 +865,9 @@ impl Manifest {
         }
         if let Some(b) = &self.vectors {
             v.extend(&b.chunks);
+        }
+        if let Some(c) = &self.copies {
+            v.extend([&c.members, &c.starts, &c.pairs, &c.pair_bits]);
         }
         v
     }

@@ -72,3 +72,33 @@ fn manifest_rejects_garbage_without_panicking() {
         let _ = Manifest::from_json(&s);
     }
 }
+
+#[test]
+fn copy_groups_are_checked_item_by_item() {
+    // Two groups: items 0, 2, 5 and items 1, 3; the pairs join them.
+    let g = CopyGroups::new(
+        6,
+        vec![0, 2, 5, 1, 3],
+        vec![0, 3, 5],
+        vec![0, 2, 2, 5, 1, 3],
+        vec![4, 0, 6],
+    )
+    .unwrap();
+    assert_eq!(g.groups(), 2);
+    assert_eq!(g.group(5), &[0, 2, 5]);
+    assert_eq!(g.group(3), &[1, 3]);
+    assert!(g.group(4).is_empty());
+    let bad = |members: Vec<u32>, starts: Vec<u32>, pairs: Vec<u32>, bits: Vec<u8>| {
+        CopyGroups::new(6, members, starts, pairs, bits)
+            .unwrap_err()
+            .to_string()
+    };
+    assert!(bad(vec![0, 2, 2, 5], vec![0, 2, 4], vec![], vec![]).contains("two groups"));
+    assert!(bad(vec![0, 2, 5], vec![0, 1, 3], vec![], vec![]).contains("fewer than two"));
+    assert!(bad(vec![0, 9], vec![0, 2], vec![], vec![]).contains("not one of the 6 items"));
+    assert!(bad(vec![0, 2], vec![0, 3], vec![], vec![]).contains("end at the 2 members"));
+    assert!(
+        bad(vec![0, 2, 1, 3], vec![0, 2, 4], vec![0, 1], vec![3]).contains("not within one group")
+    );
+    assert!(bad(vec![0, 2], vec![0, 2], vec![0, 2], vec![]).contains("differ in number"));
+}

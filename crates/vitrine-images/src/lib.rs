@@ -8,6 +8,7 @@
 //! images, whatever the collection's size.
 
 pub mod cache;
+pub mod copies;
 pub mod decode;
 pub mod phash;
 pub mod thumbs;

@@ -17,7 +17,7 @@ const SIDE: usize = 32;
 const LOW: usize = 8;
 
 /// The grey value of an sRGB pixel: 0.299 R + 0.587 G + 0.114 B, rounded, in 16-bit fixed point.
-fn luma(p: &[u8; 3]) -> u8 {
+pub(crate) fn luma(p: &[u8; 3]) -> u8 {
     ((p[0] as u32 * 19595 + p[1] as u32 * 38470 + p[2] as u32 * 7471 + 0x8000) >> 16) as u8
 }
 
@@ -27,6 +27,12 @@ pub fn phash(rgb: &RgbImage) -> u64 {
     let grey = GrayImage::from_fn(w, h, |x, y| image::Luma([luma(&rgb.get_pixel(x, y).0)]));
     let small = image::imageops::resize(&grey, SIDE as u32, SIDE as u32, FilterType::Lanczos3);
     let px: Vec<f64> = small.pixels().map(|p| p.0[0] as f64).collect();
+    hash_of_32(&px)
+}
+
+/// The hash of a grey picture already scaled to 32 x 32 (row-major, 1,024 values).
+pub(crate) fn hash_of_32(px: &[f64]) -> u64 {
+    debug_assert_eq!(px.len(), SIDE * SIDE);
     // cos(pi k (2n + 1) / 2N) for the 8 lowest frequencies k and every sample n.
     let basis: Vec<f64> = (0..LOW)
         .flat_map(|k| {

@@ -53,6 +53,9 @@ pub struct Thumbnailed {
     pub problems: Vec<ImageProblem>,
     /// Per item: SHA-256 and byte size of the image file (empty when there was none).
     pub digests: Vec<(String, u64)>,
+    /// Per item asked for: the signature its copies are found by, taken from the largest
+    /// thumbnail (None when not asked for or when the image could not be used).
+    pub signatures: Vec<Option<crate::copies::Signature>>,
 }
 
 /// A thumbnail fitted into a `cell` x `cell` square, aspect kept, resampled with a Lanczos-3
@@ -177,15 +180,18 @@ fn average(img: &RgbImage) -> [u8; 4] {
     [(s[0] / n) as u8, (s[1] / n) as u8, (s[2] / n) as u8, 255]
 }
 
-/// Makes every sheet. `images[i]` is the file for item i in atlas order, or why there is none.
+/// Makes every sheet. `images[i]` is the file for item i in atlas order, or why there is none;
+/// `signed[i]` says whether item i's copy signature is wanted (an empty slice: none is).
 pub fn make_sheets(
     images: &[(String, Result<PathBuf, String>)],
+    signed: &[bool],
     plan: &SheetPlan,
     out_dir: &Path,
     cache: Option<&crate::cache::ThumbCache>,
     progress: &(dyn Fn(u64) + Sync),
 ) -> std::io::Result<Thumbnailed> {
     let n = images.len();
+    let mut signatures = vec![None; n];
     let mut colours = vec![[0u8; 4]; n];
     let mut extents = vec![0u32; n];
     let mut sizes = vec![[0u32; 2]; n];
@@ -209,7 +215,9 @@ pub fn make_sheets(
         let thumbs: Vec<(Vec<RgbImage>, Option<ImageFailure>, (String, u64), [u32; 2])> = images
             [start..end]
             .par_iter()
-            .map(|(_, path)| {
+            .zip(signatures[start..end].par_iter_mut())
+            .enumerate()
+            .map(|(off, ((_, path), signature))| {
                 let (result, digest) = match path {
                     Err(reason) => (
                         Err(ImageFailure::Missing(reason.clone())),
@@ -223,6 +231,9 @@ pub fn make_sheets(
                 }
                 match result {
                     Ok((big, size)) => {
+                        if signed.get(start + off).copied().unwrap_or(false) {
+                            *signature = Some(crate::copies::signature(&big));
+                        }
                         let mut levels: Vec<RgbImage> = plan.cells[..plan.cells.len() - 1]
                             .iter()
                             .map(|&c| fit(&big, c))
@@ -306,5 +317,6 @@ pub fn make_sheets(
         files,
         problems,
         digests,
+        signatures,
     })
 }
