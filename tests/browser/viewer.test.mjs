@@ -1130,6 +1130,88 @@ test("growing from examples: three marked in record cards, a model trained on th
   assert.deepEqual(errors, []);
 });
 
+test("copies: the record card lists an item's copies and links them on the map, the field filters every item with copies, the tray adds a whole group", async () => {
+  // The groups as the atlas holds them, read here from its arrays (atlas order) and ids.
+  const manifest = JSON.parse(fs.readFileSync(path.join(ATLAS, "atlas.json"), "utf8"));
+  const u32 = (ref) => new Uint32Array(new Uint8Array(fs.readFileSync(path.join(ATLAS, ref.file))).buffer);
+  const offsets = u32(manifest.ids);
+  const idBytes = fs.readFileSync(path.join(ATLAS, manifest.ids_text.file));
+  const idOf = (i) => idBytes.subarray(offsets[i], offsets[i + 1]).toString("utf8");
+  const members = u32(manifest.copies.members), starts = u32(manifest.copies.starts);
+  assert.ok(starts.length > 1, "the demo atlas has copy groups");
+  // The largest group, and every item in a group.
+  let g = 0;
+  for (let k = 1; k + 1 < starts.length; k++) if (starts[k + 1] - starts[k] > starts[g + 1] - starts[g]) g = k;
+  const group = [...members.subarray(starts[g], starts[g + 1])].map(idOf).sort();
+  const url = await serve(ATLAS);
+  const { page, errors } = await newPage(url);
+  await page.waitForFunction(() => document.body.dataset.state === "ready", null, { timeout: 60000 });
+  await settle(page);
+  await page.evaluate((id) => window.vitrineView.focus_item(id, 10), group[0]);
+  await page.evaluate((id) => window.vitrineView.open_record(id), group[0]);
+  await page.waitForFunction((id) => document.body.dataset.card === id, group[0]);
+  const listed = await page.locator("#card .copies-strip .pic").evaluateAll((p) => p.map((e) => e.dataset.id));
+  assert.deepEqual([...listed, group[0]].sort(), group);
+  // Copy links from the card's item to each copy, drawn apart from the neighbour links.
+  await page.waitForFunction((n) => document.body.dataset.copyLinks === String(n), group.length - 1);
+  assert.equal(await page.locator("#links line.copy").count(), group.length - 1);
+  await settle(page);
+  await page.screenshot({ path: path.join(ARTIFACTS, "28-copies.png") });
+  // Close up, a picture with copies has its top right corner turned down in the accent colour
+  // (exact accent pixels around it; none around a picture without copies).
+  const accentAround = async (id, name) => {
+    await page.evaluate((id) => window.vitrineView.focus_item(id, 80), id);
+    await settle(page);
+    const [x, y] = await page.evaluate((id) => window.vitrineView.screen_position_of(id), id);
+    const shot = PNG.sync.read(await page.locator("#map").screenshot({ path: path.join(ARTIFACTS, name) }));
+    let n = 0;
+    for (let yy = Math.round(y - 40); yy < y + 40; yy++) {
+      for (let xx = Math.round(x - 40); xx < x + 40; xx++) {
+        const o = (yy * shot.width + xx) * 4;
+        if (shot.data[o] === 0x11 && shot.data[o + 1] === 0x64 && shot.data[o + 2] === 0x66) n++;
+      }
+    }
+    return n;
+  };
+  await page.keyboard.press("Escape");
+  await page.mouse.move(5, 5);
+  const withCopies = await accentAround(group[1], "28b-copies-close.png");
+  const grouped = new Set([...members].map(idOf));
+  const single = readCsv(fs.readFileSync(CATALOGUE, "utf8")).find((r) => r.subject === "heraldry" && !grouped.has(r.id)).id;
+  const without = await accentAround(single, "28c-no-copies-close.png");
+  assert.ok(withCopies >= 10 && without === 0, `accent pixels: ${withCopies} with copies, ${without} without`);
+  await page.evaluate((id) => window.vitrineView.open_record(id), group[0]);
+  await page.waitForFunction((id) => document.body.dataset.card === id, group[0]);
+  // A copy's picture opens its card, which lists the first item among its copies.
+  await page.locator("#card .copies-strip .pic").first().click();
+  await page.waitForFunction((id) => document.body.dataset.card === id, listed[0]);
+  assert.ok((await page.locator("#card .copies-strip .pic").evaluateAll((p) => p.map((e) => e.dataset.id))).includes(group[0]));
+  // The whole group into the corpus in one step.
+  await page.click("#copies-add");
+  await page.waitForFunction((n) => document.querySelector("#tray-count")?.textContent === String(n), group.length);
+  // The field "copies" filters every item with copies (as many as the groups hold).
+  await page.keyboard.press("Escape");
+  await page.click("#clear");
+  await page.evaluate(() => window.vitrineView.set_filter(JSON.stringify({ kind: "category", field: "copies", values: ["has copies"] })));
+  await page.waitForFunction((n) => document.querySelector("#tray-count")?.textContent === String(n), members.length);
+  // The tray adds the copies of what it holds: one item of the group in, the rest follow.
+  await page.click("#clear");
+  await page.evaluate(() => window.vitrineView.set_filter(JSON.stringify({ kind: "category", field: "copies", values: [] })));
+  await page.evaluate((id) => window.vitrineView.open_record(id), group[1]);
+  await page.waitForFunction((id) => document.body.dataset.card === id, group[1]);
+  await page.keyboard.press("Escape");
+  await page.evaluate((id) => window.vitrineView.select_ids(JSON.stringify([id])), group[1]);
+  await page.waitForFunction(() => document.querySelector("#tray-count")?.textContent === "1");
+  await page.click("#add-copies");
+  await page.waitForFunction((n) => document.querySelector("#tray-count")?.textContent === String(n), group.length);
+  const dir = fs.mkdtempSync(path.join(os.tmpdir(), "vitrine-copies-"));
+  const [d] = await Promise.all([page.waitForEvent("download"), page.click("#export-json")]);
+  const file = path.join(dir, "copies.corpus.json");
+  await d.saveAs(file);
+  assert.deepEqual([...JSON.parse(fs.readFileSync(file, "utf8")).ids].sort(), group);
+  assert.deepEqual(errors, []);
+});
+
 test("the page's Content-Security-Policy allows no inline script, no eval and no other origin, and the viewer runs under it", async () => {
   const url = await serve(ATLAS);
   const { page, errors } = await newPage(url);

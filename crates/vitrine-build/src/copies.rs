@@ -83,17 +83,20 @@ pub struct Checked {
     pub copy: bool,
 }
 
-/// Judges every candidate (`signatures` and `digests` indexed as the candidates' items), and adds
-/// the pairs of items whose files have the same digest.
+/// Judges every candidate (`signatures`, `digests` and `usable` indexed as the candidates' items),
+/// and adds the pairs of items whose files have the same digest. Only files that could be used
+/// (decoded into a picture) count as the same bytes: every empty or broken file is not one
+/// picture.
 pub fn check(
     candidates: &[(u32, u32, f32)],
     signatures: &[Option<Signature>],
     digests: &[String],
+    usable: &[bool],
     rule: &CopyRule,
 ) -> Vec<Checked> {
     let same = |a: u32, b: u32| {
         let (x, y) = (&digests[a as usize], &digests[b as usize]);
-        !x.is_empty() && x == y
+        usable[a as usize] && usable[b as usize] && !x.is_empty() && x == y
     };
     let mut checked: Vec<Checked> = candidates
         .iter()
@@ -121,7 +124,7 @@ pub fn check(
     let listed: std::collections::HashSet<(u32, u32)> =
         checked.iter().map(|c| (c.a, c.b)).collect();
     for (i, d) in digests.iter().enumerate() {
-        if d.is_empty() {
+        if d.is_empty() || !usable[i] {
             continue;
         }
         let first = *by_digest.entry(d.as_str()).or_insert(i as u32);
@@ -130,7 +133,7 @@ pub fn check(
                 a: first,
                 b: i as u32,
                 distance: f32::NAN,
-                bits: Some(0),
+                bits: None,
                 colour: None,
                 same_file: true,
                 copy: true,
@@ -229,7 +232,8 @@ mod tests {
         // 0, 1 and 2 share a picture; 5 is another picture; 3 and 4 are the same file.
         let signatures = vec![sig(1), sig(1), sig(1), sig(2), sig(3), sig(4), None];
         let cands = vec![(0, 1, 0.1), (1, 2, 0.1), (2, 5, 0.1), (5, 6, 0.1)];
-        let checked = check(&cands, &signatures, &digests, &CopyRule::default());
+        let usable = vec![true; 7];
+        let checked = check(&cands, &signatures, &digests, &usable, &CopyRule::default());
         let copy: Vec<(u32, u32)> = checked
             .iter()
             .filter(|c| c.copy)
@@ -239,5 +243,10 @@ mod tests {
         // No picture: judged as unknown, not a copy.
         assert_eq!(checked[3].bits, None);
         assert_eq!(groups(7, &checked), vec![vec![0, 1, 2], vec![3, 4]]);
+        // Files that could not be used are not the same picture, whatever their bytes.
+        let mut broken = usable.clone();
+        broken[4] = false;
+        let checked = check(&cands, &signatures, &digests, &broken, &CopyRule::default());
+        assert_eq!(groups(7, &checked), vec![vec![0, 1, 2]]);
     }
 }

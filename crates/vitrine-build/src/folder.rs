@@ -18,6 +18,7 @@ pub const ATLAS_ENTRIES: &[&str] = &[
     "index.html",
     "build-report.json",
     "image-digests.txt",
+    "copy-pairs.csv",
 ];
 
 /// Refuses to replace a folder unless it is empty or an atlas holding only what a build writes, so that

@@ -75,13 +75,8 @@ impl Atlas {
         let Some(c) = &self.manifest.copies else {
             return Ok(None);
         };
-        Ok(Some(vitrine_format::CopyGroups::new(
-            self.manifest.item_count as usize,
-            self.array(&c.members)?,
-            self.array(&c.starts)?,
-            self.array(&c.pairs)?,
-            self.array(&c.pair_bits)?,
-        )?))
+        let files = self.load([&c.members, &c.starts, &c.pairs, &c.pair_bits])?;
+        Ok(files.copies(&self.manifest)?)
     }
 
     /// The distances matching [`Atlas::neighbour_ids`].

@@ -447,16 +447,16 @@ fn clusters(
     }
 }
 
-/// Thumbnails and sheets of every level, the average colour of each picture, and the images'
-/// provenance (`image-digests.txt`: one line per image, SHA-256, bytes and path, hashed as a whole).
-#[allow(clippy::too_many_arguments)]
-/// What the thumbnails leave for the copies: each item's signature (where asked for) and its
-/// file's digest, in atlas order.
+/// What the thumbnails leave for the copies: each item's signature (where asked for), its file's
+/// digest, and whether its image could be used, in atlas order.
 struct Signed {
     signatures: Vec<Option<vitrine_images::copies::Signature>>,
     digests: Vec<String>,
+    usable: Vec<bool>,
 }
 
+/// Thumbnails and sheets of every level, the average colour of each picture, and the images'
+/// provenance (`image-digests.txt`: one line per image, SHA-256, bytes and path, hashed as a whole).
 #[allow(clippy::too_many_arguments)]
 fn pictures(
     w: &mut ArrayWriter,
@@ -597,6 +597,7 @@ fn pictures(
         Signed {
             signatures: t.signatures,
             digests: t.digests.into_iter().map(|(d, _)| d).collect(),
+            usable: t.sizes.iter().map(|s| s[0] > 0).collect(),
         },
     ))
 }
@@ -621,7 +622,13 @@ fn write_copies(
     progress: &dyn Progress,
 ) -> Result<vitrine_format::Copies> {
     let n = ids.len();
-    let checked = crate::copies::check(candidates, &signed.signatures, &signed.digests, rule);
+    let checked = crate::copies::check(
+        candidates,
+        &signed.signatures,
+        &signed.digests,
+        &signed.usable,
+        rule,
+    );
     let groups = crate::copies::groups(n, &checked);
     let mut csv =
         String::from("id_a,id_b,vector_distance,hash_bits,colour_correlation,same_file,copy\n");

@@ -124,7 +124,13 @@ fn copies_of_invented_scenes_are_found_with_precision_and_recall_and_look_alikes
         .output()
         .unwrap();
     let said = common::stdout_of(&o);
-    assert!(said.contains("copies"), "{said}");
+    let groups = report["copies"]["groups"].as_u64().unwrap();
+    assert!(
+        said.contains(&format!(
+            "copies    {items} items in {groups} groups, joined by"
+        )),
+        "{said}"
+    );
 }
 
 #[test]
@@ -149,6 +155,10 @@ fn copies_are_not_looked_for_when_asked_not_to_and_bad_thresholds_are_named() {
     let manifest = std::fs::read_to_string(d.join("atlas/atlas.json")).unwrap();
     assert!(!manifest.contains("\"copies\""), "{manifest}");
     assert!(!d.join("atlas/copy-pairs.csv").exists());
+    // An atlas with copies (and its copy-pairs.csv) is replaced by the next build like any other.
+    common::build_atlas(d, &args);
+    assert!(d.join("atlas/copy-pairs.csv").exists());
+    common::build_atlas(d, &args);
     for (flag, value) in [
         ("--copy-bits", "40"),
         ("--copy-ratio", "0"),

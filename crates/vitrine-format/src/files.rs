@@ -101,6 +101,20 @@ impl AtlasFiles {
         }
     }
 
+    /// The copy groups, checked (None: the build did not look for copies).
+    pub fn copies(&self, m: &Manifest) -> Result<Option<crate::CopyGroups>, AtlasError> {
+        match &m.copies {
+            Some(c) => Ok(Some(crate::CopyGroups::new(
+                m.item_count as usize,
+                self.array(&c.members)?,
+                self.array(&c.starts)?,
+                self.array(&c.pairs)?,
+                self.array(&c.pair_bits)?,
+            )?)),
+            None => Ok(None),
+        }
+    }
+
     /// Every item's cluster number (None: the atlas has no clusters).
     pub fn clusters(&self, m: &Manifest) -> Result<Option<Vec<u32>>, AtlasError> {
         match &m.clusters {

@@ -559,7 +559,12 @@ impl CopyGroups {
         }
         let mut group_of = vec![u32::MAX; n];
         for (g, w) in starts.windows(2).enumerate() {
-            if w[1] < w[0] + 2 {
+            if w[1] < w[0] || w[1] as usize > members.len() {
+                return Err(bad(format!(
+                    "group {g}'s start runs back or past the members"
+                )));
+            }
+            if w[1] - w[0] < 2 {
                 return Err(bad(format!("group {g} has fewer than two members")));
             }
             for &m in &members[w[0] as usize..w[1] as usize] {

@@ -101,4 +101,9 @@ fn copy_groups_are_checked_item_by_item() {
         bad(vec![0, 2, 1, 3], vec![0, 2, 4], vec![0, 1], vec![3]).contains("not within one group")
     );
     assert!(bad(vec![0, 2], vec![0, 2], vec![0, 2], vec![]).contains("differ in number"));
+    // Starts that run back or past the members are refused, not sliced.
+    assert!(bad(vec![0, 1, 2, 3, 4], vec![0, 7, 5], vec![], vec![]).contains("runs back or past"));
+    assert!(
+        bad(vec![0, 1, 2, 3], vec![0, u32::MAX, 4], vec![], vec![]).contains("runs back or past")
+    );
 }

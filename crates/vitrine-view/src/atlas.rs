@@ -38,6 +38,9 @@ pub struct AtlasData {
     pub catalogue: bool,
     /// The original images' widths and heights (pairs per item; 0, 0 unknown), with the catalogue.
     pub image_sizes: Vec<u32>,
+    /// Groups of copies of one picture (empty when the build found none or did not look), with
+    /// the catalogue.
+    pub copies: vitrine_format::CopyGroups,
 }
 
 /// One line of a record card.
@@ -249,6 +252,7 @@ impl AtlasData {
             manifest,
             catalogue: false,
             image_sizes: Vec::new(),
+            copies: Default::default(),
         };
         if later {
             atlas.complete(files)?;
@@ -262,6 +266,7 @@ impl AtlasData {
         let ids = files.ids(m)?;
         let fields = vitrine_corpus::columns::decode_fields(m, files)?;
         let image_sizes = files.image_sizes(m)?.unwrap_or_default();
+        self.copies = files.copies(m)?.unwrap_or_default();
         self.image_sizes = image_sizes;
         self.ids = ids;
         self.fields = fields;

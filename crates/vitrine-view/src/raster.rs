@@ -874,6 +874,9 @@ fn draw_thumbnails<I: Iterator<Item = usize>>(
                         fade.map(|t| (rgb(atlas.colours[i]), t))
                     };
                     blit(buf, w, clip, r, sheet, cell, fade);
+                    if weight == 256 && !atlas.copies.group(i).is_empty() {
+                        dog_ear(buf, w, clip, r, scene.theme.accent);
+                    }
                 }
                 stats.thumbnails += 1;
                 used.insert((l, s));
@@ -889,6 +892,19 @@ fn draw_thumbnails<I: Iterator<Item = usize>>(
                 stats.marks += 1;
             }
         }
+    }
+}
+
+/// The mark of a picture that has copies: its top right corner turned down, in the accent
+/// colour, a right triangle whose legs are a fifth of the picture's shorter side (4 to 12 px).
+fn dog_ear(buf: &mut [u8], w: usize, clip: [usize; 4], r: [f64; 4], c: [u8; 3]) {
+    let leg = ((r[2] - r[0]).min(r[3] - r[1]) * 0.2).clamp(4.0, 12.0);
+    let rows = leg.round() as usize;
+    for k in 0..rows {
+        // Row k below the top edge covers the last (leg - k) pixels of the picture's width.
+        let y = r[1] + k as f64;
+        let x0 = r[2] - (leg - k as f64);
+        fill_rect_in(buf, w, clip, [x0, y, r[2], y + 1.0], c);
     }
 }
 

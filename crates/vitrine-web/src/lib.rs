@@ -505,8 +505,37 @@ impl App {
         }
         // The pairs to join, and whether every list they come from is here.
         let mut pairs: Vec<(usize, usize)> = Vec::new();
+        // Copy links (drawn apart): the focus's group, or the groups within the selection.
+        let mut copy_pairs: Vec<(usize, usize)> = Vec::new();
         let mut complete = true;
         let mut wanted = Vec::new();
+        match focus {
+            Some(i) => copy_pairs.extend(
+                self.atlas
+                    .copies
+                    .group(i)
+                    .iter()
+                    .map(|&j| j as usize)
+                    .filter(|&j| j != i && !hidden(self, j))
+                    .map(|j| (i, j)),
+            ),
+            None => {
+                if let Some(m) = self.selection.mask() {
+                    if m.count() <= SELECTION_LINKS {
+                        for &[a, b] in &self.atlas.copies.pairs {
+                            let (a, b) = (a as usize, b as usize);
+                            if m.get(a) && m.get(b) {
+                                copy_pairs.push((a, b));
+                            }
+                        }
+                    }
+                }
+            }
+        }
+        let copy_set: HashSet<(usize, usize)> = copy_pairs
+            .iter()
+            .flat_map(|&(a, b)| [(a, b), (b, a)])
+            .collect();
         match focus {
             Some(i) => match self.atlas.neighbours_of(i) {
                 // (Neighbours the filters hide are left out: nothing shows at their end.)
@@ -541,6 +570,8 @@ impl App {
                 }
             }
         }
+        // A neighbour that is also a copy is drawn once, as a copy.
+        pairs.retain(|p| !copy_set.contains(p));
         // Lists of the selection not yet here: fetched once this frame is over, then drawn.
         if !wanted.is_empty() {
             wasm_bindgen_futures::spawn_local(async move {
@@ -550,7 +581,7 @@ impl App {
             });
         }
         svg.set_text_content(None);
-        if pairs.is_empty() {
+        if pairs.is_empty() && copy_pairs.is_empty() {
             let _ = svg.set_attribute("hidden", "");
         } else {
             let css = css_per_px();
@@ -560,11 +591,18 @@ impl App {
             };
             let doc = document();
             let ns = Some("http://www.w3.org/2000/svg");
-            for &(i, j) in &pairs {
+            let lines = pairs
+                .iter()
+                .map(|p| (p, ""))
+                .chain(copy_pairs.iter().map(|p| (p, "copy")));
+            for (&(i, j), class) in lines {
                 let ((x0, y0), (x1, y1)) = (at(i), at(j));
                 if let Ok(l) = doc.create_element_ns(ns, "line") {
                     for (k, v) in [("x1", x0), ("y1", y0), ("x2", x1), ("y2", y1)] {
                         let _ = l.set_attribute(k, &format!("{v:.1}"));
+                    }
+                    if !class.is_empty() {
+                        let _ = l.set_attribute("class", class);
                     }
                     let _ = svg.append_child(&l);
                 }
@@ -572,6 +610,7 @@ impl App {
             let _ = svg.remove_attribute("hidden");
         }
         set_state("links", &pairs.len().to_string());
+        set_state("copyLinks", &copy_pairs.len().to_string());
         // Kept only once every list was here (until then each frame looks again).
         if complete {
             LINKS_DRAWN.with(|k| *k.borrow_mut() = key);
@@ -902,6 +941,9 @@ fn open_card(i: Option<usize>) {
     if let Some(codes) = coding::card_codes(&a, i) {
         let _ = card.append_child(&codes);
     }
+    if let Some(s) = copies_section(&a, i) {
+        let _ = card.append_child(&s);
+    }
     let h = doc.create_element("h3").unwrap();
     h.set_text_content(Some("Nearest neighbours"));
     let _ = card.append_child(&h);
@@ -964,6 +1006,74 @@ fn under_pointer(a: &App) -> Option<usize> {
 /// Whether the filters hide item `i` ("hide the rest" on, the item not passing).
 fn hidden(a: &App, i: usize) -> bool {
     a.filters.hide && a.filters.passing().is_some_and(|m| !m.get(i))
+}
+
+/// The record card's list of item `i`'s copies (the other members of its group: pictures that
+/// open their cards), and a button that adds the whole group to the corpus; None when it has none.
+fn copies_section(a: &App, i: usize) -> Option<web_sys::Element> {
+    let group: Vec<usize> = a
+        .atlas
+        .copies
+        .group(i)
+        .iter()
+        .map(|&j| j as usize)
+        .collect();
+    if group.is_empty() {
+        return None;
+    }
+    let sec = coding::el("section", "copies", "");
+    let others = group.len() - 1;
+    let _ = sec.append_child(&coding::el(
+        "h3",
+        "",
+        &format!(
+            "Copies of this picture ({others} other{})",
+            if others == 1 { "" } else { "s" }
+        ),
+    ));
+    let strip = coding::el("div", "closest-strip copies-strip", "");
+    let _ = strip.set_attribute("role", "list");
+    let dpr = web_sys::window().map_or(1.0, |w| w.device_pixel_ratio());
+    for &j in group.iter().filter(|&&j| j != i) {
+        let tile = coding::el("div", "tile", "");
+        let _ = tile.set_attribute("role", "listitem");
+        let pic = tray::picture_button(a, j, dpr);
+        let _ = pic.set_attribute("data-id", a.atlas.id(j));
+        listen(&pic, "click", true, move |_e: web_sys::MouseEvent| {
+            open_card(Some(j))
+        });
+        let _ = tile.append_child(&pic);
+        let _ = strip.append_child(&tile);
+    }
+    let _ = sec.append_child(&strip);
+    let add = coding::button(
+        &format!("Add all {} to the corpus", group.len()),
+        "Adds this picture and every copy of it to the corpus (one step)",
+        move || add_copies(group.clone()),
+    );
+    add.set_id("copies-add");
+    let _ = sec.append_child(&add);
+    Some(sec)
+}
+
+/// Adds `items` to the corpus in one step (a copy group, or the copies of the corpus's items).
+pub fn add_copies(items: Vec<usize>) {
+    let Some(app) = app() else { return };
+    if items.is_empty() {
+        return;
+    }
+    let r = {
+        let mut a = app.borrow_mut();
+        let ids: Vec<String> = items.iter().map(|&i| a.atlas.id(i).to_string()).collect();
+        a.apply_step(Step {
+            op: Op::Add,
+            shape: Shape::Ids(ids),
+        })
+    };
+    if let Err(e) = r {
+        select::note(&e);
+    }
+    select::refresh();
 }
 
 /// Items shown in the record card's strip of the closest over the whole collection.

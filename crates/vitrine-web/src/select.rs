@@ -191,6 +191,9 @@ pub fn refresh() {
     super::grow::corpus_changed();
     let state = app.borrow_mut().corpus_changed();
     show_figures(state.figures.as_ref());
+    if let Some(b) = by_id("add-copies") {
+        b.set_hidden(app.borrow().atlas.copies.groups() == 0);
+    }
     let (count, corpus, history, any) = (
         state.selected,
         state.corpus,
@@ -445,8 +448,51 @@ pub fn install() {
             );
         }
     }
+    if let Some(b) = by_id("add-copies") {
+        listen(&b, "click", true, |_e: web_sys::MouseEvent| {
+            add_their_copies()
+        });
+    }
     set_state("mode", "move");
     refresh();
+}
+
+/// Adds to the corpus every copy of its pictures that is not in it yet (their whole groups).
+fn add_their_copies() {
+    let Some(app) = app() else { return };
+    let missing: Vec<usize> = {
+        let a = app.borrow();
+        let Some(m) = a.selection.mask() else { return };
+        let mut out = std::collections::BTreeSet::new();
+        for &i in &a.tray_items {
+            for &j in a.atlas.copies.group(i as usize) {
+                if !m.get(j as usize) {
+                    out.insert(j as usize);
+                }
+            }
+        }
+        out.into_iter().collect()
+    };
+    if missing.is_empty() {
+        note("The corpus's pictures have no copies outside it.");
+        return;
+    }
+    crate::add_copies(missing);
+}
+
+/// For tests and scripts: makes the corpus the items of the JSON list of ids (as a corpus file's
+/// step by ids does); returns the selected count.
+#[wasm_bindgen]
+pub fn select_ids(json: &str) -> Result<usize, JsValue> {
+    let ids: Vec<String> =
+        serde_json::from_str(json).map_err(|e| JsValue::from_str(&e.to_string()))?;
+    apply(Step {
+        op: Op::Replace,
+        shape: Shape::Ids(ids),
+    });
+    Ok(app()
+        .and_then(|a| a.borrow().selection.mask().map(|m| m.count()))
+        .unwrap_or(0))
 }
 
 /// For tests and scripts: selects with a lasso through canvas points [x0, y0, x1, y1, ...] and
