@@ -97,8 +97,8 @@ function regionColours(png, cx, cy, r) {
   return colours.size;
 }
 
-async function newPage(url) {
-  const page = await browser.newPage({ viewport: { width: 1280, height: 800 } });
+async function newPage(url, scale = 1) {
+  const page = await browser.newPage({ viewport: { width: 1280, height: 800 }, deviceScaleFactor: scale });
   const errors = [];
   page.on("pageerror", (e) => errors.push(String(e)));
   page.on("console", (m) => { if (m.type() === "error") errors.push(m.text()); });
@@ -1209,6 +1209,45 @@ test("copies: the record card lists an item's copies and links them on the map, 
   const file = path.join(dir, "copies.corpus.json");
   await d.saveAs(file);
   assert.deepEqual([...JSON.parse(fs.readFileSync(file, "utf8")).ids].sort(), group);
+  assert.deepEqual(errors, []);
+});
+
+test("at a device pixel ratio of 2 the links end at the card's neighbours and a click at a link's end opens that neighbour", async () => {
+  const url = await serve(ATLAS);
+  const { page, errors } = await newPage(url, 2);
+  await page.waitForFunction(() => document.body.dataset.state === "ready", null, { timeout: 60000 });
+  assert.equal(await page.evaluate(() => window.devicePixelRatio), 2);
+  await settle(page);
+  const id = await page.evaluate(() => window.vitrineView.crowded_item());
+  await page.evaluate((id) => window.vitrineView.focus_item(id, 6), id);
+  await page.evaluate((id) => window.vitrineView.open_record(id), id);
+  await page.waitForFunction(() => document.querySelectorAll("#card ol.neighbours li").length === 15);
+  await page.waitForFunction(() => Number(document.body.dataset.links) > 0);
+  await settle(page);
+  // Lines are in CSS pixels; the map's positions in canvas pixels, twice as many.
+  const lines = await page.locator("#links line").evaluateAll((ls) =>
+    ls.map((l) => [l.x1.baseVal.value, l.y1.baseVal.value, l.x2.baseVal.value, l.y2.baseVal.value]));
+  const [x, y] = (await page.evaluate((id) => window.vitrineView.screen_position_of(id), id)).map((v) => v / 2);
+  assert.ok(lines.length > 0 && lines.every(([lx, ly]) => Math.abs(lx - x) < 1.5 && Math.abs(ly - y) < 1.5), "every link starts at the item");
+  const nbIds = await page.locator("#card ol.neighbours button").evaluateAll((bs) => bs.map((b) => b.dataset.id));
+  const ends = [];
+  for (const nb of nbIds) {
+    const p = await page.evaluate((nb) => window.vitrineView.screen_position_of(nb), nb);
+    ends.push([nb, p[0] / 2, p[1] / 2]);
+  }
+  for (const [, , lx, ly] of lines) {
+    assert.ok(ends.some(([, ex, ey]) => Math.abs(lx - ex) < 1.5 && Math.abs(ly - ey) < 1.5), `a link ends at ${lx}, ${ly}, at no neighbour`);
+  }
+  // The neighbour at the end of the longest link, clicked on the map where its line ends (out from
+  // under the card's panel).
+  const box = await page.locator("#map").boundingBox();
+  const card = await page.locator("#card").boundingBox();
+  const free = ends.filter(([, ex, ey]) => ex > card.x + card.width - box.x + 10 && ex < box.width - 10 && ey > 10 && ey < box.height - 10);
+  assert.ok(free.length > 0, "a neighbour shows beside the card");
+  free.sort((a, b) => Math.hypot(b[1] - x, b[2] - y) - Math.hypot(a[1] - x, a[2] - y));
+  const [target, tx, ty] = free[0];
+  await page.mouse.click(box.x + tx, box.y + ty);
+  await page.waitForFunction((t) => document.body.dataset.card === t, target);
   assert.deepEqual(errors, []);
 });
 

@@ -117,8 +117,14 @@ fn build_inspect_export_end_to_end() {
             ("dating", Date),
             ("height_cm", Number),
             ("notes", Text),
-            ("record", Link)
+            ("record", Link),
+            // Added by the build: the items that have copies (docs/copies.md).
+            ("copies", Category)
         ]
+    );
+    assert_eq!(
+        m.copies.as_ref().and_then(|c| c.field.as_deref()),
+        Some("copies")
     );
     // Every record survives with its own id, and the awkward title keeps its comma, quotes and newline.
     let ids = atlas.ids().unwrap();

@@ -308,14 +308,20 @@ impl AtlasData {
         self.ids.get(i).to_string()
     }
 
-    /// Every catalogue field of item `i`, as text, in catalogue order (the id first).
+    /// Every catalogue field of item `i`, as text, in catalogue order (the id first). The field the
+    /// build added for copies is left out: the card lists the copies themselves.
     pub fn record(&self, i: usize) -> Vec<RecordLine> {
         let mut out = vec![RecordLine {
             name: "id".into(),
             value: self.id(i).into(),
             link: false,
         }];
-        for f in &self.fields {
+        let added = self
+            .manifest
+            .copies
+            .as_ref()
+            .and_then(|c| c.field.as_deref());
+        for f in self.fields.iter().filter(|f| Some(f.field.name.as_str()) != added) {
             let value = f.text(i);
             let link = f.field.kind == FieldKind::Link
                 && (value.starts_with("https://") || value.starts_with("http://"));
