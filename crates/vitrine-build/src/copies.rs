@@ -3,8 +3,8 @@
 //! into groups.
 //!
 //! A pair is a candidate when the two items are neighbours in the graph and much closer than the
-//! item's neighbourhood: their distance at most `ratio` times the median distance of the item's
-//! own neighbours. Copies of one picture lie far closer together than different pictures do
+//! item's neighbourhood: their distance at most `ratio` times the 75th percentile of the distances
+//! of the item's own neighbours. Copies of one picture lie far closer together than different pictures do
 //! in any feature space worth the name, so the hashes need only be compared for few pairs, and a
 //! flat look-alike that hashes alike by chance is seldom asked about. Files with the same bytes
 //! (the same SHA-256) are copies whatever the graph says. Groups are the connected parts of the
@@ -16,8 +16,8 @@ use vitrine_map::knn::KnnGraph;
 /// When a candidate pair is taken for a copy.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct CopyRule {
-    /// A pair's distance at most this share of the item's median neighbour distance makes it a
-    /// candidate.
+    /// A pair's distance at most this share of the item's neighbourhood (the 75th percentile of
+    /// its neighbours' distances) makes it a candidate.
     pub ratio: f32,
     /// The hash distance (bits of 64, least over crops) at most.
     pub max_bits: u32,
@@ -29,7 +29,7 @@ impl Default for CopyRule {
     /// The thresholds the copies test set's curves support (docs/copies.md).
     fn default() -> CopyRule {
         CopyRule {
-            ratio: 0.7,
+            ratio: 0.5,
             max_bits: 8,
             min_colour: 0.6,
         }
@@ -37,17 +37,20 @@ impl Default for CopyRule {
 }
 
 /// Neighbour pairs (i < j, item indices of the graph) much closer than i's or j's neighbourhood,
-/// each once, with their distance.
+/// each once, with their distance. An item's neighbourhood is the 75th percentile of its
+/// neighbours' distances: its copies are among its nearest neighbours and pull a median down
+/// (a picture with eight copies among fifteen neighbours has a copy at its median), while the
+/// far quarter of the list stays among other pictures for groups of up to three quarters of k.
 pub fn candidates(graph: &KnnGraph, ratio: f32) -> Vec<(u32, u32, f32)> {
     let n = graph.ids.len() / graph.k.max(1);
-    let medians: Vec<f32> = (0..n)
+    let reference: Vec<f32> = (0..n)
         .map(|i| {
             let mut d: Vec<f32> = graph.neighbours(i).map(|(_, d)| d).collect();
             if d.is_empty() {
                 return 0.0;
             }
-            let mid = d.len() / 2;
-            *d.select_nth_unstable_by(mid, f32::total_cmp).1
+            let at = ((d.len() * 3) / 4).min(d.len() - 1);
+            *d.select_nth_unstable_by(at, f32::total_cmp).1
         })
         .collect();
     let mut pairs = Vec::new();
@@ -57,7 +60,7 @@ pub fn candidates(graph: &KnnGraph, ratio: f32) -> Vec<(u32, u32, f32)> {
                 continue;
             }
             let within = |m: f32| d <= ratio * m || d == 0.0;
-            if within(medians[i]) || within(medians[j]) {
+            if within(reference[i]) || within(reference[j]) {
                 let (a, b) = (i.min(j) as u32, i.max(j) as u32);
                 pairs.push((a, b, d));
             }
@@ -210,9 +213,29 @@ mod tests {
             ],
         );
         assert_eq!(candidates(&g, 0.5), vec![(0, 1, 0.05)]);
-        // A generous ratio takes in 2-3 (0.4 <= 0.9 x 0.5) as well.
-        let c: Vec<(u32, u32)> = candidates(&g, 0.9).iter().map(|c| (c.0, c.1)).collect();
+        // A more generous ratio takes in 2-3 as well (0.4 <= 0.75 x 0.55, item 2's 75th
+        // percentile), not yet 0-2 (0.5 > 0.75 x 0.6 and 0.75 x 0.55).
+        let c: Vec<(u32, u32)> = candidates(&g, 0.75).iter().map(|c| (c.0, c.1)).collect();
         assert_eq!(c, vec![(0, 1), (2, 3)]);
+    }
+
+    #[test]
+    fn a_picture_with_many_copies_among_its_neighbours_keeps_them_all_as_candidates() {
+        // Item 0 has nine copies (items 1-9, at 0.02-0.06) among fifteen neighbours; the other
+        // six lie at 0.5-0.6. Its median neighbour is a copy; its 75th percentile is not.
+        let mut list: Vec<(u32, f32)> = (1..10).map(|j| (j, 0.02 + 0.005 * j as f32)).collect();
+        list.extend((10..16).map(|j| (j, 0.5 + 0.02 * (j - 10) as f32)));
+        let mut lists = vec![list];
+        // The others' lists hold only far neighbours (so that only item 0's reference counts).
+        lists.extend((1..16).map(|_| vec![(0u32, 0.9f32); 15]));
+        let lists: Vec<&[(u32, f32)]> = lists.iter().map(|l| l.as_slice()).collect();
+        let g = graph(15, &lists);
+        let c: Vec<u32> = candidates(&g, 0.5)
+            .iter()
+            .filter(|c| c.0 == 0)
+            .map(|c| c.1)
+            .collect();
+        assert_eq!(c, (1..10).collect::<Vec<u32>>());
     }
 
     #[test]

@@ -704,7 +704,7 @@ fn write_copies(
     });
     Ok(vitrine_format::Copies {
         method: format!(
-            "candidates: neighbour pairs at most {} x the item's median neighbour distance, or files of the same bytes; confirmed: a 64-bit DCT perceptual hash within {} bits (least over 5 % and 10 % crops) and a colour correlation of at least {}; groups: connected confirmed pairs",
+            "candidates: neighbour pairs at most {} x the 75th percentile of the item's neighbour distances, or files of the same bytes; confirmed: a 64-bit DCT perceptual hash within {} bits (least over 5 % and 10 % crops) and a colour correlation of at least {}; groups: connected confirmed pairs",
             rule.ratio, rule.max_bits, rule.min_colour
         ),
         max_bits: rule.max_bits,

@@ -129,7 +129,7 @@ pub struct BuildArgs {
     #[arg(long)]
     no_copies: bool,
     /// Copies: two neighbours are a candidate pair when their distance is at most this share of
-    /// the item's median neighbour distance (0-1).
+    /// the 75th percentile of the item's neighbour distances (0-1).
     #[arg(long, default_value_t = vitrine_build::copies::CopyRule::default().ratio)]
     copy_ratio: f32,
     /// Copies: a candidate is a copy when the perceptual hashes differ in at most this many bits

@@ -512,7 +512,7 @@ pub struct Copies {
     /// How candidate pairs were found and confirmed, in words.
     pub method: String,
     /// Hash distance (bits of 64) at most, colour correlation at least, and vector distance at
-    /// most this share of the item's median neighbour distance, for a candidate to be a copy.
+    /// most this share of the 75th percentile of the item's neighbour distances, for a candidate to be a copy.
     pub max_bits: u32,
     pub min_colour: f32,
     pub ratio: f32,

@@ -321,7 +321,11 @@ impl AtlasData {
             .copies
             .as_ref()
             .and_then(|c| c.field.as_deref());
-        for f in self.fields.iter().filter(|f| Some(f.field.name.as_str()) != added) {
+        for f in self
+            .fields
+            .iter()
+            .filter(|f| Some(f.field.name.as_str()) != added)
+        {
             let value = f.text(i);
             let link = f.field.kind == FieldKind::Link
                 && (value.starts_with("https://") || value.starts_with("http://"));
