@@ -874,8 +874,12 @@ fn draw_thumbnails<I: Iterator<Item = usize>>(
                         fade.map(|t| (rgb(atlas.colours[i]), t))
                     };
                     blit(buf, w, clip, r, sheet, cell, fade);
-                    if weight == 256 && !atlas.copies.group(i).is_empty() {
-                        dog_ear(buf, w, clip, r, scene.theme.accent);
+                    if !atlas.copies.group(i).is_empty() {
+                        // Dimmed with its picture.
+                        let (a, p, t) = (scene.theme.accent, paper, weight as u32);
+                        let c = [0, 1, 2]
+                            .map(|k| ((a[k] as u32 * t + p[k] as u32 * (256 - t)) / 256) as u8);
+                        dog_ear(buf, w, clip, r, c);
                     }
                 }
                 stats.thumbnails += 1;
@@ -896,9 +900,11 @@ fn draw_thumbnails<I: Iterator<Item = usize>>(
 }
 
 /// The mark of a picture that has copies: its top right corner turned down, in the accent
-/// colour, a right triangle whose legs are a fifth of the picture's shorter side (4 to 12 px).
+/// colour, a right triangle whose legs are a fifth of the picture's shorter side (4 to 12 px, never
+/// beyond the picture).
 fn dog_ear(buf: &mut [u8], w: usize, clip: [usize; 4], r: [f64; 4], c: [u8; 3]) {
-    let leg = ((r[2] - r[0]).min(r[3] - r[1]) * 0.2).clamp(4.0, 12.0);
+    let short = (r[2] - r[0]).min(r[3] - r[1]);
+    let leg = (short * 0.2).clamp(4.0, 12.0).min(short);
     let rows = leg.round() as usize;
     for k in 0..rows {
         // Row k below the top edge covers the last (leg - k) pixels of the picture's width.

@@ -619,3 +619,74 @@ fn a_selection_dims_the_rest_and_hidden_items_leave_paper() {
         }
     }
 }
+
+#[test]
+fn a_picture_with_copies_has_its_top_right_corner_turned_down() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut atlas = fixture(dir.path());
+    // Each group of thirty is one picture saved thirty times, the same bytes: three copy groups.
+    assert_eq!(atlas.copies.groups(), 3);
+    let sheets = load_sheets(&atlas, dir.path(), &[0, 1]);
+    let group = |atlas: &AtlasData, i: usize| atlas.ids.get(i).parse::<usize>().unwrap() / 30;
+    let (w, h) = (400usize, 300usize);
+    let (cx, cy) = (atlas.positions[10][0] as f64, atlas.positions[10][1] as f64);
+    let cam = Camera {
+        centre: [cx, cy],
+        zoom: 100.0 / atlas.spacing,
+        size: [w as f64, h as f64],
+    };
+    let frame = |atlas: &AtlasData| {
+        let scene = Scene {
+            atlas,
+            grid: None,
+            sheets: &sheets,
+            camera: &cam,
+            hover: None,
+            open: None,
+            tones: None,
+            theme: READING_ROOM,
+        };
+        let mut buf = vec![0u8; w * h * 4];
+        let s = draw(&scene, &mut buf, w, h);
+        assert!(s.thumbnails > 0, "{s:?}");
+        let rects: Vec<[f64; 4]> = (0..atlas.n).map(|i| scene.item_rect(i)).collect();
+        (buf, rects)
+    };
+    let (buf, rects) = frame(&atlas);
+    // An item wholly on screen whose top right corner no other picture covers.
+    let inside = |r: &[f64; 4], x: f64, y: f64| x >= r[0] && x < r[2] && y >= r[1] && y < r[3];
+    let i = (0..atlas.n)
+        .find(|&i| {
+            let r = rects[i];
+            r[0] > 2.0
+                && r[1] > 2.0
+                && r[2] < w as f64 - 2.0
+                && r[3] < h as f64 - 2.0
+                && (0..atlas.n)
+                    .filter(|&j| j != i)
+                    .all(|j| !inside(&rects[j], r[2] - 1.5, r[1] + 1.5))
+        })
+        .expect("an item with its corner in view");
+    let (r, own) = (rects[i], COLOURS[group(&atlas, i)]);
+    // The corner is the accent; the rest of the picture (its other corners, its middle) its own.
+    assert_eq!(pixel(&buf, w, r[2] - 1.5, r[1] + 1.5), READING_ROOM.accent);
+    // (Points another picture covers are not the item's to show.)
+    let mut seen = 0;
+    for (x, y) in [
+        (r[0] + 1.5, r[1] + 1.5),
+        (r[0] + 1.5, r[3] - 1.5),
+        (r[2] - 1.5, r[3] - 1.5),
+        ((r[0] + r[2]) / 2.0, (r[1] + r[3]) / 2.0),
+    ] {
+        if (0..atlas.n).any(|j| j != i && inside(&rects[j], x, y)) {
+            continue;
+        }
+        assert!(close(pixel(&buf, w, x, y), own, 16), "{x}, {y}");
+        seen += 1;
+    }
+    assert!(seen > 0);
+    // Without copies, the corner is the picture's.
+    atlas.copies = Default::default();
+    let (buf, _) = frame(&atlas);
+    assert!(close(pixel(&buf, w, r[2] - 1.5, r[1] + 1.5), own, 16));
+}

@@ -489,7 +489,8 @@ impl App {
         let key = (!self.map_gliding()).then(|| {
             let c = &self.camera;
             format!(
-                "{focus:?} {} {} {} {:.4} {:.4} {:.6} {:?}",
+                "{focus:?} {} {} {} {} {:.4} {:.4} {:.6} {:?}",
+                self.atlas.catalogue,
                 self.selection.generation,
                 self.tones_generation,
                 self.atlas.current,
@@ -505,7 +506,9 @@ impl App {
         }
         // The pairs to join, and whether every list they come from is here.
         let mut pairs: Vec<(usize, usize)> = Vec::new();
-        // Copy links (drawn apart): the focus's group, or the groups within the selection.
+        // Copy links (drawn apart): from the focus to each of its copies (at most COPY_LINKS); or,
+        // within a selection of at most SELECTION_LINKS items, from each selected copy to the
+        // first selected member of its group.
         let mut copy_pairs: Vec<(usize, usize)> = Vec::new();
         let mut complete = true;
         let mut wanted = Vec::new();
@@ -517,15 +520,22 @@ impl App {
                     .iter()
                     .map(|&j| j as usize)
                     .filter(|&j| j != i && !hidden(self, j))
+                    .take(COPY_LINKS)
                     .map(|j| (i, j)),
             ),
             None => {
                 if let Some(m) = self.selection.mask() {
                     if m.count() <= SELECTION_LINKS {
-                        for &[a, b] in &self.atlas.copies.pairs {
-                            let (a, b) = (a as usize, b as usize);
-                            if m.get(a) && m.get(b) {
-                                copy_pairs.push((a, b));
+                        for i in m.items() {
+                            let first = self
+                                .atlas
+                                .copies
+                                .group(i)
+                                .iter()
+                                .map(|&j| j as usize)
+                                .find(|&j| m.get(j));
+                            if let Some(f) = first.filter(|&f| f != i) {
+                                copy_pairs.push((f, i));
                             }
                         }
                     }
@@ -986,6 +996,8 @@ fn open_card(i: Option<usize>) {
 
 /// The largest selection whose links the map shows.
 const SELECTION_LINKS: usize = 500;
+/// The most copy links drawn from one item (and copies listed in its record card).
+const COPY_LINKS: usize = 200;
 
 thread_local! {
     /// What the links on the map were last drawn for.
@@ -1034,7 +1046,7 @@ fn copies_section(a: &App, i: usize) -> Option<web_sys::Element> {
     let strip = coding::el("div", "closest-strip copies-strip", "");
     let _ = strip.set_attribute("role", "list");
     let dpr = web_sys::window().map_or(1.0, |w| w.device_pixel_ratio());
-    for &j in group.iter().filter(|&&j| j != i) {
+    for &j in group.iter().filter(|&&j| j != i).take(COPY_LINKS) {
         let tile = coding::el("div", "tile", "");
         let _ = tile.set_attribute("role", "listitem");
         let pic = tray::picture_button(a, j, dpr);
@@ -1046,10 +1058,29 @@ fn copies_section(a: &App, i: usize) -> Option<web_sys::Element> {
         let _ = strip.append_child(&tile);
     }
     let _ = sec.append_child(&strip);
+    if others > COPY_LINKS {
+        let _ = sec.append_child(&coding::el(
+            "p",
+            "how",
+            &format!("and {} more", others - COPY_LINKS),
+        ));
+    }
+    // Only what the filters let through can be in the corpus.
+    let passing: Vec<usize> = match a.filters.passing() {
+        Some(p) => group.iter().copied().filter(|&j| p.get(j)).collect(),
+        None => group.clone(),
+    };
+    let left_out = group.len() - passing.len();
     let add = coding::button(
-        &format!("Add all {} to the corpus", group.len()),
-        "Adds this picture and every copy of it to the corpus (one step)",
-        move || add_copies(group.clone()),
+        &format!("Add all {} to the corpus", passing.len()),
+        &if left_out > 0 {
+            format!(
+                "Adds this picture and its copies to the corpus in one step ({left_out} left out by the filters)"
+            )
+        } else {
+            "Adds this picture and every copy of it to the corpus (one step)".to_string()
+        },
+        move || add_copies(passing.clone()),
     );
     add.set_id("copies-add");
     let _ = sec.append_child(&add);
@@ -1062,18 +1093,14 @@ pub fn add_copies(items: Vec<usize>) {
     if items.is_empty() {
         return;
     }
-    let r = {
-        let mut a = app.borrow_mut();
-        let ids: Vec<String> = items.iter().map(|&i| a.atlas.id(i).to_string()).collect();
-        a.apply_step(Step {
-            op: Op::Add,
-            shape: Shape::Ids(ids),
-        })
+    let ids: Vec<String> = {
+        let a = app.borrow();
+        items.iter().map(|&i| a.atlas.id(i).to_string()).collect()
     };
-    if let Err(e) = r {
-        select::note(&e);
-    }
-    select::refresh();
+    select::apply(Step {
+        op: Op::Add,
+        shape: Shape::Ids(ids),
+    });
 }
 
 /// Items shown in the record card's strip of the closest over the whole collection.
@@ -1892,6 +1919,7 @@ async fn load_catalogue(base: String) -> Result<(), String> {
     if let Some(c) = by_id("atlas-count") {
         c.set_text_content(Some(&format!("{count} items")));
     }
+    select::refresh();
     set_state("catalogue", "ready");
     set_state("state", "ready");
     request_frame();

@@ -192,7 +192,13 @@ pub fn refresh() {
     let state = app.borrow_mut().corpus_changed();
     show_figures(state.figures.as_ref());
     if let Some(b) = by_id("add-copies") {
-        b.set_hidden(app.borrow().atlas.copies.groups() == 0);
+        let a = app.borrow();
+        b.set_hidden(a.atlas.copies.groups() == 0);
+        let _ = if a.tray_items.is_empty() {
+            b.set_attribute("disabled", "")
+        } else {
+            b.remove_attribute("disabled")
+        };
     }
     let (count, corpus, history, any) = (
         state.selected,
@@ -460,24 +466,41 @@ pub fn install() {
 /// Adds to the corpus every copy of its pictures that is not in it yet (their whole groups).
 fn add_their_copies() {
     let Some(app) = app() else { return };
-    let missing: Vec<usize> = {
+    let (missing, left_out) = {
         let a = app.borrow();
-        let Some(m) = a.selection.mask() else { return };
-        let mut out = std::collections::BTreeSet::new();
+        if a.selection.mask().is_none() {
+            note("Copies are added to a selection: select the corpus's items first (All, or a lasso), then add their copies.");
+            return;
+        }
+        let in_corpus: std::collections::HashSet<u32> = a.tray_items.iter().copied().collect();
+        let pass = a.filters.passing();
+        let (mut out, mut left_out) = (std::collections::BTreeSet::new(), 0usize);
         for &i in &a.tray_items {
             for &j in a.atlas.copies.group(i as usize) {
-                if !m.get(j as usize) {
+                if in_corpus.contains(&j) || out.contains(&(j as usize)) {
+                    continue;
+                }
+                if pass.is_some_and(|p| !p.get(j as usize)) {
+                    left_out += 1;
+                } else {
                     out.insert(j as usize);
                 }
             }
         }
-        out.into_iter().collect()
+        (out.into_iter().collect::<Vec<usize>>(), left_out)
     };
     if missing.is_empty() {
-        note("The corpus's pictures have no copies outside it.");
+        note(&if left_out > 0 {
+            format!("The corpus's pictures have no copies outside it that the filters let through ({left_out} left out).")
+        } else {
+            "The corpus's pictures have no copies outside it.".to_string()
+        });
         return;
     }
     crate::add_copies(missing);
+    if left_out > 0 {
+        note(&format!("{left_out} copies are left out by the filters."));
+    }
 }
 
 /// For tests and scripts: makes the corpus the items of the JSON list of ids (as a corpus file's
