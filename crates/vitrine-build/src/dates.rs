@@ -1,14 +1,29 @@
 //! Catalogue datings to year ranges.
 //!
 //! The rule, stated once (docs/atlas-format.md repeats it):
-//! - `1602` → 1602–1602; `-450` or `450 BC`/`450 BCE` → −450.
-//! - `1550-1575`, `1550–1575`, `1550 to 1575`, `1550/1575` → 1550–1575; `1550-75` → 1550–1575.
-//! - `c. 1540`, `ca. 1540`, `circa 1540`, `about 1540`, `around 1540`, `c.1540` → 1535–1545 (five years either side).
-//! - `1540s` → 1540–1549. `16th century` → 1500–1599; `early` / `mid` / `late` take its first, middle
-//!   and last third (1500–1533, 1533–1566, 1566–1599); `first half` / `second half` its halves.
-//! - `before 1600` → 1580–1600 and `after 1600` → 1600–1620 (a twenty-year window, stated here).
-//! - `2023-04-05` (an ISO calendar date) → 2023; `17th c.` and `17th cent.` read as `17th century`.
-//! - A trailing `?` is ignored. Anything else is not a date: the build keeps the text and reports it.
+//! - `1602` → 1602–1602; `-450` or `450 BC`/`450 BCE` → −450; `450 AD`, `450 CE` → 450.
+//! - `1550-1575`, `1550–1575`, `1550 to 1575`, `1550/1575`, `1550 bis 1575`, `1550 à 1575` →
+//!   1550–1575; `1550-75`, `1550–75`, `1540/50` → the end shares the start's leading digits.
+//! - ISO 8601 dates keep their year: `2023-04-05` (and with a time), `1923-04` (a year and a month:
+//!   a hyphen and 01–12; write an abbreviated range with an en dash, `1923–24`, or in full).
+//! - EDTF (ISO 8601-2): unspecified digits `154X` → 1540–1549, `15XX` → 1500–1599, `1985-XX`,
+//!   `156X-12-25`; qualifiers `?` (uncertain: the year as written), `~` and `%` (approximate: as
+//!   `c.`); intervals `1964/2008`, `2004-06/2006-08`, open ends `../1985` and `1985/..` (a
+//!   twenty-year window, as `before` and `after`); sets `[1667, 1668, 1670..1672]` and `{...}` →
+//!   their first to last year. EDTF's season months (21–24) are not read: `1921-24` is a range.
+//! - `c. 1540`, `ca. 1540`, `circa 1540`, `about 1540`, `around 1540`, `c.1540`, `approx. 1540`,
+//!   `um 1540`, `vers 1540`, `env. 1540`, `1540~` → 1535–1545 (five years either side); a range
+//!   after them widens by five years at each end (`ca. 1540/50` → 1535–1555).
+//! - `1540s`, `1540's`, `1540er` → 1540–1549. Centuries: `16th century`, `16th c.`, `16th cent.`,
+//!   `16. Jh.`, `16. Jahrhundert`, `XVIe siècle`, `XVIe s.`, `sec. XVI`, `XVI secolo`, `16e eeuw` →
+//!   1500–1599; `early` / `mid` / `late` (`Anfang` / `Mitte` / `Ende`, `début` / `milieu` / `fin`,
+//!   `inizio` / `metà` / `fine`) take its first, middle and last third (1500–1533, 1533–1566,
+//!   1566–1599); `first half` / `second half` (`1. Hälfte`, `première moitié`, `prima metà`, ...)
+//!   its halves; `16th-17th century`, `16./17. Jh.` → 1500–1699.
+//! - `before 1600` (`vor`, `avant`, `ante`) → 1580–1600 and `after 1600` (`nach`, `après`, `post`)
+//!   → 1600–1620 (a twenty-year window, stated here).
+//! - A trailing `?` or `(?)` is ignored; `[1540]` (a date the cataloguer supplied) is 1540.
+//! - Anything else is not a date: the build keeps the text and reports it.
 //! - Years lie within ±9,999 ([`MAX_YEAR`]); a dating beyond (`3000000000s`, `99999`) is not a date
 //!   either, and [`beyond_years`] tells the report why.
 
@@ -34,83 +49,253 @@ pub fn beyond_years(text: &str) -> bool {
     parse_any(text).is_some() && parse_date(text).is_none()
 }
 
+type Span = (i64, i64);
+
 /// The rule without the bound on years, as (start, end); None as well when a year does not fit
 /// an i64.
-fn parse_any(text: &str) -> Option<(i64, i64)> {
-    let t = text.trim().trim_end_matches('?').trim().to_lowercase();
+fn parse_any(text: &str) -> Option<Span> {
+    let t = text
+        .trim()
+        .to_lowercase()
+        .replace('—', "–")
+        .split_whitespace()
+        .collect::<Vec<_>>()
+        .join(" ");
     if t.is_empty() {
         return None;
     }
-    for prefix in [
-        "circa ", "ca. ", "ca.", "c. ", "c.", "about ", "around ", "approx. ",
-    ] {
-        if let Some(rest) = t.strip_prefix(prefix) {
-            let y = year(rest.trim())?;
-            return Some((y - CIRCA_SPAN, y + CIRCA_SPAN));
-        }
-    }
-    if let Some(rest) = t.strip_prefix("before ") {
-        let y = year(rest.trim())?;
-        return Some((y - OPEN_SPAN, y));
-    }
-    if let Some(rest) = t.strip_prefix("after ") {
-        let y = year(rest.trim())?;
-        return Some((y, y + OPEN_SPAN));
-    }
-    // ISO calendar dates (2023-04-05) keep their year.
-    let parts: Vec<&str> = t.split('-').collect();
-    if parts.len() == 3 && parts[0].len() == 4 && parts[1].len() == 2 && parts[2].len() == 2 {
-        if let (Ok(y), Ok(m), Ok(d)) = (
-            parts[0].parse::<i32>(),
-            parts[1].parse::<u32>(),
-            parts[2].parse::<u32>(),
-        ) {
-            if (1..=12).contains(&m) && (1..=31).contains(&d) {
-                return Some((y as i64, y as i64));
-            }
-        }
-    }
-    if let Some(r) = century(&t) {
-        return Some((r.start as i64, r.end as i64));
-    }
-    if let Some(d) = t.strip_suffix("0s") {
-        let decade: i64 = d.parse().ok()?;
-        if d.len() >= 3 {
-            let start = decade.checked_mul(10)?;
-            return Some((start, start.checked_add(9)?));
-        }
+    let (s, e) = dating(&t, 0)?;
+    (s <= e).then_some((s, e))
+}
+
+/// Widens a span by the circa span at both ends.
+fn circa(s: Span) -> Option<Span> {
+    Some((s.0.checked_sub(CIRCA_SPAN)?, s.1.checked_add(CIRCA_SPAN)?))
+}
+
+/// Words that make a dating approximate, as prefixes.
+const CIRCA: &[&str] = &[
+    "circa ",
+    "ca. ",
+    "ca.",
+    "ca ",
+    "c. ",
+    "c.",
+    "about ",
+    "around ",
+    "approx. ",
+    "approximately ",
+    "um ",
+    "vers ",
+    "env. ",
+    "environ ",
+];
+const BEFORE: &[&str] = &["before ", "vor ", "avant ", "ante "];
+const AFTER: &[&str] = &["after ", "nach ", "après ", "apres ", "post "];
+
+/// One dating (`depth` bounds the nesting of brackets and qualifiers).
+fn dating(t: &str, depth: u32) -> Option<Span> {
+    let t = t.trim();
+    if t.is_empty() || depth > 6 {
         return None;
     }
-    for sep in [" to ", "–", "—", "/", "-"] {
-        // A leading minus is a sign, not a separator.
-        let search_from = if t.starts_with('-') { 1 } else { 0 };
-        if let Some(pos) = t[search_from..].find(sep).map(|p| p + search_from) {
-            let a = t[..pos].trim();
-            let b = t[pos + sep.len()..].trim();
-            let start = year(a)?;
-            let mut end = year(b)?;
-            // "1550-75": the end shares the start's leading digits.
-            if b.len() < a.len() && b.chars().all(|c| c.is_ascii_digit()) && start >= 0 {
-                let scale = 10i64.pow(b.len() as u32);
-                end += start - start % scale;
-                if end < start {
-                    end += scale;
-                }
-            }
-            if end < start {
-                return None;
-            }
-            return Some((start, end));
+    let again = |s: &str| dating(s, depth + 1);
+    // Qualifiers: uncertain as written; approximate widened.
+    if let Some(r) = t.strip_suffix("(?)").or_else(|| t.strip_suffix('?')) {
+        return again(r);
+    }
+    // (Approximate to the month or day keeps the year: only a year is widened.)
+    let approximate = |r: &str| {
+        let s = again(r)?;
+        if r.trim_start_matches('-').contains('-') && single(r.trim()).is_some() {
+            Some(s)
+        } else {
+            circa(s)
+        }
+    };
+    if let Some(r) = t.strip_suffix('~').or_else(|| t.strip_suffix('%')) {
+        return approximate(r);
+    }
+    if let Some(r) = t.strip_prefix('?') {
+        return again(r);
+    }
+    if let Some(r) = t.strip_prefix('~').or_else(|| t.strip_prefix('%')) {
+        return approximate(r);
+    }
+    // EDTF qualifiers on a month or day (2004-06-~11, 2004-?06-11): the year as written.
+    if t.len() > 4 && t.is_char_boundary(4) && t[4..].contains(['?', '~', '%']) {
+        let plain: String = t
+            .chars()
+            .filter(|c| !matches!(c, '?' | '~' | '%'))
+            .collect();
+        if let Some(r) = single(&plain) {
+            return Some(r);
         }
     }
-    let y = year(&t)?;
-    Some((y, y))
+    // Brackets: a supplied date, or an EDTF set of dates.
+    for (open, close) in [('[', ']'), ('{', '}')] {
+        if let Some(inner) = t.strip_prefix(open).and_then(|r| r.strip_suffix(close)) {
+            return if inner.contains(',') || inner.contains("..") {
+                set(inner, depth)
+            } else {
+                again(inner)
+            };
+        }
+    }
+    for w in CIRCA {
+        if let Some(r) = t.strip_prefix(w) {
+            return circa(again(r)?);
+        }
+    }
+    for w in BEFORE {
+        if let Some(r) = t.strip_prefix(w) {
+            let (s, _) = again(r)?;
+            return Some((s.checked_sub(OPEN_SPAN)?, s));
+        }
+    }
+    for w in AFTER {
+        if let Some(r) = t.strip_prefix(w) {
+            let (_, e) = again(r)?;
+            return Some((e, e.checked_add(OPEN_SPAN)?));
+        }
+    }
+    // EDTF open intervals.
+    if let Some(r) = t.strip_prefix("../") {
+        let (s, _) = again(r)?;
+        return Some((s.checked_sub(OPEN_SPAN)?, s));
+    }
+    if let Some(r) = t.strip_suffix("/..").or_else(|| t.strip_suffix('/')) {
+        let (_, e) = again(r)?;
+        return Some((e, e.checked_add(OPEN_SPAN)?));
+    }
+    if let Some(r) = century(t) {
+        return Some(r);
+    }
+    if let Some(r) = single(t) {
+        return Some(r);
+    }
+    range(t, depth)
+}
+
+/// The members of an EDTF set (`1667, 1668, 1670..1672`, `..1760-12-03`): their first to last year.
+fn set(inner: &str, depth: u32) -> Option<Span> {
+    let mut span: Option<Span> = None;
+    for m in inner.split(',') {
+        let m = m.trim();
+        let part = if let Some(r) = m.strip_prefix("..") {
+            let (s, _) = dating(r, depth + 1)?;
+            (s.checked_sub(OPEN_SPAN)?, s)
+        } else if let Some(r) = m.strip_suffix("..") {
+            let (_, e) = dating(r, depth + 1)?;
+            (e, e.checked_add(OPEN_SPAN)?)
+        } else if let Some((a, b)) = m.split_once("..") {
+            (dating(a, depth + 1)?.0, dating(b, depth + 1)?.1)
+        } else {
+            dating(m, depth + 1)?
+        };
+        span = Some(match span {
+            None => part,
+            Some((s, e)) => (s.min(part.0), e.max(part.1)),
+        });
+    }
+    span
+}
+
+/// A range: two datings joined by a separator; an end shorter than its start shares the start's
+/// leading digits (`1550-75`).
+fn range(t: &str, depth: u32) -> Option<Span> {
+    for sep in [" to ", " bis ", " à ", "–", "/", "-"] {
+        // A leading minus is a sign, not a separator.
+        let from = usize::from(t.starts_with('-'));
+        let Some(pos) = t[from..].find(sep).map(|p| p + from) else {
+            continue;
+        };
+        let (a, b) = (t[..pos].trim(), t[pos + sep.len()..].trim());
+        let start = dating(a, depth + 1)?;
+        let mut end = dating(b, depth + 1)?;
+        let digits = |s: &str| !s.is_empty() && s.chars().all(|c| c.is_ascii_digit());
+        if b.len() < a.len() && digits(a) && digits(b) && start.0 >= 0 {
+            let scale = 10i64.pow(b.len() as u32);
+            let e = end.0 + start.0 - start.0 % scale;
+            let e = if e < start.0 { e + scale } else { e };
+            end = (e, e);
+        }
+        if end.1 < start.0 {
+            return None;
+        }
+        return Some((start.0, end.1));
+    }
+    None
+}
+
+/// One point in time (no range): a year, an ISO date, EDTF unspecified digits, a decade.
+fn single(t: &str) -> Option<Span> {
+    if let Some(y) = year(t) {
+        return Some((y, y));
+    }
+    // EDTF's years of more than four digits: Y170000002, Y-170000002 (beyond what is kept, and
+    // reported as such).
+    if let Some(y) = t.strip_prefix('y') {
+        let digits = y.strip_prefix('-').unwrap_or(y);
+        if !digits.is_empty() && digits.chars().all(|c| c.is_ascii_digit()) {
+            let v: i64 = y.parse().ok()?;
+            return Some((v, v));
+        }
+    }
+    // ISO 8601 and EDTF: YYYY-MM, YYYY-MM-DD (and a time after a T), months and days unspecified
+    // (XX) as well; the year may have unspecified digits.
+    let date = t
+        .split_once('t')
+        .map_or(t, |(d, time)| if time.contains(':') { d } else { t });
+    let parts: Vec<&str> = date.split('-').collect();
+    let unspecified_or = |p: &str, range: std::ops::RangeInclusive<u32>| {
+        p.len() == 2 && (p == "xx" || p.parse::<u32>().is_ok_and(|v| range.contains(&v)))
+    };
+    let dated = match parts.as_slice() {
+        [y] => Some(*y),
+        [y, m] if unspecified_or(m, 1..=12) => Some(*y),
+        [y, m, d] if unspecified_or(m, 1..=12) && unspecified_or(d, 1..=31) => Some(*y),
+        _ => None,
+    };
+    if let Some(y) = dated.filter(|y| y.len() == 4) {
+        if y.chars().all(|c| c.is_ascii_digit()) {
+            let v: i64 = y.parse().ok()?;
+            return Some((v, v));
+        }
+        // Unspecified trailing digits: 154X, 15XX, 1XXX.
+        let known = y.trim_end_matches(['x', 'u']);
+        if !known.is_empty() && known.chars().all(|c| c.is_ascii_digit()) {
+            let scale = 10i64.pow((4 - known.len()) as u32);
+            let s = known.parse::<i64>().ok()? * scale;
+            return Some((s, s + scale - 1));
+        }
+    }
+    // Decades: 1540s, 1540's, 1540er (Jahre).
+    let decade = t
+        .strip_suffix("'s")
+        .or_else(|| t.strip_suffix('s'))
+        .or_else(|| t.strip_suffix("er jahre"))
+        .or_else(|| t.strip_suffix("er"))?;
+    let d = decade.strip_suffix('0')?;
+    if decade.len() >= 4 && decade.chars().all(|c| c.is_ascii_digit()) {
+        let start = d.parse::<i64>().ok()?.checked_mul(10)?;
+        return Some((start, start.checked_add(9)?));
+    }
+    None
 }
 
 /// One year as written (at most five characters, or a BC year below 10,000).
 fn year(s: &str) -> Option<i64> {
     let s = s.trim();
-    for suffix in [" bce", " bc", "bce", "bc"] {
+    for suffix in [
+        " bce",
+        " bc",
+        "bce",
+        "bc",
+        " v. chr.",
+        " av. j.-c.",
+        " a.c.",
+    ] {
         if let Some(n) = s.strip_suffix(suffix) {
             let y: i64 = n.trim().parse().ok()?;
             return (y > 0 && y < 10000).then_some(-y);
@@ -119,6 +304,7 @@ fn year(s: &str) -> Option<i64> {
     let s = s
         .strip_suffix(" ce")
         .or_else(|| s.strip_suffix(" ad"))
+        .or_else(|| s.strip_prefix("ad "))
         .unwrap_or(s);
     if s.is_empty() || s.len() > 5 {
         return None;
@@ -130,64 +316,159 @@ fn year(s: &str) -> Option<i64> {
     s.parse().ok()
 }
 
-fn century(t: &str) -> Option<YearRange> {
-    let (part, rest) = if let Some(r) = t.strip_prefix("early ") {
-        (Some(0), r)
-    } else if let Some(r) = t.strip_prefix("mid ").or_else(|| t.strip_prefix("mid-")) {
-        (Some(1), r)
-    } else if let Some(r) = t.strip_prefix("late ") {
-        (Some(2), r)
-    } else if let Some(r) = t
-        .strip_prefix("first half of the ")
-        .or_else(|| t.strip_prefix("first half "))
+/// A part of a century: (first, last) in hundredths of it.
+const PARTS: &[(&str, (i64, i64))] = &[
+    ("first half of the ", (0, 49)),
+    ("second half of the ", (50, 99)),
+    ("first half ", (0, 49)),
+    ("second half ", (50, 99)),
+    ("early ", (0, 33)),
+    ("mid-", (33, 66)),
+    ("mid ", (33, 66)),
+    ("late ", (66, 99)),
+    ("1. hälfte des ", (0, 49)),
+    ("2. hälfte des ", (50, 99)),
+    ("1. hälfte ", (0, 49)),
+    ("2. hälfte ", (50, 99)),
+    ("erste hälfte des ", (0, 49)),
+    ("zweite hälfte des ", (50, 99)),
+    ("anfang des ", (0, 33)),
+    ("anfang ", (0, 33)),
+    ("frühes ", (0, 33)),
+    ("mitte des ", (33, 66)),
+    ("mitte ", (33, 66)),
+    ("ende des ", (66, 99)),
+    ("ende ", (66, 99)),
+    ("spätes ", (66, 99)),
+    ("première moitié du ", (0, 49)),
+    ("seconde moitié du ", (50, 99)),
+    ("deuxième moitié du ", (50, 99)),
+    ("début du ", (0, 33)),
+    ("milieu du ", (33, 66)),
+    ("fin du ", (66, 99)),
+    ("prima metà del ", (0, 49)),
+    ("seconda metà del ", (50, 99)),
+    ("inizio del ", (0, 33)),
+    ("metà del ", (33, 66)),
+    ("fine del ", (66, 99)),
+    ("begin ", (0, 33)),
+    ("midden ", (33, 66)),
+    ("eind ", (66, 99)),
+];
+
+/// Words that name a century, after its number (or, for `sec.` and `secolo`, before it).
+const CENTURY_AFTER: &[&str] = &[
+    " centuries",
+    " century",
+    " cent.",
+    " c.",
+    " jahrhunderts",
+    " jahrhundert",
+    " jhdt.",
+    " jh.",
+    " jh",
+    " siècle",
+    " siecle",
+    " s.",
+    " secolo",
+    " eeuw",
+];
+
+/// A century or a run of centuries, with an optional part (see [`PARTS`]).
+fn century(t: &str) -> Option<Span> {
+    let (part, rest) = PARTS
+        .iter()
+        .find_map(|(p, range)| t.strip_prefix(p).map(|r| (Some(*range), r)))
+        .unwrap_or((None, t));
+    let core = CENTURY_AFTER
+        .iter()
+        .find_map(|w| rest.strip_suffix(w))
+        .or_else(|| {
+            rest.strip_prefix("sec. ")
+                .or_else(|| rest.strip_prefix("secolo "))
+        })?
+        .trim();
+    // A run of centuries: 16th-17th, 16./17., xvie-xviie.
+    let (first, last) = match ["-", "–", "/", " to ", " and "]
+        .iter()
+        .find_map(|sep| core.split_once(sep))
     {
-        (Some(3), r)
-    } else if let Some(r) = t
-        .strip_prefix("second half of the ")
-        .or_else(|| t.strip_prefix("second half "))
-    {
-        (Some(4), r)
-    } else {
-        (None, t)
+        Some((a, b)) => (ordinal(a.trim())?, ordinal(b.trim())?),
+        None => {
+            let c = ordinal(core)?;
+            (c, c)
+        }
     };
-    let rest = rest
-        .strip_suffix(" century")
-        .or_else(|| rest.strip_suffix(" cent."))
-        .or_else(|| rest.strip_suffix(" c."))?;
-    let num = rest
-        .strip_suffix("th")
-        .or_else(|| rest.strip_suffix("st"))
-        .or_else(|| rest.strip_suffix("nd"))
-        .or_else(|| rest.strip_suffix("rd"))?;
-    let c: i32 = num.parse().ok()?;
-    if !(1..=30).contains(&c) {
+    if first > last {
         return None;
     }
-    let start = (c - 1) * 100;
-    let end = start + 99;
+    let (start, end) = ((first - 1) * 100, (last - 1) * 100 + 99);
     Some(match part {
-        None => YearRange { start, end },
-        Some(0) => YearRange {
-            start,
-            end: start + 33,
-        },
-        Some(1) => YearRange {
-            start: start + 33,
-            end: start + 66,
-        },
-        Some(2) => YearRange {
-            start: start + 66,
-            end,
-        },
-        Some(3) => YearRange {
-            start,
-            end: start + 49,
-        },
-        _ => YearRange {
-            start: start + 50,
-            end,
-        },
+        None => (start, end),
+        Some((a, b)) if first == last => (start + a, start + b),
+        Some(_) => return None,
     })
+}
+
+/// A century's number: 16th, 1st, 2nd, 3rd, 16., 16e, 16de, 16ème, or in roman numerals (xvi,
+/// xvie, xvième); 1 to 30.
+fn ordinal(s: &str) -> Option<i64> {
+    let s = s.trim();
+    let digits = s
+        .strip_suffix("th")
+        .or_else(|| s.strip_suffix("st"))
+        .or_else(|| s.strip_suffix("nd"))
+        .or_else(|| s.strip_suffix("rd"))
+        .or_else(|| s.strip_suffix("ème"))
+        .or_else(|| s.strip_suffix("de"))
+        .or_else(|| s.strip_suffix('e'))
+        .or_else(|| s.strip_suffix('.'))
+        .unwrap_or(s);
+    let n = if !digits.is_empty() && digits.chars().all(|c| c.is_ascii_digit()) {
+        digits.parse().ok()?
+    } else {
+        let roman = s
+            .strip_suffix("ème")
+            .or_else(|| s.strip_suffix("eme"))
+            .or_else(|| s.strip_suffix('e'))
+            .unwrap_or(s);
+        roman_number(roman)?
+    };
+    (1..=30).contains(&n).then_some(n)
+}
+
+/// A roman numeral up to xxx (i, v, x), as centuries are written.
+fn roman_number(s: &str) -> Option<i64> {
+    if s.is_empty() || !s.chars().all(|c| matches!(c, 'i' | 'v' | 'x')) {
+        return None;
+    }
+    let value = |c: char| match c {
+        'i' => 1,
+        'v' => 5,
+        _ => 10,
+    };
+    let v: Vec<i64> = s.chars().map(value).collect();
+    let mut n = 0;
+    for k in 0..v.len() {
+        if k + 1 < v.len() && v[k] < v[k + 1] {
+            n -= v[k];
+        } else {
+            n += v[k];
+        }
+    }
+    // Only the canonical spelling: it must write itself back the same.
+    (to_roman(n) == s).then_some(n)
+}
+
+fn to_roman(mut n: i64) -> String {
+    let mut out = String::new();
+    for (v, s) in [(10, "x"), (9, "ix"), (5, "v"), (4, "iv"), (1, "i")] {
+        while n >= v {
+            out.push_str(s);
+            n -= v;
+        }
+    }
+    out
 }
 
 #[cfg(test)]
@@ -209,7 +490,8 @@ mod tests {
         assert_eq!(parse_date("1550–1575"), r(1550, 1575));
         assert_eq!(parse_date("1550 to 1575"), r(1550, 1575));
         assert_eq!(parse_date("1550-75"), r(1550, 1575));
-        assert_eq!(parse_date("1598-03"), r(1598, 1603));
+        assert_eq!(parse_date("1598–03"), r(1598, 1603));
+        assert_eq!(parse_date("1598-03"), r(1598, 1598), "ISO 8601: March 1598");
         assert_eq!(parse_date("1540s"), r(1540, 1549));
         assert_eq!(parse_date("16th century"), r(1500, 1599));
         assert_eq!(parse_date("late 16th century"), r(1566, 1599));
@@ -224,6 +506,135 @@ mod tests {
         assert_eq!(parse_date("undated"), None);
         assert_eq!(parse_date("12.5"), None);
         assert_eq!(parse_date(""), None);
+    }
+
+    /// Datings as archives write them, with the range each must give. The EDTF forms follow the
+    /// examples of the Extended Date/Time Format specification (Library of Congress, 2019; ISO
+    /// 8601-2), written here from memory; the others are the trade's own forms in the languages
+    /// catalogues use.
+    #[test]
+    fn datings_as_archives_write_them() {
+        let table: &[(&str, Option<(i32, i32)>)] = &[
+            // EDTF level 0
+            ("1985-04-12", Some((1985, 1985))),
+            ("1985-04", Some((1985, 1985))),
+            ("1985", Some((1985, 1985))),
+            ("1985-04-12T23:20:30", Some((1985, 1985))),
+            ("1985-04-12T23:20:30Z", Some((1985, 1985))),
+            ("1964/2008", Some((1964, 2008))),
+            ("2004-06/2006-08", Some((2004, 2006))),
+            ("2004-02-01/2005-02-08", Some((2004, 2005))),
+            ("2004-02-01/2005", Some((2004, 2005))),
+            // EDTF level 1
+            ("Y170000002", None),
+            ("1984?", Some((1984, 1984))),
+            ("2004-06~", Some((2004, 2004))),
+            ("2004-06-11%", Some((2004, 2004))),
+            ("1984~", Some((1979, 1989))),
+            ("1984%", Some((1979, 1989))),
+            ("201X", Some((2010, 2019))),
+            ("20XX", Some((2000, 2099))),
+            ("2004-XX", Some((2004, 2004))),
+            ("1985-04-XX", Some((1985, 1985))),
+            ("1985-XX-XX", Some((1985, 1985))),
+            ("1985-04-12/..", Some((1985, 2005))),
+            ("../1985-04-12", Some((1965, 1985))),
+            ("1985-04-12/", Some((1985, 2005))),
+            ("-1985", Some((-1985, -1985))),
+            // EDTF level 2 (the common parts)
+            ("156X-12-25", Some((1560, 1569))),
+            ("15XX-12-25", Some((1500, 1599))),
+            ("1XXX-XX", Some((1000, 1999))),
+            ("2004-06-~11", Some((2004, 2004))),
+            ("?2004-06-~11", Some((2004, 2004))),
+            ("2004-?06-11", Some((2004, 2004))),
+            ("[1667, 1668, 1670..1672]", Some((1667, 1672))),
+            ("[..1760-12-03]", Some((1740, 1760))),
+            ("[1760-12..]", Some((1760, 1780))),
+            ("{1667,1668, 1670..1672}", Some((1667, 1672))),
+            ("[1540..1550]", Some((1540, 1550))),
+            ("154X", Some((1540, 1549))),
+            ("1540~", Some((1535, 1545))),
+            ("1540?", Some((1540, 1540))),
+            ("1540/1550", Some((1540, 1550))),
+            // ISO year-month is not a range; an en dash or the full year makes one.
+            ("1923-04", Some((1923, 1923))),
+            ("1923–24", Some((1923, 1924))),
+            ("1923-1924", Some((1923, 1924))),
+            ("1550-75", Some((1550, 1575))),
+            ("1921-24", Some((1921, 1924))),
+            // The trade's own forms
+            ("c. 1540-1550", Some((1535, 1555))),
+            ("c. 1540–1550", Some((1535, 1555))),
+            ("ca. 1540/50", Some((1535, 1555))),
+            ("ca 1540", Some((1535, 1545))),
+            ("circa 1540", Some((1535, 1545))),
+            ("approx. 1540", Some((1535, 1545))),
+            ("um 1540", Some((1535, 1545))),
+            ("Um 1540/50", Some((1535, 1555))),
+            ("vers 1540", Some((1535, 1545))),
+            ("env. 1540", Some((1535, 1545))),
+            ("[1540]", Some((1540, 1540))),
+            ("[ca. 1540]", Some((1535, 1545))),
+            ("1540 (?)", Some((1540, 1540))),
+            ("1540(?)", Some((1540, 1540))),
+            ("16th-17th century", Some((1500, 1699))),
+            ("16th–17th centuries", Some((1500, 1699))),
+            ("16th to 17th century", Some((1500, 1699))),
+            ("early 16th century", Some((1500, 1533))),
+            ("16. Jh.", Some((1500, 1599))),
+            ("16. Jahrhundert", Some((1500, 1599))),
+            ("Anfang 16. Jh.", Some((1500, 1533))),
+            ("Mitte des 16. Jahrhunderts", Some((1533, 1566))),
+            ("Mitte 16. Jh.", Some((1533, 1566))),
+            ("Ende 16. Jh.", Some((1566, 1599))),
+            ("1. Hälfte 16. Jh.", Some((1500, 1549))),
+            ("2. Hälfte des 16. Jh.", Some((1550, 1599))),
+            ("16./17. Jh.", Some((1500, 1699))),
+            ("XVIe siècle", Some((1500, 1599))),
+            ("XVIe s.", Some((1500, 1599))),
+            ("xvième siècle", Some((1500, 1599))),
+            ("début du XVIe siècle", Some((1500, 1533))),
+            ("fin du XVIe siècle", Some((1566, 1599))),
+            ("seconde moitié du XVIe siècle", Some((1550, 1599))),
+            ("XVIe-XVIIe siècle", Some((1500, 1699))),
+            ("sec. XVI", Some((1500, 1599))),
+            ("secolo XVI", Some((1500, 1599))),
+            ("XVI secolo", Some((1500, 1599))),
+            ("16e eeuw", Some((1500, 1599))),
+            ("16de eeuw", Some((1500, 1599))),
+            ("1540s", Some((1540, 1549))),
+            ("1540's", Some((1540, 1549))),
+            ("1540er Jahre", Some((1540, 1549))),
+            ("vor 1600", Some((1580, 1600))),
+            ("nach 1600", Some((1600, 1620))),
+            ("avant 1600", Some((1580, 1600))),
+            ("après 1600", Some((1600, 1620))),
+            ("1550 bis 1575", Some((1550, 1575))),
+            ("1550 à 1575", Some((1550, 1575))),
+            ("450 v. Chr.", Some((-450, -450))),
+            ("AD 450", Some((450, 450))),
+            // Not datings
+            ("XVIIII siècle", None),
+            ("31st century", None),
+            ("1985-13", Some((1985, 2013))),
+            ("summer", None),
+            ("1540-1530", None),
+            ("c.", None),
+            ("[]", None),
+            ("../..", None),
+        ];
+        assert!(table.len() >= 60);
+        let mut wrong = Vec::new();
+        for &(written, want) in table {
+            let got = parse_date(written).map(|r| (r.start, r.end));
+            if got != want {
+                wrong.push(format!("{written:?}: {got:?}, want {want:?}"));
+            }
+        }
+        assert!(wrong.is_empty(), "{}", wrong.join("\n"));
+        // A year beyond the bound says so.
+        assert!(beyond_years("Y170000002"));
     }
 
     #[test]

@@ -101,7 +101,7 @@ proptest! {
     }
 
     #[test]
-    fn any_text_is_a_range_within_the_bound_or_none(text in "[0-9a-z .?/–-]{0,24}|\\PC{0,24}") {
+    fn any_text_is_a_range_within_the_bound_or_none(text in "[0-9a-z .?/–-]{0,24}|[0-9xXy?~%./\\[\\]{},–-]{0,16}|\\PC{0,24}") {
         if let Some(r) = parse_date(&text) {
             prop_assert!(r.start <= r.end, "{:?}: {:?}", text, r);
             prop_assert!(r.start.abs() <= MAX_YEAR && r.end.abs() <= MAX_YEAR, "{:?}: {:?}", text, r);

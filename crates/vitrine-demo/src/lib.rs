@@ -107,7 +107,8 @@ pub fn record(i: usize, family: usize, rng: &mut Rng, w: u32, h: u32) -> Record 
         0..=6 => format!("{year}"),
         7..=10 => format!("c. {year}"),
         11..=13 => format!("{}-{}", year, year + 5 + pick(rng, 30) as i32),
-        14 => format!("{}-{:02}", year, (year + 3 + pick(rng, 6) as i32) % 100),
+        // An abbreviated range takes an en dash (with a hyphen, 1598-03 is an ISO year and month).
+        14 => format!("{}–{:02}", year, (year + 3 + pick(rng, 6) as i32) % 100),
         15 => format!("{}0s", year / 10),
         16 => format!("before {}", year + 10),
         17 => {
