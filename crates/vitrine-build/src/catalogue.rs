@@ -1,4 +1,6 @@
-//! The catalogue: a CSV table with a header row and one record per image.
+//! The catalogue: a delimited text table (comma, semicolon, tab or vertical bar, found from the
+//! header row) with a header row and one record per image, in UTF-8, or in Windows-1252 / Latin-1
+//! as older spreadsheets export it (found when the bytes are not UTF-8, and said).
 //!
 //! Every column is kept. Each one becomes a field whose kind (category, number, date, text,
 //! link) is inferred from its name and values by the rules in [`infer_kind`].
@@ -14,6 +16,8 @@ use crate::error::InputError;
 #[derive(Debug, Clone)]
 pub struct Catalogue {
     pub file: String,
+    /// How the file was read: its delimiter and text encoding, and whether each was found or given.
+    pub read_as: ReadAs,
     pub header: Vec<String>,
     /// Column index of the id.
     pub id_column: usize,
@@ -30,9 +34,124 @@ impl Catalogue {
     }
 }
 
+/// A catalogue's delimiter and text encoding, when the user names them (None: found from the file).
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct TableFormat {
+    pub delimiter: Option<u8>,
+    pub encoding: Option<TextEncoding>,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum TextEncoding {
+    Utf8,
+    /// Windows-1252 (Western European), of which Latin-1's printable characters are a part.
+    Windows1252,
+}
+
+impl TextEncoding {
+    pub fn name(self) -> &'static str {
+        match self {
+            TextEncoding::Utf8 => "UTF-8",
+            TextEncoding::Windows1252 => "Windows-1252",
+        }
+    }
+}
+
+/// How a catalogue was read.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct ReadAs {
+    pub delimiter: u8,
+    pub encoding: TextEncoding,
+    /// The delimiter, the encoding: found from the file (true) or given (false).
+    pub found: (bool, bool),
+}
+
+impl ReadAs {
+    /// The delimiter by name.
+    pub fn delimiter_name(&self) -> &'static str {
+        delimiter_name(self.delimiter)
+    }
+}
+
+fn delimiter_name(d: u8) -> &'static str {
+    match d {
+        b',' => "commas",
+        b';' => "semicolons",
+        b'\t' => "tabs",
+        b'|' => "vertical bars",
+        _ => "its delimiter",
+    }
+}
+
 pub fn read_csv(path: &Path, id_column: &str) -> Result<Catalogue, InputError> {
+    read_table(path, id_column, TableFormat::default())
+}
+
+/// Reads a catalogue file with the delimiter and encoding given, or found from it.
+pub fn read_table(
+    path: &Path,
+    id_column: &str,
+    format: TableFormat,
+) -> Result<Catalogue, InputError> {
     let raw = std::fs::read(path).map_err(|e| InputError::io(path, e))?;
-    parse_csv(&raw, path, id_column)
+    parse_table(&raw, path, id_column, format)
+}
+
+/// The delimiters a catalogue may use.
+const DELIMITERS: [u8; 4] = [b',', b';', b'\t', b'|'];
+
+/// The delimiter of a table from its first line: the one of comma, semicolon, tab and vertical bar
+/// that occurs most often outside quotes. Two occurring equally often (and at least once) make it
+/// ambiguous: an error that asks for --delimiter.
+fn find_delimiter(body: &[u8]) -> Result<u8, String> {
+    let mut counts = [0usize; 4];
+    let mut quoted = false;
+    for &b in body {
+        match b {
+            b'"' => quoted = !quoted,
+            b'\n' if !quoted => break,
+            _ if !quoted => {
+                if let Some(k) = DELIMITERS.iter().position(|&d| d == b) {
+                    counts[k] += 1;
+                }
+            }
+            _ => {}
+        }
+    }
+    let most = *counts.iter().max().unwrap();
+    if most == 0 {
+        // One column (or an empty file): commas, as good as any.
+        return Ok(b',');
+    }
+    let tied: Vec<u8> = (0..4)
+        .filter(|&k| counts[k] == most)
+        .map(|k| DELIMITERS[k])
+        .collect();
+    if tied.len() > 1 {
+        return Err(format!(
+            "its header row holds {} as often as {} ({most} each), so the delimiter is ambiguous: name it with --delimiter ({})",
+            delimiter_name(tied[0]),
+            delimiter_name(tied[1]),
+            "comma, semicolon, tab or bar"
+        ));
+    }
+    Ok(tied[0])
+}
+
+/// The text of a file in Windows-1252 (bytes 0x80-0x9F as that code page has them, the five it
+/// leaves undefined as the Latin-1 control characters they are there).
+fn windows_1252(raw: &[u8]) -> String {
+    const HIGH: [char; 32] = [
+        '€', '\u{81}', '‚', 'ƒ', '„', '…', '†', '‡', 'ˆ', '‰', 'Š', '‹', 'Œ', '\u{8D}', 'Ž',
+        '\u{8F}', '\u{90}', '‘', '’', '“', '”', '•', '–', '—', '˜', '™', 'š', '›', 'œ', '\u{9D}',
+        'ž', 'Ÿ',
+    ];
+    raw.iter()
+        .map(|&b| match b {
+            0x80..=0x9F => HIGH[(b - 0x80) as usize],
+            _ => b as char,
+        })
+        .collect()
 }
 
 /// The most columns a catalogue may have, and the longest column name (in characters).
@@ -40,15 +159,51 @@ pub const MAX_COLUMNS: usize = 1_000;
 pub const MAX_COLUMN_NAME: usize = 200;
 
 pub fn parse_csv(raw: &[u8], path: &Path, id_column: &str) -> Result<Catalogue, InputError> {
+    parse_table(raw, path, id_column, TableFormat::default())
+}
+
+pub fn parse_table(
+    raw: &[u8],
+    path: &Path,
+    id_column: &str,
+    format: TableFormat,
+) -> Result<Catalogue, InputError> {
     let file = path.display().to_string();
     let bad = |reason: String| InputError::Catalogue {
         file: file.clone(),
         reason,
     };
     let body = raw.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(raw);
+    // Text that is not UTF-8 is read as Windows-1252 (said in the build's notes), unless UTF-8 was
+    // asked for: then the first bad byte is named.
+    let utf8 = std::str::from_utf8(body);
+    let (encoding, decoded) = match (format.encoding, &utf8) {
+        (Some(TextEncoding::Windows1252), _) | (None, Err(_)) => {
+            (TextEncoding::Windows1252, Some(windows_1252(body)))
+        }
+        (Some(TextEncoding::Utf8), Err(e)) => {
+            let at = e.valid_up_to();
+            let line = body[..at].iter().filter(|&&b| b == b'\n').count() + 1;
+            return Err(bad(format!(
+                "line {line} is not UTF-8 text (byte {at}); it may be Windows-1252 or Latin-1: leave out --catalogue-encoding to read it so, or convert the file to UTF-8"
+            )));
+        }
+        _ => (TextEncoding::Utf8, None),
+    };
+    let body: &[u8] = decoded.as_deref().map_or(body, str::as_bytes);
+    let delimiter = match format.delimiter {
+        Some(d) => d,
+        None => find_delimiter(body).map_err(bad)?,
+    };
+    let read_as = ReadAs {
+        delimiter,
+        encoding,
+        found: (format.delimiter.is_none(), format.encoding.is_none()),
+    };
     let mut reader = csv::ReaderBuilder::new()
         .has_headers(true)
         .flexible(false)
+        .delimiter(delimiter)
         .from_reader(body);
     let header: Vec<String> = reader
         .byte_headers()
@@ -99,12 +254,13 @@ pub fn parse_csv(raw: &[u8], path: &Path, id_column: &str) -> Result<Catalogue, 
         }
     }
     if header.len() == 1 {
-        for (sep, name) in [(';', "semicolons"), ('\t', "tabs"), ('|', "vertical bars")] {
-            if header[0].contains(sep) {
+        for sep in DELIMITERS.iter().filter(|&&d| d != delimiter) {
+            if header[0].contains(*sep as char) {
                 return Err(bad(format!(
-                    "the header row has one column, {:?}, which holds {name}: this build reads comma-separated \
-                     files; save the catalogue as CSV with commas",
-                    header[0]
+                    "the header row has one column, {:?}, which holds {}: it was read as separated by {}; name the delimiter with --delimiter",
+                    header[0],
+                    delimiter_name(*sep),
+                    delimiter_name(delimiter)
                 )));
             }
         }
@@ -173,6 +329,7 @@ pub fn parse_csv(raw: &[u8], path: &Path, id_column: &str) -> Result<Catalogue, 
     }
     Ok(Catalogue {
         file,
+        read_as,
         header,
         id_column: id_col,
         rows,
@@ -470,10 +627,66 @@ mod tests {
             e.contains("d.csv") && e.contains("\"1\" appears twice"),
             "{e}"
         );
-        let e = parse_csv(b"id,t\n1,\xff\n", Path::new("u.csv"), "id")
+        // Not UTF-8: read as Windows-1252, unless UTF-8 is asked for.
+        let c = parse_csv(b"id,t\n1,\xff\n", Path::new("u.csv"), "id").unwrap();
+        assert_eq!(c.rows[0][1], "ÿ");
+        assert_eq!(c.read_as.encoding, TextEncoding::Windows1252);
+        let utf8 = TableFormat {
+            encoding: Some(TextEncoding::Utf8),
+            ..Default::default()
+        };
+        let e = parse_table(b"id,t\n1,a\n2,\xff\n", Path::new("u.csv"), "id", utf8)
             .unwrap_err()
             .to_string();
-        assert!(e.contains("record 1") && e.contains("not UTF-8"), "{e}");
+        assert!(
+            e.contains("u.csv") && e.contains("line 3") && e.contains("not UTF-8"),
+            "{e}"
+        );
+    }
+
+    #[test]
+    fn delimiters_and_encodings_as_spreadsheets_export_them() {
+        let read = |bytes: &[u8]| parse_csv(bytes, Path::new("c.csv"), "id").unwrap();
+        for (bytes, d) in [
+            (&b"id;title;place\n1;A;Calvessa\n"[..], b';'),
+            (&b"id\ttitle\tplace\n1\tA\tCalvessa\n"[..], b'\t'),
+            (&b"id|title|place\n1|A|Calvessa\n"[..], b'|'),
+            (&b"id,title,place\n1,A,Calvessa\n"[..], b','),
+            // A delimiter inside quotes does not count.
+            (&b"id,\"title; short\",place\n1,A,Calvessa\n"[..], b','),
+        ] {
+            let c = read(bytes);
+            assert_eq!(
+                c.read_as.delimiter,
+                d,
+                "{:?}",
+                String::from_utf8_lossy(bytes)
+            );
+            assert_eq!(c.header.len(), 3);
+            assert_eq!(c.rows[0][2], "Calvessa");
+            assert!(c.read_as.found.0);
+        }
+        // Windows-1252: accents, the typographic quotes and dashes, the euro sign and the
+        // ligatures that Latin-1 lacks (the code page's own table).
+        let c =
+            read(b"id;title;price\n1;\x93D\xfcsseldorfer \x8Cuvre\x94 \x96 Entw\xfcrfe;\x80 5\n");
+        assert_eq!(c.read_as.encoding, TextEncoding::Windows1252);
+        assert_eq!(c.rows[0][1], "“Düsseldorfer Œuvre” – Entwürfe");
+        assert_eq!(c.rows[0][2], "€ 5");
+        // As many semicolons as commas in the header: ambiguous, and said so.
+        let e = parse_csv(b"id;a,b\n1;2,3\n", Path::new("c.csv"), "id")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("ambiguous") && e.contains("--delimiter"), "{e}");
+        // Given, the delimiter wins; a header that then has one column holding another says so.
+        let commas = TableFormat {
+            delimiter: Some(b','),
+            ..Default::default()
+        };
+        let e = parse_table(b"id;t\n1;a\n", Path::new("c.csv"), "id", commas)
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("semicolons") && e.contains("--delimiter"), "{e}");
     }
 }
 
@@ -527,10 +740,11 @@ mod inference_tests {
             .unwrap_err()
             .to_string();
         assert!(e.contains("(lines 2 and 4)"), "{e}");
-        let e = parse_csv(b"id;t\n1;a\n", Path::new("s.csv"), "id")
-            .unwrap_err()
-            .to_string();
-        assert!(e.contains("semicolons"), "{e}");
+        let c = parse_csv(b"id;t\r\n1;a\r\n", Path::new("s.csv"), "id").unwrap();
+        assert_eq!(
+            (c.header.len(), c.read_as.delimiter_name()),
+            (2, "semicolons")
+        );
     }
 
     #[test]

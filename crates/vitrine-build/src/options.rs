@@ -39,6 +39,8 @@ pub struct BuildOptions {
     pub vectors: PathBuf,
     pub vector_ids: Option<PathBuf>,
     pub catalogue: Option<PathBuf>,
+    /// The catalogue's delimiter and encoding, when given (else found from the file).
+    pub catalogue_format: crate::catalogue::TableFormat,
     pub id_column: String,
     pub images: Option<PathBuf>,
     pub date_field: Option<String>,
@@ -79,6 +81,7 @@ impl BuildOptions {
             vectors,
             vector_ids: None,
             catalogue: None,
+            catalogue_format: Default::default(),
             id_column: "id".into(),
             images: None,
             date_field: None,

@@ -35,6 +35,16 @@ pub fn write_atlas(
         notes: c.reduction.notes.clone(),
         ..Default::default()
     };
+    if let Some(cat) = &inputs.catalogue {
+        if cat.read_as.encoding == crate::catalogue::TextEncoding::Windows1252
+            && cat.read_as.found.1
+        {
+            report.notes.push(format!(
+                "{} is not UTF-8 text: it was read as Windows-1252 (Western European, which holds Latin-1); if its accents look wrong in the viewer, save it as UTF-8 and build again",
+                file_name(Path::new(&cat.file))
+            ));
+        }
+    }
     let order = &c.order.order;
     let mut w = ArrayWriter { files: Vec::new() };
     let ids_sorted: Vec<&str> = order
@@ -774,6 +784,12 @@ fn parameters(
         );
     }
     p.insert("id_column".into(), json!(opts.id_column));
+    if let Some(d) = opts.catalogue_format.delimiter {
+        p.insert("catalogue_delimiter".into(), json!((d as char).to_string()));
+    }
+    if let Some(e) = opts.catalogue_format.encoding {
+        p.insert("catalogue_encoding".into(), json!(e.name()));
+    }
     p.insert("sheet_size".into(), json!(opts.sheet_size));
     p.insert("cells".into(), json!(opts.cells));
     p.insert("jpeg_quality".into(), json!(opts.jpeg_quality));

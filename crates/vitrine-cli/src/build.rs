@@ -125,6 +125,14 @@ pub struct BuildArgs {
     /// Make every thumbnail afresh and keep none.
     #[arg(long, conflicts_with = "thumb_cache")]
     no_thumb_cache: bool,
+    /// The catalogue's delimiter: comma, semicolon, tab, bar (or the character itself). Found from
+    /// its header row when left out.
+    #[arg(long, value_parser = parse_delimiter)]
+    delimiter: Option<u8>,
+    /// The catalogue's text encoding: utf-8, windows-1252 or latin-1 (read as Windows-1252, which
+    /// holds it). Found when left out: a file that is not UTF-8 is read as Windows-1252, and said.
+    #[arg(long, value_parser = parse_encoding)]
+    catalogue_encoding: Option<vitrine_build::catalogue::TextEncoding>,
     /// Do not look for copies of one picture (they are looked for whenever there are images).
     #[arg(long)]
     no_copies: bool,
@@ -198,12 +206,37 @@ impl BuildArgs {
                 self.thumb_cache.or_else(vitrine_images::cache::default_dir)
             },
             viewer: self.viewer,
+            catalogue_format: vitrine_build::catalogue::TableFormat {
+                delimiter: self.delimiter,
+                encoding: self.catalogue_encoding,
+            },
             copies: (!self.no_copies).then_some(vitrine_build::copies::CopyRule {
                 ratio: self.copy_ratio,
                 max_bits: self.copy_bits,
                 min_colour: self.copy_colour,
             }),
         }
+    }
+}
+
+fn parse_delimiter(s: &str) -> Result<u8, String> {
+    match s.to_lowercase().as_str() {
+        "comma" | "," => Ok(b','),
+        "semicolon" | ";" => Ok(b';'),
+        "tab" | "\\t" | "\t" => Ok(b'\t'),
+        "bar" | "pipe" | "|" => Ok(b'|'),
+        _ => Err(format!("{s:?}: give comma, semicolon, tab or bar")),
+    }
+}
+
+fn parse_encoding(s: &str) -> Result<vitrine_build::catalogue::TextEncoding, String> {
+    use vitrine_build::catalogue::TextEncoding;
+    match s.to_lowercase().replace('_', "-").as_str() {
+        "utf-8" | "utf8" => Ok(TextEncoding::Utf8),
+        "windows-1252" | "cp1252" | "latin-1" | "latin1" | "iso-8859-1" => {
+            Ok(TextEncoding::Windows1252)
+        }
+        _ => Err(format!("{s:?}: give utf-8, windows-1252 or latin-1")),
     }
 }
 

@@ -1695,3 +1695,95 @@ fn approximate_graph_records_how_the_search_ran() {
         }
     }
 }
+
+/// A catalogue as an older spreadsheet exports it: semicolons, Windows-1252 text, ISO year-months.
+#[test]
+fn a_semicolon_separated_windows_1252_catalogue_is_read_and_said_so() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let n = 40;
+    let data: Vec<f32> = (0..n * 4).map(|k| ((k * 37 % 11) as f32) * 0.1).collect();
+    write_npy_f32(&d.join("vectors.npy"), n, 4, &data).unwrap();
+    let mut csv: Vec<u8> = b"id;place;dating\r\n".to_vec();
+    for i in 0..n {
+        // "Düsseldorf" and "Köln" in Windows-1252 (0xFC, 0xF6); ISO year and month datings.
+        let place: &[u8] = if i % 2 == 0 {
+            b"D\xfcsseldorf"
+        } else {
+            b"K\xf6ln"
+        };
+        csv.extend(format!("r{i};").as_bytes());
+        csv.extend(place);
+        csv.extend(format!(";19{:02}-{:02}\r\n", 10 + i, 1 + i % 12).as_bytes());
+    }
+    std::fs::write(d.join("records.csv"), &csv).unwrap();
+    let o = common::vitrine()
+        .current_dir(d)
+        .args(["build", "--epochs", "30", "--vectors", "vectors.npy"])
+        .args(["--catalogue", "records.csv", "--out", "atlas"])
+        .output()
+        .unwrap();
+    let notes = common::notes_of(&o);
+    assert!(
+        notes.contains("separated by semicolons, found; Windows-1252 text, found"),
+        "{notes}"
+    );
+    let atlas = Atlas::open(&d.join("atlas")).unwrap();
+    let m = &atlas.manifest;
+    let place = m.fields.iter().find(|f| f.name == "place").unwrap();
+    assert_eq!(place.values, ["Düsseldorf", "Köln"]);
+    let dating = m.fields.iter().find(|f| f.name == "dating").unwrap();
+    assert_eq!(dating.kind, vitrine_format::FieldKind::Date);
+    // 1910-01 is January 1910, not 1910-2001.
+    let (start, end): (Vec<i32>, Vec<i32>) = (
+        atlas.array(&dating.column).unwrap(),
+        atlas.array(dating.column2.as_ref().unwrap()).unwrap(),
+    );
+    assert!(start
+        .iter()
+        .zip(&end)
+        .all(|(s, e)| s == e && (1910..1950).contains(s)));
+    let report = std::fs::read_to_string(d.join("atlas/build-report.json")).unwrap();
+    assert!(
+        report.contains("records.csv is not UTF-8 text: it was read as Windows-1252"),
+        "{report}"
+    );
+    // Named, the delimiter and encoding are taken as given (and kept in the provenance).
+    let o = common::vitrine()
+        .current_dir(d)
+        .args(["build", "--epochs", "30", "--vectors", "vectors.npy"])
+        .args(["--catalogue", "records.csv", "--out", "atlas2"])
+        .args([
+            "--delimiter",
+            "semicolon",
+            "--catalogue-encoding",
+            "latin-1",
+        ])
+        .output()
+        .unwrap();
+    assert!(common::notes_of(&o).contains("semicolons, as given; Windows-1252 text, as given"));
+    let m = Atlas::open(&d.join("atlas2")).unwrap().manifest;
+    assert_eq!(m.provenance.parameters["catalogue_delimiter"], ";");
+    assert_eq!(
+        m.provenance.parameters["catalogue_encoding"],
+        "Windows-1252"
+    );
+    // Asked to read UTF-8, the file is refused at its first line that is not.
+    let o = common::vitrine()
+        .current_dir(d)
+        .args([
+            "build",
+            "--vectors",
+            "vectors.npy",
+            "--catalogue",
+            "records.csv",
+        ])
+        .args(["--catalogue-encoding", "utf-8", "--out", "atlas3"])
+        .output()
+        .unwrap();
+    let said = common::failure_of(&o);
+    assert!(
+        said.contains("records.csv") && said.contains("line 2 is not UTF-8"),
+        "{said}"
+    );
+}
