@@ -34,13 +34,29 @@ pub fn read(
     progress: &dyn Progress,
     laps: &mut Laps,
 ) -> Result<(Matrix, Inputs)> {
-    let vectors = crate::vectors::read_vectors(&opts.vectors)?;
+    let file = crate::vectors::read_vector_file(&opts.vectors, opts.vectors_key.as_deref())?;
+    let vectors = file.matrix;
     progress.note(&format!(
-        "vectors: {} x {} from {}",
+        "vectors: {} x {} from {}{}{}",
         vectors.rows,
         vectors.cols,
-        opts.vectors.display()
+        opts.vectors.display(),
+        file.array
+            .as_ref()
+            .map(|a| format!(" (array {a:?})"))
+            .unwrap_or_default(),
+        if file.ids.is_some() {
+            ", with their ids"
+        } else {
+            ""
+        }
     ));
+    if file.ids.is_some() && opts.vector_ids.is_some() {
+        bail!(
+            "{} holds its vectors' ids (an array \"ids\"); leave out --vector-ids",
+            opts.vectors.display()
+        );
+    }
     let cat = match &opts.catalogue {
         Some(p) => {
             let c = catalogue::read_table(p, &opts.id_column, opts.catalogue_format)?;
@@ -63,7 +79,7 @@ pub fn read(
     if let (Some(c), Some(name)) = (&cat, &opts.date_field) {
         date_column(c, name)?;
     }
-    let items = match_items(&vectors, opts, cat.as_ref())?;
+    let items = match_items(&vectors, opts, cat.as_ref(), file.ids)?;
     laps.lap("read inputs");
     check_finite(&vectors, &items.ids, &opts.vectors)?;
     if vectors.rows == 0 {
@@ -166,9 +182,11 @@ fn match_items(
     vectors: &Matrix,
     opts: &BuildOptions,
     cat: Option<&Catalogue>,
+    file_ids: Option<Vec<String>>,
 ) -> Result<Items, InputError> {
     let vfile = opts.vectors.display().to_string();
     let vector_ids = match &opts.vector_ids {
+        None if file_ids.is_some() => file_ids,
         Some(p) => {
             let ids = read_id_list(p)?;
             if ids.len() != vectors.rows {

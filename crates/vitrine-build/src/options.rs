@@ -38,6 +38,8 @@ pub enum NeighbourSearch {
 pub struct BuildOptions {
     pub vectors: PathBuf,
     pub vector_ids: Option<PathBuf>,
+    /// The array of an `.npz`, or the tensor of a `.safetensors`, that holds the vectors.
+    pub vectors_key: Option<String>,
     pub catalogue: Option<PathBuf>,
     /// The catalogue's delimiter and encoding, when given (else found from the file).
     pub catalogue_format: crate::catalogue::TableFormat,
@@ -80,6 +82,7 @@ impl BuildOptions {
         BuildOptions {
             vectors,
             vector_ids: None,
+            vectors_key: None,
             catalogue: None,
             catalogue_format: Default::default(),
             id_column: "id".into(),

@@ -36,14 +36,20 @@ pub enum OptimiserArg {
 /// Build an atlas folder from feature vectors, a catalogue and images.
 #[derive(Args)]
 pub struct BuildArgs {
-    /// Feature vectors: a NumPy .npy file, items x dimensions (float, integer or bool).
+    /// Feature vectors, items x dimensions: a NumPy .npy file (float, integer or bool), a NumPy
+    /// .npz archive (its one 2-D array; an array "ids" beside it gives their ids) or a
+    /// .safetensors file (its one 2-D tensor).
     #[arg(long)]
     vectors: PathBuf,
-    /// A text file with one id per line, one line per vector row. Without it, vectors match
-    /// catalogue records in order.
+    /// The array of an .npz, or the tensor of a .safetensors, that holds the vectors (when it
+    /// holds several).
+    #[arg(long, value_name = "NAME")]
+    vectors_key: Option<String>,
+    /// A text file with one id per line, one line per vector row. Without it (or ids in the
+    /// vectors' .npz), vectors match catalogue records in order.
     #[arg(long)]
     vector_ids: Option<PathBuf>,
-    /// The catalogue: a CSV file with a header row. Without it, items are numbered.
+    /// The catalogue: a delimited text file with a header row. Without it, items are numbered.
     #[arg(long)]
     catalogue: Option<PathBuf>,
     /// The catalogue column that holds each record's id.
@@ -161,6 +167,7 @@ impl BuildArgs {
         let sheet_size = self.sheet_size;
         BuildOptions {
             vectors: self.vectors,
+            vectors_key: self.vectors_key,
             vector_ids: self.vector_ids,
             catalogue: self.catalogue,
             id_column: self.id_column,

@@ -162,9 +162,8 @@ fn header_end(b: &[u8]) -> Option<usize> {
     }
 }
 
-/// Reads the header from the start of the file (`bytes` holds at least the whole header when
-/// the file has one).
-pub fn parse_header(bytes: &[u8]) -> Result<Header, NpyError> {
+/// The header's text and where the data begin.
+fn header_text(bytes: &[u8]) -> Result<(&str, usize), NpyError> {
     let bad = |reason: String| NpyError::Format(reason);
     if bytes.len() < 10 || &bytes[..6] != b"\x93NUMPY" {
         return Err(bad(
@@ -196,7 +195,113 @@ pub fn parse_header(bytes: &[u8]) -> Result<Header, NpyError> {
         .ok_or_else(|| bad("the header is cut short".into()))?;
     let header = std::str::from_utf8(&bytes[header_start..data_start])
         .map_err(|_| bad("the header is not text".into()))?;
+    Ok((header, data_start))
+}
 
+/// Reads a 1-D array of text or integers, such as ids kept beside vectors: NumPy's fixed-width
+/// unicode (`<U12`, UTF-32, padded with NULs), byte strings (`|S12`, taken as UTF-8) or integers
+/// (written in decimal).
+pub fn parse_strings(bytes: &[u8]) -> Result<Vec<String>, NpyError> {
+    let bad = |reason: String| NpyError::Format(reason);
+    let (header, data_start) = header_text(bytes)?;
+    let descr = dict_value(header, "descr")
+        .ok_or_else(|| bad("the header has no 'descr'".into()))?
+        .trim()
+        .trim_matches(|c| c == '\'' || c == '"')
+        .to_string();
+    let shape = dict_value(header, "shape").unwrap_or("").trim().to_string();
+    let count: usize = shape
+        .trim_start_matches('(')
+        .trim_end_matches(')')
+        .trim()
+        .trim_end_matches(',')
+        .trim()
+        .parse()
+        .map_err(|_| bad(format!("the ids must be a 1-D array; its shape is {shape}")))?;
+    let data = &bytes[data_start..];
+    let (kind, width) = descr.split_at(descr.len().min(2));
+    let width: usize = width.parse().unwrap_or(0);
+    let text = |raw: &[u8]| {
+        String::from_utf8_lossy(raw)
+            .trim_end_matches('\0')
+            .to_string()
+    };
+    let cut = |size: usize| -> Result<Vec<&[u8]>, NpyError> {
+        let need = count
+            .checked_mul(size)
+            .filter(|&n| n <= data.len() && size > 0)
+            .ok_or_else(|| {
+                bad(format!(
+                    "the ids are cut short ({count} of {size} bytes each)"
+                ))
+            })?;
+        Ok(data[..need].chunks_exact(size).collect())
+    };
+    match kind {
+        "<U" | ">U" => {
+            let little = kind == "<U";
+            cut(width * 4)?
+                .into_iter()
+                .map(|item| {
+                    item.chunks_exact(4)
+                        .map(|c| {
+                            let b = [c[0], c[1], c[2], c[3]];
+                            let v = if little {
+                                u32::from_le_bytes(b)
+                            } else {
+                                u32::from_be_bytes(b)
+                            };
+                            char::from_u32(v).ok_or_else(|| {
+                                bad("an id holds a character that is not one".into())
+                            })
+                        })
+                        .collect::<Result<String, _>>()
+                        .map(|s| s.trim_end_matches('\0').to_string())
+                })
+                .collect()
+        }
+        "|S" => Ok(cut(width)?.into_iter().map(text).collect()),
+        _ => {
+            // Integers, exactly (not through float32).
+            let (little, scalar) = parse_descr(&descr)
+                .filter(|(_, s)| !matches!(s, Scalar::F16 | Scalar::F32 | Scalar::F64 | Scalar::Bool))
+                .ok_or_else(|| {
+                    bad(format!(
+                        "ids of element type {descr} are not read: give text (NumPy 'U' or 'S') or integers"
+                    ))
+                })?;
+            let size = scalar.size();
+            Ok(cut(size)?
+                .into_iter()
+                .map(|c| {
+                    let mut b = [0u8; 8];
+                    if little {
+                        b[..size].copy_from_slice(c);
+                    } else {
+                        for (k, &v) in c.iter().rev().enumerate() {
+                            b[k] = v;
+                        }
+                    }
+                    let u = u64::from_le_bytes(b);
+                    let signed = |bits: u32| ((u << (64 - bits)) as i64 >> (64 - bits)).to_string();
+                    match scalar {
+                        Scalar::I8 => signed(8),
+                        Scalar::I16 => signed(16),
+                        Scalar::I32 => signed(32),
+                        Scalar::I64 => signed(64),
+                        _ => u.to_string(),
+                    }
+                })
+                .collect())
+        }
+    }
+}
+
+/// Reads the header from the start of the file (`bytes` holds at least the whole header when
+/// the file has one).
+pub fn parse_header(bytes: &[u8]) -> Result<Header, NpyError> {
+    let bad = |reason: String| NpyError::Format(reason);
+    let (header, data_start) = header_text(bytes)?;
     let descr =
         dict_value(header, "descr").ok_or_else(|| bad("the header has no 'descr'".into()))?;
     let descr = descr.trim().trim_matches(|c| c == '\'' || c == '"');
