@@ -46,6 +46,8 @@ pub enum TextEncoding {
     Utf8,
     /// Windows-1252 (Western European), of which Latin-1's printable characters are a part.
     Windows1252,
+    /// UTF-16 with a byte-order mark (found only, by the mark).
+    Utf16,
 }
 
 impl TextEncoding {
@@ -53,6 +55,7 @@ impl TextEncoding {
         match self {
             TextEncoding::Utf8 => "UTF-8",
             TextEncoding::Windows1252 => "Windows-1252",
+            TextEncoding::Utf16 => "UTF-16",
         }
     }
 }
@@ -173,21 +176,57 @@ pub fn parse_table(
         file: file.clone(),
         reason,
     };
+    // UTF-16 ("Unicode text" from a spreadsheet), by its byte-order mark.
+    let utf16 = match raw {
+        [0xFF, 0xFE, rest @ ..] => Some((rest, true)),
+        [0xFE, 0xFF, rest @ ..] => Some((rest, false)),
+        _ => None,
+    };
+    if let Some((rest, little)) = utf16 {
+        let units: Vec<u16> = rest
+            .chunks_exact(2)
+            .map(|c| {
+                if little {
+                    u16::from_le_bytes([c[0], c[1]])
+                } else {
+                    u16::from_be_bytes([c[0], c[1]])
+                }
+            })
+            .collect();
+        let text = String::from_utf16(&units).map_err(|_| {
+            bad("the file begins as UTF-16 text but is not UTF-16 throughout".into())
+        })?;
+        let mut c = parse_table(text.as_bytes(), path, id_column, format)?;
+        c.read_as.encoding = TextEncoding::Utf16;
+        return Ok(c);
+    }
+    let bom = raw.starts_with(b"\xEF\xBB\xBF");
     let body = raw.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(raw);
-    // Text that is not UTF-8 is read as Windows-1252 (said in the build's notes), unless UTF-8 was
-    // asked for: then the first bad byte is named.
+    // Text that is not UTF-8 is read as Windows-1252 (said in the build's notes). Not when UTF-8
+    // was asked for, nor when the file says or shows it is UTF-8 (a byte-order mark, or accented
+    // letters in UTF-8 before the first bad byte): then the line of the first bad byte is named.
     let utf8 = std::str::from_utf8(body);
+    let refuse = |at: usize, why: &str| {
+        let line = body[..at].iter().filter(|&&b| b == b'\n').count() + 1;
+        bad(format!("line {line} is not UTF-8 text (byte {at}), {why}"))
+    };
     let (encoding, decoded) = match (format.encoding, &utf8) {
-        (Some(TextEncoding::Windows1252), _) | (None, Err(_)) => {
+        (Some(TextEncoding::Windows1252), _) => {
             (TextEncoding::Windows1252, Some(windows_1252(body)))
         }
         (Some(TextEncoding::Utf8), Err(e)) => {
-            let at = e.valid_up_to();
-            let line = body[..at].iter().filter(|&&b| b == b'\n').count() + 1;
-            return Err(bad(format!(
-                "line {line} is not UTF-8 text (byte {at}); it may be Windows-1252 or Latin-1: leave out --catalogue-encoding to read it so, or convert the file to UTF-8"
-            )));
+            return Err(refuse(
+                e.valid_up_to(),
+                "though --catalogue-encoding utf-8 says it is; it may be Windows-1252 or Latin-1: leave the option out to read it so, or convert the file to UTF-8",
+            ))
         }
+        (None, Err(e)) if bom || !body[..e.valid_up_to()].is_ascii() => {
+            return Err(refuse(
+                e.valid_up_to(),
+                "though the rest of the file is (a damaged or mixed file): mend that line, or give --catalogue-encoding windows-1252 to read it all as Windows-1252",
+            ))
+        }
+        (None, Err(_)) => (TextEncoding::Windows1252, Some(windows_1252(body))),
         _ => (TextEncoding::Utf8, None),
     };
     let body: &[u8] = decoded.as_deref().map_or(body, str::as_bytes);
@@ -224,8 +263,9 @@ pub fn parse_table(
     if header.len() > MAX_COLUMNS {
         return Err(bad(format!(
             "the header row has {} columns; a catalogue may have at most {MAX_COLUMNS} (is this the \
-             right file, and is it comma-separated?)",
-            header.len()
+             right file, and is it separated by {}? --delimiter names another)",
+            header.len(),
+            delimiter_name(delimiter)
         )));
     }
     if let Some((i, h)) = header
@@ -297,8 +337,14 @@ pub fn parse_table(
                 len,
                 pos,
             } => bad(format!(
-                "record {row_no} (line {}) has {len} fields, the header has {expected_len}",
-                pos.as_ref().map(|p| line_of(p.byte())).unwrap_or(0)
+                "record {row_no} (line {}) has {len} fields, the header has {expected_len} (read as separated by {}{})",
+                pos.as_ref().map(|p| line_of(p.byte())).unwrap_or(0),
+                delimiter_name(delimiter),
+                if read_as.found.0 {
+                    ", found from the header row; --delimiter names another"
+                } else {
+                    ""
+                }
             )),
             _ => bad(format!("record {row_no}: {e}")),
         })?;
@@ -626,6 +672,39 @@ mod tests {
         assert!(
             e.contains("d.csv") && e.contains("\"1\" appears twice"),
             "{e}"
+        );
+        // A UTF-8 file with one bad byte is refused at its line, not read as Windows-1252.
+        let e = parse_csv(
+            "id,t\n1,é\n2,\u{ff}"
+                .as_bytes()
+                .iter()
+                .copied()
+                .chain([b'\n', 0xff, b'\n'])
+                .collect::<Vec<u8>>()
+                .as_slice(),
+            Path::new("m.csv"),
+            "id",
+        )
+        .unwrap_err()
+        .to_string();
+        assert!(
+            e.contains("m.csv") && e.contains("line 4") && e.contains("damaged or mixed"),
+            "{e}"
+        );
+        let e = parse_csv(b"\xEF\xBB\xBFid,t\n1,\xff\n", Path::new("b.csv"), "id")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("line 2"), "{e}");
+        // UTF-16 with its byte-order mark, as spreadsheets save "Unicode text".
+        let mut wide = vec![0xFF, 0xFE];
+        for u in "id\tplace\n1\tKöln\n".encode_utf16() {
+            wide.extend(u.to_le_bytes());
+        }
+        let c = parse_csv(&wide, Path::new("w.txt"), "id").unwrap();
+        assert_eq!(c.rows[0][1], "Köln");
+        assert_eq!(
+            (c.read_as.encoding, c.read_as.delimiter),
+            (TextEncoding::Utf16, b'\t')
         );
         // Not UTF-8: read as Windows-1252, unless UTF-8 is asked for.
         let c = parse_csv(b"id,t\n1,\xff\n", Path::new("u.csv"), "id").unwrap();

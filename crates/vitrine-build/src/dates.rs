@@ -4,8 +4,11 @@
 //! - `1602` → 1602–1602; `-450` or `450 BC`/`450 BCE` → −450; `450 AD`, `450 CE` → 450.
 //! - `1550-1575`, `1550–1575`, `1550 to 1575`, `1550/1575`, `1550 bis 1575`, `1550 à 1575` →
 //!   1550–1575; `1550-75`, `1550–75`, `1540/50` → the end shares the start's leading digits.
-//! - ISO 8601 dates keep their year: `2023-04-05` (and with a time), `1923-04` (a year and a month:
-//!   a hyphen and 01–12; write an abbreviated range with an en dash, `1923–24`, or in full).
+//! - ISO 8601 dates keep their year: `2023-04-05` (and with a time); `1923-04` is a year and a
+//!   month where it cannot be an abbreviated range (a hyphen and a month 01-12 not after the year's
+//!   last two digits: 1923-04, 1985-04, 1598-03), else the range (`1911-12` → 1911–1912, which holds
+//!   the month anyway); in an EDTF interval or with a qualifier (`2004-06/2006-08`, `2004-06~`) it
+//!   is always a date. Write an abbreviated range with an en dash, `1598–03`, or in full.
 //! - EDTF (ISO 8601-2): unspecified digits `154X` → 1540–1549, `15XX` → 1500–1599, `1985-XX`,
 //!   `156X-12-25`; qualifiers `?` (uncertain: the year as written), `~` and `%` (approximate: as
 //!   `c.`); intervals `1964/2008`, `2004-06/2006-08`, open ends `../1985` and `1985/..` (a
@@ -100,27 +103,25 @@ fn dating(t: &str, depth: u32) -> Option<Span> {
         return None;
     }
     let again = |s: &str| dating(s, depth + 1);
+    // Approximate marks, brackets and sets are read only around years (three digits in a row at
+    // least), so that a number column's `50%`, `~30` or `[12, 40]` stays numbers.
+    let yearish = has_year_digits(t);
     // Qualifiers: uncertain as written; approximate widened.
+    // (A qualified YYYY-MM is EDTF, so an ISO date: its year.)
+    let iso = |r: &str| iso_year(r).map(|y| (y, y));
     if let Some(r) = t.strip_suffix("(?)").or_else(|| t.strip_suffix('?')) {
-        return again(r);
+        return iso(r).or_else(|| again(r));
     }
     // (Approximate to the month or day keeps the year: only a year is widened.)
-    let approximate = |r: &str| {
-        let s = again(r)?;
-        if r.trim_start_matches('-').contains('-') && single(r.trim()).is_some() {
-            Some(s)
-        } else {
-            circa(s)
-        }
-    };
+    let approximate = |r: &str| iso(r).or_else(|| circa(again(r)?));
     if let Some(r) = t.strip_suffix('~').or_else(|| t.strip_suffix('%')) {
-        return approximate(r);
+        return if yearish { approximate(r) } else { None };
     }
     if let Some(r) = t.strip_prefix('?') {
-        return again(r);
+        return iso(r).or_else(|| again(r));
     }
     if let Some(r) = t.strip_prefix('~').or_else(|| t.strip_prefix('%')) {
-        return approximate(r);
+        return if yearish { approximate(r) } else { None };
     }
     // EDTF qualifiers on a month or day (2004-06-~11, 2004-?06-11): the year as written.
     if t.len() > 4 && t.is_char_boundary(4) && t[4..].contains(['?', '~', '%']) {
@@ -135,6 +136,9 @@ fn dating(t: &str, depth: u32) -> Option<Span> {
     // Brackets: a supplied date, or an EDTF set of dates.
     for (open, close) in [('[', ']'), ('{', '}')] {
         if let Some(inner) = t.strip_prefix(open).and_then(|r| r.strip_suffix(close)) {
+            if !yearish {
+                return None;
+            }
             return if inner.contains(',') || inner.contains("..") {
                 set(inner, depth)
             } else {
@@ -177,11 +181,22 @@ fn dating(t: &str, depth: u32) -> Option<Span> {
     range(t, depth)
 }
 
+/// Whether `t` holds three digits in a row (a year as archives write one).
+fn has_year_digits(t: &str) -> bool {
+    t.as_bytes()
+        .windows(3)
+        .any(|w| w.iter().all(u8::is_ascii_digit))
+}
+
 /// The members of an EDTF set (`1667, 1668, 1670..1672`, `..1760-12-03`): their first to last year.
+/// Every member must be a year (three digits or more) or a date.
 fn set(inner: &str, depth: u32) -> Option<Span> {
     let mut span: Option<Span> = None;
     for m in inner.split(',') {
         let m = m.trim();
+        if !has_year_digits(m) {
+            return None;
+        }
         let part = if let Some(r) = m.strip_prefix("..") {
             let (s, _) = dating(r, depth + 1)?;
             (s.checked_sub(OPEN_SPAN)?, s)
@@ -201,9 +216,33 @@ fn set(inner: &str, depth: u32) -> Option<Span> {
     span
 }
 
+/// The year of a strict ISO 8601 date or year-month (YYYY-MM, YYYY-MM-DD), as EDTF intervals
+/// write their ends.
+fn iso_year(s: &str) -> Option<i64> {
+    let p: Vec<&str> = s.trim().split('-').collect();
+    let month = |m: &str| m.len() == 2 && m.parse::<u32>().is_ok_and(|v| (1..=12).contains(&v));
+    let day = |d: &str| d.len() == 2 && d.parse::<u32>().is_ok_and(|v| (1..=31).contains(&v));
+    let ok = match p.as_slice() {
+        [y, m] => y.len() == 4 && month(m),
+        [y, m, d] => y.len() == 4 && month(m) && day(d),
+        _ => false,
+    };
+    if ok && p[0].chars().all(|c| c.is_ascii_digit()) {
+        p[0].parse().ok()
+    } else {
+        None
+    }
+}
+
 /// A range: two datings joined by a separator; an end shorter than its start shares the start's
 /// leading digits (`1550-75`).
 fn range(t: &str, depth: u32) -> Option<Span> {
+    // An EDTF interval of ISO dates: 2004-06/2006-08.
+    if let Some((a, b)) = t.split_once('/') {
+        if let (Some(s), Some(e)) = (iso_year(a), iso_year(b)) {
+            return (s <= e).then_some((s, e));
+        }
+    }
     for sep in [" to ", " bis ", " à ", "–", "/", "-"] {
         // A leading minus is a sign, not a separator.
         let from = usize::from(t.starts_with('-'));
@@ -251,9 +290,18 @@ fn single(t: &str) -> Option<Span> {
     let unspecified_or = |p: &str, range: std::ops::RangeInclusive<u32>| {
         p.len() == 2 && (p == "xx" || p.parse::<u32>().is_ok_and(|v| range.contains(&v)))
     };
+    // YYYY-MM is a year and month where it cannot be an abbreviated range: its month is not after
+    // the year's last two digits (1923-04, 1985-04), or unspecified (XX); `1911-12` is 1911-1912,
+    // a range that holds the month anyway.
+    let month_only = |y: &str, m: &str| {
+        unspecified_or(m, 1..=12)
+            && (m == "xx"
+                || !y.chars().all(|c| c.is_ascii_digit())
+                || y.get(2..).and_then(|t| t.parse::<u32>().ok()) >= m.parse::<u32>().ok())
+    };
     let dated = match parts.as_slice() {
         [y] => Some(*y),
-        [y, m] if unspecified_or(m, 1..=12) => Some(*y),
+        [y, m] if month_only(y, m) => Some(*y),
         [y, m, d] if unspecified_or(m, 1..=12) && unspecified_or(d, 1..=31) => Some(*y),
         _ => None,
     };
@@ -276,10 +324,19 @@ fn single(t: &str) -> Option<Span> {
         .or_else(|| t.strip_suffix('s'))
         .or_else(|| t.strip_suffix("er jahre"))
         .or_else(|| t.strip_suffix("er"))?;
-    let d = decade.strip_suffix('0')?;
-    if decade.len() >= 4 && decade.chars().all(|c| c.is_ascii_digit()) {
+    let (negative, digits) = match decade.strip_prefix('-') {
+        Some(d) => (true, d),
+        None => (false, decade),
+    };
+    let d = digits.strip_suffix('0')?;
+    if digits.len() >= 4 && digits.chars().all(|c| c.is_ascii_digit()) {
         let start = d.parse::<i64>().ok()?.checked_mul(10)?;
-        return Some((start, start.checked_add(9)?));
+        // A BC decade (-1540s) runs from -1540 towards the present, as before: -1540 to -1531.
+        return Some(if negative {
+            (-start, -start + 9)
+        } else {
+            (start, start.checked_add(9)?)
+        });
     }
     None
 }
@@ -346,11 +403,17 @@ const PARTS: &[(&str, (i64, i64))] = &[
     ("début du ", (0, 33)),
     ("milieu du ", (33, 66)),
     ("fin du ", (66, 99)),
+    ("début ", (0, 33)),
+    ("milieu ", (33, 66)),
+    ("fin ", (66, 99)),
     ("prima metà del ", (0, 49)),
     ("seconda metà del ", (50, 99)),
     ("inizio del ", (0, 33)),
     ("metà del ", (33, 66)),
     ("fine del ", (66, 99)),
+    ("inizio ", (0, 33)),
+    ("metà ", (33, 66)),
+    ("fine ", (66, 99)),
     ("begin ", (0, 33)),
     ("midden ", (33, 66)),
     ("eind ", (66, 99)),
@@ -559,6 +622,13 @@ mod tests {
             ("1540/1550", Some((1540, 1550))),
             // ISO year-month is not a range; an en dash or the full year makes one.
             ("1923-04", Some((1923, 1923))),
+            ("1598-03", Some((1598, 1598))),
+            ("1911-12", Some((1911, 1912))),
+            ("2004-06", Some((2004, 2006))),
+            ("2004-06?", Some((2004, 2004))),
+            ("-1540s", Some((-1540, -1531))),
+            ("fin XVIe siècle", Some((1566, 1599))),
+            ("inizio XVI secolo", Some((1500, 1533))),
             ("1923–24", Some((1923, 1924))),
             ("1923-1924", Some((1923, 1924))),
             ("1550-75", Some((1550, 1575))),
@@ -614,10 +684,15 @@ mod tests {
             ("1550 à 1575", Some((1550, 1575))),
             ("450 v. Chr.", Some((-450, -450))),
             ("AD 450", Some((450, 450))),
-            // Not datings
+            // 13 is no month: a range.
+            ("1985-13", Some((1985, 2013))),
+            // Not datings, among them a number column's values
+            ("50%", None),
+            ("~30", None),
+            ("[12, 40, 200, 300]", None),
+            ("[12]", None),
             ("XVIIII siècle", None),
             ("31st century", None),
-            ("1985-13", Some((1985, 2013))),
             ("summer", None),
             ("1540-1530", None),
             ("c.", None),

@@ -89,13 +89,16 @@ fn read_npz(path: &Path, key: Option<&str>) -> Result<VectorFile, InputError> {
         .filter_map(|n| n.strip_suffix(".npy"))
         .map(str::to_string)
         .collect();
-    let mut entry = |array: &str| -> Result<Vec<u8>, InputError> {
-        let mut f = zip
+    // An entry's first `limit` bytes at most (never more than the archive states it holds).
+    type Archive = zip::ZipArchive<std::io::BufReader<std::fs::File>>;
+    let entry = |zip: &mut Archive, array: &str, limit: u64| -> Result<Vec<u8>, InputError> {
+        let f = zip
             .by_name(&format!("{array}.npy"))
             .map_err(|e| bad(format!("array {array:?}: {e}")))?;
-        // (The archive states each entry's size; a damaged one that lies is cut off by the read.)
-        let mut bytes = Vec::with_capacity((f.size() as usize).min(1 << 30));
-        f.read_to_end(&mut bytes)
+        let size = f.size();
+        let mut bytes = Vec::new();
+        f.take(size.min(limit))
+            .read_to_end(&mut bytes)
             .map_err(|e| bad(format!("array {array:?}: {e}")))?;
         Ok(bytes)
     };
@@ -118,8 +121,9 @@ fn read_npz(path: &Path, key: Option<&str>) -> Result<VectorFile, InputError> {
             // The 2-D numeric arrays (their headers read to tell).
             let mut matrices = Vec::new();
             for a in arrays.iter().filter(|a| !ID_ARRAYS.contains(&a.as_str())) {
-                let bytes = entry(a)?;
-                if npy::parse_header(&bytes).is_ok_and(|h| h.cols > 1 || a == "vectors") {
+                // (A header is at most a few kilobytes.)
+                let head = entry(&mut zip, a, 64 << 10)?;
+                if npy::parse_header(&head).is_ok_and(|h| h.cols > 1 || a == "vectors") {
                     matrices.push(a.clone());
                 }
             }
@@ -140,13 +144,35 @@ fn read_npz(path: &Path, key: Option<&str>) -> Result<VectorFile, InputError> {
             }
         }
     };
-    let bytes = entry(&chosen)?;
-    let a: NpyArray = npy::parse(&bytes).map_err(|e| bad(format!("array {chosen:?}: {e}")))?;
-    drop(bytes);
+    // The vectors streamed from the archive into their f32 matrix (no copy of the packed bytes).
+    let a: NpyArray = {
+        let f = zip
+            .by_name(&format!("{chosen}.npy"))
+            .map_err(|e| bad(format!("array {chosen:?}: {e}")))?;
+        let size = f.size();
+        npy::read(&mut f.take(size), size as usize).map_err(|e| match e {
+            NpyError::Io(e) => bad(format!("array {chosen:?}: {e}")),
+            NpyError::Format(reason) => bad(format!("array {chosen:?}: {reason}")),
+        })?
+    };
     let ids = match ID_ARRAYS.iter().find(|i| arrays.iter().any(|a| a == *i)) {
         Some(i) => {
-            let ids = npy::parse_strings(&entry(i)?)
+            let ids = npy::parse_strings(&entry(&mut zip, i, u64::MAX)?)
                 .map_err(|e| bad(format!("array {i:?} (the ids): {e}")))?;
+            let ids: Vec<String> = ids.into_iter().map(|s| s.trim().to_string()).collect();
+            let mut seen = std::collections::HashMap::new();
+            for (k, id) in ids.iter().enumerate() {
+                if id.is_empty() {
+                    return Err(bad(format!("array {i:?} (the ids): id {} is empty", k + 1)));
+                }
+                if let Some(j) = seen.insert(id.as_str(), k) {
+                    return Err(bad(format!(
+                        "array {i:?} (the ids): the id {id:?} appears twice (rows {} and {})",
+                        j + 1,
+                        k + 1
+                    )));
+                }
+            }
             if ids.len() != a.rows {
                 return Err(bad(format!(
                     "array {i:?} holds {} ids but {chosen:?} has {} rows",

@@ -784,6 +784,9 @@ fn parameters(
         );
     }
     p.insert("id_column".into(), json!(opts.id_column));
+    if let Some(k) = &opts.vectors_key {
+        p.insert("vectors_key".into(), json!(k));
+    }
     if let Some(d) = opts.catalogue_format.delimiter {
         p.insert("catalogue_delimiter".into(), json!((d as char).to_string()));
     }

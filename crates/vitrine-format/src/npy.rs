@@ -219,8 +219,8 @@ pub fn parse_strings(bytes: &[u8]) -> Result<Vec<String>, NpyError> {
         .parse()
         .map_err(|_| bad(format!("the ids must be a 1-D array; its shape is {shape}")))?;
     let data = &bytes[data_start..];
-    let (kind, width) = descr.split_at(descr.len().min(2));
-    let width: usize = width.parse().unwrap_or(0);
+    let kind = descr.get(..2).unwrap_or("");
+    let width: usize = descr.get(2..).and_then(|w| w.parse().ok()).unwrap_or(0);
     let text = |raw: &[u8]| {
         String::from_utf8_lossy(raw)
             .trim_end_matches('\0')
@@ -240,25 +240,26 @@ pub fn parse_strings(bytes: &[u8]) -> Result<Vec<String>, NpyError> {
     match kind {
         "<U" | ">U" => {
             let little = kind == "<U";
-            cut(width * 4)?
-                .into_iter()
-                .map(|item| {
-                    item.chunks_exact(4)
-                        .map(|c| {
-                            let b = [c[0], c[1], c[2], c[3]];
-                            let v = if little {
-                                u32::from_le_bytes(b)
-                            } else {
-                                u32::from_be_bytes(b)
-                            };
-                            char::from_u32(v).ok_or_else(|| {
-                                bad("an id holds a character that is not one".into())
-                            })
-                        })
-                        .collect::<Result<String, _>>()
-                        .map(|s| s.trim_end_matches('\0').to_string())
-                })
-                .collect()
+            cut(width
+                .checked_mul(4)
+                .ok_or_else(|| bad(format!("ids of width {width} are too wide")))?)?
+            .into_iter()
+            .map(|item| {
+                item.chunks_exact(4)
+                    .map(|c| {
+                        let b = [c[0], c[1], c[2], c[3]];
+                        let v = if little {
+                            u32::from_le_bytes(b)
+                        } else {
+                            u32::from_be_bytes(b)
+                        };
+                        char::from_u32(v)
+                            .ok_or_else(|| bad("an id holds a character that is not one".into()))
+                    })
+                    .collect::<Result<String, _>>()
+                    .map(|s| s.trim_end_matches('\0').to_string())
+            })
+            .collect()
         }
         "|S" => Ok(cut(width)?.into_iter().map(text).collect()),
         _ => {
