@@ -34,11 +34,13 @@ impl Catalogue {
     }
 }
 
-/// A catalogue's delimiter and text encoding, when the user names them (None: found from the file).
-#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+/// A catalogue's delimiter and text encoding, when the user names them (None: found from the file),
+/// and the sheet of a spreadsheet workbook (None: its first).
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
 pub struct TableFormat {
     pub delimiter: Option<u8>,
     pub encoding: Option<TextEncoding>,
+    pub sheet: Option<String>,
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -67,6 +69,8 @@ pub struct ReadAs {
     pub encoding: TextEncoding,
     /// The delimiter, the encoding: found from the file (true) or given (false).
     pub found: (bool, bool),
+    /// The sheet read, when the catalogue is a spreadsheet workbook.
+    pub sheet: Option<String>,
 }
 
 impl ReadAs {
@@ -90,14 +94,101 @@ pub fn read_csv(path: &Path, id_column: &str) -> Result<Catalogue, InputError> {
     read_table(path, id_column, TableFormat::default())
 }
 
-/// Reads a catalogue file with the delimiter and encoding given, or found from it.
+/// Whether `path` names a spreadsheet workbook (.xlsx, .xlsm, .xls, .ods) by its extension.
+fn is_workbook(path: &Path) -> bool {
+    let ext = path
+        .extension()
+        .map(|e| e.to_string_lossy().to_lowercase())
+        .unwrap_or_default();
+    matches!(ext.as_str(), "xlsx" | "xlsm" | "xls" | "ods")
+}
+
+/// Reads a catalogue file: a spreadsheet workbook's sheet, or a delimited text file with the
+/// delimiter and encoding given, or found from it.
 pub fn read_table(
     path: &Path,
     id_column: &str,
     format: TableFormat,
 ) -> Result<Catalogue, InputError> {
+    let bad = |reason: String| InputError::Catalogue {
+        file: path.display().to_string(),
+        reason,
+    };
+    if is_workbook(path) {
+        let (sheet, csv) = sheet_as_csv(path, format.sheet.as_deref()).map_err(bad)?;
+        let as_text = TableFormat {
+            delimiter: Some(b','),
+            encoding: Some(TextEncoding::Utf8),
+            sheet: None,
+        };
+        let mut c = parse_table(&csv, path, id_column, as_text)?;
+        c.read_as.sheet = Some(sheet);
+        return Ok(c);
+    }
+    if let Some(s) = &format.sheet {
+        return Err(bad(format!(
+            "--sheet {s:?}: the catalogue is not a spreadsheet workbook (.xlsx, .xls, .ods)"
+        )));
+    }
     let raw = std::fs::read(path).map_err(|e| InputError::io(path, e))?;
     parse_table(&raw, path, id_column, format)
+}
+
+/// A workbook's sheet (the one named, else the first) as CSV text: numbers as written without a
+/// spurious ".0", dates as ISO 8601 (`1923-04-05`, with a time only when it has one), errors as
+/// their code (`#N/A`).
+fn sheet_as_csv(path: &Path, sheet: Option<&str>) -> Result<(String, Vec<u8>), String> {
+    use calamine::{Data, Reader};
+    let mut book = calamine::open_workbook_auto(path)
+        .map_err(|e| format!("cannot read it as a spreadsheet workbook: {e}"))?;
+    let names = book.sheet_names().to_vec();
+    let name = match sheet {
+        Some(s) if names.iter().any(|n| n == s) => s.to_string(),
+        Some(s) => {
+            return Err(format!(
+                "--sheet {s:?}: the workbook has no such sheet (its sheets: {})",
+                names.join(", ")
+            ))
+        }
+        None => names
+            .first()
+            .cloned()
+            .ok_or_else(|| "the workbook has no sheets".to_string())?,
+    };
+    let range = book
+        .worksheet_range(&name)
+        .map_err(|e| format!("sheet {name:?}: {e}"))?;
+    let mut w = csv::Writer::from_writer(Vec::new());
+    for row in range.rows() {
+        let cells: Vec<String> = row
+            .iter()
+            .map(|c| match c {
+                Data::Empty => String::new(),
+                Data::String(s) | Data::DateTimeIso(s) | Data::DurationIso(s) => s.clone(),
+                Data::Int(i) => i.to_string(),
+                Data::Float(f) if f.fract() == 0.0 && f.abs() < 1e15 => format!("{}", *f as i64),
+                Data::Float(f) => f.to_string(),
+                Data::Bool(b) => b.to_string(),
+                Data::DateTime(d) => match d.as_datetime() {
+                    Some(t) => {
+                        use chrono::{Datelike, Timelike};
+                        let date = format!("{:04}-{:02}-{:02}", t.year(), t.month(), t.day());
+                        if t.time() == chrono::NaiveTime::MIN {
+                            date
+                        } else {
+                            format!("{date}T{:02}:{:02}:{:02}", t.hour(), t.minute(), t.second())
+                        }
+                    }
+                    None => d.as_f64().to_string(),
+                },
+                Data::Error(e) => e.to_string(),
+            })
+            .collect();
+        w.write_record(&cells)
+            .map_err(|e| format!("sheet {name:?}: {e}"))?;
+    }
+    let bytes = w.into_inner().map_err(|e| format!("sheet {name:?}: {e}"))?;
+    Ok((name, bytes))
 }
 
 /// The delimiters a catalogue may use.
@@ -196,7 +287,7 @@ pub fn parse_table(
         let text = String::from_utf16(&units).map_err(|_| {
             bad("the file begins as UTF-16 text but is not UTF-16 throughout".into())
         })?;
-        let mut c = parse_table(text.as_bytes(), path, id_column, format)?;
+        let mut c = parse_table(text.as_bytes(), path, id_column, format.clone())?;
         c.read_as.encoding = TextEncoding::Utf16;
         return Ok(c);
     }
@@ -238,6 +329,7 @@ pub fn parse_table(
         delimiter,
         encoding,
         found: (format.delimiter.is_none(), format.encoding.is_none()),
+        sheet: None,
     };
     let mut reader = csv::ReaderBuilder::new()
         .has_headers(true)

@@ -59,18 +59,27 @@ pub fn read(
     }
     let cat = match &opts.catalogue {
         Some(p) => {
-            let c = catalogue::read_table(p, &opts.id_column, opts.catalogue_format)?;
+            let c = catalogue::read_table(p, &opts.id_column, opts.catalogue_format.clone())?;
             let how = |found: bool| if found { "found" } else { "as given" };
-            progress.note(&format!(
-                "catalogue: {} records, {} columns from {} (separated by {}, {}; {} text, {})",
-                c.rows.len(),
-                c.header.len(),
-                p.display(),
-                c.read_as.delimiter_name(),
-                how(c.read_as.found.0),
-                c.read_as.encoding.name(),
-                how(c.read_as.found.1)
-            ));
+            if let Some(sheet) = &c.read_as.sheet {
+                progress.note(&format!(
+                    "catalogue: {} records, {} columns from {} (sheet {sheet:?})",
+                    c.rows.len(),
+                    c.header.len(),
+                    p.display()
+                ));
+            } else {
+                progress.note(&format!(
+                    "catalogue: {} records, {} columns from {} (separated by {}, {}; {} text, {})",
+                    c.rows.len(),
+                    c.header.len(),
+                    p.display(),
+                    c.read_as.delimiter_name(),
+                    how(c.read_as.found.0),
+                    c.read_as.encoding.name(),
+                    how(c.read_as.found.1)
+                ));
+            }
             Some(c)
         }
         None => None,

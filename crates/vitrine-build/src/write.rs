@@ -793,6 +793,9 @@ fn parameters(
     if let Some(e) = opts.catalogue_format.encoding {
         p.insert("catalogue_encoding".into(), json!(e.name()));
     }
+    if let Some(s) = &opts.catalogue_format.sheet {
+        p.insert("catalogue_sheet".into(), json!(s));
+    }
     p.insert("sheet_size".into(), json!(opts.sheet_size));
     p.insert("cells".into(), json!(opts.cells));
     p.insert("jpeg_quality".into(), json!(opts.jpeg_quality));

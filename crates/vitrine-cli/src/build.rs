@@ -139,6 +139,9 @@ pub struct BuildArgs {
     /// holds it). Found when left out: a file that is not UTF-8 is read as Windows-1252, and said.
     #[arg(long, value_parser = parse_encoding)]
     catalogue_encoding: Option<vitrine_build::catalogue::TextEncoding>,
+    /// The sheet of a spreadsheet catalogue (.xlsx, .xls, .ods) to read (default: its first).
+    #[arg(long)]
+    sheet: Option<String>,
     /// Do not look for copies of one picture (they are looked for whenever there are images).
     #[arg(long)]
     no_copies: bool,
@@ -216,6 +219,7 @@ impl BuildArgs {
             catalogue_format: vitrine_build::catalogue::TableFormat {
                 delimiter: self.delimiter,
                 encoding: self.catalogue_encoding,
+                sheet: self.sheet,
             },
             copies: (!self.no_copies).then_some(vitrine_build::copies::CopyRule {
                 ratio: self.copy_ratio,

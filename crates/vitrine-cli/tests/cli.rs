@@ -1787,3 +1787,83 @@ fn a_semicolon_separated_windows_1252_catalogue_is_read_and_said_so() {
         "{said}"
     );
 }
+
+/// A catalogue kept as a spreadsheet workbook, written by openpyxl (from the package registry):
+/// its first sheet by default, another by --sheet, a missing one named with the sheets there are.
+#[test]
+fn a_spreadsheet_workbook_is_read_sheet_by_sheet() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let n = 30;
+    let data: Vec<f32> = (0..n * 4).map(|k| ((k * 37 % 11) as f32) * 0.1).collect();
+    write_npy_f32(&d.join("vectors.npy"), n, 4, &data).unwrap();
+    common::run_python(
+        r#"
+import sys, datetime, openpyxl
+wb = openpyxl.Workbook()
+ws = wb.active
+ws.title = "Records"
+ws.append(["id", "place", "dating", "height_cm"])
+for i in range(30):
+    ws.append([i, "Düsseldorf" if i % 2 else "Köln", datetime.datetime(1900 + i, 4, 5), 30.0 if i % 3 else 27.5])
+other = wb.create_sheet("Loans")
+other.append(["id", "lender"])
+for i in range(30):
+    other.append([i, "Kunstkammer Calvessa"])
+wb.save(f"{sys.argv[1]}/records.xlsx")
+"#,
+        &[d],
+    );
+    let build = |out: &str, extra: &[&str]| {
+        common::vitrine()
+            .current_dir(d)
+            .args(["build", "--epochs", "30", "--vectors", "vectors.npy"])
+            .args(["--catalogue", "records.xlsx", "--out", out])
+            .args(extra)
+            .output()
+            .unwrap()
+    };
+    let notes = common::notes_of(&build("atlas", &[]));
+    assert!(
+        notes.contains("from records.xlsx (sheet \"Records\")"),
+        "{notes}"
+    );
+    let atlas = Atlas::open(&d.join("atlas")).unwrap();
+    let m = &atlas.manifest;
+    let place = m.fields.iter().find(|f| f.name == "place").unwrap();
+    let mut places = place.values.clone();
+    places.sort();
+    assert_eq!(places, ["Düsseldorf", "Köln"]);
+    let dating = m.fields.iter().find(|f| f.name == "dating").unwrap();
+    assert_eq!(dating.kind, vitrine_format::FieldKind::Date);
+    let written = atlas
+        .text(
+            &dating.written.as_ref().unwrap()[0],
+            &dating.written.as_ref().unwrap()[1],
+        )
+        .unwrap();
+    let ids = atlas.ids().unwrap();
+    let k = (0..n).find(|&k| ids.get(k) == "7").unwrap();
+    assert_eq!(written.get(k), "1907-04-05", "a date cell as ISO 8601");
+    let height = m.fields.iter().find(|f| f.name == "height_cm").unwrap();
+    let hw = atlas
+        .text(
+            &height.written.as_ref().unwrap()[0],
+            &height.written.as_ref().unwrap()[1],
+        )
+        .unwrap();
+    assert_eq!(hw.get(k), "30", "a whole number without a spurious .0");
+    // Another sheet, named.
+    common::notes_of(&build("loans", &["--sheet", "Loans"]));
+    let loans = Atlas::open(&d.join("loans")).unwrap().manifest;
+    assert!(loans.fields.iter().any(|f| f.name == "lender"));
+    assert_eq!(loans.provenance.parameters["catalogue_sheet"], "Loans");
+    // A sheet that is not there: named, with the ones that are.
+    let said = common::failure_of(&build("none", &["--sheet", "Inventory"]));
+    assert!(
+        said.contains("records.xlsx")
+            && said.contains("\"Inventory\"")
+            && said.contains("Records, Loans"),
+        "{said}"
+    );
+}
