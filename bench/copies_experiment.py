@@ -10,36 +10,12 @@ the share of look-alikes within each threshold.
 
 Run: ~/.cache/vitrine/venv/bin/python bench/copies_experiment.py [other-texture|objects-moved]
 """
-import sys
-import numpy as np, imagehash, io, random
-from PIL import Image, ImageEnhance, ImageFilter
+import os, sys
+import numpy as np, imagehash, random
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "tests", "copies"))
+from make_set import scene, copy  # the test set's invented scenes and copies
 rng = np.random.default_rng(7); R = random.Random(7)
 HARD = len(sys.argv) > 1 and sys.argv[1] == "objects-moved"
-def scene(seed, w=480, h=360, layout=None):
-    g = np.random.default_rng(seed)
-    y, x = np.mgrid[0:h, 0:w] / max(w, h)
-    img = np.zeros((h, w, 3))
-    # textured ground: several octaves of smoothed noise
-    for octave in (8, 24, 64):
-        n = g.normal(0, 1, (octave * h // w + 2, octave + 2, 3))
-        up = np.array(Image.fromarray(((n - n.min()) / np.ptp(n) * 255).astype(np.uint8)).resize((w, h), Image.BICUBIC)) / 255.0
-        img += up * (24.0 / octave)
-    lay = layout if layout is not None else g
-    for _ in range(int(lay.integers(3, 8))):
-        cx, cy, r = lay.uniform(0.1, 0.9), lay.uniform(0.1, 0.7), lay.uniform(0.04, 0.18)
-        col = g.uniform(0, 1, 3)
-        m = np.exp(-(((x - cx) ** 2 + (y - cy) ** 2) / r ** 2) ** 2)
-        img = img * (1 - m[..., None]) + col * m[..., None]
-    img = (img - img.min()) / np.ptp(img)
-    return Image.fromarray((img * 255).astype(np.uint8))
-def copy(img, r):
-    w, h = img.size; out = img
-    c = r.uniform(0.0, 0.10); dx, dy = int(w * c * r.random()), int(h * c * r.random())
-    out = out.crop((dx, dy, w - int(w * c) + dx, h - int(h * c) + dy))
-    out = ImageEnhance.Brightness(out).enhance(r.uniform(0.8, 1.2)); out = ImageEnhance.Contrast(out).enhance(r.uniform(0.8, 1.25))
-    out = out.rotate(r.uniform(-3, 3), resample=Image.BICUBIC, fillcolor=(235, 230, 220))
-    out = out.resize((int(out.width * r.uniform(0.5, 1.3)), int(out.height * r.uniform(0.5, 1.3))))
-    b = io.BytesIO(); out.save(b, "JPEG", quality=r.randint(35, 90)); return Image.open(b).convert("RGB")
 def h(img): return int(str(imagehash.phash(img)), 16)
 def ham(a, b): return bin(a ^ b).count("1")
 def variants(img):

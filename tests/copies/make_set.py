@@ -14,7 +14,7 @@ would come from a neural network and sit copies closer still.
 
 Writes into DIR: images/*.jpg, catalogue.csv (id, scene, role), vectors.npy, ids.txt.
 Run: python make_set.py DIR [SCENES] [SEED]   (the thresholds were chosen on seed 7; the test
-runs another)
+runs another). bench/copies_experiment.py imports `scene` and `copy` from here.
 """
 import io
 import os
@@ -24,11 +24,6 @@ import sys
 import numpy as np
 from PIL import Image, ImageEnhance
 
-out = sys.argv[1]
-SCENES = int(sys.argv[2]) if len(sys.argv) > 2 else 100
-SEED = int(sys.argv[3]) if len(sys.argv) > 3 else 7
-R = random.Random(SEED)
-BASE = 0 if SEED == 7 else SEED * 100_000
 
 
 def scene(seed, w=480, h=360, layout=None):
@@ -50,17 +45,18 @@ def scene(seed, w=480, h=360, layout=None):
     return Image.fromarray((img * 255).astype(np.uint8))
 
 
-def copy(img):
+def copy(img, r):
+    """A copy of `img` as an archive makes one, its changes drawn from `r` (a random.Random)."""
     w, h = img.size
-    c = R.uniform(0.0, 0.10)
-    dx, dy = int(w * c * R.random()), int(h * c * R.random())
+    c = r.uniform(0.0, 0.10)
+    dx, dy = int(w * c * r.random()), int(h * c * r.random())
     out = img.crop((dx, dy, w - int(w * c) + dx, h - int(h * c) + dy))
-    out = ImageEnhance.Brightness(out).enhance(R.uniform(0.8, 1.2))
-    out = ImageEnhance.Contrast(out).enhance(R.uniform(0.8, 1.25))
-    out = out.rotate(R.uniform(-3, 3), resample=Image.BICUBIC, fillcolor=(235, 230, 220))
-    out = out.resize((int(out.width * R.uniform(0.5, 1.3)), int(out.height * R.uniform(0.5, 1.3))))
+    out = ImageEnhance.Brightness(out).enhance(r.uniform(0.8, 1.2))
+    out = ImageEnhance.Contrast(out).enhance(r.uniform(0.8, 1.25))
+    out = out.rotate(r.uniform(-3, 3), resample=Image.BICUBIC, fillcolor=(235, 230, 220))
+    out = out.resize((int(out.width * r.uniform(0.5, 1.3)), int(out.height * r.uniform(0.5, 1.3))))
     b = io.BytesIO()
-    out.save(b, "JPEG", quality=R.randint(35, 90))
+    out.save(b, "JPEG", quality=r.randint(35, 90))
     return Image.open(b).convert("RGB")
 
 
@@ -70,34 +66,42 @@ def tiny(img):
     return a.ravel()
 
 
-rows, vecs = [], []
+def main(argv):
+    out = argv[1]
+    scenes = int(argv[2]) if len(argv) > 2 else 100
+    seed = int(argv[3]) if len(argv) > 3 else 7
+    r = random.Random(seed)
+    base = 0 if seed == 7 else seed * 100_000
+    rows, vecs = [], []
+
+    def add(img, id_, scene_no, role):
+        img.save(f"{out}/images/{id_}.jpg", quality=92)
+        rows.append((id_, scene_no, role))
+        vecs.append(tiny(img))
+
+    os.makedirs(f"{out}/images", exist_ok=True)
+    for s in range(scenes):
+        a = scene(base + 1000 + s)
+        add(a, f"s{s:03d}", s, "original")
+        for k in range(r.choice([1, 1, 2, 2, 3, 3, 3, 5, 10])):
+            add(copy(a, r), f"s{s:03d}c{k}", s, "copy")
+        if s % 2 == 0:
+            la = scene(base + 5000 + s, layout=np.random.default_rng(base + 1000 + s))
+            add(la, f"s{s:03d}t", s, "look-alike (other texture)")
+        else:
+            la = scene(base + 1000 + s, layout=np.random.default_rng(base + 9000 + s))
+            add(la, f"s{s:03d}m", s, "look-alike (discs moved)")
+    for s in range(scenes):
+        add(scene(base + 20000 + s), f"o{s:03d}", "", "other")
+    with open(f"{out}/catalogue.csv", "w") as f:
+        f.write("id,scene,role\n")
+        for row in rows:
+            f.write(f"{row[0]},{row[1]},{row[2]}\n")
+    np.save(f"{out}/vectors.npy", np.stack(vecs).astype(np.float32))
+    with open(f"{out}/ids.txt", "w") as f:
+        f.write("\n".join(row[0] for row in rows) + "\n")
+    print(len(rows), "images")
 
 
-def add(img, id_, scene_no, role):
-    img.save(f"{out}/images/{id_}.jpg", quality=92)
-    rows.append((id_, scene_no, role))
-    vecs.append(tiny(img))
-
-
-os.makedirs(f"{out}/images", exist_ok=True)
-for s in range(SCENES):
-    a = scene(BASE + 1000 + s)
-    add(a, f"s{s:03d}", s, "original")
-    for k in range(R.choice([1, 1, 2, 2, 3, 3, 3, 5, 10])):
-        add(copy(a), f"s{s:03d}c{k}", s, "copy")
-    if s % 2 == 0:
-        la = scene(BASE + 5000 + s, layout=np.random.default_rng(BASE + 1000 + s))
-        add(la, f"s{s:03d}t", s, "look-alike (other texture)")
-    else:
-        la = scene(BASE + 1000 + s, layout=np.random.default_rng(BASE + 9000 + s))
-        add(la, f"s{s:03d}m", s, "look-alike (discs moved)")
-for s in range(SCENES):
-    add(scene(BASE + 20000 + s), f"o{s:03d}", "", "other")
-with open(f"{out}/catalogue.csv", "w") as f:
-    f.write("id,scene,role\n")
-    for r in rows:
-        f.write(f"{r[0]},{r[1]},{r[2]}\n")
-np.save(f"{out}/vectors.npy", np.stack(vecs).astype(np.float32))
-with open(f"{out}/ids.txt", "w") as f:
-    f.write("\n".join(r[0] for r in rows) + "\n")
-print(len(rows), "images")
+if __name__ == "__main__":
+    main(sys.argv)

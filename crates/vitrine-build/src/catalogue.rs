@@ -96,11 +96,10 @@ pub fn read_csv(path: &Path, id_column: &str) -> Result<Catalogue, InputError> {
 
 /// Whether `path` names a spreadsheet workbook (.xlsx, .xlsm, .xls, .ods) by its extension.
 fn is_workbook(path: &Path) -> bool {
-    let ext = path
-        .extension()
-        .map(|e| e.to_string_lossy().to_lowercase())
-        .unwrap_or_default();
-    matches!(ext.as_str(), "xlsx" | "xlsm" | "xls" | "ods")
+    matches!(
+        crate::folder::lower_extension(path).as_str(),
+        "xlsx" | "xlsm" | "xls" | "ods"
+    )
 }
 
 /// Reads a catalogue file: a spreadsheet workbook's sheet, or a delimited text file with the

@@ -149,25 +149,14 @@ pub fn check(
 /// The groups the confirmed pairs join (union-find): each group's members ascending, groups by
 /// their first member.
 pub fn groups(n: usize, checked: &[Checked]) -> Vec<Vec<u32>> {
-    let mut parent: Vec<u32> = (0..n as u32).collect();
-    fn root(parent: &mut [u32], mut i: u32) -> u32 {
-        while parent[i as usize] != i {
-            let up = parent[parent[i as usize] as usize];
-            parent[i as usize] = up;
-            i = up;
-        }
-        i
-    }
+    let mut sets = vitrine_map::disjoint::DisjointSets::new(n);
     for c in checked.iter().filter(|c| c.copy) {
-        let (ra, rb) = (root(&mut parent, c.a), root(&mut parent, c.b));
-        if ra != rb {
-            parent[ra.max(rb) as usize] = ra.min(rb);
-        }
+        sets.union(c.a, c.b);
     }
     let mut members: std::collections::BTreeMap<u32, Vec<u32>> = Default::default();
     for c in checked.iter().filter(|c| c.copy) {
         for i in [c.a, c.b] {
-            let r = root(&mut parent, i);
+            let r = sets.find(i);
             members.entry(r).or_default().push(i);
         }
     }

@@ -361,3 +361,10 @@ pub fn viewer_dir(explicit: Option<&Path>) -> Option<PathBuf> {
         .into_iter()
         .find(|p| ok(p))
 }
+
+/// A file's extension in lower case ("" without one): what the build tells formats by.
+pub(crate) fn lower_extension(path: &Path) -> String {
+    path.extension()
+        .map(|e| e.to_string_lossy().to_lowercase())
+        .unwrap_or_default()
+}

@@ -336,11 +336,7 @@ fn find_images(
     let mut by_stem: HashMap<String, PathBuf> = HashMap::new();
     if column.is_none() {
         for entry in walk(dir) {
-            let ext = entry
-                .extension()
-                .and_then(|e| e.to_str())
-                .map(|e| e.to_lowercase())
-                .unwrap_or_default();
+            let ext = crate::folder::lower_extension(&entry);
             if IMAGE_EXTENSIONS.contains(&ext.as_str()) {
                 if let Some(stem) = entry.file_stem().and_then(|s| s.to_str()) {
                     by_stem.entry(stem.to_string()).or_insert(entry.clone());

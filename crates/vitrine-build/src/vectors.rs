@@ -28,10 +28,7 @@ pub fn read_vectors(path: &Path) -> Result<Matrix, InputError> {
 /// Reads the vectors of any of the files this build takes, by its extension; `key` names the
 /// array of an `.npz` or the tensor of a `.safetensors`.
 pub fn read_vector_file(path: &Path, key: Option<&str>) -> Result<VectorFile, InputError> {
-    let ext = path
-        .extension()
-        .map(|e| e.to_string_lossy().to_lowercase())
-        .unwrap_or_default();
+    let ext = crate::folder::lower_extension(path);
     let bad = |reason: String| InputError::Vectors {
         file: path.display().to_string(),
         reason,

@@ -1702,8 +1702,7 @@ fn a_semicolon_separated_windows_1252_catalogue_is_read_and_said_so() {
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();
     let n = 40;
-    let data: Vec<f32> = (0..n * 4).map(|k| ((k * 37 % 11) as f32) * 0.1).collect();
-    write_npy_f32(&d.join("vectors.npy"), n, 4, &data).unwrap();
+    common::write_vectors(d, n);
     let mut csv: Vec<u8> = b"id;place;dating\r\n".to_vec();
     for i in 0..n {
         // "Düsseldorf" and "Köln" in Windows-1252 (0xFC, 0xF6); ISO year and month datings.
@@ -1717,10 +1716,7 @@ fn a_semicolon_separated_windows_1252_catalogue_is_read_and_said_so() {
         csv.extend(format!(";19{:02}-{:02}\r\n", 10 + i, 1 + i % 12).as_bytes());
     }
     std::fs::write(d.join("records.csv"), &csv).unwrap();
-    let o = common::vitrine()
-        .current_dir(d)
-        .args(["build", "--epochs", "30", "--vectors", "vectors.npy"])
-        .args(["--catalogue", "records.csv", "--out", "atlas"])
+    let o = common::catalogue_build(d, "records.csv", "atlas")
         .output()
         .unwrap();
     let notes = common::notes_of(&o);
@@ -1749,10 +1745,7 @@ fn a_semicolon_separated_windows_1252_catalogue_is_read_and_said_so() {
         "{report}"
     );
     // Named, the delimiter and encoding are taken as given (and kept in the provenance).
-    let o = common::vitrine()
-        .current_dir(d)
-        .args(["build", "--epochs", "30", "--vectors", "vectors.npy"])
-        .args(["--catalogue", "records.csv", "--out", "atlas2"])
+    let o = common::catalogue_build(d, "records.csv", "atlas2")
         .args([
             "--delimiter",
             "semicolon",
@@ -1795,8 +1788,7 @@ fn a_spreadsheet_workbook_is_read_sheet_by_sheet() {
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();
     let n = 30;
-    let data: Vec<f32> = (0..n * 4).map(|k| ((k * 37 % 11) as f32) * 0.1).collect();
-    write_npy_f32(&d.join("vectors.npy"), n, 4, &data).unwrap();
+    common::write_vectors(d, n);
     common::run_python(
         r#"
 import sys, datetime, openpyxl
@@ -1815,10 +1807,7 @@ wb.save(f"{sys.argv[1]}/records.xlsx")
         &[d],
     );
     let build = |out: &str, extra: &[&str]| {
-        common::vitrine()
-            .current_dir(d)
-            .args(["build", "--epochs", "30", "--vectors", "vectors.npy"])
-            .args(["--catalogue", "records.xlsx", "--out", out])
+        common::catalogue_build(d, "records.xlsx", out)
             .args(extra)
             .output()
             .unwrap()

@@ -10,6 +10,19 @@ mod common;
 
 use std::path::Path;
 
+/// The build's inputs as make_set.py writes them (the thumbnail levels are the test's own).
+const SET: [&str; 9] = [
+    "--vectors",
+    "vectors.npy",
+    "--vector-ids",
+    "ids.txt",
+    "--catalogue",
+    "catalogue.csv",
+    "--images",
+    "images",
+    "--no-thumb-cache",
+];
+
 fn make_set(d: &Path, scenes: &str, seed: &str) {
     let script = Path::new(env!("CARGO_MANIFEST_DIR")).join("../../tests/copies/make_set.py");
     let source = std::fs::read_to_string(&script).unwrap();
@@ -71,22 +84,7 @@ fn copies_of_invented_scenes_are_found_with_precision_and_recall_and_look_alikes
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();
     make_set(d, "80", "11");
-    common::build_atlas(
-        d,
-        &[
-            "--vectors",
-            "vectors.npy",
-            "--vector-ids",
-            "ids.txt",
-            "--catalogue",
-            "catalogue.csv",
-            "--images",
-            "images",
-            "--levels",
-            "32,128,256",
-            "--no-thumb-cache",
-        ],
-    );
+    common::build_atlas(d, &[&SET[..], &["--levels", "32,128,256"]].concat());
     let out = common::run_python(SCORE, &[d]);
     println!("{out}");
     let first: Vec<f64> = out
@@ -138,19 +136,7 @@ fn copies_are_not_looked_for_when_asked_not_to_and_bad_thresholds_are_named() {
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();
     make_set(d, "6", "11");
-    let args = [
-        "--vectors",
-        "vectors.npy",
-        "--vector-ids",
-        "ids.txt",
-        "--catalogue",
-        "catalogue.csv",
-        "--images",
-        "images",
-        "--levels",
-        "32,64",
-        "--no-thumb-cache",
-    ];
+    let args = [&SET[..], &["--levels", "32,64"]].concat();
     common::build_atlas(d, &[&args[..], &["--no-copies"]].concat());
     let manifest = std::fs::read_to_string(d.join("atlas/atlas.json")).unwrap();
     assert!(!manifest.contains("\"copies\""), "{manifest}");
@@ -166,7 +152,7 @@ fn copies_are_not_looked_for_when_asked_not_to_and_bad_thresholds_are_named() {
     ] {
         let o = common::quick_build()
             .current_dir(d)
-            .args(args)
+            .args(&args)
             .args([flag, value, "--out", "bad"])
             .output()
             .unwrap();

@@ -14,6 +14,7 @@
 
 pub mod clusters;
 pub mod compress;
+pub mod disjoint;
 pub mod hilbert;
 pub mod kernels;
 pub mod knn;

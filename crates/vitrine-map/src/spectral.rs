@@ -64,26 +64,14 @@ struct Part {
 
 /// Connected parts of the graph, each as its sorted item list, largest first (ties by first item).
 pub fn parts(n: usize, graph: &FuzzyGraph) -> Vec<Vec<u32>> {
-    let mut parent: Vec<u32> = (0..n as u32).collect();
-    fn find(parent: &mut [u32], mut x: u32) -> u32 {
-        while parent[x as usize] != x {
-            let up = parent[parent[x as usize] as usize];
-            parent[x as usize] = up;
-            x = up;
-        }
-        x
-    }
+    let mut sets = crate::disjoint::DisjointSets::new(n);
     for (&h, &t) in graph.heads.iter().zip(&graph.tails) {
-        let (a, b) = (find(&mut parent, h), find(&mut parent, t));
-        if a != b {
-            let (lo, hi) = if a < b { (a, b) } else { (b, a) };
-            parent[hi as usize] = lo;
-        }
+        sets.union(h, t);
     }
     let mut index = vec![u32::MAX; n];
     let mut out: Vec<Vec<u32>> = Vec::new();
     for i in 0..n as u32 {
-        let r = find(&mut parent, i) as usize;
+        let r = sets.find(i) as usize;
         if index[r] == u32::MAX {
             index[r] = out.len() as u32;
             out.push(Vec::new());

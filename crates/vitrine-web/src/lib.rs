@@ -1043,21 +1043,8 @@ fn copies_section(a: &App, i: usize) -> Option<web_sys::Element> {
             if others == 1 { "" } else { "s" }
         ),
     ));
-    let strip = coding::el("div", "closest-strip copies-strip", "");
-    let _ = strip.set_attribute("role", "list");
-    let dpr = web_sys::window().map_or(1.0, |w| w.device_pixel_ratio());
-    for &j in group.iter().filter(|&&j| j != i).take(COPY_LINKS) {
-        let tile = coding::el("div", "tile", "");
-        let _ = tile.set_attribute("role", "listitem");
-        let pic = tray::picture_button(a, j, dpr);
-        let _ = pic.set_attribute("data-id", a.atlas.id(j));
-        listen(&pic, "click", true, move |_e: web_sys::MouseEvent| {
-            open_card(Some(j))
-        });
-        let _ = tile.append_child(&pic);
-        let _ = strip.append_child(&tile);
-    }
-    let _ = sec.append_child(&strip);
+    let copies = group.iter().copied().filter(|&j| j != i).take(COPY_LINKS);
+    let _ = sec.append_child(&picture_strip(a, copies, "closest-strip copies-strip"));
     if others > COPY_LINKS {
         let _ = sec.append_child(&coding::el(
             "p",
@@ -1162,24 +1149,29 @@ fn closest_section(a: &App, i: usize) -> Option<web_sys::Element> {
                     }
                 }
             });
-            let strip = coding::el("div", "closest-strip", "");
-            let _ = strip.set_attribute("role", "list");
-            let dpr = web_sys::window().map_or(1.0, |w| w.device_pixel_ratio());
-            for j in list {
-                let tile = coding::el("div", "tile", "");
-                let _ = tile.set_attribute("role", "listitem");
-                let pic = tray::picture_button(a, j, dpr);
-                let _ = pic.set_attribute("data-id", a.atlas.id(j));
-                listen(&pic, "click", true, move |_e: web_sys::MouseEvent| {
-                    open_card(Some(j))
-                });
-                let _ = tile.append_child(&pic);
-                let _ = strip.append_child(&tile);
-            }
-            let _ = sec.append_child(&strip);
+            let _ = sec.append_child(&picture_strip(a, list.into_iter(), "closest-strip"));
         }
     }
     Some(sec)
+}
+
+/// A record card's strip of pictures (a list of `class`): each opens its item's card.
+fn picture_strip(a: &App, items: impl Iterator<Item = usize>, class: &str) -> web_sys::Element {
+    let strip = coding::el("div", class, "");
+    let _ = strip.set_attribute("role", "list");
+    let dpr = web_sys::window().map_or(1.0, |w| w.device_pixel_ratio());
+    for j in items {
+        let tile = coding::el("div", "tile", "");
+        let _ = tile.set_attribute("role", "listitem");
+        let pic = tray::picture_button(a, j, dpr);
+        let _ = pic.set_attribute("data-id", a.atlas.id(j));
+        listen(&pic, "click", true, move |_e: web_sys::MouseEvent| {
+            open_card(Some(j))
+        });
+        let _ = tile.append_child(&pic);
+        let _ = strip.append_child(&tile);
+    }
+    strip
 }
 
 /// Gives the keyboard's focus to the open record card (its heading).

@@ -34,6 +34,22 @@ pub fn write_small_inputs(dir: &Path, ids: &[String]) {
     std::fs::write(dir.join("records.csv"), format!("id\n{csv}")).unwrap();
 }
 
+/// Writes `vectors.npy`: `n` rows of four small values.
+pub fn write_vectors(dir: &Path, n: usize) {
+    let data: Vec<f32> = (0..n * 4).map(|k| ((k * 37 % 11) as f32) * 0.1).collect();
+    vitrine_test_support::write_npy_f32(&dir.join("vectors.npy"), n, 4, &data).unwrap();
+}
+
+/// `vitrine build --epochs 30` in `dir` from `vectors.npy` and `catalogue` into `out`, its notes
+/// printed (not quiet); a test adds its own options.
+pub fn catalogue_build(dir: &Path, catalogue: &str, out: &str) -> Command {
+    let mut c = vitrine();
+    c.current_dir(dir)
+        .args(["build", "--epochs", "30", "--vectors", "vectors.npy"])
+        .args(["--catalogue", catalogue, "--out", out]);
+    c
+}
+
 /// [`quick_build`] in `dir` from `vectors.npy`, `records.csv` and `images/` into `atlas`, without a
 /// thumbnail cache; a test adds its own options.
 pub fn image_build(dir: &Path) -> Command {
