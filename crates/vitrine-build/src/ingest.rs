@@ -25,38 +25,23 @@ pub struct Inputs {
     pub items: Items,
     /// Each item's image file, or why it has none (None: the build has no --images).
     pub image_paths: Option<Vec<Result<PathBuf, String>>>,
+    /// How the vectors were computed from the pictures (None: they were read from a file).
+    pub described: Option<crate::from_images::Described>,
 }
 
 /// Reads and checks every input of `opts`: the vectors, one row an item, and the rest (the lap
-/// "read inputs" ends once they are matched).
+/// "read inputs" ends once they are matched). Without a vectors file, the items are the
+/// catalogue's records (or, without a catalogue, the image files) and their vectors are computed
+/// from their pictures.
 pub fn read(
     opts: &BuildOptions,
     progress: &dyn Progress,
     laps: &mut Laps,
 ) -> Result<(Matrix, Inputs)> {
-    let file = crate::vectors::read_vector_file(&opts.vectors, opts.vectors_key.as_deref())?;
-    let vectors = file.matrix;
-    progress.note(&format!(
-        "vectors: {} x {} from {}{}{}",
-        vectors.rows,
-        vectors.cols,
-        opts.vectors.display(),
-        file.array
-            .as_ref()
-            .map(|a| format!(" (array {a:?})"))
-            .unwrap_or_default(),
-        if file.ids.is_some() {
-            ", with their ids"
-        } else {
-            ""
-        }
-    ));
-    if file.ids.is_some() && opts.vector_ids.is_some() {
-        bail!(
-            "{} holds its vectors' ids (an array \"ids\"); leave out --vector-ids",
-            opts.vectors.display()
-        );
-    }
+    let file = match &opts.vectors {
+        Some(path) => Some(read_vectors(path, opts, progress)?),
+        None => None,
+    };
     let cat = match &opts.catalogue {
         Some(p) => {
             let c = catalogue::read_table(p, &opts.id_column, opts.catalogue_format.clone())?;
@@ -88,11 +73,31 @@ pub fn read(
     if let (Some(c), Some(name)) = (&cat, &opts.date_field) {
         date_column(c, name)?;
     }
-    let items = match_items(&vectors, opts, cat.as_ref(), file.ids)?;
+    let Some((vectors, file_ids)) = file else {
+        let dir = opts
+            .images
+            .as_ref()
+            .expect("options without vectors have images (checked)");
+        let (items, paths) = items_from_images(dir, cat.as_ref(), opts.image_column.as_deref())?;
+        laps.lap("read inputs");
+        let (vectors, described) = crate::from_images::compute(opts, &paths, progress)?;
+        laps.lap("vectors from images");
+        return Ok((
+            vectors,
+            Inputs {
+                catalogue: cat,
+                items,
+                image_paths: Some(paths),
+                described: Some(described),
+            },
+        ));
+    };
+    let vfile = opts.vectors.as_deref().expect("read from a file");
+    let items = match_items(vectors.rows, vfile, opts, cat.as_ref(), file_ids)?;
     laps.lap("read inputs");
-    check_finite(&vectors, &items.ids, &opts.vectors)?;
+    check_finite(&vectors, &items.ids, vfile)?;
     if vectors.rows == 0 {
-        bail!("{}: there are no vectors", opts.vectors.display());
+        bail!("{}: there are no vectors", vfile.display());
     }
     let image_paths = match &opts.images {
         Some(dir) => Some(find_images(
@@ -110,7 +115,121 @@ pub fn read(
             catalogue: cat,
             items,
             image_paths,
+            described: None,
         },
+    ))
+}
+
+/// The vectors file and the ids it holds (if any).
+fn read_vectors(
+    path: &Path,
+    opts: &BuildOptions,
+    progress: &dyn Progress,
+) -> Result<(Matrix, Option<Vec<String>>)> {
+    let file = crate::vectors::read_vector_file(path, opts.vectors_key.as_deref())?;
+    progress.note(&format!(
+        "vectors: {} x {} from {}{}{}",
+        file.matrix.rows,
+        file.matrix.cols,
+        path.display(),
+        file.array
+            .as_ref()
+            .map(|a| format!(" (array {a:?})"))
+            .unwrap_or_default(),
+        if file.ids.is_some() {
+            ", with their ids"
+        } else {
+            ""
+        }
+    ));
+    if file.ids.is_some() && opts.vector_ids.is_some() {
+        bail!(
+            "{} holds its vectors' ids (an array \"ids\"); leave out --vector-ids",
+            path.display()
+        );
+    }
+    Ok((file.matrix, file.ids))
+}
+
+/// Items when there are no vectors: the catalogue's records in order, each with the image
+/// [`find_images`] finds for it; without a catalogue, every image file below `dir` (sorted), its
+/// id the path inside `dir` without the extension (with it, where two files differ only by it).
+fn items_from_images(
+    dir: &Path,
+    cat: Option<&Catalogue>,
+    image_column: Option<&str>,
+) -> Result<(Items, Vec<Result<PathBuf, String>>), InputError> {
+    if let Some(cat) = cat {
+        let ids: Vec<String> = cat.ids().map(String::from).collect();
+        if ids.is_empty() {
+            return Err(InputError::Usage(format!(
+                "{}: the catalogue has no records",
+                cat.file
+            )));
+        }
+        let rows: Vec<usize> = (0..ids.len()).collect();
+        let paths = find_images(dir, &ids, Some(cat), Some(&rows), image_column)?;
+        return Ok((
+            Items {
+                ids,
+                catalogue_rows: Some(rows),
+            },
+            paths,
+        ));
+    }
+    if image_column.is_some() {
+        return Err(InputError::Usage("--image-column needs --catalogue".into()));
+    }
+    if !dir.is_dir() {
+        return Err(InputError::Usage(format!(
+            "--images {}: not a folder",
+            dir.display()
+        )));
+    }
+    let files: Vec<PathBuf> = walk(dir)
+        .into_iter()
+        .filter(|p| IMAGE_EXTENSIONS.contains(&crate::folder::lower_extension(p).as_str()))
+        .collect();
+    if files.is_empty() {
+        return Err(InputError::Usage(format!(
+            "--images {}: no image files in it (read are {})",
+            dir.display(),
+            IMAGE_EXTENSIONS.join(", ")
+        )));
+    }
+    let inside = |p: &Path| {
+        p.strip_prefix(dir)
+            .unwrap_or(p)
+            .components()
+            .map(|c| c.as_os_str().to_string_lossy())
+            .collect::<Vec<_>>()
+            .join("/")
+    };
+    let stems: Vec<String> = files
+        .iter()
+        .map(|p| inside(&p.with_extension("")))
+        .collect();
+    let mut count: HashMap<&str, usize> = HashMap::new();
+    for s in &stems {
+        *count.entry(s).or_default() += 1;
+    }
+    let ids = files
+        .iter()
+        .zip(&stems)
+        .map(|(p, s)| {
+            if count[s.as_str()] > 1 {
+                inside(p)
+            } else {
+                s.clone()
+            }
+        })
+        .collect();
+    Ok((
+        Items {
+            ids,
+            catalogue_rows: None,
+        },
+        files.into_iter().map(Ok).collect(),
     ))
 }
 
@@ -188,22 +307,23 @@ fn read_id_list(path: &Path) -> Result<Vec<String>, InputError> {
 }
 
 fn match_items(
-    vectors: &Matrix,
+    rows: usize,
+    vectors_file: &Path,
     opts: &BuildOptions,
     cat: Option<&Catalogue>,
     file_ids: Option<Vec<String>>,
 ) -> Result<Items, InputError> {
-    let vfile = opts.vectors.display().to_string();
+    let vfile = vectors_file.display().to_string();
     let vector_ids = match &opts.vector_ids {
         None if file_ids.is_some() => file_ids,
         Some(p) => {
             let ids = read_id_list(p)?;
-            if ids.len() != vectors.rows {
+            if ids.len() != rows {
                 return Err(InputError::Matching(format!(
                     "{} lists {} ids but {vfile} has {} rows",
                     p.display(),
                     ids.len(),
-                    vectors.rows
+                    rows
                 )));
             }
             Some(ids)
@@ -211,7 +331,7 @@ fn match_items(
         None => None,
     };
     let Some(cat) = cat else {
-        let ids = vector_ids.unwrap_or_else(|| (0..vectors.rows).map(|i| i.to_string()).collect());
+        let ids = vector_ids.unwrap_or_else(|| (0..rows).map(|i| i.to_string()).collect());
         return Ok(Items {
             ids,
             catalogue_rows: None,
@@ -259,29 +379,29 @@ fn match_items(
         }
         None => {
             let ids: Vec<String> = cat.ids().map(String::from).collect();
-            if ids.len() != vectors.rows {
-                let detail = if ids.len() > vectors.rows {
+            if ids.len() != rows {
+                let detail = if ids.len() > rows {
                     format!(
                         "catalogue record(s) with no vector: {}",
-                        id_list(&ids[vectors.rows..])
+                        id_list(&ids[rows..])
                     )
                 } else {
                     format!(
                         "vector rows {}..{} have no catalogue record",
                         ids.len(),
-                        vectors.rows - 1
+                        rows - 1
                     )
                 };
                 return Err(InputError::Matching(format!(
                     "{} has {} records but {vfile} has {} rows; without --vector-ids they are matched in order. {detail}",
                     cat.file,
                     ids.len(),
-                    vectors.rows
+                    rows
                 )));
             }
             Ok(Items {
                 ids,
-                catalogue_rows: Some((0..vectors.rows).collect()),
+                catalogue_rows: Some((0..rows).collect()),
             })
         }
     }

@@ -19,6 +19,7 @@ pub mod copies;
 pub mod dates;
 pub mod error;
 pub mod folder;
+pub mod from_images;
 pub mod ingest;
 pub mod options;
 pub mod pipeline;

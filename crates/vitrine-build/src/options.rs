@@ -17,15 +17,6 @@ pub enum Optimiser {
 
 /// Collections up to this size get the exact neighbour graph when the search is `auto`.
 pub const EXACT_UP_TO: usize = 20_000;
-/// Items in the sample on which trustworthiness and continuity are measured.
-pub const QUALITY_SAMPLE: usize = 2000;
-
-/// What was done to the vectors before the neighbour graph.
-pub struct Reduction {
-    pub input_dimensions: usize,
-    pub pca: Option<vitrine_map::pca::Pca>,
-    pub notes: Vec<String>,
-}
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum NeighbourSearch {
@@ -34,9 +25,19 @@ pub enum NeighbourSearch {
     Approximate,
 }
 
+/// What computes each item's vector from its image when the build is given no vectors.
+#[derive(Debug, Clone, PartialEq)]
+pub enum VectorEngine {
+    /// The built-in descriptor (`vitrine_images::describe`).
+    BuiltIn,
+}
+
 #[derive(Debug, Clone)]
 pub struct BuildOptions {
-    pub vectors: PathBuf,
+    /// The vectors file (None: vectors are computed from the images by `engine`).
+    pub vectors: Option<PathBuf>,
+    /// What computes the vectors when there is no vectors file.
+    pub engine: VectorEngine,
     pub vector_ids: Option<PathBuf>,
     /// The array of an `.npz`, or the tensor of a `.safetensors`, that holds the vectors.
     pub vectors_key: Option<String>,
@@ -80,7 +81,8 @@ pub struct BuildOptions {
 impl BuildOptions {
     pub fn new(vectors: PathBuf, out: PathBuf) -> BuildOptions {
         BuildOptions {
-            vectors,
+            vectors: Some(vectors),
+            engine: VectorEngine::BuiltIn,
             vector_ids: None,
             vectors_key: None,
             catalogue: None,
@@ -128,6 +130,17 @@ impl BuildOptions {
         }
         if self.decode_memory < 64 << 20 {
             bail!("--decode-memory must be at least 64 (MB)");
+        }
+        if self.vectors.is_none() {
+            if self.images.is_none() {
+                bail!("give --vectors, or --images to compute each item's vector from its picture");
+            }
+            if self.vector_ids.is_some() {
+                bail!("--vector-ids names the rows of a --vectors file; without one, items are the catalogue's records (or the image files)");
+            }
+            if self.vectors_key.is_some() {
+                bail!("--vectors-key names an array of a --vectors file; there is none");
+            }
         }
         crate::folder::check_out(&self.out)?;
         if let Some(v) = &self.viewer {

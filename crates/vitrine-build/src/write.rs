@@ -11,7 +11,7 @@ use vitrine_format::{
     MapLayout, NeighbourChunk, Neighbours, Provenance, SheetLevel, Sheets, TextTable, FORMAT_NAME,
     FORMAT_VERSION, MANIFEST_FILE, NEIGHBOUR_CHUNK_ITEMS, VECTOR_CHUNK_ITEMS,
 };
-use vitrine_images::thumbs::{self, SheetPlan};
+use vitrine_images::thumbs;
 
 use crate::catalogue::{self, FieldData, ValueWarning};
 use crate::ingest::Inputs;
@@ -30,6 +30,7 @@ pub fn write_atlas(
     progress: &dyn Progress,
 ) -> Result<BuildReport> {
     let n = inputs.items.ids.len();
+    let described = inputs.described.clone();
     let mut report = BuildReport {
         items: n,
         notes: c.reduction.notes.clone(),
@@ -68,7 +69,10 @@ pub fn write_atlas(
     let clusters = clusters(&mut w, &c.clusters, order, &xy, &fields);
 
     // Thumbnails and colours.
-    let mut input_files = vec![input_file("vectors", &opts.vectors)?];
+    let mut input_files = match &opts.vectors {
+        Some(v) => vec![input_file("vectors", v)?],
+        None => Vec::new(),
+    };
     if let Some(p) = &opts.vector_ids {
         input_files.push(input_file("vector-ids", p)?);
     }
@@ -175,7 +179,7 @@ pub fn write_atlas(
             tool: "vitrine".into(),
             tool_version: env!("CARGO_PKG_VERSION").into(),
             inputs: input_files,
-            parameters: parameters(opts, &c, n),
+            parameters: parameters(opts, &c, n, described.as_ref()),
             seed: opts.seed,
         },
     };
@@ -481,35 +485,27 @@ fn pictures(
 ) -> Result<(Vec<[u8; 4]>, Sheets, InputFile, Signed)> {
     let n = order.len();
     vitrine_images::decode::set_decode_budget(opts.decode_memory);
-    let plan = SheetPlan {
-        cells: opts.cells.clone(),
-        sheet: opts.sheet_size,
-        quality: opts.jpeg_quality,
-        max_pixels: opts.max_pixels,
-    };
+    let plan = crate::from_images::sheet_plan(opts);
     let list: Vec<(String, Result<PathBuf, String>)> = order
         .iter()
         .map(|&i| (inputs.items.ids[i].clone(), paths[i].clone()))
         .collect();
-    let cache = opts.thumb_cache.as_ref().map(|d| {
-        vitrine_images::cache::ThumbCache::new(
-            d.clone(),
-            *plan.cells.iter().max().unwrap(),
-            plan.max_pixels,
-        )
-    });
+    let cache = crate::from_images::thumb_cache(opts, &plan);
     let bar = progress.bar("thumbnails", n as u64);
     let t = thumbs::make_sheets(&list, signed, &plan, dir, cache.as_ref(), &|c| {
         bar.set(c, n as u64)
     })?;
     drop(bar);
-    report.thumbnails_reused = t.reused;
-    report.thumbnails_made = n - t.reused - t.problems.len();
+    // Thumbnails made while computing the vectors are taken from the cache here: they were made
+    // by this build all the same.
+    let made_for_vectors = inputs.described.as_ref().map_or(0, |d| d.decoded);
+    report.thumbnails_reused = t.reused.saturating_sub(made_for_vectors);
+    report.thumbnails_made = n - report.thumbnails_reused - t.problems.len();
     if let Some(cache_dir) = &opts.thumb_cache {
         progress.note(&format!(
             "thumbnails: {} made, {} reused from the cache ({})",
             report.thumbnails_made,
-            t.reused,
+            report.thumbnails_reused,
             cache_dir.display()
         ));
         if t.cache_damaged > 0 {
@@ -733,6 +729,7 @@ fn parameters(
     opts: &BuildOptions,
     c: &Computed,
     n: usize,
+    described: Option<&crate::from_images::Described>,
 ) -> serde_json::Map<String, serde_json::Value> {
     let (umap_params, start, reduction): (_, _, &Reduction) =
         (&c.map.params, &c.map.start, &c.reduction);
@@ -781,6 +778,17 @@ fn parameters(
         p.insert(
             "browser_vectors_explained_variance".into(),
             json!(v.explained_variance),
+        );
+    }
+    if let Some(d) = described {
+        p.insert("vectors_engine".into(), json!(d.engine));
+        p.insert("vectors_dimensions".into(), json!(d.dims));
+        p.insert(
+            "vectors_from".into(),
+            json!(format!(
+                "each item's largest thumbnail ({} px on its long side)",
+                opts.cells.last().copied().unwrap_or(0)
+            )),
         );
     }
     p.insert("id_column".into(), json!(opts.id_column));

@@ -38,9 +38,10 @@ pub enum OptimiserArg {
 pub struct BuildArgs {
     /// Feature vectors, items x dimensions: a NumPy .npy file (float, integer or bool), a NumPy
     /// .npz archive (its one 2-D array; an array "ids" beside it gives their ids) or a
-    /// .safetensors file (its one 2-D tensor).
+    /// .safetensors file (its one 2-D tensor). Without it, each item's vector is computed from
+    /// its picture in --images (by the built-in descriptor).
     #[arg(long)]
-    vectors: PathBuf,
+    vectors: Option<PathBuf>,
     /// The array of an .npz, or the tensor of a .safetensors, that holds the vectors (when it
     /// holds several).
     #[arg(long, value_name = "NAME")]
@@ -55,7 +56,9 @@ pub struct BuildArgs {
     /// The catalogue column that holds each record's id.
     #[arg(long, default_value = "id")]
     id_column: String,
-    /// A folder of images. Optional: without it each item is drawn as a coloured mark.
+    /// A folder of images. Without it each item is drawn as a coloured mark; without --vectors
+    /// the items' vectors are computed from these pictures (and without --catalogue every image
+    /// file in it is an item, its id the file's path inside the folder without the extension).
     #[arg(long)]
     images: Option<PathBuf>,
     /// The catalogue column with each image's path inside --images (default: a column named
@@ -170,6 +173,7 @@ impl BuildArgs {
         let sheet_size = self.sheet_size;
         BuildOptions {
             vectors: self.vectors,
+            engine: vitrine_build::options::VectorEngine::BuiltIn,
             vectors_key: self.vectors_key,
             vector_ids: self.vector_ids,
             catalogue: self.catalogue,

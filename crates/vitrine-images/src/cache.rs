@@ -177,6 +177,59 @@ impl ThumbCache {
     }
 }
 
+impl ThumbCache {
+    /// Where the vector an engine computed from a cached thumbnail is kept: beside the entry,
+    /// named by the engine's id (its name, settings and model file's digest).
+    fn vector_path(key: &Path, engine: &str) -> PathBuf {
+        let tag = vitrine_format::sha256_hex(engine.as_bytes());
+        let mut name = key.file_name().unwrap_or_default().to_os_string();
+        name.push(format!(".{}.vec", &tag[..16]));
+        key.with_file_name(name)
+    }
+
+    /// The vector `engine` computed for the entry at `key`, when it is there and intact (`dims`
+    /// values, the checksum it was written with).
+    pub fn get_vector(&self, key: &Path, engine: &str, dims: usize) -> Option<Vec<f32>> {
+        let bytes = std::fs::read(Self::vector_path(key, engine)).ok()?;
+        let body = 4 + 4 * dims;
+        if bytes.len() != body + 32 || &bytes[..4] != VECTOR_MAGIC {
+            return None;
+        }
+        if sha256_of(&bytes[..body]) != bytes[body..] {
+            return None;
+        }
+        let v: Vec<f32> = bytes[4..body]
+            .chunks_exact(4)
+            .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]]))
+            .collect();
+        v.iter().all(|x| x.is_finite()).then_some(v)
+    }
+
+    /// Stores the vector `engine` computed for the entry at `key` (written to a temporary name and
+    /// renamed, like the entries).
+    pub fn put_vector(&self, key: &Path, engine: &str, v: &[f32]) -> std::io::Result<()> {
+        let mut out = Vec::with_capacity(4 + 4 * v.len() + 32);
+        out.extend_from_slice(VECTOR_MAGIC);
+        for x in v {
+            out.extend_from_slice(&x.to_le_bytes());
+        }
+        let sum = sha256_of(&out);
+        out.extend_from_slice(&sum);
+        let path = Self::vector_path(key, engine);
+        let parent = path.parent().expect("entries live in a subfolder");
+        std::fs::create_dir_all(parent)?;
+        let tmp = parent.join(format!(
+            ".{}.{}.tmp",
+            path.file_name().unwrap().to_string_lossy(),
+            std::process::id()
+        ));
+        std::fs::write(&tmp, &out)?;
+        std::fs::rename(&tmp, &path)
+    }
+}
+
+const VECTOR_MAGIC: &[u8; 4] = b"VTV1";
+
 /// SHA-256 of `bytes`.
 fn sha256_of(bytes: &[u8]) -> [u8; 32] {
     use sha2::Digest;
@@ -238,6 +291,25 @@ mod tests {
         // A damaged entry is told apart from a missing one.
         std::fs::write(&key, b"VTC4 short").unwrap();
         assert!(matches!(cache.get(&key), Lookup::Damaged));
+    }
+
+    #[test]
+    fn a_vector_comes_back_by_its_engine_and_a_damaged_one_does_not() {
+        let dir = tempfile::tempdir().unwrap();
+        let cache = ThumbCache::new(dir.path().join("cache"), 128, 1000);
+        let img = dir.path().join("a.png");
+        std::fs::write(&img, b"pixels").unwrap();
+        let key = cache.key(&img).unwrap();
+        let v = vec![0.25f32, -1.5, 3.0];
+        cache.put_vector(&key, "engine one", &v).unwrap();
+        assert_eq!(cache.get_vector(&key, "engine one", 3), Some(v.clone()));
+        assert_eq!(cache.get_vector(&key, "engine two", 3), None);
+        assert_eq!(cache.get_vector(&key, "engine one", 4), None);
+        let path = ThumbCache::vector_path(&key, "engine one");
+        let mut bytes = std::fs::read(&path).unwrap();
+        bytes[6] ^= 1;
+        std::fs::write(&path, &bytes).unwrap();
+        assert_eq!(cache.get_vector(&key, "engine one", 3), None);
     }
 
     /// An entry cut short or changed in one byte is damaged, not a thumbnail with a grey bottom

@@ -10,5 +10,7 @@
 pub mod cache;
 pub mod copies;
 pub mod decode;
+pub mod describe;
+pub mod embed;
 pub mod phash;
 pub mod thumbs;

@@ -92,13 +92,13 @@ pub fn thumbnail(
 }
 
 /// A thumbnail and its image's size as shown (width, height), or why there is none.
-type Made = Result<(RgbImage, [u32; 2]), ImageFailure>;
+pub type Made = Result<(RgbImage, [u32; 2]), ImageFailure>;
 /// A file's SHA-256 (hex) and its size in bytes; empty when it could not be read.
-type Digest = (String, u64);
+pub type Digest = (String, u64);
 
 /// The largest level's thumbnail of one image file and the image's size, taken from the cache
 /// when the file is unchanged, else made (and stored in the cache); with the file's digest.
-fn largest_thumbnail(
+pub fn largest_thumbnail(
     path: &Path,
     plan: &SheetPlan,
     cache: Option<&crate::cache::ThumbCache>,
@@ -125,6 +125,9 @@ fn largest_thumbnail(
     };
     let digest = (vitrine_format::sha256_hex(&bytes), bytes.len() as u64);
     let made = thumbnail(&bytes, plan.max_pixels, largest);
+    if made.is_ok() {
+        counts.made.fetch_add(1, Relaxed);
+    }
     if let (Ok((thumb, size)), Some(c), Some(k)) = (&made, cache, &key) {
         if c.put(k, *size, &digest, thumb).is_err() {
             counts.errors.fetch_add(1, Relaxed);
@@ -136,10 +139,12 @@ fn largest_thumbnail(
 /// Thumbnails taken from the cache, cache entries that could not be written, and damaged
 /// entries found (and made again).
 #[derive(Default)]
-struct CacheCounts {
-    reused: std::sync::atomic::AtomicUsize,
-    errors: std::sync::atomic::AtomicUsize,
-    damaged: std::sync::atomic::AtomicUsize,
+pub struct CacheCounts {
+    pub reused: std::sync::atomic::AtomicUsize,
+    pub errors: std::sync::atomic::AtomicUsize,
+    pub damaged: std::sync::atomic::AtomicUsize,
+    /// Thumbnails made from their masters.
+    pub made: std::sync::atomic::AtomicUsize,
 }
 
 /// Encodes RGB pixels as a baseline JPEG (4:2:0) at `quality`.
@@ -157,7 +162,7 @@ pub fn encode_jpeg(img: &RgbImage, quality: u8) -> std::io::Result<Vec<u8>> {
 }
 
 /// The placeholder drawn for an image that could not be read: a grey card with a cross.
-fn placeholder(cell: u32) -> RgbImage {
+pub fn placeholder(cell: u32) -> RgbImage {
     let mut img = RgbImage::from_pixel(cell, cell, image::Rgb([0xC9, 0xC4, 0xBA]));
     for i in 0..cell {
         for t in 0..(cell / 32).max(1) {
