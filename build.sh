@@ -31,10 +31,11 @@ setup() {
   # Pillow writes and decodes the reference images, scikit-image ships sample photographs; shapely
   # decides point-in-lasso for the corpus tests; krippendorff computes the agreement between coders,
   # statsmodels the Wilson intervals (scipy, which scikit-learn brings, the chi-square test);
-  # imagehash the perceptual hash the copies are confirmed by.
-  if [ ! -x "$CACHE/venv/bin/python" ] || ! "$CACHE/venv/bin/python" -c "import numpy, sklearn, umap, PIL, skimage, shapely, krippendorff, statsmodels, scipy, imagehash, safetensors, openpyxl" 2>/dev/null; then
+  # imagehash the perceptual hash the copies are confirmed by; onnx writes the test image models and
+  # onnxruntime runs them as the reference for `--model`.
+  if [ ! -x "$CACHE/venv/bin/python" ] || ! "$CACHE/venv/bin/python" -c "import numpy, sklearn, umap, PIL, skimage, shapely, krippendorff, statsmodels, scipy, imagehash, safetensors, openpyxl, onnx, onnxruntime" 2>/dev/null; then
     [ -x "$CACHE/venv/bin/python" ] || python3 -m venv "$CACHE/venv"
-    "$CACHE/venv/bin/pip" install --progress-bar on numpy scikit-learn umap-learn pillow scikit-image shapely krippendorff statsmodels scipy imagehash safetensors openpyxl
+    "$CACHE/venv/bin/pip" install --progress-bar on numpy scikit-learn umap-learn pillow scikit-image shapely krippendorff statsmodels scipy imagehash safetensors openpyxl onnx onnxruntime
   fi
 }
 

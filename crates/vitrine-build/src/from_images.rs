@@ -25,6 +25,8 @@ pub struct Described {
     pub reused: usize,
     /// Items whose picture could not be used (they share the placeholder's vector).
     pub failed: usize,
+    /// The model file, for the provenance (None: the built-in descriptor).
+    pub model: Option<vitrine_format::InputFile>,
 }
 
 /// The thumbnail levels, sheet size and limits the options ask for.
@@ -54,11 +56,35 @@ pub fn compute(
     paths: &[Result<PathBuf, String>],
     progress: &dyn Progress,
 ) -> Result<(Matrix, Described)> {
+    let plan = sheet_plan(opts);
+    let largest = *plan.cells.last().expect("at least one level");
+    let mut model = None;
     let engine: Box<dyn Engine> = match &opts.engine {
         VectorEngine::BuiltIn => Box::new(embed::BuiltIn),
+        VectorEngine::Model(settings) => {
+            let e = vitrine_images::onnx::OnnxEngine::load(settings).map_err(|e| anyhow!(e))?;
+            let [w, h] = e.input_size();
+            progress.note(&format!("model: {}", e.id()));
+            if (w.max(h) as u32) > largest {
+                progress.note(&format!(
+                    "the model takes {w} x {h} px but the largest thumbnails are {largest} px: pictures are enlarged for it (--levels ending at {} or more gives it sharper ones)",
+                    w.max(h)
+                ));
+            }
+            model = Some(vitrine_format::InputFile {
+                role: "model".into(),
+                path: settings
+                    .path
+                    .file_name()
+                    .map(|f| f.to_string_lossy().to_string())
+                    .unwrap_or_default(),
+                bytes: e.bytes,
+                sha256: e.sha256.clone(),
+            });
+            Box::new(e)
+        }
     };
     vitrine_images::decode::set_decode_budget(opts.decode_memory);
-    let plan = sheet_plan(opts);
     let cache = thumb_cache(opts, &plan);
     let n = paths.len();
     let bar = progress.bar("vectors from images", n as u64);
@@ -78,12 +104,17 @@ pub fn compute(
         decoded: got.decoded,
         reused: got.reused,
         failed: got.failed,
+        model,
     };
     progress.note(&format!(
         "vectors: {} x {} computed from the images by the {}{}{}",
         n,
         got.dims,
-        described.engine,
+        if described.model.is_some() {
+            "model"
+        } else {
+            described.engine.as_str()
+        },
         if got.reused > 0 {
             format!(" ({} taken from the cache)", got.reused)
         } else {

@@ -30,6 +30,8 @@ pub enum NeighbourSearch {
 pub enum VectorEngine {
     /// The built-in descriptor (`vitrine_images::describe`).
     BuiltIn,
+    /// An ONNX image model (`vitrine_images::onnx`).
+    Model(vitrine_images::onnx::ModelSettings),
 }
 
 #[derive(Debug, Clone)]
@@ -38,6 +40,8 @@ pub struct BuildOptions {
     pub vectors: Option<PathBuf>,
     /// What computes the vectors when there is no vectors file.
     pub engine: VectorEngine,
+    /// Where to keep the vectors the build used, with their ids, as a NumPy `.npz` (None: not kept).
+    pub save_vectors: Option<PathBuf>,
     pub vector_ids: Option<PathBuf>,
     /// The array of an `.npz`, or the tensor of a `.safetensors`, that holds the vectors.
     pub vectors_key: Option<String>,
@@ -83,6 +87,7 @@ impl BuildOptions {
         BuildOptions {
             vectors: Some(vectors),
             engine: VectorEngine::BuiltIn,
+            save_vectors: None,
             vector_ids: None,
             vectors_key: None,
             catalogue: None,
@@ -140,6 +145,28 @@ impl BuildOptions {
             }
             if self.vectors_key.is_some() {
                 bail!("--vectors-key names an array of a --vectors file; there is none");
+            }
+        } else if self.engine != VectorEngine::BuiltIn {
+            bail!(
+                "--model computes vectors from the images; leave it out when --vectors gives them"
+            );
+        }
+        if let VectorEngine::Model(m) = &self.engine {
+            if !(1..=256).contains(&m.batch) {
+                bail!("--model-batch must be between 1 and 256");
+            }
+            if m.std.iter().any(|s| !(s.is_finite() && *s > 0.0))
+                || m.mean.iter().any(|v| !v.is_finite())
+            {
+                bail!("--model-std must be three numbers above 0, --model-mean three numbers");
+            }
+        }
+        if let Some(p) = &self.save_vectors {
+            if crate::folder::lower_extension(p) != "npz" {
+                bail!(
+                    "--save-vectors {}: give a file name ending in .npz",
+                    p.display()
+                );
             }
         }
         crate::folder::check_out(&self.out)?;

@@ -27,6 +27,14 @@ pub fn build(opts: &BuildOptions, progress: &dyn Progress) -> Result<BuildReport
     }
     let mut laps = Laps::new();
     let (vectors, inputs) = crate::ingest::read(opts, progress, &mut laps)?;
+    if let Some(path) = &opts.save_vectors {
+        crate::vectors::write_npz(path, &inputs.items.ids, &vectors)
+            .with_context(|| format!("--save-vectors {}", path.display()))?;
+        progress.note(&format!(
+            "vectors saved with their ids: {} (np.load reads it; --vectors takes it back)",
+            path.display()
+        ));
+    }
 
     // The quality figures measure the maps against the vectors as given, so their sample is
     // kept before any reduction.

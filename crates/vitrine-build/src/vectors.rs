@@ -264,3 +264,29 @@ fn read_safetensors(bytes: &[u8], key: Option<&str>) -> Result<(String, Matrix),
     }
     Ok((name, Matrix { rows, cols, data }))
 }
+
+/// Writes `vectors` and their `ids` as a NumPy `.npz` archive (arrays `vectors`, float32, and
+/// `ids`, text; stored uncompressed), as `np.load` reads it and as `--vectors` takes it back.
+pub fn write_npz(path: &Path, ids: &[String], vectors: &Matrix) -> std::io::Result<()> {
+    use std::io::Write;
+    let tmp = path.with_extension("npz.part");
+    let file = std::fs::File::create(&tmp)?;
+    let mut zip = zip::ZipWriter::new(std::io::BufWriter::new(file));
+    let options = zip::write::SimpleFileOptions::default()
+        .compression_method(zip::CompressionMethod::Stored)
+        .large_file(vectors.data.len() * 4 > u32::MAX as usize / 2);
+    let arrays = [
+        (
+            "vectors.npy",
+            npy::encode_f32(vectors.rows, vectors.cols, &vectors.data),
+        ),
+        ("ids.npy", npy::encode_text(ids)),
+    ];
+    for (name, bytes) in arrays {
+        zip.start_file(name, options)
+            .map_err(std::io::Error::other)?;
+        zip.write_all(&bytes)?;
+    }
+    zip.finish().map_err(std::io::Error::other)?.flush()?;
+    std::fs::rename(&tmp, path)
+}

@@ -76,6 +76,9 @@ pub fn write_atlas(
     if let Some(p) = &opts.vector_ids {
         input_files.push(input_file("vector-ids", p)?);
     }
+    if let Some(m) = described.as_ref().and_then(|d| d.model.clone()) {
+        input_files.push(m);
+    }
     if let Some(p) = &opts.catalogue {
         input_files.push(input_file("catalogue", p)?);
     }

@@ -42,6 +42,30 @@ pub struct BuildArgs {
     /// its picture in --images (by the built-in descriptor).
     #[arg(long)]
     vectors: Option<PathBuf>,
+    /// Without --vectors: an ONNX image model (a CNN or a vision transformer exported to ONNX)
+    /// that computes each item's vector from its picture, run on the processor, instead of the
+    /// built-in descriptor. See docs/vectors-from-images.md.
+    #[arg(long, value_name = "FILE.onnx")]
+    model: Option<PathBuf>,
+    /// The model's input side in pixels, when its input leaves it open.
+    #[arg(long, value_name = "PX", requires = "model")]
+    model_size: Option<u32>,
+    /// Per-channel mean subtracted from values in 0..1 before the model (R,G,B).
+    #[arg(long, value_name = "R,G,B", value_parser = parse_triple, requires = "model", default_value = "0.485,0.456,0.406")]
+    model_mean: [f32; 3],
+    /// Per-channel standard deviation the values are divided by (R,G,B).
+    #[arg(long, value_name = "R,G,B", value_parser = parse_triple, requires = "model", default_value = "0.229,0.224,0.225")]
+    model_std: [f32; 3],
+    /// The model output to take (default: its first).
+    #[arg(long, value_name = "NAME", requires = "model")]
+    model_output: Option<String>,
+    /// Keep the vectors the build used (read or computed), with their ids, as a NumPy .npz:
+    /// np.load reads it, and --vectors takes it back (computed vectors are then not computed again).
+    #[arg(long, value_name = "FILE.npz")]
+    save_vectors: Option<PathBuf>,
+    /// Pictures the model runs at once.
+    #[arg(long, value_name = "N", requires = "model", default_value_t = 8)]
+    model_batch: usize,
     /// The array of an .npz, or the tensor of a .safetensors, that holds the vectors (when it
     /// holds several).
     #[arg(long, value_name = "NAME")]
@@ -173,7 +197,20 @@ impl BuildArgs {
         let sheet_size = self.sheet_size;
         BuildOptions {
             vectors: self.vectors,
-            engine: vitrine_build::options::VectorEngine::BuiltIn,
+            save_vectors: self.save_vectors,
+            engine: match self.model {
+                None => vitrine_build::options::VectorEngine::BuiltIn,
+                Some(path) => vitrine_build::options::VectorEngine::Model(
+                    vitrine_images::onnx::ModelSettings {
+                        path,
+                        size: self.model_size,
+                        mean: self.model_mean,
+                        std: self.model_std,
+                        output: self.model_output,
+                        batch: self.model_batch,
+                    },
+                ),
+            },
             vectors_key: self.vectors_key,
             vector_ids: self.vector_ids,
             catalogue: self.catalogue,
@@ -232,6 +269,17 @@ impl BuildArgs {
             }),
         }
     }
+}
+
+/// Three numbers separated by commas.
+fn parse_triple(s: &str) -> Result<[f32; 3], String> {
+    let v: Vec<f32> = s
+        .split(',')
+        .map(|x| x.trim().parse::<f32>())
+        .collect::<Result<_, _>>()
+        .map_err(|_| format!("{s:?}: give three numbers separated by commas"))?;
+    v.try_into()
+        .map_err(|_| format!("{s:?}: give three numbers separated by commas"))
 }
 
 fn parse_delimiter(s: &str) -> Result<u8, String> {

@@ -199,3 +199,184 @@ fn options_that_need_a_vectors_file_are_refused_without_one() {
     let e = fails(&["--images", "empty"]);
     assert!(e.contains("--images empty: no image files in it"), "{e}");
 }
+
+/// Writes the test models (tests/from_images/make_model.py) and 48 pictures of 64 x 64 into `d`.
+fn make_models_and_pictures(d: &Path) -> std::path::PathBuf {
+    let script =
+        Path::new(env!("CARGO_MANIFEST_DIR")).join("../../tests/from_images/make_model.py");
+    common::run_python(&std::fs::read_to_string(&script).unwrap(), &[d]);
+    common::run_python(
+        r#"
+import sys, os, numpy as np
+from PIL import Image
+d = sys.argv[1]
+os.makedirs(f"{d}/images", exist_ok=True)
+g = np.random.default_rng(1)
+ids = []
+for i in range(48):
+    a = (g.random((8, 8, 3)) * 255).astype(np.uint8)
+    Image.fromarray(a).resize((64, 64), Image.BICUBIC).save(f"{d}/images/p{i:02d}.png")
+    ids.append(f"p{i:02d}")
+open(f"{d}/ids.txt", "w").write("\n".join(ids))
+"#,
+        &[d],
+    );
+    script
+}
+
+/// The largest difference between the build's saved vectors and onnxruntime's for the same model
+/// and output, and the largest value (for scale).
+fn against_onnxruntime(
+    d: &Path,
+    script: &Path,
+    model: &str,
+    output: &str,
+    side: &str,
+) -> (f64, f64) {
+    let source = std::fs::read_to_string(script).unwrap();
+    let reference = common::run_python(
+        &source,
+        &[
+            d,
+            Path::new("reference"),
+            &d.join(model),
+            Path::new(output),
+            &d.join("images"),
+            &d.join("ids.txt"),
+            Path::new(side),
+        ],
+    );
+    std::fs::write(d.join("reference.jsonl"), reference).unwrap();
+    let out = common::run_python(
+        r#"
+import sys, json, numpy as np
+d = sys.argv[1]
+z = np.load(f"{d}/v.npz")
+v, ids = z["vectors"], [str(i) for i in z["ids"]]
+ref = {r["id"]: np.array(r["vector"]) for r in map(json.loads, open(f"{d}/reference.jsonl"))}
+assert sorted(ids) == sorted(ref), (ids, list(ref))
+print(max(np.abs(v[i] - ref[x]).max() for i, x in enumerate(ids)), max(np.abs(ref[x]).max() for x in ids))
+"#,
+        &[d],
+    );
+    let v: Vec<f64> = out.split_whitespace().map(|x| x.parse().unwrap()).collect();
+    (v[0], v[1])
+}
+
+/// An ONNX model (written with the `onnx` package) gives the vectors onnxruntime gives for the same
+/// pictures: exactly where no resampling is needed (64 px pictures, a 64 px input, channels first
+/// or last, a dense output or a feature map averaged), within the two resamplers' difference where
+/// the picture is scaled to an open-sized input. The model file is in the provenance; the saved
+/// vectors given back with --vectors make the same map.
+#[test]
+fn an_onnx_model_gives_the_vectors_onnxruntime_gives() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let script = make_models_and_pictures(d);
+    let build = |extra: &[&str], out: &str| {
+        common::build_atlas(
+            d,
+            &[
+                &[
+                    "--images",
+                    "images",
+                    "--no-thumb-cache",
+                    "--no-copies",
+                    "--levels",
+                    "32,64",
+                    "--save-vectors",
+                    "v.npz",
+                ][..],
+                extra,
+            ]
+            .concat(),
+        );
+        std::fs::rename(d.join("atlas"), d.join(out)).unwrap();
+    };
+    for (model, output, extra) in [
+        ("cnn.onnx", "embedding", vec![]),
+        ("cnn.onnx", "features", vec!["--model-output", "features"]),
+        ("cnn_last.onnx", "embedding", vec!["--model-batch", "5"]),
+    ] {
+        build(&[&["--model", model][..], &extra].concat(), "atlas-model");
+        let (diff, scale) = against_onnxruntime(d, &script, model, output, "64");
+        println!("{model} {output}: largest difference {diff:.2e} of values up to {scale:.2}");
+        assert!(diff <= 1e-4 * scale.max(1.0), "{model} {output}: {diff}");
+        std::fs::remove_dir_all(d.join("atlas-model")).unwrap();
+    }
+    build(
+        &["--model", "open_size.onnx", "--model-size", "48"],
+        "atlas-model",
+    );
+    let (diff, scale) = against_onnxruntime(d, &script, "open_size.onnx", "embedding", "48");
+    println!("open_size.onnx at 48 px: largest difference {diff:.2e} of values up to {scale:.2}");
+    assert!(diff <= 0.01 * scale, "{diff} of {scale}");
+    let atlas = vitrine_build::read::Atlas::open(&d.join("atlas-model")).unwrap();
+    let model = atlas
+        .manifest
+        .provenance
+        .inputs
+        .iter()
+        .find(|i| i.role == "model")
+        .expect("the model file in the provenance");
+    assert_eq!(model.path, "open_size.onnx");
+    assert_eq!(
+        model.sha256,
+        vitrine_format::sha256_hex(&std::fs::read(d.join("open_size.onnx")).unwrap())
+    );
+    let engine = atlas.manifest.provenance.parameters["vectors_engine"]
+        .as_str()
+        .unwrap()
+        .to_string();
+    assert!(
+        engine.contains(&model.sha256) && engine.contains("input 48 x 48"),
+        "{engine}"
+    );
+    // The saved vectors, given back, make the same map.
+    std::fs::copy(d.join("v.npz"), d.join("given.npz")).unwrap();
+    common::build_atlas(d, &["--vectors", "given.npz"]);
+    assert_eq!(
+        std::fs::read(d.join("atlas/arrays/map-similarity.bin")).unwrap(),
+        std::fs::read(d.join("atlas-model/arrays/map-similarity.bin")).unwrap()
+    );
+}
+
+#[test]
+fn models_that_do_not_fit_are_refused_with_the_reason() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    make_models_and_pictures(d);
+    std::fs::write(d.join("notes.onnx"), b"a text file").unwrap();
+    let fails = |args: &[&str]| {
+        common::failure_of(
+            &common::vitrine()
+                .current_dir(d)
+                .args(["build", "--images", "images", "--out", "atlas"])
+                .args(args)
+                .output()
+                .unwrap(),
+        )
+    };
+    let e = fails(&["--model", "flat.onnx"]);
+    assert!(
+        e.contains("--model flat.onnx: the model's input has 2 axes"),
+        "{e}"
+    );
+    let e = fails(&["--model", "cnn.onnx", "--model-output", "logits"]);
+    assert!(
+        e.contains(r#"no output "logits"; its outputs are ["embedding", "features"]"#),
+        "{e}"
+    );
+    let e = fails(&["--model", "cnn.onnx", "--model-size", "100"]);
+    assert!(e.contains("the model's input is 64 px"), "{e}");
+    let e = fails(&["--model", "notes.onnx"]);
+    assert!(e.contains("--model notes.onnx: not a model"), "{e}");
+    let e = fails(&["--model", "missing.onnx"]);
+    assert!(e.contains("--model missing.onnx"), "{e}");
+    let e = fails(&["--model-size", "100"]);
+    assert!(e.contains("--model"), "{e}");
+    let e = fails(&["--model", "cnn.onnx", "--vectors", "v.npy"]);
+    assert!(e.contains("leave it out when --vectors gives them"), "{e}");
+    let e = fails(&["--model", "cnn.onnx", "--model-std", "0,1,1"]);
+    assert!(e.contains("--model-std"), "{e}");
+}

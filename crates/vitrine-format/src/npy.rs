@@ -148,6 +148,37 @@ pub fn encode_f32(rows: usize, cols: usize, data: &[f32]) -> Vec<u8> {
     out
 }
 
+/// A 1-D `.npy` of text (`<U{n}`: each value as UTF-32 code points, padded with zeros to the longest).
+pub fn encode_text(values: &[impl AsRef<str>]) -> Vec<u8> {
+    let width = values
+        .iter()
+        .map(|v| v.as_ref().chars().count())
+        .max()
+        .unwrap_or(0)
+        .max(1);
+    let mut header = format!(
+        "{{'descr': '<U{width}', 'fortran_order': False, 'shape': ({},), }}",
+        values.len()
+    );
+    while (10 + header.len() + 1) % 64 != 0 {
+        header.push(' ');
+    }
+    header.push('\n');
+    let mut out = Vec::with_capacity(10 + header.len() + values.len() * width * 4);
+    out.extend_from_slice(b"\x93NUMPY\x01\x00");
+    out.extend_from_slice(&(header.len() as u16).to_le_bytes());
+    out.extend_from_slice(header.as_bytes());
+    for v in values {
+        let mut n = 0;
+        for c in v.as_ref().chars() {
+            out.extend_from_slice(&(c as u32).to_le_bytes());
+            n += 1;
+        }
+        out.resize(out.len() + (width - n) * 4, 0);
+    }
+    out
+}
+
 /// Where the header ends, from the fixed part (None when the fixed part is cut short or foreign).
 fn header_end(b: &[u8]) -> Option<usize> {
     if b.len() < 10 || &b[..6] != b"\x93NUMPY" {

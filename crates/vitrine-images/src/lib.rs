@@ -12,5 +12,6 @@ pub mod copies;
 pub mod decode;
 pub mod describe;
 pub mod embed;
+pub mod onnx;
 pub mod phash;
 pub mod thumbs;
