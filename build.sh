@@ -135,6 +135,11 @@ case "${1:-}" in
     cargo build --locked --release -p vitrine-cli -p vitrine-bench
     shift
     "$CACHE/venv/bin/python" bench/bench_images.py --vitrine-bench "$PWD/target/release/vitrine-bench" "$@" ;;
+  bench-vectors)
+    setup
+    cargo build --locked --release -p vitrine-cli
+    shift
+    "$CACHE/venv/bin/python" bench/bench_vectors.py --vitrine "$PWD/target/release/vitrine" "$@" ;;
   bench-view)
     setup
     build_viewer
@@ -182,5 +187,5 @@ PY
     build_demo
     echo "[demo] serving demo-atlas/out"
     exec ./target/release/vitrine serve demo-atlas/out --port "${PORT:-8080}" ;;
-  *) echo "usage: ./build.sh setup|demo|test|atlas|fuzz [SECONDS]|bench-map [--million]|bench-images [--collection N]|bench-view [--sizes 100000,1000000]" >&2; exit 2 ;;
+  *) echo "usage: ./build.sh setup|demo|test|atlas|fuzz [SECONDS]|bench-map [--million]|bench-images [--collection N]|bench-vectors|bench-view [--sizes 100000,1000000]" >&2; exit 2 ;;
 esac

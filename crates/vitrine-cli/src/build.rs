@@ -63,8 +63,8 @@ pub struct BuildArgs {
     /// np.load reads it, and --vectors takes it back (computed vectors are then not computed again).
     #[arg(long, value_name = "FILE.npz")]
     save_vectors: Option<PathBuf>,
-    /// Pictures the model runs at once.
-    #[arg(long, value_name = "N", requires = "model", default_value_t = 8)]
+    /// Pictures the model runs at once (each core runs its own; 1 was fastest for a ResNet).
+    #[arg(long, value_name = "N", requires = "model", default_value_t = 1)]
     model_batch: usize,
     /// The array of an .npz, or the tensor of a .safetensors, that holds the vectors (when it
     /// holds several).

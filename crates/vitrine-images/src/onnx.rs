@@ -48,7 +48,10 @@ impl ModelSettings {
             mean: IMAGENET_MEAN,
             std: IMAGENET_STD,
             output: None,
-            batch: 8,
+            // tract runs a ResNet-18-shaped model fastest one picture at a time (31 images/s against
+            // 25 in batches of 2 to 16 on this machine: bench/bench_vectors.py); the cores share
+            // the pictures.
+            batch: 1,
         }
     }
 }
