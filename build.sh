@@ -80,6 +80,25 @@ build_demo() {
     --levels 32,128,320 --viewer target/viewer --out demo-atlas/out
 }
 
+# The release binary copied to an empty folder builds an atlas from pictures alone (vectors by the
+# built-in descriptor), and the atlas holds the viewer files compiled into the binary.
+check_binary_alone() {
+  local tmp
+  tmp="$(mktemp -d)"
+  cp target/release/vitrine "$tmp/"
+  "$CACHE/venv/bin/python" - "$tmp/pictures" <<'PY'
+import os, sys
+from PIL import Image
+os.makedirs(sys.argv[1])
+for i in range(12):
+    Image.new("RGB", (60 + 7 * i, 50), (20 * i, 200 - 15 * i, 90)).save(f"{sys.argv[1]}/p{i}.png")
+PY
+  (cd "$tmp" && env -u VITRINE_VIEWER ./vitrine build --quiet --images pictures --no-thumb-cache --out atlas)
+  cmp target/viewer/index.html "$tmp/atlas/index.html"
+  diff -r target/viewer/viewer "$tmp/atlas/viewer"
+  rm -rf "$tmp"
+}
+
 # Browser-test tools: Debian's Chromium (test tools cannot download their own here) and playwright-core.
 setup_browser() {
   if [ ! -x /usr/bin/chromium ]; then
@@ -107,6 +126,8 @@ run_tests() {
   XDG_RUNTIME_DIR="${XDG_RUNTIME_DIR:-/tmp}" cargo test --locked --release -p vitrine-view --features gpu --test golden 2>&1
   echo "[test] demo atlas for the browser test"
   build_demo
+  echo "[test] the vitrine binary alone (viewer compiled in, no checkout beside it)"
+  check_binary_alone
   echo "[test] viewer in headless Chromium (software WebGL)"
   VITRINE_BIN="$PWD/target/release/vitrine" VITRINE_ATLAS="$PWD/demo-atlas/out" \
     VITRINE_CATALOGUE="$CACHE/demo-source/records.csv" VITRINE_ARTIFACTS="$PWD/tests/artifacts" \

@@ -322,8 +322,34 @@ fn sync_dir(dir: &Path) {
 }
 
 /// The viewer files (index.html, the wasm module and its loader) make the atlas self-contained.
-pub fn copy_viewer(viewer: Option<&Path>, dir: &Path, report: &mut BuildReport) -> Result<()> {
-    let found = viewer_dir(viewer);
+pub fn copy_viewer(
+    viewer: Option<&Path>,
+    embedded: &[(&str, &[u8])],
+    dir: &Path,
+    report: &mut BuildReport,
+) -> Result<()> {
+    place_viewer(viewer_dir(viewer), embedded, dir, report)
+}
+
+/// Copies the folder of viewer files `found`, else writes the `embedded` ones, else notes that
+/// the atlas has no viewer.
+fn place_viewer(
+    found: Option<PathBuf>,
+    embedded: &[(&str, &[u8])],
+    dir: &Path,
+    report: &mut BuildReport,
+) -> Result<()> {
+    if found.is_none() && !embedded.is_empty() {
+        for (rel, bytes) in embedded {
+            let to = dir.join(rel);
+            if let Some(parent) = to.parent() {
+                std::fs::create_dir_all(parent)?;
+            }
+            std::fs::write(&to, bytes)
+                .with_context(|| format!("writing viewer file {}", to.display()))?;
+        }
+        return Ok(());
+    }
     let Some(src) = found else {
         report.notes.push(
             "no viewer files were found (build them with ./build.sh atlas, or pass --viewer DIR): \
@@ -367,4 +393,41 @@ pub(crate) fn lower_extension(path: &Path) -> String {
     path.extension()
         .map(|e| e.to_string_lossy().to_lowercase())
         .unwrap_or_default()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// With no folder of viewer files given or found, the files the program holds are written;
+    /// a folder given is copied instead of them.
+    #[test]
+    fn the_viewer_files_held_are_written_and_a_given_folder_wins() {
+        let dir = tempfile::tempdir().unwrap();
+        let held: &[(&str, &[u8])] = &[("index.html", b"<p>held"), ("viewer/app.js", b"held()")];
+        let atlas = dir.path().join("atlas");
+        std::fs::create_dir_all(&atlas).unwrap();
+        let mut report = BuildReport::default();
+        place_viewer(None, held, &atlas, &mut report).unwrap();
+        assert_eq!(std::fs::read(atlas.join("index.html")).unwrap(), b"<p>held");
+        assert_eq!(
+            std::fs::read(atlas.join("viewer/app.js")).unwrap(),
+            b"held()"
+        );
+        assert!(report.notes.is_empty());
+        place_viewer(None, &[], &dir.path().join("bare"), &mut report).unwrap();
+        assert!(
+            report.notes[0].contains("no viewer files"),
+            "{:?}",
+            report.notes
+        );
+        let given = dir.path().join("given");
+        std::fs::create_dir_all(&given).unwrap();
+        std::fs::write(given.join("index.html"), b"<p>given").unwrap();
+        copy_viewer(Some(&given), held, &atlas, &mut report).unwrap();
+        assert_eq!(
+            std::fs::read(atlas.join("index.html")).unwrap(),
+            b"<p>given"
+        );
+    }
 }

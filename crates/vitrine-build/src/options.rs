@@ -78,6 +78,9 @@ pub struct BuildOptions {
     pub thumb_cache: Option<PathBuf>,
     /// Folder with the viewer files to copy into the atlas (None: found beside the program).
     pub viewer: Option<PathBuf>,
+    /// The viewer files the program holds (path inside the atlas, bytes): written when no folder
+    /// of them is given or found.
+    pub embedded_viewer: &'static [(&'static str, &'static [u8])],
     /// How copies of one picture are found, when there are images (None: not looked for).
     pub copies: Option<crate::copies::CopyRule>,
 }
@@ -115,6 +118,7 @@ impl BuildOptions {
             strict: false,
             thumb_cache: None,
             viewer: None,
+            embedded_viewer: &[],
             copies: Some(crate::copies::CopyRule::default()),
         }
     }

@@ -208,7 +208,12 @@ pub fn write_atlas(
             report.value_warnings.len()
         ));
     }
-    crate::folder::copy_viewer(opts.viewer.as_deref(), dir, &mut report)?;
+    crate::folder::copy_viewer(
+        opts.viewer.as_deref(),
+        opts.embedded_viewer,
+        dir,
+        &mut report,
+    )?;
     laps.lap("write atlas");
     report.set_laps(laps);
     std::fs::write(

@@ -183,7 +183,8 @@ pub struct BuildArgs {
     /// ... and the pictures' colours correlate at least this much over the matched region (-1-1).
     #[arg(long, default_value_t = vitrine_build::copies::CopyRule::default().min_colour)]
     copy_colour: f32,
-    /// Folder with the viewer files to copy into the atlas (default: found beside the program).
+    /// Folder with the viewer files to copy into the atlas (default: VITRINE_VIEWER, a folder
+    /// "viewer" beside the program, else the files compiled into it).
     #[arg(long)]
     viewer: Option<PathBuf>,
     /// Print nothing but errors.
@@ -257,6 +258,7 @@ impl BuildArgs {
                 self.thumb_cache.or_else(vitrine_images::cache::default_dir)
             },
             viewer: self.viewer,
+            embedded_viewer: crate::embedded::FILES,
             catalogue_format: vitrine_build::catalogue::TableFormat {
                 delimiter: self.delimiter,
                 encoding: self.catalogue_encoding,

@@ -4,6 +4,10 @@
 //! parses the flags and dispatches.
 
 pub mod build;
+/// The viewer files compiled into the binary (none when they had not been built; see build.rs).
+pub mod embedded {
+    include!(concat!(env!("OUT_DIR"), "/viewer_files.rs"));
+}
 pub mod coding;
 pub mod corpus;
 pub mod export;
