@@ -15,6 +15,7 @@
 //! atlas is complete and has validated; the same inputs and seed give the same bytes.
 
 pub mod catalogue;
+pub mod columnar;
 pub mod copies;
 pub mod dates;
 pub mod error;

@@ -1,7 +1,7 @@
 //! Reading the feature vectors, items x dimensions, from the files labs keep them in: a NumPy
 //! `.npy` (see `vitrine_format::npy`), a NumPy `.npz` archive (its one 2-D array, or the one
 //! `--vectors-key` names, and its ids when it holds an array `ids`), or a `.safetensors` file (its
-//! one 2-D tensor, or the one named).
+//! one 2-D tensor, or the one named); Parquet and Arrow tables are read by `columnar`.
 
 use std::io::Read;
 use std::path::Path;
@@ -36,6 +36,8 @@ pub fn read_vector_file(path: &Path, key: Option<&str>) -> Result<VectorFile, In
     let io = |e| InputError::io(path, e);
     match ext.as_str() {
         "npz" => read_npz(path, key),
+        "parquet" | "pq" => crate::columnar::read_parquet(path, key),
+        "arrow" | "feather" | "ipc" | "arrows" => crate::columnar::read_arrow(path, key),
         "safetensors" => {
             let bytes = std::fs::read(path).map_err(io)?;
             let (name, matrix) = read_safetensors(&bytes, key).map_err(bad)?;
@@ -66,8 +68,26 @@ pub fn read_vector_file(path: &Path, key: Option<&str>) -> Result<VectorFile, In
     }
 }
 
-/// The arrays the ids may be kept in, in an `.npz`.
-const ID_ARRAYS: [&str; 2] = ["ids", "id"];
+/// The arrays (or table columns) the ids may be kept in, in an `.npz`, a Parquet or an Arrow file.
+pub(crate) const ID_ARRAYS: [&str; 2] = ["ids", "id"];
+
+/// Refuses blank and repeated ids (rows counted from 1).
+pub(crate) fn check_ids(ids: &[String]) -> Result<(), String> {
+    let mut seen = std::collections::HashMap::new();
+    for (k, id) in ids.iter().enumerate() {
+        if id.is_empty() {
+            return Err(format!("id {} is empty", k + 1));
+        }
+        if let Some(j) = seen.insert(id.as_str(), k) {
+            return Err(format!(
+                "the id {id:?} appears twice (rows {} and {})",
+                j + 1,
+                k + 1
+            ));
+        }
+    }
+    Ok(())
+}
 
 fn read_npz(path: &Path, key: Option<&str>) -> Result<VectorFile, InputError> {
     let name = path.display().to_string();
@@ -157,19 +177,7 @@ fn read_npz(path: &Path, key: Option<&str>) -> Result<VectorFile, InputError> {
             let ids = npy::parse_strings(&entry(&mut zip, i, u64::MAX)?)
                 .map_err(|e| bad(format!("array {i:?} (the ids): {e}")))?;
             let ids: Vec<String> = ids.into_iter().map(|s| s.trim().to_string()).collect();
-            let mut seen = std::collections::HashMap::new();
-            for (k, id) in ids.iter().enumerate() {
-                if id.is_empty() {
-                    return Err(bad(format!("array {i:?} (the ids): id {} is empty", k + 1)));
-                }
-                if let Some(j) = seen.insert(id.as_str(), k) {
-                    return Err(bad(format!(
-                        "array {i:?} (the ids): the id {id:?} appears twice (rows {} and {})",
-                        j + 1,
-                        k + 1
-                    )));
-                }
-            }
+            check_ids(&ids).map_err(|e| bad(format!("array {i:?} (the ids): {e}")))?;
             if ids.len() != a.rows {
                 return Err(bad(format!(
                     "array {i:?} holds {} ids but {chosen:?} has {} rows",
