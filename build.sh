@@ -44,12 +44,20 @@ build_viewer() {
   setup_wasm_bindgen
   echo "[viewer] compiling the viewer to WebAssembly"
   cargo build --locked -p vitrine-web --target wasm32-unknown-unknown --profile wasm-release
-  rm -rf target/viewer
-  mkdir -p target/viewer/viewer
-  wasm-bindgen --target web --no-typescript --out-dir target/viewer/viewer \
+  rm -rf target/viewer.new
+  mkdir -p target/viewer.new/viewer
+  wasm-bindgen --target web --no-typescript --out-dir target/viewer.new/viewer \
     target/wasm32-unknown-unknown/wasm-release/vitrine_web.wasm
-  cp web/index.html target/viewer/
-  cp web/loader.js web/file-notice.js web/style.css target/viewer/viewer/
+  cp web/index.html target/viewer.new/
+  cp web/loader.js web/file-notice.js web/style.css target/viewer.new/viewer/
+  # Into target/viewer, touching only the files that changed: the vitrine binary compiles these
+  # files in (crates/vitrine-cli/build.rs) and is rebuilt when they change.
+  if [ -d target/viewer ] && diff -rq target/viewer target/viewer.new >/dev/null; then
+    rm -rf target/viewer.new
+  else
+    rm -rf target/viewer && mv target/viewer.new target/viewer
+  fi
+  export VITRINE_EMBED_VIEWER="$PWD/target/viewer"
 }
 
 setup_wasm_bindgen() {
@@ -85,7 +93,9 @@ build_demo() {
 check_binary_alone() {
   local tmp
   tmp="$(mktemp -d)"
-  cp target/release/vitrine "$tmp/"
+  # In a folder of its own: the program also looks for viewer files in the folder above it.
+  mkdir "$tmp/bin"
+  cp target/release/vitrine "$tmp/bin/"
   "$CACHE/venv/bin/python" - "$tmp/pictures" <<'PY'
 import os, sys
 from PIL import Image
@@ -93,7 +103,7 @@ os.makedirs(sys.argv[1])
 for i in range(12):
     Image.new("RGB", (60 + 7 * i, 50), (20 * i, 200 - 15 * i, 90)).save(f"{sys.argv[1]}/p{i}.png")
 PY
-  (cd "$tmp" && env -u VITRINE_VIEWER ./vitrine build --quiet --images pictures --no-thumb-cache --out atlas)
+  (cd "$tmp" && env -u VITRINE_VIEWER bin/vitrine build --quiet --images pictures --no-thumb-cache --out atlas)
   cmp target/viewer/index.html "$tmp/atlas/index.html"
   diff -r target/viewer/viewer "$tmp/atlas/viewer"
   rm -rf "$tmp"

@@ -28,13 +28,19 @@ fn main() {
         .map(PathBuf::from)
         .unwrap_or_else(|| manifest.join("../../target/viewer"));
     let index = dir.join("index.html");
-    println!("cargo:rerun-if-changed={}", index.display());
     let mut list = Vec::new();
+    // Only paths that exist are watched (cargo runs a script that watches a missing path on every
+    // build); without viewer files, the script runs again when this file or VITRINE_EMBED_VIEWER
+    // changes (./build.sh sets it once the viewer is built).
+    println!("cargo:rerun-if-changed=build.rs");
     if index.is_file() {
         files(&dir, &mut list);
-        // A file added to the folder changes the folders' times.
-        println!("cargo:rerun-if-changed={}", dir.display());
-        println!("cargo:rerun-if-changed={}", dir.join("viewer").display());
+        // A file added to the folders changes their times.
+        for d in [dir.clone(), dir.join("viewer")] {
+            if d.is_dir() {
+                println!("cargo:rerun-if-changed={}", d.display());
+            }
+        }
     }
     let mut code = String::from("/// The viewer files compiled in: (path inside the atlas, bytes).\npub static FILES: &[(&str, &[u8])] = &[\n");
     for p in &list {

@@ -68,14 +68,16 @@ fn choose(schema: &Schema, key: Option<&str>) -> Result<Columns, String> {
                         names.join(", ")
                     ))
                 }
-                _ => return Err(format!(
+                _ => {
+                    return Err(format!(
                     "has several columns of lists ({}): name the vectors' one with --vectors-key",
                     lists
                         .iter()
                         .map(|&i| schema.field(i).name().as_str())
                         .collect::<Vec<_>>()
                         .join(", ")
-                )),
+                ))
+                }
             }
         }
     };
@@ -227,6 +229,11 @@ fn collect(
         }
     }
     let cols_n = width.unwrap_or(0);
+    if row > 0 && cols_n == 0 {
+        return Err(format!(
+            "column {vname:?} holds empty lists: vectors of zero dimensions"
+        ));
+    }
     if let Some(list) = &ids {
         check_ids(list).map_err(|e| format!("the id column: {e}"))?;
     }

@@ -129,6 +129,12 @@ pub fn compute(
             String::new()
         }
     ));
+    if got.cache_errors > 0 {
+        progress.note(&format!(
+            "{} thumbnail(s) could not be stored in the cache: their pictures are decoded again for the sheets",
+            got.cache_errors
+        ));
+    }
     if cache.is_none() {
         progress.note("without the thumbnail cache, every picture is decoded twice: once for its vector, once for its thumbnails");
     }

@@ -78,7 +78,12 @@ pub fn read(
             .images
             .as_ref()
             .expect("options without vectors have images (checked)");
-        let (items, paths) = items_from_images(dir, cat.as_ref(), opts.image_column.as_deref())?;
+        let (items, paths) = items_from_images(
+            dir,
+            cat.as_ref(),
+            opts.image_column.as_deref(),
+            &[Some(&opts.out), opts.thumb_cache.as_ref()],
+        )?;
         laps.lap("read inputs");
         let (vectors, described) = crate::from_images::compute(opts, &paths, progress)?;
         laps.lap("vectors from images");
@@ -158,6 +163,7 @@ fn items_from_images(
     dir: &Path,
     cat: Option<&Catalogue>,
     image_column: Option<&str>,
+    not_inside: &[Option<&PathBuf>],
 ) -> Result<(Items, Vec<Result<PathBuf, String>>), InputError> {
     if let Some(cat) = cat {
         let ids: Vec<String> = cat.ids().map(String::from).collect();
@@ -186,9 +192,36 @@ fn items_from_images(
             dir.display()
         )));
     }
+    // Pictures only: not the files of an atlas (a folder with an atlas.json: this build's --out or
+    // an earlier one, and the temporary folders beside them) nor of the thumbnail cache.
+    let skip: Vec<PathBuf> = not_inside
+        .iter()
+        .flatten()
+        .filter_map(|p| std::fs::canonicalize(p).ok())
+        .collect();
+    let mut atlas_dirs = std::collections::HashSet::new();
     let files: Vec<PathBuf> = walk(dir)
         .into_iter()
-        .filter(|p| IMAGE_EXTENSIONS.contains(&crate::folder::lower_extension(p).as_str()))
+        .filter(|p| {
+            if p.file_name()
+                .is_some_and(|n| n == vitrine_format::MANIFEST_FILE)
+            {
+                if let Some(parent) = p.parent() {
+                    atlas_dirs.insert(parent.to_path_buf());
+                }
+            }
+            IMAGE_EXTENSIONS.contains(&crate::folder::lower_extension(p).as_str())
+        })
+        .collect();
+    let files: Vec<PathBuf> = files
+        .into_iter()
+        .filter(|p| {
+            let in_atlas = p.ancestors().skip(1).any(|a| atlas_dirs.contains(a));
+            let in_skipped = std::fs::canonicalize(p)
+                .map(|c| skip.iter().any(|s| c.starts_with(s)))
+                .unwrap_or(false);
+            !in_atlas && !in_skipped
+        })
         .collect();
     if files.is_empty() {
         return Err(InputError::Usage(format!(
@@ -205,25 +238,33 @@ fn items_from_images(
             .collect::<Vec<_>>()
             .join("/")
     };
-    let stems: Vec<String> = files
+    // Ids: the path without its extension, or with it while any id is still claimed twice (the
+    // full paths differ, so this ends).
+    let mut ids: Vec<String> = files
         .iter()
         .map(|p| inside(&p.with_extension("")))
         .collect();
-    let mut count: HashMap<&str, usize> = HashMap::new();
-    for s in &stems {
-        *count.entry(s).or_default() += 1;
+    loop {
+        let mut count: HashMap<&str, usize> = HashMap::new();
+        for s in &ids {
+            *count.entry(s.as_str()).or_default() += 1;
+        }
+        let twice: Vec<usize> = (0..ids.len())
+            .filter(|&i| count[ids[i].as_str()] > 1 && ids[i] != inside(&files[i]))
+            .collect();
+        if twice.is_empty() {
+            break;
+        }
+        for i in twice {
+            ids[i] = inside(&files[i]);
+        }
     }
-    let ids = files
-        .iter()
-        .zip(&stems)
-        .map(|(p, s)| {
-            if count[s.as_str()] > 1 {
-                inside(p)
-            } else {
-                s.clone()
-            }
-        })
-        .collect();
+    crate::vectors::check_ids(&ids).map_err(|e| {
+        InputError::Usage(format!(
+            "--images {}: the image files' names give ids that cannot be told apart ({e}; names that are not UTF-8 text read alike)",
+            dir.display()
+        ))
+    })?;
     Ok((
         Items {
             ids,
@@ -453,7 +494,11 @@ fn find_images(
         }
         (None, None) => None,
     };
+    // A file is found by its name without the extension, or by its path inside the folder with
+    // or without the extension (the ids a build from the folder alone gives, kept with
+    // --save-vectors).
     let mut by_stem: HashMap<String, PathBuf> = HashMap::new();
+    let mut by_path: HashMap<String, PathBuf> = HashMap::new();
     if column.is_none() {
         for entry in walk(dir) {
             let ext = crate::folder::lower_extension(&entry);
@@ -461,6 +506,20 @@ fn find_images(
                 if let Some(stem) = entry.file_stem().and_then(|s| s.to_str()) {
                     by_stem.entry(stem.to_string()).or_insert(entry.clone());
                 }
+                let rel: Vec<String> = entry
+                    .strip_prefix(dir)
+                    .unwrap_or(&entry)
+                    .components()
+                    .map(|c| c.as_os_str().to_string_lossy().to_string())
+                    .collect();
+                let rel = rel.join("/");
+                by_path
+                    .entry(
+                        rel.rsplit_once('.')
+                            .map_or(rel.clone(), |(a, _)| a.to_string()),
+                    )
+                    .or_insert(entry.clone());
+                by_path.insert(rel, entry.clone());
             }
         }
     }
@@ -489,9 +548,13 @@ fn find_images(
                 }
                 Ok(dir.join(rel))
             }
-            _ => by_stem.get(id).cloned().ok_or_else(|| {
-                format!("no file named {id} with an image extension in the --images folder")
-            }),
+            _ => by_path
+                .get(id)
+                .or_else(|| by_stem.get(id))
+                .cloned()
+                .ok_or_else(|| {
+                    format!("no file named {id} with an image extension in the --images folder")
+                }),
         })
         .collect())
 }

@@ -117,25 +117,31 @@ fn a_folder_alone_makes_an_atlas_and_a_rebuild_reuses_the_vectors() {
     image::RgbImage::from_pixel(40, 40, image::Rgb([10, 10, 200]))
         .save(images.join("twin.jpg"))
         .unwrap();
+    // ... and one whose name without its extension is another's with it.
+    image::RgbImage::from_pixel(40, 40, image::Rgb([10, 200, 10]))
+        .save(images.join("twin.jpg.png"))
+        .unwrap();
     std::fs::write(images.join("broken.jpg"), b"not a picture").unwrap();
     std::fs::write(images.join("notes.txt"), b"not an image file").unwrap();
-    expected.extend(["twin.png", "twin.jpg", "broken"].map(String::from));
+    expected.extend(["twin.png", "twin.jpg", "twin.jpg.png", "broken"].map(String::from));
     let cache = d.join("cache");
-    let build = |out: &str| {
+    let build_with = |out: &str, extra: &[&str]| {
         let o = common::vitrine()
             .current_dir(d)
             .args(["build", "--epochs", "30", "--images", "scans", "--out", out])
             .arg("--thumb-cache")
             .arg(&cache)
             .args(["--levels", "32,64"])
+            .args(extra)
             .output()
             .unwrap();
         common::notes_of(&o)
     };
+    let build = |out: &str| build_with(out, &["--save-vectors", "saved.npz"]);
     let notes = build("first");
     assert!(
         notes.contains(
-            "vectors: 27 x 348 computed from the images by the vitrine built-in descriptor 1"
+            "vectors: 28 x 348 computed from the images by the vitrine built-in descriptor 1"
         ),
         "{notes}"
     );
@@ -144,7 +150,7 @@ fn a_folder_alone_makes_an_atlas_and_a_rebuild_reuses_the_vectors() {
         "{notes}"
     );
     let again = build("second");
-    assert!(again.contains("(26 taken from the cache)"), "{again}");
+    assert!(again.contains("(27 taken from the cache)"), "{again}");
 
     let atlas = vitrine_build::read::Atlas::open(&d.join("first")).unwrap();
     let table = atlas.ids().unwrap();
@@ -166,16 +172,63 @@ fn a_folder_alone_makes_an_atlas_and_a_rebuild_reuses_the_vectors() {
     let report: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(d.join("first/build-report.json")).unwrap())
             .unwrap();
-    assert_eq!(report["thumbnails_made"], 26, "{report}");
+    assert_eq!(report["thumbnails_made"], 27, "{report}");
     assert_eq!(report["image_problems"].as_array().unwrap().len(), 1);
-    // The same vectors, so the same map.
+    // The same vectors, so the same map: from the cache, and computed again when the cache holds
+    // the thumbnails but not the vectors (from the fresh thumbnails, not the cache's JPEGs).
+    let vector_files: Vec<std::path::PathBuf> = walk_files(&cache)
+        .into_iter()
+        .filter(|p| p.extension().is_some_and(|e| e == "vec"))
+        .collect();
+    assert_eq!(vector_files.len(), 27);
+    vector_files
+        .iter()
+        .for_each(|p| std::fs::remove_file(p).unwrap());
+    let third = build("third");
+    assert!(!third.contains("taken from the cache"), "{third}");
     for f in ["arrays/map-similarity.bin", "arrays/ids.text.bin"] {
+        let first = std::fs::read(d.join("first").join(f)).unwrap();
         assert_eq!(
-            std::fs::read(d.join("first").join(f)).unwrap(),
+            first,
             std::fs::read(d.join("second").join(f)).unwrap(),
             "{f}"
         );
+        assert_eq!(
+            first,
+            std::fs::read(d.join("third").join(f)).unwrap(),
+            "{f}"
+        );
     }
+    // The saved vectors, given back with the pictures, find every picture by its id (paths in
+    // subfolders, names with their extension); an atlas written inside the pictures' folder is
+    // not read as pictures.
+    build_with("scans/inner", &["--vectors", "saved.npz"]);
+    let report: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string(d.join("scans/inner/build-report.json")).unwrap(),
+    )
+    .unwrap();
+    assert_eq!(report["items"], 28);
+    assert_eq!(
+        report["image_problems"].as_array().unwrap().len(),
+        1,
+        "{report}"
+    );
+    let notes = build("fourth");
+    assert!(notes.contains("vectors: 28 x 348"), "{notes}");
+}
+
+/// Every file below `dir`.
+fn walk_files(dir: &Path) -> Vec<std::path::PathBuf> {
+    let mut out = Vec::new();
+    for e in std::fs::read_dir(dir).unwrap() {
+        let p = e.unwrap().path();
+        if p.is_dir() {
+            out.extend(walk_files(&p));
+        } else {
+            out.push(p);
+        }
+    }
+    out
 }
 
 #[test]

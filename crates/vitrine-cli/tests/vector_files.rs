@@ -158,6 +158,7 @@ pq.write_table(pa.table({"id": ids[:2], "v": pa.array([[1.0, None], [2.0, 3.0]],
 pq.write_table(pa.table({"id": ["a", "b", "a"], "v": pa.array([[1.0], [2.0], [3.0]], pa.list_(pa.float32()))}), f"{d}/twice.parquet")
 pq.write_table(pa.table({"id": ids[:2], "a": pa.array([[1.0], [2.0]]), "b": pa.array([[1.0], [2.0]])}), f"{d}/two.parquet")
 pq.write_table(pa.table({"id": ids[:2], "x": [1.0, 2.0]}), f"{d}/flat.parquet")
+pq.write_table(pa.table({"id": ids[:2], "v": pa.array([[], []], pa.list_(pa.float32()))}), f"{d}/empty.parquet")
 with open(f"{d}/records.csv", "w") as f:
     f.write("id,n\n")
     for i in reversed(range(40)):
@@ -225,6 +226,8 @@ with open(f"{d}/ids.txt", "w") as f:
         e.contains("no column of lists") && e.contains("x (Float64)"),
         "{e}"
     );
+    let e = fails("empty.parquet", None);
+    assert!(e.contains("empty lists"), "{e}");
     let e = fails("snappy.parquet", Some("title"));
     assert!(e.contains("column \"title\" is Utf8"), "{e}");
     let e = fails("snappy.parquet", Some("nope"));

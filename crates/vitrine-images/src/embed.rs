@@ -56,12 +56,15 @@ pub struct FromImages {
     pub decoded: usize,
     /// Vectors taken from the cache.
     pub reused: usize,
+    /// Thumbnails that could not be stored in the cache.
+    pub cache_errors: usize,
 }
 
 /// One item's state within a chunk.
 enum Got {
     Vector(Vec<f32>),
-    Picture(RgbImage, Option<PathBuf>),
+    /// The thumbnail, its cache key and its file.
+    Picture(RgbImage, Option<PathBuf>, PathBuf),
     Failed,
 }
 
@@ -97,9 +100,12 @@ pub fn vectors_from_images(
                         return Got::Vector(v);
                     }
                 }
-                let (made, _) = crate::thumbs::largest_thumbnail(p, plan, cache, &counts);
+                // Always the fresh thumbnail's pixels (a cached one is a JPEG of them, a shade
+                // off): the same file gives the same vector whatever the cache held.
+                let (made, _) =
+                    crate::thumbs::largest_thumbnail_from(p, plan, cache, &counts, false);
                 match made {
-                    Ok((thumb, _)) => Got::Picture(thumb, key),
+                    Ok((thumb, _)) => Got::Picture(thumb, key, p.clone()),
                     Err(_) => Got::Failed,
                 }
             })
@@ -107,7 +113,7 @@ pub fn vectors_from_images(
         let pictures: Vec<&RgbImage> = got
             .iter()
             .filter_map(|g| match g {
-                Got::Picture(p, _) => Some(p),
+                Got::Picture(p, ..) => Some(p),
                 _ => None,
             })
             .collect();
@@ -130,9 +136,9 @@ pub fn vectors_from_images(
                     reused += 1;
                     vectors.extend_from_slice(v);
                 }
-                Got::Picture(_, key) => {
+                Got::Picture(_, key, path) => {
                     let v = fresh.pop().expect("one vector per picture");
-                    check_length(&v, dims)?;
+                    check_length(&v, dims).map_err(|e| format!("{}: {e}", path.display()))?;
                     if let (Some(c), Some(k)) = (cache, key) {
                         // A vector that cannot be stored is computed again next time.
                         let _ = c.put_vector(k, engine.id(), &v);
@@ -152,6 +158,7 @@ pub fn vectors_from_images(
         dims,
         failed,
         decoded: counts.made.into_inner(),
+        cache_errors: counts.errors.into_inner(),
         reused,
     })
 }

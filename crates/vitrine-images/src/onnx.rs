@@ -21,6 +21,10 @@ use rayon::prelude::*;
 use tract_onnx::prelude::*;
 use tract_onnx::tract_hir::infer::Factoid;
 
+/// How pictures are prepared for a model and its output taken, named in the engine's id (and so
+/// in the cached vectors' key): bumped whenever either changes.
+const PREPARATION: &str = "preparation 1 (Lanczos-3 cover and centre cut, tract 0.23)";
+
 /// How a model is run.
 #[derive(Debug, Clone, PartialEq)]
 pub struct ModelSettings {
@@ -67,6 +71,8 @@ enum Take {
     AsIs,
     /// Average over the last two axes of [batch, channels, height, width].
     Pool,
+    /// Average over the middle two axes of [batch, height, width, channels] (a channels-last model).
+    PoolLast,
     /// The first of [batch, tokens, values].
     FirstToken,
 }
@@ -226,6 +232,7 @@ impl OnnxEngine {
         let shape = out.shape().to_vec();
         let (take, dims) = match shape.as_slice() {
             [n, d] if *n == b => (Take::AsIs, *d),
+            [n, _, _, c] if *n == b && layout == Layout::ChannelsLast => (Take::PoolLast, *c),
             [n, c, _, _] if *n == b => (Take::Pool, *c),
             [n, t, d] if *n == b && *t >= 1 => (Take::FirstToken, *d),
             _ => {
@@ -246,7 +253,7 @@ impl OnnxEngine {
         engine.take = take;
         engine.dims = dims;
         engine.id = format!(
-            "ONNX model {} (SHA-256 {}), input {} x {} {}, mean {:?}, std {:?}, output {:?}{}",
+            "ONNX model {} (SHA-256 {}), input {} x {} {}, mean {:?}, std {:?}, output {:?}{}, {PREPARATION}",
             path.file_name()
                 .map(|f| f.to_string_lossy().to_string())
                 .unwrap_or_default(),
@@ -262,7 +269,7 @@ impl OnnxEngine {
             output_name,
             match take {
                 Take::AsIs => "",
-                Take::Pool => " averaged over height and width",
+                Take::Pool | Take::PoolLast => " averaged over height and width",
                 Take::FirstToken => " first token",
             }
         );
@@ -334,6 +341,14 @@ impl OnnxEngine {
                         item.chunks(area)
                             .map(|c| c.iter().sum::<f32>() / area as f32)
                             .collect()
+                    }
+                    Take::PoolLast => {
+                        let (area, c) = (shape[1] * shape[2], shape[3]);
+                        let mut sums = vec![0f32; c];
+                        for px in item.chunks(c) {
+                            sums.iter_mut().zip(px).for_each(|(s, v)| *s += v);
+                        }
+                        sums.iter().map(|s| s / area as f32).collect()
                     }
                 }
             })

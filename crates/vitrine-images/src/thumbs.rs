@@ -104,10 +104,23 @@ pub fn largest_thumbnail(
     cache: Option<&crate::cache::ThumbCache>,
     counts: &CacheCounts,
 ) -> (Made, Digest) {
+    largest_thumbnail_from(path, plan, cache, counts, true)
+}
+
+/// [`largest_thumbnail`], made from the file even when the cache holds it when `use_cached` is
+/// false (and stored in the cache all the same): the pixels of a fresh thumbnail, not of the
+/// cache's JPEG of it.
+pub fn largest_thumbnail_from(
+    path: &Path,
+    plan: &SheetPlan,
+    cache: Option<&crate::cache::ThumbCache>,
+    counts: &CacheCounts,
+    use_cached: bool,
+) -> (Made, Digest) {
     use std::sync::atomic::Ordering::Relaxed;
     let largest = *plan.cells.last().expect("at least one level");
     let key = cache.and_then(|c| c.key(path));
-    if let (Some(c), Some(k)) = (cache, &key) {
+    if let (Some(c), Some(k), true) = (cache, &key, use_cached) {
         match c.get(k) {
             crate::cache::Lookup::Hit(e) => {
                 counts.reused.fetch_add(1, Relaxed);
