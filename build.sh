@@ -109,6 +109,20 @@ PY
   rm -rf "$tmp"
 }
 
+# The Python wheel (maturin, PyO3; the viewer files compiled in), installed into the venv and used
+# by tests/python/notebook.py from outside the checkout.
+check_wheel() {
+  "$CACHE/venv/bin/python" -c "import maturin, pandas" 2>/dev/null ||
+    "$CACHE/venv/bin/pip" install --progress-bar on maturin pandas
+  rm -rf target/wheels
+  "$CACHE/venv/bin/maturin" build --release --locked -m crates/vitrine-py/Cargo.toml -o target/wheels
+  "$CACHE/venv/bin/pip" install --force-reinstall --no-deps target/wheels/vitrine-*.whl
+  local tmp root="$PWD"
+  tmp="$(mktemp -d)"
+  (cd "$tmp" && "$CACHE/venv/bin/python" "$root/tests/python/notebook.py" "$tmp/work")
+  rm -rf "$tmp"
+}
+
 # Browser-test tools: Debian's Chromium (test tools cannot download their own here) and playwright-core.
 setup_browser() {
   if [ ! -x /usr/bin/chromium ]; then
@@ -138,6 +152,8 @@ run_tests() {
   build_demo
   echo "[test] the vitrine binary alone (viewer compiled in, no checkout beside it)"
   check_binary_alone
+  echo "[test] the Python package: wheel built with maturin, installed, used as a notebook would"
+  check_wheel
   echo "[test] viewer in headless Chromium (software WebGL)"
   VITRINE_BIN="$PWD/target/release/vitrine" VITRINE_ATLAS="$PWD/demo-atlas/out" \
     VITRINE_CATALOGUE="$CACHE/demo-source/records.csv" VITRINE_ARTIFACTS="$PWD/tests/artifacts" \

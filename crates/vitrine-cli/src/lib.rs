@@ -18,6 +18,61 @@ pub mod measure;
 pub mod progress;
 pub mod serve;
 
+use clap::{Parser, Subcommand};
+
+/// The command line: one subcommand.
+#[derive(Parser)]
+#[command(
+    name = "vitrine",
+    version,
+    about = "Build and share image-collection atlases"
+)]
+pub struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    Build(Box<build::BuildArgs>),
+    Serve(serve::ServeArgs),
+    Inspect(inspect::InspectArgs),
+    Export(export::ExportArgs),
+    Corpus(Box<corpus::CorpusArgs>),
+}
+
+impl Cli {
+    /// The process's own arguments (help, version and flag errors are printed and end the process).
+    pub fn parse_args() -> Cli {
+        Cli::parse()
+    }
+
+    /// Arguments given as words (the first is the program's name); a flag error is returned with
+    /// clap's message, help and version as the text to show.
+    pub fn from_words<I, T>(words: I) -> Result<Cli, String>
+    where
+        I: IntoIterator<Item = T>,
+        T: Into<std::ffi::OsString> + Clone,
+    {
+        Cli::try_parse_from(words).map_err(|e| e.render().to_string())
+    }
+}
+
+/// Runs one command.
+pub fn run(cli: Cli) -> anyhow::Result<()> {
+    match cli.command {
+        Command::Build(a) => {
+            keep_freed_memory();
+            build::run(*a)
+        }
+        // The server gives back what its connections freed (it runs for days).
+        Command::Serve(a) => serve::run(a),
+        Command::Inspect(a) => inspect::run(a),
+        Command::Export(a) => export::run(a),
+        Command::Corpus(a) => corpus::run(*a),
+    }
+}
+
 /// Tells the allocator (mimalloc, the binaries' global allocator) to keep freed memory for reuse
 /// instead of returning it to the system a few milliseconds later: the map engine frees and
 /// allocates buffers of the same sizes every round, and memory handed back has to be faulted in
