@@ -281,44 +281,40 @@ pub fn read_parquet(path: &Path, key: Option<&str>) -> Result<VectorFile, InputE
 /// The vectors (and ids) of an Arrow IPC file or stream.
 pub fn read_arrow(path: &Path, key: Option<&str>) -> Result<VectorFile, InputError> {
     use std::io::Read;
-    let bad = bad(path);
     let mut head = [0u8; 6];
     let is_file = std::fs::File::open(path)
         .and_then(|mut f| f.read_exact(&mut head))
         .is_ok()
         && &head == b"ARROW1";
-    let file =
-        std::io::BufReader::new(std::fs::File::open(path).map_err(|e| InputError::io(path, e))?);
-    let not_arrow = |e: ArrowError| bad(format!("not an Arrow IPC file this build reads: {e}"));
-    let (cols, matrix, ids) = if is_file {
-        let probe = arrow_ipc::reader::FileReader::try_new(file, None).map_err(not_arrow)?;
-        let cols = choose(&probe.schema(), key).map_err(&bad)?;
-        let mut wanted = vec![cols.vectors];
-        wanted.extend(cols.ids);
-        let reader = arrow_ipc::reader::FileReader::try_new(
-            std::io::BufReader::new(
-                std::fs::File::open(path).map_err(|e| InputError::io(path, e))?,
-            ),
-            Some(wanted),
-        )
-        .map_err(not_arrow)?;
-        let (m, ids) = collect(&cols, reader).map_err(&bad)?;
-        (cols, m, ids)
+    if is_file {
+        read_ipc(path, key, |f, columns| {
+            arrow_ipc::reader::FileReader::try_new(f, columns)
+        })
     } else {
-        let probe = arrow_ipc::reader::StreamReader::try_new(file, None).map_err(not_arrow)?;
-        let cols = choose(&probe.schema(), key).map_err(&bad)?;
-        let mut wanted = vec![cols.vectors];
-        wanted.extend(cols.ids);
-        let reader = arrow_ipc::reader::StreamReader::try_new(
-            std::io::BufReader::new(
-                std::fs::File::open(path).map_err(|e| InputError::io(path, e))?,
-            ),
-            Some(wanted),
-        )
-        .map_err(not_arrow)?;
-        let (m, ids) = collect(&cols, reader).map_err(&bad)?;
-        (cols, m, ids)
+        read_ipc(path, key, |f, columns| {
+            arrow_ipc::reader::StreamReader::try_new(f, columns)
+        })
+    }
+}
+
+/// An Arrow IPC reader opened twice by `open`: for its schema, then for the chosen columns only.
+fn read_ipc<R: arrow_array::RecordBatchReader>(
+    path: &Path,
+    key: Option<&str>,
+    open: impl Fn(std::io::BufReader<std::fs::File>, Option<Vec<usize>>) -> Result<R, ArrowError>,
+) -> Result<VectorFile, InputError> {
+    let bad = bad(path);
+    let file = || {
+        std::fs::File::open(path)
+            .map(std::io::BufReader::new)
+            .map_err(|e| InputError::io(path, e))
     };
+    let not_arrow = |e: ArrowError| bad(format!("not an Arrow IPC file this build reads: {e}"));
+    let cols = choose(&open(file()?, None).map_err(not_arrow)?.schema(), key).map_err(&bad)?;
+    let mut wanted = vec![cols.vectors];
+    wanted.extend(cols.ids);
+    let reader = open(file()?, Some(wanted)).map_err(not_arrow)?;
+    let (matrix, ids) = collect(&cols, reader).map_err(&bad)?;
     Ok(VectorFile {
         matrix,
         ids,

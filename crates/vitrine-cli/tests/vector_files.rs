@@ -13,6 +13,20 @@ fn rows(p: &Path, key: Option<&str>) -> (Vec<f32>, Option<Vec<String>>) {
     (f.matrix.data, f.ids)
 }
 
+/// Builds an atlas from `vectors` and records.csv (the records in reverse order) and checks that
+/// each item is the record its vector's id names (`ids`: the file's row order).
+fn built_items_carry_the_files_ids(d: &Path, vectors: &str, ids: &[String]) {
+    let _ = std::fs::remove_dir_all(d.join("atlas"));
+    common::build_atlas(d, &["--vectors", vectors, "--catalogue", "records.csv"]);
+    let atlas = vitrine_build::read::Atlas::open(&d.join("atlas")).unwrap();
+    let atlas_ids = atlas.ids().unwrap();
+    let rows_of: Vec<u32> = atlas.array(&atlas.manifest.source_rows).unwrap();
+    assert_eq!(rows_of.len(), ids.len());
+    for (k, &r) in rows_of.iter().enumerate() {
+        assert_eq!(atlas_ids.get(k), ids[r as usize]);
+    }
+}
+
 #[test]
 fn npz_and_safetensors_read_as_the_npy_they_hold_with_their_ids() {
     let dir = tempfile::tempdir().unwrap();
@@ -89,13 +103,7 @@ with open(f"{d}/records.csv", "w") as f:
     assert!(e.contains("\"nope\"") && e.contains("ids, vectors"), "{e}");
 
     // Built: the .npz's ids match the catalogue's records whatever their order.
-    common::build_atlas(d, &["--vectors", "a.npz", "--catalogue", "records.csv"]);
-    let atlas = vitrine_build::read::Atlas::open(&d.join("atlas")).unwrap();
-    let atlas_ids = atlas.ids().unwrap();
-    let rows_of: Vec<u32> = atlas.array(&atlas.manifest.source_rows).unwrap();
-    for (k, &r) in rows_of.iter().enumerate() {
-        assert_eq!(atlas_ids.get(k), ids[r as usize]);
-    }
+    built_items_carry_the_files_ids(d, "a.npz", &ids);
     // Ids both in the file and given: refused.
     let o = common::quick_build()
         .current_dir(d)
@@ -237,14 +245,5 @@ with open(f"{d}/ids.txt", "w") as f:
     assert!(e.contains("fake.parquet: not a Parquet file"), "{e}");
 
     // Built: the table's ids match the catalogue's records whatever their order.
-    common::build_atlas(
-        d,
-        &["--vectors", "zstd.parquet", "--catalogue", "records.csv"],
-    );
-    let atlas = vitrine_build::read::Atlas::open(&d.join("atlas")).unwrap();
-    let atlas_ids = atlas.ids().unwrap();
-    let rows_of: Vec<u32> = atlas.array(&atlas.manifest.source_rows).unwrap();
-    for (k, &r) in rows_of.iter().enumerate() {
-        assert_eq!(atlas_ids.get(k), ids[r as usize]);
-    }
+    built_items_carry_the_files_ids(d, "zstd.parquet", &ids);
 }

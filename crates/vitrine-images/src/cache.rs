@@ -165,16 +165,24 @@ impl ThumbCache {
             .map_err(|e| std::io::Error::other(e.to_string()))?;
         out.extend_from_slice(&head);
         out.extend_from_slice(&jpeg);
-        let parent = key.parent().expect("entries live in a subfolder");
-        std::fs::create_dir_all(parent)?;
-        let tmp = parent.join(format!(
-            ".{}.{}.tmp",
-            key.file_name().unwrap().to_string_lossy(),
-            std::process::id()
-        ));
-        std::fs::write(&tmp, &out)?;
-        std::fs::rename(&tmp, key)
+        write_whole(key, &out)
     }
+}
+
+/// Writes `bytes` at `path` under a temporary name first (one of its own for each write, so that
+/// two threads writing one entry do not mix) and renames it into place: a crash leaves no half file.
+fn write_whole(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
+    static WRITES: std::sync::atomic::AtomicU64 = std::sync::atomic::AtomicU64::new(0);
+    let parent = path.parent().expect("entries live in a subfolder");
+    std::fs::create_dir_all(parent)?;
+    let tmp = parent.join(format!(
+        ".{}.{}-{}.tmp",
+        path.file_name().unwrap().to_string_lossy(),
+        std::process::id(),
+        WRITES.fetch_add(1, std::sync::atomic::Ordering::Relaxed)
+    ));
+    std::fs::write(&tmp, bytes)?;
+    std::fs::rename(&tmp, path)
 }
 
 impl ThumbCache {
@@ -215,16 +223,7 @@ impl ThumbCache {
         }
         let sum = sha256_of(&out);
         out.extend_from_slice(&sum);
-        let path = Self::vector_path(key, engine);
-        let parent = path.parent().expect("entries live in a subfolder");
-        std::fs::create_dir_all(parent)?;
-        let tmp = parent.join(format!(
-            ".{}.{}.tmp",
-            path.file_name().unwrap().to_string_lossy(),
-            std::process::id()
-        ));
-        std::fs::write(&tmp, &out)?;
-        std::fs::rename(&tmp, &path)
+        write_whole(&Self::vector_path(key, engine), &out)
     }
 }
 
