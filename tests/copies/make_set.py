@@ -9,7 +9,7 @@ a print in ten books). Look-alikes are hard negatives: the same disc layout on a
 and the same texture with the discs moved. Plain other scenes fill the collection.
 
 The vectors are "tiny images" (the picture at 16 x 16, each channel's values standardised), a
-published baseline descriptor (Torralba, Fergus and Freeman, 2008); a collection's real vectors
+published baseline descriptor ("80 Million Tiny Images", IEEE TPAMI 2008); a collection's real vectors
 would come from a neural network and sit copies closer still.
 
 Writes into DIR: images/*.jpg, catalogue.csv (id, scene, role), vectors.npy, ids.txt.

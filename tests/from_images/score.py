@@ -1,7 +1,7 @@
 """10-NN label accuracy of an atlas's neighbour graph (each item's 10 nearest by the atlas's own
 neighbour lists, majority label, ties to the nearest), beside the same figure for a baseline
-descriptor computed here: the picture at 16 x 16 in grey, standardised ("tiny images", Torralba,
-Fergus and Freeman 2008), its exact neighbours by scikit-learn's NearestNeighbors.
+descriptor computed here: the picture at 16 x 16 in grey, standardised ("tiny images", after
+"80 Million Tiny Images", IEEE TPAMI 2008), its exact neighbours by scikit-learn's NearestNeighbors.
 
 Run: python score.py DIR   (DIR holds catalogue.csv, images/ and atlas/)
 Prints: atlas-accuracy baseline-accuracy items

@@ -5,18 +5,19 @@
 //! Four blocks of hand-made features from the literature, each normalised on its own and weighted,
 //! then the whole vector brought to unit length (so that cosine and Euclidean distance rank alike):
 //! - **colour layout**: the mean CIELAB colour of each cell of a 4 x 4 grid (after the "tiny
-//!   image" idea of Torralba, Fergus and Freeman 2008, in a perceptual space: CIE 15:2004 Lab from
+//!   images" of "80 Million Tiny Images", IEEE TPAMI 2008, in a perceptual space: CIE 15:2004 Lab from
 //!   sRGB per IEC 61966-2-1, D65 white). Not normalised per picture: light and dark stay apart.
-//! - **colour distribution**: a joint Lab histogram, 4 x 5 x 5 bins, soft-binned (colour indexing
-//!   after Swain and Ballard 1991).
+//! - **colour distribution**: a joint Lab histogram, 4 x 5 x 5 bins, soft-binned (after "Color
+//!   Indexing", IJCV 1991).
 //! - **edge orientation**: histograms of gradient orientation weighted by magnitude, 9 unsigned
 //!   bins per cell of a 4 x 4 grid on the lightness, and of a 2 x 2 grid at half the resolution
-//!   (after Dalal and Triggs 2005); they hold the drawing's layout of lines and shapes.
+//!   (after "Histograms of Oriented Gradients for Human Detection", CVPR 2005); they hold the drawing's layout of lines and shapes.
 //! - **texture**: rotation-invariant uniform local binary patterns, 8 neighbours at radius 1, at
-//!   two scales (Ojala, Pietikäinen and Mäenpää 2002): hatching, grain, half-tone.
+//!   two scales ("Multiresolution Gray-Scale and Rotation Invariant Texture Classification with
+//!   Local Binary Patterns", IEEE TPAMI 2002): hatching, grain, half-tone.
 //!
-//! Histograms are square-rooted before normalising (the Hellinger kernel, as in Arandjelović and
-//! Zisserman 2012), so that one dominant bin does not decide every distance.
+//! Histograms are square-rooted before normalising (the Hellinger kernel, as in "Three Things
+//! Everyone Should Know to Improve Object Retrieval", CVPR 2012), so that one dominant bin does not decide every distance.
 
 use image::RgbImage;
 
