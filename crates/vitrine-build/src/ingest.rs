@@ -14,7 +14,9 @@ use crate::options::BuildOptions;
 use crate::progress::Progress;
 use crate::report::Laps;
 
-pub const IMAGE_EXTENSIONS: &[&str] = &["jpg", "jpeg", "png", "tif", "tiff", "webp", "gif", "bmp"];
+pub const IMAGE_EXTENSIONS: &[&str] = &[
+    "jpg", "jpeg", "png", "tif", "tiff", "webp", "gif", "bmp", "jp2", "jpx", "j2k", "j2c",
+];
 
 /// A date field's name and each item's dating (None: undated).
 pub type Datings = (String, Vec<Option<YearRange>>);

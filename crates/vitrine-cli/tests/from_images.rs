@@ -123,7 +123,21 @@ fn a_folder_alone_makes_an_atlas_and_a_rebuild_reuses_the_vectors() {
         .unwrap();
     std::fs::write(images.join("broken.jpg"), b"not a picture").unwrap();
     std::fs::write(images.join("notes.txt"), b"not an image file").unwrap();
-    expected.extend(["twin.png", "twin.jpg", "twin.jpg.png", "broken"].map(String::from));
+    // A JPEG 2000 master (written by Pillow with OpenJPEG).
+    common::run_python(
+        "import sys\nfrom PIL import Image\nImage.new('RGB', (300, 200), (90, 140, 30)).save(sys.argv[1], 'JPEG2000')",
+        &[&images.join("box 2/master.jp2")],
+    );
+    expected.extend(
+        [
+            "twin.png",
+            "twin.jpg",
+            "twin.jpg.png",
+            "broken",
+            "box 2/master",
+        ]
+        .map(String::from),
+    );
     let cache = d.join("cache");
     let build_with = |out: &str, extra: &[&str]| {
         let o = common::vitrine()
@@ -141,7 +155,7 @@ fn a_folder_alone_makes_an_atlas_and_a_rebuild_reuses_the_vectors() {
     let notes = build("first");
     assert!(
         notes.contains(
-            "vectors: 28 x 348 computed from the images by the vitrine built-in descriptor 1"
+            "vectors: 29 x 348 computed from the images by the vitrine built-in descriptor 1"
         ),
         "{notes}"
     );
@@ -150,7 +164,7 @@ fn a_folder_alone_makes_an_atlas_and_a_rebuild_reuses_the_vectors() {
         "{notes}"
     );
     let again = build("second");
-    assert!(again.contains("(27 taken from the cache)"), "{again}");
+    assert!(again.contains("(28 taken from the cache)"), "{again}");
 
     let atlas = vitrine_build::read::Atlas::open(&d.join("first")).unwrap();
     let table = atlas.ids().unwrap();
@@ -172,7 +186,7 @@ fn a_folder_alone_makes_an_atlas_and_a_rebuild_reuses_the_vectors() {
     let report: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(d.join("first/build-report.json")).unwrap())
             .unwrap();
-    assert_eq!(report["thumbnails_made"], 27, "{report}");
+    assert_eq!(report["thumbnails_made"], 28, "{report}");
     assert_eq!(report["image_problems"].as_array().unwrap().len(), 1);
     // The same vectors, so the same map: from the cache, and computed again when the cache holds
     // the thumbnails but not the vectors (from the fresh thumbnails, not the cache's JPEGs).
@@ -180,7 +194,7 @@ fn a_folder_alone_makes_an_atlas_and_a_rebuild_reuses_the_vectors() {
         .into_iter()
         .filter(|p| p.extension().is_some_and(|e| e == "vec"))
         .collect();
-    assert_eq!(vector_files.len(), 27);
+    assert_eq!(vector_files.len(), 28);
     vector_files
         .iter()
         .for_each(|p| std::fs::remove_file(p).unwrap());
@@ -207,14 +221,14 @@ fn a_folder_alone_makes_an_atlas_and_a_rebuild_reuses_the_vectors() {
         &std::fs::read_to_string(d.join("scans/inner/build-report.json")).unwrap(),
     )
     .unwrap();
-    assert_eq!(report["items"], 28);
+    assert_eq!(report["items"], 29);
     assert_eq!(
         report["image_problems"].as_array().unwrap().len(),
         1,
         "{report}"
     );
     let notes = build("fourth");
-    assert!(notes.contains("vectors: 28 x 348"), "{notes}");
+    assert!(notes.contains("vectors: 29 x 348"), "{notes}");
 }
 
 /// Every file below `dir`.

@@ -22,7 +22,8 @@ use image::RgbImage;
 
 const MAGIC: &[u8; 4] = b"VTC4";
 /// Bumped whenever decoding or fitting changes what a thumbnail looks like (or the entry's layout).
-const VERSION: u32 = 4;
+// 5: embedded colour profiles applied, JPEG 2000 read.
+const VERSION: u32 = 5;
 
 /// What an entry says of its image, before the thumbnail's JPEG bytes: written with bincode
 /// (standard configuration), which gives its length back on reading.

@@ -5,8 +5,13 @@
 //! Deflate, the first page of a multi-page file; WebP; the first frame of a GIF; BMP). The EXIF
 //! orientation tag is honoured (all eight values, as the EXIF 2.32 / CIPA DC-008 Orientation tag
 //! defines them), 16-bit samples are rounded to 8 bits, greyscale is spread to RGB, and alpha is
-//! flattened onto the paper colour. Colour profiles are not applied: pixels are taken as sRGB, and
-//! CMYK is converted by the usual naive formula.
+//! flattened onto the paper colour. JPEG 2000 (`.jp2`, `.jpx` and raw codestreams) is read too, at
+//! a reduced resolution level when thumbnails need no more.
+//!
+//! An embedded ICC profile is applied ([`crate::colour`]): RGB, greyscale and CMYK pixels with a
+//! profile come out in sRGB. Pixels without one are taken as sRGB, and CMYK without one is
+//! converted by the usual naive formula. A profile that cannot be read or does not fit the pixels
+//! is left aside (the pixels taken as they are), and [`Decoded::colour`] says why.
 //!
 //! A file that cannot be used yields an [`ImageFailure`] that says which of the failure classes it
 //! is and why, so that the build can draw a placeholder and list it in the build report.
@@ -166,6 +171,8 @@ pub struct Decoded {
     pub rgb: RgbImage,
     pub width: u32,
     pub height: u32,
+    /// Why the image's embedded colour profile was not applied, when it was not.
+    pub colour: Option<String>,
     /// The share of the decoding budget the full-size image holds: given back when it is dropped
     /// (after the thumbnail is made from it), not when decoding ends.
     _budget: Option<Permit>,
@@ -189,21 +196,28 @@ pub fn decode_file(path: &Path, max_pixels: u64) -> Result<(Decoded, Vec<u8>), I
 /// Decodes an image for thumbnails whose long side is at most `long_side`. A JPEG whose long side
 /// is at least twice that is decoded at a reduced scale in the DCT domain (1/2, 1/4 or 1/8: the
 /// smallest that still gives `long_side` pixels on the long side), which skips most of the inverse
-/// transform and all of the full-size pixels; other images are decoded whole.
+/// transform and all of the full-size pixels; a JPEG 2000 image at the matching resolution level
+/// of its wavelet pyramid; other images are decoded whole.
 pub fn decode_for(bytes: &[u8], max_pixels: u64, long_side: u32) -> Result<Decoded, ImageFailure> {
-    if let Some(d) = reduced_jpeg(bytes, max_pixels, long_side)? {
+    if is_jpeg2000(bytes) {
+        return jpeg2000(bytes, max_pixels, Some(long_side));
+    }
+    if let Some(d) = jpeg_decoder_path(bytes, max_pixels, Some(long_side))? {
         return Ok(d);
     }
-    decode(bytes, max_pixels)
+    decode_general(bytes, max_pixels, true)
 }
 
-/// The reduced-scale JPEG path of [`decode_for`]; `None` when it does not apply (not a JPEG,
-/// not 8-bit RGB or greyscale, or too small to gain).
-fn reduced_jpeg(
+/// The JPEG path through `jpeg-decoder`: a reduced DCT scale for 8-bit RGB or greyscale images at
+/// least twice as large as thumbnails of `long_side` need, and every CMYK image with an embedded
+/// profile (whose ink amounts the general path would turn into RGB by the naive formula before the
+/// profile could be applied). `None` when it does not apply (not a JPEG, or neither case).
+fn jpeg_decoder_path(
     bytes: &[u8],
     max_pixels: u64,
-    long_side: u32,
+    long_side: Option<u32>,
 ) -> Result<Option<Decoded>, ImageFailure> {
+    use jpeg_decoder::PixelFormat;
     if !bytes.starts_with(&[0xFF, 0xD8, 0xFF]) {
         return Ok(None);
     }
@@ -217,18 +231,38 @@ fn reduced_jpeg(
     };
     let (w, h) = (info.width as u32, info.height as u32);
     let long = w.max(h);
-    let rgb = matches!(
-        info.pixel_format,
-        jpeg_decoder::PixelFormat::RGB24 | jpeg_decoder::PixelFormat::L8
-    );
-    if !rgb || long < 2 * long_side.max(1) || (w as u64) * (h as u64) > max_pixels {
+    // The APP2 segments that carry a profile come before the frame header `read_info` stops at.
+    let icc = d.icc_profile();
+    let cmyk = info.pixel_format == PixelFormat::CMYK32 && icc.is_some();
+    let rgb = matches!(info.pixel_format, PixelFormat::RGB24 | PixelFormat::L8);
+    let reduce = long_side.is_some_and(|side| long >= 2 * side.max(1));
+    let long_side = long_side.unwrap_or(long);
+    if (w as u64) * (h as u64) > max_pixels || !(cmyk || (rgb && reduce)) {
         return Ok(None);
     }
     require_complete_jpeg(bytes)?;
     let need = |side: u32| ((side as u64 * long_side as u64).div_ceil(long as u64)).max(1) as u16;
-    let (sw, sh) = d
-        .scale(need(w), need(h))
-        .map_err(|e| ImageFailure::Corrupt(e.to_string()))?;
+    let (sw, sh) = if reduce {
+        d.scale(need(w), need(h))
+            .map_err(|e| ImageFailure::Corrupt(e.to_string()))?
+    } else {
+        (w as u16, h as u16)
+    };
+    let (sw, sh) = (sw as u32, sh as u32);
+    // A full-size CMYK decode holds the ink amounts and the RGB made from them.
+    let permit = if reduce {
+        None
+    } else {
+        let peak = 7 * sw as u64 * sh as u64;
+        Some(
+            take_budget(peak).map_err(|budget| ImageFailure::OverBudget {
+                width: w,
+                height: h,
+                bytes: peak,
+                budget,
+            })?,
+        )
+    };
     let orientation = d
         .exif_data()
         .and_then(image::metadata::Orientation::from_exif_chunk)
@@ -240,18 +274,34 @@ fn reduced_jpeg(
         jpeg_decoder::Error::Unsupported(u) => ImageFailure::Unsupported(format!("{u:?}")),
         other => ImageFailure::Corrupt(other.to_string()),
     })?;
-    let (sw, sh) = (sw as u32, sh as u32);
+    let short = || ImageFailure::Corrupt("the decoded pixels do not fill the image".into());
+    let mut colour = None;
     let img = match info.pixel_format {
-        jpeg_decoder::PixelFormat::L8 => {
-            image::GrayImage::from_raw(sw, sh, pixels).map(DynamicImage::ImageLuma8)
+        PixelFormat::CMYK32 => {
+            if pixels.len() < sw as usize * sh as usize * 4 {
+                return Err(short());
+            }
+            let icc = icc
+                .as_deref()
+                .expect("CMYK is decoded here only with a profile");
+            match crate::colour::convert(icc, crate::colour::Samples::Cmyk, &pixels) {
+                Ok(Some(rgb)) => RgbImage::from_raw(sw, sh, rgb).map(DynamicImage::ImageRgb8),
+                Ok(None) => unreachable!("a CMYK profile is never sRGB"),
+                Err(why) => {
+                    colour = Some(why);
+                    RgbImage::from_raw(sw, sh, naive_cmyk(&pixels)).map(DynamicImage::ImageRgb8)
+                }
+            }
         }
+        PixelFormat::L8 => image::GrayImage::from_raw(sw, sh, pixels).map(DynamicImage::ImageLuma8),
         _ => RgbImage::from_raw(sw, sh, pixels).map(DynamicImage::ImageRgb8),
     };
-    let Some(mut img) = img else {
-        return Err(ImageFailure::Corrupt(
-            "the decoded pixels do not fill the image".into(),
-        ));
-    };
+    let mut img = img.ok_or_else(short)?;
+    if let (Some(icc), false) = (&icc, cmyk) {
+        let (converted, why) = crate::colour::to_srgb(img, icc);
+        img = converted;
+        colour = why;
+    }
     img.apply_orientation(orientation);
     let (width, height) = if is_transposing(orientation) {
         (h, w)
@@ -262,8 +312,74 @@ fn reduced_jpeg(
         rgb: to_rgb8(img),
         width,
         height,
-        _budget: None,
+        colour,
+        _budget: permit,
     }))
+}
+
+/// CMYK ink amounts (0 = no ink) to RGB by the usual naive formula, R = (255 - C)(255 - K) / 255,
+/// for CMYK whose profile cannot be used.
+fn naive_cmyk(cmyk: &[u8]) -> Vec<u8> {
+    cmyk.chunks_exact(4)
+        .flat_map(|p| {
+            let k = 255 - p[3] as u32;
+            [0, 1, 2].map(|c| (((255 - p[c] as u32) * k + 127) / 255) as u8)
+        })
+        .collect()
+}
+
+/// A JP2 or JPX file (the JPEG 2000 signature box, ISO/IEC 15444-1 Annex I.5.1) or a raw
+/// codestream (its SOC and SIZ markers, A.4.1 and A.5.1).
+fn is_jpeg2000(bytes: &[u8]) -> bool {
+    bytes.starts_with(&[0, 0, 0, 0x0C, 0x6A, 0x50, 0x20, 0x20])
+        || bytes.starts_with(&[0xFF, 0x4F, 0xFF, 0x51])
+}
+
+/// Decodes a JPEG 2000 image (`hayro-jpeg2000`, pure Rust): for thumbnails whose long side is at
+/// most `long_side`, at the coarsest resolution level of the wavelet pyramid that still gives that
+/// many pixels (the levels halve the size, so most of the decoding is skipped for a large master).
+/// CMYK is converted by the decoder (through its embedded profile, else a press profile); an RGB or
+/// grey profile is applied here as for every format.
+fn jpeg2000(
+    bytes: &[u8],
+    max_pixels: u64,
+    long_side: Option<u32>,
+) -> Result<Decoded, ImageFailure> {
+    use hayro_jpeg2000::{DecodeSettings, Image};
+    let refused = |e: hayro_jpeg2000::DecodeError| {
+        use hayro_jpeg2000::{DecodeError as E, FormatError as F, MarkerError as M};
+        let why = format!("JPEG 2000: {e}");
+        match e {
+            E::Format(F::Unsupported) | E::Marker(M::Unsupported) | E::Color(_) => {
+                ImageFailure::Unsupported(why)
+            }
+            _ => ImageFailure::Corrupt(why),
+        }
+    };
+    let full = Image::new(bytes, &DecodeSettings::default()).map_err(refused)?;
+    let (w, h) = (full.width(), full.height());
+    if (w as u64) * (h as u64) > max_pixels {
+        return Err(ImageFailure::TooLarge {
+            width: w,
+            height: h,
+            limit: max_pixels,
+        });
+    }
+    let long = w.max(h) as u64;
+    let image = match long_side {
+        Some(side) if long >= 2 * side.max(1) as u64 => {
+            let need = |n: u32| ((n as u64 * side as u64).div_ceil(long)).max(1) as u32;
+            let settings = DecodeSettings {
+                target_resolution: Some((need(w), need(h))),
+                ..DecodeSettings::default()
+            };
+            Image::new(bytes, &settings).map_err(refused)?
+        }
+        _ => full,
+    };
+    let mut d = from_decoder(image, bytes, max_pixels)?;
+    (d.width, d.height) = (w, h);
+    Ok(d)
 }
 
 fn is_transposing(o: image::metadata::Orientation) -> bool {
@@ -273,8 +389,16 @@ fn is_transposing(o: image::metadata::Orientation) -> bool {
 
 /// Decodes an image held in memory.
 pub fn decode(bytes: &[u8], max_pixels: u64) -> Result<Decoded, ImageFailure> {
+    decode_general(bytes, max_pixels, false)
+}
+
+/// [`decode`]; `jpeg_seen` when [`jpeg_decoder_path`] has already declined the bytes.
+fn decode_general(bytes: &[u8], max_pixels: u64, jpeg_seen: bool) -> Result<Decoded, ImageFailure> {
     if bytes.is_empty() {
         return Err(ImageFailure::Truncated("the file is empty".into()));
+    }
+    if is_jpeg2000(bytes) {
+        return jpeg2000(bytes, max_pixels, None);
     }
     let reader = ImageReader::new(Cursor::new(bytes))
         .with_guessed_format()
@@ -287,10 +411,25 @@ pub fn decode(bytes: &[u8], max_pixels: u64) -> Result<Decoded, ImageFailure> {
     })?;
     if format == image::ImageFormat::Jpeg {
         require_complete_jpeg(bytes)?;
+        if !jpeg_seen {
+            if let Some(d) = jpeg_decoder_path(bytes, max_pixels, None)? {
+                return Ok(d);
+            }
+        }
     }
     let mut reader = reader;
     reader.no_limits();
-    let mut decoder = reader.into_decoder().map_err(failure)?;
+    let decoder = reader.into_decoder().map_err(failure)?;
+    from_decoder(decoder, bytes, max_pixels)
+}
+
+/// Decodes through an `image` decoder: the size checked against the limit and the budget, the
+/// embedded profile applied, the orientation honoured.
+fn from_decoder(
+    mut decoder: impl ImageDecoder,
+    bytes: &[u8],
+    max_pixels: u64,
+) -> Result<Decoded, ImageFailure> {
     let (w, h) = decoder.dimensions();
     if (w as u64) * (h as u64) > max_pixels {
         return Err(ImageFailure::TooLarge {
@@ -318,7 +457,37 @@ pub fn decode(bytes: &[u8], max_pixels: u64) -> Result<Decoded, ImageFailure> {
         bytes: peak,
         budget,
     })?;
-    let img = DynamicImage::from_decoder(decoder).map_err(failure)?;
+    // Taken before the pixels, which consume the decoder; a profile that cannot be taken out of
+    // the file is no reason to refuse its pixels.
+    let icc = decoder
+        .icc_profile()
+        .ok()
+        .flatten()
+        .or_else(|| tiff_icc(bytes));
+    let cmyk = matches!(
+        decoder.original_color_type(),
+        image::ExtendedColorType::Cmyk8 | image::ExtendedColorType::Cmyk16
+    );
+    let mut colour = None;
+    let img = match (&icc, cmyk) {
+        // The `image` crate hands CMYK over already turned into RGB by the naive formula: the
+        // ink amounts are read again where the profile needs them.
+        (Some(icc), true) => match cmyk_tiff(bytes, icc) {
+            Some(Ok(rgb)) => DynamicImage::ImageRgb8(rgb),
+            Some(Err(why)) => {
+                colour = Some(why);
+                DynamicImage::from_decoder(decoder).map_err(failure)?
+            }
+            None => DynamicImage::from_decoder(decoder).map_err(failure)?,
+        },
+        (Some(icc), false) => {
+            let img = DynamicImage::from_decoder(decoder).map_err(failure)?;
+            let (img, why) = crate::colour::to_srgb(img, icc);
+            colour = why;
+            img
+        }
+        (None, _) => DynamicImage::from_decoder(decoder).map_err(failure)?,
+    };
     let mut rgb = DynamicImage::ImageRgb8(to_rgb8(img));
     rgb.apply_orientation(orientation);
     let (width, height) = (rgb.width(), rgb.height());
@@ -326,8 +495,50 @@ pub fn decode(bytes: &[u8], max_pixels: u64) -> Result<Decoded, ImageFailure> {
         rgb: rgb.into_rgb8(),
         width,
         height,
+        colour,
         _budget: Some(permit),
     })
+}
+
+fn is_tiff(bytes: &[u8]) -> bool {
+    bytes.starts_with(b"II*\0") || bytes.starts_with(b"MM\0*")
+}
+
+/// A TIFF's embedded profile (tag 34675, TIFF/EP and the ICC's TIFF annex), read with the `tiff`
+/// crate: the `image` crate's TIFF decoder does not hand it over.
+fn tiff_icc(bytes: &[u8]) -> Option<Vec<u8>> {
+    if !is_tiff(bytes) {
+        return None;
+    }
+    let mut t = tiff::decoder::Decoder::new(Cursor::new(bytes)).ok()?;
+    t.get_tag_u8_vec(tiff::tags::Tag::IccProfile).ok()
+}
+
+/// An 8-bit CMYK TIFF's ink amounts converted through its profile; `None` when the file is not
+/// one (a CMYK JPEG or WebP, a 16-bit or CMYK-with-alpha TIFF: the naive formula then).
+fn cmyk_tiff(bytes: &[u8], icc: &[u8]) -> Option<Result<RgbImage, String>> {
+    if !is_tiff(bytes) {
+        return None;
+    }
+    let mut t = tiff::decoder::Decoder::new(Cursor::new(bytes))
+        .ok()?
+        .with_limits(tiff::decoder::Limits::unlimited());
+    if t.colortype().ok()? != tiff::ColorType::CMYK(8) {
+        return None;
+    }
+    let (w, h) = t.dimensions().ok()?;
+    let tiff::decoder::DecodingResult::U8(inks) = t.read_image().ok()? else {
+        return None;
+    };
+    if inks.len() < w as usize * h as usize * 4 {
+        return None;
+    }
+    Some(
+        crate::colour::convert(icc, crate::colour::Samples::Cmyk, &inks).map(|rgb| {
+            RgbImage::from_raw(w, h, rgb.expect("a CMYK profile is never sRGB"))
+                .expect("w x h converted pixels")
+        }),
+    )
 }
 
 /// The nearest 8-bit value of a 16-bit sample (v / 257, rounded).

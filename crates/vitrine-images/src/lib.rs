@@ -8,6 +8,7 @@
 //! images, whatever the collection's size.
 
 pub mod cache;
+pub mod colour;
 pub mod copies;
 pub mod decode;
 pub mod describe;
