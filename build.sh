@@ -157,6 +157,7 @@ run_tests() {
   echo "[test] viewer in headless Chromium (software WebGL)"
   VITRINE_BIN="$PWD/target/release/vitrine" VITRINE_ATLAS="$PWD/demo-atlas/out" \
     VITRINE_CATALOGUE="$CACHE/demo-source/records.csv" VITRINE_ARTIFACTS="$PWD/tests/artifacts" \
+    VITRINE_PYTHON="$CACHE/venv/bin/python" \
     node --test tests/browser/
 }
 

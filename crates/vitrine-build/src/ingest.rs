@@ -29,6 +29,18 @@ pub struct Inputs {
     pub image_paths: Option<Vec<Result<PathBuf, String>>>,
     /// How the vectors were computed from the pictures (None: they were read from a file).
     pub described: Option<crate::from_images::Described>,
+    /// What an IIIF source adds: its document for the provenance, notes for the report, and each
+    /// item's Canvas size.
+    pub iiif: Option<IiifUsed>,
+}
+
+/// An IIIF source as the build used it.
+pub struct IiifUsed {
+    /// The top document (address, length, SHA-256).
+    pub document: (String, u64, String),
+    pub notes: Vec<String>,
+    /// Each item's Canvas size (width, height; 0, 0 unknown), item order.
+    pub sizes: Vec<[u32; 2]>,
 }
 
 /// Reads and checks every input of `opts`: the vectors, one row an item, and the rest (the lap
@@ -37,12 +49,21 @@ pub struct Inputs {
 /// from their pictures.
 pub fn read(
     opts: &BuildOptions,
+    iiif: Option<crate::iiif::Source>,
     progress: &dyn Progress,
     laps: &mut Laps,
 ) -> Result<(Matrix, Inputs)> {
     let file = match &opts.vectors {
         Some(path) => Some(read_vectors(path, opts, progress)?),
         None => None,
+    };
+    // An IIIF source's records, pictures and Canvas sizes, by catalogue row.
+    let (iiif_cat, iiif_rows) = match iiif {
+        Some(s) => (
+            Some(s.catalogue),
+            Some((s.paths, s.sizes, s.document, s.notes)),
+        ),
+        None => (None, None),
     };
     let cat = match &opts.catalogue {
         Some(p) => {
@@ -69,7 +90,7 @@ pub fn read(
             }
             Some(c)
         }
-        None => None,
+        None => iiif_cat,
     };
     // A misspelt --date-field is said now, not after hours of computing.
     if let (Some(c), Some(name)) = (&cat, &opts.date_field) {
@@ -80,15 +101,34 @@ pub fn read(
             .images
             .as_ref()
             .expect("options without vectors have images (checked)");
-        let (items, paths) = items_from_images(
-            dir,
-            cat.as_ref(),
-            opts.image_column.as_deref(),
-            &[Some(&opts.out), opts.thumb_cache.as_ref()],
-        )?;
+        let (items, paths) = match &iiif_rows {
+            Some((paths, ..)) => {
+                let ids: Vec<String> = cat
+                    .as_ref()
+                    .expect("an IIIF source gives a catalogue")
+                    .ids()
+                    .map(String::from)
+                    .collect();
+                let rows = (0..ids.len()).collect();
+                (
+                    Items {
+                        ids,
+                        catalogue_rows: Some(rows),
+                    },
+                    paths.clone(),
+                )
+            }
+            None => items_from_images(
+                dir,
+                cat.as_ref(),
+                opts.image_column.as_deref(),
+                &[Some(&opts.out), opts.thumb_cache.as_ref()],
+            )?,
+        };
         laps.lap("read inputs");
         let (vectors, described) = crate::from_images::compute(opts, &paths, progress)?;
         laps.lap("vectors from images");
+        let iiif = iiif_used(iiif_rows, &items);
         return Ok((
             vectors,
             Inputs {
@@ -96,6 +136,7 @@ pub fn read(
                 items,
                 image_paths: Some(paths),
                 described: Some(described),
+                iiif,
             },
         ));
     };
@@ -106,16 +147,26 @@ pub fn read(
     if vectors.rows == 0 {
         bail!("{}: there are no vectors", vfile.display());
     }
-    let image_paths = match &opts.images {
-        Some(dir) => Some(find_images(
+    let image_paths = match (&opts.images, &iiif_rows) {
+        (_, Some((paths, ..))) => Some(
+            items
+                .catalogue_rows
+                .as_ref()
+                .expect("an IIIF source gives a catalogue")
+                .iter()
+                .map(|&r| paths[r].clone())
+                .collect(),
+        ),
+        (Some(dir), None) => Some(find_images(
             dir,
             &items.ids,
             cat.as_ref(),
             items.catalogue_rows.as_deref(),
             opts.image_column.as_deref(),
         )?),
-        None => None,
+        (None, None) => None,
     };
+    let iiif = iiif_used(iiif_rows, &items);
     Ok((
         vectors,
         Inputs {
@@ -123,8 +174,30 @@ pub fn read(
             items,
             image_paths,
             described: None,
+            iiif,
         },
     ))
+}
+
+type IiifRows = (
+    Vec<std::result::Result<PathBuf, String>>,
+    Vec<[u32; 2]>,
+    (String, u64, String),
+    Vec<String>,
+);
+
+/// What the rest of the build keeps of an IIIF source, the Canvas sizes in item order.
+fn iiif_used(rows: Option<IiifRows>, items: &Items) -> Option<IiifUsed> {
+    let (_, sizes, document, notes) = rows?;
+    let sizes = match &items.catalogue_rows {
+        Some(r) => r.iter().map(|&r| sizes[r]).collect(),
+        None => vec![[0, 0]; items.ids.len()],
+    };
+    Some(IiifUsed {
+        document,
+        notes,
+        sizes,
+    })
 }
 
 /// The vectors file and the ids it holds (if any).

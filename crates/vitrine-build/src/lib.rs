@@ -21,6 +21,7 @@ pub mod dates;
 pub mod error;
 pub mod folder;
 pub mod from_images;
+pub mod iiif;
 pub mod ingest;
 pub mod options;
 pub mod pipeline;

@@ -83,6 +83,9 @@ pub struct BuildOptions {
     pub embedded_viewer: &'static [(&'static str, &'static [u8])],
     /// How copies of one picture are found, when there are images (None: not looked for).
     pub copies: Option<crate::copies::CopyRule>,
+    /// An IIIF Manifest or Collection as the catalogue and the pictures (its `long_side` is set
+    /// from the largest thumbnail level).
+    pub iiif: Option<crate::iiif::IiifOptions>,
 }
 
 impl BuildOptions {
@@ -120,6 +123,7 @@ impl BuildOptions {
             viewer: None,
             embedded_viewer: &[],
             copies: Some(crate::copies::CopyRule::default()),
+            iiif: None,
         }
     }
 
@@ -140,9 +144,23 @@ impl BuildOptions {
         if self.decode_memory < 64 << 20 {
             bail!("--decode-memory must be at least 64 (MB)");
         }
+        if let Some(i) = &self.iiif {
+            if self.images.is_some() || self.catalogue.is_some() {
+                bail!("--iiif gives the catalogue and the pictures: leave out --catalogue and --images");
+            }
+            if self.image_column.is_some() {
+                bail!("--image-column names a catalogue column; with --iiif the pictures come from the Canvases");
+            }
+            if i.concurrency == 0 || i.concurrency > 32 {
+                bail!("--iiif-concurrency must be between 1 and 32");
+            }
+            if i.attempts == 0 || i.attempts > 10 {
+                bail!("--iiif-attempts must be between 1 and 10");
+            }
+        }
         if self.vectors.is_none() {
-            if self.images.is_none() {
-                bail!("give --vectors, or --images to compute each item's vector from its picture");
+            if self.images.is_none() && self.iiif.is_none() {
+                bail!("give --vectors, or --images (or --iiif) to compute each item's vector from its picture");
             }
             if self.vector_ids.is_some() {
                 bail!("--vector-ids names the rows of a --vectors file; without one, items are the catalogue's records (or the image files)");

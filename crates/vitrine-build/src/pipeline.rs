@@ -26,7 +26,26 @@ pub fn build(opts: &BuildOptions, progress: &dyn Progress) -> Result<BuildReport
         ));
     }
     let mut laps = Laps::new();
-    let (vectors, inputs) = crate::ingest::read(opts, progress, &mut laps)?;
+    // An IIIF source becomes a catalogue and a folder of fetched pictures, which the build then
+    // reads as it reads a folder of scans.
+    let with_pictures;
+    let (opts, iiif) = match &opts.iiif {
+        Some(i) => {
+            let i = crate::iiif::IiifOptions {
+                long_side: *opts.cells.last().expect("levels are checked"),
+                ..i.clone()
+            };
+            let source = crate::iiif::read_source(&i, progress)?;
+            laps.lap("IIIF source");
+            with_pictures = BuildOptions {
+                images: Some(source.folder.clone()),
+                ..opts.clone()
+            };
+            (&with_pictures, Some(source))
+        }
+        None => (opts, None),
+    };
+    let (vectors, inputs) = crate::ingest::read(opts, iiif, progress, &mut laps)?;
     if let Some(path) = &opts.save_vectors {
         crate::vectors::write_npz(path, &inputs.items.ids, &vectors)
             .with_context(|| format!("--save-vectors {}", path.display()))?;

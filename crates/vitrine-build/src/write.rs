@@ -82,6 +82,16 @@ pub fn write_atlas(
     if let Some(p) = &opts.catalogue {
         input_files.push(input_file("catalogue", p)?);
     }
+    if let Some(f) = &inputs.iiif {
+        let (address, bytes, sha256) = f.document.clone();
+        input_files.push(InputFile {
+            role: "IIIF source (catalogue and pictures)".into(),
+            path: address,
+            bytes,
+            sha256,
+        });
+        report.notes.extend(f.notes.iter().cloned());
+    }
     // Candidate copies (atlas order), so that the thumbnails keep the signatures they need.
     let candidates: Vec<(u32, u32, f32)> = match (&opts.copies, &inputs.image_paths) {
         (Some(rule), Some(_)) => crate::copies::candidates(&c.graph.graph, rule.ratio)
@@ -598,7 +608,16 @@ fn pictures(
         })
         .collect();
     let extents = w.add("thumbnail-extents", &t.extents);
-    let flat: Vec<u32> = t.sizes.iter().flatten().copied().collect();
+    // Pictures fetched from an IIIF service are derivatives: the image's size is its Canvas's.
+    let flat: Vec<u32> = t
+        .sizes
+        .iter()
+        .zip(order)
+        .flat_map(|(s, &i)| match inputs.iiif.as_ref().map(|f| f.sizes[i]) {
+            Some(c) if s[0] > 0 && c[0] > 0 && c[1] > 0 => c,
+            _ => *s,
+        })
+        .collect();
     let image_sizes = Some(w.add("image-sizes", &flat));
     Ok((
         t.colours,

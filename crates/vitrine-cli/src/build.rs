@@ -183,6 +183,21 @@ pub struct BuildArgs {
     /// ... and the pictures' colours correlate at least this much over the matched region (-1-1).
     #[arg(long, default_value_t = vitrine_build::copies::CopyRule::default().min_colour)]
     copy_colour: f32,
+    /// An IIIF Presentation 3 or 2.1 Manifest or Collection (an http(s) address or a file) as the
+    /// catalogue and the pictures: one item per Canvas, its pictures fetched through the Image
+    /// API at the size the thumbnails need. Replaces --catalogue and --images. See docs/iiif.md.
+    #[arg(long, value_name = "URL-or-FILE")]
+    iiif: Option<String>,
+    /// Folder where pictures fetched from IIIF services are kept, so that an interrupted or
+    /// repeated build fetches only what it lacks. Default: ~/.cache/vitrine/iiif.
+    #[arg(long, value_name = "DIR", requires = "iiif")]
+    iiif_cache: Option<PathBuf>,
+    /// IIIF: requests at once (be polite to the institution's server).
+    #[arg(long, default_value_t = 4, requires = "iiif")]
+    iiif_concurrency: usize,
+    /// IIIF: attempts per request after network failures and "busy" answers (429, 5xx).
+    #[arg(long, default_value_t = 4, requires = "iiif")]
+    iiif_attempts: u32,
     /// Folder with the viewer files to copy into the atlas (default: VITRINE_VIEWER, a folder
     /// "viewer" beside the program, else the files compiled into it).
     #[arg(long)]
@@ -264,6 +279,19 @@ impl BuildArgs {
                 encoding: self.catalogue_encoding,
                 sheet: self.sheet,
             },
+            iiif: self.iiif.map(|source| vitrine_build::iiif::IiifOptions {
+                source,
+                cache: self
+                    .iiif_cache
+                    .or_else(|| {
+                        vitrine_images::cache::default_dir()
+                            .and_then(|d| d.parent().map(|p| p.join("iiif")))
+                    })
+                    .unwrap_or_else(|| PathBuf::from(".vitrine-iiif")),
+                concurrency: self.iiif_concurrency,
+                attempts: self.iiif_attempts,
+                long_side: 0,
+            }),
             copies: (!self.no_copies).then_some(vitrine_build::copies::CopyRule {
                 ratio: self.copy_ratio,
                 max_bits: self.copy_bits,

@@ -241,6 +241,46 @@ pub fn iiif_text(s: &str) -> String {
     out
 }
 
+/// The fields an IIIF source gives (`vitrine build --iiif`) that export as IIIF properties rather
+/// than as a homepage or an image link: the Image API service, its type and profile, the rights.
+const IIIF_FIELDS: [&str; 3] = ["iiif_service", "iiif_image_service", "rights"];
+
+/// An item's Image API service, rights and required statement, from the fields an IIIF source
+/// gives.
+struct IiifSource {
+    /// The service's id and its reference as IIIF Presentation 3 writes it (section 3.4: an
+    /// `ImageService3` with `id` and `type`; an `ImageService2` with `@id` and `@type`).
+    service: Option<(String, Value)>,
+    rights: Option<String>,
+    required: Option<String>,
+}
+
+fn iiif_source(cols: &[FieldColumn], i: usize) -> IiifSource {
+    let field = |name: &str| {
+        cols.iter()
+            .find(|c| c.field.name == name)
+            .map(|c| c.text(i))
+            .filter(|v| !v.is_empty())
+    };
+    let service = field("iiif_service").filter(|s| is_web_link(s)).map(|sid| {
+        let kind = field("iiif_image_service").unwrap_or_default();
+        let mut words = kind.split_whitespace();
+        let ty = words.next().unwrap_or("ImageService3");
+        let profile = words.next().unwrap_or("level0");
+        let reference = if ty == "ImageService3" {
+            json!({ "id": sid, "type": ty, "profile": profile })
+        } else {
+            json!({ "@id": sid, "@type": ty, "profile": profile })
+        };
+        (sid, reference)
+    });
+    IiifSource {
+        service,
+        rights: field("rights"),
+        required: field("required_statement"),
+    }
+}
+
 /// What an IIIF export needs besides the corpus.
 pub struct IiifOptions<'a> {
     /// Where the Manifest will be published (ends with "/"): the ids of the Manifest, its Canvases
@@ -295,12 +335,16 @@ pub fn iiif_manifest(
             let mut metadata = vec![json!({ "label": lang_none(&id_column(m)), "value": lang_text(id) })];
             let mut image = None;
             let mut homepage = None;
+            let source = iiif_source(cols, i);
             for c in cols {
                 let v = c.text(i);
                 if v.is_empty() {
                     continue;
                 }
                 metadata.push(json!({ "label": lang_none(&c.field.name), "value": lang_text(&v) }));
+                if IIIF_FIELDS.contains(&c.field.name.as_str()) {
+                    continue;
+                }
                 if c.field.kind == FieldKind::Link {
                     if is_image_link(&v) && image.is_none() {
                         image = Some(v);
@@ -317,7 +361,48 @@ pub fn iiif_manifest(
                 "height": h,
                 "metadata": metadata,
             });
-            if let Some(url) = image {
+            if let Some(rights) = source.rights.filter(|r| is_web_link(r)) {
+                canvas["rights"] = json!(rights);
+            }
+            if let Some(statement) = &source.required {
+                let (label, value) = statement
+                    .split_once(": ")
+                    .unwrap_or(("Attribution", statement.as_str()));
+                canvas["requiredStatement"] =
+                    json!({ "label": lang_none(label), "value": lang_text(value) });
+            }
+            if let Some((sid, service)) = &source.service {
+                // The whole image through its service, which viewers use to deep-zoom.
+                let full = if service["type"] == "ImageService3" || service["@type"] == "ImageService3" {
+                    "max"
+                } else {
+                    "full"
+                };
+                canvas["items"] = json!([{
+                    "id": format!("{canvas_id}/page"),
+                    "type": "AnnotationPage",
+                    "items": [{
+                        "id": format!("{canvas_id}/page/image"),
+                        "type": "Annotation",
+                        "motivation": "painting",
+                        "body": {
+                            "id": format!("{sid}/full/{full}/0/default.jpg"),
+                            "type": "Image",
+                            "format": "image/jpeg",
+                            "width": w,
+                            "height": h,
+                            "service": [service],
+                        },
+                        "target": canvas_id,
+                    }],
+                }]);
+                canvas["thumbnail"] = json!([{
+                    "id": format!("{sid}/full/!400,400/0/default.jpg"),
+                    "type": "Image",
+                    "format": "image/jpeg",
+                    "service": [service],
+                }]);
+            } else if let Some(url) = image {
                 let format = image_format(&url);
                 canvas["items"] = json!([{
                     "id": format!("{canvas_id}/page"),
