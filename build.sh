@@ -71,8 +71,14 @@ setup_wasm_bindgen() {
 # The demo: generate the invented archive (once), build its atlas. Its pictures are at most 320 px,
 # so its top level of detail is 320 rather than the default 512.
 build_demo() {
-  build_viewer
-  cargo build --locked --release -p vitrine-cli -p vitrine-demo
+  if [ "${1:-}" = prebuilt ]; then
+    # The test run's own release build made target/release/vitrine (with the viewer compiled in):
+    # only the generator is built here.
+    cargo build --locked --release -p vitrine-demo
+  else
+    build_viewer
+    cargo build --locked --release -p vitrine-cli -p vitrine-demo
+  fi
   local src="$CACHE/demo-source"
   # Regenerate when the generator's source changed since the cached copy was made.
   local stamp
@@ -144,12 +150,14 @@ run_tests() {
   cargo fmt --all --check
   cargo clippy --locked --workspace --all-targets --release --features vitrine-view/gpu -- -D warnings
   cargo clippy --locked -p vitrine-web --target wasm32-unknown-unknown -- -D warnings
-  echo "[test] cargo test (workspace)"
-  cargo test --workspace --locked --release 2>&1
-  echo "[test] golden images of the renderer through wgpu on Mesa's software Vulkan and GL"
-  XDG_RUNTIME_DIR="${XDG_RUNTIME_DIR:-/tmp}" cargo test --locked --release -p vitrine-view --features gpu --test golden 2>&1
+  # The viewer first: the vitrine binary the tests build compiles its files in. One cargo invocation
+  # with one feature set builds every crate once (the golden images need the renderer's wgpu
+  # hand-off, feature vitrine-view/gpu); the demo and the binary-alone check reuse its binary.
+  build_viewer
+  echo "[test] cargo test (workspace; golden images of the renderer through wgpu on Mesa's software Vulkan and GL)"
+  XDG_RUNTIME_DIR="${XDG_RUNTIME_DIR:-/tmp}" cargo test --workspace --locked --release --features vitrine-view/gpu 2>&1
   echo "[test] demo atlas for the browser test"
-  build_demo
+  build_demo prebuilt
   echo "[test] the vitrine binary alone (viewer compiled in, no checkout beside it)"
   check_binary_alone
   echo "[test] the Python package: wheel built with maturin, installed, used as a notebook would"
