@@ -177,7 +177,8 @@ def main(out):
     def emit(name, img_written, reference, raw, tol, moves):
         save_array(f"{out}/{name}.ref.npy", np.asarray(reference))
         save_array(f"{out}/{name}.raw.npy", np.asarray(raw))
-        print(name, tol, "moves" if moves else "same")
+        mode = moves if isinstance(moves, str) else ("moves" if moves else "same")
+        print(name, tol, mode)
 
     def tagged(name, img, fmt, icc, tol, moves=True, **kw):
         path = f"{out}/{name}"
@@ -208,6 +209,12 @@ def main(out):
     # naive conversion, which is what a decoder that ignores the profile gives.
     tagged("cmyk.jpg", photo.convert("CMYK"), "JPEG", CMYK, 0.7, quality=92)
     tagged("cmyk.tif", chart_img.convert("CMYK"), "TIFF", CMYK, 0.6)
+    # A profile for other pixels (an RGB profile on CMYK inks) is refused: the pixels are taken as
+    # they are, by the naive formula, as a decoder that ignores profiles gives them.
+    cmyk_srgb = f"{out}/cmyk-srgb.jpg"
+    photo.convert("CMYK").save(cmyk_srgb, "JPEG", quality=92, icc_profile=SRGB)
+    back = Image.open(cmyk_srgb)
+    emit("cmyk-srgb.jpg", back, back.convert("RGB"), back.convert("RGB"), 0.5, "refused")
     # Alpha over a profile: converted first, then flattened onto the paper colour.
     rgba = chart_img.copy()
     rgba.putalpha(Image.fromarray(np.tile(np.linspace(0, 255, 96).astype(np.uint8), (64, 1))))
@@ -290,7 +297,7 @@ def with_icc(b, icc, brand):
 
 def score(out):
     """Mean and largest CIEDE2000 difference (scikit-image's) of our decode and of the raw pixels
-    from the reference, per file; and the mean absolute sample difference of ours."""
+    from the reference, per file; the mean and the largest absolute sample difference of ours."""
     from skimage.color import deltaE_ciede2000, rgb2lab
     for line in open(f"{out}/list.txt"):
         name = line.split()[0]
@@ -304,7 +311,7 @@ def score(out):
         de_raw = deltaE_ciede2000(lab, rgb2lab(as_img(raw)))
         mae = np.abs(ours - ref).mean()
         print(name, f"{de_ours.mean():.4f}", f"{de_ours.max():.4f}", f"{de_raw.mean():.4f}",
-              f"{mae:.4f}")
+              f"{mae:.4f}", int(np.abs(ours - ref).max()))
 
 
 if __name__ == "__main__":

@@ -26,6 +26,8 @@ pub fn build(opts: &BuildOptions, progress: &dyn Progress) -> Result<BuildReport
         ));
     }
     let mut laps = Laps::new();
+    // Colour notes of an earlier build in this process are not this one's.
+    vitrine_images::thumbs::take_colour_notes();
     // An IIIF source becomes a catalogue and a folder of fetched pictures, which the build then
     // reads as it reads a folder of scans.
     let with_pictures;

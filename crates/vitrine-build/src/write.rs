@@ -593,6 +593,21 @@ fn pictures(
             p
         })
         .collect();
+    // Profiles left aside (the pictures are used with their pixels as they are).
+    let colour = thumbs::take_colour_notes();
+    if !colour.is_empty() {
+        let listed: Vec<String> = colour
+            .iter()
+            .take(10)
+            .map(|(p, why)| format!("{}: {why}", relative(Path::new(p))))
+            .collect();
+        report.notes.push(format!(
+            "{} image(s) carry a colour profile that could not be applied; their pixels are used as they are: {}{}",
+            colour.len(),
+            listed.join("; "),
+            if colour.len() > 10 { "; ..." } else { "" }
+        ));
+    }
     let levels = plan
         .cells
         .iter()

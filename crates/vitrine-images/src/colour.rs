@@ -55,15 +55,16 @@ impl Samples {
 /// A profile's conversion to sRGB; `None` when the profile is sRGB already.
 type Conversion = Option<Arc<Transform8BitExecutor>>;
 
-/// Transforms made so far, by profile bytes and layout (bounded: cleared when it grows past
-/// [`KEPT`] entries, so that a collection with a profile per image cannot hoard memory).
+/// Transforms made so far, by the profile's SHA-256 and the layout (bounded: cleared when it grows
+/// past [`KEPT`] entries, so that a collection with a profile per image cannot hoard memory).
 static MADE: Mutex<Option<Made>> = Mutex::new(None);
-type Made = HashMap<(Vec<u8>, Samples), Result<Conversion, String>>;
-const KEPT: usize = 64;
+type Made = HashMap<([u8; 32], Samples), Result<Conversion, String>>;
+const KEPT: usize = 256;
 
 /// The conversion of `icc` for samples laid out as `samples`, made once and kept.
 fn conversion(icc: &[u8], samples: Samples) -> Result<Conversion, String> {
-    let key = (icc.to_vec(), samples);
+    use sha2::Digest;
+    let key: ([u8; 32], Samples) = (sha2::Sha256::digest(icc).into(), samples);
     if let Some(made) = MADE
         .lock()
         .unwrap_or_else(|e| e.into_inner())
@@ -83,8 +84,22 @@ fn conversion(icc: &[u8], samples: Samples) -> Result<Conversion, String> {
 }
 
 fn make(icc: &[u8], samples: Samples) -> Result<Conversion, String> {
+    use moxcms::DataColorSpace as Space;
     let profile = ColorProfile::new_from_slice(icc)
         .map_err(|e| format!("the embedded colour profile cannot be read ({e})"))?;
+    // The colour transforms take any samples of the right count: a profile for other pixels (an
+    // RGB profile on CMYK inks, a CMYK one on RGBA) would turn them into nonsense, so it is refused.
+    let fits = match samples {
+        Samples::Gray | Samples::GrayAlpha => profile.color_space == Space::Gray,
+        Samples::Rgb | Samples::Rgba => profile.color_space == Space::Rgb,
+        Samples::Cmyk => profile.color_space == Space::Cmyk,
+    };
+    if !fits {
+        return Err(format!(
+            "the embedded colour profile is for {:?} pixels, the image's are {samples:?}",
+            profile.color_space
+        ));
+    }
     let (from, to) = samples.layouts();
     let srgb = ColorProfile::new_srgb();
     let t = profile
@@ -225,7 +240,16 @@ mod tests {
         let img = DynamicImage::ImageRgb8(RgbImage::from_pixel(3, 2, image::Rgb([9, 8, 7])));
         let (back, why) = to_srgb(img.clone(), &grey);
         assert_eq!(back.to_rgb8(), img.to_rgb8());
-        assert!(why.unwrap().contains("does not fit"));
+        assert!(why
+            .unwrap()
+            .contains("is for Gray pixels, the image's are Rgb"));
+        // An RGB profile on CMYK inks is refused, not applied to them as if they were RGBA.
+        let srgb = ColorProfile::new_srgb().encode().unwrap();
+        let why = convert(&srgb, Samples::Cmyk, &[0, 0, 0, 0]).unwrap_err();
+        assert!(
+            why.contains("is for Rgb pixels, the image's are Cmyk"),
+            "{why}"
+        );
         let (_, why) = to_srgb(img, b"not a profile");
         assert!(why.unwrap().contains("cannot be read"));
     }

@@ -253,7 +253,8 @@ fn jpeg_decoder_path(
     let permit = if reduce {
         None
     } else {
-        let peak = 7 * sw as u64 * sh as u64;
+        // The inks (4 B/px), their RGB (3), and the 8-bit image and its flattened copy (4).
+        let peak = 11 * sw as u64 * sh as u64;
         Some(
             take_budget(peak).map_err(|budget| ImageFailure::OverBudget {
                 width: w,
@@ -267,13 +268,20 @@ fn jpeg_decoder_path(
         .exif_data()
         .and_then(image::metadata::Orientation::from_exif_chunk)
         .unwrap_or(image::metadata::Orientation::NoTransforms);
-    let pixels = d.decode().map_err(|e| match e {
-        jpeg_decoder::Error::Io(io) if io.kind() == std::io::ErrorKind::UnexpectedEof => {
-            ImageFailure::Truncated(io.to_string())
+    let pixels = match d.decode() {
+        Ok(p) => p,
+        // A CMYK file this decoder cannot read goes to the general path (the naive formula).
+        Err(_) if cmyk => return Ok(None),
+        Err(e) => {
+            return Err(match e {
+                jpeg_decoder::Error::Io(io) if io.kind() == std::io::ErrorKind::UnexpectedEof => {
+                    ImageFailure::Truncated(io.to_string())
+                }
+                jpeg_decoder::Error::Unsupported(u) => ImageFailure::Unsupported(format!("{u:?}")),
+                other => ImageFailure::Corrupt(other.to_string()),
+            })
         }
-        jpeg_decoder::Error::Unsupported(u) => ImageFailure::Unsupported(format!("{u:?}")),
-        other => ImageFailure::Corrupt(other.to_string()),
-    })?;
+    };
     let short = || ImageFailure::Corrupt("the decoded pixels do not fill the image".into());
     let mut colour = None;
     let img = match info.pixel_format {
@@ -358,13 +366,6 @@ fn jpeg2000(
     };
     let full = Image::new(bytes, &DecodeSettings::default()).map_err(refused)?;
     let (w, h) = (full.width(), full.height());
-    if (w as u64) * (h as u64) > max_pixels {
-        return Err(ImageFailure::TooLarge {
-            width: w,
-            height: h,
-            limit: max_pixels,
-        });
-    }
     let long = w.max(h) as u64;
     let image = match long_side {
         Some(side) if long >= 2 * side.max(1) as u64 => {
@@ -377,7 +378,18 @@ fn jpeg2000(
         }
         _ => full,
     };
-    let mut d = from_decoder(image, bytes, max_pixels)?;
+    // The pixel limit and the budget apply to the level decoded, not the master: a 1-gigapixel
+    // map decoded at 1/64 of its size is small. The decoder holds a 32-bit float plane per
+    // component and its wavelet coefficients: about 16 B/px besides its output (an estimate
+    // counted from hayro-jpeg2000 0.5's data structures, not measured).
+    let mut d = from_decoder(image, bytes, max_pixels, 16).map_err(|e| match e {
+        ImageFailure::TooLarge { limit, .. } => ImageFailure::TooLarge {
+            width: w,
+            height: h,
+            limit,
+        },
+        other => other,
+    })?;
     (d.width, d.height) = (w, h);
     Ok(d)
 }
@@ -420,15 +432,18 @@ fn decode_general(bytes: &[u8], max_pixels: u64, jpeg_seen: bool) -> Result<Deco
     let mut reader = reader;
     reader.no_limits();
     let decoder = reader.into_decoder().map_err(failure)?;
-    from_decoder(decoder, bytes, max_pixels)
+    from_decoder(decoder, bytes, max_pixels, 0)
 }
 
 /// Decodes through an `image` decoder: the size checked against the limit and the budget, the
 /// embedded profile applied, the orientation honoured.
+/// `working` is what the decoder itself holds per pixel beyond its output buffer (JPEG 2000 keeps
+/// its samples as floating-point planes).
 fn from_decoder(
     mut decoder: impl ImageDecoder,
     bytes: &[u8],
     max_pixels: u64,
+    working: u64,
 ) -> Result<Decoded, ImageFailure> {
     let (w, h) = decoder.dimensions();
     if (w as u64) * (h as u64) > max_pixels {
@@ -441,22 +456,6 @@ fn from_decoder(
     let orientation = decoder
         .orientation()
         .unwrap_or(image::metadata::Orientation::NoTransforms);
-    // What the decode holds at its peak: the decoder's buffer and the RGB image made from it
-    // (through an RGBA copy for the layouts converted by the `image` crate), then (the buffer
-    // gone) the RGB image and its turned copy.
-    let pixels = w as u64 * h as u64;
-    let via_rgba = matches!(
-        decoder.color_type(),
-        image::ColorType::La8 | image::ColorType::La16 | image::ColorType::Rgba32F
-    );
-    let peak = (decoder.total_bytes() + 3 * pixels + if via_rgba { 4 * pixels } else { 0 })
-        .max(6 * pixels);
-    let permit = take_budget(peak).map_err(|budget| ImageFailure::OverBudget {
-        width: w,
-        height: h,
-        bytes: peak,
-        budget,
-    })?;
     // Taken before the pixels, which consume the decoder; a profile that cannot be taken out of
     // the file is no reason to refuse its pixels.
     let icc = decoder
@@ -464,6 +463,27 @@ fn from_decoder(
         .ok()
         .flatten()
         .or_else(|| tiff_icc(bytes));
+    // What the decode holds at its peak: the decoder's buffer (and its own working planes) and
+    // the RGB image made from it (through an RGBA copy for the layouts converted by the `image`
+    // crate; with a profile, the 8-bit samples and the converted copy, 4 + 4 B/px at most), then
+    // (the buffer gone) the RGB image and its turned copy.
+    let pixels = w as u64 * h as u64;
+    let via_rgba = matches!(
+        decoder.color_type(),
+        image::ColorType::La8 | image::ColorType::La16 | image::ColorType::Rgba32F
+    );
+    let profile = if icc.is_some() { 8 * pixels } else { 0 };
+    let peak = (decoder.total_bytes()
+        + (3 + working) * pixels
+        + if via_rgba { 4 * pixels } else { 0 }
+        + profile)
+        .max(6 * pixels);
+    let permit = take_budget(peak).map_err(|budget| ImageFailure::OverBudget {
+        width: w,
+        height: h,
+        bytes: peak,
+        budget,
+    })?;
     let cmyk = matches!(
         decoder.original_color_type(),
         image::ExtendedColorType::Cmyk8 | image::ExtendedColorType::Cmyk16

@@ -87,8 +87,33 @@ pub fn thumbnail(
     max_pixels: u64,
     long_side: u32,
 ) -> Result<(RgbImage, [u32; 2]), ImageFailure> {
+    thumbnail_noted(bytes, max_pixels, long_side).map(|(t, s, _)| (t, s))
+}
+
+/// [`thumbnail`], and why the image's colour profile was not applied, when it was not.
+fn thumbnail_noted(
+    bytes: &[u8],
+    max_pixels: u64,
+    long_side: u32,
+) -> Result<(RgbImage, [u32; 2], Option<String>), ImageFailure> {
     let d = crate::decode::decode_for(bytes, max_pixels, long_side)?;
-    Ok((fit(&d.rgb, long_side), [d.width, d.height]))
+    Ok((
+        fit(&d.rgb, long_side),
+        [d.width, d.height],
+        d.colour.clone(),
+    ))
+}
+
+/// Files whose embedded colour profile could not be applied (path, why), as their thumbnails were
+/// made since the last [`take_colour_notes`]; a thumbnail taken from the cache adds none.
+static COLOUR_NOTES: std::sync::Mutex<Vec<(String, String)>> = std::sync::Mutex::new(Vec::new());
+
+/// The colour notes gathered so far, sorted and without repeats; the list is emptied.
+pub fn take_colour_notes() -> Vec<(String, String)> {
+    let mut v = std::mem::take(&mut *COLOUR_NOTES.lock().unwrap_or_else(|e| e.into_inner()));
+    v.sort();
+    v.dedup();
+    v
 }
 
 /// A thumbnail and its image's size as shown (width, height), or why there is none.
@@ -137,7 +162,15 @@ pub fn largest_thumbnail_from(
         Err(e) => return (Err(e), (String::new(), 0)),
     };
     let digest = (vitrine_format::sha256_hex(&bytes), bytes.len() as u64);
-    let made = thumbnail(&bytes, plan.max_pixels, largest);
+    let made = thumbnail_noted(&bytes, plan.max_pixels, largest).map(|(t, s, note)| {
+        if let Some(why) = note {
+            COLOUR_NOTES
+                .lock()
+                .unwrap_or_else(|e| e.into_inner())
+                .push((path.display().to_string(), why));
+        }
+        (t, s)
+    });
     if made.is_ok() {
         counts.made.fetch_add(1, Relaxed);
     }
