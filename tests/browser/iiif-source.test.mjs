@@ -42,7 +42,7 @@ test("a corpus of an IIIF-sourced atlas exports Canvases with their Image API se
 
     const { entities, resource } = normalize(structuredClone(manifest));
     const m = entities.Manifest[resource.id];
-    assert.equal(m.items.length, 16, "one Canvas per IIIF Canvas of the source");
+    assert.equal(m.items.length, 18, "one Canvas per IIIF Canvas of the source");
     const byTitle = new Map();
     for (const ref of m.items) {
       const c = entities.Canvas[ref.id];
@@ -66,7 +66,12 @@ test("a corpus of an IIIF-sourced atlas exports Canvases with their Image API se
     // A 2.1 source: ImageService2, written with @id and @type as Presentation 3 asks.
     const raw = manifest.items.find((c) => c.label.none[0] === "Workshop interior 1");
     const s2 = raw.items[0].items[0].body.service[0];
-    assert.deepEqual(s2, { "@id": `${server.base}/img2/b0`, "@type": "ImageService2", profile: "level2" });
+    assert.deepEqual(s2, { "@id": `${server.base}/img2/b0`, "@type": "ImageService2",
+      profile: "http://iiif.io/api/image/2/level2.json" });
+    // A level 1 service gets no fitted-size thumbnail (it could not serve one).
+    const l1 = manifest.items.find((c) => c.label.none[0] === "Level 1 view");
+    assert.equal(l1.items[0].items[0].body.service[0].profile, "level1");
+    assert.equal(l1.thumbnail, undefined);
     assert.equal(raw.items[0].items[0].body.id, `${server.base}/img2/b0/full/full/0/default.jpg`);
   } finally {
     server.child.kill();

@@ -8,6 +8,8 @@ with awkward Canvases, and a Manifest that does not exist. Image API endpoints:
 
 - /img3/NAME (Image API 3.0, level 2) and /img2/NAME (2.1, level 2): any `full` size request;
 - /lvl0/NAME (3.0, level 0): only the sizes its info.json lists, anything else is 400;
+- /lvl1/NAME (3.0, level 1): sizes by width or height (`w,`, `,h`), anything else is 501;
+- /crowd/NAME (3.0): 429 with Retry-After: 1 for the first request of each address;
 - /flaky/NAME (3.0): 503 with Retry-After: 0 for the first two requests of each address;
 - /gone/NAME: 404 for everything;
 - /static/NAME.jpg: a whole picture for a Canvas without a service.
@@ -168,6 +170,8 @@ def documents(base):
     canv_c.append(static)
     canv_c.append(canvas3(cb, "c4", "Lost negative", f"{base}/gone/c4"))
     canv_c.append(canvas3(cb, "c5", "Busy server view", f"{base}/flaky/c5"))
+    canv_c.append(canvas3(cb, "c6", "Level 1 view", f"{base}/lvl1/c6", level="level1"))
+    canv_c.append(canvas3(cb, "c7", "Crowded server view", f"{base}/crowd/c7"))
     manifest_c = {"@context": "http://iiif.io/api/presentation/3/context.json", "id": c,
                   "type": "Manifest", "label": lang("Awkward canvases"), "items": canv_c}
     coll2 = {"@context": "http://iiif.io/api/presentation/2/context.json",
@@ -217,22 +221,33 @@ class Handler(BaseHTTPRequestHandler):
             return self.send(200, jpeg(master(parts[1].split(".")[0])), "image/jpeg")
         if parts[0] == "gone":
             return self.send(404, b"gone", "text/plain")
+        if parts[0] == "crowd":
+            with LOCK:
+                FLAKY[path] = FLAKY.get(path, 0) + 1
+                n = FLAKY[path]
+            if n <= 1:
+                return self.send(429, b"too many requests", "text/plain", {"Retry-After": "1"})
         if parts[0] == "flaky":
             with LOCK:
                 FLAKY[path] = FLAKY.get(path, 0) + 1
                 n = FLAKY[path]
             if n <= 2:
                 return self.send(503, b"busy", "text/plain", {"Retry-After": "0"})
-        if parts[0] in ("img3", "img2", "lvl0", "flaky") and len(parts) >= 3:
+        if parts[0] in ("img3", "img2", "lvl0", "lvl1", "flaky", "crowd") and len(parts) >= 3:
             name = parts[1]
             version = 2 if parts[0] == "img2" else 3
             sbase = f"{base}/{parts[0]}/{name}"
             if parts[2] == "info.json":
-                return self.send(200, json.dumps(info(sbase, version, parts[0] == "lvl0")).encode())
+                doc = info(sbase, version, parts[0] == "lvl0")
+                if parts[0] == "lvl1":
+                    doc["profile"] = "level1"
+                return self.send(200, json.dumps(doc).encode())
             if len(parts) == 6 and parts[2] == "full" and parts[5] == "default.jpg":
                 size = parts[3].replace("%21", "!")
                 if parts[0] == "lvl0" and size not in ("150,100", "600,400", "1200,800", "max"):
                     return self.send(400, b"level 0: only the listed sizes", "text/plain")
+                if parts[0] == "lvl1" and not (size.endswith(",") or size.startswith(",")):
+                    return self.send(501, b"level 1: sizes by width or height", "text/plain")
                 try:
                     img = sized(name, size)
                 except ValueError:

@@ -623,13 +623,18 @@ fn pictures(
         })
         .collect();
     let extents = w.add("thumbnail-extents", &t.extents);
-    // Pictures fetched from an IIIF service are derivatives: the image's size is its Canvas's.
+    // Pictures fetched from an IIIF service are derivatives: the image's size is the one the
+    // source gives, when its shape is the fetched picture's (within 2 %).
+    let same_shape = |a: [u32; 2], b: [u32; 2]| {
+        let (ra, rb) = (a[0] as f64 / a[1] as f64, b[0] as f64 / b[1] as f64);
+        (ra / rb - 1.0).abs() <= 0.02
+    };
     let flat: Vec<u32> = t
         .sizes
         .iter()
         .zip(order)
         .flat_map(|(s, &i)| match inputs.iiif.as_ref().map(|f| f.sizes[i]) {
-            Some(c) if s[0] > 0 && c[0] > 0 && c[1] > 0 => c,
+            Some(c) if s[0] > 0 && s[1] > 0 && c[0] > 0 && c[1] > 0 && same_shape(*s, c) => c,
             _ => *s,
         })
         .collect();

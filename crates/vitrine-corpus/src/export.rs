@@ -255,6 +255,16 @@ struct IiifSource {
     required: Option<String>,
 }
 
+/// A Creative Commons licence or a RightsStatements.org statement address.
+fn is_rights_uri(s: &str) -> bool {
+    let l = s.to_ascii_lowercase();
+    let rest = l
+        .strip_prefix("http://")
+        .or_else(|| l.strip_prefix("https://"))
+        .unwrap_or("");
+    rest.starts_with("creativecommons.org/") || rest.starts_with("rightsstatements.org/")
+}
+
 fn iiif_source(cols: &[FieldColumn], i: usize) -> IiifSource {
     let field = |name: &str| {
         cols.iter()
@@ -263,15 +273,22 @@ fn iiif_source(cols: &[FieldColumn], i: usize) -> IiifSource {
             .filter(|v| !v.is_empty())
     };
     let service = field("iiif_service").filter(|s| is_web_link(s)).map(|sid| {
+        // "TYPE PROFILE", the profile as the source wrote it (3: `level2`; 2.1: an address).
         let kind = field("iiif_image_service").unwrap_or_default();
-        let mut words = kind.split_whitespace();
-        let ty = words.next().unwrap_or("ImageService3");
-        let profile = words.next().unwrap_or("level0");
-        let reference = if ty == "ImageService3" {
-            json!({ "id": sid, "type": ty, "profile": profile })
+        let (ty, profile) = kind.split_once(' ').unwrap_or((kind.as_str(), ""));
+        let ty = if ty.starts_with("ImageService") {
+            ty
         } else {
-            json!({ "@id": sid, "@type": ty, "profile": profile })
+            "ImageService3"
         };
+        let mut reference = if ty == "ImageService3" {
+            json!({ "id": sid, "type": ty })
+        } else {
+            json!({ "@id": sid, "@type": ty })
+        };
+        if !profile.is_empty() {
+            reference["profile"] = json!(profile);
+        }
         (sid, reference)
     });
     IiifSource {
@@ -361,7 +378,9 @@ pub fn iiif_manifest(
                 "height": h,
                 "metadata": metadata,
             });
-            if let Some(rights) = source.rights.filter(|r| is_web_link(r)) {
+            // Presentation 3 takes as `rights` a Creative Commons licence or a RightsStatements.org
+            // statement (section 3.3); any other rights link stays in the metadata only.
+            if let Some(rights) = source.rights.filter(|r| is_rights_uri(r)) {
                 canvas["rights"] = json!(rights);
             }
             if let Some(statement) = &source.required {
@@ -396,12 +415,17 @@ pub fn iiif_manifest(
                         "target": canvas_id,
                     }],
                 }]);
-                canvas["thumbnail"] = json!([{
-                    "id": format!("{sid}/full/!400,400/0/default.jpg"),
-                    "type": "Image",
-                    "format": "image/jpeg",
-                    "service": [service],
-                }]);
+                // A fitted size is for level 2 services only; others are left to the viewer,
+                // which asks the service itself.
+                let profile = service["profile"].as_str().unwrap_or("");
+                if profile.trim_end_matches(".json").ends_with("level2") {
+                    canvas["thumbnail"] = json!([{
+                        "id": format!("{sid}/full/!400,400/0/default.jpg"),
+                        "type": "Image",
+                        "format": "image/jpeg",
+                        "service": [service],
+                    }]);
+                }
             } else if let Some(url) = image {
                 let format = image_format(&url);
                 canvas["items"] = json!([{

@@ -525,7 +525,7 @@ fn is_tiff(bytes: &[u8]) -> bool {
 }
 
 /// A TIFF's embedded profile (tag 34675, TIFF/EP and the ICC's TIFF annex), read with the `tiff`
-/// crate: the `image` crate's TIFF decoder does not hand it over.
+/// crate: the `image` crate's TIFF decoder (0.25.10) gave none for the TIFF files Pillow writes.
 fn tiff_icc(bytes: &[u8]) -> Option<Vec<u8>> {
     if !is_tiff(bytes) {
         return None;
