@@ -552,6 +552,23 @@ test("filters: search, a category and a date range narrow the corpus as vitrine 
   await page.locator("#filters .filter button").first().click();
   await page.waitForFunction(() => document.body.dataset.filters === "1");
   assert.equal(Number(await passing()), native("--date", "1500..1560", "--date-rule", "within"));
+  // A field with several values per record (keywords separated by "; "): the count beside a
+  // value is the records holding it, and a record passes when it holds any value chosen, as
+  // vitrine corpus counts them.
+  const keywords = page.locator("#filter-panel details", { has: page.locator("summary", { hasText: "keywords" }) });
+  await keywords.locator("summary").click();
+  const within = ["--date", "1500..1560", "--date-rule", "within"];
+  const design = Number(await keywords.locator("label", { has: page.locator("input[data-value='design']") })
+    .locator(".n").innerText());
+  assert.equal(design, native("--filter", "keywords=design", ...within));
+  await keywords.locator("input[data-value='pattern']").check();
+  await keywords.locator("input[data-value='study']").check();
+  const either = native("--filter", "keywords=pattern", "--filter", "keywords=study", ...within);
+  assert.ok(either > native("--filter", "keywords=pattern", ...within), "study adds records");
+  await page.waitForFunction((n) => document.body.dataset.passing === String(n), either);
+  await page.screenshot({ path: path.join(ARTIFACTS, "10b-keywords.png") });
+  await page.locator("#filters .filter button").last().click();
+  await page.waitForFunction(() => document.body.dataset.filters === "1");
   await page.keyboard.press("c");
 
   // The timeline strip: its bars (each item's weight spread over its dating) sum to the dated

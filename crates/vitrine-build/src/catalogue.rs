@@ -491,12 +491,23 @@ pub enum FieldData {
     },
     Text(Vec<String>),
     Link(Vec<String>),
+    /// Several category values per record: each item's first value's code (`u32::MAX` empty),
+    /// every item's codes (`offsets` into `codes`), the vocabulary, the items holding each value,
+    /// and each record's values as written.
+    Multi {
+        first: Vec<u32>,
+        offsets: Vec<u32>,
+        codes: Vec<u32>,
+        values: Vec<String>,
+        counts: Vec<u64>,
+        written: Vec<String>,
+    },
 }
 
 impl FieldData {
     pub fn kind(&self) -> FieldKind {
         match self {
-            FieldData::Category { .. } => FieldKind::Category,
+            FieldData::Category { .. } | FieldData::Multi { .. } => FieldKind::Category,
             FieldData::Number { .. } => FieldKind::Number,
             FieldData::Date { .. } => FieldKind::Date,
             FieldData::Text(_) => FieldKind::Text,
@@ -579,19 +590,7 @@ pub fn infer_kind(name: &str, values: &[&str]) -> FieldKind {
     if numeric == filled.len() || (numeric >= 20 && numeric * 20 >= filled.len() * 19) {
         return FieldKind::Number;
     }
-    let lower = name.to_lowercase();
-    if [
-        "title",
-        "description",
-        "notes",
-        "caption",
-        "inscription",
-        "remarks",
-        "comment",
-    ]
-    .iter()
-    .any(|w| lower.contains(w))
-    {
+    if is_prose(name) {
         return FieldKind::Text;
     }
     let mut distinct = std::collections::HashSet::new();
@@ -607,6 +606,125 @@ pub fn infer_kind(name: &str, values: &[&str]) -> FieldKind {
         FieldKind::Category
     } else {
         FieldKind::Text
+    }
+}
+
+/// The separators a multi-valued field may use, in the order they are tried.
+pub const MULTI_SEPARATORS: [&str; 2] = ["|", ";"];
+
+/// The parts of a multi-valued value: split at `sep`, trimmed, empty parts and markers of an
+/// unknown value dropped, repeats dropped (first kept).
+pub fn split_values<'a>(v: &'a str, sep: &str) -> Vec<&'a str> {
+    let mut out: Vec<&str> = Vec::new();
+    for p in v.split(sep).map(str::trim) {
+        if !p.is_empty() && !is_unknown_marker(p) && !out.contains(&p) {
+            out.push(p);
+        }
+    }
+    out
+}
+
+/// Whether a column holds several values per record, and their separator: the rule of
+/// [`infer_kind`] would make it a category or text (not a link, number or date, and its name does
+/// not say it is prose), at least 2 values and 5 % of the filled ones hold the separator, and the
+/// parts split at it form a vocabulary: at most 1,000 distinct parts, each used twice on average,
+/// and fewer distinct parts than distinct whole values. `|` is tried first, then `;`.
+pub fn multi_separator(name: &str, values: &[&str]) -> Option<&'static str> {
+    if !matches!(
+        infer_kind(name, values),
+        FieldKind::Category | FieldKind::Text
+    ) || is_prose(name)
+    {
+        return None;
+    }
+    let filled: Vec<&str> = values
+        .iter()
+        .map(|v| v.trim())
+        .filter(|v| !v.is_empty() && !is_unknown_marker(v))
+        .collect();
+    let whole: std::collections::HashSet<&str> = filled.iter().copied().collect();
+    MULTI_SEPARATORS.into_iter().find(|sep| {
+        let holding = filled.iter().filter(|v| v.contains(sep)).count();
+        if holding < 2 || holding * 20 < filled.len() {
+            return false;
+        }
+        let mut parts = 0usize;
+        let mut distinct = std::collections::HashSet::new();
+        for v in &filled {
+            for p in split_values(v, sep) {
+                parts += 1;
+                distinct.insert(p);
+            }
+            if distinct.len() > 1000 {
+                return false;
+            }
+        }
+        distinct.len() * 2 <= parts && distinct.len() < whole.len()
+    })
+}
+
+/// The separator most values of a column hold (`|` or `;`), when any holds one: for a field the
+/// user says is multi-valued without naming its separator.
+pub fn multi_separator_any(values: &[&str]) -> Option<&'static str> {
+    MULTI_SEPARATORS
+        .into_iter()
+        .map(|sep| (sep, values.iter().filter(|v| v.contains(sep)).count()))
+        .filter(|&(_, n)| n > 0)
+        .max_by_key(|&(_, n)| n)
+        .map(|(sep, _)| sep)
+}
+
+/// A column whose name says it holds prose (title, description, notes, caption, inscription,
+/// remarks, comment).
+fn is_prose(name: &str) -> bool {
+    let lower = name.to_lowercase();
+    [
+        "title",
+        "description",
+        "notes",
+        "caption",
+        "inscription",
+        "remarks",
+        "comment",
+    ]
+    .iter()
+    .any(|w| lower.contains(w))
+}
+
+/// A multi-valued field's columns: values split at `sep` (see [`split_values`]), the vocabulary
+/// sorted by the number of records holding each value (most first), ties by text.
+pub fn multi_field_data(values: &[&str], sep: &str) -> FieldData {
+    let split: Vec<Vec<&str>> = values.iter().map(|v| split_values(v, sep)).collect();
+    let mut counts: HashMap<&str, u64> = HashMap::new();
+    for parts in &split {
+        for p in parts {
+            *counts.entry(p).or_default() += 1;
+        }
+    }
+    let mut order: Vec<&str> = counts.keys().copied().collect();
+    order.sort_by(|a, b| counts[b].cmp(&counts[a]).then(a.cmp(b)));
+    let index: HashMap<&str, u32> = order
+        .iter()
+        .enumerate()
+        .map(|(i, v)| (*v, i as u32))
+        .collect();
+    let mut offsets = Vec::with_capacity(values.len() + 1);
+    let mut codes = Vec::new();
+    offsets.push(0u32);
+    for parts in &split {
+        codes.extend(parts.iter().map(|p| index[p]));
+        offsets.push(codes.len() as u32);
+    }
+    FieldData::Multi {
+        first: split
+            .iter()
+            .map(|p| p.first().map_or(u32::MAX, |v| index[v]))
+            .collect(),
+        offsets,
+        codes,
+        counts: order.iter().map(|v| counts[v]).collect(),
+        values: order.iter().map(|v| v.to_string()).collect(),
+        written: values.iter().map(|v| v.to_string()).collect(),
     }
 }
 
@@ -942,5 +1060,76 @@ mod inference_tests {
             e.contains("header column 2") && e.contains("201 characters"),
             "{e}"
         );
+    }
+}
+
+#[cfg(test)]
+mod multi_valued_tests {
+    use super::*;
+
+    #[test]
+    fn keyword_lists_are_found_and_prose_and_single_values_are_not() {
+        let kw = [
+            "harbour; ship",
+            "ship",
+            "harbour; night; ship",
+            "",
+            "night",
+            "portrait | study",
+            "harbour",
+            "ship; harbour",
+        ];
+        assert_eq!(multi_separator("keywords", &kw), Some(";"));
+        let bars = ["a|b", "b|c", "a", "c|a", "b"];
+        assert_eq!(multi_separator("classification", &bars), Some("|"));
+        // A title with semicolons is prose, whatever its values.
+        let titles = [
+            "View; harbour",
+            "View; harbour",
+            "Ship; night",
+            "Ship; night",
+        ];
+        assert_eq!(multi_separator("title", &titles), None);
+        // Sentences that happen to hold a semicolon do not form a vocabulary.
+        let notes = [
+            "signed lower left; dated",
+            "trimmed at the top; laid down",
+            "foxing; small tear",
+            "water stain; repaired",
+        ];
+        assert_eq!(multi_separator("condition", &notes), None);
+        // One record in a hundred with a separator is a stray, not a list.
+        let mut one: Vec<String> = (0..100).map(|i| format!("v{}", i % 5)).collect();
+        one[0] = "v1; v2".into();
+        let one: Vec<&str> = one.iter().map(String::as_str).collect();
+        assert_eq!(multi_separator("group", &one), None);
+        // Links, numbers and dates are never lists.
+        assert_eq!(
+            multi_separator("year", &["1540; 1550", "1560", "1540"]),
+            None
+        );
+    }
+
+    #[test]
+    fn values_are_split_counted_per_record_and_kept_as_written() {
+        let v = ["ship; harbour", "harbour;harbour; n/a", "", "night ; ship"];
+        let FieldData::Multi {
+            first,
+            offsets,
+            codes,
+            values,
+            counts,
+            written,
+        } = multi_field_data(&v, ";")
+        else {
+            panic!("multi");
+        };
+        // Vocabulary by records holding each value (a repeat in one record counts once).
+        assert_eq!(values, ["harbour", "ship", "night"]);
+        assert_eq!(counts, [2, 2, 1]);
+        assert_eq!(offsets, [0, 2, 3, 3, 5]);
+        assert_eq!(codes, [1, 0, 0, 2, 1]);
+        assert_eq!(first, [1, 0, u32::MAX, 2]);
+        assert_eq!(written[1], "harbour;harbour; n/a");
     }
 }

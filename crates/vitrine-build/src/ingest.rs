@@ -96,6 +96,26 @@ pub fn read(
     if let (Some(c), Some(name)) = (&cat, &opts.date_field) {
         date_column(c, name)?;
     }
+    let named = opts
+        .multi_valued
+        .iter()
+        .map(|(f, _)| (f, "--multi-valued"))
+        .chain(opts.single_valued.iter().map(|f| (f, "--single-valued")));
+    for (name, flag) in named {
+        match &cat {
+            Some(c) if c.column(name).is_some() => {}
+            Some(c) => {
+                return Err(InputError::Usage(format!(
+                    "{flag} {name:?}: the catalogue has no such column (it has {})",
+                    c.header.join(", ")
+                ))
+                .into())
+            }
+            None => {
+                return Err(InputError::Usage(format!("{flag} {name:?} needs a catalogue")).into())
+            }
+        }
+    }
     let Some((vectors, file_ids)) = file else {
         let dir = opts
             .images

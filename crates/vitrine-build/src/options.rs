@@ -86,6 +86,11 @@ pub struct BuildOptions {
     /// An IIIF Manifest or Collection as the catalogue and the pictures (its `long_side` is set
     /// from the largest thumbnail level).
     pub iiif: Option<crate::iiif::IiifOptions>,
+    /// Catalogue fields that hold several values per record, with their separator (None: the one
+    /// the values use), whatever the values show.
+    pub multi_valued: Vec<(String, Option<String>)>,
+    /// Catalogue fields read as one value per record, whatever the values show.
+    pub single_valued: Vec<String>,
 }
 
 impl BuildOptions {
@@ -124,6 +129,8 @@ impl BuildOptions {
             embedded_viewer: &[],
             copies: Some(crate::copies::CopyRule::default()),
             iiif: None,
+            multi_valued: Vec::new(),
+            single_valued: Vec::new(),
         }
     }
 
@@ -206,6 +213,14 @@ impl BuildOptions {
             }
             if !(-1.0..=1.0).contains(&c.min_colour) {
                 bail!("--copy-colour must be between -1 and 1");
+            }
+        }
+        for (f, sep) in &self.multi_valued {
+            if self.single_valued.contains(f) {
+                bail!("{f:?} is named by both --multi-valued and --single-valued");
+            }
+            if sep.as_deref().is_some_and(|s| s.trim().is_empty()) {
+                bail!("--multi-valued {f}=SEP: the separator is empty");
             }
         }
         if self.k == 0 {

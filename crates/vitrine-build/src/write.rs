@@ -13,7 +13,7 @@ use vitrine_format::{
 };
 use vitrine_images::thumbs;
 
-use crate::catalogue::{self, FieldData, ValueWarning};
+use crate::catalogue::{self, FieldData};
 use crate::ingest::Inputs;
 use crate::options::BuildOptions;
 use crate::progress::Progress;
@@ -59,13 +59,7 @@ pub fn write_atlas(
     );
     let (maps, xy) = maps(&mut w, opts, &c);
     let neighbours = neighbours(&mut w, opts, &c.graph, order, &c.order.rank);
-    let fields = fields(
-        &mut w,
-        &inputs,
-        order,
-        &ids_sorted,
-        &mut report.value_warnings,
-    );
+    let fields = fields(&mut w, opts, &inputs, order, &ids_sorted, &mut report);
     let clusters = clusters(&mut w, &c.clusters, order, &xy, &fields);
 
     // Thumbnails and colours.
@@ -346,10 +340,11 @@ struct WrittenField {
 /// Every catalogue column but the id, its kind inferred, in atlas order.
 fn fields(
     w: &mut ArrayWriter,
+    opts: &BuildOptions,
     inputs: &Inputs,
     order: &[usize],
     ids_sorted: &[&str],
-    warnings: &mut Vec<ValueWarning>,
+    report: &mut BuildReport,
 ) -> Vec<WrittenField> {
     let mut fields = Vec::new();
     let (Some(cat), Some(rows)) = (&inputs.catalogue, &inputs.items.catalogue_rows) else {
@@ -361,15 +356,61 @@ fn fields(
             continue;
         }
         let values: Vec<&str> = item_rows.iter().map(|&r| cat.rows[r][c].as_str()).collect();
-        let kind = catalogue::infer_kind(name, &values);
-        let data = catalogue::field_data(name, kind, &values, ids_sorted, warnings);
+        // Several values per record: as the user says (--multi-valued, --single-valued), else
+        // as the values show.
+        let separator = match opts.multi_valued.iter().find(|(f, _)| f == name) {
+            Some((_, Some(sep))) => Some(sep.clone()),
+            Some((_, None)) => Some(
+                catalogue::multi_separator_any(&values)
+                    .unwrap_or(";")
+                    .to_string(),
+            ),
+            None if opts.single_valued.iter().any(|f| f == name) => None,
+            None => catalogue::multi_separator(name, &values).map(String::from),
+        };
+        let data = match &separator {
+            Some(sep) => catalogue::multi_field_data(&values, sep),
+            None => {
+                let kind = catalogue::infer_kind(name, &values);
+                catalogue::field_data(name, kind, &values, ids_sorted, &mut report.value_warnings)
+            }
+        };
+        let kind = data.kind();
         let tag = format!("field-{}-{}", fields.len(), safe_name(name));
+        let mut multi = None;
         let (column, column2, values, value_counts, written, codes) = match data {
             FieldData::Category {
                 codes,
                 values,
                 counts,
             } => (w.add(&tag, &codes), None, values, counts, None, Some(codes)),
+            FieldData::Multi {
+                first,
+                offsets,
+                codes,
+                values,
+                counts,
+                written,
+            } => {
+                report.notes.push(format!(
+                    "{name}: several values per record (separated by {:?}), {} values; filters and counts take each value",
+                    separator.as_deref().unwrap_or(";"),
+                    values.len()
+                ));
+                multi = Some([
+                    w.add(&format!("{tag}.offsets"), &offsets),
+                    w.add(&format!("{tag}.codes"), &codes),
+                ]);
+                let written = w.text(&format!("{tag}.written"), &written);
+                (
+                    w.add(&tag, &first),
+                    None,
+                    values,
+                    counts,
+                    Some(written),
+                    Some(first),
+                )
+            }
             FieldData::Number { values, written } => {
                 let written = w.text(&format!("{tag}.written"), &written);
                 (
@@ -409,6 +450,7 @@ fn fields(
                 values,
                 value_counts,
                 written,
+                multi,
             },
             codes,
         });
@@ -752,6 +794,7 @@ fn write_copies(
             values: vec![HAS_COPIES.into()],
             value_counts: vec![members.len() as u64],
             written: None,
+            multi: None,
         },
         codes: Some(codes),
     });

@@ -183,6 +183,16 @@ pub struct BuildArgs {
     /// ... and the pictures' colours correlate at least this much over the matched region (-1-1).
     #[arg(long, default_value_t = vitrine_build::copies::CopyRule::default().min_colour)]
     copy_colour: f32,
+    /// A catalogue field that holds several values per record (keywords, subject headings,
+    /// classification codes), filtered and counted value by value: FIELD, or FIELD=SEP to name
+    /// the separator (default: the one its values use, `|` or `;`). Repeatable. Such fields are
+    /// also found from their values (docs/building.md).
+    #[arg(long = "multi-valued", value_name = "FIELD[=SEP]")]
+    multi_valued: Vec<String>,
+    /// A catalogue field read as one value per record even where its values look like several.
+    /// Repeatable.
+    #[arg(long = "single-valued", value_name = "FIELD")]
+    single_valued: Vec<String>,
     /// An IIIF Presentation 3 or 2.1 Manifest or Collection (an http(s) address or a file) as the
     /// catalogue and the pictures: one item per Canvas, its pictures fetched through the Image
     /// API at the size the thumbnails need. Replaces --catalogue and --images. See docs/iiif.md.
@@ -279,6 +289,15 @@ impl BuildArgs {
                 encoding: self.catalogue_encoding,
                 sheet: self.sheet,
             },
+            multi_valued: self
+                .multi_valued
+                .iter()
+                .map(|m| match m.split_once('=') {
+                    Some((f, sep)) => (f.to_string(), Some(sep.to_string())),
+                    None => (m.clone(), None),
+                })
+                .collect(),
+            single_valued: self.single_valued,
             iiif: self.iiif.map(|source| vitrine_build::iiif::IiifOptions {
                 source,
                 cache: self

@@ -523,6 +523,10 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
             wanted.push(o);
             wanted.push(b);
         }
+        if let Some([o, c]) = &f.multi {
+            wanted.push(o);
+            wanted.push(c);
+        }
     }
     if let Some(s) = &m.sheets {
         wanted.push(&s.extents);

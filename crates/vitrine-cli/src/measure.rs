@@ -134,9 +134,10 @@ pub fn measure(a: &CorpusArgs, x: &Made, notes: &mut Vec<String>) -> Result<Vec<
     }
     // The fields to compare, checked before anything is written.
     let fields: Vec<&FieldColumn> = if a.compare_fields.is_empty() {
+        // Fields with several values per record are left out: the test takes each item once.
         x.cols
             .iter()
-            .filter(|c| c.field.kind == FieldKind::Category)
+            .filter(|c| c.field.kind == FieldKind::Category && c.multi.is_none())
             .collect()
     } else {
         a.compare_fields
@@ -151,6 +152,9 @@ pub fn measure(a: &CorpusArgs, x: &Made, notes: &mut Vec<String>) -> Result<Vec<
                     })?;
                 if c.field.kind != FieldKind::Category {
                     bail!("--compare-fields: {f:?} is not a category field");
+                }
+                if c.multi.is_some() {
+                    bail!("--compare-fields: {f:?} holds several values per record; the test compares fields with one value per record");
                 }
                 Ok(c)
             })
@@ -228,6 +232,9 @@ pub fn measure(a: &CorpusArgs, x: &Made, notes: &mut Vec<String>) -> Result<Vec<
                 let Column::Category(codes) = &period_field.column else {
                     bail!("--periods {pf:?}: the periods must be a category field");
                 };
+                if period_field.multi.is_some() {
+                    bail!("--periods {pf:?}: the field holds several values per record; periods need one per record");
+                }
                 let nv = period_field.field.values.len();
                 let raw = move |i: usize| Some(codes[i] as usize).filter(|&c| c < nv);
                 let all: Vec<usize> = (0..n).collect();

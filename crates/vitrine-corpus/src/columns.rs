@@ -15,9 +15,18 @@ pub enum Column {
     Text(TextTable),
 }
 
+/// Every item's values of a multi-valued category field.
+pub struct Multi {
+    /// Items + 1 offsets into `codes`.
+    pub offsets: Vec<u32>,
+    pub codes: Vec<u32>,
+}
+
 pub struct FieldColumn {
     pub field: Field,
     pub column: Column,
+    /// A multi-valued category field's values per item (the column holds the first of each).
+    pub multi: Option<Multi>,
     /// Date and number fields: each value as the catalogue wrote it.
     pub written: Option<TextTable>,
     /// Every item's text folded for search, made by the first search that reads the field and
@@ -57,6 +66,18 @@ impl FoldedText {
 }
 
 impl FieldColumn {
+    /// Item `i`'s category codes: every value of a multi-valued field, else its one value (none
+    /// when empty, or when the field is not a category).
+    pub fn codes_of(&self, i: usize) -> &[u32] {
+        if let Some(m) = &self.multi {
+            return &m.codes[m.offsets[i] as usize..m.offsets[i + 1] as usize];
+        }
+        match &self.column {
+            Column::Category(c) if c[i] != u32::MAX => std::slice::from_ref(&c[i]),
+            _ => &[],
+        }
+    }
+
     /// Item `i`'s value as text: as the catalogue wrote it where that is kept, else the value
     /// ("" when empty).
     pub fn text(&self, i: usize) -> String {
@@ -125,9 +146,31 @@ pub fn decode_fields(m: &Manifest, files: &AtlasFiles) -> Result<Vec<FieldColumn
             Some([a, b]) => Some(text(a, b)?),
             None => None,
         };
+        let multi = match &f.multi {
+            Some([a, b]) => {
+                let m = Multi {
+                    offsets: files.array(a)?,
+                    codes: files.array(b)?,
+                };
+                // Offsets that climb from 0 to the codes' count, codes within the vocabulary:
+                // what a build writes; anything else is a damaged atlas, not an index to follow.
+                let climbs = m.offsets.first() == Some(&0)
+                    && m.offsets.windows(2).all(|w| w[0] <= w[1])
+                    && m.offsets.last().map(|&l| l as usize) == Some(m.codes.len());
+                if !climbs || m.codes.iter().any(|&c| c as usize >= f.values.len()) {
+                    return Err(AtlasError::Inconsistent(format!(
+                        "field {}: its values per item do not fit its vocabulary",
+                        f.name
+                    )));
+                }
+                Some(m)
+            }
+            None => None,
+        };
         fields.push(FieldColumn {
             field: f.clone(),
             column,
+            multi,
             written,
             folded: Default::default(),
         });

@@ -82,6 +82,14 @@ pub fn compare_field(
             reason: "corpora are compared on category fields".into(),
         });
     };
+    if col.multi.is_some() {
+        // The chi-square test takes each item once, in one cell: a record with several values
+        // would be counted in several.
+        return Err(CorpusError::Field {
+            field: col.field.name.clone(),
+            reason: "holds several values per record; corpora are compared on fields with one value per record (filter by one of its values and compare the corpora on another field)".into(),
+        });
+    }
     let k = col.field.values.len();
     let count = |items: &[usize]| {
         let mut c = vec![0.0f64; k];
@@ -259,6 +267,7 @@ mod tests {
         FieldColumn {
             field,
             column: Column::Category(codes),
+            multi: None,
             written: None,
             folded: Default::default(),
         }

@@ -140,6 +140,12 @@ impl Filter {
                     })?;
                     wanted[code] = true;
                 }
+                if f.multi.is_some() {
+                    // Several values per record: any one of them chosen lets the record pass.
+                    return Ok(Mask::from_fn(n, |i| {
+                        f.codes_of(i).iter().any(|&c| wanted[c as usize])
+                    }));
+                }
                 Ok(Mask::from_fn(n, |i| {
                     wanted.get(codes[i] as usize).copied().unwrap_or(false)
                 }))
@@ -322,15 +328,18 @@ impl Applied {
     }
 }
 
-/// Items per value of a category field among `under` (in the field's value order).
+/// Items per value of a category field among `under` (in the field's value order); an item of a
+/// multi-valued field counts once for each of its values.
 pub fn category_counts(c: &FieldColumn, under: &Mask) -> Vec<u64> {
-    let Column::Category(codes) = &c.column else {
+    if !matches!(c.column, Column::Category(_)) {
         return Vec::new();
-    };
+    }
     let mut counts = vec![0u64; c.field.values.len()];
     for i in under.items() {
-        if let Some(k) = counts.get_mut(codes[i] as usize) {
-            *k += 1;
+        for &code in c.codes_of(i) {
+            if let Some(k) = counts.get_mut(code as usize) {
+                *k += 1;
+            }
         }
     }
     counts

@@ -487,21 +487,27 @@ pub fn groups_of_variable(
 /// The groups of a category field over `items`: one per value (the items with a value are the
 /// base).
 pub fn groups_of_field(col: &FieldColumn, items: &[usize]) -> Result<Groups, CorpusError> {
-    let Column::Category(codes) = &col.column else {
+    if !matches!(col.column, Column::Category(_)) {
         return Err(CorpusError::Field {
             field: col.field.name.clone(),
             reason: "profiles count the values of category fields".into(),
         });
-    };
+    }
     let mut g = Groups {
         names: col.field.values.clone(),
         members: vec![Vec::new(); col.field.values.len()],
         base: Vec::new(),
     };
+    // An item of a multi-valued field is in the group of each of its values, and once in the base.
     for &i in items {
-        let c = codes[i] as usize;
-        if c < g.members.len() {
-            g.members[c].push(i);
+        let mut any = false;
+        for &c in col.codes_of(i) {
+            if let Some(m) = g.members.get_mut(c as usize) {
+                m.push(i);
+                any = true;
+            }
+        }
+        if any {
             g.base.push(i);
         }
     }

@@ -31,11 +31,13 @@ pub fn figures(cols: &[FieldColumn], items: &Mask, top: usize) -> Figures {
                     spans.push((c.field.name.clone(), a, b));
                 }
             }
-            Column::Category(codes) => {
+            Column::Category(_) => {
                 let mut counts = vec![0u64; c.field.values.len()];
                 for i in items.items() {
-                    if let Some(k) = counts.get_mut(codes[i] as usize) {
-                        *k += 1;
+                    for &code in c.codes_of(i) {
+                        if let Some(k) = counts.get_mut(code as usize) {
+                            *k += 1;
+                        }
                     }
                 }
                 let mut order: Vec<usize> = (0..counts.len()).filter(|&v| counts[v] > 0).collect();
@@ -79,6 +81,7 @@ mod tests {
             values: values.iter().map(|s| s.to_string()).collect(),
             value_counts: vec![],
             written: None,
+            multi: None,
         }
     }
 
@@ -91,6 +94,7 @@ mod tests {
                     start: vec![1500, 1540, i32::MIN, 1480],
                     end: vec![1510, 1560, i32::MIN, 1490],
                 },
+                multi: None,
                 written: None,
                 folded: Default::default(),
             },
@@ -101,6 +105,7 @@ mod tests {
                     &["etching", "woodcut", "drawing"],
                 ),
                 column: Column::Category(vec![1, 0, 1, 2]),
+                multi: None,
                 written: None,
                 folded: Default::default(),
             },

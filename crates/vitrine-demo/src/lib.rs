@@ -74,7 +74,7 @@ pub struct Record {
     pub fields: Vec<String>,
 }
 
-pub const HEADER: [&str; 12] = [
+pub const HEADER: [&str; 13] = [
     "id",
     "title",
     "workshop",
@@ -87,6 +87,25 @@ pub const HEADER: [&str; 12] = [
     "shelf_mark",
     "image",
     "record",
+    "keywords",
+];
+
+/// Index keywords per family (an invented indexing vocabulary), several per record.
+const KEYWORDS: [[&str; 4]; 14] = [
+    ["figure", "gesture", "study", "drapery"],
+    ["ornament", "rosette", "ceiling", "design"],
+    ["ornament", "border", "pattern", "design"],
+    ["landscape", "hills", "view", "study"],
+    ["landscape", "coast", "ship", "view"],
+    ["tree", "nature study", "foliage", "study"],
+    ["architecture", "arcade", "view", "design"],
+    ["portrait", "figure", "costume", "profile"],
+    ["textile", "pattern", "weaving", "design"],
+    ["textile", "marbling", "pattern", "bookbinding"],
+    ["cartography", "sky", "stars", "chart"],
+    ["heraldry", "device", "lettering", "emblem"],
+    ["vessel", "profile", "metalwork", "design"],
+    ["lettering", "calligraphy", "flourish", "pattern"],
 ];
 
 /// The catalogue record of item `i`: its family's workshops, places and period shape every field.
@@ -191,9 +210,26 @@ pub fn record(i: usize, family: usize, rng: &mut Rng, w: u32, h: u32) -> Record 
         ),
         format!("{id}.jpg"),
         format!("https://archive.example/vitrine-demo/{id}"),
+        keywords(family, rng),
     ];
     let _ = subject;
     Record { id, family, fields }
+}
+
+/// One to three of the family's index keywords, separated by "; " as catalogues export them; one
+/// record in ten has none. Drawn after every other field, so that the rest of the record does not
+/// depend on them.
+fn keywords(family: usize, rng: &mut Rng) -> String {
+    if rng.uniform() < 0.1 {
+        return String::new();
+    }
+    let pool = KEYWORDS[family];
+    let n = 1 + rng.below(3) as usize;
+    let start = rng.below(4) as usize;
+    (0..n)
+        .map(|k| pool[(start + k) % 4])
+        .collect::<Vec<_>>()
+        .join("; ")
 }
 
 pub struct Generated {

@@ -235,7 +235,8 @@ pub enum FieldKind {
 pub struct Field {
     pub name: String,
     pub kind: FieldKind,
-    /// Category codes, f32 numbers, or for text/link fields the text table's offsets.
+    /// Category codes (a multi-valued field: each item's first value), f32 numbers, or for
+    /// text/link fields the text table's offsets.
     pub column: ArrayRef,
     /// Date fields: the end years (the start years are in `column`). Text fields: the UTF-8 bytes.
     #[serde(default, skip_serializing_if = "Option::is_none")]
@@ -249,6 +250,12 @@ pub struct Field {
     /// (offsets, bytes), so that the record card shows the record's own words.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub written: Option<[ArrayRef; 2]>,
+    /// Multi-valued category fields (keywords, subject headings, classification codes: several
+    /// values per record): every item's values, `offsets` (u32, items + 1, from 0) into `codes`
+    /// (u32, each a value's index, no repeats within an item). `value_counts` then counts the
+    /// items holding each value, and `written` keeps each record's values as catalogued.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub multi: Option<[ArrayRef; 2]>,
 }
 
 /// A text column: `offsets` (u32, count + 1 entries, starting at 0) into `utf8` bytes.
@@ -726,12 +733,27 @@ impl Manifest {
             match f.kind {
                 FieldKind::Category => {
                     want(&f.column, n, DType::U32)?;
+                    if let Some([offsets, codes]) = &f.multi {
+                        want(offsets, n + 1, DType::U32)?;
+                        if codes.dtype != DType::U32 {
+                            return Err(AtlasError::Inconsistent(format!(
+                                "field {}: the multi-valued codes are not u32",
+                                f.name
+                            )));
+                        }
+                    }
                     if f.values.len() != f.value_counts.len() {
                         return Err(AtlasError::Inconsistent(format!(
                             "field {}: values and counts differ",
                             f.name
                         )));
                     }
+                }
+                _ if f.multi.is_some() => {
+                    return Err(AtlasError::Inconsistent(format!(
+                        "field {}: only category fields hold several values",
+                        f.name
+                    )))
                 }
                 FieldKind::Number => want(&f.column, n, DType::F32)?,
                 FieldKind::Date => {
@@ -855,6 +877,10 @@ impl Manifest {
                 v.push(c);
             }
             if let Some([a, b]) = &f.written {
+                v.push(a);
+                v.push(b);
+            }
+            if let Some([a, b]) = &f.multi {
                 v.push(a);
                 v.push(b);
             }

@@ -66,24 +66,51 @@ fn rgba(c: [u8; 3]) -> [u8; 4] {
 pub fn by_field(c: &FieldColumn, n: usize) -> (Vec<[u8; 4]>, Legend) {
     match &c.column {
         Column::Category(codes) => {
-            let mut counts = vec![0u64; c.field.values.len()];
-            for &k in codes.iter().take(n) {
-                if let Some(x) = counts.get_mut(k as usize) {
-                    *x += 1;
+            let nv = c.field.values.len();
+            let n = n.min(codes.len());
+            // Items holding each value (every value of a multi-valued field).
+            let mut counts = vec![0u64; nv];
+            for i in 0..n {
+                for &k in c.codes_of(i) {
+                    if let Some(x) = counts.get_mut(k as usize) {
+                        *x += 1;
+                    }
                 }
             }
-            let mut order: Vec<usize> = (0..counts.len()).filter(|&v| counts[v] > 0).collect();
+            let mut order: Vec<usize> = (0..nv).filter(|&v| counts[v] > 0).collect();
             order.sort_by_key(|&v| (std::cmp::Reverse(counts[v]), v));
-            let mut colour = vec![OTHER; counts.len()];
+            let mut rank = vec![usize::MAX; nv];
+            for (r, &v) in order.iter().enumerate() {
+                rank[v] = r;
+            }
+            // An item takes its value's colour; with several values, that of the most common.
+            let pick: Vec<Option<usize>> = (0..n)
+                .map(|i| {
+                    c.codes_of(i)
+                        .iter()
+                        .map(|&k| k as usize)
+                        .filter(|&k| k < nv)
+                        .min_by_key(|&k| rank[k])
+                })
+                .collect();
+            let mut coloured = vec![0u64; nv];
+            for v in pick.iter().flatten() {
+                coloured[*v] += 1;
+            }
+            let mut colour = vec![OTHER; nv];
             let mut shown = Vec::new();
             for (k, &v) in order.iter().take(OKABE_ITO.len()).enumerate() {
                 colour[v] = OKABE_ITO[k];
-                shown.push((c.field.values[v].clone(), OKABE_ITO[k], counts[v]));
+                shown.push((c.field.values[v].clone(), OKABE_ITO[k], coloured[v]));
             }
-            let rest = order.iter().skip(OKABE_ITO.len()).map(|&v| counts[v]).sum();
-            let cols = codes
+            let rest = order
                 .iter()
-                .map(|&k| rgba(colour.get(k as usize).copied().unwrap_or(MISSING)))
+                .skip(OKABE_ITO.len())
+                .map(|&v| coloured[v])
+                .sum();
+            let cols = pick
+                .iter()
+                .map(|v| rgba(v.map_or(MISSING, |v| colour[v])))
                 .collect();
             (cols, Legend::Categories(shown, rest))
         }
@@ -199,10 +226,12 @@ mod tests {
             values: (0..10).map(|k| format!("v{k}")).collect(),
             value_counts: vec![],
             written: None,
+            multi: None,
         };
         let c = FieldColumn {
             field,
             column: Column::Category(codes.clone()),
+            multi: None,
             written: None,
             folded: Default::default(),
         };

@@ -173,8 +173,10 @@ mod tests {
                 values: values.iter().map(|s| s.to_string()).collect(),
                 value_counts: vec![],
                 written: None,
+                multi: None,
             },
             column: Column::Category(codes),
+            multi: None,
             written: None,
             folded: Default::default(),
         }

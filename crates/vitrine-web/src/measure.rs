@@ -162,6 +162,11 @@ fn compute(a: &App, of: &str, per: &str) -> Result<(Profile, String), String> {
         let Column::Category(codes) = &col.column else {
             return Err(format!("{f:?} is not a category field"));
         };
+        if col.multi.is_some() {
+            return Err(format!(
+                "{f:?} holds several values per record; periods need one per record"
+            ));
+        }
         let nv = col.field.values.len();
         let raw = |i: usize| Some(codes[i] as usize).filter(|&c| c < nv);
         let all: Vec<usize> = (0..a.atlas.n).collect();
