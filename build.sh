@@ -32,10 +32,11 @@ setup() {
   # decides point-in-lasso for the corpus tests; krippendorff computes the agreement between coders,
   # statsmodels the Wilson intervals (scipy, which scikit-learn brings, the chi-square test);
   # imagehash the perceptual hash the copies are confirmed by; onnx writes the test image models and
-  # onnxruntime runs them as the reference for `--model`; pyarrow writes Parquet and Arrow vectors.
-  if [ ! -x "$CACHE/venv/bin/python" ] || ! "$CACHE/venv/bin/python" -c "import numpy, sklearn, umap, PIL, skimage, shapely, krippendorff, statsmodels, scipy, imagehash, safetensors, openpyxl, onnx, onnxruntime, pyarrow" 2>/dev/null; then
+  # onnxruntime runs them as the reference for `--model`; pyarrow writes Parquet and Arrow vectors;
+  # pandas splits and counts the keyword lists of the multi-valued fields' test.
+  if [ ! -x "$CACHE/venv/bin/python" ] || ! "$CACHE/venv/bin/python" -c "import numpy, sklearn, umap, PIL, skimage, shapely, krippendorff, statsmodels, scipy, imagehash, safetensors, openpyxl, onnx, onnxruntime, pyarrow, pandas" 2>/dev/null; then
     [ -x "$CACHE/venv/bin/python" ] || python3 -m venv "$CACHE/venv"
-    "$CACHE/venv/bin/pip" install --progress-bar on numpy scikit-learn umap-learn pillow scikit-image shapely krippendorff statsmodels scipy imagehash safetensors openpyxl onnx onnxruntime pyarrow
+    "$CACHE/venv/bin/pip" install --progress-bar on numpy scikit-learn umap-learn pillow scikit-image shapely krippendorff statsmodels scipy imagehash safetensors openpyxl onnx onnxruntime pyarrow pandas
   fi
 }
 

@@ -219,8 +219,14 @@ impl BuildOptions {
             if self.single_valued.contains(f) {
                 bail!("{f:?} is named by both --multi-valued and --single-valued");
             }
-            if sep.as_deref().is_some_and(|s| s.trim().is_empty()) {
+            if sep.as_deref().is_some_and(str::is_empty) {
                 bail!("--multi-valued {f}=SEP: the separator is empty");
+            }
+            if self.multi_valued.iter().filter(|(g, _)| g == f).count() > 1 {
+                bail!("--multi-valued names {f:?} more than once");
+            }
+            if *f == self.id_column {
+                bail!("--multi-valued {f:?}: that is the id column, one id per record");
             }
         }
         if self.k == 0 {

@@ -136,7 +136,12 @@ pub fn write_atlas(
             (colours, Some(sheets))
         }
         None => {
-            let first_category = fields.iter().find_map(|f| f.codes.as_ref());
+            // The first category with one value per record (a record of a multi-valued field
+            // has no one colour).
+            let first_category = fields
+                .iter()
+                .filter(|f| f.all.is_none())
+                .find_map(|f| f.codes.as_ref());
             let colours = (0..n)
                 .map(|i| {
                     let c = match first_category {
@@ -165,6 +170,19 @@ pub fn write_atlas(
             .map(|s| s.to_string_lossy().to_string())
             .unwrap_or_else(|| "Atlas".into())
     });
+    // Fields read with several values per record, and how (found, or as told), for the provenance.
+    let multi: Vec<serde_json::Value> = fields
+        .iter()
+        .filter_map(|f| {
+            let sep = f.field.multi_separator.as_ref()?;
+            let told = opts.multi_valued.iter().any(|(g, _)| *g == f.field.name);
+            Some(json!({
+                "field": f.field.name,
+                "separator": sep,
+                "how": if told { "--multi-valued" } else { "found from the values" },
+            }))
+        })
+        .collect();
     let manifest = Manifest {
         format: FORMAT_NAME.into(),
         format_version: FORMAT_VERSION,
@@ -186,7 +204,16 @@ pub fn write_atlas(
             tool: "vitrine".into(),
             tool_version: env!("CARGO_PKG_VERSION").into(),
             inputs: input_files,
-            parameters: parameters(opts, &c, n, described.as_ref()),
+            parameters: {
+                let mut p = parameters(opts, &c, n, described.as_ref());
+                if !multi.is_empty() {
+                    p.insert("multi_valued_fields".into(), json!(multi));
+                }
+                if !opts.single_valued.is_empty() {
+                    p.insert("single_valued_fields".into(), json!(opts.single_valued));
+                }
+                p
+            },
             seed: opts.seed,
         },
     };
@@ -331,10 +358,12 @@ fn neighbours(
     }
 }
 
-/// A catalogue field as written, with its category codes (atlas order) when it is a category.
+/// A catalogue field as written, with its category codes (atlas order) when it is a category
+/// (a multi-valued field: each item's first value, and all its values, offsets into codes).
 struct WrittenField {
     field: Field,
     codes: Option<Vec<u32>>,
+    all: Option<(Vec<u32>, Vec<u32>)>,
 }
 
 /// Every catalogue column but the id, its kind inferred, in atlas order.
@@ -358,6 +387,7 @@ fn fields(
         let values: Vec<&str> = item_rows.iter().map(|&r| cat.rows[r][c].as_str()).collect();
         // Several values per record: as the user says (--multi-valued, --single-valued), else
         // as the values show.
+        let inferred = catalogue::infer_kind(name, &values);
         let separator = match opts.multi_valued.iter().find(|(f, _)| f == name) {
             Some((_, Some(sep))) => Some(sep.clone()),
             Some((_, None)) => Some(
@@ -366,18 +396,22 @@ fn fields(
                     .to_string(),
             ),
             None if opts.single_valued.iter().any(|f| f == name) => None,
-            None => catalogue::multi_separator(name, &values).map(String::from),
+            None => catalogue::multi_separator(inferred, name, &values).map(String::from),
         };
         let data = match &separator {
             Some(sep) => catalogue::multi_field_data(&values, sep),
-            None => {
-                let kind = catalogue::infer_kind(name, &values);
-                catalogue::field_data(name, kind, &values, ids_sorted, &mut report.value_warnings)
-            }
+            None => catalogue::field_data(
+                name,
+                inferred,
+                &values,
+                ids_sorted,
+                &mut report.value_warnings,
+            ),
         };
         let kind = data.kind();
         let tag = format!("field-{}-{}", fields.len(), safe_name(name));
         let mut multi = None;
+        let mut all = None;
         let (column, column2, values, value_counts, written, codes) = match data {
             FieldData::Category {
                 codes,
@@ -401,6 +435,7 @@ fn fields(
                     w.add(&format!("{tag}.offsets"), &offsets),
                     w.add(&format!("{tag}.codes"), &codes),
                 ]);
+                all = Some((offsets, codes));
                 let written = w.text(&format!("{tag}.written"), &written);
                 (
                     w.add(&tag, &first),
@@ -451,8 +486,10 @@ fn fields(
                 value_counts,
                 written,
                 multi,
+                multi_separator: separator.filter(|_| all.is_some()),
             },
             codes,
+            all,
         });
     }
     fields
@@ -468,11 +505,23 @@ fn clusters(
     fields: &[WrittenField],
 ) -> Clusters {
     let cluster_of: Vec<u32> = order.iter().map(|&i| clusters[i]).collect();
-    let category_columns: Vec<(String, Vec<u32>, Vec<String>)> = fields
+    let category_columns: Vec<vitrine_map::clusters::LabelField> = fields
         .iter()
         .filter_map(|f| {
             let codes = f.codes.as_ref()?;
-            Some((f.field.name.clone(), codes.clone(), f.field.values.clone()))
+            Some(match &f.all {
+                Some((offsets, all)) => vitrine_map::clusters::LabelField {
+                    name: f.field.name.clone(),
+                    values: f.field.values.clone(),
+                    offsets: offsets.clone(),
+                    codes: all.clone(),
+                },
+                None => vitrine_map::clusters::LabelField::single(
+                    f.field.name.clone(),
+                    codes,
+                    f.field.values.clone(),
+                ),
+            })
         })
         .collect();
     let terms = vitrine_map::clusters::label_terms(&cluster_of, &category_columns, 3);
@@ -795,8 +844,10 @@ fn write_copies(
             value_counts: vec![members.len() as u64],
             written: None,
             multi: None,
+            multi_separator: None,
         },
         codes: Some(codes),
+        all: None,
     });
     Ok(vitrine_format::Copies {
         method: format!(

@@ -185,8 +185,8 @@ pub struct BuildArgs {
     copy_colour: f32,
     /// A catalogue field that holds several values per record (keywords, subject headings,
     /// classification codes), filtered and counted value by value: FIELD, or FIELD=SEP to name
-    /// the separator (default: the one its values use, `|` or `;`). Repeatable. Such fields are
-    /// also found from their values (docs/building.md).
+    /// the separator (default: the one its values use, `|` or `;`; `\n` a line break, `\t` a
+    /// tab). Repeatable. Such fields are also found from their values (docs/building.md).
     #[arg(long = "multi-valued", value_name = "FIELD[=SEP]")]
     multi_valued: Vec<String>,
     /// A catalogue field read as one value per record even where its values look like several.
@@ -293,7 +293,11 @@ impl BuildArgs {
                 .multi_valued
                 .iter()
                 .map(|m| match m.split_once('=') {
-                    Some((f, sep)) => (f.to_string(), Some(sep.to_string())),
+                    // \n and \t name a line break and a tab (lists in one spreadsheet cell).
+                    Some((f, sep)) => (
+                        f.to_string(),
+                        Some(sep.replace("\\n", "\n").replace("\\t", "\t")),
+                    ),
                     None => (m.clone(), None),
                 })
                 .collect(),

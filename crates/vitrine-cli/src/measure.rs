@@ -135,6 +135,18 @@ pub fn measure(a: &CorpusArgs, x: &Made, notes: &mut Vec<String>) -> Result<Vec<
     // The fields to compare, checked before anything is written.
     let fields: Vec<&FieldColumn> = if a.compare_fields.is_empty() {
         // Fields with several values per record are left out: the test takes each item once.
+        let multi: Vec<&str> = x
+            .cols
+            .iter()
+            .filter(|c| c.multi.is_some())
+            .map(|c| c.field.name.as_str())
+            .collect();
+        if other.is_some() && !multi.is_empty() {
+            notes.push(format!(
+                "the comparison leaves out {} (several values per record; the test takes each item once)",
+                multi.join(", ")
+            ));
+        }
         x.cols
             .iter()
             .filter(|c| c.field.kind == FieldKind::Category && c.multi.is_none())

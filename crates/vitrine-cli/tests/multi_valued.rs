@@ -52,7 +52,9 @@ print(json.dumps({
     "any": holding("subjects", ";", ["kw00", "kw05"]),
     "and": int((df["codes"].str.split("|").apply(lambda p: "B1" in p)
                 & df["subjects"].fillna("").str.split(";").apply(lambda p: "kw00" in [x.strip() for x in p])).sum()),
-    "row7": df["subjects"].fillna("")[7],
+    # A record with several values, written with uneven spacing: exports keep it as written.
+    "listed": next((r["id"], r["subjects"]) for _, r in df.iterrows()
+                   if isinstance(r["subjects"], str) and " ; " in r["subjects"]),
 }))
 "#;
 
@@ -154,12 +156,29 @@ fn keyword_fields_are_counted_and_filtered_value_by_value_as_pandas_counts_them(
     let mut r = csv::Reader::from_path(&csv).unwrap();
     let header: Vec<String> = r.headers().unwrap().iter().map(String::from).collect();
     let k = header.iter().position(|h| h == "subjects").unwrap();
-    let row7 = r
+    let (id, written) = (
+        want["listed"][0].as_str().unwrap(),
+        want["listed"][1].as_str().unwrap(),
+    );
+    let row = r
         .records()
         .map(|x| x.unwrap())
-        .find(|x| &x[0] == "r007")
+        .find(|x| &x[0] == id)
         .unwrap();
-    assert_eq!(&row7[k], want["row7"].as_str().unwrap());
+    assert_eq!(&row[k], written);
+    // The provenance says which fields were read so, and how.
+    let p = &atlas.manifest.provenance.parameters["multi_valued_fields"];
+    assert_eq!(p[0]["field"], "subjects", "{p}");
+    assert_eq!(p[0]["separator"], ";");
+    assert_eq!(p[0]["how"], "found from the values");
+    // A whole list is not a value: the message says the field holds several.
+    let o = common::vitrine()
+        .args(["corpus", d.join("atlas").to_str().unwrap()])
+        .args(["--filter", &format!("subjects={written}")])
+        .output()
+        .unwrap();
+    let err = common::failure_of(&o);
+    assert!(err.contains("holds several values per record"), "{err}");
 }
 
 #[test]

@@ -129,10 +129,16 @@ impl Filter {
                 for v in values {
                     let code = vocab.iter().position(|x| x == v).ok_or_else(|| {
                         let some: Vec<&str> = vocab.iter().take(12).map(|s| s.as_str()).collect();
+                        let several = match &f.field.multi_separator {
+                            Some(sep) if f.multi.is_some() => format!(
+                                "; it holds several values per record, separated by {sep:?}: choose one of them, or build with --single-valued {name:?} to take each record's values as one"
+                            ),
+                            _ => String::new(),
+                        };
                         CorpusError::Field {
                             field: name.clone(),
                             reason: format!(
-                                "has no value {v:?} (values include {}{})",
+                                "has no value {v:?} (values include {}{}){several}",
                                 some.join(", "),
                                 if vocab.len() > 12 { ", …" } else { "" }
                             ),

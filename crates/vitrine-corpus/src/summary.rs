@@ -82,6 +82,7 @@ mod tests {
             value_counts: vec![],
             written: None,
             multi: None,
+            multi_separator: None,
         }
     }
 

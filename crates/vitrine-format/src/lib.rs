@@ -256,6 +256,9 @@ pub struct Field {
     /// items holding each value, and `written` keeps each record's values as catalogued.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub multi: Option<[ArrayRef; 2]>,
+    /// A multi-valued field's separator in `written` (`;`, `|`, or the one the build was told).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub multi_separator: Option<String>,
 }
 
 /// A text column: `offsets` (u32, count + 1 entries, starting at 0) into `utf8` bytes.
@@ -734,6 +737,12 @@ impl Manifest {
                 FieldKind::Category => {
                     want(&f.column, n, DType::U32)?;
                     if let Some([offsets, codes]) = &f.multi {
+                        if f.written.is_none() {
+                            return Err(AtlasError::Inconsistent(format!(
+                                "field {}: several values per record but not as written",
+                                f.name
+                            )));
+                        }
                         want(offsets, n + 1, DType::U32)?;
                         if codes.dtype != DType::U32 {
                             return Err(AtlasError::Inconsistent(format!(

@@ -142,13 +142,40 @@ pub struct Term {
     pub lift: f64,
 }
 
+/// A category field as cluster labels read it: each item's values, `offsets` (items + 1) into
+/// `codes` (indices into `values`; one per item for a field with one value per record).
+pub struct LabelField {
+    pub name: String,
+    pub values: Vec<String>,
+    pub offsets: Vec<u32>,
+    pub codes: Vec<u32>,
+}
+
+impl LabelField {
+    /// A field with one value per item (`u32::MAX` or any code past the values: none).
+    pub fn single(name: String, codes: &[u32], values: Vec<String>) -> LabelField {
+        let mut offsets = Vec::with_capacity(codes.len() + 1);
+        let mut kept = Vec::with_capacity(codes.len());
+        offsets.push(0);
+        for &c in codes {
+            if (c as usize) < values.len() {
+                kept.push(c);
+            }
+            offsets.push(kept.len() as u32);
+        }
+        LabelField {
+            name,
+            values,
+            offsets,
+            codes: kept,
+        }
+    }
+}
+
 /// The most over-represented values per cluster (values held by at least a third of the cluster's items,
-/// with lift at least 1.5), best first, at most `max` per cluster.
-pub fn label_terms(
-    clusters: &[u32],
-    fields: &[(String, Vec<u32>, Vec<String>)],
-    max: usize,
-) -> Vec<Vec<Term>> {
+/// with lift at least 1.5), best first, at most `max` per cluster. An item with several values of
+/// a field counts for each.
+pub fn label_terms(clusters: &[u32], fields: &[LabelField], max: usize) -> Vec<Vec<Term>> {
     let k = clusters.iter().map(|&c| c as usize + 1).max().unwrap_or(0);
     let n = clusters.len() as f64;
     let mut size = vec![0usize; k];
@@ -156,13 +183,21 @@ pub fn label_terms(
         size[c as usize] += 1;
     }
     let mut out: Vec<Vec<Term>> = vec![Vec::new(); k];
-    for (name, codes, values) in fields {
+    for LabelField {
+        name,
+        values,
+        offsets,
+        codes,
+    } in fields
+    {
         let mut total = vec![0usize; values.len()];
         let mut per = vec![std::collections::HashMap::<u32, usize>::new(); k];
-        for (i, &code) in codes.iter().enumerate() {
-            if (code as usize) < values.len() {
-                total[code as usize] += 1;
-                *per[clusters[i] as usize].entry(code).or_default() += 1;
+        for (i, w) in offsets.windows(2).enumerate().take(clusters.len()) {
+            for &code in &codes[w[0] as usize..w[1] as usize] {
+                if (code as usize) < values.len() {
+                    total[code as usize] += 1;
+                    *per[clusters[i] as usize].entry(code).or_default() += 1;
+                }
             }
         }
         for c in 0..k {
@@ -236,14 +271,28 @@ mod tests {
     fn labels_name_what_is_over_represented() {
         let clusters = vec![0, 0, 0, 0, 1, 1, 1, 1];
         let codes = vec![0, 0, 0, 1, 1, 1, 1, 1];
-        let fields = vec![(
+        let fields = vec![LabelField::single(
             "technique".to_string(),
-            codes,
+            &codes,
             vec!["etching".to_string(), "woodcut".to_string()],
         )];
         let t = label_terms(&clusters, &fields, 3);
         assert_eq!(t[0][0].value, "etching");
         assert!((t[0][0].share - 0.75).abs() < 1e-12 && (t[0][0].lift - 2.0).abs() < 1e-12);
         assert_eq!(t[1][0].value, "woodcut");
+        // Several values per item: "night", held by 3 of cluster 1's 4 items (second in two of
+        // them) and by none of cluster 0, labels cluster 1.
+        let keywords = LabelField {
+            name: "keywords".into(),
+            values: vec!["ship".into(), "night".into()],
+            offsets: vec![0, 1, 2, 3, 4, 6, 8, 9, 9],
+            codes: vec![0, 0, 0, 0, 0, 1, 0, 1, 1],
+        };
+        let t = label_terms(&clusters, &[keywords], 3);
+        let night = t[1]
+            .iter()
+            .find(|t| t.value == "night")
+            .expect("night labels cluster 1");
+        assert!((night.share - 0.75).abs() < 1e-12 && (night.lift - 2.0).abs() < 1e-12);
     }
 }

@@ -227,6 +227,7 @@ mod tests {
             value_counts: vec![],
             written: None,
             multi: None,
+            multi_separator: None,
         };
         let c = FieldColumn {
             field,

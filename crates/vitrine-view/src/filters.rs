@@ -174,6 +174,7 @@ mod tests {
                 value_counts: vec![],
                 written: None,
                 multi: None,
+                multi_separator: None,
             },
             column: Column::Category(codes),
             multi: None,

@@ -284,7 +284,14 @@ fn render_profile(app: &Rc<RefCell<App>>, body: &web_sys::Element) {
             pers.push((w.to_string(), format!("{w} years")));
         }
     }
-    for c in &cats {
+    // Periods need one value per record.
+    let single = |name: &str| {
+        a.atlas
+            .fields
+            .iter()
+            .any(|c| c.field.name == name && c.multi.is_none())
+    };
+    for c in cats.iter().filter(|c| single(c)) {
         pers.push((
             format!("field:{c}"),
             format!("{c} (the catalogue's periods)"),
