@@ -44,6 +44,18 @@ again = vitrine.corpus(atlas, work / "threes.json")
 assert again.equals(threes)
 print("corpus as a data frame:", len(threes), "rows")
 
+# 2b. A column of lists (keywords per record) is a field with several values per record: a filter
+# on one value gives the records whose list holds it.
+rng = np.random.default_rng(4)
+words = ["curve", "loop", "stroke", "dot", "bar"]
+cat["shapes"] = [sorted(set(rng.choice(words, size=rng.integers(1, 4)))) for _ in range(len(cat))]
+atlas_k = vitrine.build(vectors=digits.data, ids=ids, catalogue=cat, out=work / "digits-k", epochs=30, no_copies=True)
+field = next(f for f in json.load(open(atlas_k / "atlas.json"))["fields"] if f["name"] == "shapes")
+assert field.get("multi_separator") == "|", field
+loops = vitrine.corpus(atlas_k, filter="shapes=loop")
+assert len(loops) == sum("loop" in s for s in cat["shapes"]), len(loops)
+print("a column of lists:", len(loops), "records hold 'loop'")
+
 # 3. Pictures alone: vectors by the built-in descriptor.
 pics = work / "pictures"
 pics.mkdir(exist_ok=True)

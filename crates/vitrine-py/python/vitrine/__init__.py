@@ -76,14 +76,39 @@ def build(vectors=None, catalogue=None, images=None, out=None, *, ids=None, quie
                 words += ["--catalogue", os.fspath(catalogue)]
             else:
                 path = os.path.join(tmp, "catalogue.csv")
-                catalogue.to_csv(path, index=False, encoding="utf-8")
+                frame, listed = _joined_lists(catalogue)
+                frame.to_csv(path, index=False, encoding="utf-8")
                 words += ["--catalogue", path]
+                # Columns of lists (keywords per record): several values per record.
+                told = {str(v).split("=")[0] for v in _as_list(options.get("multi_valued"))}
+                words += [f"--multi-valued={c}=|" for c in listed if c not in told]
         if images is not None:
             words += ["--images", os.fspath(images)]
         if quiet:
             words.append("--quiet")
         run(words + _flags(options))
     return Path(out)
+
+
+def _as_list(v):
+    if v is None:
+        return []
+    return list(v) if isinstance(v, (list, tuple)) else [v]
+
+
+def _joined_lists(frame):
+    """The DataFrame with cells that hold lists, tuples or sets joined by "|", and those columns."""
+    listed = []
+    out = frame
+    for c in frame.columns:
+        if frame[c].map(lambda x: isinstance(x, (list, tuple, set))).any():
+            if out is frame:
+                out = frame.copy()
+            out[c] = frame[c].map(
+                lambda x: "|".join(str(v) for v in x) if isinstance(x, (list, tuple, set)) else x
+            )
+            listed.append(str(c))
+    return out, listed
 
 
 def corpus(atlas, corpus_file=None, **options):
