@@ -192,6 +192,13 @@ def documents(base):
             "/p3/manifest-c.json": manifest_c}
 
 
+def asked(path):
+    """How many times `path` has been asked for, this request included."""
+    with LOCK:
+        FLAKY[path] = FLAKY.get(path, 0) + 1
+        return FLAKY[path]
+
+
 class Handler(BaseHTTPRequestHandler):
     def log_message(self, *a):
         pass
@@ -221,18 +228,10 @@ class Handler(BaseHTTPRequestHandler):
             return self.send(200, jpeg(master(parts[1].split(".")[0])), "image/jpeg")
         if parts[0] == "gone":
             return self.send(404, b"gone", "text/plain")
-        if parts[0] == "crowd":
-            with LOCK:
-                FLAKY[path] = FLAKY.get(path, 0) + 1
-                n = FLAKY[path]
-            if n <= 1:
-                return self.send(429, b"too many requests", "text/plain", {"Retry-After": "1"})
-        if parts[0] == "flaky":
-            with LOCK:
-                FLAKY[path] = FLAKY.get(path, 0) + 1
-                n = FLAKY[path]
-            if n <= 2:
-                return self.send(503, b"busy", "text/plain", {"Retry-After": "0"})
+        if parts[0] == "crowd" and asked(path) <= 1:
+            return self.send(429, b"too many requests", "text/plain", {"Retry-After": "1"})
+        if parts[0] == "flaky" and asked(path) <= 2:
+            return self.send(503, b"busy", "text/plain", {"Retry-After": "0"})
         if parts[0] in ("img3", "img2", "lvl0", "lvl1", "flaky", "crowd") and len(parts) >= 3:
             name = parts[1]
             version = 2 if parts[0] == "img2" else 3

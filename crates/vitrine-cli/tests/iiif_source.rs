@@ -72,16 +72,6 @@ fn build(d: &Path, source: &str, out: &str) -> std::process::Output {
         .unwrap()
 }
 
-fn read_csv(path: &Path) -> (Vec<String>, Vec<Vec<String>>) {
-    let mut r = csv::Reader::from_path(path).unwrap();
-    let header = r.headers().unwrap().iter().map(String::from).collect();
-    let rows = r
-        .records()
-        .map(|x| x.unwrap().iter().map(String::from).collect())
-        .collect();
-    (header, rows)
-}
-
 #[test]
 fn a_collection_becomes_an_atlas_with_its_records_and_pictures_fetched_politely() {
     let server = serve();
@@ -146,15 +136,7 @@ fn a_collection_becomes_an_atlas_with_its_records_and_pictures_fetched_politely(
     assert!(log.contains(&"/static/c3.jpg".to_string()));
 
     // The catalogue the Canvases give.
-    let csv = d.join("all.csv");
-    let o = common::vitrine()
-        .args(["corpus", d.join("atlas").to_str().unwrap(), "--csv"])
-        .arg(&csv)
-        .arg("--csv-exact")
-        .output()
-        .unwrap();
-    assert!(o.status.success(), "{}", common::notes_of(&o));
-    let (header, rows) = read_csv(&csv);
+    let (header, rows) = common::every_row(&d.join("atlas"), &d.join("all.csv"));
     let col = |name: &str| {
         header
             .iter()

@@ -145,27 +145,14 @@ fn keyword_fields_are_counted_and_filtered_value_by_value_as_pandas_counts_them(
         want["and"].as_u64().unwrap()
     );
     // Exports keep each record's values as catalogued.
-    let csv = d.join("all.csv");
-    let o = common::vitrine()
-        .args(["corpus", d.join("atlas").to_str().unwrap(), "--csv"])
-        .arg(&csv)
-        .arg("--csv-exact")
-        .output()
-        .unwrap();
-    common::notes_of(&o);
-    let mut r = csv::Reader::from_path(&csv).unwrap();
-    let header: Vec<String> = r.headers().unwrap().iter().map(String::from).collect();
+    let (header, rows) = common::every_row(&d.join("atlas"), &d.join("all.csv"));
     let k = header.iter().position(|h| h == "subjects").unwrap();
     let (id, written) = (
         want["listed"][0].as_str().unwrap(),
         want["listed"][1].as_str().unwrap(),
     );
-    let row = r
-        .records()
-        .map(|x| x.unwrap())
-        .find(|x| &x[0] == id)
-        .unwrap();
-    assert_eq!(&row[k], written);
+    let row = rows.iter().find(|x| x[0] == id).unwrap();
+    assert_eq!(row[k], written);
     // The provenance says which fields were read so, and how.
     let p = &atlas.manifest.provenance.parameters["multi_valued_fields"];
     assert_eq!(p[0]["field"], "subjects", "{p}");

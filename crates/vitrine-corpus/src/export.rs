@@ -298,6 +298,21 @@ fn iiif_source(cols: &[FieldColumn], i: usize) -> IiifSource {
     }
 }
 
+/// A Canvas's `items`: one annotation page painting `body` onto the whole Canvas.
+fn painting(canvas_id: &str, body: Value) -> Value {
+    json!([{
+        "id": format!("{canvas_id}/page"),
+        "type": "AnnotationPage",
+        "items": [{
+            "id": format!("{canvas_id}/page/image"),
+            "type": "Annotation",
+            "motivation": "painting",
+            "body": body,
+            "target": canvas_id,
+        }],
+    }])
+}
+
 /// What an IIIF export needs besides the corpus.
 pub struct IiifOptions<'a> {
     /// Where the Manifest will be published (ends with "/"): the ids of the Manifest, its Canvases
@@ -397,24 +412,17 @@ pub fn iiif_manifest(
                 } else {
                     "full"
                 };
-                canvas["items"] = json!([{
-                    "id": format!("{canvas_id}/page"),
-                    "type": "AnnotationPage",
-                    "items": [{
-                        "id": format!("{canvas_id}/page/image"),
-                        "type": "Annotation",
-                        "motivation": "painting",
-                        "body": {
-                            "id": format!("{sid}/full/{full}/0/default.jpg"),
-                            "type": "Image",
-                            "format": "image/jpeg",
-                            "width": w,
-                            "height": h,
-                            "service": [service],
-                        },
-                        "target": canvas_id,
-                    }],
-                }]);
+                canvas["items"] = painting(
+                    &canvas_id,
+                    json!({
+                        "id": format!("{sid}/full/{full}/0/default.jpg"),
+                        "type": "Image",
+                        "format": "image/jpeg",
+                        "width": w,
+                        "height": h,
+                        "service": [service],
+                    }),
+                );
                 // A fitted size is for level 2 services only; others are left to the viewer,
                 // which asks the service itself.
                 let profile = service["profile"].as_str().unwrap_or("");
@@ -428,17 +436,10 @@ pub fn iiif_manifest(
                 }
             } else if let Some(url) = image {
                 let format = image_format(&url);
-                canvas["items"] = json!([{
-                    "id": format!("{canvas_id}/page"),
-                    "type": "AnnotationPage",
-                    "items": [{
-                        "id": format!("{canvas_id}/page/image"),
-                        "type": "Annotation",
-                        "motivation": "painting",
-                        "body": { "id": url, "type": "Image", "format": format, "width": w, "height": h },
-                        "target": canvas_id,
-                    }],
-                }]);
+                canvas["items"] = painting(
+                    &canvas_id,
+                    json!({ "id": url, "type": "Image", "format": format, "width": w, "height": h }),
+                );
                 canvas["thumbnail"] = json!([{ "id": url, "type": "Image", "format": format }]);
             }
             if let Some(url) = homepage {

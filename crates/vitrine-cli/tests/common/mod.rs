@@ -127,3 +127,22 @@ pub fn small_build(dir: &Path) {
         &["--vectors", "vectors.npy", "--catalogue", "records.csv"],
     );
 }
+
+/// `vitrine corpus ATLAS --csv OUT --csv-exact` (every item, cells as catalogued), read back:
+/// the header and the rows.
+pub fn every_row(atlas: &Path, out: &Path) -> (Vec<String>, Vec<Vec<String>>) {
+    let o = vitrine()
+        .args(["corpus", atlas.to_str().unwrap(), "--csv"])
+        .arg(out)
+        .arg("--csv-exact")
+        .output()
+        .unwrap();
+    notes_of(&o);
+    let mut r = csv::Reader::from_path(out).unwrap();
+    let header = r.headers().unwrap().iter().map(String::from).collect();
+    let rows = r
+        .records()
+        .map(|x| x.unwrap().iter().map(String::from).collect())
+        .collect();
+    (header, rows)
+}
