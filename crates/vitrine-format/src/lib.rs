@@ -17,6 +17,7 @@ use sha2::{Digest, Sha256};
 mod files;
 pub mod npy;
 pub mod palette;
+pub mod pyramid;
 
 pub use files::AtlasFiles;
 
