@@ -187,7 +187,19 @@ def documents(base):
                 {"id": c, "type": "Manifest", "label": lang("Awkward canvases")},
                 {"id": f"{base}/missing.json", "type": "Manifest", "label": lang("Missing")},
             ]}
-    return {"/collection.json": coll, "/p3/manifest-a.json": manifest_a,
+    # A 2.1 Collection split into pages (`first`, then `next`).
+    paged = {"@context": "http://iiif.io/api/presentation/2/context.json",
+             "@id": f"{base}/p2/paged.json", "@type": "sc:Collection", "label": "Paged",
+             "total": 2, "first": f"{base}/p2/page1.json"}
+    page1 = {"@context": "http://iiif.io/api/presentation/2/context.json",
+             "@id": f"{base}/p2/page1.json", "@type": "sc:Collection", "within": paged["@id"],
+             "manifests": [{"@id": b, "@type": "sc:Manifest", "label": "Workshop prints"}],
+             "next": f"{base}/p2/page2.json"}
+    page2 = {"@context": "http://iiif.io/api/presentation/2/context.json",
+             "@id": f"{base}/p2/page2.json", "@type": "sc:Collection", "within": paged["@id"],
+             "manifests": [{"@id": a, "@type": "sc:Manifest", "label": "Harbour negatives"}]}
+    return {"/p2/paged.json": paged, "/p2/page1.json": page1, "/p2/page2.json": page2,
+            "/collection.json": coll, "/p3/manifest-a.json": manifest_a,
             "/p2/collection.json": coll2, "/p2/manifest-b.json": manifest_b,
             "/p3/manifest-c.json": manifest_c}
 

@@ -147,34 +147,43 @@ pub fn read_source(o: &IiifOptions, progress: &dyn Progress) -> Result<Source> {
         r => r,
     };
     drop(doc);
-    let mut level: Vec<(String, Reduced)> = vec![(top.clone(), first)];
-    let mut depth = 0;
+    // Each document with its depth of nesting: a member one deeper, a page of a 2.1 Collection
+    // (its `first`, a page's `next`) as deep as the Collection.
+    let mut level: Vec<(String, Reduced, u32)> = vec![(top.clone(), first, 0)];
+    let mut too_deep = 0usize;
     while !level.is_empty() {
-        let mut wanted = Vec::new();
-        for (url, r) in level {
+        let mut wanted: Vec<(String, u32)> = Vec::new();
+        for (url, r, depth) in level {
             match r {
                 Reduced::Manifest(c) => canvases.extend(c),
-                Reduced::Collection { embedded, members } => {
+                Reduced::Collection {
+                    embedded,
+                    members,
+                    pages,
+                } => {
                     canvases.extend(embedded);
-                    wanted.extend(members.into_iter().filter(|m| seen.insert(m.clone())));
+                    for m in members {
+                        if depth + 1 > 8 {
+                            too_deep += 1;
+                        } else if seen.insert(m.clone()) {
+                            wanted.push((m, depth + 1));
+                        }
+                    }
+                    for p in pages {
+                        if seen.insert(p.clone()) {
+                            wanted.push((p, depth));
+                        }
+                    }
                 }
                 Reduced::Other(what) => notes.push(format!(
                     "IIIF: {url} is not a Manifest or Collection ({what}): left out"
                 )),
             }
         }
-        depth += 1;
-        if depth > 8 && !wanted.is_empty() {
-            notes.push(format!(
-                "IIIF: Collections nested more than 8 deep: {} documents below were not read",
-                wanted.len()
-            ));
-            break;
-        }
         let bar = progress.bar("IIIF documents", wanted.len() as u64);
         let got = client.fetch_all(
             &wanted,
-            |url| {
+            |(url, _)| {
                 client.get(url).and_then(|b| {
                     serde_json::from_slice::<Value>(&b)
                         .map(|v| reduce(&v))
@@ -185,12 +194,17 @@ pub fn read_source(o: &IiifOptions, progress: &dyn Progress) -> Result<Source> {
         );
         drop(bar);
         level = Vec::new();
-        for (url, r) in wanted.into_iter().zip(got) {
+        for ((url, depth), r) in wanted.into_iter().zip(got) {
             match r {
-                Ok(r) => level.push((url, r)),
+                Ok(r) => level.push((url, r, depth)),
                 Err(why) => notes.push(format!("IIIF: {url}: {why}: its Canvases are left out")),
             }
         }
+    }
+    if too_deep > 0 {
+        notes.push(format!(
+            "IIIF: Collections nested more than 8 deep: {too_deep} documents below were not read"
+        ));
     }
     if canvases.is_empty() {
         let why: Vec<&str> = notes.iter().take(3).map(String::as_str).collect();
@@ -336,6 +350,8 @@ enum Reduced {
     Collection {
         embedded: Vec<Canvas>,
         members: Vec<String>,
+        /// 2.1 paging: the Collection's `first` page, a page's `next`.
+        pages: Vec<String>,
     },
     /// Not a Manifest or a Collection: its type, or "no type".
     Other(String),
@@ -347,6 +363,12 @@ fn reduce(doc: &Value) -> Reduced {
         "Collection" => {
             let mut embedded = Vec::new();
             let mut members = Vec::new();
+            // 2.1 paging: a page is a Collection with `manifests` of its own.
+            let pages = ["first", "next"]
+                .iter()
+                .filter_map(|key| doc.get(*key).and_then(id_of))
+                .map(String::from)
+                .collect();
             // 3: `items`; 2.1: `collections`, `manifests` and `members`.
             for key in ["items", "collections", "manifests", "members"] {
                 for r in doc.get(key).and_then(Value::as_array).into_iter().flatten() {
@@ -362,7 +384,11 @@ fn reduce(doc: &Value) -> Reduced {
                     }
                 }
             }
-            Reduced::Collection { embedded, members }
+            Reduced::Collection {
+                embedded,
+                members,
+                pages,
+            }
         }
         "" => Reduced::Other("no type".into()),
         other => Reduced::Other(other.into()),

@@ -217,6 +217,20 @@ fn a_collection_becomes_an_atlas_with_its_records_and_pictures_fetched_politely(
 }
 
 #[test]
+fn a_paged_collection_is_read_page_by_page() {
+    let server = serve();
+    let dir = tempfile::tempdir().unwrap();
+    let o = build(
+        dir.path(),
+        &format!("{}/p2/paged.json", server.base),
+        "atlas",
+    );
+    let notes = common::notes_of(&o);
+    // Page 1 holds the 2.1 Manifest (4 Canvases), page 2 (its `next`) the 3.0 one (6).
+    assert!(notes.contains("IIIF: 10 Canvases"), "{notes}");
+}
+
+#[test]
 fn an_unreachable_or_wrong_source_is_refused_naming_it() {
     let server = serve();
     let dir = tempfile::tempdir().unwrap();

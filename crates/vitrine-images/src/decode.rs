@@ -364,6 +364,7 @@ fn jpeg2000(
             _ => ImageFailure::Corrupt(why),
         }
     };
+    require_complete_jpeg2000(bytes)?;
     let full = Image::new(bytes, &DecodeSettings::default()).map_err(refused)?;
     let (w, h) = (full.width(), full.height());
     let long = w.max(h) as u64;
@@ -640,6 +641,57 @@ fn failure(e: ImageError) -> ImageFailure {
         ImageError::IoError(io) => ImageFailure::Corrupt(io.to_string()),
         _ if eof(&text) => ImageFailure::Truncated(text),
         _ => ImageFailure::Corrupt(text),
+    }
+}
+
+/// `Truncated` unless a JPEG 2000 file is whole: each box of a JP2/JPX file within the file (ISO/IEC
+/// 15444-1 Annex I.4), and the codestream ending in its end-of-codestream marker FF D9 (A.4.4; a
+/// little padding after it is allowed). The decoder itself would decode what there is and say
+/// nothing.
+fn require_complete_jpeg2000(bytes: &[u8]) -> Result<(), ImageFailure> {
+    let cut = |why: String| Err(ImageFailure::Truncated(why));
+    let ends_whole = |c: &[u8]| {
+        let tail = &c[c.len().saturating_sub(16)..];
+        tail.windows(2).any(|w| w == [0xFF, 0xD9])
+    };
+    if bytes.starts_with(&[0xFF, 0x4F]) {
+        return if ends_whole(bytes) {
+            Ok(())
+        } else {
+            cut("the JPEG 2000 codestream ends before its end marker".into())
+        };
+    }
+    let mut at = 0usize;
+    let mut codestream = false;
+    while at + 8 <= bytes.len() {
+        let len = u32::from_be_bytes(bytes[at..at + 4].try_into().expect("4 bytes")) as u64;
+        let kind = &bytes[at + 4..at + 8];
+        let (head, len) = match len {
+            0 => (8u64, (bytes.len() - at) as u64),
+            1 if at + 16 <= bytes.len() => (
+                16,
+                u64::from_be_bytes(bytes[at + 8..at + 16].try_into().expect("8 bytes")),
+            ),
+            1 => return cut("the file ends inside a box header".into()),
+            l => (8, l),
+        };
+        let end = at as u64 + len;
+        if len < head || end > bytes.len() as u64 {
+            let name = String::from_utf8_lossy(kind).to_string();
+            return cut(format!("the file ends inside its {name:?} box"));
+        }
+        if kind == b"jp2c" {
+            codestream = true;
+            if !ends_whole(&bytes[at + head as usize..end as usize]) {
+                return cut("the JPEG 2000 codestream ends before its end marker".into());
+            }
+        }
+        at = end as usize;
+    }
+    if codestream {
+        Ok(())
+    } else {
+        cut("the file ends before its codestream".into())
     }
 }
 

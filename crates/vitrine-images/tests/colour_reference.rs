@@ -109,6 +109,16 @@ fn profiles_convert_to_srgb_as_littlecms_does_and_jpeg2000_decodes_as_openjpeg_d
         checked += 1;
     }
     assert!(wrong.is_empty(), "{}", wrong.join("\n"));
+    // A JPEG 2000 file cut short is named truncated (the decoder alone would decode what there is).
+    for name in ["lossless.jp2", "codestream.j2k", "adobe.jpx"] {
+        let bytes = std::fs::read(dir.path().join(name)).unwrap();
+        for keep in [bytes.len() * 7 / 10, bytes.len() - 1, 40] {
+            match vitrine_images::decode::decode(&bytes[..keep], DEFAULT_MAX_PIXELS) {
+                Err(vitrine_images::decode::ImageFailure::Truncated(_)) => {}
+                other => panic!("{name} cut to {keep} bytes: {:?}", other.map(|d| d.width)),
+            }
+        }
+    }
     assert_eq!(checked, cases.len(), "{scored}");
     assert!(checked >= 20, "{listing}");
 }
