@@ -209,6 +209,17 @@ def main(out):
     # naive conversion, which is what a decoder that ignores the profile gives.
     tagged("cmyk.jpg", photo.convert("CMYK"), "JPEG", CMYK, 0.7, quality=92)
     tagged("cmyk.tif", chart_img.convert("CMYK"), "TIFF", CMYK, 0.6)
+    # 16-bit greyscale with a linear profile, converted at 16 bits: the reference is the sRGB
+    # transfer function (IEC 61966-2-1) applied to the 16-bit values in floating point. Cut to 8
+    # bits first, the shadows would band (several levels off); "deep" asks for at most 1 level.
+    ramp = (np.linspace(0, 1, 512) ** 3 * 65535).round().astype(np.uint16)
+    grey16 = Image.fromarray(np.tile(ramp, (16, 1)))
+    grey16.save(f"{out}/grey16-linear.png", icc_profile=GREY_LINEAR)
+    lin = np.tile(ramp, (16, 1)).astype(np.float64) / 65535
+    enc = np.where(lin <= 0.0031308, 12.92 * lin, 1.055 * lin ** (1 / 2.4) - 0.055)
+    ref16 = np.repeat((enc * 255).round().astype(np.uint8)[..., None], 3, axis=2)
+    raw16 = np.repeat(((np.tile(ramp, (16, 1)).astype(np.uint32) + 128) // 257).astype(np.uint8)[..., None], 3, axis=2)
+    emit("grey16-linear.png", None, ref16, raw16, 0.1, "deep")
     # A profile for other pixels (an RGB profile on CMYK inks) is refused: the pixels are taken as
     # they are, by the naive formula, as a decoder that ignores profiles gives them.
     cmyk_srgb = f"{out}/cmyk-srgb.jpg"

@@ -16,7 +16,9 @@ use std::collections::HashMap;
 use std::sync::{Arc, Mutex};
 
 use image::{DynamicImage, GrayAlphaImage, GrayImage, RgbImage, RgbaImage};
-use moxcms::{ColorProfile, Layout, Transform8BitExecutor, TransformOptions};
+use moxcms::{
+    ColorProfile, Layout, Transform16BitExecutor, Transform8BitExecutor, TransformOptions,
+};
 
 /// How an image's samples are laid out when they meet their profile.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
@@ -174,10 +176,86 @@ pub fn convert(icc: &[u8], samples: Samples, pixels: &[u8]) -> Result<Option<Vec
     Ok(Some(out))
 }
 
-/// An image converted from its embedded profile to sRGB (8 bits per sample; alpha kept). When the
-/// profile cannot be used, the image comes back as it was with the reason.
+/// 16-bit transforms made so far (see [`MADE`]).
+static MADE16: Mutex<Option<Made16>> = Mutex::new(None);
+type Made16 = HashMap<([u8; 32], Samples), Result<Arc<Transform16BitExecutor>, String>>;
+
+/// [`convert`] for 16-bit samples, converted at 16 bits (a linear or wide-gamut 16-bit scan cut to
+/// 8 bits first would band in the shadows): RGB or RGBA, 16 bits per sample.
+pub fn convert16(icc: &[u8], samples: Samples, pixels: &[u16]) -> Result<Option<Vec<u16>>, String> {
+    use sha2::Digest;
+    // The 8-bit conversion says whether the profile reads at all and whether it is sRGB.
+    if conversion(icc, samples)?.is_none() {
+        return Ok(None);
+    }
+    let key: ([u8; 32], Samples) = (sha2::Sha256::digest(icc).into(), samples);
+    let kept = MADE16
+        .lock()
+        .unwrap_or_else(|e| e.into_inner())
+        .as_ref()
+        .and_then(|m| m.get(&key).cloned());
+    let t = match kept {
+        Some(t) => t,
+        None => {
+            let made = ColorProfile::new_from_slice(icc)
+                .map_err(|e| e.to_string())
+                .and_then(|p| {
+                    let (from, to) = samples.layouts();
+                    p.create_transform_16bit(
+                        from,
+                        &ColorProfile::new_srgb(),
+                        to,
+                        TransformOptions::default(),
+                    )
+                    .map_err(|e| e.to_string())
+                })
+                .map_err(|e| {
+                    format!("the embedded colour profile cannot convert 16-bit samples ({e})")
+                });
+            let mut m = MADE16.lock().unwrap_or_else(|e| e.into_inner());
+            let m = m.get_or_insert_with(HashMap::new);
+            if m.len() >= KEPT {
+                m.clear();
+            }
+            m.insert(key, made.clone());
+            made
+        }
+    }?;
+    let (cin, cout) = samples.channels();
+    let n = pixels.len() / cin;
+    let mut out = vec![0u16; n * cout];
+    t.transform(&pixels[..n * cin], &mut out)
+        .map_err(|e| format!("the colour conversion failed ({e})"))?;
+    Ok(Some(out))
+}
+
+/// An image converted from its embedded profile to sRGB (8 bits per sample, or 16 for 16-bit
+/// images; alpha kept). When the profile cannot be used, the image comes back as it was with the
+/// reason.
 pub fn to_srgb(img: DynamicImage, icc: &[u8]) -> (DynamicImage, Option<String>) {
     let (w, h) = (img.width(), img.height());
+    let deep = match &img {
+        DynamicImage::ImageLuma16(i) => Some((Samples::Gray, i.as_raw())),
+        DynamicImage::ImageLumaA16(i) => Some((Samples::GrayAlpha, i.as_raw())),
+        DynamicImage::ImageRgb16(i) => Some((Samples::Rgb, i.as_raw())),
+        DynamicImage::ImageRgba16(i) => Some((Samples::Rgba, i.as_raw())),
+        _ => None,
+    };
+    if let Some((samples, pixels)) = deep {
+        return match convert16(icc, samples, pixels) {
+            Ok(Some(out)) => {
+                let img = match samples {
+                    Samples::GrayAlpha | Samples::Rgba => {
+                        image::ImageBuffer::from_raw(w, h, out).map(DynamicImage::ImageRgba16)
+                    }
+                    _ => image::ImageBuffer::from_raw(w, h, out).map(DynamicImage::ImageRgb16),
+                };
+                (img.expect("w x h converted pixels"), None)
+            }
+            Ok(None) => (img, None),
+            Err(why) => (img, Some(why)),
+        };
+    }
     let (samples, pixels) = match img.color() {
         image::ColorType::L8 | image::ColorType::L16 => (Samples::Gray, img.to_luma8().into_raw()),
         image::ColorType::La8 | image::ColorType::La16 => {
