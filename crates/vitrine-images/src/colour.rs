@@ -59,15 +59,16 @@ type Conversion = Option<Arc<Transform8BitExecutor>>;
 
 /// Transforms made so far, by the profile's SHA-256 and the layout (bounded: cleared when it grows
 /// past [`KEPT`] entries, so that a collection with a profile per image cannot hoard memory).
-static MADE: Mutex<Option<Made>> = Mutex::new(None);
-type Made = HashMap<([u8; 32], Samples), Result<Conversion, String>>;
+static MADE: Cache<Result<Conversion, String>> = Mutex::new(None);
+/// Transforms by the profile's SHA-256 and the layout.
+type Cache<T> = Mutex<Option<HashMap<([u8; 32], Samples), T>>>;
 const KEPT: usize = 256;
 
-/// The conversion of `icc` for samples laid out as `samples`, made once and kept.
-fn conversion(icc: &[u8], samples: Samples) -> Result<Conversion, String> {
+/// What `cache` holds for `icc` and `samples`, else `make()`'s result, kept there.
+fn kept<T: Clone>(cache: &Cache<T>, icc: &[u8], samples: Samples, make: impl FnOnce() -> T) -> T {
     use sha2::Digest;
     let key: ([u8; 32], Samples) = (sha2::Sha256::digest(icc).into(), samples);
-    if let Some(made) = MADE
+    if let Some(made) = cache
         .lock()
         .unwrap_or_else(|e| e.into_inner())
         .as_ref()
@@ -75,14 +76,19 @@ fn conversion(icc: &[u8], samples: Samples) -> Result<Conversion, String> {
     {
         return made.clone();
     }
-    let made = make(icc, samples);
-    let mut kept = MADE.lock().unwrap_or_else(|e| e.into_inner());
-    let kept = kept.get_or_insert_with(HashMap::new);
-    if kept.len() >= KEPT {
-        kept.clear();
+    let made = make();
+    let mut all = cache.lock().unwrap_or_else(|e| e.into_inner());
+    let all = all.get_or_insert_with(HashMap::new);
+    if all.len() >= KEPT {
+        all.clear();
     }
-    kept.insert(key, made.clone());
+    all.insert(key, made.clone());
     made
+}
+
+/// The conversion of `icc` for samples laid out as `samples`, made once and kept.
+fn conversion(icc: &[u8], samples: Samples) -> Result<Conversion, String> {
+    kept(&MADE, icc, samples, || make(icc, samples))
 }
 
 fn make(icc: &[u8], samples: Samples) -> Result<Conversion, String> {
@@ -177,50 +183,30 @@ pub fn convert(icc: &[u8], samples: Samples, pixels: &[u8]) -> Result<Option<Vec
 }
 
 /// 16-bit transforms made so far (see [`MADE`]).
-static MADE16: Mutex<Option<Made16>> = Mutex::new(None);
-type Made16 = HashMap<([u8; 32], Samples), Result<Arc<Transform16BitExecutor>, String>>;
+static MADE16: Cache<Result<Arc<Transform16BitExecutor>, String>> = Mutex::new(None);
 
 /// [`convert`] for 16-bit samples, converted at 16 bits (a linear or wide-gamut 16-bit scan cut to
 /// 8 bits first would band in the shadows): RGB or RGBA, 16 bits per sample.
 pub fn convert16(icc: &[u8], samples: Samples, pixels: &[u16]) -> Result<Option<Vec<u16>>, String> {
-    use sha2::Digest;
     // The 8-bit conversion says whether the profile reads at all and whether it is sRGB.
     if conversion(icc, samples)?.is_none() {
         return Ok(None);
     }
-    let key: ([u8; 32], Samples) = (sha2::Sha256::digest(icc).into(), samples);
-    let kept = MADE16
-        .lock()
-        .unwrap_or_else(|e| e.into_inner())
-        .as_ref()
-        .and_then(|m| m.get(&key).cloned());
-    let t = match kept {
-        Some(t) => t,
-        None => {
-            let made = ColorProfile::new_from_slice(icc)
+    let t = kept(&MADE16, icc, samples, || {
+        ColorProfile::new_from_slice(icc)
+            .map_err(|e| e.to_string())
+            .and_then(|p| {
+                let (from, to) = samples.layouts();
+                p.create_transform_16bit(
+                    from,
+                    &ColorProfile::new_srgb(),
+                    to,
+                    TransformOptions::default(),
+                )
                 .map_err(|e| e.to_string())
-                .and_then(|p| {
-                    let (from, to) = samples.layouts();
-                    p.create_transform_16bit(
-                        from,
-                        &ColorProfile::new_srgb(),
-                        to,
-                        TransformOptions::default(),
-                    )
-                    .map_err(|e| e.to_string())
-                })
-                .map_err(|e| {
-                    format!("the embedded colour profile cannot convert 16-bit samples ({e})")
-                });
-            let mut m = MADE16.lock().unwrap_or_else(|e| e.into_inner());
-            let m = m.get_or_insert_with(HashMap::new);
-            if m.len() >= KEPT {
-                m.clear();
-            }
-            m.insert(key, made.clone());
-            made
-        }
-    }?;
+            })
+            .map_err(|e| format!("the embedded colour profile cannot convert 16-bit samples ({e})"))
+    })?;
     let (cin, cout) = samples.channels();
     let n = pixels.len() / cin;
     let mut out = vec![0u16; n * cout];
