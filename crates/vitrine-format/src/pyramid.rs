@@ -169,6 +169,37 @@ impl Pyramid {
         out
     }
 
+    /// For each tile, the items below it per value of a category column (`codes` in pyramid item
+    /// order, one per item, `u32::MAX` or any code past `values` for none): what a filter's counts
+    /// over a coarse tile need without its items. Leaves count their run; a tile sums its children.
+    pub fn value_counts(&self, codes: &[u32], values: usize) -> Vec<Vec<u32>> {
+        let mut out = vec![Vec::new(); self.tiles.len()];
+        // Children come after their parent in the node list: sum from the end.
+        for i in (0..self.tiles.len()).rev() {
+            let t = &self.tiles[i];
+            let mut c = vec![0u32; values];
+            match (&t.children, &t.items) {
+                (Some(children), _) => {
+                    for &k in children.iter().filter(|&&k| k != u32::MAX) {
+                        for (a, b) in c.iter_mut().zip(&out[k as usize]) {
+                            *a += b;
+                        }
+                    }
+                }
+                (None, Some([a, b])) => {
+                    for &code in &codes[*a as usize..(*b as usize).min(codes.len())] {
+                        if let Some(x) = c.get_mut(code as usize) {
+                            *x += 1;
+                        }
+                    }
+                }
+                (None, None) => {}
+            }
+            out[i] = c;
+        }
+        out
+    }
+
     /// The leaves, in item order.
     pub fn leaves(&self) -> impl Iterator<Item = &Tile> {
         self.tiles.iter().filter(|t| t.children.is_none())
@@ -338,6 +369,39 @@ mod tests {
                 }
             }
         }
+    }
+
+    #[test]
+    fn tile_counts_per_value_equal_the_items_below() {
+        let pos = mixture(20_000);
+        let (p, order) = Pyramid::build(&pos, 300, 12);
+        // A category by the item's earlier index (so it is spread unevenly over the tiles), and
+        // some items with none.
+        let codes: Vec<u32> = order
+            .iter()
+            .map(|&i| {
+                if i % 11 == 0 {
+                    u32::MAX
+                } else {
+                    (i * 7 + i / 3) % 5
+                }
+            })
+            .collect();
+        let counts = p.value_counts(&codes, 5);
+        // Every tile against a count of the items inside its square at its level.
+        let ordered = reordered(&pos, &order);
+        for (t, c) in p.tiles.iter().zip(&counts) {
+            let mut want = [0u32; 5];
+            for k in 0..order.len() {
+                let (x, y) = (ordered[2 * k], ordered[2 * k + 1]);
+                if p.cell(x, y, t.level) == [t.x, t.y] && codes[k] < 5 {
+                    want[codes[k] as usize] += 1;
+                }
+            }
+            assert_eq!(c.as_slice(), want.as_slice(), "{t:?}");
+        }
+        let filled = codes.iter().filter(|&&c| c < 5).count() as u32;
+        assert_eq!(counts[0].iter().sum::<u32>(), filled);
     }
 
     #[test]
