@@ -173,13 +173,22 @@ pub fn convert(icc: &[u8], samples: Samples, pixels: &[u8]) -> Result<Option<Vec
     let Some(t) = conversion(icc, samples)? else {
         return Ok(None);
     };
+    run(&*t, samples, pixels).map(Some)
+}
+
+/// Every whole pixel of `pixels` through `t`, laid out as `samples` leave it. Rows of pixels in
+/// parallel chunks would not pay: decoding runs one image per core already.
+fn run<V: Copy + Default>(
+    t: &(dyn moxcms::TransformExecutor<V> + Send + Sync),
+    samples: Samples,
+    pixels: &[V],
+) -> Result<Vec<V>, String> {
     let (cin, cout) = samples.channels();
     let n = pixels.len() / cin;
-    let mut out = vec![0u8; n * cout];
-    // Rows of pixels in parallel chunks would not pay: decoding runs one image per core already.
+    let mut out = vec![V::default(); n * cout];
     t.transform(&pixels[..n * cin], &mut out)
         .map_err(|e| format!("the colour conversion failed ({e})"))?;
-    Ok(Some(out))
+    Ok(out)
 }
 
 /// 16-bit transforms made so far (see [`MADE`]).
@@ -207,12 +216,7 @@ pub fn convert16(icc: &[u8], samples: Samples, pixels: &[u16]) -> Result<Option<
             })
             .map_err(|e| format!("the embedded colour profile cannot convert 16-bit samples ({e})"))
     })?;
-    let (cin, cout) = samples.channels();
-    let n = pixels.len() / cin;
-    let mut out = vec![0u16; n * cout];
-    t.transform(&pixels[..n * cin], &mut out)
-        .map_err(|e| format!("the colour conversion failed ({e})"))?;
-    Ok(Some(out))
+    run(&*t, samples, pixels).map(Some)
 }
 
 /// An image converted from its embedded profile to sRGB (8 bits per sample, or 16 for 16-bit
