@@ -29,5 +29,6 @@ pub mod progress;
 pub mod read;
 pub mod report;
 pub mod stages;
+pub mod tiles;
 pub mod vectors;
 pub mod write;

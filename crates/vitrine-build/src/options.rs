@@ -91,6 +91,9 @@ pub struct BuildOptions {
     pub multi_valued: Vec<(String, Option<String>)>,
     /// Catalogue fields read as one value per record, whatever the values show.
     pub single_valued: Vec<String>,
+    /// Most items a tile of the similarity map holds: the atlas is then tiled (format 3), so that
+    /// the viewer fetches what is in view. None: one atlas fetched whole (format 2).
+    pub tile_items: Option<u64>,
 }
 
 impl BuildOptions {
@@ -131,6 +134,7 @@ impl BuildOptions {
             iiif: None,
             multi_valued: Vec::new(),
             single_valued: Vec::new(),
+            tile_items: None,
         }
     }
 

@@ -85,7 +85,7 @@ pub fn build(opts: &BuildOptions, progress: &dyn Progress) -> Result<BuildReport
     let mut lattice = stages::lattice(&map);
     laps.lap("lattice");
     let quality = stages::quality_figures(quality_rows, opts.metric, &map, &mut lattice, progress);
-    let order = stages::atlas_order(&map);
+    let order = stages::atlas_order(&map, opts.tile_items);
     laps.lap("quality figures");
     let computed = Computed {
         reduction: reduced.reduction,

@@ -38,12 +38,30 @@ impl Atlas {
         let mut files = AtlasFiles::new();
         for name in names {
             if !files.contains(name) {
-                let bytes = std::fs::read(self.dir.join(name))
-                    .with_context(|| format!("reading {name}"))?;
-                files.insert(name.to_string(), bytes);
+                files.insert(name.to_string(), self.read_whole(name)?);
             }
         }
         Ok(files)
+    }
+
+    /// The bytes of the array file `name`; an array a tiled atlas stores by leaf is read leaf
+    /// by leaf, each chunk checked against its SHA-256, and joined.
+    fn read_whole(&self, name: &str) -> Result<Vec<u8>> {
+        let read =
+            |f: &str| std::fs::read(self.dir.join(f)).with_context(|| format!("reading {f}"));
+        let Some(c) = self.manifest.tiles.as_ref().and_then(|t| t.chunked(name)) else {
+            return read(name);
+        };
+        let sums = read(&c.sums.file)?;
+        c.sums.verify(&sums)?;
+        let mut parts = Vec::with_capacity(sums.len() / 32);
+        for leaf in 0..sums.len() / 32 {
+            let f = vitrine_format::tiles::chunk_file(name, leaf);
+            let bytes = read(&f)?;
+            vitrine_format::tiles::verify_part(&f, &sums, leaf, &bytes)?;
+            parts.push(bytes);
+        }
+        Ok(vitrine_format::tiles::join(&c.layout, &parts))
     }
 
     /// One array, read and checked.

@@ -323,21 +323,34 @@ pub fn quality_figures(
 }
 
 /// Atlas order: items along a Hilbert curve over the similarity map, so that a run of items is
-/// a region of the map.
+/// a region of the map; in a tiled atlas, the tile pyramid's leaf order over that (each leaf one
+/// run, the curve's order kept within it).
 pub struct AtlasOrder {
     /// `order[new] = old`.
     pub order: Vec<usize>,
     /// `rank[old] = new`.
     pub rank: Vec<u32>,
+    /// The similarity map's tile pyramid, when the atlas is tiled (leaves of at most this many).
+    pub pyramid: Option<vitrine_format::pyramid::Pyramid>,
 }
 
-pub fn atlas_order(map: &SimilarityMap) -> AtlasOrder {
-    let order = vitrine_map::hilbert::hilbert_order(&map.positions);
+pub fn atlas_order(map: &SimilarityMap, tile_items: Option<u64>) -> AtlasOrder {
+    let mut order = vitrine_map::hilbert::hilbert_order(&map.positions);
+    let pyramid = tile_items.map(|capacity| {
+        let xy: Vec<f32> = order.iter().flat_map(|&i| map.positions[i]).collect();
+        let (p, leaf) = crate::tiles::leaf_order(&xy, capacity);
+        order = leaf.iter().map(|&k| order[k as usize]).collect();
+        p
+    });
     let mut rank = vec![0u32; order.len()];
     for (new, &old) in order.iter().enumerate() {
         rank[old] = new as u32;
     }
-    AtlasOrder { order, rank }
+    AtlasOrder {
+        order,
+        rank,
+        pyramid,
+    }
 }
 
 /// Everything the stages computed, handed to the writer.

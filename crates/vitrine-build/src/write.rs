@@ -183,7 +183,7 @@ pub fn write_atlas(
             }))
         })
         .collect();
-    let manifest = Manifest {
+    let mut manifest = Manifest {
         format: FORMAT_NAME.into(),
         format_version: FORMAT_VERSION,
         title,
@@ -216,11 +216,27 @@ pub fn write_atlas(
             },
             seed: opts.seed,
         },
+        tiles: None,
     };
-    std::fs::create_dir_all(dir.join("arrays").join("neighbours"))?;
-    std::fs::create_dir_all(dir.join("arrays").join("vectors"))?;
+    if let Some(p) = &c.order.pyramid {
+        let bar = progress.bar("tiles", 2);
+        let mut step = 0;
+        crate::tiles::tile(&mut manifest, &mut w.files, p.clone(), |what| {
+            bar.rename(what);
+            bar.set(step, 2);
+            step += 1;
+        })?;
+        laps.lap("tiles");
+    }
+    let mut made = std::collections::BTreeSet::new();
     for (name, bytes) in &w.files {
-        std::fs::write(dir.join(name), bytes).with_context(|| format!("writing {name}"))?;
+        let path = dir.join(name);
+        if let Some(parent) = path.parent() {
+            if made.insert(parent.to_path_buf()) {
+                std::fs::create_dir_all(parent)?;
+            }
+        }
+        std::fs::write(&path, bytes).with_context(|| format!("writing {name}"))?;
     }
     // Validate what was written with the same reader the viewer uses.
     Manifest::from_json(&manifest.to_json())
@@ -736,6 +752,7 @@ fn pictures(
             levels,
             extents,
             image_sizes,
+            pictures: None,
         },
         images,
         Signed {

@@ -193,6 +193,10 @@ pub struct BuildArgs {
     /// Repeatable.
     #[arg(long = "single-valued", value_name = "FIELD")]
     single_valued: Vec<String>,
+    /// Tile the atlas (format 3) with at most N items a tile of the similarity map, so that the
+    /// viewer fetches only what is in view: for collections of millions (docs/atlas-format.md).
+    #[arg(long, value_name = "N", value_parser = clap::value_parser!(u64).range(1..))]
+    tile_items: Option<u64>,
     /// An IIIF Presentation 3 or 2.1 Manifest or Collection (an http(s) address or a file) as the
     /// catalogue and the pictures: one item per Canvas, its pictures fetched through the Image
     /// API at the size the thumbnails need. Replaces --catalogue and --images. See docs/iiif.md.
@@ -302,6 +306,7 @@ impl BuildArgs {
                 })
                 .collect(),
             single_valued: self.single_valued,
+            tile_items: self.tile_items,
             iiif: self.iiif.map(|source| vitrine_build::iiif::IiifOptions {
                 source,
                 cache: self

@@ -42,6 +42,25 @@ pub fn inspect(atlas: &Atlas) -> Result<String> {
         "arrays    {} (all lengths and SHA-256 checksums verified)\n",
         m.arrays().len()
     ));
+    if let Some(t) = &m.tiles {
+        let sums = std::fs::read(atlas.dir.join(&t.overview_sums.file))
+            .with_context(|| format!("reading {}", t.overview_sums.file))?;
+        t.overview_sums.verify(&sums)?;
+        for k in 0..t.pyramid.tiles.len() {
+            let f = vitrine_format::tiles::overview_file(k);
+            let png = std::fs::read(atlas.dir.join(&f)).with_context(|| format!("reading {f}"))?;
+            vitrine_format::tiles::verify_part(&f, &sums, k, &png)?;
+        }
+        let leaves = t.runs().len();
+        let deepest = t.pyramid.tiles.iter().map(|t| t.level).max().unwrap_or(0);
+        s.push_str(&format!(
+            "tiles     {} over the {} map ({leaves} leaves of at most {} items, levels 0-{deepest}; {} arrays stored by leaf, overview pictures verified)\n",
+            t.pyramid.tiles.len(),
+            t.map,
+            t.pyramid.capacity,
+            t.chunked.len()
+        ));
+    }
     s.push_str(&format!(
         "neighbours {}, in {} chunk(s) of {} items\n",
         m.neighbours.describe(),

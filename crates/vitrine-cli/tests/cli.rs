@@ -1856,3 +1856,150 @@ wb.save(f"{sys.argv[1]}/records.xlsx")
         "{said}"
     );
 }
+
+/// The same inputs built whole (format 2) and tiled (format 3, at most 8 items a tile): the tiled
+/// atlas checks (every chunk against its checksum), holds the same records at the same places,
+/// and answers a filter and a full export as the whole one does; a damaged chunk is named.
+#[test]
+fn a_tiled_atlas_holds_the_same_records_and_answers_as_one_fetched_whole() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    fixture(d, true);
+    for (out, extra) in [("whole", vec![]), ("tiled", vec!["--tile-items", "8"])] {
+        let mut args = vec!["--images", "images"];
+        args.extend(extra);
+        let o = build(d, out, &args);
+        assert!(o.status.success(), "{}", stderr(&o));
+    }
+    let whole = Atlas::open(&d.join("whole")).unwrap();
+    let tiled = Atlas::open(&d.join("tiled")).unwrap();
+    assert_eq!(whole.manifest.format_version, 2);
+    assert_eq!(tiled.manifest.format_version, 3);
+    let t = tiled.manifest.tiles.as_ref().unwrap();
+    let runs = t.runs();
+    assert!(runs.len() >= 8, "{} leaves", runs.len());
+    assert!(runs.iter().all(|[a, b]| b - a <= 8));
+    // The ids are stored by leaf: no whole file, a chunk per leaf.
+    assert!(!d.join("tiled").join(&tiled.manifest.ids.file).exists());
+    let chunk = vitrine_format::tiles::chunk_file(&tiled.manifest.ids_text.file, 0);
+    assert!(d.join("tiled").join(&chunk).exists());
+    for t in 0..t.pyramid.tiles.len() {
+        assert!(d
+            .join("tiled")
+            .join(vitrine_format::tiles::overview_file(t))
+            .exists());
+    }
+    let o = common::vitrine()
+        .args(["inspect", d.join("tiled").to_str().unwrap()])
+        .output()
+        .unwrap();
+    assert!(common::stdout_of(&o).contains("version 3"));
+
+    // Each record at the same place on the similarity map, whatever the order.
+    let place = |a: &Atlas| -> std::collections::BTreeMap<String, [u32; 2]> {
+        let ids = a.ids().unwrap();
+        let sim = a.manifest.maps.iter().find(|m| m.name == "similarity");
+        let xy: Vec<f32> = a.array(&sim.unwrap().positions).unwrap();
+        (0..ids.len())
+            .map(|i| {
+                (
+                    ids.get(i).to_string(),
+                    [xy[2 * i].to_bits(), xy[2 * i + 1].to_bits()],
+                )
+            })
+            .collect()
+    };
+    assert_eq!(place(&whole), place(&tiled));
+    assert_ne!(
+        whole.ids().unwrap().utf8,
+        tiled.ids().unwrap().utf8,
+        "leaf order is another order"
+    );
+
+    // Every record exported as catalogued, and a filter, give the same answers.
+    let rows = |name: &str| {
+        let (h, mut r) = common::every_row(&d.join(name), &d.join(format!("{name}.csv")));
+        r.sort();
+        (h, r)
+    };
+    assert_eq!(rows("whole"), rows("tiled"));
+    // A filter, and a lasso over the left part of the map (a triangle: edges cross tiles), keep
+    // the same records.
+    let b = whole.manifest.maps[0].bounds;
+    let (w, h) = (b[2] - b[0], b[3] - b[1]);
+    let lasso = format!(
+        "{},{} {},{} {},{}",
+        b[0] - w,
+        b[1] - h,
+        b[0] + 0.6 * w,
+        b[1] + 0.5 * h,
+        b[0] - w,
+        b[3] + h
+    );
+    let kept = |name: &str, args: &[&str]| {
+        let csv = d.join(format!("{name}-kept.csv"));
+        let o = common::vitrine()
+            .current_dir(d)
+            .args(["corpus", name])
+            .args(args)
+            .arg("--csv")
+            .arg(&csv)
+            .arg("--force")
+            .output()
+            .unwrap();
+        common::notes_of(&o);
+        let mut v: Vec<String> = csv::Reader::from_path(&csv)
+            .unwrap()
+            .records()
+            .map(|r| r.unwrap()[0].to_string())
+            .collect();
+        v.sort();
+        v
+    };
+    let birch = kept("whole", &["--filter", "workshop=Workshop Birch"]);
+    assert_eq!(birch.len(), 20);
+    assert_eq!(
+        birch,
+        kept("tiled", &["--filter", "workshop=Workshop Birch"])
+    );
+    let inside = kept("whole", &["--map", "similarity", "--lasso", &lasso]);
+    assert!(!inside.is_empty() && inside.len() < 60, "{}", inside.len());
+    assert_eq!(
+        inside,
+        kept("tiled", &["--map", "similarity", "--lasso", &lasso])
+    );
+
+    // A manifest edited by hand: its version, or a tile's count, no longer fits.
+    let path = d.join("tiled").join("atlas.json");
+    let text = std::fs::read_to_string(&path).unwrap();
+    let edited = |edit: &dyn Fn(&mut serde_json::Value)| {
+        let mut v: serde_json::Value = serde_json::from_str(&text).unwrap();
+        edit(&mut v);
+        std::fs::write(&path, v.to_string()).unwrap();
+        let o = common::vitrine()
+            .args(["inspect", d.join("tiled").to_str().unwrap()])
+            .output()
+            .unwrap();
+        stderr(&o)
+    };
+    let e = edited(&|v| v["format_version"] = 2.into());
+    assert!(e.contains("format 2 atlas with tiles"), "{e}");
+    let e = edited(&|v| {
+        let c = v["tiles"]["pyramid"]["tiles"][1]["count"].as_u64().unwrap();
+        v["tiles"]["pyramid"]["tiles"][1]["count"] = (c + 1).into();
+    });
+    assert!(e.contains("tile pyramid"), "{e}");
+    std::fs::write(&path, &text).unwrap();
+
+    // One chunk damaged: named.
+    let f = d.join("tiled").join(&chunk);
+    let mut bytes = std::fs::read(&f).unwrap();
+    bytes[0] ^= 0x20;
+    std::fs::write(&f, bytes).unwrap();
+    let o = common::vitrine()
+        .args(["inspect", d.join("tiled").to_str().unwrap()])
+        .output()
+        .unwrap();
+    assert!(!o.status.success());
+    assert!(stderr(&o).contains(&chunk), "{}", stderr(&o));
+}

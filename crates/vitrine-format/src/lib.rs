@@ -18,11 +18,15 @@ mod files;
 pub mod npy;
 pub mod palette;
 pub mod pyramid;
+pub mod tiles;
 
 pub use files::AtlasFiles;
 
-/// The format version this crate writes and reads.
+/// The format version of an atlas fetched whole (this crate reads it and the tiled version).
 pub const FORMAT_VERSION: u32 = 2;
+/// The format version of a tiled atlas ([`tiles`]): format 2 with its per-item arrays for drawing
+/// and record cards stored by tile.
+pub const TILED_FORMAT_VERSION: u32 = 3;
 /// The value of the manifest's `format` key.
 pub const FORMAT_NAME: &str = "vitrine-atlas";
 /// File name of the manifest inside an atlas folder.
@@ -103,6 +107,11 @@ pub struct ArrayRef {
 
 pub fn sha256_hex(bytes: &[u8]) -> String {
     hex(&Sha256::digest(bytes))
+}
+
+/// The SHA-256 digest of `bytes`.
+pub fn sha256_bytes(bytes: &[u8]) -> [u8; 32] {
+    Sha256::digest(bytes).into()
 }
 
 /// Lower-case hex of bytes, two digits each.
@@ -461,6 +470,10 @@ pub struct Sheets {
     /// its EXIF orientation; 0, 0 where the image could not be used.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub image_sizes: Option<ArrayRef>,
+    /// u32 per item: the sheet cell holding its picture, when items share pictures (absent: item
+    /// i's picture is in cell i). Cells then count pictures, not items.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub pictures: Option<ArrayRef>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -657,6 +670,9 @@ pub struct Manifest {
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub copies: Option<Copies>,
     pub provenance: Provenance,
+    /// A tiled atlas's pyramid, cells, overviews and arrays stored by leaf (format 3 only).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub tiles: Option<tiles::Tiles>,
 }
 
 impl Manifest {
@@ -676,15 +692,29 @@ impl Manifest {
             .get("format_version")
             .and_then(|v| v.as_u64())
             .unwrap_or(0) as u32;
-        if version != FORMAT_VERSION {
+        if version != FORMAT_VERSION && version != TILED_FORMAT_VERSION {
             return Err(AtlasError::UnsupportedVersion {
                 found: version,
-                supported: FORMAT_VERSION,
+                supported: TILED_FORMAT_VERSION,
             });
         }
         let m: Manifest =
             serde_json::from_value(value).map_err(|e| AtlasError::ManifestJson(e.to_string()))?;
         m.check_counts()?;
+        match (&m.tiles, version == TILED_FORMAT_VERSION) {
+            (Some(t), true) => t.check(m.item_count, &m.arrays())?,
+            (None, false) => {}
+            (Some(_), false) => {
+                return Err(AtlasError::Inconsistent(format!(
+                    "a format {FORMAT_VERSION} atlas with tiles (tiled atlases are format {TILED_FORMAT_VERSION})"
+                )))
+            }
+            (None, true) => {
+                return Err(AtlasError::Inconsistent(format!(
+                    "a format {TILED_FORMAT_VERSION} atlas without its tiles"
+                )))
+            }
+        }
         Ok(m)
     }
 
@@ -851,6 +881,9 @@ impl Manifest {
             if let Some(sizes) = &s.image_sizes {
                 want(sizes, 2 * n, DType::U32)?;
             }
+            if let Some(p) = &s.pictures {
+                want(p, n, DType::U32)?;
+            }
             for l in &s.levels {
                 // A sheet is one JPEG, at most 65,535 pixels a side, so a level's cell count
                 // (and every product of its sizes a reader forms in u32) stays far below 2^32.
@@ -862,7 +895,9 @@ impl Manifest {
                     )));
                 }
                 let per = (l.columns as u64) * (l.rows as u64);
-                if per == 0 || (l.files.len() as u64) < n.div_ceil(per) {
+                // Shared pictures: each item's cell is checked when its `pictures` are read.
+                let cells = if s.pictures.is_some() { n.min(1) } else { n };
+                if per == 0 || (l.files.len() as u64) < cells.div_ceil(per) {
                     return Err(AtlasError::Inconsistent(format!(
                         "sheet level {} has too few sheets",
                         l.cell
@@ -900,6 +935,7 @@ impl Manifest {
             if let Some(sizes) = &s.image_sizes {
                 v.push(sizes);
             }
+            v.extend(&s.pictures);
         }
         if let Some(c) = &self.clusters {
             v.push(&c.ids);
@@ -909,6 +945,9 @@ impl Manifest {
         }
         if let Some(c) = &self.copies {
             v.extend([&c.members, &c.starts, &c.pairs, &c.pair_bits]);
+        }
+        if let Some(t) = &self.tiles {
+            v.extend(t.arrays());
         }
         v
     }

@@ -213,20 +213,57 @@ impl Pyramid {
         if (root.level, root.x, root.y, root.count) != (0, 0, 0, n) {
             return Err(format!("the root is {root:?}, for {n} items"));
         }
+        self.check_structure()?;
+        for t in self.leaves() {
+            let Some([a, b]) = t.items else { continue };
+            let sq = self.square(t);
+            for k in a..b {
+                let (px, py) = (positions[2 * k as usize], positions[2 * k as usize + 1]);
+                if self.cell(px, py, t.level) != [t.x, t.y] {
+                    return Err(format!(
+                        "item {k} at ({px}, {py}) lies outside the square {sq:?} of its leaf"
+                    ));
+                }
+            }
+        }
+        Ok(())
+    }
+
+    /// The invariants that need no positions: every node reached once from the root, children
+    /// one level down inside their parent, counts summed, leaves' runs partitioning
+    /// `0..root count` in depth-first order (which is node order), levels at most `max_level`.
+    pub fn check_structure(&self) -> Result<(), String> {
+        let root = self.tiles.first().ok_or("the pyramid has no root")?;
+        let n = root.count;
+        let mut seen = vec![false; self.tiles.len()];
+        let mut last_leaf = None;
         // Leaves in depth-first order cover 0..n in runs.
         let mut next = 0u64;
         let mut stack = vec![0u32];
         while let Some(i) = stack.pop() {
             let t = self.tiles.get(i as usize).ok_or(format!("no tile {i}"))?;
+            if std::mem::replace(&mut seen[i as usize], true) {
+                return Err(format!("tile {i} is reached twice"));
+            }
+            if t.level > self.max_level || t.level > 24 {
+                return Err(format!(
+                    "tile {i} is at level {}, below the deepest",
+                    t.level
+                ));
+            }
+            let per = 1u64 << t.level;
+            if t.x as u64 >= per || t.y as u64 >= per {
+                return Err(format!("tile {i} lies outside its level"));
+            }
             match (&t.children, &t.items) {
                 (Some(c), None) => {
-                    let mut sum = 0;
+                    let mut sum = 0u64;
                     for &k in c.iter().rev().filter(|&&k| k != u32::MAX) {
                         let child = self.tiles.get(k as usize).ok_or(format!("no tile {k}"))?;
                         if child.level != t.level + 1 || child.x / 2 != t.x || child.y / 2 != t.y {
                             return Err(format!("tile {k} is not a child of tile {i}"));
                         }
-                        sum += child.count;
+                        sum = sum.saturating_add(child.count);
                         stack.push(k);
                     }
                     if sum != t.count {
@@ -243,15 +280,12 @@ impl Pyramid {
                             t.count
                         ));
                     }
-                    let sq = self.square(t);
-                    for k in *a..*b {
-                        let (px, py) = (positions[2 * k as usize], positions[2 * k as usize + 1]);
-                        if self.cell(px, py, t.level) != [t.x, t.y] {
-                            return Err(format!(
-                                "item {k} at ({px}, {py}) lies outside leaf {i}'s square {sq:?}"
-                            ));
-                        }
+                    if last_leaf.is_some_and(|l| l >= i) {
+                        return Err(format!(
+                            "leaf {i} comes before an earlier leaf in node order"
+                        ));
                     }
+                    last_leaf = Some(i);
                     next = *b;
                 }
                 _ => return Err(format!("tile {i} is neither a leaf nor has children")),
@@ -260,7 +294,30 @@ impl Pyramid {
         if next != n {
             return Err(format!("the leaves hold {next} of {n} items"));
         }
+        if let Some(k) = seen.iter().position(|s| !s) {
+            return Err(format!("tile {k} is not below the root"));
+        }
         Ok(())
+    }
+
+    /// The items below tile `i`: one run in item order (a tile's leaves are consecutive).
+    pub fn run(&self, i: usize) -> [u64; 2] {
+        // The first leaf down the first children, the last down the last ones.
+        let down = |rev: bool| {
+            let mut k = i;
+            while let Some(c) = &self.tiles[k].children {
+                let mut it = c.iter().copied().filter(|&k| k != u32::MAX);
+                match if rev { it.next_back() } else { it.next() } {
+                    Some(next) => k = next as usize,
+                    None => break,
+                }
+            }
+            self.tiles[k].items
+        };
+        match (down(false), down(true)) {
+            (Some([a, _]), Some([_, b])) => [a, b],
+            _ => [0, 0],
+        }
     }
 }
 
@@ -419,7 +476,48 @@ mod tests {
         swapped.swap(0, last);
         swapped.swap(1, last + 1);
         let e = p.check(&swapped).unwrap_err();
-        assert!(e.contains("lies outside leaf"), "{e}");
+        assert!(e.contains("lies outside the square"), "{e}");
+        // A node listed twice, and one no path reaches: what a hand-edited manifest could hold.
+        let mut twice = p.clone();
+        let parent = twice
+            .tiles
+            .iter()
+            .position(|t| t.children.is_some())
+            .unwrap();
+        let c = twice.tiles[parent].children.as_mut().unwrap();
+        let k = *c.iter().find(|&&k| k != u32::MAX).unwrap();
+        *c = [k; 4];
+        assert!(twice.check_structure().is_err());
+        let mut stray = p.clone();
+        let mut leaf = stray.leaves().next().unwrap().clone();
+        leaf.items = Some([0, 0]);
+        leaf.count = 0;
+        stray.tiles.push(leaf);
+        let e = stray.check_structure().unwrap_err();
+        assert!(e.contains("not below the root"), "{e}");
+    }
+
+    #[test]
+    fn a_tiles_items_are_the_run_of_its_leaves() {
+        let pos = mixture(20_000);
+        let (p, _) = Pyramid::build(&pos, 300, 12);
+        // Each tile's run, from its leaves found by walking down: one run, its count long.
+        for (i, t) in p.tiles.iter().enumerate() {
+            let mut leaves = Vec::new();
+            let mut stack = vec![i];
+            while let Some(k) = stack.pop() {
+                match &p.tiles[k].children {
+                    Some(c) => {
+                        stack.extend(c.iter().filter(|&&c| c != u32::MAX).map(|&c| c as usize))
+                    }
+                    None => leaves.push(p.tiles[k].items.unwrap()),
+                }
+            }
+            let lo = leaves.iter().map(|r| r[0]).min().unwrap();
+            let hi = leaves.iter().map(|r| r[1]).max().unwrap();
+            assert_eq!(p.run(i), [lo, hi], "tile {i}");
+            assert_eq!(hi - lo, t.count, "tile {i}: its leaves are one run");
+        }
     }
 
     #[test]

@@ -1763,6 +1763,19 @@ async fn load(base: String) -> Result<(), String> {
     let manifest =
         vitrine_format::Manifest::from_json(&text).map_err(|e| format!("atlas.json: {e}"))?;
     let manifest_sha = vitrine_format::sha256_hex(text.as_bytes());
+    if manifest.tiles.is_some() {
+        show_message(
+            "A tiled atlas",
+            &format!(
+                "{} is tiled (atlas format {}), for collections of millions; this viewer opens atlases \
+                 fetched whole (format {}). `vitrine inspect`, `vitrine corpus` and `vitrine export` read it.",
+                manifest.title,
+                vitrine_format::TILED_FORMAT_VERSION,
+                vitrine_format::FORMAT_VERSION
+            ),
+        );
+        return Ok(());
+    }
     // What the first picture needs comes first; ids, neighbour lists and catalogue columns are
     // fetched while the map is already on screen.
     let first = AtlasData::first_files(&manifest);
