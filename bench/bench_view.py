@@ -6,7 +6,8 @@ Each atlas is built once and cached (~/.cache/vitrine/bench/view): vectors from 
 Gaussians (so the map has clusters), an invented catalogue (technique, place, date), and images:
 1,000 distinct invented 192x144 JPEGs, each used by many records (every record's thumbnail is
 still made and packed on its own). Levels 32 and 128 px (a 512 px level for a million items would
-be tens of gigabytes of sheets).
+be tens of gigabytes of sheets). From 5,000,000 items (`--sizes 25000000`) the atlas is tiled and
+written directly by `vitrine-bench atlas` (bench/vitrine-bench/src/synth.rs) without building a map.
 """
 
 import argparse
@@ -89,6 +90,35 @@ def ensure_atlas(cache, n, vitrine, viewer):
     return out
 
 
+# Collections at least this large get a tiled bench atlas written directly (no map is built).
+TILED_FROM = 5_000_000
+TILED_VERSION = 1
+
+
+def ensure_tiled_atlas(cache, n, bench_tool, viewer):
+    """A tiled atlas of n invented items written by `vitrine-bench atlas` (a seeded mixture on the
+    plane, an invented catalogue, 1,000 shared pictures); cached until the tool changes."""
+    out = cache / f"tiled-{n}"
+    stamp = out / ".bench-stamp"
+    want = json.dumps({"version": TILED_VERSION, "tool": os.path.getmtime(bench_tool)})
+    if not (stamp.exists() and stamp.read_text() == want):
+        log(f"writing the {n:,}-item tiled atlas (once per tool build)")
+        r = subprocess.run([str(bench_tool), "atlas", str(n), str(out), "--viewer", str(viewer)],
+                           check=True, capture_output=True, text=True)
+        written = json.loads(r.stdout.strip().splitlines()[-1])
+        log(f"  {written['seconds']:.0f} s, {written['bytes'] / 1e9:.1f} GB, "
+            f"{written['tiles']:,} tiles, {written['leaves']:,} leaves")
+        (out / ".written.json").write_text(json.dumps(written))
+        stamp.write_text(want)
+    else:
+        for f in viewer.rglob("*"):
+            if f.is_file():
+                dst = out / f.relative_to(viewer)
+                dst.parent.mkdir(parents=True, exist_ok=True)
+                shutil.copy2(f, dst)
+    return out, json.loads((out / ".written.json").read_text())
+
+
 def serve(vitrine, atlas):
     p = subprocess.Popen([str(vitrine), "serve", str(atlas), "--port", "0"], stdout=subprocess.PIPE,
                          text=True)
@@ -112,11 +142,19 @@ def main():
                          "surface (through wgpu's surface, which copies each frame once more)")
     ap.add_argument("--vitrine", default=str(ROOT / "target" / "release" / "vitrine"))
     ap.add_argument("--viewer", default=str(ROOT / "target" / "viewer"))
+    ap.add_argument("--bench-tool", default=str(ROOT / "target" / "release" / "vitrine-bench"))
     a = ap.parse_args()
     cache = Path(a.cache).expanduser()
     cache.mkdir(parents=True, exist_ok=True)
     results = []
     for n in [int(s) for s in a.sizes.split(",")]:
+        if n >= TILED_FROM:
+            atlas, written = ensure_tiled_atlas(cache, n, Path(a.bench_tool), Path(a.viewer))
+            print(f"{n:,} items: tiled bench atlas written in {written['seconds']:.0f} s, "
+                  f"{written['bytes'] / 1e9:.1f} GB, {written['tiles']:,} tiles "
+                  f"({written['leaves']:,} leaves)")
+            print("  (the viewer does not open tiled atlases yet: no browser session)")
+            continue
         atlas = ensure_atlas(cache, n, Path(a.vitrine), Path(a.viewer))
         server, url = serve(a.vitrine, atlas)
         try:

@@ -7,6 +7,8 @@
 #[global_allocator]
 static ALLOCATOR: mimalloc::MiMalloc = mimalloc::MiMalloc;
 
+mod synth;
+
 use std::path::PathBuf;
 use std::time::Instant;
 
@@ -18,6 +20,9 @@ fn main() -> anyhow::Result<()> {
     let args: Vec<String> = std::env::args().collect();
     if args.get(1).map(String::as_str) == Some("images") {
         return images(&args[2..]);
+    }
+    if args.get(1).map(String::as_str) == Some("atlas") {
+        return synth::run(&args[2..]);
     }
     let usage = "usage: vitrine-bench knn|map VECTORS.npy OUT.npy [cosine|euclidean] [k] [sequential|parallel]\n       vitrine-bench images IMAGES_DIR OUT_DIR [long side, default 512]";
     let (stage, input, out) = match (args.get(1), args.get(2), args.get(3)) {

@@ -18,6 +18,7 @@ mod files;
 pub mod npy;
 pub mod palette;
 pub mod pyramid;
+pub mod spacing;
 pub mod tiles;
 
 pub use files::AtlasFiles;
@@ -702,7 +703,7 @@ impl Manifest {
             serde_json::from_value(value).map_err(|e| AtlasError::ManifestJson(e.to_string()))?;
         m.check_counts()?;
         match (&m.tiles, version == TILED_FORMAT_VERSION) {
-            (Some(t), true) => t.check(m.item_count, &m.arrays())?,
+            (Some(t), true) => t.check(&m)?,
             (None, false) => {}
             (Some(_), false) => {
                 return Err(AtlasError::Inconsistent(format!(

@@ -4,19 +4,18 @@
 //!
 //! A tiled atlas is a format-2 atlas whose items are in the pyramid's leaf order, with three
 //! additions:
-//! - **chunked arrays**: the per-item arrays a view draws or a record card shows (the similarity
-//!   map's positions, colours, thumbnail extents and picture cells, image sizes, ids, text and
-//!   link fields, values as written) are stored by leaf: the whole array is declared as before
-//!   (type, count, bytes and the SHA-256 of the whole), but on disk it is one file per leaf,
-//!   `<file without .bin>/<leaf, five digits>.bin`, each checked by its own SHA-256 (`sums`, 32
-//!   bytes a leaf). The arrays a filter reads over every item (category, number and date columns,
-//!   clusters) stay whole files, fetched on first use.
-//! - **cells**: u8 x, y per item, its place on a 256 x 256 grid over its leaf's square, enough to
-//!   redraw an overview at any coarser tile (filters dimmed, another colouring) from the whole
-//!   collection without the positions.
+//! - **arrays stored by leaf**: every per-item array (positions on every map, colours, thumbnail
+//!   extents and pictures, image sizes, ids, source rows, every field's columns and values as
+//!   written, clusters, cells) is declared as before (type, count, bytes and the SHA-256 of the
+//!   whole), but on disk it is one file per leaf, `<file without .bin>/<leaf, five digits>.bin`,
+//!   each checked by its own SHA-256 (`sums`, 32 bytes a leaf). A viewer fetches the leaves in
+//!   view, and every leaf of a column when a filter over the whole collection needs it.
+//! - **cells**: u8 column and row per item, its place on a 256 x 256 grid over its leaf's square,
+//!   from which any tile's overview is drawn ([`overview_pixels`]) — by the build, and by a
+//!   viewer again when filters dim items or another field colours them.
 //! - **overviews**: a picture per tile (`tiles/<tile, five digits>.png`, `overview_px` square,
 //!   transparent where there is nothing): the items' marks as they look when that tile fills
-//!   about its own size on screen, drawn at build time.
+//!   about its own size on screen.
 //!
 //! Joining the chunks of an array in leaf order gives back the whole array ([`join`]), so every
 //! reader of format 2 reads a tiled atlas by joining first.
@@ -24,7 +23,7 @@
 use serde::{Deserialize, Serialize};
 
 use crate::pyramid::Pyramid;
-use crate::{sha256_hex, ArrayRef, AtlasError, DType};
+use crate::{sha256_hex, ArrayRef, AtlasError, DType, FieldKind, Manifest};
 
 /// Side of the grid of `cells` over a leaf's square.
 pub const CELL_GRID: u32 = 256;
@@ -35,12 +34,12 @@ pub const CELL_GRID: u32 = 256;
 pub enum ChunkLayout {
     /// `per_item` elements for each item: a leaf's chunk is its items' elements.
     Items { per_item: u32 },
-    /// A text table's offsets: a leaf's chunk holds its items' offsets and the one after them,
-    /// less the first (so each chunk starts at 0).
-    TextOffsets,
-    /// A text table's bytes: a leaf's chunk holds the bytes its items' offsets span; `offsets`
-    /// names the (chunked) offsets array.
-    TextBytes { offsets: String },
+    /// Offsets (u32, items + 1, from 0) into another array (a text table's bytes, a multi-valued
+    /// field's codes): a leaf's chunk holds its items' offsets and the one after them, less the
+    /// first, so that each chunk starts at 0.
+    Offsets,
+    /// The elements a leaf's items' offsets span; `offsets` names the (chunked) offsets array.
+    Spans { offsets: String },
 }
 
 /// An array stored by leaf.
@@ -64,9 +63,59 @@ pub struct Tiles {
     pub overview_px: u32,
     /// SHA-256 of each tile's overview picture, 32 bytes a tile, in tile order.
     pub overview_sums: ArrayRef,
-    /// u8 x, y per item: its cell on a 256 x 256 grid over its leaf's square.
+    /// The map's typical spacing ([`crate::spacing::typical_spacing`]), which a viewer cannot
+    /// measure without every position.
+    pub spacing: f64,
+    /// u8 column and row per item: its cell on a 256 x 256 grid over its leaf's square (stored by
+    /// leaf, as every per-item array).
     pub cells: ArrayRef,
+    /// Every per-item array ([`per_item_arrays`]), stored by leaf.
     pub chunked: Vec<ChunkedArray>,
+}
+
+/// Every per-item array of an atlas, with how it is cut by leaf: what a tiled atlas stores by
+/// leaf (its `cells` included).
+pub fn per_item_arrays(m: &Manifest) -> Vec<(ArrayRef, ChunkLayout)> {
+    let items = |per_item| ChunkLayout::Items { per_item };
+    let spans = |pair: &[ArrayRef; 2]| {
+        [
+            (pair[0].clone(), ChunkLayout::Offsets),
+            (
+                pair[1].clone(),
+                ChunkLayout::Spans {
+                    offsets: pair[0].file.clone(),
+                },
+            ),
+        ]
+    };
+    let mut v = Vec::new();
+    v.extend(spans(&[m.ids.clone(), m.ids_text.clone()]));
+    v.push((m.source_rows.clone(), items(1)));
+    v.push((m.colours.clone(), items(4)));
+    for map in &m.maps {
+        v.push((map.positions.clone(), items(2)));
+    }
+    for f in &m.fields {
+        match (f.kind, &f.column2) {
+            (FieldKind::Text | FieldKind::Link, Some(bytes)) => {
+                v.extend(spans(&[f.column.clone(), bytes.clone()]))
+            }
+            (_, second) => {
+                v.push((f.column.clone(), items(1)));
+                v.extend(second.iter().map(|c| (c.clone(), items(1))));
+            }
+        }
+        v.extend(f.written.iter().flat_map(spans));
+        v.extend(f.multi.iter().flat_map(spans));
+    }
+    if let Some(s) = &m.sheets {
+        v.push((s.extents.clone(), items(1)));
+        v.extend(s.image_sizes.iter().map(|r| (r.clone(), items(2))));
+        v.extend(s.pictures.iter().map(|r| (r.clone(), items(1))));
+    }
+    v.extend(m.clusters.iter().map(|c| (c.ids.clone(), items(1))));
+    v.extend(m.tiles.iter().map(|t| (t.cells.clone(), items(2))));
+    v
 }
 
 /// The file of leaf `leaf`'s chunk of the array stored whole at `file`.
@@ -124,16 +173,16 @@ impl Tiles {
         self.chunked.iter().find(|c| c.file == file)
     }
 
-    /// Every file a reader may fetch beside the manifest's whole arrays: sums and cells.
+    /// The arrays this section declares: the cells (stored by leaf) and the lists of sums.
     pub fn arrays(&self) -> Vec<&ArrayRef> {
         let mut v = vec![&self.overview_sums, &self.cells];
         v.extend(self.chunked.iter().map(|c| &c.sums));
         v
     }
 
-    /// Checks the section against the manifest's arrays (`declared`: every whole array the
-    /// manifest declares) and item count.
-    pub fn check(&self, n: u64, declared: &[&ArrayRef]) -> Result<(), AtlasError> {
+    /// Checks the section against its manifest `m`.
+    pub fn check(&self, m: &Manifest) -> Result<(), AtlasError> {
+        let n = m.item_count;
         let bad = |s: String| Err(AtlasError::Inconsistent(s));
         let p = &self.pyramid;
         let root = p.tiles.first();
@@ -145,12 +194,21 @@ impl Tiles {
         if !(p.side.is_finite() && p.side > 0.0 && p.origin.iter().all(|v| v.is_finite())) {
             return bad("the tile pyramid's square is not a square".into());
         }
+        if !m.maps.iter().any(|x| x.name == self.map) {
+            return bad(format!(
+                "the tiles are over a map {:?} the atlas has not",
+                self.map
+            ));
+        }
         p.check_structure()
             .map_err(|e| AtlasError::Inconsistent(format!("tile pyramid: {e}")))?;
         let leaves = self.runs().len() as u64;
         let tiles = p.tiles.len() as u64;
         if self.overview_px == 0 || self.overview_px > 4096 {
             return bad(format!("overview pictures of {} pixels", self.overview_px));
+        }
+        if !(self.spacing.is_finite() && self.spacing >= 0.0) {
+            return bad(format!("a typical spacing of {}", self.spacing));
         }
         let want = |r: &ArrayRef, count: u64, dtype: DType| {
             if r.count != count || r.dtype != dtype || r.count * dtype.size() != r.bytes {
@@ -163,36 +221,37 @@ impl Tiles {
         };
         want(&self.overview_sums, 32 * tiles, DType::U8)?;
         want(&self.cells, 2 * n, DType::U8)?;
-        for c in &self.chunked {
-            want(&c.sums, 32 * leaves, DType::U8)?;
-            let Some(whole) = declared.iter().find(|r| r.file == c.file) else {
-                return bad(format!("{} is chunked but not declared", c.file));
+        // Every per-item array, and only those, stored by leaf, as the rule cuts it.
+        let rule = per_item_arrays(m);
+        if rule.len() != self.chunked.len() {
+            return bad(format!(
+                "{} arrays stored by leaf, the atlas has {} per-item arrays",
+                self.chunked.len(),
+                rule.len()
+            ));
+        }
+        for (r, layout) in &rule {
+            let Some(c) = self.chunked(&r.file) else {
+                return bad(format!("{} is not stored by leaf", r.file));
             };
-            match &c.layout {
-                ChunkLayout::Items { per_item } => {
-                    if whole.count != n * *per_item as u64 {
-                        return bad(format!(
-                            "{} holds {} elements, not {per_item} for each of {n} items",
-                            c.file, whole.count
-                        ));
-                    }
+            if c.layout != *layout {
+                return bad(format!(
+                    "{} is cut as {:?}, not {layout:?}",
+                    r.file, c.layout
+                ));
+            }
+            want(&c.sums, 32 * leaves, DType::U8)?;
+            match layout {
+                ChunkLayout::Items { per_item } if r.count != n * *per_item as u64 => {
+                    return bad(format!(
+                        "{} holds {} elements, not {per_item} for each of {n} items",
+                        r.file, r.count
+                    ));
                 }
-                ChunkLayout::TextOffsets => {
-                    if whole.count != n + 1 || whole.dtype != DType::U32 {
-                        return bad(format!("{} is not a text table's offsets", c.file));
-                    }
+                ChunkLayout::Offsets if r.count != n + 1 || r.dtype != DType::U32 => {
+                    return bad(format!("{} is not offsets for {n} items", r.file));
                 }
-                ChunkLayout::TextBytes { offsets } => {
-                    let by_leaf = self
-                        .chunked(offsets)
-                        .is_some_and(|o| o.layout == ChunkLayout::TextOffsets);
-                    if whole.dtype != DType::U8 || !by_leaf {
-                        return bad(format!(
-                            "{} is text cut by {offsets}, which is not chunked offsets",
-                            c.file
-                        ));
-                    }
-                }
+                _ => {}
             }
         }
         Ok(())
@@ -200,7 +259,7 @@ impl Tiles {
 }
 
 /// The chunks of one array (`bytes`, the whole, as `r` declares it) for the leaves' item
-/// `runs`; a text table's bytes need its whole offsets.
+/// `runs`; spans need their whole offsets.
 pub fn split(
     r: &ArrayRef,
     bytes: &[u8],
@@ -222,7 +281,7 @@ pub fn split(
                     .ok_or_else(|| out_of("too short"))?
                     .to_vec()
             }
-            ChunkLayout::TextOffsets => {
+            ChunkLayout::Offsets => {
                 let at = |k: usize| -> Result<u32, AtlasError> {
                     let s = bytes
                         .get(4 * k..4 * k + 4)
@@ -239,13 +298,13 @@ pub fn split(
                 }
                 v
             }
-            ChunkLayout::TextBytes { .. } => {
+            ChunkLayout::Spans { .. } => {
                 let o = offsets.ok_or_else(|| out_of("split without its offsets"))?;
                 let (s, e) = (o.get(a), o.get(b));
                 let (&s, &e) = s.zip(e).ok_or_else(|| out_of("offsets too short"))?;
                 bytes
-                    .get(s as usize..e as usize)
-                    .ok_or_else(|| out_of("offsets beyond the text"))?
+                    .get(s as usize * size..e as usize * size)
+                    .ok_or_else(|| out_of("offsets beyond the array"))?
                     .to_vec()
             }
         };
@@ -259,7 +318,7 @@ pub fn join<B: AsRef<[u8]>>(layout: &ChunkLayout, chunks: &[B]) -> Vec<u8> {
     let total: usize = chunks.iter().map(|c| c.as_ref().len()).sum();
     let mut out = Vec::with_capacity(total);
     match layout {
-        ChunkLayout::TextOffsets => {
+        ChunkLayout::Offsets => {
             let mut base = 0u32;
             out.extend(0u32.to_le_bytes());
             for c in chunks {
@@ -300,6 +359,81 @@ pub fn cells(p: &Pyramid, positions: &[f32]) -> Vec<u8> {
     out
 }
 
+/// Side of an item's mark in an overview picture, in its pixels.
+pub const OVERVIEW_MARK_PX: usize = 2;
+
+/// Tile `t`'s overview, `side` x `side` RGBA pixels (row 0 at the top of its square): each item
+/// below it a square mark of `colour(item)` at half opacity, placed by its `cells` (two bytes an
+/// item, in item order), the marks on one pixel composited as their mean colour at opacity
+/// 1 - 0.5^count, so that density shows as well as colour. An item whose colour has alpha 0 is
+/// left out. The build draws every tile's picture so; a viewer draws it again with its own
+/// colours (dimmed by filters, or another field's).
+pub fn overview_pixels(
+    p: &Pyramid,
+    t: usize,
+    side: usize,
+    cells: &[u8],
+    colour: impl Fn(usize) -> [u8; 4],
+) -> Vec<u8> {
+    // Per pixel: sums of red, green, blue and the count of marks.
+    let mut acc = vec![[0u32; 4]; side * side];
+    let tile = &p.tiles[t];
+    let mut stack = vec![t];
+    let grid = CELL_GRID as f64;
+    while let Some(k) = stack.pop() {
+        let leaf = &p.tiles[k];
+        if let Some(c) = &leaf.children {
+            stack.extend(c.iter().filter(|&&c| c != u32::MAX).map(|&c| c as usize));
+            continue;
+        }
+        let Some([a, b]) = leaf.items else { continue };
+        // The leaf inside the tile: `per` of the tile's side, offset by (ox, oy) leaves.
+        let depth = leaf.level.saturating_sub(tile.level).min(30);
+        let per = 1.0 / (1u64 << depth) as f64;
+        let ox = (leaf.x - (tile.x << depth)) as f64;
+        let oy = (leaf.y - (tile.y << depth)) as f64;
+        let to_px = side as f64 * per;
+        for k in a as usize..b as usize {
+            let c = colour(k);
+            if c[3] == 0 {
+                continue;
+            }
+            let (cx, cy) = (cells[2 * k] as f64 + 0.5, cells[2 * k + 1] as f64 + 0.5);
+            let sx = (ox + cx / grid) * to_px;
+            let sy = side as f64 - (oy + cy / grid) * to_px;
+            let half = OVERVIEW_MARK_PX as f64 / 2.0;
+            let c0 = (sx - half).round().clamp(0.0, side as f64) as usize;
+            let r0 = (sy - half).round().clamp(0.0, side as f64) as usize;
+            let (c1, r1) = (
+                (c0 + OVERVIEW_MARK_PX).min(side),
+                (r0 + OVERVIEW_MARK_PX).min(side),
+            );
+            for r in r0..r1 {
+                for q in &mut acc[r * side + c0..r * side + c1] {
+                    q[0] += c[0] as u32;
+                    q[1] += c[1] as u32;
+                    q[2] += c[2] as u32;
+                    q[3] += 1;
+                }
+            }
+        }
+    }
+    let mut px = vec![0u8; side * side * 4];
+    for (q, o) in acc.iter().zip(px.chunks_exact_mut(4)) {
+        if q[3] > 0 {
+            let n = q[3];
+            let opacity = 1.0 - 0.5f64.powi(n.min(64) as i32);
+            o.copy_from_slice(&[
+                ((q[0] + n / 2) / n) as u8,
+                ((q[1] + n / 2) / n) as u8,
+                ((q[2] + n / 2) / n) as u8,
+                (opacity * 255.0).round() as u8,
+            ]);
+        }
+    }
+    px
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -326,8 +460,8 @@ mod tests {
         let (rt, bt) = ArrayRef::encode("arrays/ids.text.bin", &utf8);
         let xy: Vec<f32> = (0..12).map(|v| v as f32 * 0.5).collect();
         let (rp, bp) = ArrayRef::encode("arrays/map-similarity.bin", &xy);
-        let lo = ChunkLayout::TextOffsets;
-        let lt = ChunkLayout::TextBytes {
+        let lo = ChunkLayout::Offsets;
+        let lt = ChunkLayout::Spans {
             offsets: ro.file.clone(),
         };
         let lp = ChunkLayout::Items { per_item: 2 };
@@ -337,6 +471,19 @@ mod tests {
         assert_eq!(join(&lo, &co), bo);
         assert_eq!(join(&lt, &ct), bt);
         assert_eq!(join(&lp, &cp), bp);
+        // A multi-valued field's codes: spans of u32, cut by element.
+        let (mo, mc) = (vec![0u32, 2, 2, 3, 5, 5, 6], vec![1u32, 2, 0, 3, 4, 1]);
+        let (rmo, bmo) = ArrayRef::encode("arrays/field-kw.multi.offsets.bin", &mo);
+        let (rmc, bmc) = ArrayRef::encode("arrays/field-kw.multi.codes.bin", &mc);
+        let lmc = ChunkLayout::Spans {
+            offsets: rmo.file.clone(),
+        };
+        let cmo = split(&rmo, &bmo, &lo, &runs, None).unwrap();
+        let cmc = split(&rmc, &bmc, &lmc, &runs, Some(&mo)).unwrap();
+        assert_eq!(cmc[2], bytemuck::cast_slice::<u32, u8>(&[0, 3, 4]));
+        assert_eq!(cmo[2], bytemuck::cast_slice::<u32, u8>(&[0, 1, 3, 3]));
+        assert_eq!(join(&lo, &cmo), bmo);
+        assert_eq!(join(&lmc, &cmc), bmc);
         // Each chunk is a table of its own: leaf 2's holds items 2..5 from offset 0.
         let o2: Vec<u32> = bytemuck::cast_slice(&co[2]).to_vec();
         let t2 = crate::TextTable {
@@ -386,5 +533,111 @@ mod tests {
                 }
             }
         }
+    }
+
+    #[test]
+    fn an_overview_shows_each_item_below_its_tile_where_it_lies() {
+        // Clumps of very different sizes and a scatter; leaves of at most 50 items.
+        let mut xy = Vec::new();
+        let mut r = 12345u64;
+        let mut next = || {
+            r = r
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            (r >> 11) as f64 / (1u64 << 53) as f64
+        };
+        for k in 0..3000 {
+            let (cx, cy, s) = [(2.0, 3.0, 0.05), (7.0, 8.0, 0.8), (5.0, 5.0, 5.0)][k % 3];
+            xy.extend([
+                (cx + s * (next() - 0.5)) as f32,
+                (cy + s * (next() - 0.5)) as f32,
+            ]);
+        }
+        let (p, order) = Pyramid::build(&xy, 50, 12);
+        let sorted: Vec<f32> = order
+            .iter()
+            .flat_map(|&i| [xy[2 * i as usize], xy[2 * i as usize + 1]])
+            .collect();
+        let cells = cells(&p, &sorted);
+        let side = 256;
+        // The root, a tile in the middle of the tree and a leaf: a few of their items, each drawn
+        // alone, lie where their positions put them (within the mark and a cell's rounding).
+        let deep = p
+            .tiles
+            .iter()
+            .position(|t| t.level == 3 && t.children.is_some())
+            .unwrap();
+        let leaf = p
+            .tiles
+            .iter()
+            .position(|t| t.level >= 4 && t.children.is_none())
+            .unwrap();
+        for t in [0, deep, leaf] {
+            let [a, b] = p.run(t);
+            let sq = p.square(&p.tiles[t]);
+            let scale = side as f64 / (sq[2] - sq[0]);
+            for k in (a..b).step_by(((b - a) / 7).max(1) as usize) {
+                let k = k as usize;
+                let px = overview_pixels(&p, t, side, &cells, |i| {
+                    if i == k {
+                        [200, 10, 10, 255]
+                    } else {
+                        [0; 4]
+                    }
+                });
+                let drawn: Vec<(usize, usize)> = (0..side * side)
+                    .filter(|&q| px[4 * q + 3] > 0)
+                    .map(|q| (q % side, q / side))
+                    .collect();
+                assert!(!drawn.is_empty() && drawn.len() <= 4, "tile {t} item {k}");
+                let sx = (sorted[2 * k] as f64 - sq[0]) * scale;
+                let sy = (sq[3] - sorted[2 * k + 1] as f64) * scale;
+                for &(x, y) in &drawn {
+                    assert!(
+                        (x as f64 + 0.5 - sx).abs() <= 2.0,
+                        "tile {t} item {k}: {x} vs {sx}"
+                    );
+                    assert!(
+                        (y as f64 + 0.5 - sy).abs() <= 2.0,
+                        "tile {t} item {k}: {y} vs {sy}"
+                    );
+                    assert_eq!(&px[4 * (y * side + x)..][..4], &[200, 10, 10, 128]);
+                }
+            }
+        }
+        // Drawn whole, a tile's marks count its items: a pixel's opacity says how many.
+        let px = overview_pixels(&p, 0, side, &cells, |_| [9, 9, 9, 255]);
+        assert!(
+            px.chunks_exact(4).any(|q| q[3] == 255),
+            "the dense clump saturates"
+        );
+        assert!(
+            px.chunks_exact(4).any(|q| q[3] == 128),
+            "the scatter has lone marks"
+        );
+    }
+
+    #[test]
+    fn marks_on_one_pixel_mix_their_colours_and_add_up_in_opacity() {
+        // Three items on one point, red, red and blue: two thirds red, opacity 1 - 0.5^3.
+        let xy = vec![1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 0.0, 0.0, 2.0, 2.0];
+        let (p, order) = Pyramid::build(&xy, 10, 4);
+        assert_eq!(order, [0, 1, 2, 3, 4]);
+        let colours = [
+            [255, 0, 0, 255],
+            [255, 0, 0, 255],
+            [0, 0, 255, 255],
+            [9, 9, 9, 255],
+            [9, 9, 9, 255],
+        ];
+        let c = cells(&p, &xy);
+        let px = overview_pixels(&p, 0, 256, &c, |k| colours[k]);
+        let mixed: Vec<&[u8]> = px.chunks_exact(4).filter(|q| q[3] == 223).collect();
+        assert_eq!(mixed.len(), 4, "one 2 x 2 mark");
+        assert!(mixed.iter().all(|q| q[..3] == [170, 0, 85]));
+        // Left out: an item whose colour is transparent. The two left are in corners of the
+        // square, their marks cut to two pixels each by its edges.
+        let px = overview_pixels(&p, 0, 256, &c, |k| if k < 3 { [0; 4] } else { colours[k] });
+        assert_eq!(px.chunks_exact(4).filter(|q| q[3] > 0).count(), 4);
     }
 }
