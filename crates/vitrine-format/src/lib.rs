@@ -472,7 +472,7 @@ pub struct Sheets {
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub image_sizes: Option<ArrayRef>,
     /// u32 per item: the sheet cell holding its picture, when items share pictures (absent: item
-    /// i's picture is in cell i). Cells then count pictures, not items.
+    /// i's picture is in cell i). Cells then count pictures, not items. Tiled atlases only.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub pictures: Option<ArrayRef>,
 }
@@ -702,6 +702,13 @@ impl Manifest {
         let m: Manifest =
             serde_json::from_value(value).map_err(|e| AtlasError::ManifestJson(e.to_string()))?;
         m.check_counts()?;
+        if version != TILED_FORMAT_VERSION
+            && m.sheets.as_ref().is_some_and(|s| s.pictures.is_some())
+        {
+            return Err(AtlasError::Inconsistent(format!(
+                "shared pictures are for tiled atlases (format {TILED_FORMAT_VERSION})"
+            )));
+        }
         match (&m.tiles, version == TILED_FORMAT_VERSION) {
             (Some(t), true) => t.check(&m)?,
             (None, false) => {}

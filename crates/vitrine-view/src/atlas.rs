@@ -41,6 +41,29 @@ pub struct AtlasData {
     /// Groups of copies of one picture (empty when the build found none or did not look), with
     /// the catalogue.
     pub copies: vitrine_format::CopyGroups,
+    /// A tiled atlas's pyramid and what of it is here (None: the atlas was fetched whole). Its
+    /// items' positions, colours and extents above are filled leaf by leaf as the leaves arrive
+    /// and stay (20 bytes an item at most: 500 MB for 25 million); `maps` then holds the tiled
+    /// map alone, without positions.
+    pub tiled: Option<crate::tiled::Tiled>,
+}
+
+/// The per-item arrays a tiled atlas's leaf brings for drawing: positions, colours, extents
+/// (with sheets) and pictures (when items share them).
+pub fn leaf_arrays(m: &Manifest) -> Vec<&vitrine_format::ArrayRef> {
+    let t = m.tiles.as_ref();
+    let mut v: Vec<&vitrine_format::ArrayRef> = m
+        .maps
+        .iter()
+        .filter(|p| t.is_some_and(|t| t.map == p.name))
+        .map(|p| &p.positions)
+        .collect();
+    v.push(&m.colours);
+    if let Some(s) = &m.sheets {
+        v.push(&s.extents);
+        v.extend(&s.pictures);
+    }
+    v
 }
 
 /// One line of a record card.
@@ -253,11 +276,138 @@ impl AtlasData {
             catalogue: false,
             image_sizes: Vec::new(),
             copies: Default::default(),
+            tiled: None,
         };
         if later {
             atlas.complete(files)?;
         }
         Ok(atlas)
+    }
+
+    /// A tiled atlas (format 3) before any of its leaves has arrived: the pyramid, no items'
+    /// data yet.
+    pub fn tiled(manifest: Manifest) -> Result<AtlasData, AtlasError> {
+        let n = manifest.item_count as usize;
+        let tiles = manifest
+            .tiles
+            .clone()
+            .ok_or_else(|| AtlasError::Inconsistent("not a tiled atlas".into()))?;
+        let map = manifest
+            .maps
+            .iter()
+            .find(|m| m.name == tiles.map)
+            .ok_or_else(|| AtlasError::Inconsistent(format!("no map {}", tiles.map)))?;
+        let (w, h) = (
+            (map.bounds[2] - map.bounds[0]).max(1e-6) as f64,
+            (map.bounds[3] - map.bounds[1]).max(1e-6) as f64,
+        );
+        let spacing = if tiles.spacing > 0.0 {
+            tiles.spacing
+        } else {
+            (w * h * 0.5 / n.max(1) as f64).sqrt()
+        };
+        let view = MapView {
+            name: map.name.clone(),
+            description: map.description.clone(),
+            positions: Vec::new(),
+            bounds: map.bounds,
+            spacing,
+            axis: map.x_axis.clone(),
+        };
+        Ok(AtlasData {
+            n,
+            ids: TextTable::from_strings::<&str>(&[]),
+            positions: vec![[0.0; 2]; n],
+            bounds: map.bounds,
+            colours: vec![[0; 4]; n],
+            fields: Vec::new(),
+            neighbours: NeighbourChunks::new(&manifest, NEIGHBOUR_CHUNK_BUDGET),
+            extents: vec![(0, 0); if manifest.sheets.is_some() { n } else { 0 }],
+            spacing,
+            maps: vec![view],
+            current: 0,
+            clusters: Vec::new(),
+            catalogue: false,
+            image_sizes: Vec::new(),
+            copies: Default::default(),
+            tiled: Some(crate::tiled::Tiled::new(tiles)),
+            manifest,
+        })
+    }
+
+    /// The files of leaf `leaf`'s chunks of the [`leaf_arrays`].
+    pub fn leaf_files(&self, leaf: usize) -> Vec<String> {
+        leaf_arrays(&self.manifest)
+            .into_iter()
+            .map(|r| vitrine_format::tiles::chunk_file(&r.file, leaf))
+            .collect()
+    }
+
+    /// Puts leaf `leaf`'s drawing data in place from its chunks (`files` holds them by name, and
+    /// each array's list of checksums under its sums file), each checked first; the leaf's
+    /// pictures, when items share them, are returned for the sheets.
+    pub fn insert_leaf(&mut self, leaf: usize, files: &AtlasFiles) -> Result<Vec<u32>, AtlasError> {
+        let Some(t) = &self.tiled else {
+            return Err(AtlasError::Inconsistent("not a tiled atlas".into()));
+        };
+        let [a, b] = t.runs[leaf];
+        let (a, b) = (a as usize, b as usize);
+        let m = &self.manifest;
+        let tiles = m.tiles.as_ref().expect("a tiled atlas has tiles");
+        let part = |r: &vitrine_format::ArrayRef, per_item: usize| -> Result<&[u8], AtlasError> {
+            let c = tiles.chunked(&r.file).ok_or_else(|| {
+                AtlasError::Inconsistent(format!("{} is not stored by leaf", r.file))
+            })?;
+            let sums = files.bytes(&c.sums)?;
+            c.sums.verify(sums)?;
+            let file = vitrine_format::tiles::chunk_file(&r.file, leaf);
+            let bytes = files.bytes(&vitrine_format::ArrayRef {
+                file: file.clone(),
+                ..r.clone()
+            })?;
+            let want = (b - a) * per_item * r.dtype.size() as usize;
+            if bytes.len() != want {
+                return Err(AtlasError::WrongLength {
+                    file,
+                    expected: want as u64,
+                    found: bytes.len() as u64,
+                });
+            }
+            vitrine_format::tiles::verify_part(&file, sums, leaf, bytes)?;
+            Ok(bytes)
+        };
+        let map = m
+            .maps
+            .iter()
+            .find(|p| p.name == tiles.map)
+            .expect("checked");
+        let xy = part(&map.positions, 2)?;
+        let colours = part(&m.colours, 4)?;
+        let extents = m.sheets.as_ref().map(|s| part(&s.extents, 1)).transpose()?;
+        let pictures = match m.sheets.as_ref().and_then(|s| s.pictures.as_ref()) {
+            Some(p) => part(p, 1)?
+                .chunks_exact(4)
+                .map(|c| u32::from_le_bytes([c[0], c[1], c[2], c[3]]))
+                .collect(),
+            None => Vec::new(),
+        };
+        for (k, c) in xy.chunks_exact(8).enumerate() {
+            let f = |o: usize| f32::from_le_bytes([c[o], c[o + 1], c[o + 2], c[o + 3]]);
+            self.positions[a + k] = [f(0), f(4)];
+        }
+        for (k, c) in colours.chunks_exact(4).enumerate() {
+            self.colours[a + k] = [c[0], c[1], c[2], c[3]];
+        }
+        if let Some(e) = extents {
+            for (k, c) in e.chunks_exact(4).enumerate() {
+                let v = u32::from_le_bytes([c[0], c[1], c[2], c[3]]);
+                self.extents[a + k] = vitrine_format::unpack_extent(v);
+            }
+        }
+        if let Some(t) = &mut self.tiled {
+            t.leaf_state[leaf] = crate::tiled::Fetch::Here;
+        }
+        Ok(pictures)
     }
 
     /// Adds the ids and catalogue columns from the [`AtlasData::later_files`].

@@ -29,6 +29,7 @@ pub mod present;
 pub mod raster;
 pub mod selection;
 pub mod sketch;
+pub mod tiled;
 pub mod tray;
 pub mod viewer;
 

@@ -3,27 +3,39 @@
 use kiddo::{ImmutableKdTree, SquaredEuclidean};
 
 pub struct Picker {
-    tree: Option<ImmutableKdTree<f32, 2>>,
+    /// One tree per run of items (the whole map, or each leaf of a tiled atlas that has arrived),
+    /// with the index of the run's first item.
+    trees: Vec<(usize, ImmutableKdTree<f32, 2>)>,
 }
 
 impl Picker {
     pub fn new(positions: &[[f32; 2]]) -> Picker {
-        let tree = if positions.is_empty() {
-            None
-        } else {
-            ImmutableKdTree::new_from_slice(positions).ok()
-        };
-        Picker { tree }
+        let mut p = Picker { trees: Vec::new() };
+        p.add_run(0, positions);
+        p
+    }
+    /// Adds the items `start..start + positions.len()`.
+    pub fn add_run(&mut self, start: usize, positions: &[[f32; 2]]) {
+        if let Ok(t) = ImmutableKdTree::new_from_slice(positions) {
+            if !positions.is_empty() {
+                self.trees.push((start, t));
+            }
+        }
     }
     /// The nearest item to a map point and its distance in map units.
     pub fn nearest(&self, p: [f64; 2]) -> Option<(usize, f64)> {
-        let tree = self.tree.as_ref()?;
         let q = [p[0] as f32, p[1] as f32];
-        let r = tree
-            .query(&q)
-            .nearest_one::<SquaredEuclidean<f32>>()
-            .execute();
-        Some((r.item as usize, (r.distance as f64).sqrt()))
+        self.trees
+            .iter()
+            .map(|(start, tree)| {
+                let r = tree
+                    .query(&q)
+                    .nearest_one::<SquaredEuclidean<f32>>()
+                    .execute();
+                (start + r.item as usize, r.distance)
+            })
+            .min_by(|a, b| a.1.total_cmp(&b.1))
+            .map(|(i, d)| (i, (d as f64).sqrt()))
     }
 }
 

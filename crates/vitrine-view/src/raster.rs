@@ -81,6 +81,9 @@ pub struct SheetStore {
     /// Changes with every [`SheetStore::insert`] (which may also evict): kept thumbnails drawn
     /// from another generation are stale.
     pub generation: u64,
+    /// Each item's sheet cell when items share pictures (a tiled atlas's `pictures`, filled as
+    /// its tiles arrive); empty: item i is in cell i.
+    pub pictures: Vec<u32>,
 }
 
 /// Decoded sheets held at most, in bytes, unless the current frame draws from more.
@@ -113,6 +116,7 @@ impl SheetStore {
             budget: SHEET_BUDGET,
             evicted: 0,
             generation: 0,
+            pictures: Vec::new(),
         }
     }
 
@@ -149,16 +153,20 @@ impl SheetStore {
     pub fn largest_cell(&self) -> u32 {
         self.levels.last().map_or(0, |l| l.cell)
     }
+    /// The cell holding item `item`'s picture (at every level).
+    pub fn slot_of(&self, item: usize) -> usize {
+        self.pictures.get(item).map_or(item, |&p| p as usize)
+    }
     pub fn sheet_of(&self, level: usize, item: usize) -> usize {
         let l = &self.levels[level];
-        item / (l.columns * l.rows) as usize
+        self.slot_of(item) / (l.columns * l.rows) as usize
     }
     /// Where item `item`'s thumbnail lies in its sheet at `level`: [x, y, width, height] in pixels, from
     /// its extent in the largest cell (thumbnails sit at the top left of their cells).
     pub fn cell(&self, level: usize, item: usize, extent: (u16, u16)) -> [u32; 4] {
         let lev = &self.levels[level];
         let per = (lev.columns * lev.rows) as usize;
-        let slot = (item % per) as u32;
+        let slot = (self.slot_of(item) % per) as u32;
         let big = self.largest_cell().max(1) as f64;
         let scale = |e: u16| ((e as f64 / big * lev.cell as f64).round() as u32).clamp(1, lev.cell);
         [
@@ -953,6 +961,131 @@ fn outlines(scene: &Scene, buf: &mut [u8], w: usize, h: usize, thumbnails: bool)
                 scene.theme.accent,
                 thick,
             );
+        }
+    }
+}
+
+/// Draws a tiled atlas's frame into `buf` (RGBA, `w` x `h`): the overview pictures `plan`
+/// names, each scaled into its tile's square over the paper, then the items of the leaves it
+/// draws one by one (marks, or thumbnails when zoomed in), then the open and hovered items.
+pub fn draw_tiled(
+    scene: &Scene,
+    tiled: &crate::tiled::Tiled,
+    plan: &crate::tiled::Plan,
+    buf: &mut [u8],
+    w: usize,
+    h: usize,
+) -> FrameStats {
+    use crate::tiled::Draw;
+    let t = scene.theme;
+    let paper = [t.paper[0], t.paper[1], t.paper[2], 255];
+    for px in buf.chunks_exact_mut(4) {
+        px.copy_from_slice(&paper);
+    }
+    let p = tiled.pyramid();
+    let cam = scene.camera;
+    let mut runs = Vec::new();
+    for d in &plan.draws {
+        match *d {
+            Draw::Overview { tile, from } => {
+                let Some(pic) = &tiled.overviews[from] else {
+                    continue;
+                };
+                let sq = p.square(&p.tiles[tile]);
+                let a = cam.to_screen([sq[0] as f32, sq[3] as f32]);
+                let b = cam.to_screen([sq[2] as f32, sq[1] as f32]);
+                let src = tiled.source_rect(tile, from);
+                blit_overview(buf, w, h, [a[0], a[1], b[0], b[1]], pic, src, t.paper);
+            }
+            Draw::Items { leaf } => runs.push(tiled.runs[leaf]),
+        }
+    }
+    let items = || runs.iter().flat_map(|r| r[0] as usize..r[1] as usize);
+    let side = scene.side_px();
+    let mut stats = FrameStats {
+        side_px: side,
+        ..Default::default()
+    };
+    let clip = [0, 0, w, h];
+    match thumbnail_level(scene, side) {
+        None => {
+            let reach = mark_side(side) / 2.0;
+            let colours = scene.mark_colours();
+            draw_marks(
+                buf,
+                w,
+                clip,
+                scene.atlas,
+                colours,
+                cam,
+                reach,
+                items(),
+                &mut stats,
+                None,
+            );
+            draw_on_top(scene, buf, w, h, reach, &mut stats);
+        }
+        Some(level) => {
+            let mut wanted = BTreeSet::new();
+            let mut used = BTreeSet::new();
+            let on_top = [scene.open, scene.hover];
+            let all = items().chain(on_top.iter().flatten().copied());
+            draw_thumbnails(
+                scene,
+                Some(buf),
+                w,
+                clip,
+                level,
+                all,
+                &mut stats,
+                &mut wanted,
+                &mut used,
+            );
+            outlines(scene, buf, w, h, true);
+            stats.wanted = wanted.into_iter().collect();
+            stats.used = used.into_iter().collect();
+        }
+    }
+    stats
+}
+
+/// Draws `pic`'s part `src` ([x0, y0, x1, y1] in its pixels) scaled into the screen rectangle
+/// `r` ([x0, y0, x1, y1]), each pixel whose centre falls inside taking the source pixel under it,
+/// laid over the paper by its opacity.
+fn blit_overview(
+    buf: &mut [u8],
+    w: usize,
+    h: usize,
+    r: [f64; 4],
+    pic: &crate::tiled::Overview,
+    src: [f64; 4],
+    paper: [u8; 3],
+) {
+    let first = |v: f64, max: usize| ((v - 0.5).ceil().max(0.0) as usize).min(max);
+    let (x0, x1) = (first(r[0], w), first(r[2], w));
+    let (y0, y1) = (first(r[1], h), first(r[3], h));
+    if x0 >= x1 || y0 >= y1 || r[2] <= r[0] || r[3] <= r[1] {
+        return;
+    }
+    let side = pic.side;
+    let sx = (src[2] - src[0]) / (r[2] - r[0]);
+    let sy = (src[3] - src[1]) / (r[3] - r[1]);
+    let cols: Vec<usize> = (x0..x1)
+        .map(|x| ((src[0] + (x as f64 + 0.5 - r[0]) * sx) as usize).min(side - 1))
+        .collect();
+    for y in y0..y1 {
+        let row = ((src[1] + (y as f64 + 0.5 - r[1]) * sy) as usize).min(side - 1);
+        let src_row = &pic.rgba[row * side * 4..(row + 1) * side * 4];
+        let out = &mut buf[(y * w + x0) * 4..(y * w + x1) * 4];
+        for (o, &c) in out.chunks_exact_mut(4).zip(&cols) {
+            let q = &src_row[c * 4..c * 4 + 4];
+            let a = q[3] as u32;
+            if a == 0 {
+                continue;
+            }
+            for k in 0..3 {
+                o[k] = ((q[k] as u32 * a + paper[k] as u32 * (255 - a) + 127) / 255) as u8;
+            }
         }
     }
 }

@@ -105,6 +105,8 @@ pub struct Viewer {
     /// Changes whenever the items' places change (another map, a step of a map glide): the kept
     /// marks are drawn again.
     places_generation: u64,
+    /// A tiled atlas: what the last frame drew and wants fetched.
+    pub plan: crate::tiled::Plan,
 }
 
 /// Every item on its way from its place on the map left to its place on the map shown, in the
@@ -132,7 +134,13 @@ pub struct CorpusState {
 impl Viewer {
     /// A viewer of `atlas` on a canvas of `size` pixels, fitted.
     pub fn new(atlas: AtlasData, size: [f64; 2], manifest_sha: String, theme: Theme) -> Viewer {
-        let grid = Grid::new(&atlas.positions, atlas.bounds, GRID_ITEMS_PER_CELL);
+        // A tiled atlas is culled by its tiles: no grid over positions that are not here yet.
+        let culled: &[[f32; 2]] = if atlas.tiled.is_some() {
+            &[]
+        } else {
+            &atlas.positions
+        };
+        let grid = Grid::new(culled, atlas.bounds, GRID_ITEMS_PER_CELL);
         let camera = Camera::fit(atlas.bounds, size);
         let sheets = SheetStore::from_manifest(&atlas.manifest);
         Viewer {
@@ -168,18 +176,98 @@ impl Viewer {
             theme,
             map_glide: None,
             places_generation: 0,
+            plan: Default::default(),
         }
     }
 
-    /// Makes the index for hover and clicks (deferred until the first picture is shown).
+    /// Makes the index for hover and clicks (deferred until the first picture is shown); in a
+    /// tiled atlas, over the leaves here (each leaf that arrives later is added).
     pub fn make_picker(&mut self) {
-        self.picker = Some(Picker::new(&self.atlas.positions));
+        let Some(t) = &self.atlas.tiled else {
+            self.picker = Some(Picker::new(&self.atlas.positions));
+            return;
+        };
+        let mut p = Picker::new(&[]);
+        for (leaf, r) in t.runs.iter().enumerate() {
+            if t.leaf_state[leaf] == crate::tiled::Fetch::Here {
+                p.add_run(
+                    r[0] as usize,
+                    &self.atlas.positions[r[0] as usize..r[1] as usize],
+                );
+            }
+        }
+        self.picker = Some(p);
+    }
+
+    /// A tiled atlas's leaf arrived (its chunks and their lists of checksums in `files`): its
+    /// items are drawn and picked from now on. An error leaves the leaf failed.
+    pub fn insert_leaf(
+        &mut self,
+        leaf: usize,
+        files: &vitrine_format::AtlasFiles,
+    ) -> Result<(), vitrine_format::AtlasError> {
+        let pictures = match self.atlas.insert_leaf(leaf, files) {
+            Ok(p) => p,
+            Err(e) => {
+                self.leaf_failed(leaf);
+                return Err(e);
+            }
+        };
+        let Some(t) = &self.atlas.tiled else {
+            return Ok(());
+        };
+        let [a, b] = t.runs[leaf];
+        let (a, b) = (a as usize, b as usize);
+        if !pictures.is_empty() {
+            if self.sheets.pictures.len() != self.atlas.n {
+                self.sheets.pictures = vec![0; self.atlas.n];
+            }
+            self.sheets.pictures[a..b].copy_from_slice(&pictures);
+        }
+        if let Some(p) = &mut self.picker {
+            p.add_run(a, &self.atlas.positions[a..b]);
+        }
+        Ok(())
+    }
+
+    /// A tiled atlas's overview picture of tile `tile` arrived, decoded.
+    pub fn insert_overview(&mut self, tile: usize, o: crate::tiled::Overview) {
+        let frame = self.frames;
+        if let Some(t) = &mut self.atlas.tiled {
+            t.insert_overview(tile, o, frame);
+        }
+    }
+
+    /// Tile `tile`'s picture or leaf `leaf`'s items are on their way: not asked for twice.
+    pub fn fetching_tile(&mut self, tile: Option<usize>, leaf: Option<usize>) {
+        if let Some(t) = &mut self.atlas.tiled {
+            if let Some(k) = tile {
+                t.overview_state[k] = crate::tiled::Fetch::Loading;
+            }
+            if let Some(l) = leaf {
+                t.leaf_state[l] = crate::tiled::Fetch::Loading;
+            }
+        }
+    }
+
+    /// Tile `tile`'s picture could not be fetched or read: not asked for again.
+    pub fn overview_failed(&mut self, tile: usize) {
+        if let Some(t) = &mut self.atlas.tiled {
+            t.overview_state[tile] = crate::tiled::Fetch::Failed;
+        }
+    }
+
+    /// A leaf could not be fetched or read: not asked for again.
+    pub fn leaf_failed(&mut self, leaf: usize) {
+        if let Some(t) = &mut self.atlas.tiled {
+            t.leaf_state[leaf] = crate::tiled::Fetch::Failed;
+        }
     }
 
     pub fn scene(&self) -> Scene<'_> {
         Scene {
             atlas: &self.atlas,
-            grid: Some(&self.grid),
+            grid: self.atlas.tiled.is_none().then_some(&self.grid),
             sheets: &self.sheets,
             camera: &self.camera,
             hover: self.hover,
@@ -193,6 +281,18 @@ impl Viewer {
     /// they can be, the sheets it used marked as used.
     pub fn draw(&mut self, pixels: &mut [u8], w: usize, h: usize) -> &FrameStats {
         self.camera.size = [w as f64, h as f64];
+        if let Some(t) = &self.atlas.tiled {
+            let plan = t.plan(&self.camera);
+            let stats = raster::draw_tiled(&self.scene(), t, &plan, pixels, w, h);
+            self.frames += 1;
+            if let Some(t) = &mut self.atlas.tiled {
+                t.touch(&plan, self.frames);
+            }
+            self.plan = plan;
+            self.sheets.touch(&stats.used, self.frames);
+            self.last = stats;
+            return &self.last;
+        }
         let mut layer = std::mem::take(&mut self.layer);
         // The kept marks depend on the map shown and on how the selection dims them.
         let key = raster::LayerKey {

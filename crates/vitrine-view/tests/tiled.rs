@@ -1,0 +1,173 @@
+//! A tiled atlas (format 3) written by `vitrine build --tile-items` in the viewer: the first
+//! picture from overview pictures alone, a coarser picture standing in while finer ones load,
+//! and, zoomed in with its leaves here, the same items at the same places and in the same
+//! colours as the atlas fetched whole.
+
+mod common;
+
+use std::path::Path;
+
+use vitrine_build::pipeline::{build, BuildOptions, Silent};
+use vitrine_build::read::Atlas;
+use vitrine_format::AtlasFiles;
+use vitrine_test_support::write_npy_f32;
+use vitrine_view::atlas::AtlasData;
+use vitrine_view::raster::READING_ROOM;
+use vitrine_view::tiled::{Draw, Fetch, Overview};
+use vitrine_view::viewer::Viewer;
+
+/// 600 items in three groups of very different spreads; no images (marks in their field's
+/// colours).
+fn inputs(dir: &Path) {
+    let mut data = Vec::new();
+    for i in 0..600usize {
+        let g = i % 3;
+        for d in 0..6 {
+            let spread = [0.02, 0.3, 2.0][g];
+            data.push(if d == g * 2 { 5.0 } else { 0.0 } + ((i * 7 + d * 13) % 11) as f32 * spread);
+        }
+    }
+    write_npy_f32(&dir.join("v.npy"), 600, 6, &data).unwrap();
+    let mut csv = String::from("id,group\n");
+    for i in 0..600 {
+        csv.push_str(&format!("r{i},{}\n", ["amber", "birch", "cobalt"][i % 3]));
+    }
+    std::fs::write(dir.join("c.csv"), csv).unwrap();
+}
+
+fn options(dir: &Path, out: &str, tiles: Option<u64>) -> BuildOptions {
+    let mut o = BuildOptions::new(dir.join("v.npy"), dir.join(out));
+    o.catalogue = Some(dir.join("c.csv"));
+    o.epochs = Some(50);
+    o.tile_items = tiles;
+    o
+}
+
+fn viewer(atlas: AtlasData) -> Viewer {
+    Viewer::new(atlas, [640.0, 400.0], String::new(), READING_ROOM)
+}
+
+fn overview(on_disk: &Atlas, t: usize) -> Overview {
+    let f = on_disk.dir.join(vitrine_format::tiles::overview_file(t));
+    let img = image::open(f).unwrap().to_rgba8();
+    Overview {
+        side: img.width() as usize,
+        rgba: img.into_raw(),
+    }
+}
+
+fn leaf_files(on_disk: &Atlas, v: &Viewer, leaf: usize) -> AtlasFiles {
+    let mut files = AtlasFiles::new();
+    let tiles = on_disk.manifest.tiles.as_ref().unwrap();
+    for f in v.atlas.leaf_files(leaf) {
+        files.insert(f.clone(), std::fs::read(on_disk.dir.join(&f)).unwrap());
+    }
+    for c in &tiles.chunked {
+        files.insert(
+            c.sums.file.clone(),
+            std::fs::read(on_disk.dir.join(&c.sums.file)).unwrap(),
+        );
+    }
+    files
+}
+
+#[test]
+fn a_tiled_atlas_draws_its_overviews_then_the_same_items_as_the_whole_one() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    inputs(d);
+    let (whole, _) = common::build_and_open(&options(d, "whole", None));
+    let o = options(d, "tiled", Some(40));
+    build(&o, &Silent).unwrap();
+    let on_disk = Atlas::open(&o.out).unwrap();
+    let mut v = viewer(AtlasData::tiled(on_disk.manifest.clone()).unwrap());
+    let mut w = viewer(whole);
+    let (pw, ph) = (640usize, 400usize);
+    let mut buf = vec![0u8; pw * ph * 4];
+
+    // Nothing here: paper, and the root's picture wanted first.
+    v.draw(&mut buf, pw, ph);
+    assert!(buf.chunks_exact(4).all(|p| p[..3] == READING_ROOM.paper));
+    assert_eq!(v.plan.want_tiles.first(), Some(&0));
+    // The root alone: it stands in for every tile the view wants, and marks show.
+    v.insert_overview(0, overview(&on_disk, 0));
+    v.draw(&mut buf, pw, ph);
+    assert!(v
+        .plan
+        .draws
+        .iter()
+        .all(|d| matches!(d, Draw::Overview { from: 0, .. })));
+    let inked = |b: &[u8]| {
+        b.chunks_exact(4)
+            .filter(|p| p[..3] != READING_ROOM.paper)
+            .count()
+    };
+    let coarse = inked(&buf);
+    assert!(coarse > 200, "{coarse} pixels");
+    // Every picture the view wants: drawn from their own.
+    while !v.plan.want_tiles.is_empty() {
+        for t in v.plan.want_tiles.clone() {
+            v.insert_overview(t, overview(&on_disk, t));
+        }
+        v.draw(&mut buf, pw, ph);
+    }
+    assert!(v
+        .plan
+        .draws
+        .iter()
+        .all(|d| matches!(d, Draw::Overview { tile, from } if tile == from)));
+
+    // Zoomed in on one group: the leaves in view are wanted, drawn as items once here.
+    let target = w.atlas.positions[0];
+    for viewer in [&mut v, &mut w] {
+        viewer.camera.centre = [target[0] as f64, target[1] as f64];
+        viewer.camera.zoom *= 12.0;
+    }
+    v.draw(&mut buf, pw, ph);
+    assert!(!v.plan.want_leaves.is_empty());
+    for leaf in v.plan.want_leaves.clone() {
+        let files = leaf_files(&on_disk, &v, leaf);
+        v.insert_leaf(leaf, &files).unwrap();
+    }
+    v.make_picker();
+    w.make_picker();
+    let tiled_stats = v.draw(&mut buf, pw, ph).clone();
+    assert!(v.plan.want_leaves.is_empty());
+    let mut wbuf = vec![0u8; pw * ph * 4];
+    let whole_stats = w.draw(&mut wbuf, pw, ph).clone();
+    assert_eq!(tiled_stats.marks, whole_stats.marks);
+    assert!(tiled_stats.marks > 0);
+    // Marks stack in another order where they overlap; elsewhere the pixels agree.
+    let differ = buf
+        .chunks_exact(4)
+        .zip(wbuf.chunks_exact(4))
+        .filter(|(a, b)| a != b)
+        .count();
+    assert!(differ * 100 <= pw * ph, "{differ} pixels differ");
+    // Hover picks the same record (by its place) in both.
+    let s = v.camera.to_screen(target);
+    let (a, b) = (v.pick(s).unwrap(), w.pick(s).unwrap());
+    assert_eq!(v.atlas.positions[a], w.atlas.positions[b]);
+
+    // A leaf whose chunk does not match its checksum is refused and not asked for again.
+    let leaf = (0..v.atlas.tiled.as_ref().unwrap().runs.len())
+        .find(|&l| v.atlas.tiled.as_ref().unwrap().leaf_state[l] == Fetch::Absent)
+        .unwrap();
+    let mut files = leaf_files(&on_disk, &v, leaf);
+    let f = v.atlas.leaf_files(leaf)[1].clone();
+    let mut bad = files
+        .bytes(&vitrine_format::ArrayRef {
+            file: f.clone(),
+            ..on_disk.manifest.colours.clone()
+        })
+        .unwrap()
+        .to_vec();
+    bad[0] ^= 1;
+    files.insert(f.clone(), bad);
+    let e = v.insert_leaf(leaf, &files).unwrap_err().to_string();
+    assert!(e.contains(&f), "{e}");
+    assert_eq!(
+        v.atlas.tiled.as_ref().unwrap().leaf_state[leaf],
+        Fetch::Failed
+    );
+}
