@@ -363,9 +363,9 @@ pub fn cells(p: &Pyramid, positions: &[f32]) -> Vec<u8> {
 pub const OVERVIEW_MARK_PX: usize = 2;
 
 /// Tile `t`'s overview, `side` x `side` RGBA pixels (row 0 at the top of its square): each item
-/// below it a square mark of `colour(item)` at half opacity, placed by its `cells` (two bytes an
+/// below it a square mark of `colour(item)` at 70 % opacity, placed by its `cells` (two bytes an
 /// item, in item order), the marks on one pixel composited as their mean colour at opacity
-/// 1 - 0.5^count, so that density shows as well as colour. An item whose colour has alpha 0 is
+/// 1 - 0.3^count, so that density shows as well as colour. An item whose colour has alpha 0 is
 /// left out. The build draws every tile's picture so; a viewer draws it again with its own
 /// colours (dimmed by filters, or another field's).
 pub fn overview_pixels(
@@ -422,7 +422,7 @@ pub fn overview_pixels(
     for (q, o) in acc.iter().zip(px.chunks_exact_mut(4)) {
         if q[3] > 0 {
             let n = q[3];
-            let opacity = 1.0 - 0.5f64.powi(n.min(64) as i32);
+            let opacity = 1.0 - 0.3f64.powi(n.min(64) as i32);
             o.copy_from_slice(&[
                 ((q[0] + n / 2) / n) as u8,
                 ((q[1] + n / 2) / n) as u8,
@@ -601,7 +601,7 @@ mod tests {
                         (y as f64 + 0.5 - sy).abs() <= 2.0,
                         "tile {t} item {k}: {y} vs {sy}"
                     );
-                    assert_eq!(&px[4 * (y * side + x)..][..4], &[200, 10, 10, 128]);
+                    assert_eq!(&px[4 * (y * side + x)..][..4], &[200, 10, 10, 179]);
                 }
             }
         }
@@ -612,14 +612,14 @@ mod tests {
             "the dense clump saturates"
         );
         assert!(
-            px.chunks_exact(4).any(|q| q[3] == 128),
+            px.chunks_exact(4).any(|q| q[3] == 179),
             "the scatter has lone marks"
         );
     }
 
     #[test]
     fn marks_on_one_pixel_mix_their_colours_and_add_up_in_opacity() {
-        // Three items on one point, red, red and blue: two thirds red, opacity 1 - 0.5^3.
+        // Three items on one point, red, red and blue: two thirds red, opacity 1 - 0.3^3.
         let xy = vec![1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 0.0, 0.0, 2.0, 2.0];
         let (p, order) = Pyramid::build(&xy, 10, 4);
         assert_eq!(order, [0, 1, 2, 3, 4]);
@@ -632,7 +632,7 @@ mod tests {
         ];
         let c = cells(&p, &xy);
         let px = overview_pixels(&p, 0, 256, &c, |k| colours[k]);
-        let mixed: Vec<&[u8]> = px.chunks_exact(4).filter(|q| q[3] == 223).collect();
+        let mixed: Vec<&[u8]> = px.chunks_exact(4).filter(|q| q[3] == 248).collect();
         assert_eq!(mixed.len(), 4, "one 2 x 2 mark");
         assert!(mixed.iter().all(|q| q[..3] == [170, 0, 85]));
         // Left out: an item whose colour is transparent. The two left are in corners of the

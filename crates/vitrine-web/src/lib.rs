@@ -68,6 +68,10 @@ struct App {
     first_full: bool,
     /// The date histogram along the bottom (when the catalogue has a date field).
     timeline: Option<timeline_strip::Strip>,
+    /// A tiled atlas: the checksum lists of the overview pictures and of the leaves' drawing
+    /// arrays, and how many tile fetches are under way.
+    tile_sums: vitrine_format::AtlasFiles,
+    fetching_tiles: usize,
 }
 
 impl std::ops::Deref for App {
@@ -451,7 +455,16 @@ impl App {
         self.frame_ms = [t1 - t0, now() - t1, 0.0];
         self.pixels = pixels;
         set_state("frames", &self.frames.to_string());
-        if !self.first_full && self.last.wanted.is_empty() {
+        // A tiled atlas's view is whole once every picture it draws is its own and every leaf it
+        // draws item by item is here.
+        let tiles_whole = self.atlas.tiled.is_none()
+            || (self.plan.want_tiles.is_empty()
+                && self.plan.want_leaves.is_empty()
+                && self.plan.draws.iter().all(|d| {
+                    !matches!(d, vitrine_view::tiled::Draw::Overview { tile, from } if tile != from)
+                })
+                && !self.plan.draws.is_empty());
+        if !self.first_full && self.last.wanted.is_empty() && tiles_whole {
             // The first frame with everything on screen drawn as it should be (for benchmarks).
             self.first_full = true;
             if let Some(perf) = web_sys::window().and_then(|w| w.performance()) {
@@ -796,8 +809,135 @@ fn glide_to(to: Camera, ms: f64) {
     request_frame();
 }
 
-/// Starts fetching sheets that visible items want, a few at a time.
+/// Tile fetches under way at most (overview pictures and leaves together).
+const MAX_TILE_FETCHES: usize = 6;
+
+/// A tiled atlas: starts fetching the overview pictures and leaves the last frame wanted, nearest
+/// the centre first, a few at a time; says when parts of the map could not be loaded.
+fn fetch_tiles() {
+    let Some(app) = app() else { return };
+    let (tiles, leaves, failed) = {
+        let a = app.borrow();
+        if a.atlas.tiled.is_none() {
+            return;
+        }
+        (
+            a.plan.want_tiles.clone(),
+            a.plan.want_leaves.clone(),
+            a.plan.failed,
+        )
+    };
+    if let Some(note) = by_id("map-note") {
+        note.set_hidden(failed == 0);
+        if failed > 0 {
+            note.set_text_content(Some(&format!(
+                "{failed} part{} of the map could not be loaded and {} left blank; the rest of the map works. \
+                 Reloading the page tries again.",
+                if failed == 1 { "" } else { "s" },
+                if failed == 1 { "is" } else { "are" }
+            )));
+        }
+        set_state("tilesFailed", &failed.to_string());
+    }
+    for t in tiles {
+        {
+            let mut a = app.borrow_mut();
+            if a.fetching_tiles >= MAX_TILE_FETCHES {
+                return;
+            }
+            a.fetching_tiles += 1;
+            a.fetching_tile(Some(t), None);
+        }
+        wasm_bindgen_futures::spawn_local(async move {
+            let file = vitrine_format::tiles::overview_file(t);
+            let bytes = fetch_bytes(&file).await;
+            let Some(app) = self::app() else { return };
+            let mut a = app.borrow_mut();
+            a.fetching_tiles -= 1;
+            let sums = a
+                .atlas
+                .manifest
+                .tiles
+                .as_ref()
+                .map(|t| t.overview_sums.clone());
+            let read = bytes.and_then(|b| {
+                let sums = sums.ok_or("no tiles")?;
+                let list = a.tile_sums.bytes(&sums).map_err(|e| e.to_string())?;
+                vitrine_format::tiles::verify_part(&file, list, t, &b)
+                    .map_err(|e| e.to_string())?;
+                let img = image::load_from_memory_with_format(&b, image::ImageFormat::Png)
+                    .map_err(|e| format!("{file}: {e}"))?
+                    .to_rgba8();
+                if img.width() != img.height() {
+                    return Err(format!("{file}: not square"));
+                }
+                Ok(vitrine_view::tiled::Overview {
+                    side: img.width() as usize,
+                    rgba: img.into_raw(),
+                })
+            });
+            match read {
+                Ok(o) => a.insert_overview(t, o),
+                Err(e) => {
+                    web_sys::console::warn_1(&format!("map tile not loaded: {e}").into());
+                    a.overview_failed(t);
+                }
+            }
+            drop(a);
+            request_frame();
+        });
+    }
+    for leaf in leaves {
+        let files = {
+            let mut a = app.borrow_mut();
+            if a.fetching_tiles >= MAX_TILE_FETCHES {
+                return;
+            }
+            a.fetching_tiles += 1;
+            a.fetching_tile(None, Some(leaf));
+            a.atlas.leaf_files(leaf)
+        };
+        wasm_bindgen_futures::spawn_local(async move {
+            let mut got = Vec::new();
+            let mut error = None;
+            for f in &files {
+                match fetch_bytes(f).await {
+                    Ok(b) => got.push((f.clone(), b)),
+                    Err(e) => {
+                        error = Some(e);
+                        break;
+                    }
+                }
+            }
+            let Some(app) = self::app() else { return };
+            let mut a = app.borrow_mut();
+            a.fetching_tiles -= 1;
+            let result = match error {
+                Some(e) => {
+                    a.leaf_failed(leaf);
+                    Err(e)
+                }
+                None => {
+                    let mut held = a.tile_sums.clone();
+                    for (f, b) in got {
+                        held.insert(f, b);
+                    }
+                    a.insert_leaf(leaf, &held).map_err(|e| e.to_string())
+                }
+            };
+            if let Err(e) = result {
+                web_sys::console::warn_1(&format!("map tile not loaded: {e}").into());
+            }
+            drop(a);
+            request_frame();
+        });
+    }
+}
+
+/// Starts fetching sheets that visible items want, a few at a time (and, in a tiled atlas, the
+/// tiles the last frame wants).
 fn fetch_sheets(wanted: Vec<(usize, usize)>) {
+    fetch_tiles();
     let Some(app) = app() else { return };
     for (level, index) in wanted {
         let url = {
@@ -1763,36 +1903,52 @@ async fn load(base: String) -> Result<(), String> {
     let manifest =
         vitrine_format::Manifest::from_json(&text).map_err(|e| format!("atlas.json: {e}"))?;
     let manifest_sha = vitrine_format::sha256_hex(text.as_bytes());
-    if manifest.tiles.is_some() {
-        show_message(
-            "A tiled atlas",
-            &format!(
-                "{} is tiled (atlas format {}), for collections of millions; this viewer opens atlases \
-                 fetched whole (format {}). `vitrine inspect`, `vitrine corpus` and `vitrine export` read it.",
-                manifest.title,
-                vitrine_format::TILED_FORMAT_VERSION,
-                vitrine_format::FORMAT_VERSION
-            ),
-        );
-        return Ok(());
-    }
-    // What the first picture needs comes first; ids, neighbour lists and catalogue columns are
-    // fetched while the map is already on screen.
-    let first = AtlasData::first_files(&manifest);
-    let total: u64 = first.iter().map(|(_, b)| b).sum::<u64>().max(1);
-    progress(
-        0.1,
-        &format!(
-            "Loading {} ({} files, {:.1} MB)",
-            manifest.title,
-            first.len(),
-            total as f64 / 1e6
-        ),
-    );
-    let got = fetch_many(&base, &first).await?;
-    progress(1.0, "Preparing the map…");
-    let atlas = AtlasData::from_parts(manifest, &got).map_err(|e| e.to_string())?;
-    drop(got);
+    let tiled = manifest.tiles.is_some();
+    let (atlas, tile_sums) = match &manifest.tiles {
+        Some(t) => {
+            // A tiled atlas: the first picture comes from overview pictures and the leaves in
+            // view, fetched by the frames; here only their lists of checksums.
+            let mut refs = vec![&t.overview_sums];
+            for r in vitrine_view::atlas::leaf_arrays(&manifest) {
+                refs.extend(t.chunked(&r.file).map(|c| &c.sums));
+            }
+            let list: Vec<(String, u64)> = refs.iter().map(|r| (r.file.clone(), r.bytes)).collect();
+            progress(
+                0.1,
+                &format!(
+                    "Loading {} ({} items in {} tiles)",
+                    manifest.title,
+                    manifest.item_count,
+                    t.pyramid.tiles.len()
+                ),
+            );
+            let got = fetch_many(&base, &list).await?;
+            for r in &refs {
+                r.verify(got.bytes(r).map_err(|e| e.to_string())?)
+                    .map_err(|e| e.to_string())?;
+            }
+            (AtlasData::tiled(manifest).map_err(|e| e.to_string())?, got)
+        }
+        None => {
+            // What the first picture needs comes first; ids, neighbour lists and catalogue
+            // columns are fetched while the map is already on screen.
+            let first = AtlasData::first_files(&manifest);
+            let total: u64 = first.iter().map(|(_, b)| b).sum::<u64>().max(1);
+            progress(
+                0.1,
+                &format!(
+                    "Loading {} ({} files, {:.1} MB)",
+                    manifest.title,
+                    first.len(),
+                    total as f64 / 1e6
+                ),
+            );
+            let got = fetch_many(&base, &first).await?;
+            progress(1.0, "Preparing the map…");
+            let atlas = AtlasData::from_parts(manifest, &got).map_err(|e| e.to_string())?;
+            (atlas, vitrine_format::AtlasFiles::new())
+        }
+    };
     let gpu = init_gpu(&canvas).await?;
     set_state("renderer", &gpu.renderer);
     set_state("backend", gpu.backend);
@@ -1873,6 +2029,8 @@ async fn load(base: String) -> Result<(), String> {
         frame_ms: [0.0; 3],
         first_full: false,
         timeline: None,
+        tile_sums,
+        fetching_tiles: 0,
     };
     APP.with(|a| *a.borrow_mut() = Some(Rc::new(RefCell::new(app))));
     apply_theme(theme);
@@ -1889,6 +2047,16 @@ async fn load(base: String) -> Result<(), String> {
         l.set_hidden(true);
     }
     request_frame();
+    if tiled {
+        // The catalogue of a tiled atlas is not fetched whole: the map alone, for now.
+        after_next_frame().await;
+        if let Some(app) = self::app() {
+            app.borrow_mut().make_picker();
+        }
+        set_state("catalogue", "tiled");
+        set_state("state", "ready");
+        return Ok(());
+    }
     load_catalogue(base).await
 }
 
