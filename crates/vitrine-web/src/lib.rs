@@ -469,6 +469,14 @@ impl App {
             self.first_full = true;
             if let Some(perf) = web_sys::window().and_then(|w| w.performance()) {
                 set_state("firstFull", &format!("{:.1}", perf.now()));
+                // And what was fetched before it, for benchmarks.
+                let bytes: f64 = perf
+                    .get_entries_by_type("resource")
+                    .iter()
+                    .filter_map(|e| js_sys::Reflect::get(&e, &"encodedBodySize".into()).ok())
+                    .filter_map(|v| v.as_f64())
+                    .sum();
+                set_state("firstFullBytes", &format!("{bytes:.0}"));
             }
         }
         self.update_axis();
@@ -831,10 +839,9 @@ fn fetch_tiles() {
         note.set_hidden(failed == 0);
         if failed > 0 {
             note.set_text_content(Some(&format!(
-                "{failed} part{} of the map could not be loaded and {} left blank; the rest of the map works. \
-                 Reloading the page tries again.",
-                if failed == 1 { "" } else { "s" },
-                if failed == 1 { "is" } else { "are" }
+                "{failed} part{} of the map in view could not be loaded: drawn from a coarser picture where \
+                 there is one, else left blank. The rest of the map works; reloading the page tries again.",
+                if failed == 1 { "" } else { "s" }
             )));
         }
         set_state("tilesFailed", &failed.to_string());
@@ -2159,6 +2166,22 @@ pub fn view_state() -> String {
         .iter()
         .map(|l| l.loaded.iter().filter(|s| s.is_some()).count())
         .collect();
+    // A tiled atlas: the tiles drawn from their own pictures, and the leaves by state.
+    let overview_tiles: Vec<usize> = a
+        .plan
+        .draws
+        .iter()
+        .filter_map(|d| match *d {
+            vitrine_view::tiled::Draw::Overview { tile, from } if tile == from => Some(tile),
+            _ => None,
+        })
+        .collect();
+    let leaves = |f: vitrine_view::tiled::Fetch| {
+        a.atlas
+            .tiled
+            .as_ref()
+            .map_or(0, |t| t.leaf_state.iter().filter(|&&s| s == f).count())
+    };
     serde_json::json!({
         "renderer": a.gpu.renderer,
         "backend": a.gpu.backend,
@@ -2185,6 +2208,12 @@ pub fn view_state() -> String {
             .map(|m| m.buffer().dyn_into::<js_sys::ArrayBuffer>().map(|b| b.byte_length()).unwrap_or(0))
             .unwrap_or(0),
         "maps": a.atlas.maps.iter().map(|m| m.name.clone()).collect::<Vec<_>>(),
+        "tiles_fetching": a.fetching_tiles,
+        "overviews_drawn": overview_tiles.len(),
+        "overview_tiles": overview_tiles,
+        "overviews_kept": a.atlas.tiled.as_ref().map_or(0, |t| t.overviews_kept()),
+        "leaves_here": leaves(vitrine_view::tiled::Fetch::Here),
+        "leaves_failed": leaves(vitrine_view::tiled::Fetch::Failed),
     })
     .to_string()
 }
@@ -2210,6 +2239,23 @@ pub fn zoom_view(factor: f64) {
         let limits = a.zoom_limits();
         a.glide = None;
         a.camera.zoom_at(at, factor, limits);
+        a.render();
+        a.last.wanted.clone()
+    };
+    fetch_sheets(wanted);
+}
+
+/// For tests and scripts: centres the view on map point (x, y) at `factor` times the fitted
+/// zoom, draws at once, and starts fetching what the new view wants.
+#[wasm_bindgen]
+pub fn look_at(x: f64, y: f64, factor: f64) {
+    let Some(app) = app() else { return };
+    let wanted = {
+        let mut a = app.borrow_mut();
+        let [lo, hi] = a.zoom_limits();
+        a.glide = None;
+        a.camera.centre = [x, y];
+        a.camera.zoom = (a.base_zoom * factor).clamp(lo, hi);
         a.render();
         a.last.wanted.clone()
     };
