@@ -25,8 +25,8 @@ pub use files::AtlasFiles;
 
 /// The format version of an atlas fetched whole (this crate reads it and the tiled version).
 pub const FORMAT_VERSION: u32 = 2;
-/// The format version of a tiled atlas ([`tiles`]): format 2 with its per-item arrays for drawing
-/// and record cards stored by tile.
+/// The format version of a tiled atlas ([`tiles`]): format 2 with its items in tile order and every
+/// per-item array stored by leaf of the tile pyramid.
 pub const TILED_FORMAT_VERSION: u32 = 3;
 /// The value of the manifest's `format` key.
 pub const FORMAT_NAME: &str = "vitrine-atlas";

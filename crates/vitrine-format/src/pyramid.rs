@@ -258,10 +258,11 @@ impl Pyramid {
             match (&t.children, &t.items) {
                 (Some(c), None) => {
                     let mut sum = 0u64;
-                    for &k in c.iter().rev().filter(|&&k| k != u32::MAX) {
+                    for (q, &k) in c.iter().enumerate().rev().filter(|(_, &k)| k != u32::MAX) {
                         let child = self.tiles.get(k as usize).ok_or(format!("no tile {k}"))?;
-                        if child.level != t.level + 1 || child.x / 2 != t.x || child.y / 2 != t.y {
-                            return Err(format!("tile {k} is not a child of tile {i}"));
+                        let (qx, qy) = (2 * t.x + (q as u32 & 1), 2 * t.y + (q as u32 >> 1));
+                        if child.level != t.level + 1 || (child.x, child.y) != (qx, qy) {
+                            return Err(format!("tile {k} is not quarter {q} of tile {i}"));
                         }
                         sum = sum.saturating_add(child.count);
                         stack.push(k);

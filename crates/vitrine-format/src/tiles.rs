@@ -7,13 +7,13 @@
 //! - **arrays stored by leaf**: every per-item array (positions on every map, colours, thumbnail
 //!   extents and pictures, image sizes, ids, source rows, every field's columns and values as
 //!   written, clusters, cells) is declared as before (type, count, bytes and the SHA-256 of the
-//!   whole), but on disk it is one file per leaf, `<file without .bin>/<leaf, five digits>.bin`,
+//!   whole), but on disk it is one file per leaf, `<file without .bin>/<leaf, at least five digits>.bin`,
 //!   each checked by its own SHA-256 (`sums`, 32 bytes a leaf). A viewer fetches the leaves in
 //!   view, and every leaf of a column when a filter over the whole collection needs it.
 //! - **cells**: u8 column and row per item, its place on a 256 x 256 grid over its leaf's square,
-//!   from which any tile's overview is drawn ([`overview_pixels`]) — by the build, and by a
-//!   viewer again when filters dim items or another field colours them.
-//! - **overviews**: a picture per tile (`tiles/<tile, five digits>.png`, `overview_px` square,
+//!   from which any tile's overview is drawn ([`overview_pixels`]) — by the build, and so that a
+//!   viewer can draw it again with other colours (filters dimming items, another field's colours).
+//! - **overviews**: a picture per tile (`tiles/<tile, at least five digits>.png`, `overview_px` square,
 //!   transparent where there is nothing): the items' marks as they look when that tile fills
 //!   about its own size on screen.
 //!
@@ -204,7 +204,7 @@ impl Tiles {
             .map_err(|e| AtlasError::Inconsistent(format!("tile pyramid: {e}")))?;
         let leaves = self.runs().len() as u64;
         let tiles = p.tiles.len() as u64;
-        if self.overview_px == 0 || self.overview_px > 4096 {
+        if self.overview_px == 0 || self.overview_px > 1024 {
             return bad(format!("overview pictures of {} pixels", self.overview_px));
         }
         if !(self.spacing.is_finite() && self.spacing >= 0.0) {

@@ -48,6 +48,9 @@ pub struct AtlasData {
     pub tiled: Option<crate::tiled::Tiled>,
 }
 
+/// Most items of a tiled atlas the viewer opens: 100 million, 2 GB of drawing data at most.
+pub const MAX_TILED_ITEMS: usize = 100_000_000;
+
 /// The per-item arrays a tiled atlas's leaf brings for drawing: positions, colours, extents
 /// (with sheets) and pictures (when items share them).
 pub fn leaf_arrays(m: &Manifest) -> Vec<&vitrine_format::ArrayRef> {
@@ -287,7 +290,16 @@ impl AtlasData {
     /// A tiled atlas (format 3) before any of its leaves has arrived: the pyramid, no items'
     /// data yet.
     pub fn tiled(manifest: Manifest) -> Result<AtlasData, AtlasError> {
-        let n = manifest.item_count as usize;
+        // The items' drawing data take 20 bytes an item: more than this is not an atlas a tab holds.
+        let n = usize::try_from(manifest.item_count)
+            .ok()
+            .filter(|&n| n <= MAX_TILED_ITEMS)
+            .ok_or_else(|| {
+                AtlasError::Inconsistent(format!(
+                    "{} items: a viewer holds at most {MAX_TILED_ITEMS}",
+                    manifest.item_count
+                ))
+            })?;
         let tiles = manifest
             .tiles
             .clone()
@@ -335,6 +347,15 @@ impl AtlasData {
         })
     }
 
+    /// Whether item `i`'s place is known: always in an atlas fetched whole; in a tiled one, once
+    /// its leaf has arrived.
+    pub fn placed(&self, i: usize) -> bool {
+        match &self.tiled {
+            None => i < self.n,
+            Some(t) => i < self.n && t.leaf_state[t.leaf_of(i)] == crate::tiled::Fetch::Here,
+        }
+    }
+
     /// The files of leaf `leaf`'s chunks of the [`leaf_arrays`].
     pub fn leaf_files(&self, leaf: usize) -> Vec<String> {
         leaf_arrays(&self.manifest)
@@ -343,10 +364,16 @@ impl AtlasData {
             .collect()
     }
 
-    /// Puts leaf `leaf`'s drawing data in place from its chunks (`files` holds them by name, and
-    /// each array's list of checksums under its sums file), each checked first; the leaf's
-    /// pictures, when items share them, are returned for the sheets.
-    pub fn insert_leaf(&mut self, leaf: usize, files: &AtlasFiles) -> Result<Vec<u32>, AtlasError> {
+    /// Puts leaf `leaf`'s drawing data in place from its chunks (`files` holds them by name;
+    /// `sums` each array's list of checksums under its sums file), each checked first; the leaf's
+    /// pictures, when items share them, are returned for the sheets (each checked to name a cell
+    /// every level has).
+    pub fn insert_leaf(
+        &mut self,
+        leaf: usize,
+        sums: &AtlasFiles,
+        files: &AtlasFiles,
+    ) -> Result<Vec<u32>, AtlasError> {
         let Some(t) = &self.tiled else {
             return Err(AtlasError::Inconsistent("not a tiled atlas".into()));
         };
@@ -358,7 +385,7 @@ impl AtlasData {
             let c = tiles.chunked(&r.file).ok_or_else(|| {
                 AtlasError::Inconsistent(format!("{} is not stored by leaf", r.file))
             })?;
-            let sums = files.bytes(&c.sums)?;
+            let sums = sums.bytes(&c.sums)?;
             c.sums.verify(sums)?;
             let file = vitrine_format::tiles::chunk_file(&r.file, leaf);
             let bytes = files.bytes(&vitrine_format::ArrayRef {
@@ -384,13 +411,26 @@ impl AtlasData {
         let xy = part(&map.positions, 2)?;
         let colours = part(&m.colours, 4)?;
         let extents = m.sheets.as_ref().map(|s| part(&s.extents, 1)).transpose()?;
-        let pictures = match m.sheets.as_ref().and_then(|s| s.pictures.as_ref()) {
+        let pictures: Vec<u32> = match m.sheets.as_ref().and_then(|s| s.pictures.as_ref()) {
             Some(p) => part(p, 1)?
                 .chunks_exact(4)
                 .map(|c| u32::from_le_bytes([c[0], c[1], c[2], c[3]]))
                 .collect(),
             None => Vec::new(),
         };
+        if let Some(s) = &m.sheets {
+            let cells = s
+                .levels
+                .iter()
+                .map(|l| l.files.len() as u64 * l.columns as u64 * l.rows as u64)
+                .min()
+                .unwrap_or(0);
+            if let Some(&p) = pictures.iter().find(|&&p| p as u64 >= cells) {
+                return Err(AtlasError::Inconsistent(format!(
+                    "leaf {leaf}: a picture in cell {p}, but the sheets hold {cells} cells"
+                )));
+            }
+        }
         for (k, c) in xy.chunks_exact(8).enumerate() {
             let f = |o: usize| f32::from_le_bytes([c[o], c[o + 1], c[o + 2], c[o + 3]]);
             self.positions[a + k] = [f(0), f(4)];
@@ -445,6 +485,9 @@ impl AtlasData {
     }
 
     pub fn label(&self, i: usize) -> String {
+        if self.tiled.is_some() && !self.catalogue {
+            return format!("item {}", i + 1);
+        }
         if !self.catalogue {
             return format!("item {} (the catalogue is loading)", i + 1);
         }

@@ -20,6 +20,8 @@ pub const DESCEND_AT: f64 = std::f64::consts::SQRT_2;
 /// Overview pictures kept decoded at most (256 x 256 RGBA: 256 KiB each, 48 MiB in all), unless
 /// the current frame draws from more.
 pub const OVERVIEW_BUDGET: usize = 192;
+/// The pictures of levels below this (21 at most) are never dropped: they stand in everywhere.
+pub const KEPT_LEVELS: u8 = 3;
 
 /// Where a tile's picture or a leaf's items stand.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -70,7 +72,8 @@ pub struct Tiled {
     overview_used: Vec<u64>,
     pub leaf_state: Vec<Fetch>,
     pub budget: usize,
-    /// Overview pictures dropped so far.
+    /// Overview pictures kept, and dropped so far.
+    kept: usize,
     pub evicted: usize,
 }
 
@@ -104,6 +107,7 @@ impl Tiled {
             overview_used: vec![0; count],
             leaf_state: vec![Fetch::Absent; leaves],
             budget: OVERVIEW_BUDGET,
+            kept: 0,
             evicted: 0,
         }
     }
@@ -223,33 +227,37 @@ impl Tiled {
     }
 
     /// Keeps tile `t`'s decoded picture, used in frame `frame`; then drops the least recently
-    /// drawn pictures (never one drawn in `frame`) while more than the budget are kept.
+    /// drawn pictures (never one drawn in `frame`, nor the coarse ones of levels 0 to
+    /// [`KEPT_LEVELS`] - 1, which stand in everywhere) while more than the budget are kept.
     pub fn insert_overview(&mut self, t: usize, o: Overview, frame: u64) {
+        if self.overviews[t].is_none() {
+            self.kept += 1;
+        }
         self.overviews[t] = Some(o);
         self.overview_state[t] = Fetch::Here;
         self.overview_used[t] = frame;
-        let mut kept: Vec<usize> = (0..self.overviews.len())
-            .filter(|&k| self.overviews[k].is_some())
-            .collect();
-        if kept.len() <= self.budget {
+        if self.kept <= self.budget {
             return;
         }
-        kept.sort_by_key(|&k| self.overview_used[k]);
-        for k in kept {
-            if self.overviews.iter().filter(|o| o.is_some()).count() <= self.budget
-                || self.overview_used[k] >= frame
-            {
+        let levels = &self.tiles.pyramid.tiles;
+        let mut held: Vec<usize> = (0..self.overviews.len())
+            .filter(|&k| self.overviews[k].is_some() && levels[k].level >= KEPT_LEVELS)
+            .collect();
+        held.sort_by_key(|&k| self.overview_used[k]);
+        for k in held {
+            if self.kept <= self.budget || self.overview_used[k] >= frame {
                 break;
             }
             self.overviews[k] = None;
             self.overview_state[k] = Fetch::Absent;
+            self.kept -= 1;
             self.evicted += 1;
         }
     }
 
     /// How many overview pictures are kept.
     pub fn overviews_kept(&self) -> usize {
-        self.overviews.iter().filter(|o| o.is_some()).count()
+        self.kept
     }
 
     /// Where tile `t`'s square lies in the picture of its ancestor (or itself) `from`: [x0, y0,
@@ -435,28 +443,41 @@ mod tests {
         let xy = mixture();
         let mut t = tiled(&xy, 50);
         t.budget = 3;
+        // Tiles deep enough to be dropped, and one coarse one that stays whatever its age.
+        let deep: Vec<usize> = (0..t.pyramid().tiles.len())
+            .filter(|&k| t.pyramid().tiles[k].level >= KEPT_LEVELS)
+            .take(8)
+            .collect();
+        let [d1, d2, d3, d4, d5, d6, d7, d8] = deep[..] else {
+            panic!("a deep pyramid")
+        };
         let picture = || Overview {
             side: 1,
             rgba: vec![0; 4],
         };
-        for (k, frame) in [(1, 1), (2, 2), (3, 3)] {
+        for (k, frame) in [(d1, 1), (d2, 2), (d3, 3)] {
             t.insert_overview(k, picture(), frame);
         }
-        t.overview_used[1] = 5;
-        t.insert_overview(4, picture(), 6);
+        t.overview_used[d1] = 5;
+        t.insert_overview(d4, picture(), 6);
         assert_eq!(t.overviews_kept(), 3);
-        assert!(t.overviews[2].is_none(), "tile 2 was drawn longest ago");
-        assert_eq!(t.overview_state[2], Fetch::Absent);
+        assert!(t.overviews[d2].is_none(), "the one drawn longest ago");
+        assert_eq!(t.overview_state[d2], Fetch::Absent);
         // All drawn in the current frame: kept over the budget.
-        for k in [5, 6, 7] {
+        for k in [d5, d6, d7] {
             t.overview_used[k] = 9;
             t.insert_overview(k, picture(), 9);
         }
         assert_eq!(t.evicted, 4);
-        assert!((5..8).all(|k| t.overviews[k].is_some()));
-        t.overview_used[8] = 9;
-        t.insert_overview(8, picture(), 9);
+        assert!([d5, d6, d7].iter().all(|&k| t.overviews[k].is_some()));
+        t.overview_used[d8] = 9;
+        t.insert_overview(d8, picture(), 9);
         assert_eq!((t.overviews_kept(), t.evicted), (4, 4));
+        // The root, drawn long ago, is never dropped; deeper ones drawn since are.
+        t.insert_overview(0, picture(), 1);
+        t.insert_overview(d2, picture(), 10);
+        assert!(t.overviews[0].is_some() && t.overviews[d2].is_some());
+        assert_eq!(t.overviews_kept(), 3);
         assert_eq!(t.leaf_of(0), 0);
         let last = t.runs.len() - 1;
         assert_eq!(t.leaf_of(t.runs[last][0] as usize), last);

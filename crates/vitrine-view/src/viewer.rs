@@ -199,14 +199,24 @@ impl Viewer {
         self.picker = Some(p);
     }
 
-    /// A tiled atlas's leaf arrived (its chunks and their lists of checksums in `files`): its
-    /// items are drawn and picked from now on. An error leaves the leaf failed.
+    /// A tiled atlas's leaf arrived (its chunks in `files`, the lists of checksums in `sums`): its
+    /// items are drawn and picked from now on (a leaf already here is left as it is). An error
+    /// leaves the leaf failed.
     pub fn insert_leaf(
         &mut self,
         leaf: usize,
+        sums: &vitrine_format::AtlasFiles,
         files: &vitrine_format::AtlasFiles,
     ) -> Result<(), vitrine_format::AtlasError> {
-        let pictures = match self.atlas.insert_leaf(leaf, files) {
+        if self
+            .atlas
+            .tiled
+            .as_ref()
+            .is_some_and(|t| t.leaf_state.get(leaf) == Some(&crate::tiled::Fetch::Here))
+        {
+            return Ok(());
+        }
+        let pictures = match self.atlas.insert_leaf(leaf, sums, files) {
             Ok(p) => p,
             Err(e) => {
                 self.leaf_failed(leaf);

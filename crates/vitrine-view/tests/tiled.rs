@@ -58,11 +58,15 @@ fn overview(on_disk: &Atlas, t: usize) -> Overview {
 
 fn leaf_files(on_disk: &Atlas, v: &Viewer, leaf: usize) -> AtlasFiles {
     let mut files = AtlasFiles::new();
-    let tiles = on_disk.manifest.tiles.as_ref().unwrap();
     for f in v.atlas.leaf_files(leaf) {
         files.insert(f.clone(), std::fs::read(on_disk.dir.join(&f)).unwrap());
     }
-    for c in &tiles.chunked {
+    files
+}
+
+fn sums(on_disk: &Atlas) -> AtlasFiles {
+    let mut files = AtlasFiles::new();
+    for c in &on_disk.manifest.tiles.as_ref().unwrap().chunked {
         files.insert(
             c.sums.file.clone(),
             std::fs::read(on_disk.dir.join(&c.sums.file)).unwrap(),
@@ -127,7 +131,7 @@ fn a_tiled_atlas_draws_its_overviews_then_the_same_items_as_the_whole_one() {
     assert!(!v.plan.want_leaves.is_empty());
     for leaf in v.plan.want_leaves.clone() {
         let files = leaf_files(&on_disk, &v, leaf);
-        v.insert_leaf(leaf, &files).unwrap();
+        v.insert_leaf(leaf, &sums(&on_disk), &files).unwrap();
     }
     v.make_picker();
     w.make_picker();
@@ -164,7 +168,10 @@ fn a_tiled_atlas_draws_its_overviews_then_the_same_items_as_the_whole_one() {
         .to_vec();
     bad[0] ^= 1;
     files.insert(f.clone(), bad);
-    let e = v.insert_leaf(leaf, &files).unwrap_err().to_string();
+    let e = v
+        .insert_leaf(leaf, &sums(&on_disk), &files)
+        .unwrap_err()
+        .to_string();
     assert!(e.contains(&f), "{e}");
     assert_eq!(
         v.atlas.tiled.as_ref().unwrap().leaf_state[leaf],

@@ -601,8 +601,11 @@ impl App {
                 }
             }
         }
-        // A neighbour that is also a copy is drawn once, as a copy.
+        // A neighbour that is also a copy is drawn once, as a copy; in a tiled atlas, only
+        // between items whose places are here.
         pairs.retain(|p| !copy_set.contains(p));
+        pairs.retain(|&(i, j)| self.atlas.placed(i) && self.atlas.placed(j));
+        copy_pairs.retain(|&(i, j)| self.atlas.placed(i) && self.atlas.placed(j));
         // Lists of the selection not yet here: fetched once this frame is over, then drawn.
         if !wanted.is_empty() {
             wasm_bindgen_futures::spawn_local(async move {
@@ -846,11 +849,22 @@ fn fetch_tiles() {
         }
         set_state("tilesFailed", &failed.to_string());
     }
+    use vitrine_view::tiled::Fetch;
+    let absent = |a: &App, tile: Option<usize>, leaf: Option<usize>| {
+        a.atlas.tiled.as_ref().is_some_and(|x| {
+            tile.is_none_or(|t| x.overview_state[t] == Fetch::Absent)
+                && leaf.is_none_or(|l| x.leaf_state[l] == Fetch::Absent)
+        })
+    };
     for t in tiles {
         {
             let mut a = app.borrow_mut();
             if a.fetching_tiles >= MAX_TILE_FETCHES {
                 return;
+            }
+            // The plan may be older than the last arrival: what is here or on its way is left.
+            if !absent(&a, Some(t), None) {
+                continue;
             }
             a.fetching_tiles += 1;
             a.fetching_tile(Some(t), None);
@@ -861,23 +875,29 @@ fn fetch_tiles() {
             let Some(app) = self::app() else { return };
             let mut a = app.borrow_mut();
             a.fetching_tiles -= 1;
-            let sums = a
-                .atlas
-                .manifest
-                .tiles
-                .as_ref()
-                .map(|t| t.overview_sums.clone());
+            let tiles = a.atlas.manifest.tiles.as_ref();
+            let sums = tiles.map(|t| t.overview_sums.clone());
+            let want = tiles.map_or(0, |t| t.overview_px);
             let read = bytes.and_then(|b| {
                 let sums = sums.ok_or("no tiles")?;
                 let list = a.tile_sums.bytes(&sums).map_err(|e| e.to_string())?;
                 vitrine_format::tiles::verify_part(&file, list, t, &b)
                     .map_err(|e| e.to_string())?;
+                // The picture's size from its header, before it is decoded.
+                let png = image::ImageReader::with_format(
+                    std::io::Cursor::new(&b),
+                    image::ImageFormat::Png,
+                );
+                let dims = png.into_dimensions().map_err(|e| format!("{file}: {e}"))?;
+                if dims != (want, want) {
+                    return Err(format!(
+                        "{file}: {} x {} pixels, not {want} x {want}",
+                        dims.0, dims.1
+                    ));
+                }
                 let img = image::load_from_memory_with_format(&b, image::ImageFormat::Png)
                     .map_err(|e| format!("{file}: {e}"))?
                     .to_rgba8();
-                if img.width() != img.height() {
-                    return Err(format!("{file}: not square"));
-                }
                 Ok(vitrine_view::tiled::Overview {
                     side: img.width() as usize,
                     rgba: img.into_raw(),
@@ -900,42 +920,40 @@ fn fetch_tiles() {
             if a.fetching_tiles >= MAX_TILE_FETCHES {
                 return;
             }
+            if !absent(&a, None, Some(leaf)) {
+                continue;
+            }
             a.fetching_tiles += 1;
             a.fetching_tile(None, Some(leaf));
-            a.atlas.leaf_files(leaf)
+            let files: Vec<(String, u64)> = a
+                .atlas
+                .leaf_files(leaf)
+                .into_iter()
+                .map(|f| (f, 0))
+                .collect();
+            files
         };
         wasm_bindgen_futures::spawn_local(async move {
-            let mut got = Vec::new();
-            let mut error = None;
-            for f in &files {
-                match fetch_bytes(f).await {
-                    Ok(b) => got.push((f.clone(), b)),
-                    Err(e) => {
-                        error = Some(e);
-                        break;
-                    }
-                }
-            }
+            // Every chunk of the leaf at once.
+            let got = fetch_many("", &files).await;
             let Some(app) = self::app() else { return };
-            let mut a = app.borrow_mut();
+            let mut guard = app.borrow_mut();
+            let a = &mut *guard;
             a.fetching_tiles -= 1;
-            let result = match error {
-                Some(e) => {
-                    a.leaf_failed(leaf);
+            let result = match got {
+                Err(e) => {
+                    a.viewer.leaf_failed(leaf);
                     Err(e)
                 }
-                None => {
-                    let mut held = a.tile_sums.clone();
-                    for (f, b) in got {
-                        held.insert(f, b);
-                    }
-                    a.insert_leaf(leaf, &held).map_err(|e| e.to_string())
-                }
+                Ok(held) => a
+                    .viewer
+                    .insert_leaf(leaf, &a.tile_sums, &held)
+                    .map_err(|e| e.to_string()),
             };
             if let Err(e) = result {
                 web_sys::console::warn_1(&format!("map tile not loaded: {e}").into());
             }
-            drop(a);
+            drop(guard);
             request_frame();
         });
     }
