@@ -131,7 +131,8 @@ try {
     side = target;
     await phase(`${name}: pan`, pans(120));
   }
-  if (tiled) {
+  // The session's figures as one JSON line: phases, measures, what was fetched, memory.
+  const report = async (measure) => {
     const end = await state();
     const cdp = await browser.newCDPSession(page);
     const heap = await cdp.send("Runtime.getHeapUsage");
@@ -141,10 +142,15 @@ try {
     });
     const before = await page.evaluate(() => Number(document.body.dataset.firstFullBytes || 0));
     console.log(JSON.stringify({
-      renderer: end.renderer, first_full_ms: firstFull, catalogue_ready_ms: readyMs, phases, measure: null,
+      renderer: end.renderer, first_full_ms: firstFull, catalogue_ready_ms: readyMs, phases, measure,
       js_heap: heap.usedSize, wasm: end.wasm_bytes, bytes: fetched.bytes, requests: fetched.requests,
       first_full_bytes: before, sheets_loaded: end.sheets_loaded, errors,
     }));
+  };
+  if (tiled) {
+    await report(null);
+    await browser.close();
+    fs.rmSync(profile, { recursive: true, force: true });
     process.exit(0);
   }
   // A map change at the fitted view: every item glides from the similarity map to the lattice
@@ -251,17 +257,7 @@ try {
     profile_hard: [quantile(measuring.profileHard, 0.5), Math.max(...measuring.profileHard)],
     compare_hard: [quantile(measuring.compareHard, 0.5), Math.max(...measuring.compareHard)],
   };
-  const end = await state();
-  const cdp = await browser.newCDPSession(page);
-  const heap = await cdp.send("Runtime.getHeapUsage");
-  const fetched = await page.evaluate(() => {
-    const e = performance.getEntriesByType("resource");
-    return { bytes: e.reduce((s, r) => s + (r.encodedBodySize || 0), 0), requests: e.length };
-  });
-  console.log(JSON.stringify({
-    renderer: end.renderer, first_full_ms: firstFull, catalogue_ready_ms: readyMs, phases, measure, js_heap: heap.usedSize, wasm: end.wasm_bytes,
-    bytes: fetched.bytes, requests: fetched.requests, sheets_loaded: end.sheets_loaded, errors,
-  }));
+  await report(measure);
 } finally {
   await browser.close();
   fs.rmSync(profile, { recursive: true, force: true });
