@@ -207,7 +207,15 @@ def main():
         for line in [head, ["-" * w for w in widths]] + rows:
             print("  " + "  ".join(x.ljust(w) for x, w in zip(line, widths)))
         m = r.get("measure")
-        if m:
+        if m and "filter_first_ms" in m:
+            # Targets for 25,000,000 items: a category filter over every item within 3 s the first
+            # time (its column fetched), 500 ms again.
+            first, (med, worst) = m["filter_first_ms"], m["filter_again_ms"]
+            print(f"  a category filter over every item, first use (column fetched): {first:.0f} ms "
+                  f"(target 3,000 ms: {'met' if first <= 3000 else 'NOT met'})")
+            print(f"  the same filter again, other values (median, max): {med:.0f} / {worst:.0f} ms "
+                  f"(target 500 ms: {'met' if worst <= 500 else 'NOT met'}); {m['passing']:,} pass the last")
+        elif m:
             # Targets of the measuring work at a million items (software WebGL, this machine).
             for name, med_worst, target in [
                 ("coding view: next item, key to next frame (median, p95)", m["coding_next"], 50),

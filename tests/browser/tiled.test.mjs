@@ -87,6 +87,23 @@ async function inked(page, name) {
   return n;
 }
 
+/** Coloured pixels (the marks; the labels are grey) of the canvas's left part, clear of the
+ * panels. */
+async function colouredLeft(page, name) {
+  const png = PNG.sync.read(await page.locator("#map").screenshot());
+  fs.writeFileSync(path.join(ARTIFACTS, name), PNG.sync.write(png));
+  const w = Math.floor(png.width * 0.6);
+  let n = 0;
+  for (let y = 0; y < png.height; y++) {
+    for (let x = 0; x < w; x++) {
+      const i = 4 * (y * png.width + x);
+      const c = [png.data[i], png.data[i + 1], png.data[i + 2]];
+      if (Math.max(...c) - Math.min(...c) > 24) n++;
+    }
+  }
+  return n;
+}
+
 /** Tile `t`'s square's centre on the map. */
 function centre(t) {
   const p = manifest.tiles.pyramid;
@@ -126,6 +143,44 @@ test("a tiled atlas opens from its overview pictures and draws its leaves' items
   s = await state(page);
   assert.ok(s.thumbnails > 0, `thumbnails at 60 times the fitted zoom: ${JSON.stringify(s)}`);
   assert.ok(await inked(page, "12-tiled-zoomed.png") > 20000);
+  assert.deepEqual(errors, []);
+  await page.close();
+});
+
+test("filters on the tiled atlas fetch their columns and pass the same items as on the untiled atlas", async () => {
+  // The untiled demo atlas of the same archive, answered by `vitrine corpus` (VITRINE_ATLAS).
+  const whole = process.env.VITRINE_ATLAS;
+  assert.ok(whole, "set VITRINE_ATLAS");
+  const native = (...args) => Number(execFileSync(BIN, ["corpus", whole, ...args], { encoding: "utf8" }).split(" ")[0]);
+  const { page, errors } = await open();
+  await settle(page);
+  const before = await colouredLeft(page, "13-tiled-unfiltered.png");
+  const passing = () => page.evaluate(() => document.body.dataset.passing || "");
+  await page.keyboard.press("c");
+  // Opening a field's section fetches its column from every leaf; then its values and counts show.
+  const technique = page.locator("#filter-panel details[data-field='technique']");
+  await technique.locator("summary").click();
+  await technique.locator("input[data-value='etching']").check({ timeout: 30000 });
+  await page.waitForFunction(() => document.body.dataset.passing);
+  assert.equal(Number(await passing()), native("--filter", "technique=etching"));
+  const dating = page.locator("#filter-panel details[data-field='dating']");
+  await dating.locator("summary").click();
+  await dating.locator("input[aria-label=from]").fill("1500", { timeout: 30000 });
+  await dating.locator("input[aria-label=to]").fill("1560");
+  await dating.locator("select").selectOption("within");
+  await dating.locator("button").click();
+  await page.waitForFunction(() => document.body.dataset.filters === "2");
+  const both = Number(await passing());
+  assert.equal(both, native("--filter", "technique=etching", "--date", "1500..1560", "--date-rule", "within"));
+  // Counts beside the values are cross-filtered over every item, loaded or not.
+  const woodcut = Number(await technique.locator("label", { has: page.locator("input[data-value='woodcut']") })
+    .locator(".n").innerText());
+  assert.equal(woodcut, native("--filter", "technique=woodcut", "--date", "1500..1560", "--date-rule", "within"));
+  // The overview pictures are drawn again with what the filters leave out dimmed.
+  await page.keyboard.press("c");
+  await settle(page);
+  const after = await colouredLeft(page, "13-tiled-filtered.png");
+  assert.ok(after < before * 0.5, `coloured pixels ${before} before the filters, ${after} after`);
   assert.deepEqual(errors, []);
   await page.close();
 });

@@ -121,12 +121,30 @@ fn undate_the_impossible(start: &mut [i32], end: &mut [i32]) {
 
 /// Decodes every catalogue field of `m` from its array files.
 pub fn decode_fields(m: &Manifest, files: &AtlasFiles) -> Result<Vec<FieldColumn>, AtlasError> {
+    m.fields.iter().map(|f| decode_field(m, f, files)).collect()
+}
+
+/// The arrays field `f` is stored in: its column (and end-year or byte column), its values as
+/// written, its values per item.
+pub fn field_arrays(f: &Field) -> Vec<&ArrayRef> {
+    let mut v = vec![&f.column];
+    v.extend(&f.column2);
+    v.extend(f.written.iter().flatten());
+    v.extend(f.multi.iter().flatten());
+    v
+}
+
+/// One field's column, decoded and checked, from its [`field_arrays`] in `files`.
+pub fn decode_field(
+    m: &Manifest,
+    f: &Field,
+    files: &AtlasFiles,
+) -> Result<FieldColumn, AtlasError> {
     let text = |a: &ArrayRef, b: &ArrayRef| files.text(a, b, m.item_count);
     let missing = |f: &Field, what: &str| {
         AtlasError::Inconsistent(format!("field {} has no {what} column", f.name))
     };
-    let mut fields = Vec::new();
-    for f in &m.fields {
+    {
         let column = match f.kind {
             FieldKind::Category => Column::Category(files.array(&f.column)?),
             FieldKind::Number => Column::Number(files.array(&f.column)?),
@@ -167,15 +185,14 @@ pub fn decode_fields(m: &Manifest, files: &AtlasFiles) -> Result<Vec<FieldColumn
             }
             None => None,
         };
-        fields.push(FieldColumn {
+        Ok(FieldColumn {
             field: f.clone(),
             column,
             multi,
             written,
             folded: Default::default(),
-        });
+        })
     }
-    Ok(fields)
 }
 
 #[cfg(test)]

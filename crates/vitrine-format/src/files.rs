@@ -21,6 +21,16 @@ impl AtlasFiles {
         self.files.insert(file, bytes);
     }
 
+    /// The bytes held under `file`, if any (not checked).
+    pub fn get(&self, file: &str) -> Option<&[u8]> {
+        self.files.get(file).map(|v| v.as_slice())
+    }
+
+    /// Takes the bytes held under `file` out, if any.
+    pub fn take(&mut self, file: &str) -> Option<Vec<u8>> {
+        self.files.remove(file)
+    }
+
     pub fn contains(&self, file: &str) -> bool {
         self.files.contains_key(file)
     }

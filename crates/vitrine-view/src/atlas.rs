@@ -450,6 +450,98 @@ impl AtlasData {
         Ok(pictures)
     }
 
+    /// A tiled atlas: the list of checksums and the leaf chunks of the array stored whole at `r`
+    /// (the files a viewer fetches to have it whole).
+    pub fn chunk_files(
+        &self,
+        r: &vitrine_format::ArrayRef,
+    ) -> Option<(vitrine_format::ArrayRef, Vec<String>)> {
+        let tiles = self.manifest.tiles.as_ref()?;
+        let c = tiles.chunked(&r.file)?;
+        let leaves = self.tiled.as_ref().map_or(0, |t| t.runs.len());
+        let files = (0..leaves)
+            .map(|leaf| vitrine_format::tiles::chunk_file(&r.file, leaf))
+            .collect();
+        Some((c.sums.clone(), files))
+    }
+
+    /// A tiled atlas: the array stored whole at `r`, joined from its leaf chunks in `files` and
+    /// checked whole; when the whole is wrong, each chunk is checked against its sum (in `files`
+    /// too) so that the error names the leaf at fault.
+    pub fn join_chunks(
+        &self,
+        r: &vitrine_format::ArrayRef,
+        files: &AtlasFiles,
+    ) -> Result<Vec<u8>, AtlasError> {
+        let (sums_ref, names) = self
+            .chunk_files(r)
+            .ok_or_else(|| AtlasError::Inconsistent(format!("{} is not stored by leaf", r.file)))?;
+        let sums = files.bytes(&sums_ref)?;
+        sums_ref.verify(sums)?;
+        if sums.len() != 32 * names.len() {
+            return Err(AtlasError::Inconsistent(format!(
+                "{}: {} checksums for {} leaves",
+                sums_ref.file,
+                sums.len() / 32,
+                names.len()
+            )));
+        }
+        let layout = &self
+            .manifest
+            .tiles
+            .as_ref()
+            .expect("tiled")
+            .chunked(&r.file)
+            .expect("chunked")
+            .layout;
+        let mut parts = Vec::with_capacity(names.len());
+        for f in &names {
+            parts.push(files.get(f).ok_or_else(|| AtlasError::WrongLength {
+                file: f.clone(),
+                expected: 1,
+                found: 0,
+            })?);
+        }
+        let whole = vitrine_format::tiles::join(layout, &parts);
+        if let Err(e) = r.verify(&whole) {
+            for (leaf, (f, part)) in names.iter().zip(&parts).enumerate() {
+                vitrine_format::tiles::verify_part(f, sums, leaf, part)?;
+            }
+            return Err(e);
+        }
+        Ok(whole)
+    }
+
+    /// Whether catalogue field `name`'s column is here (every field once the catalogue is; in a
+    /// tiled atlas, a field once its column has been fetched).
+    pub fn has_field(&self, name: &str) -> bool {
+        self.fields.iter().any(|f| f.field.name == name)
+    }
+
+    /// A tiled atlas: adds catalogue field `name` from its arrays, whole, in `files` (see
+    /// [`AtlasData::join_chunks`]); the fields stay in catalogue order.
+    pub fn add_field(&mut self, name: &str, files: &AtlasFiles) -> Result<(), AtlasError> {
+        if self.has_field(name) {
+            return Ok(());
+        }
+        let m = &self.manifest;
+        let f = m
+            .fields
+            .iter()
+            .find(|f| f.name == name)
+            .ok_or_else(|| AtlasError::Inconsistent(format!("no field {name}")))?;
+        let column = vitrine_corpus::columns::decode_field(m, f, files)?;
+        let order = |n: &str| m.fields.iter().position(|f| f.name == n);
+        let at = order(name);
+        let k = self
+            .fields
+            .iter()
+            .position(|c| order(&c.field.name) > at)
+            .unwrap_or(self.fields.len());
+        self.fields.insert(k, column);
+        Ok(())
+    }
+
     /// Adds the ids and catalogue columns from the [`AtlasData::later_files`].
     pub fn complete(&mut self, files: &AtlasFiles) -> Result<(), AtlasError> {
         let m = &self.manifest;

@@ -988,7 +988,7 @@ pub fn draw_tiled(
     for d in &plan.draws {
         match *d {
             Draw::Overview { tile, from } => {
-                let Some(pic) = &tiled.overviews[from] else {
+                let Some(pic) = tiled.picture(from) else {
                     continue;
                 };
                 let sq = p.square(&p.tiles[tile]);

@@ -171,11 +171,6 @@ pub fn tones(
     if selected.is_none() && passing.is_none() {
         return None;
     }
-    let mix = |c: [u8; 4], w: u16| -> [u8; 4] {
-        let m =
-            |a: u8, p: u8| ((a as u32 * w as u32 + p as u32 * (256 - w as u32) + 128) >> 8) as u8;
-        [m(c[0], paper[0]), m(c[1], paper[1]), m(c[2], paper[2]), 255]
-    };
     let mut out = Tones {
         colours: Vec::with_capacity(colours.len()),
         weight: Vec::with_capacity(colours.len()),
@@ -193,13 +188,19 @@ pub fn tones(
             256
         };
         out.weight.push(w);
-        out.colours.push(match w {
-            0 => [0, 0, 0, 0],
-            256 => c,
-            w => mix(c, w),
-        });
+        out.colours.push(tone(c, w, paper));
     }
     Some(out)
+}
+
+/// An item's mark colour `c` at tone weight `w` (out of 256; 0 = hidden), mixed towards `paper`.
+pub fn tone(c: [u8; 4], w: u16, paper: [u8; 3]) -> [u8; 4] {
+    let m = |a: u8, p: u8| ((a as u32 * w as u32 + p as u32 * (256 - w as u32) + 128) >> 8) as u8;
+    match w {
+        0 => [0, 0, 0, 0],
+        256 => c,
+        _ => [m(c[0], paper[0]), m(c[1], paper[1]), m(c[2], paper[2]), 255],
+    }
 }
 
 #[cfg(test)]

@@ -75,6 +75,13 @@ pub struct Tiled {
     /// Overview pictures kept, and dropped so far.
     kept: usize,
     pub evicted: usize,
+    /// Every item's cell over its leaf's square (two bytes an item, see
+    /// `vitrine_format::tiles::cells`), once fetched whole: the overviews are drawn again from
+    /// them when filters or a selection dim items. Empty until then.
+    pub cells: Vec<u8>,
+    /// Overview pictures drawn again with the items' tones, for the tones of `toned_for`.
+    pub toned: Vec<Option<Overview>>,
+    toned_for: u64,
 }
 
 impl Tiled {
@@ -109,6 +116,9 @@ impl Tiled {
             budget: OVERVIEW_BUDGET,
             kept: 0,
             evicted: 0,
+            cells: Vec::new(),
+            toned: (0..count).map(|_| None).collect(),
+            toned_for: 0,
         }
     }
 
@@ -249,10 +259,66 @@ impl Tiled {
                 break;
             }
             self.overviews[k] = None;
+            self.toned[k] = None;
             self.overview_state[k] = Fetch::Absent;
             self.kept -= 1;
             self.evicted += 1;
         }
+    }
+
+    /// Draws again, with the items' tone `weights` (out of 256, 0 = hidden; see
+    /// `crate::raster::Tones`) of tones generation `generation`, the overview pictures `plan`
+    /// draws from that are not toned yet; without weights, the toned pictures are dropped. Each
+    /// pixel keeps its picture's colour (the mean of every item on it) and takes the opacity of
+    /// its items as toned: the opacity of those drawn, times their mean weight. Nothing is done
+    /// before the cells are here.
+    pub fn tone(&mut self, plan: &Plan, weights: Option<&[u16]>, generation: u64) {
+        let Some(weights) = weights else {
+            if self.toned.iter().any(|t| t.is_some()) {
+                self.toned.iter_mut().for_each(|t| *t = None);
+            }
+            return;
+        };
+        if self.cells.len() != 2 * weights.len() {
+            return;
+        }
+        if generation != self.toned_for {
+            self.toned.iter_mut().for_each(|t| *t = None);
+            self.toned_for = generation;
+        }
+        for d in &plan.draws {
+            let Draw::Overview { from, .. } = *d else {
+                continue;
+            };
+            if self.toned[from].is_some() {
+                continue;
+            }
+            let Some(pic) = &self.overviews[from] else {
+                continue;
+            };
+            let side = pic.side;
+            // The mean weight in the red channel, the opacity of the items drawn in alpha.
+            let w = vitrine_format::tiles::overview_pixels(
+                self.pyramid(),
+                from,
+                side,
+                &self.cells,
+                |k| match weights[k] {
+                    0 => [0; 4],
+                    w => [w.min(255) as u8, 0, 0, 255],
+                },
+            );
+            let mut rgba = pic.rgba.clone();
+            for (o, q) in rgba.chunks_exact_mut(4).zip(w.chunks_exact(4)) {
+                o[3] = ((q[3] as u32 * q[0] as u32 + 127) / 255) as u8;
+            }
+            self.toned[from] = Some(Overview { side, rgba });
+        }
+    }
+
+    /// Tile `t`'s picture as drawn now: toned when there is one, else its own.
+    pub fn picture(&self, t: usize) -> Option<&Overview> {
+        self.toned[t].as_ref().or(self.overviews[t].as_ref())
     }
 
     /// How many overview pictures are kept.

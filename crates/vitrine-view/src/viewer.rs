@@ -228,6 +228,16 @@ impl Viewer {
         };
         let [a, b] = t.runs[leaf];
         let (a, b) = (a as usize, b as usize);
+        // The leaf's colours were not here when the tones were made.
+        if let Some(tones) = &mut self.tones {
+            for i in a..b {
+                tones.colours[i] = crate::selection::tone(
+                    self.atlas.colours[i],
+                    tones.weight[i],
+                    self.theme.paper,
+                );
+            }
+        }
         if !pictures.is_empty() {
             if self.sheets.pictures.len() != self.atlas.n {
                 self.sheets.pictures = vec![0; self.atlas.n];
@@ -293,6 +303,11 @@ impl Viewer {
         self.camera.size = [w as f64, h as f64];
         if let Some(t) = &self.atlas.tiled {
             let plan = t.plan(&self.camera);
+            let weights = self.tones.as_ref().map(|t| &t.weight[..]);
+            if let Some(t) = &mut self.atlas.tiled {
+                t.tone(&plan, weights, self.tones_generation);
+            }
+            let t = self.atlas.tiled.as_ref().expect("tiled");
             let stats = raster::draw_tiled(&self.scene(), t, &plan, pixels, w, h);
             self.frames += 1;
             if let Some(t) = &mut self.atlas.tiled {

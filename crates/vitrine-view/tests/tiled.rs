@@ -178,3 +178,121 @@ fn a_tiled_atlas_draws_its_overviews_then_the_same_items_as_the_whole_one() {
         Fetch::Failed
     );
 }
+
+/// Every chunk of the array stored whole at `r`, with its list of checksums, read from disk.
+fn chunks_of(on_disk: &Atlas, v: &Viewer, r: &vitrine_format::ArrayRef) -> AtlasFiles {
+    let (sums, names) = v.atlas.chunk_files(r).unwrap();
+    let mut files = AtlasFiles::new();
+    for f in names.iter().chain([&sums.file]) {
+        files.insert(f.clone(), std::fs::read(on_disk.dir.join(f)).unwrap());
+    }
+    files
+}
+
+#[test]
+fn a_tiled_atlas_filters_every_item_from_its_fetched_columns_and_dims_its_overviews() {
+    use vitrine_corpus::filter::Filter;
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    inputs(d);
+    let (whole, _) = common::build_and_open(&options(d, "whole", None));
+    let o = options(d, "tiled", Some(40));
+    build(&o, &Silent).unwrap();
+    let on_disk = Atlas::open(&o.out).unwrap();
+    let mut v = viewer(AtlasData::tiled(on_disk.manifest.clone()).unwrap());
+    let mut w = viewer(whole);
+    let field = on_disk
+        .manifest
+        .fields
+        .iter()
+        .find(|f| f.name == "group")
+        .unwrap()
+        .clone();
+
+    // The column joined from every leaf's chunk, checked whole, decoded as in the whole atlas.
+    assert!(!v.atlas.has_field("group"));
+    let mut whole_files = AtlasFiles::new();
+    for r in vitrine_corpus::columns::field_arrays(&field) {
+        let got = chunks_of(&on_disk, &v, r);
+        whole_files.insert(r.file.clone(), v.atlas.join_chunks(r, &got).unwrap());
+    }
+    v.atlas.add_field("group", &whole_files).unwrap();
+    assert!(v.atlas.has_field("group"));
+    // Every item's leaf here, to compare places.
+    let leaves = v.atlas.tiled.as_ref().unwrap().runs.len();
+    for leaf in 0..leaves {
+        let files = leaf_files(&on_disk, &v, leaf);
+        v.insert_leaf(leaf, &sums(&on_disk), &files).unwrap();
+    }
+    let amber = || Filter::Category {
+        field: "group".into(),
+        values: vec!["amber".into()],
+    };
+    let (n, m) = (v.atlas.n, w.atlas.n);
+    v.filters.set(amber(), &v.atlas.fields, n).unwrap();
+    w.filters.set(amber(), &w.atlas.fields, m).unwrap();
+    let places = |x: &Viewer| {
+        let mut p: Vec<[u32; 2]> = x
+            .filters
+            .passing()
+            .unwrap()
+            .items()
+            .map(|i| x.atlas.positions[i].map(f32::to_bits))
+            .collect();
+        p.sort();
+        p
+    };
+    // Worked example: the catalogue gives every third record "amber", 200 of 600.
+    assert_eq!(v.filters.passing().unwrap().count(), 200);
+    assert_eq!(places(&v), places(&w));
+
+    // The overviews dimmed: each pixel keeps its colour, its opacity falls where items are
+    // filtered out; with every value chosen, the pictures are as the build drew them.
+    let cells_ref = on_disk.manifest.tiles.as_ref().unwrap().cells.clone();
+    let got = chunks_of(&on_disk, &v, &cells_ref);
+    let cells = v.atlas.join_chunks(&cells_ref, &got).unwrap();
+    v.atlas.tiled.as_mut().unwrap().cells = cells;
+    v.insert_overview(0, overview(&on_disk, 0));
+    let (pw, ph) = (640usize, 400usize);
+    let mut buf = vec![0u8; pw * ph * 4];
+    v.corpus_changed();
+    v.draw(&mut buf, pw, ph);
+    let own = overview(&on_disk, 0);
+    let toned = v.atlas.tiled.as_ref().unwrap().toned[0].as_ref().unwrap();
+    let alpha = |p: &Overview| p.rgba.chunks_exact(4).map(|q| q[3] as u64).sum::<u64>();
+    assert!(
+        alpha(toned) < alpha(&own) * 9 / 10,
+        "{} of {}",
+        alpha(toned),
+        alpha(&own)
+    );
+    assert!(toned
+        .rgba
+        .chunks_exact(4)
+        .zip(own.rgba.chunks_exact(4))
+        .all(|(t, o)| t[..3] == o[..3] && t[3] <= o[3]));
+    let all = Filter::Category {
+        field: "group".into(),
+        values: vec!["amber".into(), "birch".into(), "cobalt".into()],
+    };
+    v.filters.set(all, &v.atlas.fields, n).unwrap();
+    v.corpus_changed();
+    v.draw(&mut buf, pw, ph);
+    let toned = v.atlas.tiled.as_ref().unwrap().toned[0].as_ref().unwrap();
+    assert_eq!(toned.rgba, own.rgba);
+    // No filter: the pictures as they came.
+    v.filters.remove(0, &v.atlas.fields, n).unwrap();
+    v.corpus_changed();
+    v.draw(&mut buf, pw, ph);
+    assert!(v.atlas.tiled.as_ref().unwrap().toned[0].is_none());
+
+    // A damaged chunk: the whole is refused, naming the leaf's file.
+    let r = &field.column;
+    let mut got = chunks_of(&on_disk, &v, r);
+    let f = vitrine_format::tiles::chunk_file(&r.file, 3);
+    let mut bad = got.get(&f).unwrap().to_vec();
+    bad[0] ^= 1;
+    got.insert(f.clone(), bad);
+    let e = v.atlas.join_chunks(r, &got).unwrap_err().to_string();
+    assert!(e.contains(&f), "{e}");
+}

@@ -22,12 +22,31 @@ fn input(id: &str) -> Option<web_sys::HtmlInputElement> {
         .and_then(|e| e.dyn_into().ok())
 }
 
-/// Sets a filter (replacing the one on its field) and shows the result.
+/// Sets a filter (replacing the one on its field) and shows the result; in a tiled atlas, the
+/// columns it reads are fetched first.
 pub fn set(f: Filter) {
+    let Some(app) = app() else { return };
+    let names: Vec<String> = {
+        let a = app.borrow();
+        let m = &a.atlas.manifest;
+        match &f {
+            Filter::Text { fields, .. } if fields.is_empty() => m
+                .fields
+                .iter()
+                .filter(|x| matches!(x.kind, FieldKind::Text | FieldKind::Link))
+                .map(|x| x.name.clone())
+                .collect(),
+            f => f.fields().iter().map(|x| x.to_string()).collect(),
+        }
+    };
+    columns::ensure(names, move || set_now(f));
+}
+
+fn set_now(f: Filter) {
     let Some(app) = app() else { return };
     let r = {
         let mut a = app.borrow_mut();
-        if !a.atlas.catalogue {
+        if !a.atlas.catalogue && a.atlas.tiled.is_none() {
             return;
         }
         let n = a.atlas.n;
@@ -64,8 +83,19 @@ pub fn remove(k: usize) {
     changed();
 }
 
+thread_local! {
+    /// Changes of the filters so far (the page's `data-filter-changes`, which tests and the
+    /// bench wait on).
+    static CHANGES: std::cell::Cell<u64> = const { std::cell::Cell::new(0) };
+}
+
 /// After any change of the filters: the filters row, panel, counts, dimming.
 pub fn changed() {
+    let k = CHANGES.with(|c| {
+        c.set(c.get() + 1);
+        c.get()
+    });
+    set_state("filterChanges", &k.to_string());
     render_filters_row();
     if by_id("filter-panel").is_some_and(|p| !p.hidden()) {
         update_panel();
@@ -163,9 +193,18 @@ fn render_panel() {
         .map(|k| a.atlas.fields[k].field.name.clone())
         .collect();
     panel.set_text_content(None);
-    if !a.atlas.catalogue {
+    if !a.atlas.catalogue && a.atlas.tiled.is_none() {
         panel.set_text_content(Some("The catalogue is loading…"));
         return;
+    }
+    if a.atlas.tiled.is_some() {
+        let p = doc.create_element("p").unwrap();
+        p.set_class_name("panel-note");
+        p.set_text_content(Some(
+            "This atlas is stored in tiles: a field's values are fetched for every item when you \
+             open it (counts and filters are then exact over the whole collection).",
+        ));
+        let _ = panel.append_child(&p);
     }
     let n = a.atlas.n;
     for (k, c) in a.atlas.fields.iter().enumerate() {
@@ -282,6 +321,7 @@ fn render_panel() {
         }
         let det = doc.create_element("details").unwrap();
         det.set_id(&format!("field-{k}"));
+        let _ = det.set_attribute("data-field", &name);
         if open.contains(&name) || a.filters.on(&name).is_some() {
             let _ = det.set_attribute("open", "");
         }
@@ -290,6 +330,77 @@ fn render_panel() {
         let _ = det.append_child(&sum);
         let _ = det.append_child(&body);
         let _ = panel.append_child(&det);
+    }
+    if a.atlas.tiled.is_some() {
+        unfetched_sections(&a, &doc, &panel);
+    }
+}
+
+/// A tiled atlas: a closed section for each filterable field whose column is not here yet (in
+/// catalogue order among the others); opening it fetches the column.
+fn unfetched_sections(a: &App, doc: &web_sys::Document, panel: &web_sys::HtmlElement) {
+    let m = &a.atlas.manifest;
+    for f in &m.fields {
+        if !matches!(
+            f.kind,
+            FieldKind::Category | FieldKind::Number | FieldKind::Date
+        ) || a.atlas.has_field(&f.name)
+        {
+            continue;
+        }
+        let det = doc.create_element("details").unwrap();
+        let _ = det.set_attribute("data-field", &f.name);
+        det.set_class_name("unfetched");
+        let sum = doc.create_element("summary").unwrap();
+        sum.set_text_content(Some(&f.name));
+        let _ = det.append_child(&sum);
+        let body = doc.create_element("p").unwrap();
+        body.set_class_name("more");
+        body.set_text_content(Some(&if columns::fetching(&f.name) {
+            "Fetching its values…".to_string()
+        } else {
+            format!(
+                "Opening this fetches the {} of {} items.",
+                f.name, a.atlas.n
+            )
+        }));
+        let _ = det.append_child(&body);
+        let name = f.name.clone();
+        let d2 = det.clone();
+        listen(&det, "toggle", true, move |_e: web_sys::Event| {
+            if d2.has_attribute("open") {
+                let name = name.clone();
+                let keep = name.clone();
+                columns::ensure(vec![name], move || {
+                    render_panel();
+                    // The section just fetched stays open.
+                    if let Ok(Some(d)) = document()
+                        .query_selector(&format!("#filter-panel details[data-field=\"{keep}\"]"))
+                    {
+                        let _ = d.set_attribute("open", "");
+                    }
+                });
+            }
+        });
+        // Before the first section of a later field.
+        let order = |n: &str| m.fields.iter().position(|x| x.name == n);
+        let here = order(&f.name);
+        let mut next = None;
+        if let Ok(list) = panel.query_selector_all("details[data-field]") {
+            for j in 0..list.length() {
+                let Some(e) = list
+                    .item(j)
+                    .and_then(|e| e.dyn_into::<web_sys::Element>().ok())
+                else {
+                    continue;
+                };
+                if order(&e.get_attribute("data-field").unwrap_or_default()) > here {
+                    next = Some(e);
+                    break;
+                }
+            }
+        }
+        let _ = panel.insert_before(&det, next.as_ref().map(|e| e.as_ref()));
     }
 }
 

@@ -89,6 +89,7 @@ impl std::ops::DerefMut for App {
 
 mod bulk;
 mod coding;
+mod columns;
 mod filters;
 mod gl_present;
 mod grow;
@@ -915,24 +916,44 @@ fn fetch_tiles() {
         });
     }
     for leaf in leaves {
-        let files = {
-            let mut a = app.borrow_mut();
+        {
+            let a = app.borrow();
             if a.fetching_tiles >= MAX_TILE_FETCHES {
                 return;
             }
             if !absent(&a, None, Some(leaf)) {
                 continue;
             }
-            a.fetching_tiles += 1;
-            a.fetching_tile(None, Some(leaf));
-            let files: Vec<(String, u64)> = a
-                .atlas
-                .leaf_files(leaf)
-                .into_iter()
-                .map(|f| (f, 0))
-                .collect();
-            files
-        };
+        }
+        fetch_leaf(leaf);
+    }
+}
+
+/// Starts fetching leaf `leaf`'s drawing data unless it is here or on its way (for the view, or
+/// for items shown elsewhere: the tray, a record card); once here, the map and the tray are drawn
+/// again.
+pub fn fetch_leaf(leaf: usize) {
+    let Some(app) = app() else { return };
+    let files = {
+        let mut a = app.borrow_mut();
+        let absent =
+            a.atlas.tiled.as_ref().is_some_and(|x| {
+                x.leaf_state.get(leaf) == Some(&vitrine_view::tiled::Fetch::Absent)
+            });
+        if !absent {
+            return;
+        }
+        a.fetching_tiles += 1;
+        a.fetching_tile(None, Some(leaf));
+        let files: Vec<(String, u64)> = a
+            .atlas
+            .leaf_files(leaf)
+            .into_iter()
+            .map(|f| (f, 0))
+            .collect();
+        files
+    };
+    {
         wasm_bindgen_futures::spawn_local(async move {
             // Every chunk of the leaf at once.
             let got = fetch_many("", &files).await;
@@ -955,6 +976,7 @@ fn fetch_tiles() {
             }
             drop(guard);
             request_frame();
+            tray::schedule();
         });
     }
 }

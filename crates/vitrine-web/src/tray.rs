@@ -75,8 +75,15 @@ pub fn render() {
     );
     let dpr = web_sys::window().map_or(1.0, |w| w.device_pixel_ratio());
     let doc = document();
+    // A tiled atlas: the leaves of the items shown whose drawing data is not here yet.
+    let mut leaves: Vec<usize> = Vec::new();
     for k in range {
         let i = a.tray_items[k] as usize;
+        if !a.atlas.placed(i) {
+            if let Some(t) = &a.atlas.tiled {
+                leaves.push(t.leaf_of(i));
+            }
+        }
         let label = a.atlas.label(i);
         let tile: HtmlElement = doc.create_element("div").unwrap().dyn_into().unwrap();
         tile.set_class_name(match crate::grow::mark_of(i) {
@@ -99,6 +106,12 @@ pub fn render() {
         let _ = space.append_child(&tile);
     }
     set_state("trayTiles", &space.child_element_count().to_string());
+    drop(a);
+    leaves.sort_unstable();
+    leaves.dedup();
+    for leaf in leaves {
+        super::fetch_leaf(leaf);
+    }
     if let Some(item) = focused {
         focus_pic(&item);
     }
@@ -117,6 +130,11 @@ pub fn picture_button(a: &App, i: usize, dpr: f64) -> HtmlElement {
     pic.set_title(&label);
     let _ = pic.set_attribute("aria-label", &format!("Open the record of {label}"));
     let ps = pic.style();
+    if !a.atlas.placed(i) {
+        // A tiled atlas's item whose leaf is on its way: a blank until it is here.
+        pic.set_class_name("pic pending");
+        return pic;
+    }
     let c = a.atlas.colours[i];
     let _ = ps.set_property(
         "background-color",
