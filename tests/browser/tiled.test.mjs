@@ -178,6 +178,7 @@ test("filters on the tiled atlas fetch their columns and pass the same items as 
   assert.equal(woodcut, native("--filter", "technique=woodcut", "--date", "1500..1560", "--date-rule", "within"));
   // The overview pictures are drawn again with what the filters leave out dimmed.
   await page.keyboard.press("c");
+  await page.waitForFunction(() => document.body.dataset.columns === "ready", null, { timeout: 30000 });
   await settle(page);
   const after = await colouredLeft(page, "13-tiled-filtered.png");
   assert.ok(after < before * 0.5, `coloured pixels ${before} before the filters, ${after} after`);

@@ -168,29 +168,54 @@ pub fn tones(
     passing: Option<&Mask>,
     hide_filtered: bool,
 ) -> Option<Tones> {
+    tones_within(colours, paper, selected, passing, hide_filtered, None)
+}
+
+/// As [`tones`], the colours made only for the items of `runs` when given (a tiled atlas's items
+/// whose colours are here; a leaf's are made as it arrives), the others left hidden.
+pub fn tones_within(
+    colours: &[[u8; 4]],
+    paper: [u8; 3],
+    selected: Option<&Mask>,
+    passing: Option<&Mask>,
+    hide_filtered: bool,
+    runs: Option<&[[u64; 2]]>,
+) -> Option<Tones> {
     if selected.is_none() && passing.is_none() {
         return None;
     }
-    let mut out = Tones {
-        colours: Vec::with_capacity(colours.len()),
-        weight: Vec::with_capacity(colours.len()),
-    };
-    for (i, &c) in colours.iter().enumerate() {
-        let w = if passing.is_some_and(|p| !p.get(i)) {
-            if hide_filtered {
-                0
+    let weight: Vec<u16> = (0..colours.len())
+        .map(|i| {
+            if passing.is_some_and(|p| !p.get(i)) {
+                if hide_filtered {
+                    0
+                } else {
+                    FILTERED_WEIGHT
+                }
+            } else if selected.is_some_and(|s| !s.get(i)) {
+                UNSELECTED_WEIGHT
             } else {
-                FILTERED_WEIGHT
+                256
             }
-        } else if selected.is_some_and(|s| !s.get(i)) {
-            UNSELECTED_WEIGHT
-        } else {
-            256
-        };
-        out.weight.push(w);
-        out.colours.push(tone(c, w, paper));
-    }
-    Some(out)
+        })
+        .collect();
+    let colours = match runs {
+        None => colours
+            .iter()
+            .zip(&weight)
+            .map(|(&c, &w)| tone(c, w, paper))
+            .collect(),
+        Some(runs) => {
+            let mut out = vec![[0u8; 4]; colours.len()];
+            for &[a, b] in runs {
+                for i in a as usize..(b as usize).min(colours.len()) {
+                    out[i] = tone(colours[i], weight[i], paper);
+                }
+            }
+            out
+        }
+    };
+    Some(Tones { colours, weight })
 }
 
 /// An item's mark colour `c` at tone weight `w` (out of 256; 0 = hidden), mixed towards `paper`.

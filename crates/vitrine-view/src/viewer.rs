@@ -879,12 +879,20 @@ impl Viewer {
     /// How every item is dimmed for the selection and the filters (towards the theme's paper);
     /// the kept marks are drawn again.
     fn retone(&mut self) {
-        self.tones = crate::selection::tones(
+        // A tiled atlas: colours only where its leaves are here.
+        let runs: Option<Vec<[u64; 2]>> = self.atlas.tiled.as_ref().map(|t| {
+            (0..t.runs.len())
+                .filter(|&l| t.leaf_state[l] == crate::tiled::Fetch::Here)
+                .map(|l| t.runs[l])
+                .collect()
+        });
+        self.tones = crate::selection::tones_within(
             &self.atlas.colours,
             self.theme.paper,
             self.selection.mask(),
             self.filters.passing(),
             self.filters.hide,
+            runs.as_deref(),
         );
         self.tones_generation += 1;
     }

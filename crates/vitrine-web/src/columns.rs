@@ -6,7 +6,7 @@
 use super::*;
 
 /// Requests in flight at once while a column is fetched.
-const BATCH: usize = 48;
+const BATCH: usize = 256;
 
 thread_local! {
     /// Fields whose columns are on their way.
@@ -67,27 +67,40 @@ pub fn fetch(names: Vec<String>, done: impl FnOnce() + 'static) {
     });
     set_state("columns", "fetching");
     wasm_bindgen_futures::spawn_local(async move {
-        let r = fetch_now(&names, cells_wanted).await;
-        FETCHING.with(|f| {
-            let mut f = f.borrow_mut();
-            for n in &names {
-                f.remove(n);
-            }
-            if cells_wanted {
-                f.remove(CELLS);
-            }
-        });
+        // The fields first, and the filter with them; then the cells, for the dimmed overviews.
+        let mut result = Ok(());
+        if !names.is_empty() {
+            result = fetch_now(&names, false).await;
+            forget(&names);
+        }
+        done();
+        request_frame();
+        if cells_wanted && result.is_ok() {
+            result = fetch_now(&[], true).await;
+        }
+        if cells_wanted {
+            forget(&[CELLS.to_string()]);
+        }
         let count = app.borrow().atlas.n;
         show(&format!("{count} items"));
-        match r {
+        match result {
             Ok(()) => set_state("columns", "ready"),
             Err(e) => {
                 set_state("columns", "failed");
                 select::note(&format!("The catalogue column could not be loaded: {e}"));
             }
         }
-        done();
         request_frame();
+    });
+}
+
+/// Notes that `names` are no longer on their way.
+fn forget(names: &[String]) {
+    FETCHING.with(|f| {
+        let mut f = f.borrow_mut();
+        for n in names {
+            f.remove(n);
+        }
     });
 }
 

@@ -186,10 +186,13 @@ pub fn note(text: &str) {
 /// After any change of the selection: the dimming, the count, the tray, the undo buttons.
 pub fn refresh() {
     let Some(app) = app() else { return };
+    let t0 = super::now();
     super::measure::corpus_changed();
     super::bulk::corpus_changed();
     super::grow::corpus_changed();
+    let t1 = super::now();
     let state = app.borrow_mut().corpus_changed();
+    let t2 = super::now();
     show_figures(state.figures.as_ref());
     if let Some(b) = by_id("add-copies") {
         let a = app.borrow();
@@ -233,11 +236,23 @@ pub fn refresh() {
     if let Some(d) = by_id("tray-how") {
         d.set_text_content(Some(&state.description));
     }
+    let t3 = super::now();
     timeline_strip::draw();
     tray::schedule();
     // The address carries the corpus (when it fits in a link).
     let _ = share::update_address();
     request_frame();
+    // Where a change of the corpus spends its time, for the bench.
+    set_state(
+        "refreshMs",
+        &format!(
+            "panels {:.0}, corpus {:.0}, page {:.0}, strip and address {:.0}",
+            t1 - t0,
+            t2 - t1,
+            t3 - t2,
+            super::now() - t3
+        ),
+    );
 }
 
 /// The tray's figures: the years the corpus spans and the commonest values of each category.
