@@ -188,7 +188,37 @@ try {
       againFit.push(await timeFilter({ kind: "category", field, values: v }));
     }
     const passing = await page.evaluate(() => Number(document.body.dataset.passing || 0));
-    await report({ filter_first_ms: first, filter_dimmed_ms: dimmed, filter_again_ms: [quantile(again, 0.5), Math.max(...again)], filter_again_fit_ms: [quantile(againFit, 0.5), Math.max(...againFit)], passing });
+    // Lassos over every item at the fitted view (200 points): the leaves each outline crosses
+    // are fetched (once), those wholly inside taken whole. Timed from the call until the
+    // selection is counted and two frames of the page are drawn.
+    await page.evaluate(() => window.vitrineView.clear_corpus());
+    const timeLasso = (pts, op) => page.evaluate(async ([pts, op]) => {
+      const t0 = performance.now();
+      const before = window.vitrineView.view_state();
+      window.vitrineView.select_lasso(pts, op);
+      const steps = () => JSON.parse(window.vitrineView.view_state()).steps.length;
+      const want = op === "replace" ? 1 : JSON.parse(before).steps.length + 1;
+      while (document.body.dataset.selecting || steps() !== want) await new Promise((r) => setTimeout(r, 2));
+      await new Promise((r) => requestAnimationFrame(() => requestAnimationFrame(r)));
+      return performance.now() - t0;
+    }, [pts, op]);
+    const ring = (r) => {
+      const pts = [];
+      for (let k = 0; k < 200; k++) {
+        const a = (k / 200) * 2 * Math.PI;
+        const rr = r * (1 + 0.25 * Math.sin(5 * a));
+        pts.push(640 + rr * Math.cos(a), 400 + rr * Math.sin(a));
+      }
+      return pts;
+    };
+    console.error("[bench-view]   lassos over every item");
+    const lassoFirst = await timeLasso(ring(300), "replace");
+    const lassoAgain = [];
+    for (const [r, op] of [[150, "subtract"], [200, "add"], [320, "replace"], [100, "subtract"], [250, "replace"]]) {
+      lassoAgain.push(await timeLasso(ring(r), op));
+    }
+    const selected = await page.evaluate(() => Number(document.body.dataset.selected || 0));
+    await report({ filter_first_ms: first, filter_dimmed_ms: dimmed, filter_again_ms: [quantile(again, 0.5), Math.max(...again)], filter_again_fit_ms: [quantile(againFit, 0.5), Math.max(...againFit)], passing, lasso_first_ms: lassoFirst, lasso_again_ms: [quantile(lassoAgain, 0.5), Math.max(...lassoAgain)], selected });
     await browser.close();
     fs.rmSync(profile, { recursive: true, force: true });
     process.exit(0);

@@ -186,6 +186,44 @@ test("filters on the tiled atlas fetch their columns and pass the same items as 
   await page.close();
 });
 
+test("a lasso on the tiled atlas selects the same items as on the untiled atlas", async () => {
+  // The outlines the page applied (in map coordinates, as its corpus file holds them) replayed by
+  // `vitrine corpus` on the untiled demo atlas of the same archive (one map, the same places).
+  const whole = process.env.VITRINE_ATLAS;
+  assert.ok(whole, "set VITRINE_ATLAS");
+  const outline = [];
+  for (let k = 0; k < 60; k++) {
+    const a = (k / 60) * 2 * Math.PI;
+    const r = 260 * (1 + 0.25 * Math.sin(5 * a));
+    outline.push(600 + r * Math.cos(a), 420 + r * Math.sin(a));
+  }
+  const { page, errors } = await open();
+  await settle(page);
+  await page.evaluate((pts) => window.vitrineView.select_lasso(pts, "replace"), outline);
+  await page.waitForFunction(() => document.body.dataset.selected && !document.body.dataset.selecting,
+    null, { timeout: 30000 });
+  await page.evaluate((pts) => window.vitrineView.select_lasso(pts.map((v) => v * 0.8), "subtract"), outline);
+  await page.waitForFunction(() => JSON.parse(window.vitrineView.view_state()).steps.length === 2 &&
+    !document.body.dataset.selecting, null, { timeout: 30000 });
+  const selected = Number(await page.evaluate(() => document.body.dataset.selected));
+  // What is not selected fades in the overview pictures too, once the items' cells are here.
+  await page.waitForFunction(() => document.body.dataset.columns === "ready", null, { timeout: 30000 });
+  await settle(page);
+  const s = await state(page);
+  await page.screenshot({ path: path.join(ARTIFACTS, "13-tiled-lasso.png") });
+  // Leaves wholly inside are taken whole: not every leaf was fetched.
+  const leaves = manifest.tiles.pyramid.tiles.filter((t) => !t.children).length;
+  assert.ok(s.leaves_here < leaves, `${s.leaves_here} of ${leaves} leaves here after the lasso`);
+  assert.deepEqual(s.steps.map((x) => x.op), ["replace", "subtract"]);
+  const text = (step) => step.lasso.map((p) => p.join(",")).join(" ");
+  const native = Number(execFileSync(BIN, ["corpus", whole, "--lasso", text(s.steps[0]),
+    "--subtract-lasso", text(s.steps[1])], { encoding: "utf8" }).split(" ")[0]);
+  assert.ok(native > 100, `${native} selected on the untiled atlas`);
+  assert.equal(selected, native);
+  assert.deepEqual(errors, []);
+  await page.close();
+});
+
 test("a tile that cannot be loaded leaves a note and the rest of the map works", async () => {
   // An overview picture the fitted view draws, and the positions of one leaf, are removed.
   const out = path.join(dir, "atlas");

@@ -542,6 +542,7 @@ pub fn corpus(a: &CorpusArgs) -> Result<CorpusReport> {
         positions: &positions,
         index_of: &index_of,
         near: None,
+        runs: None,
     };
     let mut mask = corpus_mask(&steps, &filters, &cols, &at)?;
     if let (Some(c), false) = (&from, changed) {

@@ -54,12 +54,26 @@ pub struct Lookup<'a> {
     /// Items near a map rectangle (a superset of those inside it, in any order), when a spatial
     /// index can say (else every item is tested).
     pub near: Option<&'a dyn Fn([f64; 4]) -> Vec<u32>>,
+    /// A tiled atlas: for an outline, the runs of items wholly inside it (their leaves' squares
+    /// are) and the items to test one by one (those of the leaves it crosses).
+    pub runs: Option<&'a Runs<'a>>,
 }
+
+/// See [`Lookup::runs`].
+pub type Runs<'a> = dyn Fn(&Polygon) -> (Vec<[u64; 2]>, Vec<u32>) + 'a;
 
 /// The items a shape covers.
 pub fn covered(shape: &Shape, at: &Lookup) -> Result<Mask, CorpusError> {
     let n = at.positions.len();
     let inside = |p: &Polygon| {
+        if let Some(runs) = at.runs {
+            let (whole, near) = runs(p);
+            let mut m = Mask::from_items(n, items_inside(at.positions, p, Some(&near)));
+            for [a, b] in whole {
+                m.set_range(a as usize, b as usize);
+            }
+            return m;
+        }
         let near = at.near.map(|f| f(p.bbox()));
         Mask::from_items(n, items_inside(at.positions, p, near.as_deref()))
     };
@@ -333,6 +347,7 @@ mod tests {
             positions: &positions,
             index_of: &index_of,
             near: None,
+            runs: None,
         };
         let steps = vec![
             Step {

@@ -80,6 +80,21 @@ impl Mask {
         }
     }
 
+    /// Sets items `a..b` on, a word at a time.
+    pub fn set_range(&mut self, a: usize, b: usize) {
+        let b = b.min(self.n);
+        let mut i = a;
+        while i < b {
+            if i.is_multiple_of(64) && i + 64 <= b {
+                self.words[i / 64] = u64::MAX;
+                i += 64;
+            } else {
+                self.words[i / 64] |= 1 << (i % 64);
+                i += 1;
+            }
+        }
+    }
+
     pub fn count(&self) -> usize {
         self.words.iter().map(|w| w.count_ones() as usize).sum()
     }
@@ -122,6 +137,26 @@ impl Mask {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_range_sets_the_same_items_as_one_by_one() {
+        for (n, a, b) in [
+            (300, 5, 250),
+            (300, 64, 128),
+            (300, 0, 300),
+            (70, 60, 90),
+            (10, 3, 3),
+        ] {
+            let mut m = Mask::none(n);
+            m.set_range(a, b);
+            let by_one = Mask::from_fn(n, |i| i >= a && i < b);
+            assert_eq!(
+                m.items().collect::<Vec<_>>(),
+                by_one.items().collect::<Vec<_>>()
+            );
+            assert_eq!(m.count(), b.min(n) - a.min(b.min(n)));
+        }
+    }
 
     #[test]
     fn set_operations_match_plain_sets() {

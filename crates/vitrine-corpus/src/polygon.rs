@@ -97,6 +97,26 @@ impl Polygon {
         inside
     }
 
+    /// Where the square (or rectangle) `r` = [x0, y0, x1, y1] lies: `Some(true)` wholly inside,
+    /// `Some(false)` wholly outside, `None` when an edge of the outline meets it (its points must
+    /// then be tested one by one). No edge meeting the closed rectangle, every point of it is on
+    /// the same side of the outline as its centre, by the even-odd rule of [`Polygon::contains`].
+    pub fn rect_status(&self, r: [f64; 4]) -> Option<bool> {
+        let b = self.bbox();
+        if r[0] > b[2] || r[2] < b[0] || r[1] > b[3] || r[3] < b[1] {
+            return Some(false);
+        }
+        let v = &self.0;
+        let mut j = v.len() - 1;
+        for i in 0..v.len() {
+            if segment_meets_rect(v[j], v[i], r) {
+                return None;
+            }
+            j = i;
+        }
+        Some(self.contains([(r[0] + r[2]) / 2.0, (r[1] + r[3]) / 2.0]))
+    }
+
     /// The outline as "x1,y1 x2,y2 ..." (what [`Polygon::parse`] reads).
     pub fn to_text(&self) -> String {
         self.0
@@ -105,6 +125,32 @@ impl Polygon {
             .collect::<Vec<_>>()
             .join(" ")
     }
+}
+
+/// Whether the segment from `a` to `b` meets the closed rectangle `r` (clipped to it by the
+/// slab method).
+fn segment_meets_rect(a: [f64; 2], b: [f64; 2], r: [f64; 4]) -> bool {
+    let (mut t0, mut t1) = (0.0f64, 1.0f64);
+    for d in 0..2 {
+        let (lo, hi) = (r[d], r[d + 2]);
+        let delta = b[d] - a[d];
+        if delta == 0.0 {
+            if a[d] < lo || a[d] > hi {
+                return false;
+            }
+            continue;
+        }
+        let (mut u, mut w) = ((lo - a[d]) / delta, (hi - a[d]) / delta);
+        if u > w {
+            std::mem::swap(&mut u, &mut w);
+        }
+        t0 = t0.max(u);
+        t1 = t1.min(w);
+        if t0 > t1 {
+            return false;
+        }
+    }
+    true
 }
 
 /// A polygon made ready for many point tests: its edges sorted into horizontal bands, so that a
@@ -188,6 +234,51 @@ pub fn items_inside(
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_rectangle_is_inside_outside_or_met_by_the_outline() {
+        // Worked example: the square 0..10 with a notch cut from its top edge down to y = 4
+        // between x = 4 and x = 6.
+        let p = Polygon(vec![
+            [0.0, 0.0],
+            [10.0, 0.0],
+            [10.0, 10.0],
+            [6.0, 10.0],
+            [6.0, 4.0],
+            [4.0, 4.0],
+            [4.0, 10.0],
+            [0.0, 10.0],
+        ]);
+        assert_eq!(p.rect_status([1.0, 1.0, 3.0, 3.0]), Some(true));
+        assert_eq!(p.rect_status([7.0, 5.0, 9.0, 9.0]), Some(true));
+        // In the notch, and beyond the outline.
+        assert_eq!(p.rect_status([4.5, 5.0, 5.5, 9.0]), Some(false));
+        assert_eq!(p.rect_status([11.0, 0.0, 12.0, 1.0]), Some(false));
+        // Across the notch's floor, across an outer edge, and around the whole outline.
+        assert_eq!(p.rect_status([4.5, 3.0, 5.5, 5.0]), None);
+        assert_eq!(p.rect_status([9.0, 9.0, 11.0, 11.0]), None);
+        assert_eq!(p.rect_status([-1.0, -1.0, 11.0, 11.0]), None);
+        // Touching an edge counts as meeting it.
+        assert_eq!(p.rect_status([6.0, 5.0, 7.0, 6.0]), None);
+        // Every answer agrees with the points of the rectangle, tested one by one.
+        let mut s = 7u64;
+        for _ in 0..2000 {
+            let mut r = || {
+                s = s
+                    .wrapping_mul(6364136223846793005)
+                    .wrapping_add(1442695040888963407);
+                (s >> 11) as f64 / (1u64 << 53) as f64 * 14.0 - 2.0
+            };
+            let (x, y, w) = (r(), r(), r().abs() / 4.0);
+            let rect = [x, y, x + w, y + w];
+            if let Some(inside) = p.rect_status(rect) {
+                for k in 0..25 {
+                    let q = [x + w * (k % 5) as f64 / 4.0, y + w * (k / 5) as f64 / 4.0];
+                    assert_eq!(p.contains(q), inside, "{rect:?} {q:?}");
+                }
+            }
+        }
+    }
 
     #[test]
     fn a_star_drawn_in_one_stroke_leaves_its_centre_out() {

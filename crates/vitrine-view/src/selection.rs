@@ -244,6 +244,7 @@ mod tests {
             positions: &positions,
             index_of: &index_of,
             near: None,
+            runs: None,
         })
     }
 

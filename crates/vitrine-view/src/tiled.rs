@@ -316,6 +316,46 @@ impl Tiled {
         }
     }
 
+    /// The leaves an outline covers: those whose squares are wholly inside it, and those it
+    /// crosses (whose items must be tested one by one), each in leaf order. The pyramid is walked
+    /// from the root: a tile wholly inside brings every leaf below it, one wholly outside none.
+    /// Squares are widened by a millionth of their side, so that an item on a square's edge is
+    /// never taken for inside when the outline passes just beyond it.
+    pub fn lasso_leaves(
+        &self,
+        poly: &vitrine_corpus::polygon::Polygon,
+    ) -> (Vec<usize>, Vec<usize>) {
+        let p = self.pyramid();
+        let (mut inside, mut crossing) = (Vec::new(), Vec::new());
+        let mut stack = vec![0usize];
+        while let Some(t) = stack.pop() {
+            let tile = &p.tiles[t];
+            let sq = p.square(tile);
+            let e = (sq[2] - sq[0]) * 1e-6;
+            let status = poly.rect_status([sq[0] - e, sq[1] - e, sq[2] + e, sq[3] + e]);
+            match (status, &tile.children) {
+                (Some(false), _) => {}
+                (Some(true), _) => {
+                    let mut below = vec![t];
+                    while let Some(k) = below.pop() {
+                        match &p.tiles[k].children {
+                            Some(c) => below
+                                .extend(c.iter().filter(|&&c| c != u32::MAX).map(|&c| c as usize)),
+                            None => inside.push(self.tile_leaf[k] as usize),
+                        }
+                    }
+                }
+                (None, Some(c)) => {
+                    stack.extend(c.iter().filter(|&&c| c != u32::MAX).map(|&c| c as usize))
+                }
+                (None, None) => crossing.push(self.tile_leaf[t] as usize),
+            }
+        }
+        inside.sort_unstable();
+        crossing.sort_unstable();
+        (inside, crossing)
+    }
+
     /// Tile `t`'s picture as drawn now: toned when there is one, else its own.
     pub fn picture(&self, t: usize) -> Option<&Overview> {
         self.toned[t].as_ref().or(self.overviews[t].as_ref())

@@ -706,22 +706,44 @@ impl Viewer {
             grid.query_any_order(r, &mut v);
             v
         };
+        // A tiled atlas: leaves wholly inside an outline are taken whole, the items of those it
+        // crosses tested (their leaves must be here: see `leaves_to_test`).
+        let tiled_runs = |p: &vitrine_corpus::polygon::Polygon| {
+            let Some(t) = &atlas.tiled else {
+                return (Vec::new(), Vec::new());
+            };
+            let (inside, crossing) = t.lasso_leaves(p);
+            let near = crossing
+                .iter()
+                .filter(|&&l| t.leaf_state[l] == crate::tiled::Fetch::Here)
+                .flat_map(|&l| t.runs[l][0] as u32..t.runs[l][1] as u32)
+                .collect();
+            (inside.iter().map(|&l| t.runs[l]).collect(), near)
+        };
+        let tiled = atlas.tiled.is_some();
         let at = Lookup {
-            positions: &atlas.maps[selection_map].positions,
+            positions: if tiled {
+                &atlas.positions
+            } else {
+                &atlas.maps[selection_map].positions
+            },
             index_of: &find,
             // The grid is of the map shown: it narrows lassos only on that map.
-            near: if selection_map == atlas.current {
+            near: if selection_map == atlas.current && !tiled {
                 Some(&near)
             } else {
                 None
             },
+            runs: if tiled { Some(&tiled_runs) } else { None },
         };
         f(selection, &at)
     }
 
     /// Adds a step to the selection; an error says, in words, why it was not added.
     pub fn apply_step(&mut self, step: Step) -> Result<(), String> {
-        if !self.atlas.catalogue {
+        // A tiled atlas draws and picks without its catalogue; ids need it.
+        let needs_catalogue = self.atlas.tiled.is_none() || matches!(step.shape, Shape::Ids(_));
+        if !self.atlas.catalogue && needs_catalogue {
             return Err("The catalogue is still loading: select again in a moment.".into());
         }
         let drawn = matches!(step.shape, Shape::Lasso(_) | Shape::Rect(_));
@@ -737,6 +759,24 @@ impl Viewer {
         let step = crate::link::rounded_step(step);
         self.with_lookup(ids, |sel, at| sel.push(step, at))
             .map_err(|e| e.to_string())
+    }
+
+    /// A tiled atlas: the leaves that `step`'s outline crosses and that are not here yet (their
+    /// items must be tested one by one, so they are fetched before the step is applied).
+    pub fn leaves_to_test(&self, step: &Step) -> Vec<usize> {
+        let Some(t) = &self.atlas.tiled else {
+            return Vec::new();
+        };
+        let poly = match &step.shape {
+            Shape::Lasso(p) => p.clone(),
+            Shape::Rect(r) => vitrine_corpus::polygon::Polygon::rect(*r),
+            _ => return Vec::new(),
+        };
+        t.lasso_leaves(&poly)
+            .1
+            .into_iter()
+            .filter(|&l| t.leaf_state[l] != crate::tiled::Fetch::Here)
+            .collect()
     }
 
     /// A selection begun now (there are no steps yet) is on the map shown.

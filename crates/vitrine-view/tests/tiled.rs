@@ -296,3 +296,82 @@ fn a_tiled_atlas_filters_every_item_from_its_fetched_columns_and_dims_its_overvi
     let e = v.atlas.join_chunks(r, &got).unwrap_err().to_string();
     assert!(e.contains(&f), "{e}");
 }
+
+#[test]
+fn a_lasso_on_a_tiled_atlas_takes_leaves_inside_whole_and_tests_those_it_crosses() {
+    use vitrine_corpus::corpus::{Op, Shape, Step};
+    use vitrine_corpus::polygon::Polygon;
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    inputs(d);
+    let (whole, _) = common::build_and_open(&options(d, "whole", None));
+    let o = options(d, "tiled", Some(20));
+    build(&o, &Silent).unwrap();
+    let on_disk = Atlas::open(&o.out).unwrap();
+    let mut v = viewer(AtlasData::tiled(on_disk.manifest.clone()).unwrap());
+    let mut w = viewer(whole);
+    // A wide lasso about the map's centre (an irregular outline of 40 points), and a small
+    // rectangle in one corner of it.
+    let b = w.atlas.bounds;
+    let (cx, cy) = ((b[0] + b[2]) as f64 / 2.0, (b[1] + b[3]) as f64 / 2.0);
+    let (rx, ry) = ((b[2] - b[0]) as f64 * 0.4, (b[3] - b[1]) as f64 * 0.4);
+    let outline: Vec<[f64; 2]> = (0..40)
+        .map(|k| {
+            let a = k as f64 / 40.0 * std::f64::consts::TAU;
+            let r = 1.0 + 0.2 * (5.0 * a).sin();
+            [cx + rx * r * a.cos(), cy + ry * r * a.sin()]
+        })
+        .collect();
+    let steps = [
+        Step {
+            op: Op::Replace,
+            shape: Shape::Lasso(Polygon(outline)),
+        },
+        Step {
+            op: Op::Subtract,
+            shape: Shape::Rect([cx - rx * 0.3, cy - ry * 0.3, cx, cy]),
+        },
+    ];
+    let mut fetched = 0;
+    for step in steps {
+        // The leaves the outline crosses are fetched first, as the page does.
+        for leaf in v.leaves_to_test(&step) {
+            let files = leaf_files(&on_disk, &v, leaf);
+            v.insert_leaf(leaf, &sums(&on_disk), &files).unwrap();
+            fetched += 1;
+        }
+        assert!(v.leaves_to_test(&step).is_empty());
+        v.apply_step(step.clone()).unwrap();
+        w.apply_step(step).unwrap();
+    }
+    let t = v.atlas.tiled.as_ref().unwrap();
+    let here = t.leaf_state.iter().filter(|s| **s == Fetch::Here).count();
+    assert_eq!(here, fetched);
+    assert!(
+        here < t.runs.len(),
+        "{here} of {} leaves fetched",
+        t.runs.len()
+    );
+    let (sv, sw) = (
+        v.selection.mask().unwrap().clone(),
+        w.selection.mask().unwrap().clone(),
+    );
+    assert!(sw.count() > 100, "{} selected", sw.count());
+    assert_eq!(sv.count(), sw.count());
+    // Every leaf here: the selected items are the same records, by their places.
+    for leaf in 0..t.runs.len() {
+        if v.atlas.tiled.as_ref().unwrap().leaf_state[leaf] != Fetch::Here {
+            let files = leaf_files(&on_disk, &v, leaf);
+            v.insert_leaf(leaf, &sums(&on_disk), &files).unwrap();
+        }
+    }
+    let places = |x: &Viewer, m: &vitrine_corpus::mask::Mask| {
+        let mut p: Vec<[u32; 2]> = m
+            .items()
+            .map(|i| x.atlas.positions[i].map(f32::to_bits))
+            .collect();
+        p.sort();
+        p
+    };
+    assert_eq!(places(&v, &sv), places(&w, &sw));
+}

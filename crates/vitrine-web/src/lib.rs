@@ -929,6 +929,44 @@ fn fetch_tiles() {
     }
 }
 
+/// A tiled atlas: fetches the leaves `leaves` that are not here (and waits for those on their
+/// way); returns how many could not be loaded.
+pub async fn load_leaves(leaves: &[usize]) -> usize {
+    for &l in leaves {
+        fetch_leaf(l);
+    }
+    loop {
+        let Some(app) = app() else { return 0 };
+        let (pending, failed) = {
+            let a = app.borrow();
+            let Some(t) = a.atlas.tiled.as_ref() else {
+                return 0;
+            };
+            use vitrine_view::tiled::Fetch;
+            let state = |l: usize| t.leaf_state.get(l).copied().unwrap_or(Fetch::Failed);
+            (
+                leaves
+                    .iter()
+                    .filter(|&&l| matches!(state(l), Fetch::Absent | Fetch::Loading))
+                    .count(),
+                leaves
+                    .iter()
+                    .filter(|&&l| state(l) == Fetch::Failed)
+                    .count(),
+            )
+        };
+        if pending == 0 {
+            return failed;
+        }
+        let p = js_sys::Promise::new(&mut |resolve, _| {
+            let _ = web_sys::window()
+                .unwrap()
+                .set_timeout_with_callback_and_timeout_and_arguments_0(resolve.unchecked_ref(), 20);
+        });
+        let _ = JsFuture::from(p).await;
+    }
+}
+
 /// Starts fetching leaf `leaf`'s drawing data unless it is here or on its way (for the view, or
 /// for items shown elsewhere: the tray, a record card); once here, the map and the tray are drawn
 /// again.
@@ -2229,6 +2267,8 @@ pub fn view_state() -> String {
         "present": if a.gpu.direct.is_some() { "canvas" } else { "surface" },
         "items": a.atlas.n,
         "zoom": a.camera.zoom / a.base_zoom,
+        // The selection's steps, in map coordinates (as a corpus file holds them).
+        "steps": a.selection.steps(),
         "side_px": a.last.side_px,
         "marks": a.last.marks,
         "thumbnails": a.last.thumbnails,

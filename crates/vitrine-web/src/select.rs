@@ -141,10 +141,39 @@ pub fn draw_sketch(s: Option<&Sketch>) {
     let _ = svg.remove_attribute("hidden");
 }
 
-/// Adds a step to the selection (the page's count, tray and picture follow).
+/// Adds a step to the selection (the page's count, tray and picture follow). In a tiled atlas,
+/// the leaves the outline crosses are fetched first (their items are tested one by one).
 pub fn apply(step: Step) {
     let Some(app) = app() else { return };
+    let wanted = app.borrow().leaves_to_test(&step);
+    if wanted.is_empty() {
+        return apply_now(step);
+    }
+    note(&format!(
+        "Fetching the {} part{} of the map the outline crosses…",
+        wanted.len(),
+        if wanted.len() == 1 { "" } else { "s" }
+    ));
+    set_state("selecting", "fetching");
+    wasm_bindgen_futures::spawn_local(async move {
+        let failed = super::load_leaves(&wanted).await;
+        set_state("selecting", "");
+        apply_now(step);
+        if failed > 0 {
+            note(&format!(
+                "{failed} part{} of the map the outline crosses could not be loaded: their items \
+                 are left out of the selection.",
+                if failed == 1 { "" } else { "s" }
+            ));
+        }
+    });
+}
+
+fn apply_now(step: Step) {
+    let Some(app) = app() else { return };
     note("");
+    // A tiled atlas dims its overview pictures from the items' cells: fetched the first time.
+    super::columns::ensure(Vec::new(), || {});
     let result = app.borrow_mut().apply_step(step);
     refresh();
     if let Err(e) = result {
