@@ -75,17 +75,23 @@ fn sums(on_disk: &Atlas) -> AtlasFiles {
     files
 }
 
-#[test]
-fn a_tiled_atlas_draws_its_overviews_then_the_same_items_as_the_whole_one() {
+/// The inputs built whole and tiled (leaves of at most `capacity` items): the folder they are in,
+/// the tiled atlas on disk, a viewer of it with nothing fetched, and a viewer of the whole one.
+fn built(capacity: u64) -> (tempfile::TempDir, Atlas, Viewer, Viewer) {
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();
     inputs(d);
     let (whole, _) = common::build_and_open(&options(d, "whole", None));
-    let o = options(d, "tiled", Some(40));
+    let o = options(d, "tiled", Some(capacity));
     build(&o, &Silent).unwrap();
     let on_disk = Atlas::open(&o.out).unwrap();
-    let mut v = viewer(AtlasData::tiled(on_disk.manifest.clone()).unwrap());
-    let mut w = viewer(whole);
+    let v = viewer(AtlasData::tiled(on_disk.manifest.clone()).unwrap());
+    (dir, on_disk, v, viewer(whole))
+}
+
+#[test]
+fn a_tiled_atlas_draws_its_overviews_then_the_same_items_as_the_whole_one() {
+    let (_dir, on_disk, mut v, mut w) = built(40);
     let (pw, ph) = (640usize, 400usize);
     let mut buf = vec![0u8; pw * ph * 4];
 
@@ -192,15 +198,7 @@ fn chunks_of(on_disk: &Atlas, v: &Viewer, r: &vitrine_format::ArrayRef) -> Atlas
 #[test]
 fn a_tiled_atlas_filters_every_item_from_its_fetched_columns_and_dims_its_overviews() {
     use vitrine_corpus::filter::Filter;
-    let dir = tempfile::tempdir().unwrap();
-    let d = dir.path();
-    inputs(d);
-    let (whole, _) = common::build_and_open(&options(d, "whole", None));
-    let o = options(d, "tiled", Some(40));
-    build(&o, &Silent).unwrap();
-    let on_disk = Atlas::open(&o.out).unwrap();
-    let mut v = viewer(AtlasData::tiled(on_disk.manifest.clone()).unwrap());
-    let mut w = viewer(whole);
+    let (_dir, on_disk, mut v, mut w) = built(40);
     let field = on_disk
         .manifest
         .fields
@@ -301,15 +299,7 @@ fn a_tiled_atlas_filters_every_item_from_its_fetched_columns_and_dims_its_overvi
 fn a_lasso_on_a_tiled_atlas_takes_leaves_inside_whole_and_tests_those_it_crosses() {
     use vitrine_corpus::corpus::{Op, Shape, Step};
     use vitrine_corpus::polygon::Polygon;
-    let dir = tempfile::tempdir().unwrap();
-    let d = dir.path();
-    inputs(d);
-    let (whole, _) = common::build_and_open(&options(d, "whole", None));
-    let o = options(d, "tiled", Some(20));
-    build(&o, &Silent).unwrap();
-    let on_disk = Atlas::open(&o.out).unwrap();
-    let mut v = viewer(AtlasData::tiled(on_disk.manifest.clone()).unwrap());
-    let mut w = viewer(whole);
+    let (_dir, on_disk, mut v, mut w) = built(20);
     // A wide lasso about the map's centre (an irregular outline of 40 points), and a small
     // rectangle in one corner of it.
     let b = w.atlas.bounds;
