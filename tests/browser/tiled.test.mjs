@@ -120,6 +120,15 @@ function firstItem(t) {
   return [b.readFloatLE(0), b.readFloatLE(4)];
 }
 
+/** The id of the first item of leaf tile `t`, read from its chunks of the ids on disk. */
+function firstId(t) {
+  const leaf = manifest.tiles.pyramid.tiles.slice(0, t).filter((x) => !x.children).length;
+  const chunk = (r) => fs.readFileSync(path.join(dir, "atlas", r.file.replace(/\.bin$/, ""),
+    `${String(leaf).padStart(5, "0")}.bin`));
+  const offsets = chunk(manifest.ids);
+  return chunk(manifest.ids_text).subarray(0, offsets.readUInt32LE(4)).toString("utf8");
+}
+
 test("a tiled atlas opens from its overview pictures and draws its leaves' items zoomed in", async () => {
   assert.equal(manifest.format_version, 3);
   const { page, errors } = await open();
@@ -143,6 +152,14 @@ test("a tiled atlas opens from its overview pictures and draws its leaves' items
   s = await state(page);
   assert.ok(s.thumbnails > 0, `thumbnails at 60 times the fitted zoom: ${JSON.stringify(s)}`);
   assert.ok(await inked(page, "12-tiled-zoomed.png") > 20000);
+  // A click on the item at the centre opens its record card: its leaf's records are fetched and
+  // the card shows the id the leaf's chunk of ids holds on disk.
+  const box = await page.locator("#map").boundingBox();
+  await page.mouse.click(box.x + box.width / 2, box.y + box.height / 2);
+  const id = firstId(leaf);
+  await page.waitForFunction((id) => (document.getElementById("card")?.innerText || "").includes(id), id,
+    { timeout: 30000 });
+  await page.screenshot({ path: path.join(ARTIFACTS, "12-tiled-card.png") });
   assert.deepEqual(errors, []);
   await page.close();
 });

@@ -46,6 +46,15 @@ pub struct AtlasData {
     /// and stay (20 bytes an item at most: 500 MB for 25 million); `maps` then holds the tiled
     /// map alone, without positions.
     pub tiled: Option<crate::tiled::Tiled>,
+    /// A tiled atlas: the catalogue records of the leaves fetched for record cards, by leaf.
+    pub leaf_records: std::collections::HashMap<usize, LeafRecords>,
+}
+
+/// One leaf's catalogue records (ids, fields, clusters), its items numbered from 0.
+pub struct LeafRecords {
+    pub ids: TextTable,
+    pub fields: Vec<FieldColumn>,
+    pub clusters: Vec<u32>,
 }
 
 /// Most items of a tiled atlas the viewer opens: 100 million, 2 GB of drawing data at most.
@@ -280,6 +289,7 @@ impl AtlasData {
             image_sizes: Vec::new(),
             copies: Default::default(),
             tiled: None,
+            leaf_records: Default::default(),
         };
         if later {
             atlas.complete(files)?;
@@ -343,6 +353,7 @@ impl AtlasData {
             image_sizes: Vec::new(),
             copies: Default::default(),
             tiled: Some(crate::tiled::Tiled::new(tiles)),
+            leaf_records: Default::default(),
             manifest,
         })
     }
@@ -512,6 +523,106 @@ impl AtlasData {
         Ok(whole)
     }
 
+    /// A tiled atlas: the arrays of the catalogue records (ids, every field's arrays, cluster
+    /// numbers), stored by leaf.
+    pub fn record_arrays(&self) -> Vec<vitrine_format::ArrayRef> {
+        let m = &self.manifest;
+        let mut v = vec![m.ids.clone(), m.ids_text.clone()];
+        for f in &m.fields {
+            v.extend(
+                vitrine_corpus::columns::field_arrays(f)
+                    .into_iter()
+                    .cloned(),
+            );
+        }
+        v.extend(m.clusters.iter().map(|c| c.ids.clone()));
+        v
+    }
+
+    /// A tiled atlas: leaf `leaf`'s records from its chunks of the [`AtlasData::record_arrays`]
+    /// (in `files`; each array's list of checksums in `sums`), each chunk checked against its
+    /// sum, decoded as a catalogue of the leaf's items.
+    pub fn insert_records(
+        &mut self,
+        leaf: usize,
+        sums: &AtlasFiles,
+        files: &AtlasFiles,
+    ) -> Result<(), AtlasError> {
+        let Some(t) = &self.tiled else {
+            return Err(AtlasError::Inconsistent("not a tiled atlas".into()));
+        };
+        let [a, b] = t.runs[leaf];
+        let tiles = self
+            .manifest
+            .tiles
+            .as_ref()
+            .expect("a tiled atlas has tiles");
+        // Each array's chunk declared as an array of its own, its checksum from the list.
+        let part = |r: &vitrine_format::ArrayRef| -> Result<vitrine_format::ArrayRef, AtlasError> {
+            let c = tiles.chunked(&r.file).ok_or_else(|| {
+                AtlasError::Inconsistent(format!("{} is not stored by leaf", r.file))
+            })?;
+            let list = sums.bytes(&c.sums)?;
+            c.sums.verify(list)?;
+            let sum = list.get(32 * leaf..32 * leaf + 32).ok_or_else(|| {
+                AtlasError::Inconsistent(format!("{}: no checksum for leaf {leaf}", c.sums.file))
+            })?;
+            let file = vitrine_format::tiles::chunk_file(&r.file, leaf);
+            let len = files.get(&file).map_or(0, |b| b.len() as u64);
+            Ok(vitrine_format::ArrayRef {
+                file,
+                dtype: r.dtype,
+                count: len / r.dtype.size().max(1),
+                bytes: len,
+                sha256: sum.iter().map(|x| format!("{x:02x}")).collect(),
+            })
+        };
+        let mut m = self.manifest.clone();
+        m.item_count = b - a;
+        let ids = files.text(&part(&m.ids)?, &part(&m.ids_text)?, b - a)?;
+        let mut fields = Vec::new();
+        for f in &self.manifest.fields {
+            let mut g = f.clone();
+            g.column = part(&f.column)?;
+            g.column2 = f.column2.as_ref().map(&part).transpose()?;
+            g.written = match &f.written {
+                Some([x, y]) => Some([part(x)?, part(y)?]),
+                None => None,
+            };
+            g.multi = match &f.multi {
+                Some([x, y]) => Some([part(x)?, part(y)?]),
+                None => None,
+            };
+            fields.push(vitrine_corpus::columns::decode_field(&m, &g, files)?);
+        }
+        let clusters = match &self.manifest.clusters {
+            Some(c) => files.array::<u32>(&part(&c.ids)?)?,
+            None => Vec::new(),
+        };
+        self.leaf_records.insert(
+            leaf,
+            LeafRecords {
+                ids,
+                fields,
+                clusters,
+            },
+        );
+        Ok(())
+    }
+
+    /// A tiled atlas: item `i`'s leaf's records, if here, and its place among them.
+    fn leaf_record(&self, i: usize) -> Option<(&LeafRecords, usize)> {
+        let t = self.tiled.as_ref()?;
+        let leaf = t.leaf_of(i);
+        let r = self.leaf_records.get(&leaf)?;
+        Some((r, i - t.runs[leaf][0] as usize))
+    }
+
+    /// Whether item `i`'s record can be shown: the catalogue is here, or (tiled) its leaf's.
+    pub fn has_record(&self, i: usize) -> bool {
+        self.catalogue || self.leaf_record(i).is_some()
+    }
+
     /// Whether catalogue field `name`'s column is here (every field once the catalogue is; in a
     /// tiled atlas, a field once its column has been fetched).
     pub fn has_field(&self, name: &str) -> bool {
@@ -571,26 +682,28 @@ impl AtlasData {
     pub fn id(&self, i: usize) -> &str {
         if self.catalogue {
             self.ids.get(i)
+        } else if let Some((r, k)) = self.leaf_record(i) {
+            r.ids.get(k)
         } else {
             ""
         }
     }
 
     pub fn label(&self, i: usize) -> String {
-        if self.tiled.is_some() && !self.catalogue {
-            return format!("item {}", i + 1);
-        }
-        if !self.catalogue {
-            return format!("item {} (the catalogue is loading)", i + 1);
-        }
-        for f in &self.fields {
+        let (ids, fields, k) = match (self.catalogue, self.leaf_record(i)) {
+            (true, _) => (&self.ids, &self.fields, i),
+            (false, Some((r, k))) => (&r.ids, &r.fields, k),
+            (false, None) if self.tiled.is_some() => return format!("item {}", i + 1),
+            (false, None) => return format!("item {} (the catalogue is loading)", i + 1),
+        };
+        for f in fields {
             if let Column::Text(t) = &f.column {
-                if f.field.name.to_lowercase().contains("title") && !t.get(i).is_empty() {
-                    return t.get(i).to_string();
+                if f.field.name.to_lowercase().contains("title") && !t.get(k).is_empty() {
+                    return t.get(k).to_string();
                 }
             }
         }
-        self.ids.get(i).to_string()
+        ids.get(k).to_string()
     }
 
     /// Every catalogue field of item `i`, as text, in catalogue order (the id first). The field the
@@ -606,12 +719,16 @@ impl AtlasData {
             .copies
             .as_ref()
             .and_then(|c| c.field.as_deref());
-        for f in self
-            .fields
+        // A tiled atlas without its catalogue: the item's leaf's records.
+        let (fields, clusters, k) = match (self.catalogue, self.leaf_record(i)) {
+            (false, Some((r, k))) => (&r.fields, &r.clusters, k),
+            _ => (&self.fields, &self.clusters, i),
+        };
+        for f in fields
             .iter()
             .filter(|f| Some(f.field.name.as_str()) != added)
         {
-            let value = f.text(i);
+            let value = f.text(k);
             let link = f.field.kind == FieldKind::Link
                 && (value.starts_with("https://") || value.starts_with("http://"));
             out.push(RecordLine {
@@ -620,7 +737,7 @@ impl AtlasData {
                 link,
             });
         }
-        if let (Some(c), Some(&id)) = (&self.manifest.clusters, self.clusters.get(i)) {
+        if let (Some(c), Some(&id)) = (&self.manifest.clusters, clusters.get(k)) {
             if let Some(info) = c.list.get(id as usize) {
                 out.push(RecordLine {
                     name: "cluster".into(),

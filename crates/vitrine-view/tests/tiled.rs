@@ -365,3 +365,50 @@ fn a_lasso_on_a_tiled_atlas_takes_leaves_inside_whole_and_tests_those_it_crosses
     };
     assert_eq!(places(&v, &sv), places(&w, &sw));
 }
+
+#[test]
+fn a_tiled_atlas_shows_a_record_from_its_leaf_as_the_whole_atlas_does() {
+    let (_dir, on_disk, mut v, w) = built(40);
+    let leaf = 2;
+    let files = leaf_files(&on_disk, &v, leaf);
+    v.insert_leaf(leaf, &sums(&on_disk), &files).unwrap();
+    let [a, b] = v.atlas.tiled.as_ref().unwrap().runs[leaf];
+    assert!(!v.atlas.has_record(a as usize));
+    // The leaf's chunks of every catalogue array, with their lists of checksums.
+    let mut got = AtlasFiles::new();
+    for r in v.atlas.record_arrays() {
+        let (list, names) = v.atlas.chunk_files(&r).unwrap();
+        for f in [&names[leaf], &list.file] {
+            got.insert(f.clone(), std::fs::read(on_disk.dir.join(f)).unwrap());
+        }
+    }
+    v.atlas.insert_records(leaf, &got, &got).unwrap();
+    for i in a as usize..b as usize {
+        assert!(v.atlas.has_record(i));
+        // The same record in the whole atlas: the item at the same place.
+        let j = (0..w.atlas.n)
+            .find(|&j| w.atlas.positions[j] == v.atlas.positions[i])
+            .unwrap();
+        assert_eq!(v.atlas.id(i), w.atlas.id(j));
+        assert_eq!(v.atlas.label(i), w.atlas.label(j));
+        let line = |r: &vitrine_view::atlas::RecordLine| (r.name.clone(), r.value.clone());
+        let (rv, rw): (Vec<_>, Vec<_>) = (
+            v.atlas.record(i).iter().map(line).collect(),
+            w.atlas.record(j).iter().map(line).collect(),
+        );
+        assert_eq!(rv, rw);
+    }
+    // Another leaf's items have none yet; a damaged chunk is refused.
+    assert!(!v.atlas.has_record(b as usize));
+    let r = &v.atlas.record_arrays()[2];
+    let f = vitrine_format::tiles::chunk_file(&r.file, leaf);
+    let mut bad = got.get(&f).unwrap().to_vec();
+    bad[0] ^= 1;
+    got.insert(f.clone(), bad);
+    let e = v
+        .atlas
+        .insert_records(leaf, &got, &got)
+        .unwrap_err()
+        .to_string();
+    assert!(e.contains(&f), "{e}");
+}

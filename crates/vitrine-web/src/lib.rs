@@ -1091,6 +1091,11 @@ fn open_card(i: Option<usize>) {
         request_frame();
         return;
     };
+    // A tiled atlas: the records of the item's leaf, if they are not here (the card is drawn
+    // again when they are).
+    if !app.borrow().atlas.has_record(i) {
+        fetch_records(i);
+    }
     // The neighbour list, if its chunk is here (else the chunk is fetched and the card redrawn).
     let nb = app.borrow_mut().atlas.neighbours_of(i);
     if nb.is_none() {
@@ -1447,6 +1452,70 @@ fn fetch_neighbours(i: usize) {
         }
         // The links on the map may wait for this list.
         request_frame();
+    });
+}
+
+thread_local! {
+    /// A tiled atlas: the leaves whose records are on their way.
+    static FETCHING_RECORDS: RefCell<HashSet<usize>> = RefCell::new(HashSet::new());
+}
+
+/// A tiled atlas: fetches the catalogue records of item `i`'s leaf (its chunk of the ids and of
+/// every field, and the lists of checksums not here yet); the open card is drawn again after.
+fn fetch_records(i: usize) {
+    let Some(app) = app() else { return };
+    let (leaf, files, lists) = {
+        let a = app.borrow();
+        let Some(t) = a.atlas.tiled.as_ref() else {
+            return;
+        };
+        let leaf = t.leaf_of(i);
+        let (mut files, mut lists) = (Vec::new(), Vec::new());
+        for r in a.atlas.record_arrays() {
+            let Some((list, names)) = a.atlas.chunk_files(&r) else {
+                continue;
+            };
+            files.push((names[leaf].clone(), 0));
+            if !a.tile_sums.contains(&list.file) && !lists.iter().any(|(f, _)| f == &list.file) {
+                lists.push((list.file.clone(), list.bytes));
+            }
+        }
+        (leaf, files, lists)
+    };
+    if !FETCHING_RECORDS.with(|f| f.borrow_mut().insert(leaf)) {
+        return;
+    }
+    wasm_bindgen_futures::spawn_local(async move {
+        let got = fetch_many("", &files).await;
+        let listed = fetch_many("", &lists).await;
+        let Some(app) = self::app() else { return };
+        FETCHING_RECORDS.with(|f| f.borrow_mut().remove(&leaf));
+        let open = {
+            let mut guard = app.borrow_mut();
+            let a = &mut *guard;
+            let result = got.and_then(|got| {
+                let mut listed = listed?;
+                for (f, _) in &lists {
+                    a.tile_sums
+                        .insert(f.clone(), listed.take(f).unwrap_or_default());
+                }
+                a.viewer
+                    .atlas
+                    .insert_records(leaf, &a.tile_sums, &got)
+                    .map_err(|e| e.to_string())
+            });
+            if let Err(e) = result {
+                let msg = format!("the record could not be loaded: {e}");
+                web_sys::console::warn_1(&msg.clone().into());
+                select::note(&msg);
+                return;
+            }
+            let leaf_of = |o: usize| a.atlas.tiled.as_ref().map(|t| t.leaf_of(o));
+            a.open.filter(|&o| leaf_of(o) == Some(leaf))
+        };
+        if open.is_some() {
+            open_card(open);
+        }
     });
 }
 
