@@ -197,7 +197,7 @@ try {
       const before = window.vitrineView.view_state();
       window.vitrineView.select_lasso(pts, op);
       const steps = () => JSON.parse(window.vitrineView.view_state()).steps.length;
-      const want = op === "replace" ? 1 : JSON.parse(before).steps.length + 1;
+      const want = JSON.parse(before).steps.length + 1;
       while (document.body.dataset.selecting || steps() !== want) await new Promise((r) => setTimeout(r, 2));
       await new Promise((r) => requestAnimationFrame(() => requestAnimationFrame(r)));
       return performance.now() - t0;
