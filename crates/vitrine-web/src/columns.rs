@@ -183,8 +183,8 @@ async fn fetch_now(names: &[String], cells: bool) -> Result<(), String> {
     if cells {
         let r = a.atlas.manifest.tiles.as_ref().map(|t| t.cells.clone());
         if let (Some(r), Some(t)) = (r, a.atlas.tiled.as_mut()) {
-            if let Some(b) = whole.get(&r.file) {
-                t.cells = b.to_vec();
+            if let Some(b) = whole.take(&r.file) {
+                t.cells = b;
             }
         }
     }
